@@ -1,0 +1,8 @@
+//! The streaming pipeline: runs a checked scenario on a uniform analog grid, in blocks.
+
+pub mod decimate;
+pub mod pipeline;
+pub mod probe;
+pub mod stream;
+
+pub use stream::{AnalogRecord, CodeEvent, CodeRecord, Timebase};

@@ -1,0 +1,11 @@
+//! Meters: spectra, dynamic metrics, sine fits, latency and static tests. Pure functions of records;
+//! nothing here knows about TOML or files.
+
+pub mod coherent;
+pub mod fidelity;
+pub mod latency;
+pub mod metrics;
+pub mod sinefit;
+pub mod spectrum;
+pub mod static_test;
+pub mod window;

@@ -1,0 +1,89 @@
+//! Stage models, one file per stage kind.
+//!
+//! Continuous-time stages ([`AnalogStage`]) run on the uniform analog grid. Converter-side stages
+//! (sample-and-hold, SAR ADC, link, DAC) work with events at exact instants and have their own APIs.
+
+use num_complex::Complex64;
+
+/// A continuous-time stage realised on the analog grid (dt fixed at construction).
+///
+/// `tick` is the per-sample path; `process` the block path. The two must agree exactly (a unit test per
+/// implementor checks it).
+pub trait AnalogStage: Send {
+    /// Advance one grid step with input `x_v`; return the output at the same instant.
+    fn tick(&mut self, x_v: f64) -> f64;
+
+    /// Process a block. `input.len() == output.len()`.
+    fn process(&mut self, input: &[f64], output: &mut [f64]) {
+        for (x, y) in input.iter().zip(output.iter_mut()) {
+            *y = self.tick(*x);
+        }
+    }
+
+    /// The analytic small-signal response of the continuous-time model at `f_hz`, where the model is linear.
+    fn response(&self, f_hz: f64) -> Option<Complex64>;
+
+    /// Phase delay at `f_hz` (s): -arg(H)/(2 pi f), with the analytic response, for the latency budget.
+    fn phase_delay_s(&self, f_hz: f64) -> f64 {
+        match self.response(f_hz) {
+            Some(h) if f_hz > 0.0 => {
+                -unwrapped_phase(self, f_hz, h) / (2.0 * std::f64::consts::PI * f_hz)
+            }
+            _ => 0.0,
+        }
+    }
+
+    /// Group delay at `f_hz` (s): -d arg(H)/d omega, by a central difference of the analytic response.
+    fn group_delay_s(&self, f_hz: f64) -> f64 {
+        let df = (f_hz.abs() * 1e-4).max(1e-3);
+        let lo = (f_hz - df).max(0.0);
+        let hi = f_hz + df;
+        match (self.response(lo), self.response(hi)) {
+            (Some(a), Some(b)) => {
+                let mut dphi = (b / a).arg();
+                if !dphi.is_finite() {
+                    dphi = 0.0;
+                }
+                -dphi / (2.0 * std::f64::consts::PI * (hi - lo))
+            }
+            _ => 0.0,
+        }
+    }
+}
+
+/// Phase of `h` at `f_hz`, unwrapped by integrating the phase along frequency from near DC.
+fn unwrapped_phase<S: AnalogStage + ?Sized>(stage: &S, f_hz: f64, h: Complex64) -> f64 {
+    const STEPS: usize = 256;
+    let mut prev = match stage.response(f_hz * 1e-6) {
+        Some(h0) => h0,
+        None => return h.arg(),
+    };
+    let mut phase = prev.arg();
+    for i in 1..=STEPS {
+        let f = f_hz * (i as f64 / STEPS as f64);
+        let cur = if i == STEPS {
+            h
+        } else {
+            stage.response(f).unwrap_or(h)
+        };
+        phase += (cur / prev).arg();
+        prev = cur;
+    }
+    phase
+}
+
+/// Something that can tell the value of the signal entering a stage at an arbitrary instant (within
+/// what it has seen).
+pub trait Probe {
+    /// Value (V) at time `t_s`.
+    fn value_at(&self, t_s: f64) -> f64;
+}
+
+pub mod amplifier;
+pub mod dac;
+pub mod filter;
+pub mod link;
+pub mod sample_hold;
+pub mod sar_adc;
+pub mod slew;
+pub mod source;
