@@ -6,15 +6,26 @@
 //! - [`stages`]: one file per stage kind (sources, filters, sample-and-hold, SAR ADC, link, DAC, amplifier);
 //! - [`engine`]: the streaming pipeline that runs a scenario on a uniform analog grid, in blocks;
 //! - [`measure`]: spectra, dynamic metrics, sine fits, latency, static tests;
-//! - [`report`]: JSON, CSV and text output.
+//! - [`report`]: JSON, CSV and text output;
+//! - [`runner`]: a whole run, from a checked scenario to files in a folder.
 //!
 //! Units are explicit in names: `_s` seconds, `_hz` hertz, `_v` volts, `_db` decibels.
+//!
+//! ```
+//! let sc = convchain::scenario::parse_str(convchain::DEFAULT_SCENARIO, "<demo>", std::path::Path::new(".")).unwrap();
+//! assert!(!sc.stages.is_empty());
+//! ```
 
 pub mod engine;
 pub mod error;
 pub mod measure;
 pub mod report;
+pub mod runner;
 pub mod scenario;
 pub mod stages;
 
 pub use error::Error;
+pub use runner::{RunOptions, run_to_dir, static_to_dir};
+
+/// The scenario `convchain run` uses when none is given (an invented demo: a 16-bit audio interface).
+pub const DEFAULT_SCENARIO: &str = include_str!("../scenarios/studio-interface.toml");

@@ -1,1 +1,128 @@
-//! (to be written)
+//! Readable summary tables for the terminal.
+
+use std::fmt::Write;
+
+use crate::engine::pipeline::si;
+use crate::report::json::Report;
+use crate::runner::StaticReport;
+
+fn db(x: Option<f64>) -> String {
+    x.map(|v| format!("{v:.2} dB")).unwrap_or_else(|| "-".into())
+}
+fn bits(x: Option<f64>) -> String {
+    x.map(|v| format!("{v:.2} bits")).unwrap_or_else(|| "-".into())
+}
+
+/// The summary printed by `convchain run`.
+pub fn summary(r: &Report) -> String {
+    let mut s = String::new();
+    let _ = writeln!(s, "{}  ({})", r.scenario.name, r.scenario.origin);
+    if let (Some(req), Some(used)) = (r.run.requested_frequency_hz, r.run.frequency_hz) {
+        if (req - used).abs() > 0.0 {
+            let _ = writeln!(
+                s,
+                "  source moved from {} to {} for coherent sampling ({} cycles)",
+                si(req, "Hz"),
+                si(used, "Hz"),
+                r.run.coherent_cycles.unwrap_or(0)
+            );
+        }
+    }
+    let _ = writeln!(s);
+    let _ = writeln!(s, "  {:<14}{:>14}{:>14}", "", "ADC codes", "analog output");
+    let a = r.adc.as_ref().map(|a| &a.metrics);
+    let o = &r.output;
+    let row = |s: &mut String, name: &str, x: String, y: String| {
+        let _ = writeln!(s, "  {name:<14}{x:>14}{y:>14}");
+    };
+    row(&mut s, "SNR", db(a.and_then(|a| a.snr_db)), db(o.snr_db));
+    row(&mut s, "SINAD", db(a.and_then(|a| a.sinad_db)), db(o.sinad_db));
+    row(&mut s, "ENOB", bits(a.and_then(|a| a.enob_bits)), bits(o.enob_bits));
+    row(
+        &mut s,
+        "ENOB (fit)",
+        bits(a.and_then(|a| a.enob_sinefit_bits)),
+        "".into(),
+    );
+    row(&mut s, "THD", db(a.and_then(|a| a.thd_db)), db(o.thd_db));
+    row(
+        &mut s,
+        "SFDR",
+        a.and_then(|a| a.sfdr_dbc)
+            .map(|v| format!("{v:.2} dBc"))
+            .unwrap_or("-".into()),
+        o.sfdr_dbc.map(|v| format!("{v:.2} dBc")).unwrap_or("-".into()),
+    );
+    row(&mut s, "gain", "".into(), db(o.gain_db));
+    row(
+        &mut s,
+        "fidelity",
+        "".into(),
+        format!("{:.2} dB", o.fidelity_db),
+    );
+    if let Some(a) = a {
+        let _ = writeln!(
+            s,
+            "\n  ADC: {} bits at {}, conversion {}, {} codes clipped; output band {}",
+            a.bits,
+            si(a.sample_rate_hz, "Hz"),
+            si(a.conversion_time_s, "s"),
+            a.codes_clipped,
+            si(o.band_hz, "Hz")
+        );
+    }
+    if o.bits_flipped > 0 {
+        let _ = writeln!(s, "  link: {} bits flipped", o.bits_flipped);
+    }
+    let l = &r.latency;
+    let _ = writeln!(s, "\n  latency budget");
+    for b in &l.budget {
+        let _ = writeln!(s, "    {:<52}{:>14}", b.stage, si(b.seconds, "s"));
+    }
+    let _ = writeln!(s, "    {:<52}{:>14}", "total (budget)", si(l.budget_s, "s"));
+    let _ = writeln!(s, "    {:<52}{:>14}", "measured (cross-correlation)", si(l.measured_s, "s"));
+    if let Some(p) = l.phase_delay_s {
+        let _ = writeln!(s, "    {:<52}{:>14}", "phase delay at the fundamental", si(p, "s"));
+    }
+    let _ = writeln!(
+        s,
+        "    {:<52}{:>14}{}",
+        "measured - budget",
+        si(l.difference_s, "s"),
+        if l.flagged { "  <- large: check the model" } else { "" }
+    );
+    for w in &r.scenario.warnings {
+        let _ = writeln!(s, "  warning: {w}");
+    }
+    s
+}
+
+/// The summary printed by `convchain static`.
+pub fn static_summary(r: &StaticReport) -> String {
+    let mut s = String::new();
+    let _ = writeln!(s, "{}  static tests", r.scenario);
+    let _ = writeln!(
+        s,
+        "  {:<22}{:>12}{:>12}{:>10}{:>11}",
+        "", "DNL max", "INL max", "missing", "monotonic"
+    );
+    let mut row = |name: &str, x: &crate::measure::static_test::StaticResult| {
+        let _ = writeln!(
+            s,
+            "  {:<22}{:>8.3} LSB{:>8.3} LSB{:>10}{:>11}",
+            name,
+            x.dnl_max_lsb,
+            x.inl_max_lsb,
+            x.missing_codes,
+            if x.monotonic { "yes" } else { "no" }
+        );
+    };
+    if let Some(a) = &r.stat.adc {
+        row("ADC (code density)", &a.code_density);
+        row("ADC (slow ramp)", &a.ramp);
+    }
+    if let Some(d) = &r.stat.dac {
+        row("DAC (every code)", &d.result);
+    }
+    s
+}

@@ -1,0 +1,293 @@
+//! Measuring a whole run: the ADC record, the analog output, fidelity and latency, with the definitions of
+//! IEEE Std 1241 (ADC) and IEEE Std 1658 (DAC) applied through the meters of this module.
+
+use serde::Serialize;
+
+use crate::engine::pipeline::RunOutput;
+use crate::measure::latency::{self, BudgetLine};
+use crate::measure::metrics::{self, MetricsConfig, ToneMetrics};
+use crate::measure::spectrum::SpectrumAnalyzer;
+use crate::measure::{fidelity, sinefit};
+use crate::scenario::Waveform;
+
+/// Metrics of the ADC's code record.
+#[derive(Debug, Clone, Serialize)]
+pub struct AdcMetrics {
+    pub bits: u32,
+    pub sample_rate_hz: f64,
+    pub conversion_time_s: f64,
+    pub codes_clipped: u64,
+    pub record_length: usize,
+    pub fundamental_hz: Option<f64>,
+    pub amplitude_v: Option<f64>,
+    pub snr_db: Option<f64>,
+    pub sinad_db: Option<f64>,
+    /// (SINAD - 1.76)/6.02 after adding 20 log10(full scale / amplitude) to SINAD.
+    pub enob_bits: Option<f64>,
+    /// IEEE Std 1241 form: N - log2(rms residual of a three-parameter sine fit / (q / sqrt 12)).
+    pub enob_sinefit_bits: Option<f64>,
+    pub thd_db: Option<f64>,
+    pub sfdr_dbc: Option<f64>,
+    pub noise_floor_dbfs: Option<f64>,
+    pub harmonics_counted: u32,
+}
+
+/// Metrics of the chain's analog output.
+#[derive(Debug, Clone, Serialize)]
+pub struct OutputMetrics {
+    pub analysis_rate_hz: f64,
+    pub band_hz: f64,
+    pub record_length: usize,
+    pub fundamental_hz: Option<f64>,
+    pub amplitude_v: Option<f64>,
+    pub snr_db: Option<f64>,
+    pub sinad_db: Option<f64>,
+    /// Input-referred: SINAD corrected by 20 log10(ADC full scale / signal amplitude at the ADC), then
+    /// (SINAD - 1.76)/6.02, so it says how many of the converter's bits survive to the output.
+    pub enob_bits: Option<f64>,
+    pub thd_db: Option<f64>,
+    pub sfdr_dbc: Option<f64>,
+    /// Output fundamental over source fundamental.
+    pub gain_db: Option<f64>,
+    /// Full-bandwidth signal-to-error ratio after the best delay, gain and offset alignment (dB).
+    pub fidelity_db: f64,
+    pub bits_flipped: u64,
+}
+
+/// Delay through the chain.
+#[derive(Debug, Clone, Serialize)]
+pub struct LatencyMetrics {
+    /// Cross-correlation delay, source to output, refined between samples.
+    pub measured_s: f64,
+    /// Phase delay at the fundamental (sine sources), ambiguity resolved with the correlation estimate.
+    pub phase_delay_s: Option<f64>,
+    /// Group delay at the tones of a multitone source: (frequency, seconds).
+    pub group_delay_s: Vec<(f64, f64)>,
+    pub budget_s: f64,
+    pub budget: Vec<BudgetLine>,
+    /// measured - budget.
+    pub difference_s: f64,
+    /// True when the difference is large (more than 5 % of the budget and more than a tenth of a sample period).
+    pub flagged: bool,
+}
+
+/// Everything measured on one run.
+#[derive(Debug, Clone, Serialize)]
+pub struct ChainMetrics {
+    pub adc: Option<AdcMetrics>,
+    pub output: OutputMetrics,
+    pub latency: LatencyMetrics,
+}
+
+fn finite(x: f64) -> Option<f64> {
+    x.is_finite().then_some(x)
+}
+
+/// Measure a finished run.
+pub fn measure_run(run: &RunOutput) -> ChainMetrics {
+    let sc = &run.scenario;
+    let plan = &run.plan;
+    let harmonics = sc.analysis.harmonics;
+    let f0 = plan.frequency_hz;
+    let sine_like = f0.is_some();
+
+    // The amplitude reaching the converter (source amplitude through the analog stages before it).
+    let src_amp = match &sc.source.waveform {
+        Waveform::Sine { amplitude_v, .. }
+        | Waveform::Square { amplitude_v, .. }
+        | Waveform::Triangle { amplitude_v, .. }
+        | Waveform::Sawtooth { amplitude_v, .. } => Some(*amplitude_v),
+        _ => None,
+    };
+    let pre_gain = f0
+        .map(|f| {
+            run.chain
+                .pre
+                .iter()
+                .map(|(_, s)| s.response(f).map(|h| h.norm()).unwrap_or(1.0))
+                .product::<f64>()
+        })
+        .unwrap_or(1.0);
+
+    // ---- ADC record
+    let adc = match (&plan.adc, &run.adc_codes) {
+        (Some(p), Some(rec)) => {
+            let q = (p.range_v.1 - p.range_v.0) / f64::powi(2.0, p.bits as i32);
+            let volts: Vec<f64> = rec
+                .codes
+                .iter()
+                .map(|c| p.range_v.0 + (c.code as f64 + 0.5) * q)
+                .collect();
+            let fs_peak = (p.range_v.1 - p.range_v.0) / 2.0;
+            let mut an = SpectrumAnalyzer::new(volts.len(), sc.analysis.window);
+            let spec = an.power_spectrum(&volts, p.sample_rate_hz);
+            let tm = sine_like.then(|| {
+                metrics::tone_metrics(
+                    &spec,
+                    &MetricsConfig {
+                        harmonics,
+                        band_hz: None,
+                        full_scale_peak_v: fs_peak,
+                        fundamental_hz: f0,
+                    },
+                )
+            });
+            let enob_fit = f0.map(|f| {
+                let t0 = rec.codes.first().map(|c| c.t_sample_s).unwrap_or(0.0);
+                let fit = sinefit::fit3(&volts, p.sample_rate_hz, f, t0);
+                sinefit::enob_from_residual(p.bits, q, fit.residual_rms_v)
+            });
+            Some(AdcMetrics {
+                bits: p.bits,
+                sample_rate_hz: p.sample_rate_hz,
+                conversion_time_s: p.conversion_time_s,
+                codes_clipped: run.codes_clipped,
+                record_length: volts.len(),
+                fundamental_hz: f0,
+                amplitude_v: tm.as_ref().map(|t| t.fundamental_amplitude_v),
+                snr_db: tm.as_ref().and_then(|t| finite(t.snr_db)),
+                sinad_db: tm.as_ref().and_then(|t| finite(t.sinad_db)),
+                enob_bits: tm.as_ref().and_then(|t| finite(t.enob_bits)),
+                enob_sinefit_bits: enob_fit.and_then(finite),
+                thd_db: tm.as_ref().and_then(|t| finite(t.thd_db)),
+                sfdr_dbc: tm.as_ref().and_then(|t| finite(t.sfdr_dbc)),
+                noise_floor_dbfs: tm.as_ref().and_then(|t| finite(t.noise_floor_dbfs)),
+                harmonics_counted: harmonics,
+            })
+        }
+        _ => None,
+    };
+
+    // ---- analog output (band-limited, decimated record)
+    let out = &run.output_record.volts;
+    let src = &run.source_record.volts;
+    let rate = plan.out_rate_hz;
+    let mut an = SpectrumAnalyzer::new(out.len(), sc.analysis.window);
+    let src_tm: Option<ToneMetrics>;
+    let out_tm: Option<ToneMetrics>;
+    if sine_like {
+        let spec_src = an.power_spectrum(src, rate);
+        src_tm = Some(metrics::tone_metrics(
+            &spec_src,
+            &MetricsConfig {
+                harmonics,
+                band_hz: Some(plan.out_band_hz),
+                full_scale_peak_v: src_amp.unwrap_or(1.0).abs().max(1e-30),
+                fundamental_hz: f0,
+            },
+        ));
+        let spec_out = an.power_spectrum(out, rate);
+        // Input-referred full scale: the output amplitude that a full-scale signal at the ADC would give.
+        let a_in = src_amp.unwrap_or(1.0).abs() * pre_gain;
+        let fs_in = plan
+            .adc
+            .map(|a| (a.range_v.1 - a.range_v.0) / 2.0)
+            .unwrap_or(a_in);
+        let first = metrics::tone_metrics(
+            &spec_out,
+            &MetricsConfig {
+                harmonics,
+                band_hz: Some(plan.out_band_hz),
+                full_scale_peak_v: 1.0,
+                fundamental_hz: f0,
+            },
+        );
+        let a_out = first.fundamental_amplitude_v;
+        let full_scale = if a_in > 0.0 { a_out * fs_in / a_in } else { 1.0 };
+        out_tm = Some(metrics::tone_metrics(
+            &spec_out,
+            &MetricsConfig {
+                harmonics,
+                band_hz: Some(plan.out_band_hz),
+                full_scale_peak_v: full_scale.max(1e-30),
+                fundamental_hz: f0,
+            },
+        ));
+    } else {
+        src_tm = None;
+        out_tm = None;
+    }
+    let gain_db = match (&src_tm, &out_tm) {
+        (Some(s), Some(o)) if s.fundamental_amplitude_v > 0.0 => finite(
+            20.0 * (o.fundamental_amplitude_v / s.fundamental_amplitude_v).log10(),
+        ),
+        _ => None,
+    };
+
+    // ---- latency and fidelity on the full-bandwidth grid capture
+    let cap = &run.capture;
+    let grid_rate = cap.timebase.rate_hz;
+    let broadband_hz = plan.out_band_hz.min(grid_rate / 4.0) / 10.0;
+    let budget = run.chain.budget(f0, broadband_hz);
+    let budget_s: f64 = budget.iter().map(|b| b.seconds).sum();
+    let capture_s = cap.source().len() as f64 / grid_rate;
+    let period_s = f0.map(|f| 1.0 / f);
+    let (measured_s, phase_delay_s) =
+        measure_delay(cap.source(), cap.output(), grid_rate, budget_s, period_s, capture_s);
+    let phase_delay_s = phase_delay_s.and_then(finite);
+    let group_delay_s = match &sc.source.waveform {
+        Waveform::Multitone { tones } => {
+            let f: Vec<f64> = tones.iter().map(|t| t.frequency_hz).collect();
+            latency::group_delay_s(cap.source(), cap.output(), grid_rate, &f)
+        }
+        _ => Vec::new(),
+    };
+    let max_delay_s = (4.0 * budget_s.abs() + 20.0 / grid_rate).min(capture_s / 4.0);
+    let fid = fidelity::fidelity(cap.source(), cap.output(), grid_rate, max_delay_s.max(measured_s.abs() * 1.5));
+    let difference_s = measured_s - budget_s;
+    let sample_period = plan.adc.map(|a| 1.0 / a.sample_rate_hz).unwrap_or(1.0 / grid_rate);
+    let flagged = difference_s.abs() > 0.05 * budget_s.abs() && difference_s.abs() > 0.1 * sample_period;
+
+    ChainMetrics {
+        adc,
+        output: OutputMetrics {
+            analysis_rate_hz: rate,
+            band_hz: plan.out_band_hz,
+            record_length: out.len(),
+            fundamental_hz: f0,
+            amplitude_v: out_tm.as_ref().map(|t| t.fundamental_amplitude_v),
+            snr_db: out_tm.as_ref().and_then(|t| finite(t.snr_db)),
+            sinad_db: out_tm.as_ref().and_then(|t| finite(t.sinad_db)),
+            enob_bits: out_tm.as_ref().and_then(|t| finite(t.enob_bits)),
+            thd_db: out_tm.as_ref().and_then(|t| finite(t.thd_db)),
+            sfdr_dbc: out_tm.as_ref().and_then(|t| finite(t.sfdr_dbc)),
+            gain_db,
+            fidelity_db: fid.fidelity_db,
+            bits_flipped: run.bits_flipped,
+        },
+        latency: LatencyMetrics {
+            measured_s,
+            phase_delay_s,
+            group_delay_s,
+            budget_s,
+            budget,
+            difference_s,
+            flagged,
+        },
+    }
+}
+
+/// Cross-correlation delay searched around the budget estimate (within half a period for periodic sources,
+/// whose correlation repeats every period), and the phase delay at the fundamental.
+fn measure_delay(
+    src: &[f64],
+    out: &[f64],
+    rate_hz: f64,
+    budget_s: f64,
+    period_s: Option<f64>,
+    capture_s: f64,
+) -> (f64, Option<f64>) {
+    // Shift the output back by the budget's whole samples, then search +- half a period (or a wide window).
+    let shift = (budget_s * rate_hz).round().max(0.0) as usize;
+    let shift = shift.min(src.len() / 2);
+    let half_window_s = match period_s {
+        Some(p) => 0.5 * p,
+        None => (budget_s.abs() + 20.0 / rate_hz).max(capture_s / 8.0),
+    }
+    .min((src.len() - shift) as f64 / rate_hz / 4.0);
+    let a = &src[..src.len() - shift];
+    let b = &out[shift..];
+    let measured = shift as f64 / rate_hz + latency::xcorr_delay_s(a, b, rate_hz, half_window_s);
+    let phase = period_s.map(|p| latency::phase_delay_s(src, out, rate_hz, 1.0 / p, measured));
+    (measured, phase)
+}

@@ -1,0 +1,224 @@
+//! Whole runs: simulate, measure, write the outputs atomically into a folder.
+
+use std::path::Path;
+
+use serde::Serialize;
+
+use crate::engine::pipeline::{self, Plan};
+use crate::error::{Error, Result};
+use crate::measure::chain::measure_run;
+use crate::measure::static_test::{self, StaticResult};
+use crate::report::OutputDir;
+use crate::report::csv::CsvSink;
+use crate::report::json::Report;
+use crate::scenario::{Scenario, StageKind};
+use crate::stages::Probe;
+use crate::stages::sample_hold::SampleHold;
+use crate::stages::sar_adc::SarAdc;
+
+/// How to run.
+#[derive(Debug, Clone, Default)]
+pub struct RunOptions {
+    /// Every grid sample in waveforms.csv (else at most 1e6 rows).
+    pub full_waveforms: bool,
+    /// Report progress on standard error when it is a terminal.
+    pub progress: bool,
+}
+
+/// Run a scenario, measure it and write `report.json` and `waveforms.csv` into `dir` (created when the run
+/// starts; on failure nothing partial is left).
+pub fn run_to_dir(sc: &Scenario, dir: &Path, opts: &RunOptions) -> Result<Report> {
+    // Plan first: bad input is reported before any folder appears.
+    Plan::new(sc)?;
+    let out = OutputDir::create(dir)?;
+    match run_inner(sc, &out, opts) {
+        Ok(r) => Ok(r),
+        Err(e) => {
+            out.abandon();
+            Err(e)
+        }
+    }
+}
+
+fn run_inner(sc: &Scenario, out: &OutputDir, opts: &RunOptions) -> Result<Report> {
+    let (plan, _) = Plan::new(sc)?;
+    let mut csv = CsvSink::create(out.temp_path("waveforms.csv"), plan.n_total, opts.full_waveforms)?;
+    let show = opts.progress && std::io::IsTerminal::is_terminal(&std::io::stderr());
+    let bar = show.then(|| {
+        let b = indicatif::ProgressBar::new(1000);
+        b.set_style(
+            indicatif::ProgressStyle::with_template("  simulating [{bar:40}] {percent:>3}%  {elapsed}")
+                .unwrap_or_else(|_| indicatif::ProgressStyle::default_bar()),
+        );
+        b
+    });
+    let mut progress = |f: f64| {
+        if let Some(b) = &bar {
+            b.set_position((f * 1000.0) as u64);
+        }
+    };
+    let run = pipeline::run(sc, Some(&mut csv), &mut progress)?;
+    if let Some(b) = bar {
+        b.finish_and_clear();
+    }
+    csv.finish()?;
+    let metrics = measure_run(&run);
+    let report = Report::new(&run.scenario, &run.plan, metrics);
+    let json = serde_json::to_vec_pretty(&report).map_err(|e| Error::Run(e.to_string()))?;
+    out.commit("waveforms.csv")?;
+    out.write("report.json", &json)?;
+    Ok(report)
+}
+
+/// Static results of the ADC.
+#[derive(Debug, Clone, Serialize)]
+pub struct AdcStatic {
+    /// The code-density (histogram) test with a sine (IEEE Std 1241); its fields sit directly under `static.adc`.
+    #[serde(flatten)]
+    pub code_density: StaticResult,
+    pub ramp: StaticResult,
+    /// Samples used by each test.
+    pub code_density_samples: usize,
+    pub ramp_samples: usize,
+}
+
+/// Static results of the DAC.
+#[derive(Debug, Clone, Serialize)]
+pub struct DacStatic {
+    #[serde(flatten)]
+    pub result: StaticResult,
+    /// Settled output of every code relative to the zero-code output (V).
+    pub levels_v: Vec<f64>,
+}
+
+/// `static.adc` and `static.dac`.
+#[derive(Debug, Clone, Serialize)]
+pub struct Static {
+    pub adc: Option<AdcStatic>,
+    pub dac: Option<DacStatic>,
+}
+
+/// What `convchain static` writes.
+#[derive(Debug, Clone, Serialize)]
+pub struct StaticReport {
+    pub scenario: String,
+    #[serde(rename = "static")]
+    pub stat: Static,
+}
+
+struct FnProbe<F: Fn(f64) -> f64>(F);
+impl<F: Fn(f64) -> f64> Probe for FnProbe<F> {
+    fn value_at(&self, t_s: f64) -> f64 {
+        (self.0)(t_s)
+    }
+}
+
+/// Static tests of the scenario's ADC and DAC, drawn with the same seeds as a run.
+pub fn static_tests(sc: &Scenario) -> Result<Static> {
+    let seed = sc.simulation.seed;
+    let mut adc_res = None;
+    let mut dac_res = None;
+    let mut adc_seen: Option<(u64, crate::scenario::SarAdcCfg)> = None;
+    let mut sh_cfg = None;
+    for (i, st) in sc.stages.iter().enumerate() {
+        let idx = i as u64 + 1;
+        match &st.kind {
+            StageKind::SampleHold(c) => sh_cfg = Some(*c),
+            StageKind::SarAdc(c) => adc_seen = Some((idx, *c)),
+            StageKind::Dac(c) => {
+                let mut rng = pipeline::stage_rng(seed, idx);
+                let dac = crate::stages::dac::Dac::new(c, &mut rng);
+                let n = 1u64 << c.bits;
+                let zero = dac.level_v(0);
+                let levels: Vec<f64> = (0..n).map(|k| dac.level_v(k as u32) - zero).collect();
+                let result = static_test::dac_from_levels(&levels);
+                dac_res = Some(DacStatic {
+                    result,
+                    levels_v: levels,
+                });
+            }
+            _ => {}
+        }
+    }
+    if let Some((idx, cfg)) = adc_seen {
+        let q = cfg.lsb_v();
+        let (lo, hi) = cfg.range_v;
+        let n_codes = 1usize << cfg.bits;
+        let fs = cfg.effective_sample_rate_hz();
+        let sh_of = |cfg_sh: Option<crate::scenario::SampleHoldCfg>| match cfg_sh {
+            // Static tests are about levels: keep the hold's level errors, not its timing.
+            Some(c) => SampleHold::new(
+                &crate::scenario::SampleHoldCfg {
+                    aperture_jitter_s: 0.0,
+                    ..c
+                },
+                pipeline::stage_rng(seed, idx + 1_000_000),
+            ),
+            None => SampleHold::ideal(),
+        };
+        // Slow ramp: 16 samples per LSB (capped), from 2 LSB below to 2 LSB above the range.
+        let ramp_n = (n_codes * 16).clamp(4096, 1 << 22);
+        let v0 = lo - 2.0 * q;
+        let v1 = hi + 2.0 * q;
+        let dur = ramp_n as f64 / fs;
+        let slope = (v1 - v0) / dur;
+        let probe = FnProbe(|t: f64| v0 + slope * t);
+        let mut adc = SarAdc::new(&cfg, pipeline::stage_rng(seed, idx));
+        let mut sh = sh_of(sh_cfg);
+        let mut ramp_v = Vec::with_capacity(ramp_n);
+        let mut codes = Vec::with_capacity(ramp_n);
+        for k in 0..ramp_n as u64 {
+            let ev = adc.convert(k, &probe, &mut sh);
+            ramp_v.push(v0 + slope * adc.sample_time_s(k));
+            codes.push(ev.code);
+        }
+        let ramp = static_test::adc_ramp(&ramp_v, &codes, cfg.bits, lo, q);
+        // Code density: a sine overdriven by 2 % around mid-range, coherent with the record.
+        let cd_n = (n_codes * 64).clamp(1 << 16, 1 << 22);
+        let (f, _) = crate::measure::coherent::coherent_frequency(fs / 97.3, fs, cd_n);
+        let c = 0.5 * (lo + hi);
+        let a = 0.5 * (hi - lo) * 1.02;
+        let w = 2.0 * std::f64::consts::PI * f;
+        let probe = FnProbe(|t: f64| c + a * (w * t).sin());
+        let mut adc = SarAdc::new(&cfg, pipeline::stage_rng(seed, idx));
+        let mut sh = sh_of(sh_cfg);
+        let mut hist = vec![0u64; n_codes];
+        for k in 0..cd_n as u64 {
+            let ev = adc.convert(k, &probe, &mut sh);
+            hist[ev.code as usize] += 1;
+        }
+        let code_density = static_test::adc_code_density(&hist, None, None, lo, q);
+        adc_res = Some(AdcStatic {
+            code_density,
+            ramp,
+            code_density_samples: cd_n,
+            ramp_samples: ramp_n,
+        });
+    }
+    if adc_res.is_none() && dac_res.is_none() {
+        return Err(Error::BadInput(format!(
+            "{}: the chain has no sar_adc or dac to test",
+            sc.origin
+        )));
+    }
+    Ok(Static {
+        adc: adc_res,
+        dac: dac_res,
+    })
+}
+
+/// Run the static tests and write `static.json`.
+pub fn static_to_dir(sc: &Scenario, dir: &Path) -> Result<StaticReport> {
+    let stat = static_tests(sc)?;
+    let report = StaticReport {
+        scenario: sc.name.clone(),
+        stat,
+    };
+    let out = OutputDir::create(dir)?;
+    let json = serde_json::to_vec_pretty(&report).map_err(|e| Error::Run(e.to_string()))?;
+    if let Err(e) = out.write("static.json", &json) {
+        out.abandon();
+        return Err(e);
+    }
+    Ok(report)
+}

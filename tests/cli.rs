@@ -1,0 +1,232 @@
+//! Integration tests: they run the built `convchain` binary like a user would.
+
+use std::fs;
+use std::path::{Path, PathBuf};
+use std::process::{Command, Output};
+
+fn bin() -> Command {
+    Command::new(env!("CARGO_BIN_EXE_convchain"))
+}
+
+fn run_in(dir: &Path, args: &[&str]) -> Output {
+    bin().current_dir(dir).args(args).output().expect("binary runs")
+}
+
+fn repo(path: &str) -> PathBuf {
+    Path::new(env!("CARGO_MANIFEST_DIR")).join(path)
+}
+
+fn json(path: &Path) -> serde_json::Value {
+    serde_json::from_str(&fs::read_to_string(path).unwrap()).unwrap()
+}
+
+fn stderr(o: &Output) -> String {
+    String::from_utf8_lossy(&o.stderr).to_string()
+}
+
+#[test]
+fn run_with_no_scenario_writes_the_report_and_the_waveforms() {
+    let d = tempfile::tempdir().unwrap();
+    let o = run_in(d.path(), &["run", "--quiet"]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    let out = d.path().join("out/studio-interface");
+    let r = json(&out.join("report.json"));
+    for key in ["scenario", "chain", "adc", "output", "latency"] {
+        assert!(r.get(key).is_some(), "report.json lacks {key}");
+    }
+    for key in ["sample_rate_hz", "conversion_time_s", "codes_clipped", "snr_db", "sinad_db", "enob_bits", "thd_db", "sfdr_dbc"] {
+        assert!(r["adc"].get(key).is_some(), "adc lacks {key}");
+    }
+    for key in ["snr_db", "sinad_db", "enob_bits", "thd_db", "sfdr_dbc", "gain_db", "fidelity_db", "fundamental_hz"] {
+        assert!(r["output"].get(key).is_some(), "output lacks {key}");
+    }
+    for key in ["measured_s", "phase_delay_s", "budget_s", "budget"] {
+        assert!(r["latency"].get(key).is_some(), "latency lacks {key}");
+    }
+    // A 16-bit converter driven near full scale keeps well over 12 effective bits.
+    let enob = r["adc"]["enob_bits"].as_f64().unwrap();
+    assert!(enob > 12.0 && enob < 16.5, "adc enob {enob}");
+    let csv = fs::read_to_string(out.join("waveforms.csv")).unwrap();
+    let header = csv.lines().next().unwrap();
+    assert!(header.starts_with("time_s,source_v,"), "{header}");
+    assert!(csv.lines().count() > 1000);
+    // No temporary files are left behind.
+    for e in fs::read_dir(&out).unwrap() {
+        let n = e.unwrap().file_name().to_string_lossy().to_string();
+        assert!(!n.ends_with(".tmp"), "left {n}");
+    }
+}
+
+#[test]
+fn the_same_scenario_and_seed_give_byte_identical_outputs() {
+    let d = tempfile::tempdir().unwrap();
+    let sc = repo("scenarios/radio-stl.toml");
+    let sc = sc.to_str().unwrap();
+    for out in ["a", "b"] {
+        let o = run_in(d.path(), &["run", sc, "--quiet", "--out", out]);
+        assert!(o.status.success(), "{}", stderr(&o));
+    }
+    for f in ["report.json", "waveforms.csv"] {
+        let a = fs::read(d.path().join("a").join(f)).unwrap();
+        let b = fs::read(d.path().join("b").join(f)).unwrap();
+        assert!(a == b, "{f} differs between identical runs");
+    }
+}
+
+#[test]
+fn every_demo_scenario_runs_and_reports_a_latency() {
+    let d = tempfile::tempdir().unwrap();
+    for name in ["river-gauge", "studio-interface", "radio-stl"] {
+        let sc = repo(&format!("scenarios/{name}.toml"));
+        let start = std::time::Instant::now();
+        let o = run_in(d.path(), &["run", sc.to_str().unwrap(), "--quiet"]);
+        assert!(o.status.success(), "{name}: {}", stderr(&o));
+        let r = json(&d.path().join("out").join(name).join("report.json"));
+        assert!(r["latency"]["measured_s"].as_f64().unwrap() > 0.0, "{name}");
+        assert!(r["output"]["fidelity_db"].as_f64().is_some(), "{name}");
+        eprintln!("{name}: {:.2} s", start.elapsed().as_secs_f64());
+    }
+}
+
+const IDEAL_CHAIN: &str = r#"
+name = "ideal"
+[simulation]
+analog_rate = "10 MHz"
+duration = "30 ms"
+settle = "5 ms"
+seed = 1
+[source]
+waveform = "sine"
+frequency = "1 kHz"
+amplitude = "2.4 V"
+offset = "2.5 V"
+[[stage]]
+kind = "sar_adc"
+bits = 12
+range = ["0 V", "5 V"]
+sample_rate = "100 kHz"
+conversion_time = "8 us"
+[[stage]]
+kind = "dac"
+range = ["0 V", "5 V"]
+[analysis]
+harmonics = 9
+"#;
+
+#[test]
+fn ideal_chain_latency_is_conversion_time_plus_half_a_sample_period() {
+    // A zero-order hold delays by half its update period, T/2 (A. V. Oppenheim and R. W. Schafer, Discrete-Time
+    // Signal Processing, 3rd ed., section 4.8.3, the ideal reconstruction with a zero-order hold); the code is
+    // available one conversion time after the sampling instant (the definition of conversion time).
+    let d = tempfile::tempdir().unwrap();
+    fs::write(d.path().join("ideal.toml"), IDEAL_CHAIN).unwrap();
+    let o = run_in(d.path(), &["run", "ideal.toml", "--quiet"]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    let r = json(&d.path().join("out/ideal/report.json"));
+    let expect = 8e-6 + 0.5 / 100e3;
+    let period = 1.0 / 100e3;
+    for key in ["measured_s", "phase_delay_s", "budget_s"] {
+        let got = r["latency"][key].as_f64().unwrap();
+        assert!((got - expect).abs() < 0.01 * period, "{key}: {got} vs {expect}");
+    }
+    // Bennett (BSTJ 1948): an ideal 12-bit quantizer of a near-full-scale sine gives SNR ~ 6.02 N + 1.76 dB
+    // less 20 log10(FS/A); the ENOB (full-scale corrected) is then close to 12.
+    let enob = r["adc"]["enob_bits"].as_f64().unwrap();
+    assert!((enob - 12.0).abs() < 0.15, "enob {enob}");
+    let fit = r["adc"]["enob_sinefit_bits"].as_f64().unwrap();
+    assert!((fit - enob).abs() < 0.1, "sine-fit {fit} vs FFT {enob}");
+}
+
+#[test]
+fn bad_input_exits_2_names_the_place_and_writes_nothing() {
+    let d = tempfile::tempdir().unwrap();
+    let text = IDEAL_CHAIN.replace("bits = 12", "bitz = 12");
+    fs::write(d.path().join("bad.toml"), text).unwrap();
+    let o = run_in(d.path(), &["run", "bad.toml"]);
+    assert_eq!(o.status.code(), Some(2));
+    let e = stderr(&o);
+    assert!(e.contains("bad.toml:"), "{e}");
+    assert!(e.contains("bitz"), "{e}");
+    assert!(e.contains("bits"), "should suggest the right key: {e}");
+    assert!(!d.path().join("out").exists(), "nothing may be written on bad input");
+}
+
+#[test]
+fn a_missing_scenario_file_exits_2() {
+    let d = tempfile::tempdir().unwrap();
+    let o = run_in(d.path(), &["run", "nope.toml"]);
+    assert_eq!(o.status.code(), Some(2), "{}", stderr(&o));
+}
+
+#[test]
+fn an_unknown_option_exits_2() {
+    let d = tempfile::tempdir().unwrap();
+    let o = run_in(d.path(), &["run", "--frobnicate"]);
+    assert_eq!(o.status.code(), Some(2));
+}
+
+#[test]
+fn check_validates_without_writing() {
+    let d = tempfile::tempdir().unwrap();
+    let sc = repo("scenarios/river-gauge.toml");
+    let o = run_in(d.path(), &["check", sc.to_str().unwrap()]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    assert!(String::from_utf8_lossy(&o.stdout).contains("ok"));
+    assert_eq!(fs::read_dir(d.path()).unwrap().count(), 0);
+}
+
+#[test]
+fn init_writes_a_starter_that_checks_and_never_overwrites() {
+    let d = tempfile::tempdir().unwrap();
+    let o = run_in(d.path(), &["init", "mine.toml", "--out", "work"]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    let path = d.path().join("work/mine.toml");
+    assert!(path.exists());
+    let o = run_in(d.path(), &["check", path.to_str().unwrap()]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    fs::write(&path, "my own notes").unwrap();
+    let o = run_in(d.path(), &["init", "mine.toml", "--out", "work"]);
+    assert_eq!(o.status.code(), Some(2));
+    assert_eq!(fs::read_to_string(&path).unwrap(), "my own notes");
+}
+
+#[test]
+fn a_folder_holding_foreign_files_is_refused() {
+    let d = tempfile::tempdir().unwrap();
+    fs::create_dir(d.path().join("mine")).unwrap();
+    fs::write(d.path().join("mine/report.json"), "keep").unwrap();
+    let o = run_in(d.path(), &["run", "--quiet", "--out", "mine"]);
+    assert_eq!(o.status.code(), Some(2));
+    assert_eq!(fs::read_to_string(d.path().join("mine/report.json")).unwrap(), "keep");
+}
+
+#[test]
+fn json_flag_prints_the_report() {
+    let d = tempfile::tempdir().unwrap();
+    fs::write(d.path().join("ideal.toml"), IDEAL_CHAIN).unwrap();
+    let o = run_in(d.path(), &["run", "ideal.toml", "--json"]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    let v: serde_json::Value = serde_json::from_slice(&o.stdout).unwrap();
+    assert_eq!(v["scenario"]["name"], "ideal");
+}
+
+#[test]
+fn static_measures_the_adc_and_the_dac() {
+    let d = tempfile::tempdir().unwrap();
+    fs::write(d.path().join("ideal.toml"), IDEAL_CHAIN).unwrap();
+    let o = run_in(d.path(), &["static", "ideal.toml", "--quiet"]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    let r = json(&d.path().join("out/ideal/static.json"));
+    for part in ["adc", "dac"] {
+        let s = &r["static"][part];
+        for key in ["dnl_max_lsb", "inl_max_lsb", "missing_codes", "monotonic"] {
+            assert!(!s[key].is_null(), "static.{part} lacks {key}");
+        }
+    }
+    // An ideal DAC: DNL and INL zero to rounding (IEEE Std 1658 definitions of DNL and INL).
+    assert!(r["static"]["dac"]["dnl_max_lsb"].as_f64().unwrap() < 1e-9);
+    assert_eq!(r["static"]["dac"]["monotonic"], true);
+    // An ideal ADC through the code-density test: |DNL| small (IEEE Std 1241 code-density test).
+    assert!(r["static"]["adc"]["dnl_max_lsb"].as_f64().unwrap() < 0.1);
+    assert_eq!(r["static"]["adc"]["missing_codes"], 0);
+}
