@@ -4,7 +4,34 @@
 //! resolved (defaults applied, units converted to SI base units, cross-stage defaults filled in) and
 //! checked before the engine sees it. The engine never reads TOML.
 
-use std::path::PathBuf;
+use std::path::{Path, PathBuf};
+
+pub use reader::ScenarioError;
+
+/// The commented starter scenario written by `convchain init`. It parses (a test checks it).
+pub const STARTER: &str = include_str!("starter.toml");
+
+/// Parse and check a scenario. `origin` names the file in messages; relative WAV paths resolve against
+/// `base_dir`. Non-fatal remarks end up in [`Scenario::warnings`].
+pub fn parse_str(text: &str, origin: &str, base_dir: &Path) -> Result<Scenario, ScenarioError> {
+    let map = reader::SourceMap::new(origin, text);
+    let root = reader::parse_document(&map)?;
+    validate::build(&map, &root, base_dir)
+}
+
+/// Read a scenario file and parse it. An unreadable file gives [`crate::Error::Read`], a bad scenario
+/// [`crate::Error::BadInput`] with the located message.
+pub fn load(path: &Path) -> Result<Scenario, crate::Error> {
+    let text = std::fs::read_to_string(path).map_err(|source| crate::Error::Read {
+        path: path.to_path_buf(),
+        source,
+    })?;
+    let base_dir = match path.parent() {
+        Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
+        _ => PathBuf::from("."),
+    };
+    Ok(parse_str(&text, &path.display().to_string(), &base_dir)?)
+}
 
 /// A checked scenario, ready to run.
 #[derive(Debug, Clone, PartialEq)]

@@ -1,1 +1,509 @@
-//! (to be written)
+//! Values with units: `"4.7k"`, `"100 nF"`-style strings, parsed into SI base units.
+//!
+//! A quantity is written as a bare number (already in SI base units) or as a string: a number, an
+//! optional SI prefix (`p n u µ m k M G`) and an optional unit. Units are case-sensitive: `"1 ms"` is a
+//! millisecond, `"1 Ms"` a megasecond, `"1 mHz"` a millihertz. A unit that is given must match the
+//! dimension the key expects.
+
+/// The dimension a key expects; decides which units are accepted and what a bare number means.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Dimension {
+    /// Hertz (`Hz`).
+    Frequency,
+    /// Seconds (`s`).
+    Time,
+    /// Volts (`V`).
+    Voltage,
+    /// Volts per second (`V/s`, `V/us`, `kV/s`, `mV/ns`, ...).
+    SlewRate,
+    /// A plain fraction: bare number, `%` or `ppm`.
+    Ratio,
+    /// Decibels (`dB`); a bare number is taken as decibels.
+    Decibels,
+    /// An angle in `deg` or `rad`; a bare number is degrees. Parsed into radians.
+    Angle,
+    /// A voltage gain: bare number or `V/V` is a ratio, `dB` is 20 log10 of the ratio. Parsed as V/V.
+    Gain,
+}
+
+impl Dimension {
+    /// "a frequency such as \"1 kHz\"" and similar, for messages.
+    pub fn expectation(self) -> &'static str {
+        match self {
+            Dimension::Frequency => "a frequency such as \"1 kHz\"",
+            Dimension::Time => "a time such as \"8 us\"",
+            Dimension::Voltage => "a voltage such as \"2.5 V\"",
+            Dimension::SlewRate => "a slew rate such as \"13 V/us\"",
+            Dimension::Ratio => "a ratio such as 0.01, \"1%\" or \"500 ppm\"",
+            Dimension::Decibels => "a level in decibels such as \"0.5 dB\"",
+            Dimension::Angle => "an angle such as \"90 deg\" or \"1.57 rad\"",
+            Dimension::Gain => "a gain such as 10 or \"20 dB\"",
+        }
+    }
+
+    /// Name of the SI base unit, for messages.
+    pub fn base_unit(self) -> &'static str {
+        match self {
+            Dimension::Frequency => "Hz",
+            Dimension::Time => "s",
+            Dimension::Voltage => "V",
+            Dimension::SlewRate => "V/s",
+            Dimension::Ratio => "",
+            Dimension::Decibels => "dB",
+            Dimension::Angle => "deg",
+            Dimension::Gain => "V/V",
+        }
+    }
+}
+
+/// Why a quantity string could not be read.
+#[derive(Debug, Clone, PartialEq)]
+pub struct UnitError {
+    pub message: String,
+    pub hint: Option<String>,
+}
+
+impl UnitError {
+    fn new(message: impl Into<String>) -> Self {
+        UnitError {
+            message: message.into(),
+            hint: None,
+        }
+    }
+    fn hint(mut self, hint: impl Into<String>) -> Self {
+        self.hint = Some(hint.into());
+        self
+    }
+}
+
+/// SI prefixes accepted before a unit, with their factors.
+const PREFIXES: [(char, f64); 9] = [
+    ('p', 1e-12),
+    ('n', 1e-9),
+    ('u', 1e-6),
+    ('µ', 1e-6), // U+00B5 MICRO SIGN
+    ('μ', 1e-6), // U+03BC GREEK SMALL LETTER MU
+    ('m', 1e-3),
+    ('k', 1e3),
+    ('M', 1e6),
+    ('G', 1e9),
+];
+
+fn prefix_factor(c: char) -> Option<f64> {
+    PREFIXES.iter().find(|(p, _)| *p == c).map(|(_, f)| *f)
+}
+
+/// Split `s` into an optional prefix factor and the rest, when the first char is a prefix and the rest is
+/// exactly `unit`.
+fn strip_prefixed(s: &str, unit: &str) -> Option<f64> {
+    if s == unit {
+        return Some(1.0);
+    }
+    let mut chars = s.chars();
+    let first = chars.next()?;
+    let factor = prefix_factor(first)?;
+    (chars.as_str() == unit).then_some(factor)
+}
+
+/// What a unit suffix turned out to be.
+#[derive(Debug, Clone, Copy, PartialEq)]
+enum Unit {
+    /// No unit, only an optional prefix (factor).
+    Bare(f64),
+    /// Hertz, with prefix factor.
+    Hz(f64),
+    Seconds(f64),
+    Volts(f64),
+    /// Volts per second: numerator factor / denominator factor.
+    VoltsPerSecond(f64),
+    /// Volts per volt.
+    VoltsPerVolt,
+    Percent,
+    Ppm,
+    Db,
+    Degrees,
+    Radians,
+}
+
+impl Unit {
+    fn found_name(self) -> &'static str {
+        match self {
+            Unit::Bare(_) => "a bare number",
+            Unit::Hz(_) => "hertz",
+            Unit::Seconds(_) => "seconds",
+            Unit::Volts(_) => "volts",
+            Unit::VoltsPerSecond(_) => "volts per second",
+            Unit::VoltsPerVolt => "volts per volt",
+            Unit::Percent => "a percentage",
+            Unit::Ppm => "parts per million",
+            Unit::Db => "decibels",
+            Unit::Degrees => "degrees",
+            Unit::Radians => "radians",
+        }
+    }
+}
+
+/// Recognise a unit suffix (after the number and any spaces).
+fn classify_unit(rest: &str) -> Option<Unit> {
+    if rest.is_empty() {
+        return Some(Unit::Bare(1.0));
+    }
+    match rest {
+        "%" => return Some(Unit::Percent),
+        "ppm" => return Some(Unit::Ppm),
+        "dB" => return Some(Unit::Db),
+        "deg" | "°" => return Some(Unit::Degrees),
+        "rad" => return Some(Unit::Radians),
+        "V/V" => return Some(Unit::VoltsPerVolt),
+        _ => {}
+    }
+    if let Some((num, den)) = rest.split_once('/') {
+        let n = strip_prefixed(num.trim(), "V")?;
+        let d = strip_prefixed(den.trim(), "s")?;
+        return Some(Unit::VoltsPerSecond(n / d));
+    }
+    if let Some(f) = strip_prefixed(rest, "Hz") {
+        return Some(Unit::Hz(f));
+    }
+    if let Some(f) = strip_prefixed(rest, "s") {
+        return Some(Unit::Seconds(f));
+    }
+    if let Some(f) = strip_prefixed(rest, "V") {
+        return Some(Unit::Volts(f));
+    }
+    let mut chars = rest.chars();
+    let first = chars.next()?;
+    if chars.as_str().is_empty() {
+        return prefix_factor(first).map(Unit::Bare);
+    }
+    None
+}
+
+/// Scan a leading decimal number (`-1.5e-3`, `.5`, `4.`); returns it and the remaining text.
+fn split_number(s: &str) -> Option<(f64, &str)> {
+    let b = s.as_bytes();
+    let mut i = 0;
+    if i < b.len() && (b[i] == b'+' || b[i] == b'-') {
+        i += 1;
+    }
+    let int_start = i;
+    while i < b.len() && b[i].is_ascii_digit() {
+        i += 1;
+    }
+    let mut digits = i - int_start;
+    if i < b.len() && b[i] == b'.' {
+        i += 1;
+        let frac_start = i;
+        while i < b.len() && b[i].is_ascii_digit() {
+            i += 1;
+        }
+        digits += i - frac_start;
+    }
+    if digits == 0 {
+        return None;
+    }
+    // An exponent only when `e`/`E` is followed by digits (so "1 e" or "2 Em" is not swallowed).
+    if i < b.len() && (b[i] == b'e' || b[i] == b'E') {
+        let mut j = i + 1;
+        if j < b.len() && (b[j] == b'+' || b[j] == b'-') {
+            j += 1;
+        }
+        let exp_start = j;
+        while j < b.len() && b[j].is_ascii_digit() {
+            j += 1;
+        }
+        if j > exp_start {
+            i = j;
+        }
+    }
+    let value: f64 = s[..i].parse().ok()?;
+    Some((value, &s[i..]))
+}
+
+/// Parse a quantity string for the given dimension into SI base units (radians for angles, V/V for gains).
+pub fn parse_quantity(text: &str, dim: Dimension) -> Result<f64, UnitError> {
+    let s = text.trim();
+    let Some((number, rest)) = split_number(s) else {
+        return Err(UnitError::new(format!(
+            "expected {}, found \"{}\" (it does not start with a number)",
+            dim.expectation(),
+            text
+        )));
+    };
+    let rest = rest.trim_start();
+    let Some(unit) = classify_unit(rest) else {
+        return Err(unknown_unit(text, rest, dim));
+    };
+    let value = convert(number, unit, dim).ok_or_else(|| {
+        let err = UnitError::new(format!(
+            "expected {}, found {}",
+            dim.expectation(),
+            unit.found_name()
+        ));
+        match (dim, unit) {
+            (
+                Dimension::Ratio | Dimension::Decibels | Dimension::Angle | Dimension::Gain,
+                Unit::Bare(_),
+            ) => err.hint("SI prefixes are not used here; write the plain number"),
+            _ => err,
+        }
+    })?;
+    if !value.is_finite() {
+        return Err(UnitError::new(format!("\"{text}\" is too large")));
+    }
+    Ok(value)
+}
+
+/// Apply the unit, if it fits the dimension.
+fn convert(x: f64, unit: Unit, dim: Dimension) -> Option<f64> {
+    use Dimension as D;
+    match (dim, unit) {
+        (D::Frequency | D::Time | D::Voltage | D::SlewRate, Unit::Bare(f)) => Some(x * f),
+        (D::Ratio | D::Decibels | D::Gain, Unit::Bare(1.0)) => Some(x),
+        (D::Angle, Unit::Bare(1.0)) => Some(x.to_radians()),
+        (D::Frequency, Unit::Hz(f)) => Some(x * f),
+        (D::Time, Unit::Seconds(f)) => Some(x * f),
+        (D::Voltage, Unit::Volts(f)) => Some(x * f),
+        (D::SlewRate, Unit::VoltsPerSecond(f)) => Some(x * f),
+        (D::Ratio, Unit::Percent) => Some(x / 100.0),
+        (D::Ratio, Unit::Ppm) => Some(x * 1e-6),
+        (D::Decibels, Unit::Db) => Some(x),
+        (D::Angle, Unit::Degrees) => Some(x.to_radians()),
+        (D::Angle, Unit::Radians) => Some(x),
+        (D::Gain, Unit::VoltsPerVolt) => Some(x),
+        (D::Gain, Unit::Db) => Some(10f64.powf(x / 20.0)),
+        _ => None,
+    }
+}
+
+/// Error for a suffix that is not a unit we know, with a hint for wrong letter case.
+fn unknown_unit(text: &str, rest: &str, dim: Dimension) -> UnitError {
+    let err = UnitError::new(format!(
+        "expected {}, found \"{}\" (unknown unit \"{}\")",
+        dim.expectation(),
+        text,
+        rest
+    ));
+    let lower = rest.to_lowercase();
+    let base = dim.base_unit();
+    if !base.is_empty() && lower.ends_with(&base.to_lowercase()) && lower != base.to_lowercase() {
+        let head = &lower[..lower.len() - base.len()];
+        if head == "m" {
+            return err.hint(format!(
+                "units are case-sensitive: \"m{base}\" is milli, \"M{base}\" is mega"
+            ));
+        }
+        if head.chars().count() == 1 {
+            let c = head.chars().next().unwrap_or('?');
+            let fixed = match c {
+                'k' | 'n' | 'p' | 'u' | 'µ' => c.to_string(),
+                'g' => "G".into(),
+                other => other.to_string(),
+            };
+            return err.hint(format!(
+                "units are case-sensitive: did you mean \"{fixed}{base}\"?"
+            ));
+        }
+    }
+    if !base.is_empty() && lower == base.to_lowercase() {
+        return err.hint(format!("units are case-sensitive: write \"{base}\""));
+    }
+    err.hint(format!(
+        "write a number with an optional prefix (p n u µ m k M G) and the unit {}",
+        if base.is_empty() { "% or ppm" } else { base }
+    ))
+}
+
+/// Format a value with an SI prefix and 4 significant digits, e.g. `format_si(83_333.3, "Hz")` = `"83.33 kHz"`.
+pub fn format_si(value: f64, unit: &str) -> String {
+    if !value.is_finite() {
+        return format!("{value} {unit}");
+    }
+    let a = value.abs();
+    let (factor, prefix) = if a == 0.0 {
+        (1.0, "")
+    } else if a >= 1e9 {
+        (1e9, "G")
+    } else if a >= 1e6 {
+        (1e6, "M")
+    } else if a >= 1e3 {
+        (1e3, "k")
+    } else if a >= 1.0 {
+        (1.0, "")
+    } else if a >= 1e-3 {
+        (1e-3, "m")
+    } else if a >= 1e-6 {
+        (1e-6, "u")
+    } else if a >= 1e-9 {
+        (1e-9, "n")
+    } else {
+        (1e-12, "p")
+    };
+    let scaled = value / factor;
+    // Keep about 4 significant digits, drop trailing zeros.
+    let int_digits = scaled.abs().max(1.0).log10().floor() as usize + 1;
+    let decimals = 4usize.saturating_sub(int_digits);
+    let mut s = format!("{:.*}", decimals, scaled);
+    if s.contains('.') {
+        s = s.trim_end_matches('0').trim_end_matches('.').to_string();
+    }
+    format!("{s} {prefix}{unit}")
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use proptest::prelude::*;
+
+    fn q(s: &str, d: Dimension) -> f64 {
+        parse_quantity(s, d).unwrap_or_else(|e| panic!("{s}: {}", e.message))
+    }
+
+    fn close(a: f64, b: f64) -> bool {
+        (a - b).abs() <= 1e-12 * b.abs().max(1e-300)
+    }
+
+    #[test]
+    fn prefixes_and_units_scale_to_si_base_units() {
+        use Dimension::*;
+        assert!(close(q("4.7k", Frequency), 4700.0));
+        assert!(close(q("1 kHz", Frequency), 1000.0));
+        assert!(close(q("10 MHz", Frequency), 10e6));
+        assert!(close(q("1 mHz", Frequency), 1e-3));
+        assert!(close(q("8 us", Time), 8e-6));
+        assert!(close(q("8 µs", Time), 8e-6));
+        assert!(close(q("8 μs", Time), 8e-6));
+        assert!(close(q("1 ms", Time), 1e-3));
+        assert!(close(q("1 Ms", Time), 1e6));
+        assert!(close(q("2.5e-3 V", Voltage), 2.5e-3));
+        assert!(close(q("-3 V", Voltage), -3.0));
+        assert!(close(q("100 pV", Voltage), 100e-12));
+        assert!(close(q("13 V/us", SlewRate), 13e6));
+        assert!(close(q("13 V/µs", SlewRate), 13e6));
+        assert!(close(q("2 V/ms", SlewRate), 2e3));
+        assert!(close(q("1 kV/s", SlewRate), 1e3));
+        assert!(close(q("5 mV/ns", SlewRate), 5e6));
+        assert!(close(q("1%", Ratio), 0.01));
+        assert!(close(q("500 ppm", Ratio), 500e-6));
+        assert!(close(q("0.25", Ratio), 0.25));
+        assert!(close(q("-3 dB", Decibels), -3.0));
+        assert!(close(q("90 deg", Angle), std::f64::consts::FRAC_PI_2));
+        assert!(close(q("90", Angle), std::f64::consts::FRAC_PI_2));
+        assert!(close(q("1.5 rad", Angle), 1.5));
+        assert!(close(q("20 dB", Gain), 10.0));
+        assert!(close(q("3 V/V", Gain), 3.0));
+        assert!(close(q("7", Gain), 7.0));
+        assert!(close(q(".5 V", Voltage), 0.5));
+        assert!(close(q("5.V", Voltage), 5.0));
+        assert!(close(q("3E2Hz", Frequency), 300.0));
+    }
+
+    #[test]
+    fn a_unit_of_the_wrong_dimension_is_named() {
+        let e = parse_quantity("1 kV", Dimension::Frequency).unwrap_err();
+        assert_eq!(
+            e.message,
+            "expected a frequency such as \"1 kHz\", found volts"
+        );
+        let e = parse_quantity("3 ms", Dimension::Voltage).unwrap_err();
+        assert!(e.message.contains("found seconds"), "{}", e.message);
+        let e = parse_quantity("1%", Dimension::Time).unwrap_err();
+        assert!(e.message.contains("found a percentage"), "{}", e.message);
+    }
+
+    #[test]
+    fn wrong_letter_case_gets_a_hint() {
+        let e = parse_quantity("1 mhz", Dimension::Frequency).unwrap_err();
+        assert!(e.hint.unwrap().contains("\"MHz\" is mega"));
+        let e = parse_quantity("1 KHZ", Dimension::Frequency).unwrap_err();
+        assert!(e.hint.unwrap().contains("kHz"));
+    }
+
+    #[test]
+    fn garbage_is_rejected() {
+        for s in [
+            "", "V", "k", "1 2", "1 kk", "1 e", "--1", "1 xyz", "1 % %", "nan", "inf", "1e999 V",
+        ] {
+            assert!(
+                parse_quantity(s, Dimension::Voltage).is_err(),
+                "{s:?} accepted"
+            );
+        }
+        // A prefix alone is not allowed where the unit has no SI prefixes.
+        assert!(parse_quantity("5m", Dimension::Ratio).is_err());
+        assert!(parse_quantity("5 k", Dimension::Decibels).is_err());
+    }
+
+    #[test]
+    fn format_si_picks_a_prefix() {
+        assert_eq!(format_si(83_333.33, "Hz"), "83.33 kHz");
+        assert_eq!(format_si(12e-6, "s"), "12 us");
+        assert_eq!(format_si(0.0, "V"), "0 V");
+        assert_eq!(format_si(-2.5, "V"), "-2.5 V");
+    }
+
+    const PFX: [(&str, f64); 10] = [
+        ("", 1.0),
+        ("p", 1e-12),
+        ("n", 1e-9),
+        ("u", 1e-6),
+        ("µ", 1e-6),
+        ("μ", 1e-6),
+        ("m", 1e-3),
+        ("k", 1e3),
+        ("M", 1e6),
+        ("G", 1e9),
+    ];
+    const UNITS: [(&str, Dimension); 4] = [
+        ("Hz", Dimension::Frequency),
+        ("s", Dimension::Time),
+        ("V", Dimension::Voltage),
+        ("V/s", Dimension::SlewRate),
+    ];
+
+    proptest! {
+        #[test]
+        fn formatted_values_parse_back(
+            mantissa in -1e6f64..1e6,
+            p in 0usize..PFX.len(),
+            u in 0usize..UNITS.len(),
+            space in any::<bool>(),
+            exp_form in any::<bool>(),
+        ) {
+            let (prefix, factor) = PFX[p];
+            let (unit, dim) = UNITS[u];
+            let num = if exp_form { format!("{mantissa:e}") } else { format!("{mantissa}") };
+            let text = format!("{num}{}{prefix}{unit}", if space { " " } else { "" });
+            let expected = mantissa * factor;
+            let got = parse_quantity(&text, dim).unwrap();
+            prop_assert!((got - expected).abs() <= 1e-12 * expected.abs(), "{} -> {} vs {}", text, got, expected);
+        }
+
+        #[test]
+        fn slew_rates_with_prefixed_denominators_parse_back(
+            mantissa in 1e-3f64..1e3,
+            pn in 0usize..PFX.len(),
+            pd in 0usize..PFX.len(),
+        ) {
+            let text = format!("{mantissa} {}V/{}s", PFX[pn].0, PFX[pd].0);
+            let expected = mantissa * PFX[pn].1 / PFX[pd].1;
+            let got = parse_quantity(&text, Dimension::SlewRate).unwrap();
+            prop_assert!((got - expected).abs() <= 1e-12 * expected.abs(), "{} -> {} vs {}", text, got, expected);
+        }
+
+        #[test]
+        fn arbitrary_strings_never_panic(s in any::<String>(), d in 0usize..8) {
+            let dims = [
+                Dimension::Frequency, Dimension::Time, Dimension::Voltage, Dimension::SlewRate,
+                Dimension::Ratio, Dimension::Decibels, Dimension::Angle, Dimension::Gain,
+            ];
+            let _ = parse_quantity(&s, dims[d]);
+        }
+
+        #[test]
+        fn number_like_strings_never_panic(s in "[-+]?[0-9.eE]{0,6} ?[pnuµmkMGdV/sHz%ppmgdr°]{0,5}") {
+            let _ = parse_quantity(&s, Dimension::SlewRate);
+            let _ = parse_quantity(&s, Dimension::Angle);
+        }
+    }
+}
