@@ -82,6 +82,7 @@ impl OutputAmp {
     }
 
     /// Hold a constant target `target_v` (V) for `dt_s` (s); returns the output at the end (V). Exact.
+    /// Without slew limit and time constant the output equals the target at once, even for `dt_s = 0`.
     pub fn advance_const(&mut self, target_v: f64, dt_s: f64) -> f64 {
         self.advance_linear(target_v, target_v, dt_s)
     }
@@ -89,14 +90,14 @@ impl OutputAmp {
     /// The target moves linearly from `target0_v` to `target1_v` (V) over `dt_s` (s); returns the output
     /// at the end (V). Exact up to rounding (closed form per piece).
     pub fn advance_linear(&mut self, target0_v: f64, target1_v: f64, dt_s: f64) -> f64 {
-        if dt_s <= 0.0 || dt_s.is_nan() {
-            return self.v;
-        }
         let sr = self.slew_v_per_s;
         let tau = self.tau_s;
         if sr.is_infinite() && tau == 0.0 {
-            // No dynamics: the output is the target, clipped.
+            // No dynamics: the output is the target, clipped (also for dt = 0).
             self.v = target1_v.clamp(self.lo_v, self.hi_v);
+            return self.v;
+        }
+        if dt_s <= 0.0 || dt_s.is_nan() {
             return self.v;
         }
         let m = (target1_v - target0_v) / dt_s;
