@@ -517,7 +517,9 @@ mod tests {
         // Well above: 10 f_p.
         let f = 10.0 * f_p;
         let mut amp = OutputAmp::new(&cfg(Some(sr), None, None), 0.0);
-        let n = (rate / f * 20.0) as usize;
+        // The triangle's centre starts off zero and decays by about 1 - 4 f_p / f = 0.6 per period;
+        // skip 20 periods.
+        let n = (rate / f * 40.0) as usize;
         let (_, ys) = run_sine(&mut amp, vp, f, rate, n);
         let tail = &ys[n / 2..];
         let dt = 1.0 / rate;
