@@ -317,11 +317,12 @@ mod tests {
                 .max_by(|&x, &y| a[x][col].abs().total_cmp(&a[y][col].abs()))
                 .unwrap();
             a.swap(col, piv);
-            for row in 0..n {
+            let pivot_row = a[col].clone();
+            for (row, r) in a.iter_mut().enumerate() {
                 if row != col {
-                    let f = a[row][col] / a[col][col];
-                    for c in col..=n {
-                        a[row][c] -= f * a[col][c];
+                    let f = r[col] / pivot_row[col];
+                    for (x, p) in r.iter_mut().zip(&pivot_row).skip(col) {
+                        *x -= f * p;
                     }
                 }
             }
@@ -488,11 +489,7 @@ mod tests {
         for (n, y) in out.iter().enumerate() {
             let t = tb.time_s(n as u64);
             // Slow oracle: the latest event available at or before t, else code 0.
-            let code = evs
-                .iter()
-                .filter(|e| e.t_avail_s <= t)
-                .next_back()
-                .map_or(0, |e| e.code);
+            let code = evs.iter().rfind(|e| e.t_avail_s <= t).map_or(0, |e| e.code);
             if evs.iter().any(|e| e.t_avail_s == t) {
                 on_grid += 1;
             }
@@ -541,8 +538,7 @@ mod tests {
                 let tn = *n as f64 / rate;
                 let code = evs
                     .iter()
-                    .filter(|e| e.t_avail_s <= tn)
-                    .next_back()
+                    .rfind(|e| e.t_avail_s <= tn)
                     .map_or(0, |e| e.code);
                 (**y - reference.level_v(code)).abs() > 1e-3
             })

@@ -502,8 +502,9 @@ mod tests {
     fn sine_below_full_power_bandwidth_passes_and_above_it_becomes_a_triangle() {
         // Full-power bandwidth f_p = SR / (2 pi Vp): a sine of peak Vp needs at most slope 2 pi f Vp, so
         // below f_p it is reproduced, above it the output is a triangle of slope +-SR with peak
-        // SR / (4 f) (W. G. Jung, "Op Amp Applications Handbook", Analog Devices 2005, section 1.5,
-        // full-power bandwidth definition -- from memory).
+        // SR / (4 f). Full-power bandwidth definition: W. G. Jung (ed.), "Op Amp Applications Handbook",
+        // Newnes / Analog Devices 2005, chapter 1 (slew rate and full-power bandwidth) -- from memory;
+        // the triangle's slope and peak follow from it (common practice, no source).
         let sr = 13e6;
         let vp = 10.0;
         let f_p = sr / (2.0 * PI * vp); // about 207 kHz
