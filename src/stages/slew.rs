@@ -606,6 +606,49 @@ mod tests {
     }
 
     #[test]
+    fn splitting_a_segment_does_not_change_the_result() {
+        // Exactness implies the semigroup property: one advance over dt equals several shorter advances
+        // along the same linear target. Random regimes (slewing, band, rails, no slew, no tau).
+        use rand::{RngExt, SeedableRng};
+        let mut r = rand_chacha::ChaCha8Rng::seed_from_u64(7);
+        for case in 0..3000 {
+            let sr = if case % 7 == 0 {
+                None
+            } else {
+                Some(0.2e6 + 5e6 * r.random::<f64>())
+            };
+            let tau = if case % 5 == 0 {
+                None
+            } else {
+                Some(0.05e-6 + 2e-6 * r.random::<f64>())
+            };
+            let rails = if case % 2 == 0 {
+                let lo = -3.0 * r.random::<f64>();
+                Some((lo, lo + 0.1 + 3.0 * r.random::<f64>()))
+            } else {
+                None
+            };
+            let c = cfg(sr, tau, rails);
+            let v0 = 6.0 * r.random::<f64>() - 3.0;
+            let t0 = 8.0 * r.random::<f64>() - 4.0;
+            let t1 = 8.0 * r.random::<f64>() - 4.0;
+            let dt = 0.1e-6 + 3e-6 * r.random::<f64>();
+            let whole = OutputAmp::new(&c, v0).advance_linear(t0, t1, dt);
+            let parts = 7;
+            let mut amp = OutputAmp::new(&c, v0);
+            let tgt = |k: usize| t0 + (t1 - t0) * k as f64 / parts as f64;
+            let mut split = 0.0;
+            for k in 0..parts {
+                split = amp.advance_linear(tgt(k), tgt(k + 1), dt / parts as f64);
+            }
+            assert!(
+                (whole - split).abs() < 1e-13,
+                "case {case}: {c:?} v0={v0} {t0}->{t1} dt={dt}: {whole} vs {split}"
+            );
+        }
+    }
+
+    #[test]
     fn rails_clip_the_output_and_the_state_leaves_the_rail_at_once() {
         let c = cfg(Some(1e6), Some(1e-6), Some((-1.0, 1.0)));
         let mut amp = OutputAmp::new(&c, 5.0);
