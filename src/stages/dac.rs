@@ -1,1 +1,587 @@
-//! (to be written)
+//! The DAC stage: a resistor ladder (ideal, R-2R or binary-weighted) with drawn resistor values, gain
+//! error and offset, a zero-order hold that switches at each code's availability instant, and the output
+//! amplifier of [`crate::stages::slew`].
+//!
+//! Bit weights are relative to the nominal full scale: an ideal ladder gives exactly `2^-(k+1)` for
+//! bit `k` (MSB `k = 0`), and drawn resistors are NOT renormalised, so tolerance shows as gain error and
+//! DNL as in a real part.
+
+use rand::RngExt;
+use rand_chacha::ChaCha8Rng;
+use rand_distr::{Distribution, StandardNormal};
+
+use crate::engine::stream::{CodeEvent, Timebase};
+use crate::scenario::{DacCfg, Ladder, ToleranceDistribution};
+use crate::stages::slew::OutputAmp;
+
+/// Smallest relative resistor value a draw may give (guards against a Gaussian draw at an absurd
+/// tolerance making a resistor zero or negative).
+const MIN_RESISTOR_FACTOR: f64 = 1e-6;
+
+/// Drawn resistor values, relative to the nominal unit resistor R (= 1).
+#[derive(Debug, Clone, PartialEq)]
+enum Resistors {
+    Ideal,
+    /// Current-mode R-2R: `shunt[k]` (2R) from node k to bit k's switch, `series[k]` (R) between nodes
+    /// k and k+1, `term` (2R) from the LSB node to ground. The reference drives node 0 (MSB end).
+    R2r {
+        shunt: Vec<f64>,
+        series: Vec<f64>,
+        term: f64,
+    },
+    /// Binary-weighted: `r[k]` (R 2^k) from the reference to the output bus for bit k.
+    Binary {
+        r: Vec<f64>,
+    },
+}
+
+/// A DAC with its drawn ladder, zero-order hold and output amplifier.
+#[derive(Debug, Clone)]
+pub struct Dac {
+    bits: u32,
+    low_v: f64,
+    full_scale_v: f64,
+    gain_error: f64,
+    offset_v: f64,
+    /// Relative bit weights, MSB first.
+    weights: Vec<f64>,
+    #[cfg_attr(not(test), allow(dead_code))]
+    resistors: Resistors,
+    amp: OutputAmp,
+    /// The level the hold presents to the amplifier now (V).
+    target_v: f64,
+    /// The instant the amplifier state refers to (s).
+    t_cur_s: f64,
+}
+
+/// One drawn resistor factor (1 + error).
+fn draw_factor(cfg: &DacCfg, rng: &mut ChaCha8Rng) -> f64 {
+    if cfg.tolerance == 0.0 {
+        return 1.0;
+    }
+    let err = match cfg.tolerance_distribution {
+        ToleranceDistribution::Uniform => cfg.tolerance * (2.0 * rng.random::<f64>() - 1.0),
+        ToleranceDistribution::Gaussian => {
+            let z: f64 = StandardNormal.sample(rng);
+            z * cfg.tolerance / 3.0
+        }
+    };
+    (1.0 + err).max(MIN_RESISTOR_FACTOR)
+}
+
+/// Bit currents of a current-mode R-2R ladder driven by Vref = 1 V with unit R, i.e. the weights
+/// `I_k / (Vref / R)`. Nodal equations for nodes 1..n-1 (node 0 is held at Vref), solved as a
+/// tridiagonal system (Thomas algorithm); both switch positions sit at 0 V.
+fn r2r_weights(shunt: &[f64], series: &[f64], term: f64) -> Vec<f64> {
+    let n = shunt.len();
+    let mut v = vec![0.0; n];
+    v[0] = 1.0;
+    if n > 1 {
+        let m = n - 1; // unknowns: nodes 1..n-1, index j -> node j + 1
+        let mut diag = vec![0.0; m];
+        let mut upper = vec![0.0; m]; // coefficient of V_{j+1} in row j
+        let mut lower = vec![0.0; m]; // coefficient of V_{j-1} in row j
+        let mut rhs = vec![0.0; m];
+        for j in 0..m {
+            let node = j + 1;
+            let g_up = 1.0 / series[node - 1];
+            let g_down = if node < n - 1 {
+                1.0 / series[node]
+            } else {
+                1.0 / term
+            };
+            diag[j] = g_up + g_down + 1.0 / shunt[node];
+            if node < n - 1 {
+                upper[j] = -1.0 / series[node];
+            }
+            if j == 0 {
+                rhs[j] = g_up * v[0];
+            } else {
+                lower[j] = -g_up;
+            }
+        }
+        // Forward sweep.
+        for j in 1..m {
+            let w = lower[j] / diag[j - 1];
+            diag[j] -= w * upper[j - 1];
+            rhs[j] -= w * rhs[j - 1];
+        }
+        // Back substitution.
+        v[m] = rhs[m - 1] / diag[m - 1];
+        for j in (0..m - 1).rev() {
+            v[j + 1] = (rhs[j] - upper[j] * v[j + 2]) / diag[j];
+        }
+    }
+    v.iter().zip(shunt).map(|(vk, rk)| vk / rk).collect()
+}
+
+impl Dac {
+    /// Build the DAC, drawing the ladder's resistors from `rng` (uniform within +-tolerance, or Gaussian
+    /// with sigma = tolerance/3). Draw order: R-2R: for each bit from the MSB, its 2R shunt then the R
+    /// towards the next bit; then the terminating 2R. Binary: one resistor per bit from the MSB. The ideal
+    /// ladder (and a zero tolerance) draws nothing.
+    ///
+    /// The output starts settled at `level_v(0)` (the level before the first code arrives).
+    pub fn new(cfg: &DacCfg, rng: &mut ChaCha8Rng) -> Dac {
+        let n = cfg.bits as usize;
+        let (resistors, weights) = match cfg.ladder {
+            Ladder::Ideal => (
+                Resistors::Ideal,
+                (0..n).map(|k| 0.5f64.powi(k as i32 + 1)).collect(),
+            ),
+            Ladder::R2r => {
+                let mut shunt = Vec::with_capacity(n);
+                let mut series = Vec::with_capacity(n.saturating_sub(1));
+                for k in 0..n {
+                    shunt.push(2.0 * draw_factor(cfg, rng));
+                    if k + 1 < n {
+                        series.push(draw_factor(cfg, rng));
+                    }
+                }
+                let term = 2.0 * draw_factor(cfg, rng);
+                let w = r2r_weights(&shunt, &series, term);
+                (
+                    Resistors::R2r {
+                        shunt,
+                        series,
+                        term,
+                    },
+                    w,
+                )
+            }
+            Ladder::Binary => {
+                let r: Vec<f64> = (0..n)
+                    .map(|k| 2f64.powi(k as i32) * draw_factor(cfg, rng))
+                    .collect();
+                // Current Vref/r_k relative to the MSB's nominal Vref/R times 1/2.
+                let w = r.iter().map(|rk| 0.5 / rk).collect();
+                (Resistors::Binary { r }, w)
+            }
+        };
+        let mut dac = Dac {
+            bits: cfg.bits,
+            low_v: cfg.range_v.0,
+            full_scale_v: cfg.range_v.1 - cfg.range_v.0,
+            gain_error: cfg.gain_error,
+            offset_v: cfg.offset_v,
+            weights,
+            resistors,
+            amp: OutputAmp::new(&cfg.output, 0.0),
+            target_v: 0.0,
+            t_cur_s: 0.0,
+        };
+        dac.target_v = dac.level_v(0);
+        dac.amp.set_value_v(dac.target_v);
+        dac
+    }
+
+    /// Word width (bits).
+    pub fn bits(&self) -> u32 {
+        self.bits
+    }
+
+    /// Relative bit weights (MSB first); an ideal ladder gives `2^-(k+1)`, summing to `1 - 2^-bits`.
+    pub fn bit_weights(&self) -> &[f64] {
+        &self.weights
+    }
+
+    /// Static output (V) for `code` before the output amplifier:
+    /// `low + full_scale * sum(weights of the set bits) * (1 + gain_error) + offset`.
+    /// Bits above the word width are ignored.
+    pub fn level_v(&self, code: u32) -> f64 {
+        let mut sum = 0.0;
+        for (k, w) in self.weights.iter().enumerate() {
+            let bit = self.bits - 1 - k as u32;
+            if (code >> bit) & 1 == 1 {
+                sum += w;
+            }
+        }
+        self.low_v + self.full_scale_v * sum * (1.0 + self.gain_error) + self.offset_v
+    }
+
+    /// Small-signal response of the output amplifier (the hold's own sinc is not included).
+    pub fn amp_response(&self, f_hz: f64) -> num_complex::Complex64 {
+        self.amp.response(f_hz)
+    }
+
+    /// Render the output (V) on grid samples `n0 .. n0 + out.len()` (sample n at `timebase.time_s(n)`).
+    ///
+    /// `events`: every code event not yet consumed, in time order. The DAC consumes those whose
+    /// `t_avail_s` is at or before the last output sample's time and returns how many; the caller passes
+    /// the rest again next time. The held level switches at exactly `t_avail_s` (a code available exactly
+    /// at a grid instant shows at that sample); the amplifier is integrated exactly between event and grid
+    /// instants. Events older than the state's instant take effect at that instant. Before the first
+    /// code the held level is `level_v(0)`. State (held level, amplifier, time) carries across calls, so
+    /// splitting a run into blocks gives identical results.
+    pub fn render(
+        &mut self,
+        timebase: Timebase,
+        n0: u64,
+        events: &[CodeEvent],
+        out: &mut [f64],
+    ) -> usize {
+        let mut i = 0;
+        for (j, y) in out.iter_mut().enumerate() {
+            let t_n = timebase.time_s(n0 + j as u64);
+            while let Some(ev) = events.get(i) {
+                if ev.t_avail_s > t_n {
+                    break;
+                }
+                if ev.t_avail_s > self.t_cur_s {
+                    self.amp
+                        .advance_const(self.target_v, ev.t_avail_s - self.t_cur_s);
+                    self.t_cur_s = ev.t_avail_s;
+                }
+                self.target_v = self.level_v(ev.code);
+                i += 1;
+            }
+            let dt = (t_n - self.t_cur_s).max(0.0);
+            *y = self.amp.advance_const(self.target_v, dt);
+            self.t_cur_s = self.t_cur_s.max(t_n);
+        }
+        i
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::scenario::OutputAmpCfg;
+    use rand::SeedableRng;
+
+    fn cfg(bits: u32, ladder: Ladder, tol: f64, dist: ToleranceDistribution) -> DacCfg {
+        DacCfg {
+            bits,
+            range_v: (-5.0, 5.0),
+            ladder,
+            tolerance: tol,
+            tolerance_distribution: dist,
+            offset_v: 0.0,
+            gain_error: 0.0,
+            output: OutputAmpCfg::default(),
+        }
+    }
+
+    fn rng(seed: u64) -> ChaCha8Rng {
+        ChaCha8Rng::seed_from_u64(seed)
+    }
+
+    #[test]
+    fn ideal_and_nominal_ladders_give_binary_weights() {
+        for bits in [1u32, 2, 3, 8, 16, 24] {
+            for ladder in [Ladder::Ideal, Ladder::R2r, Ladder::Binary] {
+                let dac = Dac::new(
+                    &cfg(bits, ladder, 0.0, ToleranceDistribution::Uniform),
+                    &mut rng(1),
+                );
+                let w = dac.bit_weights();
+                assert_eq!(w.len(), bits as usize);
+                for (k, wk) in w.iter().enumerate() {
+                    let want = 0.5f64.powi(k as i32 + 1);
+                    assert!(
+                        (wk - want).abs() <= 1e-14 * want,
+                        "{ladder:?} bits={bits} k={k}: {wk} vs {want}"
+                    );
+                }
+                let sum: f64 = w.iter().sum();
+                assert!((sum - (1.0 - 0.5f64.powi(bits as i32))).abs() < 1e-14);
+            }
+        }
+    }
+
+    /// Independent oracle: stamp every resistor into the full conductance matrix of the ladder nodes,
+    /// replace node 0's row by "V0 = 1", solve by dense Gaussian elimination with partial pivoting, and
+    /// return the current into each bit's shunt.
+    fn dense_r2r_currents(shunt: &[f64], series: &[f64], term: f64) -> Vec<f64> {
+        let n = shunt.len();
+        let mut a = vec![vec![0.0; n + 1]; n]; // augmented matrix
+        let stamp_to_ground = |a: &mut Vec<Vec<f64>>, i: usize, r: f64| a[i][i] += 1.0 / r;
+        for (k, r) in shunt.iter().enumerate() {
+            stamp_to_ground(&mut a, k, *r);
+        }
+        stamp_to_ground(&mut a, n - 1, term);
+        for (k, r) in series.iter().enumerate() {
+            let g = 1.0 / r;
+            a[k][k] += g;
+            a[k + 1][k + 1] += g;
+            a[k][k + 1] -= g;
+            a[k + 1][k] -= g;
+        }
+        for x in a[0].iter_mut() {
+            *x = 0.0;
+        }
+        a[0][0] = 1.0;
+        a[0][n] = 1.0;
+        for col in 0..n {
+            let piv = (col..n)
+                .max_by(|&x, &y| a[x][col].abs().total_cmp(&a[y][col].abs()))
+                .unwrap();
+            a.swap(col, piv);
+            let pivot_row = a[col].clone();
+            for (row, r) in a.iter_mut().enumerate() {
+                if row != col {
+                    let f = r[col] / pivot_row[col];
+                    for (x, p) in r.iter_mut().zip(&pivot_row).skip(col) {
+                        *x -= f * p;
+                    }
+                }
+            }
+        }
+        (0..n).map(|k| a[k][n] / a[k][k] / shunt[k]).collect()
+    }
+
+    #[test]
+    fn drawn_r2r_weights_match_a_dense_nodal_solve() {
+        for (seed, dist) in [
+            (3u64, ToleranceDistribution::Uniform),
+            (4, ToleranceDistribution::Gaussian),
+            (5, ToleranceDistribution::Uniform),
+        ] {
+            for bits in [1u32, 2, 10, 16] {
+                let dac = Dac::new(&cfg(bits, Ladder::R2r, 0.05, dist), &mut rng(seed));
+                let Resistors::R2r {
+                    shunt,
+                    series,
+                    term,
+                } = &dac.resistors
+                else {
+                    panic!("not an R-2R ladder");
+                };
+                let want = dense_r2r_currents(shunt, series, *term);
+                for (k, (w, d)) in dac.bit_weights().iter().zip(&want).enumerate() {
+                    assert!((w - d).abs() < 1e-12, "bits={bits} k={k}: {w} vs {d}");
+                }
+                // The drawn ladder is not the nominal one.
+                if bits > 1 {
+                    assert!((dac.bit_weights()[0] - 0.5).abs() > 1e-6);
+                }
+            }
+        }
+    }
+
+    #[test]
+    fn drawn_binary_weights_follow_their_resistors_within_tolerance() {
+        let tol = 0.01;
+        let dac = Dac::new(
+            &cfg(12, Ladder::Binary, tol, ToleranceDistribution::Uniform),
+            &mut rng(9),
+        );
+        let Resistors::Binary { r } = &dac.resistors else {
+            panic!("not binary");
+        };
+        let mut max_rel = 0.0f64;
+        for (k, (w, rk)) in dac.bit_weights().iter().zip(r).enumerate() {
+            assert_eq!(*w, 0.5 / rk);
+            let nominal = 0.5f64.powi(k as i32 + 1);
+            let rel = w / nominal - 1.0;
+            // w ~ 1/(1 + d) with |d| <= tol.
+            assert!(
+                rel >= 1.0 / (1.0 + tol) - 1.0 - 1e-15 && rel <= 1.0 / (1.0 - tol) - 1.0 + 1e-15
+            );
+            max_rel = max_rel.max(rel.abs());
+        }
+        assert!(max_rel > 0.1 * tol);
+    }
+
+    #[test]
+    fn level_follows_the_transfer_function_with_gain_error_and_offset() {
+        let mut c = cfg(8, Ladder::Ideal, 0.0, ToleranceDistribution::Uniform);
+        c.gain_error = 0.02;
+        c.offset_v = -0.013;
+        let dac = Dac::new(&c, &mut rng(0));
+        for code in 0..256u32 {
+            // Code k gives low + k (high - low) / 2^bits (the DacCfg contract), then gain and offset.
+            let want = -5.0 + 10.0 * code as f64 / 256.0 * 1.02 - 0.013;
+            assert!((dac.level_v(code) - want).abs() < 1e-14, "code {code}");
+        }
+        // Bits above the word width are ignored.
+        assert_eq!(dac.level_v(0x1ff), dac.level_v(0xff));
+    }
+
+    #[test]
+    fn tolerance_shows_as_gain_error_not_renormalised() {
+        let dac = Dac::new(
+            &cfg(12, Ladder::R2r, 0.01, ToleranceDistribution::Uniform),
+            &mut rng(21),
+        );
+        let span = dac.level_v(0xfff) - dac.level_v(0);
+        let nominal = 10.0 * (1.0 - 0.5f64.powi(12));
+        assert!((span / nominal - 1.0).abs() > 1e-5, "span {span}");
+    }
+
+    /// DNL per transition k -> k+1, with the end-point LSB.
+    fn dnl(dac: &Dac) -> Vec<f64> {
+        let top = (1u32 << dac.bits()) - 1;
+        let lsb = (dac.level_v(top) - dac.level_v(0)) / top as f64;
+        (0..top)
+            .map(|k| (dac.level_v(k + 1) - dac.level_v(k)) / lsb - 1.0)
+            .collect()
+    }
+
+    #[test]
+    fn r2r_worst_dnl_is_usually_at_the_mid_scale_carry() {
+        // The major carry 0x7F -> 0x80 switches every bit, so the MSB's mismatch against the sum of the
+        // rest is largest there: common practice, no source.
+        let seeds = 300;
+        let mut at_mid = 0;
+        let mut nonmonotonic = 0;
+        for seed in 0..seeds {
+            let dac = Dac::new(
+                &cfg(8, Ladder::R2r, 0.01, ToleranceDistribution::Uniform),
+                &mut rng(1000 + seed),
+            );
+            let d = dnl(&dac);
+            let worst = (0..d.len())
+                .max_by(|&a, &b| d[a].abs().total_cmp(&d[b].abs()))
+                .unwrap();
+            if worst == 0x7f {
+                at_mid += 1;
+            }
+            if d.iter().any(|x| *x < -1.0) {
+                nonmonotonic += 1;
+            }
+        }
+        assert!(
+            at_mid * 2 > seeds,
+            "worst DNL at mid-scale in {at_mid} of {seeds}"
+        );
+        // Any non-monotonic step is counted so a broken ladder with huge errors would show; at 1 %
+        // and 8 bits the worst DNL is about 1 LSB, so non-monotonic draws are a minority.
+        assert!(nonmonotonic * 2 < seeds, "{nonmonotonic} non-monotonic");
+    }
+
+    /// Events at irregular instants, some exactly on grid instants.
+    fn events(rate: f64, count: usize) -> Vec<CodeEvent> {
+        let mut r = rng(77);
+        let mut t = 0.3 / rate;
+        let mut v = Vec::new();
+        for i in 0..count {
+            if i % 5 == 0 {
+                // land exactly on a grid instant (the same number Timebase::time_s gives)
+                t = ((t * rate).ceil() + 3.0) / rate;
+            } else {
+                t += (1.0 + 6.0 * r.random::<f64>()) / rate;
+            }
+            v.push(CodeEvent {
+                t_sample_s: t - 1e-7,
+                t_avail_s: t,
+                code: r.random::<u32>() & 0xff,
+            });
+        }
+        v
+    }
+
+    #[test]
+    fn zoh_output_without_amplifier_is_the_latest_level_at_every_grid_time() {
+        let rate = 1e6;
+        let tb = Timebase::new(rate);
+        let mut dac = Dac::new(
+            &cfg(8, Ladder::R2r, 0.01, ToleranceDistribution::Gaussian),
+            &mut rng(5),
+        );
+        let evs = events(rate, 300);
+        let mut out = vec![0.0; 1000];
+        let used = dac.render(tb, 0, &evs, &mut out);
+        let last_t = tb.time_s(999);
+        assert_eq!(used, evs.iter().filter(|e| e.t_avail_s <= last_t).count());
+        assert!(used < evs.len());
+        let mut on_grid = 0;
+        for (n, y) in out.iter().enumerate() {
+            let t = tb.time_s(n as u64);
+            // Slow oracle: the latest event available at or before t, else code 0.
+            let code = evs.iter().rfind(|e| e.t_avail_s <= t).map_or(0, |e| e.code);
+            if evs.iter().any(|e| e.t_avail_s == t) {
+                on_grid += 1;
+            }
+            assert_eq!(*y, dac.level_v(code), "n={n}");
+        }
+        assert!(on_grid > 10);
+    }
+
+    #[test]
+    fn output_with_amplifier_matches_the_amplifier_stepped_by_hand() {
+        let rate = 1e6;
+        let tb = Timebase::new(rate);
+        let mut c = cfg(8, Ladder::Binary, 0.01, ToleranceDistribution::Uniform);
+        c.output = OutputAmpCfg {
+            slew_rate_v_per_s: Some(2e6),
+            tau_s: Some(0.7e-6),
+            rails_v: Some((-4.0, 4.5)),
+        };
+        let mut dac = Dac::new(&c, &mut rng(8));
+        let reference = dac.clone();
+        let evs = events(rate, 300);
+        let mut out = vec![0.0; 1000];
+        dac.render(tb, 0, &evs, &mut out);
+
+        let mut amp = OutputAmp::new(&c.output, reference.level_v(0));
+        let mut level = reference.level_v(0);
+        let mut t = 0.0;
+        let mut k = 0;
+        for (n, y) in out.iter().enumerate() {
+            let tn = n as f64 / rate;
+            while k < evs.len() && evs[k].t_avail_s <= tn {
+                amp.advance_const(level, evs[k].t_avail_s - t);
+                t = evs[k].t_avail_s;
+                level = reference.level_v(evs[k].code);
+                k += 1;
+            }
+            let want = amp.advance_const(level, tn - t);
+            t = tn;
+            assert!((y - want).abs() < 1e-12, "n={n}: {y} vs {want}");
+        }
+        // The amplifier really shapes the output (slew-limited edges differ from the held levels).
+        let held_differs = out
+            .iter()
+            .enumerate()
+            .filter(|(n, y)| {
+                let tn = *n as f64 / rate;
+                let code = evs
+                    .iter()
+                    .rfind(|e| e.t_avail_s <= tn)
+                    .map_or(0, |e| e.code);
+                (**y - reference.level_v(code)).abs() > 1e-3
+            })
+            .count();
+        assert!(held_differs > 100);
+    }
+
+    #[test]
+    fn rendering_in_blocks_is_byte_identical_to_one_block() {
+        let rate = 1e6;
+        let tb = Timebase::new(rate);
+        let mut c = cfg(8, Ladder::R2r, 0.01, ToleranceDistribution::Uniform);
+        c.output = OutputAmpCfg {
+            slew_rate_v_per_s: Some(3e6),
+            tau_s: Some(0.4e-6),
+            rails_v: None,
+        };
+        let evs = events(rate, 300);
+        let mut one = Dac::new(&c, &mut rng(2));
+        let mut split = one.clone();
+        let mut a = vec![0.0; 1000];
+        let used = one.render(tb, 0, &evs, &mut a);
+        let mut b = vec![0.0; 1000];
+        let mut consumed = 0;
+        for blk in 0..10 {
+            let n0 = blk * 100;
+            consumed += split.render(tb, n0 as u64, &evs[consumed..], &mut b[n0..n0 + 100]);
+        }
+        assert_eq!(consumed, used);
+        for (x, y) in a.iter().zip(&b) {
+            assert_eq!(x.to_bits(), y.to_bits());
+        }
+    }
+
+    #[test]
+    fn output_before_the_first_code_is_the_level_of_code_zero() {
+        let mut c = cfg(8, Ladder::Ideal, 0.0, ToleranceDistribution::Uniform);
+        c.offset_v = 0.25;
+        c.output.tau_s = Some(1e-6);
+        let mut dac = Dac::new(&c, &mut rng(0));
+        let mut out = [1.0; 10];
+        let used = dac.render(Timebase::new(1e6), 0, &[], &mut out);
+        assert_eq!(used, 0);
+        assert!(out.iter().all(|y| *y == -5.0 + 0.25));
+    }
+}
