@@ -5,9 +5,11 @@
 //! pads zero LSBs), then its bits are sent MSB first through a binary symmetric channel: every
 //! transported bit flips independently with probability `bit_error_rate`. Flips are drawn by geometric
 //! skipping (the number of good bits before the next flip), so the cost is per flip, not per bit.
-//! Codes are collected into frames of `frame` codes; a frame leaves when its last code arrives, and
-//! every code in it becomes available `delay` after that instant. A partial frame at the end of a run
-//! never leaves.
+//! Codes are collected into frames of `frame` codes; a frame leaves when its last code arrives and
+//! reaches the far end `delay` later, where the receiver plays its codes out at the pace they were
+//! sent (code i of the frame `i` sample spacings after the first). Every code therefore arrives the same
+//! time after it was produced: `delay` plus the time the frame took to fill, (frame - 1) sample periods.
+//! A partial frame at the end of a run never leaves.
 
 use rand::RngExt;
 use rand_chacha::ChaCha8Rng;
@@ -86,8 +88,9 @@ impl Link {
     }
 
     /// Push one arriving code (arrival instant = its `t_avail_s`). Codes that leave the link (a whole
-    /// frame, when this code completes it) are appended to `out` in order, each with `t_avail_s` = this
-    /// arrival instant + delay; `t_sample_s` is kept.
+    /// frame, when this code completes it) are appended to `out` in order; code i of the frame becomes
+    /// available at its own arrival + (last arrival - first arrival) + delay, i.e. the frame is played out at
+    /// the pace it was filled; `t_sample_s` is kept.
     pub fn push(&mut self, ev: CodeEvent, out: &mut Vec<CodeEvent>) {
         let mut code = self.convert(ev.code);
         if self.bit_error_rate > 0.0 {
@@ -108,9 +111,10 @@ impl Link {
         }
         self.pending.push(CodeEvent { code, ..ev });
         if self.pending.len() >= self.frame {
-            let t_out = ev.t_avail_s + self.delay_s;
+            let fill_s = ev.t_avail_s - self.pending[0].t_avail_s;
+            let delay_s = self.delay_s;
             out.extend(self.pending.drain(..).map(|e| CodeEvent {
-                t_avail_s: t_out,
+                t_avail_s: e.t_avail_s + fill_s + delay_s,
                 ..e
             }));
         }
@@ -121,11 +125,11 @@ impl Link {
         self.flipped
     }
 
-    /// Mean latency (s) this link adds for codes arriving uniformly at `sample_rate_hz`: the delay plus
-    /// the average frame wait. In a frame of F codes, code i (from 0) waits F - 1 - i sample periods for
-    /// the last one, so the average wait is (F - 1)/2 periods.
+    /// Latency (s) this link adds for codes arriving uniformly at `sample_rate_hz`: the delay plus the
+    /// time a frame of F codes takes to fill, (F - 1) periods (the same for every code, since the far
+    /// end plays the frame out at the pace it was filled).
     pub fn mean_latency_s(&self, sample_rate_hz: f64) -> f64 {
-        self.delay_s + (self.frame as f64 - 1.0) / 2.0 / sample_rate_hz
+        self.delay_s + (self.frame as f64 - 1.0) / sample_rate_hz
     }
 }
 
@@ -203,8 +207,12 @@ mod tests {
         }
         assert_eq!(out.len(), 8);
         for (i, o) in out.iter().enumerate() {
+            let first = evs[i / 4 * 4];
             let last = evs[i / 4 * 4 + 3];
-            assert_eq!(o.t_avail_s, last.t_avail_s + delay);
+            // Released when the frame is full, played out at the pace it was filled.
+            assert!(o.t_avail_s >= last.t_avail_s + delay - 1e-15);
+            let want = evs[i].t_avail_s + (last.t_avail_s - first.t_avail_s) + delay;
+            assert!((o.t_avail_s - want).abs() < 1e-15);
             assert_eq!(o.code, evs[i].code);
             assert_eq!(o.t_sample_s, evs[i].t_sample_s);
         }
@@ -226,7 +234,7 @@ mod tests {
             / 1000.0;
         let want = link.mean_latency_s(rate);
         assert!((mean - want).abs() < 1e-12, "{mean} vs {want}");
-        assert!((want - (delay + 2.0 / rate)).abs() < 1e-15);
+        assert!((want - (delay + 4.0 / rate)).abs() < 1e-15);
     }
 
     /// Run `words` codes of width `bits` at bit error rate `p`; return (flips counted by the link,
