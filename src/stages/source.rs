@@ -43,7 +43,7 @@ pub struct SourceGen {
 enum Kind {
     /// A closed-form function of time (never `Noise` or `Wav`).
     Exact(Waveform),
-    Noise(NoiseGen),
+    Noise(Box<NoiseGen>),
     Wav(Box<WavStream>),
 }
 
@@ -63,7 +63,12 @@ impl SourceGen {
             Waveform::Noise {
                 rms_v,
                 bandwidth_hz,
-            } => Kind::Noise(NoiseGen::new(*rms_v, *bandwidth_hz, timebase.rate_hz, seed)),
+            } => Kind::Noise(Box::new(NoiseGen::new(
+                *rms_v,
+                *bandwidth_hz,
+                timebase.rate_hz,
+                seed,
+            ))),
             Waveform::Wav {
                 path,
                 channel,
@@ -727,6 +732,7 @@ mod tests {
     }
 
     /// Least-squares fit of a sin(2 pi f t) + b cos(2 pi f t) + c; returns (amplitude, phase of a sine, c).
+    #[allow(clippy::needless_range_loop)] // index form reads like the algebra
     fn fit_sine(y: &[f64], t0_s: f64, rate_hz: f64, f_hz: f64) -> (f64, f64, f64) {
         let mut m = [[0.0f64; 3]; 3];
         let mut r = [0.0f64; 3];
@@ -1094,6 +1100,7 @@ mod tests {
 
     /// Write `frames` frames of a tone (peak `amp` full scale, `f_hz`) into `ch_tone` of a `channels`-channel
     /// WAV; the other channel carries a tone at 3 x f of amplitude 0.3.
+    #[allow(clippy::too_many_arguments)]
     fn write_wav(
         path: &Path,
         fmt: Fmt,
