@@ -5,6 +5,12 @@
 //! time: [`SourceGen::value_at`] gives the value at any instant and [`SourceGen::fill`] evaluates it at the
 //! grid instants `n / rate` (computed from `n`, never accumulated). Noise and WAV sources only exist on the
 //! grid and are produced by [`SourceGen::fill`] in order.
+//!
+//! Band-limited noise is white Gaussian noise through a 6th-order Butterworth low-pass (three biquads, bilinear
+//! transform prewarped at the bandwidth), scaled by the filter's exact white-noise power gain so the rms
+//! after band-limiting is the one asked for. A bandwidth at or above 0.49 x the analog rate gives white noise.
+//! WAV files are read whole (the chosen channel, at the file's rate) and resampled to the analog rate in
+//! chunks as the run asks for samples.
 
 use std::f64::consts::PI;
 use std::path::Path;
@@ -787,17 +793,12 @@ mod tests {
             1e6,
             1,
         );
-        for (t_whole, frac_cycles) in [(1000.0, 0.9765625), (1.0e6, 0.5)] {
-            // At 1e6 s: f * 1e6 = 1e9 + 976.5625, fraction 0.5625; adjust below.
-            let frac = if t_whole == 1.0e6 {
-                0.5625
-            } else {
-                frac_cycles
-            };
+        // At 1e6 s: f * 1e6 = 1e9 + 976.5625 cycles, fraction 0.5625.
+        for (t_whole, frac) in [(1000.0, 0.9765625), (1.0e6, 0.5625)] {
             for k in 0..50 {
                 let tau = k as f64 * 1.37e-5;
                 let t = t_whole + tau;
-                // tau is small and exact enough; the reference uses the reduced phase directly.
+                // The offset actually represented in t (t - t_whole is exact here).
                 let tau_exact = t - t_whole;
                 let want = (2.0 * PI * (frac + f * tau_exact) + phase).sin();
                 let got = g.value_at(t);
