@@ -1,1 +1,539 @@
-//! (to be written)
+//! The successive-approximation (SAR) converter.
+//!
+//! A conversion k starts at its nominal sampling instant t_k. Bit trial i (MSB first, i = 0..bits-1) is
+//! decided at t_k + (i + 1)/clock by a comparator: it keeps the trial bit when
+//! `input + dither + comparator offset + comparator noise >= internal DAC level of the trial code`.
+//! The code is available at t_k + conversion_time.
+//!
+//! Internally the comparison is done in LSB units, u = (v - low)/q with q = (high - low)/2^bits, against the
+//! DAC level in LSB units (the sum of the trial weights). With nominal weights 2^(bits-1-i) the result is
+//! exactly `floor(u)` clipped to 0..2^bits - 1, i.e. [`SarAdc::ideal_code`].
+//!
+//! Capacitor mismatch follows a charge-redistribution array: bit i is made of 2^(bits-1-i) unit capacitors
+//! and one more unit capacitor terminates the array (2^bits units in all). Each unit has a relative sigma
+//! `capacitor_mismatch`, so bit i's capacitor has relative sigma `mismatch / sqrt(units)`. The DAC level of a
+//! code is (its capacitance / total actual capacitance) x full scale: the whole array always spans the
+//! nominal range, and the errors show up as INL/DNL rather than as gain error.
+
+use rand_chacha::ChaCha8Rng;
+use rand_distr::{Distribution, StandardNormal};
+
+use crate::engine::stream::CodeEvent;
+use crate::scenario::{AdcInput, DitherKind, SarAdcCfg};
+use crate::stages::Probe;
+use crate::stages::sample_hold::SampleHold;
+
+/// The SAR converter stage.
+pub struct SarAdc {
+    cfg: SarAdcCfg,
+    rng: ChaCha8Rng,
+    /// Trial weight of bit i (MSB first), in nominal LSB.
+    weights_lsb: Vec<f64>,
+    clipped: u64,
+}
+
+impl SarAdc {
+    /// Build the converter, drawing the capacitor mismatch (if any) from `rng`, which then also provides
+    /// dither and comparator noise.
+    ///
+    /// # Panics
+    /// If `bits` is not in 1..=32 (the scenario checker guarantees it).
+    pub fn new(cfg: &SarAdcCfg, mut rng: ChaCha8Rng) -> SarAdc {
+        let n = cfg.bits;
+        assert!((1..=32).contains(&n), "SAR bits must be 1..=32");
+        let mut weights_lsb: Vec<f64> =
+            (0..n).map(|i| f64::powi(2.0, (n - 1 - i) as i32)).collect();
+        if cfg.capacitor_mismatch > 0.0 {
+            let sigma = cfg.capacitor_mismatch;
+            let mut caps: Vec<f64> = weights_lsb
+                .iter()
+                .map(|&units| {
+                    let z: f64 = StandardNormal.sample(&mut rng);
+                    units + sigma * units.sqrt() * z
+                })
+                .collect();
+            let z: f64 = StandardNormal.sample(&mut rng);
+            let dummy = 1.0 + sigma * z;
+            let total: f64 = caps.iter().sum::<f64>() + dummy;
+            let full = f64::powi(2.0, n as i32);
+            for c in &mut caps {
+                *c *= full / total;
+            }
+            weights_lsb = caps;
+        }
+        SarAdc {
+            cfg: *cfg,
+            rng,
+            weights_lsb,
+            clipped: 0,
+        }
+    }
+
+    /// Nominal sampling instant of conversion `k` (s): `k / sample_rate`, or `k * conversion_time` when
+    /// free-running. Computed from `k`, never accumulated.
+    pub fn sample_time_s(&self, k: u64) -> f64 {
+        match self.cfg.sample_rate_hz {
+            Some(rate) => k as f64 / rate,
+            None => k as f64 * self.cfg.conversion_time_s,
+        }
+    }
+
+    /// Latest input instant (s) conversion `k` may need: `t_k + sh_lookahead_s` for a held input (the hold's
+    /// look-ahead, [`SampleHold::lookahead_s`]), `t_k + bits/clock` for a live input.
+    pub fn latest_input_needed_s(&self, k: u64, sh_lookahead_s: f64) -> f64 {
+        let t_k = self.sample_time_s(k);
+        match self.cfg.input {
+            AdcInput::Held => t_k + sh_lookahead_s,
+            AdcInput::Live => t_k + self.cfg.bits as f64 / self.cfg.clock_hz,
+        }
+    }
+
+    /// Dither for one conversion, in LSB.
+    fn draw_dither_lsb(&mut self) -> f64 {
+        let size = self.cfg.dither_lsb;
+        let mut uniform = |half_width: f64| -> f64 {
+            let z: f64 = rand::RngExt::random(&mut self.rng); // [0, 1)
+            (2.0 * z - 1.0) * half_width
+        };
+        match self.cfg.dither {
+            DitherKind::None => 0.0,
+            DitherKind::Rpdf => uniform(size / 2.0),
+            DitherKind::Tpdf => uniform(size / 4.0) + uniform(size / 4.0),
+        }
+    }
+
+    /// Convert sample `k`.
+    ///
+    /// Held input: acquire from `sh` (an upstream sample-and-hold, or [`SampleHold::ideal`]), compare the held
+    /// value at each trial instant, then release `sh` at t_k + conversion_time. Live input: each trial
+    /// compares the input at its own instant. Dither is drawn once per conversion, comparator noise once
+    /// per comparison.
+    pub fn convert(&mut self, k: u64, probe: &dyn Probe, sh: &mut SampleHold) -> CodeEvent {
+        let t_k = self.sample_time_s(k);
+        let n = self.cfg.bits;
+        let low = self.cfg.range_v.0;
+        let q = self.cfg.lsb_v();
+        let full = f64::powi(2.0, n as i32);
+        let dither = self.draw_dither_lsb();
+        let held = match self.cfg.input {
+            AdcInput::Held => Some(sh.acquire(t_k, probe)),
+            AdcInput::Live => None,
+        };
+        let offset = self.cfg.comparator_offset_v;
+        let noise_sigma = self.cfg.comparator_noise_v;
+        let mut code: u64 = 0;
+        let mut level = 0.0;
+        for i in 0..n as usize {
+            let t = t_k + (i + 1) as f64 / self.cfg.clock_hz;
+            let v = match &held {
+                Some(h) => h.value_at(t),
+                None => probe.value_at(t),
+            };
+            if i == 0 {
+                let u0 = (v - low) / q;
+                if !(0.0..full).contains(&u0) {
+                    self.clipped += 1;
+                }
+            }
+            let noise = if noise_sigma > 0.0 {
+                let z: f64 = StandardNormal.sample(&mut self.rng);
+                noise_sigma * z
+            } else {
+                0.0
+            };
+            let u = (v + offset + noise - low) / q + dither;
+            let trial = level + self.weights_lsb[i];
+            if u >= trial {
+                level = trial;
+                code |= 1u64 << (n as usize - 1 - i);
+            }
+        }
+        let t_avail = t_k + self.cfg.conversion_time_s;
+        if held.is_some() {
+            sh.release(t_avail);
+        }
+        CodeEvent {
+            t_sample_s: t_k,
+            t_avail_s: t_avail,
+            code: code as u32,
+        }
+    }
+
+    /// Number of conversions whose input (at the first bit trial) was outside the range, so that the ideal
+    /// quantizer would clip it to code 0 or 2^bits - 1.
+    pub fn codes_clipped(&self) -> u64 {
+        self.clipped
+    }
+
+    /// Ideal transfer: `floor((v - low)/q)` clipped to 0..2^bits - 1 (the naive oracle for tests and static
+    /// tests).
+    pub fn ideal_code(cfg: &SarAdcCfg, v: f64) -> u32 {
+        let full = f64::powi(2.0, cfg.bits as i32);
+        let x = ((v - cfg.range_v.0) / cfg.lsb_v()).floor();
+        if x >= full {
+            (full - 1.0) as u32
+        } else if x >= 0.0 {
+            x as u32
+        } else {
+            0
+        }
+    }
+
+    /// Transition levels (V) of the noiseless, undithered converter: element `k - 1` is the input at which
+    /// the code goes from below `k` to `k` or more, k = 1..2^bits - 1. Comparator offset included.
+    ///
+    /// Computed exactly from the trial weights: code c results for inputs u (LSB units) with
+    /// DAC(c) <= u < min over the 0-bits i of c of (DAC(bits of c above i) + w_i), which may be empty (a
+    /// missing code). The output code never decreases as the input rises, so the transition into k is the
+    /// DAC level of the first non-empty code at or above k. Allocates 2^bits - 1 values: meant for static
+    /// tests of converters up to about 24 bits.
+    pub fn transition_levels_v(&self) -> Vec<f64> {
+        let n = self.cfg.bits as usize;
+        let count = (1usize << n) - 1;
+        let mut t_lsb = vec![0.0; count];
+        let mut pending = 1usize; // first code whose transition is not yet known
+        // Walk the codes in increasing order (a depth-first walk of the trial tree).
+        fn walk(
+            w: &[f64],
+            i: usize,
+            code: usize,
+            level: f64,
+            upper: f64,
+            out: &mut [f64],
+            pending: &mut usize,
+        ) {
+            if i == w.len() {
+                if code > 0 && level < upper {
+                    for slot in &mut out[*pending - 1..code] {
+                        *slot = level;
+                    }
+                    *pending = code + 1;
+                }
+                return;
+            }
+            let bit = 1usize << (w.len() - 1 - i);
+            let trial = level + w[i];
+            walk(w, i + 1, code, level, upper.min(trial), out, pending);
+            walk(w, i + 1, code | bit, trial, upper, out, pending);
+        }
+        walk(
+            &self.weights_lsb,
+            0,
+            0,
+            0.0,
+            f64::INFINITY,
+            &mut t_lsb,
+            &mut pending,
+        );
+        let low = self.cfg.range_v.0;
+        let q = self.cfg.lsb_v();
+        let off = self.cfg.comparator_offset_v;
+        t_lsb.iter().map(|t| low + t * q - off).collect()
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use rand::{RngExt, SeedableRng};
+    use std::cell::RefCell;
+
+    struct FnProbe<F: Fn(f64) -> f64>(F);
+    impl<F: Fn(f64) -> f64> Probe for FnProbe<F> {
+        fn value_at(&self, t_s: f64) -> f64 {
+            (self.0)(t_s)
+        }
+    }
+
+    fn cfg(bits: u32) -> SarAdcCfg {
+        let clock = 20e6;
+        SarAdcCfg {
+            bits,
+            range_v: (-1.0, 1.5),
+            clock_hz: clock,
+            cycles: bits + 1,
+            conversion_time_s: (bits + 1) as f64 / clock,
+            sample_rate_hz: Some(500e3),
+            input: AdcInput::Held,
+            comparator_offset_v: 0.0,
+            comparator_noise_v: 0.0,
+            capacitor_mismatch: 0.0,
+            dither: DitherKind::None,
+            dither_lsb: 0.0,
+        }
+    }
+
+    fn adc(c: &SarAdcCfg, seed: u64) -> SarAdc {
+        SarAdc::new(c, ChaCha8Rng::seed_from_u64(seed))
+    }
+
+    /// Code for a constant input.
+    fn code_of(a: &mut SarAdc, v: f64) -> u32 {
+        a.convert(0, &FnProbe(move |_| v), &mut SampleHold::ideal())
+            .code
+    }
+
+    #[test]
+    fn ideal_sar_equals_the_naive_quantizer_for_every_width() {
+        // Oracle: the naive quantizer floor((v - low)/q), clipped (definition of the ideal converter).
+        let mut rng = ChaCha8Rng::seed_from_u64(5);
+        for bits in 1..=24 {
+            let c = cfg(bits);
+            let mut a = adc(&c, 1);
+            let span = c.range_v.1 - c.range_v.0;
+            let q = c.lsb_v();
+            let mut outside = 0;
+            for j in 0..100_000u64 {
+                let v = if j % 10 == 0 {
+                    // Exactly on a transition of the ideal transfer.
+                    let k = rng.random_range(0..(1u64 << bits));
+                    c.range_v.0 + k as f64 * q
+                } else {
+                    c.range_v.0 - 0.05 * span + 1.1 * span * rng.random::<f64>()
+                };
+                if v < c.range_v.0 || v >= c.range_v.1 {
+                    outside += 1;
+                }
+                let got = code_of(&mut a, v);
+                assert_eq!(got, SarAdc::ideal_code(&c, v), "bits {bits}, v {v}");
+            }
+            assert_eq!(a.codes_clipped(), outside, "bits {bits}");
+            assert!(outside > 0);
+        }
+    }
+
+    #[test]
+    fn ideal_transition_levels_are_low_plus_k_lsb() {
+        let c = cfg(10);
+        let t = adc(&c, 0).transition_levels_v();
+        assert_eq!(t.len(), 1023);
+        for (i, v) in t.iter().enumerate() {
+            let want = c.range_v.0 + (i + 1) as f64 * c.lsb_v();
+            assert!((v - want).abs() < 1e-12);
+        }
+    }
+
+    #[test]
+    fn timing_of_trials_and_codes_with_a_fixed_rate_and_free_running() {
+        // Fixed rate: t_k = k / rate; trials at t_k + (i + 1)/clock; code at t_k + conversion_time.
+        let mut c = cfg(8);
+        c.input = AdcInput::Live;
+        let times = RefCell::new(Vec::new());
+        let probe = FnProbe(|t| {
+            times.borrow_mut().push(t);
+            0.3
+        });
+        let mut a = adc(&c, 0);
+        let mut sh = SampleHold::ideal();
+        for k in [0u64, 1, 7, 1_000_003] {
+            times.borrow_mut().clear();
+            let e = a.convert(k, &probe, &mut sh);
+            let t_k = k as f64 / 500e3;
+            assert_eq!(e.t_sample_s, t_k);
+            assert_eq!(e.t_avail_s, t_k + c.conversion_time_s);
+            let seen = times.borrow().clone();
+            assert_eq!(seen.len(), 8);
+            for (i, t) in seen.iter().enumerate() {
+                assert_eq!(*t, t_k + (i + 1) as f64 / c.clock_hz);
+            }
+            assert_eq!(a.latest_input_needed_s(k, 0.0), t_k + 8.0 / c.clock_hz);
+        }
+        // Free-running: the next conversion starts when the previous one ends.
+        c.sample_rate_hz = None;
+        c.input = AdcInput::Held;
+        c.conversion_time_s = 1.3e-6;
+        let mut a = adc(&c, 0);
+        for k in [0u64, 1, 2, 999_999, 1_000_000] {
+            let e = a.convert(k, &probe, &mut sh);
+            assert_eq!(e.t_sample_s, k as f64 * 1.3e-6);
+            assert_eq!(e.t_avail_s, e.t_sample_s + 1.3e-6);
+            assert!((e.t_avail_s - a.sample_time_s(k + 1)).abs() < 1e-15);
+            assert_eq!(a.latest_input_needed_s(k, 2e-9), e.t_sample_s + 2e-9);
+        }
+    }
+
+    #[test]
+    fn a_live_input_moving_during_conversion_corrupts_codes_but_a_held_one_does_not() {
+        // Common practice, no source: a SAR without a hold needs the input to move less than about 1/2 LSB
+        // during the conversion. What follows exactly from the binary search with an ideal DAC: the live code
+        // lies between the ideal codes of the input at the first and at the last trial.
+        let c = cfg(10);
+        let q = c.lsb_v();
+        let t_conv = c.conversion_time_s;
+        let t_last = c.bits as f64 / c.clock_hz;
+        let mut rng = ChaCha8Rng::seed_from_u64(8);
+        for (lsb_per_conv, fast) in [(20.0, true), (0.4, false)] {
+            let slope = lsb_per_conv * q / t_conv;
+            let mut held_adc = adc(&c, 0);
+            let mut live_cfg = c;
+            live_cfg.input = AdcInput::Live;
+            let mut live_adc = adc(&live_cfg, 0);
+            let mut sh = SampleHold::ideal();
+            let (mut differ, mut max_diff) = (0, 0i64);
+            let n = 3000;
+            for k in 0..n {
+                // Each conversion sees a ramp of the given slope through a random level at t_k.
+                let t_k = held_adc.sample_time_s(k);
+                let v0 = c.range_v.0 + 0.9 * (c.range_v.1 - c.range_v.0) * rng.random::<f64>();
+                let ramp = move |t: f64| v0 + slope * (t - t_k);
+                let p = FnProbe(ramp);
+                let held = held_adc.convert(k, &p, &mut sh).code;
+                assert_eq!(held, SarAdc::ideal_code(&c, ramp(t_k)));
+                let live = live_adc.convert(k, &p, &mut sh).code;
+                let lo = SarAdc::ideal_code(&c, ramp(t_k + 1.0 / c.clock_hz));
+                let hi = SarAdc::ideal_code(&c, ramp(t_k + t_last));
+                assert!(lo <= live && live <= hi, "live {live} outside [{lo}, {hi}]");
+                let d = live as i64 - held as i64;
+                if d != 0 {
+                    differ += 1;
+                }
+                max_diff = max_diff.max(d.abs());
+            }
+            if fast {
+                assert!(differ > n / 2, "fast ramp: only {differ} codes differ");
+                assert!(max_diff >= 5, "fast ramp: max difference {max_diff}");
+            } else {
+                assert!(max_diff <= 1, "slow ramp: max difference {max_diff}");
+            }
+        }
+    }
+
+    #[test]
+    fn comparator_offset_shifts_every_transition_by_the_offset() {
+        let mut c = cfg(8);
+        c.capacitor_mismatch = 0.01;
+        let base = adc(&c, 9).transition_levels_v();
+        c.comparator_offset_v = 0.37 * c.lsb_v();
+        let mut a = adc(&c, 9); // same seed: same capacitors
+        let shifted = a.transition_levels_v();
+        let q = c.lsb_v();
+        for (k, (b, s)) in base.iter().zip(&shifted).enumerate() {
+            // The comparator sees v + offset, so every transition moves down by the offset.
+            assert!((s - (b - c.comparator_offset_v)).abs() < 1e-12);
+            // And the converter agrees on either side of the shifted transition.
+            if k % 17 == 0 && (k == 0 || shifted[k - 1] < *s) {
+                assert!(code_of(&mut a, s + 1e-6 * q) as usize > k);
+                assert!((code_of(&mut a, s - 1e-6 * q) as usize) < k + 1);
+            }
+        }
+    }
+
+    #[test]
+    fn transition_levels_with_mismatch_match_a_brute_force_ramp() {
+        // Oracle: run convert() on a fine ramp; the code at each point must equal the number of
+        // transition levels at or below it.
+        for (bits, mismatch, seed) in [(6u32, 0.4, 1u64), (8, 0.05, 2), (10, 0.02, 3)] {
+            let mut c = cfg(bits);
+            c.capacitor_mismatch = mismatch;
+            let mut a = adc(&c, seed);
+            let t = a.transition_levels_v();
+            assert!(t.windows(2).all(|w| w[0] <= w[1]));
+            let q = c.lsb_v();
+            let steps = (1usize << bits) * 200;
+            let lo = c.range_v.0 - 2.0 * q;
+            let span = c.range_v.1 - c.range_v.0 + 4.0 * q;
+            let mut missing = 0;
+            for w in t.windows(2) {
+                if w[0] == w[1] {
+                    missing += 1;
+                }
+            }
+            for j in 0..=steps {
+                let v = lo + span * j as f64 / steps as f64;
+                let above = t.partition_point(|x| *x <= v);
+                let near = [above.saturating_sub(1), above.min(t.len() - 1)]
+                    .iter()
+                    .any(|&i| (t[i] - v).abs() < 1e-9 * q);
+                if near {
+                    continue;
+                }
+                assert_eq!(code_of(&mut a, v) as usize, above, "bits {bits}, v {v}");
+            }
+            if bits == 6 {
+                assert!(missing > 0, "large mismatch should give missing codes");
+            }
+        }
+    }
+
+    #[test]
+    fn capacitor_mismatch_gives_the_expected_mid_scale_dnl_spread() {
+        // Binary-weighted capacitor array with independent unit mismatch (model from memory: J. L. McCreary
+        // and P. R. Gray, "All-MOS charge redistribution analog-to-digital conversion techniques, part I",
+        // IEEE JSSC 1975). The width of code 2^(N-1) - 1 is C_msb - sum of the other bit capacitors; with
+        // 2^(N-1) + (2^(N-1) - 1) independent units of relative sigma s, its sigma is s sqrt(2^N - 1) LSB
+        // (sum of independent variances; normalisation by the total changes it by O(2^-N/2)).
+        let bits = 10;
+        let s = 0.002;
+        let mut c = cfg(bits);
+        c.capacitor_mismatch = s;
+        let mid = 1usize << (bits - 1);
+        let trials = 400;
+        let mut sum2 = 0.0;
+        let mut sum = 0.0;
+        for seed in 0..trials {
+            let a = adc(&c, 1000 + seed);
+            let t = a.transition_levels_v();
+            // Code mid - 1 spans [T(mid - 1), T(mid)); t[k - 1] is T(k).
+            let width = (t[mid - 1] - t[mid - 2]) / c.lsb_v();
+            let dnl = width - 1.0;
+            sum += dnl;
+            sum2 += dnl * dnl;
+        }
+        let mean = sum / trials as f64;
+        let sd = (sum2 / trials as f64 - mean * mean).sqrt();
+        let want = s * ((1u64 << bits) as f64 - 1.0).sqrt();
+        // 400 draws: the sd estimate is within about +-3.5 % (1 sigma); allow 15 %.
+        assert!((sd / want - 1.0).abs() < 0.15, "sd {sd} vs {want}");
+        assert!(mean.abs() < 4.0 * want / (trials as f64).sqrt());
+    }
+
+    #[test]
+    fn dither_makes_the_mean_code_follow_the_input() {
+        // With RPDF dither of 1 LSB, or TPDF of 2 LSB peak-to-peak, E[floor(x + d)] = x - 1/2 for every x, and
+        // with TPDF the error variance is 1/4 LSB^2 independent of x (from memory: R. A. Wannamaker, S. P.
+        // Lipshitz, J. Vanderkooy, J. N. Wright, "A theory of nonsubtractive dither", IEEE Trans. Signal
+        // Processing, 2000).
+        for (kind, size) in [(DitherKind::Rpdf, 1.0), (DitherKind::Tpdf, 2.0)] {
+            let mut c = cfg(12);
+            c.dither = kind;
+            c.dither_lsb = size;
+            let q = c.lsb_v();
+            let mut a = adc(&c, 77);
+            for frac in [0.0, 0.25, 0.5, 0.8] {
+                let x = 1000.0 + frac;
+                let v = c.range_v.0 + x * q;
+                let n = 40_000;
+                let (mut s, mut s2) = (0.0, 0.0);
+                for _ in 0..n {
+                    let e = code_of(&mut a, v) as f64 - x;
+                    s += e;
+                    s2 += e * e;
+                }
+                let mean = s / n as f64;
+                let var = s2 / n as f64 - mean * mean;
+                // The mean over 4e4 draws is within 0.005 LSB (4 sigma).
+                assert!((mean + 0.5).abs() < 0.01, "{kind:?} at {x}: mean {mean}");
+                if kind == DitherKind::Tpdf {
+                    assert!((var / 0.25 - 1.0).abs() < 0.04, "TPDF at {x}: var {var}");
+                }
+            }
+        }
+    }
+
+    #[test]
+    fn comparator_noise_spreads_codes_and_same_seed_repeats() {
+        let mut c = cfg(12);
+        c.comparator_noise_v = 0.7 * c.lsb_v();
+        let v = c.range_v.0 + 2000.4 * c.lsb_v();
+        let run = |seed| {
+            let mut a = adc(&c, seed);
+            (0..2000).map(|_| code_of(&mut a, v)).collect::<Vec<_>>()
+        };
+        let a = run(4);
+        assert_eq!(a, run(4));
+        assert_ne!(a, run(5));
+        let distinct: std::collections::BTreeSet<_> = a.iter().collect();
+        assert!(distinct.len() >= 3);
+        assert!(a.iter().all(|&k| (1995..=2006).contains(&k)));
+    }
+}
