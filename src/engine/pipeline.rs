@@ -395,6 +395,8 @@ impl Chain {
                         ),
                         None => (None, SampleHold::ideal(), Default::default()),
                     };
+                    let mut sh_stage = sh_stage;
+                    sh_stage.set_input_step_s(timebase.dt_s());
                     converter = Some(Converter {
                         sh_label,
                         sh: sh_stage,
