@@ -205,3 +205,158 @@ pub fn group_delay_s(input: &[f64], output: &[f64], sample_rate_hz: f64, tones_h
         })
         .collect()
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use rand::SeedableRng;
+    use rand_chacha::ChaCha8Rng;
+    use rand_distr::{Distribution, Normal};
+
+    /// White Gaussian noise with its Nyquist bin removed, and the same record delayed by `delay` samples
+    /// exactly (circularly, in the frequency domain: X_k e^{-i 2 pi k delay / n}).
+    fn noise_and_delayed(n: usize, delay: f64, seed: u64) -> (Vec<f64>, Vec<f64>) {
+        let mut rng = ChaCha8Rng::seed_from_u64(seed);
+        let normal = Normal::new(0.0, 1.0).unwrap();
+        let mut x: Vec<f64> = (0..n).map(|_| normal.sample(&mut rng)).collect();
+        let mut planner = RealFftPlanner::<f64>::new();
+        let fwd = planner.plan_fft_forward(n);
+        let inv = planner.plan_fft_inverse(n);
+        let mut spec = fwd.make_output_vec();
+        fwd.process(&mut x, &mut spec).unwrap();
+        let last = spec.len() - 1;
+        spec[0] = Complex64::new(0.0, 0.0);
+        spec[last] = Complex64::new(0.0, 0.0);
+        let mut delayed_spec: Vec<Complex64> = spec
+            .iter()
+            .enumerate()
+            .map(|(k, v)| v * Complex64::from_polar(1.0, -TAU * k as f64 * delay / n as f64))
+            .collect();
+        let mut input = vec![0.0; n];
+        let mut output = vec![0.0; n];
+        inv.process(&mut spec, &mut input).unwrap();
+        inv.process(&mut delayed_spec, &mut output).unwrap();
+        (input, output)
+    }
+
+    #[test]
+    fn fractional_delay_of_broadband_noise_is_recovered_to_a_hundredth_of_a_sample() {
+        let fs = 48_000.0;
+        for (delay, seed) in [(3.37, 1), (-12.81, 2), (0.5, 3), (0.0, 4)] {
+            let (x, y) = noise_and_delayed(8192, delay, seed);
+            let d = xcorr_delay_s(&x, &y, fs, 0.001) * fs;
+            assert!((d - delay).abs() < 0.01, "{d} vs {delay}");
+        }
+    }
+
+    #[test]
+    fn a_parabola_alone_would_miss_by_more_than_the_tolerance() {
+        // Shows the band-limited refinement matters: on white noise the correlation is sinc-shaped and the
+        // three-point parabola is biased by a tenth of a sample near a 0.3-sample offset.
+        let (x, y) = noise_and_delayed(8192, 0.3, 5);
+        let cc = CrossCorrelation::new(&x, &y, 10);
+        let l0 = cc.peak_lag(10);
+        let (ym, y0, yp) = (cc.at_lag(l0 - 1), cc.at_lag(l0), cc.at_lag(l0 + 1));
+        let parabola = l0 as f64 + 0.5 * (ym - yp) / (ym - 2.0 * y0 + yp);
+        assert!((parabola - 0.3).abs() > 0.03, "parabola {parabola}");
+        assert!((cc.refine(l0) - 0.3).abs() < 0.01);
+    }
+
+    #[test]
+    fn a_polarity_flip_is_still_found() {
+        let fs = 1.0;
+        let (x, y) = noise_and_delayed(4096, 7.25, 9);
+        let flipped: Vec<f64> = y.iter().map(|v| -0.7 * v + 0.3).collect();
+        let d = xcorr_delay_s(&x, &flipped, fs, 50.0);
+        assert!((d - 7.25).abs() < 0.01, "{d}");
+    }
+
+    #[test]
+    fn records_of_different_lengths_and_an_offset_still_line_up() {
+        // A pulse-like broadband burst at sample 100 in the input and 100 + 40.6 in a longer output with DC.
+        let burst = |t: f64| (-0.5 * (t / 3.0).powi(2)).exp() * (1.3 * t).cos();
+        let x: Vec<f64> = (0..500).map(|i| burst(i as f64 - 100.0)).collect();
+        let y: Vec<f64> = (0..900).map(|i| 2.0 + 0.5 * burst(i as f64 - 140.6)).collect();
+        let d = xcorr_delay_s(&x, &y, 1.0, 100.0);
+        assert!((d - 40.6).abs() < 0.01, "{d}");
+    }
+
+    #[test]
+    fn phase_delay_of_several_periods_is_resolved_by_a_coarse_estimate() {
+        let (fs, f, n) = (10_000.0, 123.4, 20_000);
+        let delay = 2.3 / f;
+        let x: Vec<f64> = (0..n).map(|i| (TAU * f * i as f64 / fs + 0.4).cos()).collect();
+        let y: Vec<f64> = (0..n).map(|i| 0.8 * (TAU * f * (i as f64 / fs - delay) + 0.4).cos()).collect();
+        for coarse in [delay, delay + 0.4 / f, delay - 0.4 / f] {
+            let d = phase_delay_s(&x, &y, fs, f, coarse);
+            assert!((d - delay).abs() < 1e-12, "{d} vs {delay}");
+        }
+        // A coarse estimate a whole period off lands a period off: the ambiguity is real.
+        let d = phase_delay_s(&x, &y, fs, f, delay + 1.0 / f);
+        assert!((d - delay - 1.0 / f).abs() < 1e-12);
+    }
+
+    #[test]
+    fn group_delay_of_a_pure_delay_is_flat_and_equals_it() {
+        let (fs, n) = (48_000.0, 48_000);
+        let tones = [500.0, 1_100.0, 2_300.0, 3_700.0, 5_100.0]; // spacing <= 1.4 kHz: unambiguous below 357 us
+        let delay = 1.234e-4;
+        let make = |d: f64| -> Vec<f64> {
+            (0..n)
+                .map(|i| {
+                    let t = i as f64 / fs - d;
+                    tones.iter().enumerate().map(|(k, f)| (TAU * f * t + k as f64).cos()).sum()
+                })
+                .collect()
+        };
+        let gd = group_delay_s(&make(0.0), &make(delay), fs, &tones);
+        assert_eq!(gd.len(), tones.len() - 1);
+        for (k, (f, d)) in gd.iter().enumerate() {
+            assert!((f - 0.5 * (tones[k] + tones[k + 1])).abs() < 1e-9);
+            assert!((d - delay).abs() < 1e-12, "{gd:?}");
+        }
+    }
+
+    #[test]
+    fn group_delay_of_a_symmetric_fir_is_half_its_length_minus_one() {
+        // A linear-phase FIR of L taps delays every frequency by (L - 1)/2 samples (A. V. Oppenheim and
+        // R. W. Schafer, "Discrete-Time Signal Processing", section on generalized linear phase). Hann-shaped taps,
+        // L = 9, tones well inside the main lobe (the amplitude response stays positive, so no phase jumps).
+        let h: Vec<f64> = (0..9).map(|m| 0.5 - 0.5 * (TAU * (m + 1) as f64 / 10.0).cos()).collect();
+        let (fs, n) = (1.0, 20_000);
+        let tones = [0.011, 0.023, 0.047, 0.071, 0.093];
+        let x: Vec<f64> = (0..n)
+            .map(|i| tones.iter().enumerate().map(|(k, f)| (TAU * f * i as f64 + 0.5 * k as f64).cos()).sum())
+            .collect();
+        let y: Vec<f64> = (0..n).map(|i| (0..9).filter(|&m| m <= i).map(|m| h[m] * x[i - m]).sum()).collect();
+        // Drop the start-up transient from both records, keeping the same time origin.
+        let gd = group_delay_s(&x[8..], &y[8..], fs, &tones);
+        for (_, d) in gd {
+            assert!((d - 4.0).abs() < 1e-9, "{d}");
+        }
+    }
+
+    #[test]
+    fn budget_lines_add_up() {
+        let lines = vec![
+            BudgetLine { stage: "adc".into(), seconds: 0.5e-3 },
+            BudgetLine { stage: "block".into(), seconds: 128.0 / 48_000.0 },
+        ];
+        assert!((budget_total_s(&lines) - (0.5e-3 + 128.0 / 48_000.0)).abs() < 1e-15);
+    }
+
+    #[test]
+    fn fft_length_is_even_smooth_and_large_enough() {
+        for n in [1usize, 2, 3, 7, 100, 1000, 4097, 1_000_003] {
+            let l = fft_len(n);
+            let mut m = l;
+            while m % 2 == 0 {
+                m /= 2;
+            }
+            while m % 3 == 0 {
+                m /= 3;
+            }
+            assert!(l >= n && l % 2 == 0 && m == 1, "{n} -> {l}");
+        }
+    }
+}
