@@ -154,3 +154,117 @@ pub fn fidelity(reference: &[f64], output: &[f64], sample_rate_hz: f64, max_dela
     };
     Fidelity { fidelity_db, delay_s: d / sample_rate_hz, gain: g, offset_v: c }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use rand::SeedableRng;
+    use rand_chacha::ChaCha8Rng;
+    use rand_distr::{Distribution, Normal};
+    use std::f64::consts::{PI, TAU};
+
+    const TONES: [(f64, f64, f64); 6] =
+        [(0.013, 1.0, 0.3), (0.071, 0.7, -1.1), (0.137, 0.5, 2.0), (0.211, 0.4, 0.7), (0.29, 0.3, -2.5), (0.37, 0.2, 1.4)];
+
+    /// A broadband multitone (cycles per sample, up to 0.37 fs) evaluated exactly at sample times minus `delay`.
+    fn multitone(n: usize, delay: f64) -> Vec<f64> {
+        (0..n)
+            .map(|i| TONES.iter().map(|(f, a, p)| a * (TAU * f * (i as f64 - delay) + p).cos()).sum())
+            .collect()
+    }
+
+    fn var(x: &[f64]) -> f64 {
+        let m = x.iter().sum::<f64>() / x.len() as f64;
+        x.iter().map(|v| (v - m).powi(2)).sum::<f64>() / x.len() as f64
+    }
+
+    #[test]
+    fn identical_signals_score_very_high() {
+        let x = multitone(20_000, 0.0);
+        let r = fidelity(&x, &x, 1.0, 50.0);
+        assert!(r.fidelity_db > 150.0, "{r:?}");
+        assert!(r.delay_s.abs() < 1e-6 && (r.gain - 1.0).abs() < 1e-9 && r.offset_v.abs() < 1e-9, "{r:?}");
+    }
+
+    #[test]
+    fn delay_gain_and_offset_are_taken_out() {
+        let fs = 48_000.0;
+        let d = 3.7;
+        let x = multitone(20_000, 0.0);
+        let y: Vec<f64> = multitone(20_000, d).iter().map(|v| 0.5 * v + 0.1).collect();
+        let r = fidelity(&x, &y, fs, 1e-3);
+        // The limit is the 64-tap interpolator (about -100 dB at 0.37 fs, by its design).
+        assert!(r.fidelity_db > 95.0, "{r:?}");
+        assert!((r.delay_s * fs - d).abs() < 1e-5, "{r:?}");
+        assert!((r.gain - 0.5).abs() < 1e-6 && (r.offset_v - 0.1).abs() < 1e-6, "{r:?}");
+        // Negative delay (output earlier) and an inverted output work too.
+        let z: Vec<f64> = multitone(20_000, -11.25).iter().map(|v| -2.0 * v).collect();
+        let r = fidelity(&x, &z, fs, 1e-3);
+        assert!(r.fidelity_db > 95.0 && (r.delay_s * fs + 11.25).abs() < 1e-5 && (r.gain + 2.0).abs() < 1e-5, "{r:?}");
+    }
+
+    #[test]
+    fn independent_noise_gives_the_signal_to_noise_ratio() {
+        // Definition check: with output = reference + independent noise of rms e, the ratio is var / e^2
+        // (common practice, no source). The noise power of 20000 samples scatters by sqrt(2/20000) = 1 %
+        // (0.04 dB), the three fitted parameters remove a negligible 3/20000 of it: allow 0.2 dB.
+        let mut rng = ChaCha8Rng::seed_from_u64(21);
+        let n = 20_000;
+        let x = multitone(n, 0.0);
+        for e in [0.01, 0.1] {
+            let normal = Normal::new(0.0, e).unwrap();
+            let y: Vec<f64> = x.iter().map(|v| v + normal.sample(&mut rng)).collect();
+            let r = fidelity(&x, &y, 1.0, 20.0);
+            let expect = 10.0 * (var(&x) / (e * e)).log10();
+            assert!((r.fidelity_db - expect).abs() < 0.2, "e {e}: {r:?} expected {expect}");
+        }
+    }
+
+    #[test]
+    fn a_zero_order_hold_staircase_at_two_and_a_half_samples_per_cycle_scores_about_one_db() {
+        // A sine held by a zero-order hold at 2.5 samples per cycle, seen on a grid 16 times finer. On that grid
+        // the hold is a 16-sample box filter applied to the impulses of the coarse samples. Its response at the
+        // tone (ZOH frequency response; on the fine grid the discrete box, Dirichlet kernel, common practice) is
+        // H = sin(16 pi f/fs) / (16 sin(pi f/fs)) = sin(0.4 pi) / (16 sin(pi/40)) = 0.7576, with a pure delay
+        // of 7.5 fine samples. The staircase holds the power of the samples, A^2/2 (5 distinct phases per
+        // period), so after the best alignment the fundamental carries H^2 of it and the images the rest:
+        // fidelity = 10 log10(H^2 / (1 - H^2)) = 1.29 dB. Low indeed, though not negative: the staircase still
+        // follows the sine. Allow 0.1 dB for the record's edges.
+        let up = 16usize;
+        let n = 40_000usize; // fine samples, 1000 periods of 40 fine samples
+        let fs = 1.0;
+        let f = 1.0 / 40.0;
+        let reference: Vec<f64> = (0..n).map(|i| (TAU * f * i as f64 + 0.2).cos()).collect();
+        let staircase: Vec<f64> = (0..n).map(|i| reference[i - i % up]).collect();
+        let h = (16.0 * PI * f).sin() / (16.0 * (PI * f).sin());
+        let expect = 10.0 * (h * h / (1.0 - h * h)).log10();
+        let r = fidelity(&reference, &staircase, fs, 20.0);
+        assert!((r.fidelity_db - expect).abs() < 0.1, "{r:?}, theory {expect}");
+        assert!(r.fidelity_db < 6.0);
+        // The fitted gain is the hold's response at the tone; the delay is its 7.5 samples. A pure sine cannot tell
+        // a delay from one a whole period away, nor a polarity flip from half a period: the delay is checked
+        // modulo half a period (20 samples), with the gain's sign telling which half.
+        assert!((r.gain.abs() - h).abs() < 2e-3, "{r:?}");
+        let m = (r.delay_s - 7.5).rem_euclid(40.0);
+        let off = if r.gain > 0.0 { m.min(40.0 - m) } else { (m - 20.0).abs() };
+        assert!(off < 0.05, "{r:?}");
+    }
+
+    #[test]
+    fn too_short_records_give_nan() {
+        let x = multitone(40, 0.0);
+        assert!(fidelity(&x, &x, 1.0, 2.0).fidelity_db.is_nan());
+    }
+
+    #[test]
+    fn the_interpolation_kernel_is_exact_at_whole_samples_and_sums_to_one() {
+        let mut k = [0.0; 2 * HALF_TAPS];
+        kernel(0.0, &mut k);
+        for (j, w) in k.iter().enumerate() {
+            let want = if j == HALF_TAPS - 1 { 1.0 } else { 0.0 };
+            assert!((w - want).abs() < 1e-15, "{j}: {w}");
+        }
+        kernel(0.37, &mut k);
+        assert!((k.iter().sum::<f64>() - 1.0).abs() < 1e-14);
+    }
+}
