@@ -228,3 +228,170 @@ pub fn dac_from_levels(levels_v: &[f64], ideal_zero_v: f64, ideal_lsb_v: f64) ->
         monotonic,
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use std::f64::consts::TAU;
+
+    fn ideal_transitions(bits: u32, low: f64, q: f64) -> Vec<f64> {
+        (1..(1usize << bits)).map(|k| low + k as f64 * q).collect()
+    }
+
+    fn floor_code(v: f64, bits: u32, low: f64, q: f64) -> u32 {
+        let m = (1u64 << bits) as f64;
+        ((v - low) / q).floor().clamp(0.0, m - 1.0) as u32
+    }
+
+    fn all_zero(v: &[f64], tol: f64) -> bool {
+        v.iter().all(|x| x.abs() < tol)
+    }
+
+    #[test]
+    fn an_ideal_quantizer_has_no_dnl_inl_offset_or_gain_error() {
+        let r = adc_from_transitions(&ideal_transitions(6, -1.0, 2.0 / 64.0), -1.0, 2.0 / 64.0);
+        assert_eq!(r.dnl_lsb.len(), 64);
+        assert!(all_zero(&r.dnl_lsb, 1e-12) && all_zero(&r.inl_endpoint_lsb, 1e-12) && all_zero(&r.inl_bestfit_lsb, 1e-12));
+        assert!(r.offset_lsb.abs() < 1e-12 && r.gain_error_lsb.abs() < 1e-12);
+        assert!(r.missing_codes == 0 && r.monotonic && r.dnl_max_lsb < 1e-12 && r.inl_max_lsb < 1e-12);
+    }
+
+    #[test]
+    fn a_moved_transition_shows_at_the_right_codes() {
+        // By hand: moving T_5 up by 0.3 q widens code 4 (T_4..T_5) to 1.3 q and narrows code 5 (T_5..T_6) to 0.7 q;
+        // the end transitions are untouched, so the average width stays q. End-point INL at T_5 is +0.3.
+        let q = 0.01;
+        let mut t = ideal_transitions(4, 0.0, q);
+        t[5 - 1] += 0.3 * q;
+        let r = adc_from_transitions(&t, 0.0, q);
+        for k in 0..16 {
+            let want = match k {
+                4 => 0.3,
+                5 => -0.3,
+                _ => 0.0,
+            };
+            assert!((r.dnl_lsb[k] - want).abs() < 1e-12, "code {k}: {:?}", r.dnl_lsb);
+            let want_inl = if k == 5 { 0.3 } else { 0.0 };
+            assert!((r.inl_endpoint_lsb[k] - want_inl).abs() < 1e-12, "code {k}: {:?}", r.inl_endpoint_lsb);
+        }
+        // Best fit, by hand: the LS line through T_1..T_15 (ideal k q, T_5 up by 0.3 q) has its mean up by
+        // 0.3/15 = 0.02 and its slope changed by 0.3 (5 - 8) / sum_k (k - 8)^2 = -0.9/280 (centre k = 8). At k = 5
+        // the line sits 0.02 + 2.7/280 above ideal; INL is the residual in units of the fitted slope 1 - 0.9/280.
+        let want_bf5 = (0.3 - 0.02 - 2.7 / 280.0) / (1.0 - 0.9 / 280.0);
+        assert!((r.inl_bestfit_lsb[5] - want_bf5).abs() < 1e-12, "{}", r.inl_bestfit_lsb[5]);
+        assert!((r.dnl_max_lsb - 0.3).abs() < 1e-12 && r.missing_codes == 0 && r.monotonic);
+        assert!(r.offset_lsb.abs() < 1e-12 && r.gain_error_lsb.abs() < 1e-9);
+    }
+
+    #[test]
+    fn offset_and_gain_errors_are_read_from_the_end_transitions() {
+        // Every transition shifted by +0.25 q and the span stretched by 2 %: offset 0.25 LSB, gain error
+        // 0.02 * (M - 2) LSB, and no DNL (the average width absorbs the gain).
+        let q = 1.0;
+        let t: Vec<f64> = (1..32).map(|k| 0.25 + 1.0 + (k - 1) as f64 * 1.02).collect();
+        let r = adc_from_transitions(&t, 0.0, q);
+        assert!((r.offset_lsb - 0.25).abs() < 1e-12 && (r.gain_error_lsb - 0.02 * 30.0).abs() < 1e-9);
+        assert!(all_zero(&r.dnl_lsb, 1e-12) && all_zero(&r.inl_bestfit_lsb, 1e-12));
+    }
+
+    #[test]
+    fn a_missing_code_counts_and_has_dnl_of_minus_one() {
+        let q = 1.0;
+        let mut t = ideal_transitions(4, 0.0, q);
+        t[7 - 1] = t[8 - 1]; // T_7 = T_8: code 7 never appears
+        let r = adc_from_transitions(&t, 0.0, q);
+        assert_eq!(r.missing_codes, 1);
+        assert!((r.dnl_lsb[7] + 1.0).abs() < 1e-12 && (r.dnl_lsb[6] - 1.0).abs() < 1e-12);
+        assert!(r.monotonic, "a missing code alone keeps the transitions in order");
+        t[7 - 1] = t[8 - 1] + 0.2; // now out of order
+        let r = adc_from_transitions(&t, 0.0, q);
+        assert!(!r.monotonic && r.missing_codes == 1);
+    }
+
+    #[test]
+    fn code_density_of_an_ideal_8_bit_quantizer_is_flat() {
+        // IEEE Std 1241, histogram (code density) test with a sine: an overdriven coherent sine through an ideal
+        // quantizer gives transitions T_k = C - A cos(pi CH_{k-1} / S) and |DNL| close to 0 (0.05 LSB tolerance:
+        // common practice, no source). 10^6 samples, 7919 cycles (prime, so coprime with 10^6: every sample at a
+        // distinct phase, J/M coherent sampling).
+        let bits = 8;
+        let (low, q) = (-1.0, 2.0 / 256.0);
+        let n = 1_000_000usize;
+        let (amp, offset) = (1.02, 0.003);
+        let mut hist = vec![0u64; 256];
+        for i in 0..n {
+            let v = offset + amp * (TAU * 7919.0 * i as f64 / n as f64 + 0.1).sin();
+            hist[floor_code(v, bits, low, q) as usize] += 1;
+        }
+        for (a, c) in [(None, None), (Some(amp), Some(offset)), (Some(amp), None), (None, Some(offset))] {
+            let r = adc_code_density(&hist, a, c, low, q);
+            assert!(r.dnl_max_lsb < 0.05, "{a:?} {c:?}: DNL max {}", r.dnl_max_lsb);
+            assert!(r.inl_max_lsb < 0.05, "{a:?} {c:?}: INL max {}", r.inl_max_lsb);
+            assert!(r.missing_codes == 0 && r.monotonic);
+            if a.is_some() && c.is_some() {
+                // With the true amplitude and offset, offset and gain errors are measured (ideal: 0).
+                assert!(r.offset_lsb.abs() < 0.05 && r.gain_error_lsb.abs() < 0.1, "{r:?}");
+            }
+        }
+    }
+
+    #[test]
+    fn code_density_finds_a_wide_code() {
+        // An 8-bit quantizer whose code 100 is 1.5 q wide (T_101 moved up by q/2) shows DNL +0.5 at code 100 and
+        // -0.5 at code 101, as the transition-level definition gives by hand.
+        let (low, q) = (-1.0, 2.0 / 256.0);
+        let mut t = ideal_transitions(8, low, q);
+        t[101 - 1] += 0.5 * q;
+        let n = 1_000_000usize;
+        let mut hist = vec![0u64; 256];
+        for i in 0..n {
+            let v = 1.02 * (TAU * 7919.0 * i as f64 / n as f64).sin();
+            hist[t.partition_point(|&tk| tk <= v)] += 1;
+        }
+        let r = adc_code_density(&hist, None, None, low, q);
+        assert!((r.dnl_lsb[100] - 0.5).abs() < 0.05 && (r.dnl_lsb[101] + 0.5).abs() < 0.05, "{:?}", &r.dnl_lsb[98..104]);
+    }
+
+    #[test]
+    fn ramp_test_recovers_transitions_to_the_ramp_step() {
+        // 64 samples per code: transitions placed within half a step, so |DNL| <= 1/64 (by construction of
+        // the midpoint rule).
+        let (bits, low, q) = (6u32, 0.0, 1.0);
+        let mut t = ideal_transitions(bits, low, q);
+        t[20 - 1] -= 0.4; // code 19 narrower, code 20 wider
+        let n = 64 * 64;
+        for rising in [true, false] {
+            let ramp: Vec<f64> = (0..n)
+                .map(|i| {
+                    let u = (i as f64 + 0.5) / 64.0;
+                    if rising { u } else { 64.0 - u }
+                })
+                .collect();
+            let codes: Vec<u32> = ramp.iter().map(|&v| t.partition_point(|&tk| tk <= v) as u32).collect();
+            let r = adc_ramp(&ramp, &codes, bits, low, q);
+            assert!((r.dnl_lsb[19] + 0.4).abs() < 1.0 / 64.0 + 1e-9, "{:?}", &r.dnl_lsb[17..22]);
+            assert!((r.dnl_lsb[20] - 0.4).abs() < 1.0 / 64.0 + 1e-9);
+            let others = r.dnl_lsb.iter().enumerate().filter(|(k, _)| *k != 19 && *k != 20);
+            assert!(others.map(|(_, v)| v.abs()).fold(0.0, f64::max) < 1.0 / 64.0 + 1e-9);
+        }
+    }
+
+    #[test]
+    fn dac_with_a_falling_step_is_not_monotonic() {
+        // A 4-bit DAC whose mid-scale carry (0111 -> 1000) steps down by half an LSB.
+        let q = 0.1;
+        let mut v: Vec<f64> = (0..16).map(|k| 0.05 + k as f64 * q).collect();
+        for x in v.iter_mut().skip(8) {
+            *x -= 1.5 * q;
+        }
+        let r = dac_from_levels(&v, 0.0, q);
+        assert!(!r.monotonic);
+        // By hand: span 15 q - 1.5 q = 13.5 q, measured LSB 0.9 q; step 7 -> 8 is -0.5 q: DNL = -0.5/0.9 - 1.
+        assert!((r.dnl_lsb[8] - (-0.5 / 0.9 - 1.0)).abs() < 1e-12 && (r.dnl_lsb[3] - (1.0 / 0.9 - 1.0)).abs() < 1e-12);
+        assert!((r.offset_lsb - 0.5).abs() < 1e-12 && (r.gain_error_lsb + 1.5).abs() < 1e-12);
+        assert!(r.inl_endpoint_lsb[0].abs() < 1e-12 && r.inl_endpoint_lsb[15].abs() < 1e-12);
+        let ideal: Vec<f64> = (0..16).map(|k| k as f64 * q).collect();
+        let r = dac_from_levels(&ideal, 0.0, q);
+        assert!(r.monotonic && r.dnl_max_lsb < 1e-12 && r.inl_max_lsb < 1e-12 && r.missing_codes == 0);
+    }
+}
