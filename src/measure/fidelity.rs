@@ -55,9 +55,17 @@ fn kernel(mu: f64, out: &mut [f64; 2 * HALF_TAPS]) {
     for (j, w) in out.iter_mut().enumerate() {
         let m = j as f64 - (HALF_TAPS as f64 - 1.0);
         let x = mu - m; // distance from the tap, in (-h, h)
-        let sinc = if x == 0.0 { 1.0 } else { (std::f64::consts::PI * x).sin() / (std::f64::consts::PI * x) };
+        let sinc = if x == 0.0 {
+            1.0
+        } else {
+            (std::f64::consts::PI * x).sin() / (std::f64::consts::PI * x)
+        };
         let r = x / h;
-        let win = if r.abs() >= 1.0 { 0.0 } else { bessel_i0(KAISER_BETA * (1.0 - r * r).sqrt()) / i0b };
+        let win = if r.abs() >= 1.0 {
+            0.0
+        } else {
+            bessel_i0(KAISER_BETA * (1.0 - r * r).sqrt()) / i0b
+        };
         *w = sinc * win;
         sum += *w;
     }
@@ -115,8 +123,18 @@ impl Aligner<'_> {
 /// `sample_rate_hz`) after the best sub-sample delay (searched up to `max_delay_s` either way), gain and offset.
 /// See the module notes for the exact definition. Cost: one FFT cross-correlation plus seven passes of a 64-tap
 /// interpolator over the overlap.
-pub fn fidelity(reference: &[f64], output: &[f64], sample_rate_hz: f64, max_delay_s: f64) -> Fidelity {
-    let nan = Fidelity { fidelity_db: f64::NAN, delay_s: f64::NAN, gain: f64::NAN, offset_v: f64::NAN };
+pub fn fidelity(
+    reference: &[f64],
+    output: &[f64],
+    sample_rate_hz: f64,
+    max_delay_s: f64,
+) -> Fidelity {
+    let nan = Fidelity {
+        fidelity_db: f64::NAN,
+        delay_s: f64::NAN,
+        gain: f64::NAN,
+        offset_v: f64::NAN,
+    };
     let d0_s = xcorr_delay_s(reference, output, sample_rate_hz, max_delay_s);
     if !d0_s.is_finite() {
         return nan;
@@ -128,11 +146,17 @@ pub fn fidelity(reference: &[f64], output: &[f64], sample_rate_hz: f64, max_dela
     let shift_max = (-(d0 - SEARCH_SAMPLES - 1.0)).floor();
     let lo = (first - shift_min).max(0.0);
     let hi = (reference.len() as f64 - HALF_TAPS as f64 - shift_max).min(output.len() as f64);
-    if !(hi - lo >= 16.0) {
+    if hi - lo < 16.0 {
         return nan;
     }
     let (n_lo, n_hi) = (lo as usize, hi as usize);
-    let mut al = Aligner { reference, output, n_lo, n_hi, y: vec![0.0; n_hi - n_lo] };
+    let mut al = Aligner {
+        reference,
+        output,
+        n_lo,
+        n_hi,
+        y: vec![0.0; n_hi - n_lo],
+    };
     let mut d = d0;
     for h in [0.1, 0.01] {
         let (em, ..) = al.fit(d - h);
@@ -152,7 +176,12 @@ pub fn fidelity(reference: &[f64], output: &[f64], sample_rate_hz: f64, max_dela
     } else {
         10.0 * (g * g * var_y / mse).log10()
     };
-    Fidelity { fidelity_db, delay_s: d / sample_rate_hz, gain: g, offset_v: c }
+    Fidelity {
+        fidelity_db,
+        delay_s: d / sample_rate_hz,
+        gain: g,
+        offset_v: c,
+    }
 }
 
 #[cfg(test)]
@@ -163,13 +192,24 @@ mod tests {
     use rand_distr::{Distribution, Normal};
     use std::f64::consts::{PI, TAU};
 
-    const TONES: [(f64, f64, f64); 6] =
-        [(0.013, 1.0, 0.3), (0.071, 0.7, -1.1), (0.137, 0.5, 2.0), (0.211, 0.4, 0.7), (0.29, 0.3, -2.5), (0.37, 0.2, 1.4)];
+    const TONES: [(f64, f64, f64); 6] = [
+        (0.013, 1.0, 0.3),
+        (0.071, 0.7, -1.1),
+        (0.137, 0.5, 2.0),
+        (0.211, 0.4, 0.7),
+        (0.29, 0.3, -2.5),
+        (0.37, 0.2, 1.4),
+    ];
 
     /// A broadband multitone (cycles per sample, up to 0.37 fs) evaluated exactly at sample times minus `delay`.
     fn multitone(n: usize, delay: f64) -> Vec<f64> {
         (0..n)
-            .map(|i| TONES.iter().map(|(f, a, p)| a * (TAU * f * (i as f64 - delay) + p).cos()).sum())
+            .map(|i| {
+                TONES
+                    .iter()
+                    .map(|(f, a, p)| a * (TAU * f * (i as f64 - delay) + p).cos())
+                    .sum()
+            })
             .collect()
     }
 
@@ -183,7 +223,10 @@ mod tests {
         let x = multitone(20_000, 0.0);
         let r = fidelity(&x, &x, 1.0, 50.0);
         assert!(r.fidelity_db > 150.0, "{r:?}");
-        assert!(r.delay_s.abs() < 1e-6 && (r.gain - 1.0).abs() < 1e-9 && r.offset_v.abs() < 1e-9, "{r:?}");
+        assert!(
+            r.delay_s.abs() < 1e-6 && (r.gain - 1.0).abs() < 1e-9 && r.offset_v.abs() < 1e-9,
+            "{r:?}"
+        );
     }
 
     #[test]
@@ -196,11 +239,19 @@ mod tests {
         // The limit is the 64-tap interpolator (about -100 dB at 0.37 fs, by its design).
         assert!(r.fidelity_db > 95.0, "{r:?}");
         assert!((r.delay_s * fs - d).abs() < 1e-5, "{r:?}");
-        assert!((r.gain - 0.5).abs() < 1e-6 && (r.offset_v - 0.1).abs() < 1e-6, "{r:?}");
+        assert!(
+            (r.gain - 0.5).abs() < 1e-6 && (r.offset_v - 0.1).abs() < 1e-6,
+            "{r:?}"
+        );
         // Negative delay (output earlier) and an inverted output work too.
         let z: Vec<f64> = multitone(20_000, -11.25).iter().map(|v| -2.0 * v).collect();
         let r = fidelity(&x, &z, fs, 1e-3);
-        assert!(r.fidelity_db > 95.0 && (r.delay_s * fs + 11.25).abs() < 1e-5 && (r.gain + 2.0).abs() < 1e-5, "{r:?}");
+        assert!(
+            r.fidelity_db > 95.0
+                && (r.delay_s * fs + 11.25).abs() < 1e-5
+                && (r.gain + 2.0).abs() < 1e-5,
+            "{r:?}"
+        );
     }
 
     #[test]
@@ -216,7 +267,10 @@ mod tests {
             let y: Vec<f64> = x.iter().map(|v| v + normal.sample(&mut rng)).collect();
             let r = fidelity(&x, &y, 1.0, 20.0);
             let expect = 10.0 * (var(&x) / (e * e)).log10();
-            assert!((r.fidelity_db - expect).abs() < 0.2, "e {e}: {r:?} expected {expect}");
+            assert!(
+                (r.fidelity_db - expect).abs() < 0.2,
+                "e {e}: {r:?} expected {expect}"
+            );
         }
     }
 
@@ -239,14 +293,21 @@ mod tests {
         let h = (16.0 * PI * f).sin() / (16.0 * (PI * f).sin());
         let expect = 10.0 * (h * h / (1.0 - h * h)).log10();
         let r = fidelity(&reference, &staircase, fs, 20.0);
-        assert!((r.fidelity_db - expect).abs() < 0.1, "{r:?}, theory {expect}");
+        assert!(
+            (r.fidelity_db - expect).abs() < 0.1,
+            "{r:?}, theory {expect}"
+        );
         assert!(r.fidelity_db < 6.0);
         // The fitted gain is the hold's response at the tone; the delay is its 7.5 samples. A pure sine cannot tell
         // a delay from one a whole period away, nor a polarity flip from half a period: the delay is checked
         // modulo half a period (20 samples), with the gain's sign telling which half.
         assert!((r.gain.abs() - h).abs() < 2e-3, "{r:?}");
         let m = (r.delay_s - 7.5).rem_euclid(40.0);
-        let off = if r.gain > 0.0 { m.min(40.0 - m) } else { (m - 20.0).abs() };
+        let off = if r.gain > 0.0 {
+            m.min(40.0 - m)
+        } else {
+            (m - 20.0).abs()
+        };
         assert!(off < 0.05, "{r:?}");
     }
 

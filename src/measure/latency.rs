@@ -8,7 +8,7 @@ use std::f64::consts::{PI, TAU};
 use num_complex::Complex64;
 use realfft::RealFftPlanner;
 
-use super::sinefit::{fit3, fit_multitone};
+use super::sinefit::{fit_multitone, fit3};
 
 /// One line of a latency budget.
 #[derive(Debug, Clone, PartialEq, serde::Serialize)]
@@ -66,19 +66,29 @@ impl CrossCorrelation {
             for (p, v) in buf.iter_mut().zip(src) {
                 *p = v - mean;
             }
-            fwd.process(&mut buf, spec).expect("length matches the plan");
+            fwd.process(&mut buf, spec)
+                .expect("length matches the plan");
         }
-        let spectrum: Vec<Complex64> = spec_in.iter().zip(&spec_out).map(|(a, b)| a.conj() * b).collect();
+        let spectrum: Vec<Complex64> = spec_in
+            .iter()
+            .zip(&spec_out)
+            .map(|(a, b)| a.conj() * b)
+            .collect();
         let mut tmp = spectrum.clone();
         tmp[0].im = 0.0;
         let last = tmp.len() - 1;
         tmp[last].im = 0.0;
-        inv.process(&mut tmp, &mut buf).expect("length matches the plan");
+        inv.process(&mut tmp, &mut buf)
+            .expect("length matches the plan");
         let scale = 1.0 / len as f64;
         for v in &mut buf {
             *v *= scale;
         }
-        CrossCorrelation { len, spectrum, lags: buf }
+        CrossCorrelation {
+            len,
+            spectrum,
+            lags: buf,
+        }
     }
 
     /// Correlation at integer lag `l` (|l| < len).
@@ -163,7 +173,9 @@ impl CrossCorrelation {
 /// band-limited (trigonometric) interpolation of the correlation, which has no parabolic-fit bias.
 /// NaN when a record has fewer than 2 samples or the rate is not positive.
 pub fn xcorr_delay_s(input: &[f64], output: &[f64], sample_rate_hz: f64, max_delay_s: f64) -> f64 {
-    if input.len() < 2 || output.len() < 2 || !(sample_rate_hz > 0.0) || !(max_delay_s >= 0.0) {
+    let usable =
+        input.len() >= 2 && output.len() >= 2 && sample_rate_hz > 0.0 && max_delay_s >= 0.0;
+    if !usable {
         return f64::NAN;
     }
     let longest = input.len().max(output.len());
@@ -176,7 +188,13 @@ pub fn xcorr_delay_s(input: &[f64], output: &[f64], sample_rate_hz: f64, max_del
 /// Phase delay (s) of `output` against `input` at `f_hz`: three-parameter fits of both (same time origin), delay
 /// `(phi_in - phi_out) / (2 pi f)` modulo one period, the period count chosen to land nearest `coarse_delay_s`
 /// (e.g. from [`xcorr_delay_s`]). A polarity flip cannot be told from half a period here.
-pub fn phase_delay_s(input: &[f64], output: &[f64], sample_rate_hz: f64, f_hz: f64, coarse_delay_s: f64) -> f64 {
+pub fn phase_delay_s(
+    input: &[f64],
+    output: &[f64],
+    sample_rate_hz: f64,
+    f_hz: f64,
+    coarse_delay_s: f64,
+) -> f64 {
     let fi = fit3(input, sample_rate_hz, f_hz, 0.0);
     let fo = fit3(output, sample_rate_hz, f_hz, 0.0);
     let period = 1.0 / f_hz;
@@ -188,12 +206,22 @@ pub fn phase_delay_s(input: &[f64], output: &[f64], sample_rate_hz: f64, f_hz: f
 /// both records at `tones_hz` (sorted here). Returns `(f_mid_hz, delay_s)` for each adjacent pair, at the pair's
 /// mid frequency: `len - 1` entries. The phase step between adjacent tones is wrapped into (-pi, pi], so the
 /// delay must stay below `1 / (2 df)` for a tone spacing `df`.
-pub fn group_delay_s(input: &[f64], output: &[f64], sample_rate_hz: f64, tones_hz: &[f64]) -> Vec<(f64, f64)> {
+pub fn group_delay_s(
+    input: &[f64],
+    output: &[f64],
+    sample_rate_hz: f64,
+    tones_hz: &[f64],
+) -> Vec<(f64, f64)> {
     let mut tones = tones_hz.to_vec();
     tones.sort_by(f64::total_cmp);
     let fi = fit_multitone(input, sample_rate_hz, &tones, 0.0);
     let fo = fit_multitone(output, sample_rate_hz, &tones, 0.0);
-    let dphi: Vec<f64> = fi.tones.iter().zip(&fo.tones).map(|(i, o)| o.phase_rad - i.phase_rad).collect();
+    let dphi: Vec<f64> = fi
+        .tones
+        .iter()
+        .zip(&fo.tones)
+        .map(|(i, o)| o.phase_rad - i.phase_rad)
+        .collect();
     (1..tones.len())
         .map(|i| {
             let mut d = (dphi[i] - dphi[i - 1]).rem_euclid(TAU);
@@ -276,7 +304,9 @@ mod tests {
         // A pulse-like broadband burst at sample 100 in the input and 100 + 40.6 in a longer output with DC.
         let burst = |t: f64| (-0.5 * (t / 3.0).powi(2)).exp() * (1.3 * t).cos();
         let x: Vec<f64> = (0..500).map(|i| burst(i as f64 - 100.0)).collect();
-        let y: Vec<f64> = (0..900).map(|i| 2.0 + 0.5 * burst(i as f64 - 140.6)).collect();
+        let y: Vec<f64> = (0..900)
+            .map(|i| 2.0 + 0.5 * burst(i as f64 - 140.6))
+            .collect();
         let d = xcorr_delay_s(&x, &y, 1.0, 100.0);
         assert!((d - 40.6).abs() < 0.01, "{d}");
     }
@@ -285,8 +315,12 @@ mod tests {
     fn phase_delay_of_several_periods_is_resolved_by_a_coarse_estimate() {
         let (fs, f, n) = (10_000.0, 123.4, 20_000);
         let delay = 2.3 / f;
-        let x: Vec<f64> = (0..n).map(|i| (TAU * f * i as f64 / fs + 0.4).cos()).collect();
-        let y: Vec<f64> = (0..n).map(|i| 0.8 * (TAU * f * (i as f64 / fs - delay) + 0.4).cos()).collect();
+        let x: Vec<f64> = (0..n)
+            .map(|i| (TAU * f * i as f64 / fs + 0.4).cos())
+            .collect();
+        let y: Vec<f64> = (0..n)
+            .map(|i| 0.8 * (TAU * f * (i as f64 / fs - delay) + 0.4).cos())
+            .collect();
         for coarse in [delay, delay + 0.4 / f, delay - 0.4 / f] {
             let d = phase_delay_s(&x, &y, fs, f, coarse);
             assert!((d - delay).abs() < 1e-12, "{d} vs {delay}");
@@ -305,7 +339,11 @@ mod tests {
             (0..n)
                 .map(|i| {
                     let t = i as f64 / fs - d;
-                    tones.iter().enumerate().map(|(k, f)| (TAU * f * t + k as f64).cos()).sum()
+                    tones
+                        .iter()
+                        .enumerate()
+                        .map(|(k, f)| (TAU * f * t + k as f64).cos())
+                        .sum()
                 })
                 .collect()
         };
@@ -322,13 +360,23 @@ mod tests {
         // A linear-phase FIR of L taps delays every frequency by (L - 1)/2 samples (A. V. Oppenheim and
         // R. W. Schafer, "Discrete-Time Signal Processing", section on generalized linear phase). Hann-shaped taps,
         // L = 9, tones well inside the main lobe (the amplitude response stays positive, so no phase jumps).
-        let h: Vec<f64> = (0..9).map(|m| 0.5 - 0.5 * (TAU * (m + 1) as f64 / 10.0).cos()).collect();
+        let h: Vec<f64> = (0..9)
+            .map(|m| 0.5 - 0.5 * (TAU * (m + 1) as f64 / 10.0).cos())
+            .collect();
         let (fs, n) = (1.0, 20_000);
         let tones = [0.011, 0.023, 0.047, 0.071, 0.093];
         let x: Vec<f64> = (0..n)
-            .map(|i| tones.iter().enumerate().map(|(k, f)| (TAU * f * i as f64 + 0.5 * k as f64).cos()).sum())
+            .map(|i| {
+                tones
+                    .iter()
+                    .enumerate()
+                    .map(|(k, f)| (TAU * f * i as f64 + 0.5 * k as f64).cos())
+                    .sum()
+            })
             .collect();
-        let y: Vec<f64> = (0..n).map(|i| (0..9).filter(|&m| m <= i).map(|m| h[m] * x[i - m]).sum()).collect();
+        let y: Vec<f64> = (0..n)
+            .map(|i| (0..9).filter(|&m| m <= i).map(|m| h[m] * x[i - m]).sum())
+            .collect();
         // Drop the start-up transient from both records, keeping the same time origin.
         let gd = group_delay_s(&x[8..], &y[8..], fs, &tones);
         for (_, d) in gd {
@@ -339,8 +387,14 @@ mod tests {
     #[test]
     fn budget_lines_add_up() {
         let lines = vec![
-            BudgetLine { stage: "adc".into(), seconds: 0.5e-3 },
-            BudgetLine { stage: "block".into(), seconds: 128.0 / 48_000.0 },
+            BudgetLine {
+                stage: "adc".into(),
+                seconds: 0.5e-3,
+            },
+            BudgetLine {
+                stage: "block".into(),
+                seconds: 128.0 / 48_000.0,
+            },
         ];
         assert!((budget_total_s(&lines) - (0.5e-3 + 128.0 / 48_000.0)).abs() < 1e-15);
     }
@@ -350,13 +404,13 @@ mod tests {
         for n in [1usize, 2, 3, 7, 100, 1000, 4097, 1_000_003] {
             let l = fft_len(n);
             let mut m = l;
-            while m % 2 == 0 {
+            while m.is_multiple_of(2) {
                 m /= 2;
             }
-            while m % 3 == 0 {
+            while m.is_multiple_of(3) {
                 m /= 3;
             }
-            assert!(l >= n && l % 2 == 0 && m == 1, "{n} -> {l}");
+            assert!(l >= n && l.is_multiple_of(2) && m == 1, "{n} -> {l}");
         }
     }
 }

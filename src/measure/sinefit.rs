@@ -98,7 +98,16 @@ impl Rotator {
     fn new(phi0: f64, dtheta: f64) -> Self {
         let (s, c) = phi0.sin_cos();
         let (sd, cd) = dtheta.sin_cos();
-        Rotator { c, s, cd, sd, phi0, dtheta, n: 0, countdown: RESET_EVERY }
+        Rotator {
+            c,
+            s,
+            cd,
+            sd,
+            phi0,
+            dtheta,
+            n: 0,
+            countdown: RESET_EVERY,
+        }
     }
 
     #[inline]
@@ -124,7 +133,11 @@ fn dirichlet(theta: f64, phi: f64, len: usize) -> (f64, f64) {
     let half = 0.5 * th;
     let sh = half.sin();
     let nf = len as f64;
-    let d = if sh == 0.0 { nf } else { (nf * half).sin() / sh };
+    let d = if sh == 0.0 {
+        nf
+    } else {
+        (nf * half).sin() / sh
+    };
     let (s, c) = (phi + (nf - 1.0) * half).sin_cos();
     (d * c, d * s)
 }
@@ -213,7 +226,13 @@ pub fn fit_multitone(x: &[f64], sample_rate_hz: f64, tones_hz: &[f64], t0_s: f64
         return MultiToneFit {
             tones: tones_hz
                 .iter()
-                .map(|&f| ToneFit { frequency_hz: f, a: f64::NAN, b: f64::NAN, amplitude_v: f64::NAN, phase_rad: f64::NAN })
+                .map(|&f| ToneFit {
+                    frequency_hz: f,
+                    a: f64::NAN,
+                    b: f64::NAN,
+                    amplitude_v: f64::NAN,
+                    phase_rad: f64::NAN,
+                })
                 .collect(),
             offset_v: f64::NAN,
             residual_rms_v: f64::NAN,
@@ -221,7 +240,10 @@ pub fn fit_multitone(x: &[f64], sample_rate_hz: f64, tones_hz: &[f64], t0_s: f64
     }
     // Angles theta_i n + phi_i, with phi_i reduced modulo 2 pi.
     let theta: Vec<f64> = tones_hz.iter().map(|f| TAU * f / sample_rate_hz).collect();
-    let phi: Vec<f64> = tones_hz.iter().map(|f| TAU * (f * t0_s).rem_euclid(1.0)).collect();
+    let phi: Vec<f64> = tones_hz
+        .iter()
+        .map(|f| TAU * (f * t0_s).rem_euclid(1.0))
+        .collect();
 
     // Normal matrix in closed form. Column order: c_0, s_0, c_1, s_1, ..., 1.
     let mut g = vec![0.0; p * p];
@@ -283,7 +305,13 @@ pub fn fit_multitone(x: &[f64], sample_rate_hz: f64, tones_hz: &[f64], t0_s: f64
         tones: (0..k)
             .map(|i| {
                 let (a, b) = (sol[2 * i], sol[2 * i + 1]);
-                ToneFit { frequency_hz: tones_hz[i], a, b, amplitude_v: a.hypot(b), phase_rad: (-b).atan2(a) }
+                ToneFit {
+                    frequency_hz: tones_hz[i],
+                    a,
+                    b,
+                    amplitude_v: a.hypot(b),
+                    phase_rad: (-b).atan2(a),
+                }
             })
             .collect(),
         offset_v: offset,
@@ -316,6 +344,7 @@ pub fn fit3(x: &[f64], sample_rate_hz: f64, frequency_hz: f64, t0_s: f64) -> Sin
 /// frequency step falls under 1e-12 or after 50 iterations; the final parameters are a [`fit3`] at the
 /// fitted frequency. The start must lie strictly inside (0, fs/2), else the fields are NaN. Converges from a start within about half a bin of an isolated tone; start from
 /// [`estimate_frequency_hz`] when unsure.
+#[allow(clippy::needless_range_loop)] // small dense matrices read best with indices
 pub fn fit4(x: &[f64], sample_rate_hz: f64, initial_frequency_hz: f64, t0_s: f64) -> SineFit {
     let n = x.len();
     let in_band = initial_frequency_hz > 0.0 && initial_frequency_hz < 0.5 * sample_rate_hz;
@@ -387,7 +416,9 @@ pub fn fit4(x: &[f64], sample_rate_hz: f64, initial_frequency_hz: f64, t0_s: f64
             g4[a * 4 + 3] = v;
             g4[3 * 4 + a] = v;
         }
-        g4[15] = coef[0] * coef[0] * gm[3][3] + 2.0 * coef[0] * coef[1] * gm[3][4] + coef[1] * coef[1] * gm[4][4];
+        g4[15] = coef[0] * coef[0] * gm[3][3]
+            + 2.0 * coef[0] * coef[1] * gm[3][4]
+            + coef[1] * coef[1] * gm[4][4];
         let r4 = [r[0], r[1], r[2], coef[0] * r[3] + coef[1] * r[4]];
         let p4 = solve_sym_psd(&mut g4, &r4, 4);
         step = p4[3];
@@ -460,13 +491,15 @@ pub fn estimate_frequency_hz(x: &[f64], sample_rate_hz: f64) -> f64 {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use rand::SeedableRng;
     use rand::RngExt;
+    use rand::SeedableRng;
     use rand_chacha::ChaCha8Rng;
     use rand_distr::Normal;
 
     fn sine(n: usize, fs: f64, f: f64, amp: f64, phase: f64, offset: f64, t0: f64) -> Vec<f64> {
-        (0..n).map(|i| amp * (TAU * f * (t0 + i as f64 / fs) + phase).cos() + offset).collect()
+        (0..n)
+            .map(|i| amp * (TAU * f * (t0 + i as f64 / fs) + phase).cos() + offset)
+            .collect()
     }
 
     /// Slow oracle: normal equations summed naively with sin/cos evaluated at every sample.
@@ -506,7 +539,11 @@ mod tests {
         let (fs, f, t0) = (1000.0, 37.3, -0.25);
         let fit = fit3(&x, fs, f, t0);
         let o = fit3_oracle(&x, fs, f, t0);
-        assert!((fit.a - o[0]).abs() < 1e-10 && (fit.b - o[1]).abs() < 1e-10 && (fit.c - o[2]).abs() < 1e-10);
+        assert!(
+            (fit.a - o[0]).abs() < 1e-10
+                && (fit.b - o[1]).abs() < 1e-10
+                && (fit.c - o[2]).abs() < 1e-10
+        );
         // The residual is the rms of x minus the model, evaluated directly.
         let rms = (x
             .iter()
@@ -528,7 +565,10 @@ mod tests {
         let x = sine(1 << 20, fs, f, 1.0, -2.0, 0.25, 0.0);
         let fit = fit3(&x, fs, f, 0.0);
         assert!((fit.amplitude_v - 1.0).abs() < 1e-9 && (fit.phase_rad + 2.0).abs() < 1e-9);
-        assert!((fit.c - 0.25).abs() < 1e-9 && fit.residual_rms_v < 1e-9, "{fit:?}");
+        assert!(
+            (fit.c - 0.25).abs() < 1e-9 && fit.residual_rms_v < 1e-9,
+            "{fit:?}"
+        );
     }
 
     #[test]
@@ -542,7 +582,10 @@ mod tests {
             assert!(((fit.frequency_hz - f) / f).abs() < 1e-11, "{fit:?}");
             assert!((fit.amplitude_v - 1.3).abs() < 1e-9, "{fit:?}");
             assert!((fit.phase_rad - 2.5).abs() < 1e-9, "{fit:?}");
-            assert!((fit.c - 0.05).abs() < 1e-9 && fit.residual_rms_v < 1e-9, "{fit:?}");
+            assert!(
+                (fit.c - 0.05).abs() < 1e-9 && fit.residual_rms_v < 1e-9,
+                "{fit:?}"
+            );
             assert!(fit.iterations < 50, "{fit:?}");
         }
     }
@@ -572,7 +615,10 @@ mod tests {
         let mut e3 = [0.0; 3];
         for _ in 0..trials {
             let ph = rng.random::<f64>() * TAU - std::f64::consts::PI;
-            let x: Vec<f64> = sine(n, fs, f, amp, ph, off, t0).into_iter().map(|v| v + rng.sample(noise)).collect();
+            let x: Vec<f64> = sine(n, fs, f, amp, ph, off, t0)
+                .into_iter()
+                .map(|v| v + rng.sample(noise))
+                .collect();
             let wrap = |d: f64| (d + std::f64::consts::PI).rem_euclid(TAU) - std::f64::consts::PI;
             let g = fit4(&x, fs, f + 0.3 / n as f64, t0);
             e4[0] += (g.frequency_hz - f).powi(2);
@@ -629,11 +675,17 @@ mod tests {
             let f = cycles / n as f64;
             let q = 2.0 / (1u64 << bits) as f64; // range [-1, 1)
             let amp = 1.0 - 0.6 * q;
-            let x: Vec<f64> = sine(n, fs, f, amp, 0.3, 0.0, 0.0).iter().map(|&v| quantize(v, bits, -1.0, q)).collect();
+            let x: Vec<f64> = sine(n, fs, f, amp, 0.3, 0.0, 0.0)
+                .iter()
+                .map(|&v| quantize(v, bits, -1.0, q))
+                .collect();
             let est = estimate_frequency_hz(&x, fs);
             let fit = fit4(&x, fs, est, 0.0);
             let enob = enob_from_residual(bits, q, fit.residual_rms_v);
-            assert!((enob - bits as f64).abs() < 0.1, "{bits} bits: ENOB {enob}, fit {fit:?}");
+            assert!(
+                (enob - bits as f64).abs() < 0.1,
+                "{bits} bits: ENOB {enob}, fit {fit:?}"
+            );
         }
     }
 
@@ -653,7 +705,9 @@ mod tests {
         let x: Vec<f64> = (0..n)
             .map(|i| {
                 let t = 0.5 + i as f64 / fs;
-                0.07 + (0..3).map(|k| amps[k] * (TAU * tones[k] * t + phases[k]).cos()).sum::<f64>()
+                0.07 + (0..3)
+                    .map(|k| amps[k] * (TAU * tones[k] * t + phases[k]).cos())
+                    .sum::<f64>()
             })
             .collect();
         let fit = fit_multitone(&x, fs, &tones, 0.5);
@@ -667,9 +721,14 @@ mod tests {
     #[test]
     fn a_tone_at_nyquist_does_not_break_the_fit() {
         // At exactly fs/2 with t0 = 0 the sine column vanishes: the solver drops it instead of returning NaN.
-        let x: Vec<f64> = (0..64).map(|i| if i % 2 == 0 { 1.5 } else { -0.5 }).collect();
+        let x: Vec<f64> = (0..64)
+            .map(|i| if i % 2 == 0 { 1.5 } else { -0.5 })
+            .collect();
         let fit = fit3(&x, 2.0, 1.0, 0.0);
-        assert!((fit.a - 1.0).abs() < 1e-12 && fit.b == 0.0 && (fit.c - 0.5).abs() < 1e-12, "{fit:?}");
+        assert!(
+            (fit.a - 1.0).abs() < 1e-12 && fit.b == 0.0 && (fit.c - 0.5).abs() < 1e-12,
+            "{fit:?}"
+        );
     }
 
     #[test]

@@ -45,9 +45,13 @@ pub struct StaticResult {
 /// Least-squares line `v ~ alpha + beta k` through the points `(k, v[k])` for k in `ks`.
 fn ls_line(points: impl Iterator<Item = (f64, f64)> + Clone) -> (f64, f64) {
     let n = points.clone().count() as f64;
-    let (sk, sv) = points.clone().fold((0.0, 0.0), |(a, b), (k, v)| (a + k, b + v));
+    let (sk, sv) = points
+        .clone()
+        .fold((0.0, 0.0), |(a, b), (k, v)| (a + k, b + v));
     let (mk, mv) = (sk / n, sv / n);
-    let (skk, skv) = points.fold((0.0, 0.0), |(a, b), (k, v)| (a + (k - mk) * (k - mk), b + (k - mk) * (v - mv)));
+    let (skk, skv) = points.fold((0.0, 0.0), |(a, b), (k, v)| {
+        (a + (k - mk) * (k - mk), b + (k - mk) * (v - mv))
+    });
     let beta = skv / skk;
     (mv - beta * mk, beta)
 }
@@ -72,9 +76,9 @@ pub fn adc_from_transitions(transitions_v: &[f64], low_v: f64, lsb_v: f64) -> St
     let mut dnl = vec![0.0; m];
     let mut missing = 0;
     let mut monotonic = true;
-    for k in 1..m - 1 {
+    for (k, d) in dnl.iter_mut().enumerate().take(m - 1).skip(1) {
         let width = t(k + 1) - t(k);
-        dnl[k] = width / q_avg - 1.0;
+        *d = width / q_avg - 1.0;
         if width <= 0.0 {
             missing += 1;
         }
@@ -174,7 +178,13 @@ pub fn adc_ramp(ramp_v: &[f64], codes: &[u32], bits: u32, low_v: f64, lsb_v: f64
     }
     let rising = ramp_v[len - 1] >= ramp_v[0];
     // Ramp value at position i counted from the low end.
-    let at = |i: usize| if rising { ramp_v[i] } else { ramp_v[len - 1 - i] };
+    let at = |i: usize| {
+        if rising {
+            ramp_v[i]
+        } else {
+            ramp_v[len - 1 - i]
+        }
+    };
     let mut below = 0usize;
     let transitions: Vec<f64> = (1..m)
         .map(|k| {
@@ -215,7 +225,9 @@ pub fn dac_from_levels(levels_v: &[f64], ideal_zero_v: f64, ideal_lsb_v: f64) ->
     }
     let inl_ep: Vec<f64> = (0..m).map(|k| (rel(k) - k as f64 * q) / q).collect();
     let (alpha, beta) = ls_line((0..m).map(|k| (k as f64, rel(k))));
-    let inl_bf: Vec<f64> = (0..m).map(|k| (rel(k) - (alpha + beta * k as f64)) / beta).collect();
+    let inl_bf: Vec<f64> = (0..m)
+        .map(|k| (rel(k) - (alpha + beta * k as f64)) / beta)
+        .collect();
     StaticResult {
         offset_lsb: (v0 - ideal_zero_v) / ideal_lsb_v,
         gain_error_lsb: (span - (m - 1) as f64 * ideal_lsb_v) / ideal_lsb_v,
@@ -251,9 +263,15 @@ mod tests {
     fn an_ideal_quantizer_has_no_dnl_inl_offset_or_gain_error() {
         let r = adc_from_transitions(&ideal_transitions(6, -1.0, 2.0 / 64.0), -1.0, 2.0 / 64.0);
         assert_eq!(r.dnl_lsb.len(), 64);
-        assert!(all_zero(&r.dnl_lsb, 1e-12) && all_zero(&r.inl_endpoint_lsb, 1e-12) && all_zero(&r.inl_bestfit_lsb, 1e-12));
+        assert!(
+            all_zero(&r.dnl_lsb, 1e-12)
+                && all_zero(&r.inl_endpoint_lsb, 1e-12)
+                && all_zero(&r.inl_bestfit_lsb, 1e-12)
+        );
         assert!(r.offset_lsb.abs() < 1e-12 && r.gain_error_lsb.abs() < 1e-12);
-        assert!(r.missing_codes == 0 && r.monotonic && r.dnl_max_lsb < 1e-12 && r.inl_max_lsb < 1e-12);
+        assert!(
+            r.missing_codes == 0 && r.monotonic && r.dnl_max_lsb < 1e-12 && r.inl_max_lsb < 1e-12
+        );
     }
 
     #[test]
@@ -270,15 +288,27 @@ mod tests {
                 5 => -0.3,
                 _ => 0.0,
             };
-            assert!((r.dnl_lsb[k] - want).abs() < 1e-12, "code {k}: {:?}", r.dnl_lsb);
+            assert!(
+                (r.dnl_lsb[k] - want).abs() < 1e-12,
+                "code {k}: {:?}",
+                r.dnl_lsb
+            );
             let want_inl = if k == 5 { 0.3 } else { 0.0 };
-            assert!((r.inl_endpoint_lsb[k] - want_inl).abs() < 1e-12, "code {k}: {:?}", r.inl_endpoint_lsb);
+            assert!(
+                (r.inl_endpoint_lsb[k] - want_inl).abs() < 1e-12,
+                "code {k}: {:?}",
+                r.inl_endpoint_lsb
+            );
         }
         // Best fit, by hand: the LS line through T_1..T_15 (ideal k q, T_5 up by 0.3 q) has its mean up by
         // 0.3/15 = 0.02 and its slope changed by 0.3 (5 - 8) / sum_k (k - 8)^2 = -0.9/280 (centre k = 8). At k = 5
         // the line sits 0.02 + 2.7/280 above ideal; INL is the residual in units of the fitted slope 1 - 0.9/280.
         let want_bf5 = (0.3 - 0.02 - 2.7 / 280.0) / (1.0 - 0.9 / 280.0);
-        assert!((r.inl_bestfit_lsb[5] - want_bf5).abs() < 1e-12, "{}", r.inl_bestfit_lsb[5]);
+        assert!(
+            (r.inl_bestfit_lsb[5] - want_bf5).abs() < 1e-12,
+            "{}",
+            r.inl_bestfit_lsb[5]
+        );
         assert!((r.dnl_max_lsb - 0.3).abs() < 1e-12 && r.missing_codes == 0 && r.monotonic);
         assert!(r.offset_lsb.abs() < 1e-12 && r.gain_error_lsb.abs() < 1e-9);
     }
@@ -288,9 +318,13 @@ mod tests {
         // Every transition shifted by +0.25 q and the span stretched by 2 %: offset 0.25 LSB, gain error
         // 0.02 * (M - 2) LSB, and no DNL (the average width absorbs the gain).
         let q = 1.0;
-        let t: Vec<f64> = (1..32).map(|k| 0.25 + 1.0 + (k - 1) as f64 * 1.02).collect();
+        let t: Vec<f64> = (1..32)
+            .map(|k| 0.25 + 1.0 + (k - 1) as f64 * 1.02)
+            .collect();
         let r = adc_from_transitions(&t, 0.0, q);
-        assert!((r.offset_lsb - 0.25).abs() < 1e-12 && (r.gain_error_lsb - 0.02 * 30.0).abs() < 1e-9);
+        assert!(
+            (r.offset_lsb - 0.25).abs() < 1e-12 && (r.gain_error_lsb - 0.02 * 30.0).abs() < 1e-9
+        );
         assert!(all_zero(&r.dnl_lsb, 1e-12) && all_zero(&r.inl_bestfit_lsb, 1e-12));
     }
 
@@ -302,7 +336,10 @@ mod tests {
         let r = adc_from_transitions(&t, 0.0, q);
         assert_eq!(r.missing_codes, 1);
         assert!((r.dnl_lsb[7] + 1.0).abs() < 1e-12 && (r.dnl_lsb[6] - 1.0).abs() < 1e-12);
-        assert!(r.monotonic, "a missing code alone keeps the transitions in order");
+        assert!(
+            r.monotonic,
+            "a missing code alone keeps the transitions in order"
+        );
         t[7 - 1] = t[8 - 1] + 0.2; // now out of order
         let r = adc_from_transitions(&t, 0.0, q);
         assert!(!r.monotonic && r.missing_codes == 1);
@@ -323,14 +360,30 @@ mod tests {
             let v = offset + amp * (TAU * 7919.0 * i as f64 / n as f64 + 0.1).sin();
             hist[floor_code(v, bits, low, q) as usize] += 1;
         }
-        for (a, c) in [(None, None), (Some(amp), Some(offset)), (Some(amp), None), (None, Some(offset))] {
+        for (a, c) in [
+            (None, None),
+            (Some(amp), Some(offset)),
+            (Some(amp), None),
+            (None, Some(offset)),
+        ] {
             let r = adc_code_density(&hist, a, c, low, q);
-            assert!(r.dnl_max_lsb < 0.05, "{a:?} {c:?}: DNL max {}", r.dnl_max_lsb);
-            assert!(r.inl_max_lsb < 0.05, "{a:?} {c:?}: INL max {}", r.inl_max_lsb);
+            assert!(
+                r.dnl_max_lsb < 0.05,
+                "{a:?} {c:?}: DNL max {}",
+                r.dnl_max_lsb
+            );
+            assert!(
+                r.inl_max_lsb < 0.05,
+                "{a:?} {c:?}: INL max {}",
+                r.inl_max_lsb
+            );
             assert!(r.missing_codes == 0 && r.monotonic);
             if a.is_some() && c.is_some() {
                 // With the true amplitude and offset, offset and gain errors are measured (ideal: 0).
-                assert!(r.offset_lsb.abs() < 0.05 && r.gain_error_lsb.abs() < 0.1, "{r:?}");
+                assert!(
+                    r.offset_lsb.abs() < 0.05 && r.gain_error_lsb.abs() < 0.1,
+                    "{r:?}"
+                );
             }
         }
     }
@@ -349,7 +402,11 @@ mod tests {
             hist[t.partition_point(|&tk| tk <= v)] += 1;
         }
         let r = adc_code_density(&hist, None, None, low, q);
-        assert!((r.dnl_lsb[100] - 0.5).abs() < 0.05 && (r.dnl_lsb[101] + 0.5).abs() < 0.05, "{:?}", &r.dnl_lsb[98..104]);
+        assert!(
+            (r.dnl_lsb[100] - 0.5).abs() < 0.05 && (r.dnl_lsb[101] + 0.5).abs() < 0.05,
+            "{:?}",
+            &r.dnl_lsb[98..104]
+        );
     }
 
     #[test]
@@ -367,11 +424,22 @@ mod tests {
                     if rising { u } else { 64.0 - u }
                 })
                 .collect();
-            let codes: Vec<u32> = ramp.iter().map(|&v| t.partition_point(|&tk| tk <= v) as u32).collect();
+            let codes: Vec<u32> = ramp
+                .iter()
+                .map(|&v| t.partition_point(|&tk| tk <= v) as u32)
+                .collect();
             let r = adc_ramp(&ramp, &codes, bits, low, q);
-            assert!((r.dnl_lsb[19] + 0.4).abs() < 1.0 / 64.0 + 1e-9, "{:?}", &r.dnl_lsb[17..22]);
+            assert!(
+                (r.dnl_lsb[19] + 0.4).abs() < 1.0 / 64.0 + 1e-9,
+                "{:?}",
+                &r.dnl_lsb[17..22]
+            );
             assert!((r.dnl_lsb[20] - 0.4).abs() < 1.0 / 64.0 + 1e-9);
-            let others = r.dnl_lsb.iter().enumerate().filter(|(k, _)| *k != 19 && *k != 20);
+            let others = r
+                .dnl_lsb
+                .iter()
+                .enumerate()
+                .filter(|(k, _)| *k != 19 && *k != 20);
             assert!(others.map(|(_, v)| v.abs()).fold(0.0, f64::max) < 1.0 / 64.0 + 1e-9);
         }
     }
@@ -387,11 +455,16 @@ mod tests {
         let r = dac_from_levels(&v, 0.0, q);
         assert!(!r.monotonic);
         // By hand: span 15 q - 1.5 q = 13.5 q, measured LSB 0.9 q; step 7 -> 8 is -0.5 q: DNL = -0.5/0.9 - 1.
-        assert!((r.dnl_lsb[8] - (-0.5 / 0.9 - 1.0)).abs() < 1e-12 && (r.dnl_lsb[3] - (1.0 / 0.9 - 1.0)).abs() < 1e-12);
+        assert!(
+            (r.dnl_lsb[8] - (-0.5 / 0.9 - 1.0)).abs() < 1e-12
+                && (r.dnl_lsb[3] - (1.0 / 0.9 - 1.0)).abs() < 1e-12
+        );
         assert!((r.offset_lsb - 0.5).abs() < 1e-12 && (r.gain_error_lsb + 1.5).abs() < 1e-12);
         assert!(r.inl_endpoint_lsb[0].abs() < 1e-12 && r.inl_endpoint_lsb[15].abs() < 1e-12);
         let ideal: Vec<f64> = (0..16).map(|k| k as f64 * q).collect();
         let r = dac_from_levels(&ideal, 0.0, q);
-        assert!(r.monotonic && r.dnl_max_lsb < 1e-12 && r.inl_max_lsb < 1e-12 && r.missing_codes == 0);
+        assert!(
+            r.monotonic && r.dnl_max_lsb < 1e-12 && r.inl_max_lsb < 1e-12 && r.missing_codes == 0
+        );
     }
 }
