@@ -1,1 +1,331 @@
-//! (to be written)
+//! Waveform fidelity: how closely an output follows a reference once delay, gain and offset are taken out.
+//!
+//! Definition used here: with `y(t) = reference(t - D)` (the reference delayed by `D` and interpolated between
+//! samples by a 64-tap Kaiser-windowed sinc, accurate to about -100 dB up to 0.44 of the sample rate), and
+//! `g`, `c` the least-squares gain and offset of `output ~ g y + c` over the samples where both exist,
+//! `fidelity_db = 10 log10(g^2 var(y) / mean(e^2))` with `e = output - g y - c`. That is the aligned reference's
+//! power over the error's power, both as they appear at the output (the same as the error referred back to the
+//! reference's scale). `D` is the delay that minimises `mean(e^2)`: the cross-correlation peak
+//! ([`super::latency::xcorr_delay_s`]) refined by two rounds of a three-point parabola on the error itself.
+
+use super::latency::xcorr_delay_s;
+
+/// Half-length of the interpolation kernel (taps each side).
+const HALF_TAPS: usize = 32;
+/// Kaiser window shape parameter of the interpolation kernel.
+const KAISER_BETA: f64 = 11.0;
+/// How far (samples) the refinement may move from the correlation's estimate.
+const SEARCH_SAMPLES: f64 = 2.0;
+
+/// Result of [`fidelity`].
+#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
+pub struct Fidelity {
+    /// Aligned reference power over error power (dB); +inf when the error is exactly zero, NaN when the records
+    /// do not overlap enough (fewer than 16 usable samples) or the reference is constant.
+    pub fidelity_db: f64,
+    /// Delay of the output relative to the reference (s; positive = output later).
+    pub delay_s: f64,
+    /// Least-squares gain of the output against the aligned reference.
+    pub gain: f64,
+    /// Least-squares offset (V).
+    pub offset_v: f64,
+}
+
+/// Zeroth-order modified Bessel function of the first kind (power series; ample for |x| < 30).
+fn bessel_i0(x: f64) -> f64 {
+    let q = 0.25 * x * x;
+    let mut term = 1.0;
+    let mut sum = 1.0;
+    for k in 1..200 {
+        term *= q / (k as f64 * k as f64);
+        sum += term;
+        if term < 1e-17 * sum {
+            break;
+        }
+    }
+    sum
+}
+
+/// Fractional-delay kernel: weights for `ref[i + m]`, m = -HALF_TAPS+1 ..= HALF_TAPS, to evaluate the reference
+/// at `i + mu`, `0 <= mu < 1`. Normalised to unit sum (exact at DC).
+fn kernel(mu: f64, out: &mut [f64; 2 * HALF_TAPS]) {
+    let h = HALF_TAPS as f64;
+    let i0b = bessel_i0(KAISER_BETA);
+    let mut sum = 0.0;
+    for (j, w) in out.iter_mut().enumerate() {
+        let m = j as f64 - (HALF_TAPS as f64 - 1.0);
+        let x = mu - m; // distance from the tap, in (-h, h)
+        let sinc = if x == 0.0 {
+            1.0
+        } else {
+            (std::f64::consts::PI * x).sin() / (std::f64::consts::PI * x)
+        };
+        let r = x / h;
+        let win = if r.abs() >= 1.0 {
+            0.0
+        } else {
+            bessel_i0(KAISER_BETA * (1.0 - r * r).sqrt()) / i0b
+        };
+        *w = sinc * win;
+        sum += *w;
+    }
+    for w in out.iter_mut() {
+        *w /= sum;
+    }
+}
+
+/// Least-squares fit of `output ~ g y + c` over `output[n_lo..n_hi]` with `y` the reference delayed by `d`
+/// samples, written into `y` (scratch of the window's length). Returns `(mse, g, c, var_y)`.
+struct Aligner<'a> {
+    reference: &'a [f64],
+    output: &'a [f64],
+    n_lo: usize,
+    n_hi: usize,
+    y: Vec<f64>,
+}
+
+impl Aligner<'_> {
+    fn fit(&mut self, d: f64) -> (f64, f64, f64, f64) {
+        // Reference position of output sample n is p = n - d = n + shift + mu.
+        let shift = (-d).floor();
+        let mu = -d - shift;
+        let shift = shift as i64;
+        let mut k = [0.0; 2 * HALF_TAPS];
+        kernel(mu, &mut k);
+        let first = HALF_TAPS as i64 - 1;
+        for (j, n) in (self.n_lo..self.n_hi).enumerate() {
+            let start = (n as i64 + shift - first) as usize;
+            let taps = &self.reference[start..start + 2 * HALF_TAPS];
+            self.y[j] = taps.iter().zip(&k).map(|(r, w)| r * w).sum();
+        }
+        let out = &self.output[self.n_lo..self.n_hi];
+        let count = out.len() as f64;
+        let mean_y = self.y.iter().sum::<f64>() / count;
+        let mean_o = out.iter().sum::<f64>() / count;
+        let (mut syy, mut soy) = (0.0, 0.0);
+        for (&yv, &ov) in self.y.iter().zip(out) {
+            let yc = yv - mean_y;
+            syy += yc * yc;
+            soy += yc * (ov - mean_o);
+        }
+        let g = soy / syy;
+        let c = mean_o - g * mean_y;
+        let mut see = 0.0;
+        for (&yv, &ov) in self.y.iter().zip(out) {
+            let e = ov - g * yv - c;
+            see += e * e;
+        }
+        (see / count, g, c, syy / count)
+    }
+}
+
+/// Full-bandwidth signal-to-error ratio of `output` against `reference` (same uniform grid at
+/// `sample_rate_hz`) after the best sub-sample delay (searched up to `max_delay_s` either way), gain and offset.
+/// See the module notes for the exact definition. Cost: one FFT cross-correlation plus seven passes of a 64-tap
+/// interpolator over the overlap.
+pub fn fidelity(
+    reference: &[f64],
+    output: &[f64],
+    sample_rate_hz: f64,
+    max_delay_s: f64,
+) -> Fidelity {
+    let nan = Fidelity {
+        fidelity_db: f64::NAN,
+        delay_s: f64::NAN,
+        gain: f64::NAN,
+        offset_v: f64::NAN,
+    };
+    let d0_s = xcorr_delay_s(reference, output, sample_rate_hz, max_delay_s);
+    if !d0_s.is_finite() {
+        return nan;
+    }
+    let d0 = d0_s * sample_rate_hz;
+    // Output samples whose interpolation stencil lies inside the reference for every delay in the search range.
+    let first = HALF_TAPS as f64 - 1.0;
+    let shift_min = (-(d0 + SEARCH_SAMPLES + 1.0)).floor();
+    let shift_max = (-(d0 - SEARCH_SAMPLES - 1.0)).floor();
+    let lo = (first - shift_min).max(0.0);
+    let hi = (reference.len() as f64 - HALF_TAPS as f64 - shift_max).min(output.len() as f64);
+    if hi - lo < 16.0 {
+        return nan;
+    }
+    let (n_lo, n_hi) = (lo as usize, hi as usize);
+    let mut al = Aligner {
+        reference,
+        output,
+        n_lo,
+        n_hi,
+        y: vec![0.0; n_hi - n_lo],
+    };
+    let mut d = d0;
+    for h in [0.1, 0.01] {
+        let (em, ..) = al.fit(d - h);
+        let (e0, ..) = al.fit(d);
+        let (ep, ..) = al.fit(d + h);
+        let den = em - 2.0 * e0 + ep;
+        if den > 0.0 {
+            d += (0.5 * h * (em - ep) / den).clamp(-10.0 * h, 10.0 * h);
+        }
+        d = d.clamp(d0 - SEARCH_SAMPLES, d0 + SEARCH_SAMPLES);
+    }
+    let (mse, g, c, var_y) = al.fit(d);
+    let fidelity_db = if var_y <= 0.0 {
+        f64::NAN
+    } else if mse == 0.0 {
+        f64::INFINITY
+    } else {
+        10.0 * (g * g * var_y / mse).log10()
+    };
+    Fidelity {
+        fidelity_db,
+        delay_s: d / sample_rate_hz,
+        gain: g,
+        offset_v: c,
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use rand::SeedableRng;
+    use rand_chacha::ChaCha8Rng;
+    use rand_distr::{Distribution, Normal};
+    use std::f64::consts::{PI, TAU};
+
+    const TONES: [(f64, f64, f64); 6] = [
+        (0.013, 1.0, 0.3),
+        (0.071, 0.7, -1.1),
+        (0.137, 0.5, 2.0),
+        (0.211, 0.4, 0.7),
+        (0.29, 0.3, -2.5),
+        (0.37, 0.2, 1.4),
+    ];
+
+    /// A broadband multitone (cycles per sample, up to 0.37 fs) evaluated exactly at sample times minus `delay`.
+    fn multitone(n: usize, delay: f64) -> Vec<f64> {
+        (0..n)
+            .map(|i| {
+                TONES
+                    .iter()
+                    .map(|(f, a, p)| a * (TAU * f * (i as f64 - delay) + p).cos())
+                    .sum()
+            })
+            .collect()
+    }
+
+    fn var(x: &[f64]) -> f64 {
+        let m = x.iter().sum::<f64>() / x.len() as f64;
+        x.iter().map(|v| (v - m).powi(2)).sum::<f64>() / x.len() as f64
+    }
+
+    #[test]
+    fn identical_signals_score_very_high() {
+        let x = multitone(20_000, 0.0);
+        let r = fidelity(&x, &x, 1.0, 50.0);
+        assert!(r.fidelity_db > 150.0, "{r:?}");
+        assert!(
+            r.delay_s.abs() < 1e-6 && (r.gain - 1.0).abs() < 1e-9 && r.offset_v.abs() < 1e-9,
+            "{r:?}"
+        );
+    }
+
+    #[test]
+    fn delay_gain_and_offset_are_taken_out() {
+        let fs = 48_000.0;
+        let d = 3.7;
+        let x = multitone(20_000, 0.0);
+        let y: Vec<f64> = multitone(20_000, d).iter().map(|v| 0.5 * v + 0.1).collect();
+        let r = fidelity(&x, &y, fs, 1e-3);
+        // The limit is the 64-tap interpolator (about -100 dB at 0.37 fs, by its design).
+        assert!(r.fidelity_db > 95.0, "{r:?}");
+        assert!((r.delay_s * fs - d).abs() < 1e-5, "{r:?}");
+        assert!(
+            (r.gain - 0.5).abs() < 1e-6 && (r.offset_v - 0.1).abs() < 1e-6,
+            "{r:?}"
+        );
+        // Negative delay (output earlier) and an inverted output work too.
+        let z: Vec<f64> = multitone(20_000, -11.25).iter().map(|v| -2.0 * v).collect();
+        let r = fidelity(&x, &z, fs, 1e-3);
+        assert!(
+            r.fidelity_db > 95.0
+                && (r.delay_s * fs + 11.25).abs() < 1e-5
+                && (r.gain + 2.0).abs() < 1e-5,
+            "{r:?}"
+        );
+    }
+
+    #[test]
+    fn independent_noise_gives_the_signal_to_noise_ratio() {
+        // Definition check: with output = reference + independent noise of rms e, the ratio is var / e^2
+        // (common practice, no source). The noise power of 20000 samples scatters by sqrt(2/20000) = 1 %
+        // (0.04 dB), the three fitted parameters remove a negligible 3/20000 of it: allow 0.2 dB.
+        let mut rng = ChaCha8Rng::seed_from_u64(21);
+        let n = 20_000;
+        let x = multitone(n, 0.0);
+        for e in [0.01, 0.1] {
+            let normal = Normal::new(0.0, e).unwrap();
+            let y: Vec<f64> = x.iter().map(|v| v + normal.sample(&mut rng)).collect();
+            let r = fidelity(&x, &y, 1.0, 20.0);
+            let expect = 10.0 * (var(&x) / (e * e)).log10();
+            assert!(
+                (r.fidelity_db - expect).abs() < 0.2,
+                "e {e}: {r:?} expected {expect}"
+            );
+        }
+    }
+
+    #[test]
+    fn a_zero_order_hold_staircase_at_two_and_a_half_samples_per_cycle_scores_about_one_db() {
+        // A sine held by a zero-order hold at 2.5 samples per cycle, seen on a grid 16 times finer. On that grid
+        // the hold is a 16-sample box filter applied to the impulses of the coarse samples. Its response at the
+        // tone (ZOH frequency response; on the fine grid the discrete box, Dirichlet kernel, common practice) is
+        // H = sin(16 pi f/fs) / (16 sin(pi f/fs)) = sin(0.4 pi) / (16 sin(pi/40)) = 0.7576, with a pure delay
+        // of 7.5 fine samples. The staircase holds the power of the samples, A^2/2 (5 distinct phases per
+        // period), so after the best alignment the fundamental carries H^2 of it and the images the rest:
+        // fidelity = 10 log10(H^2 / (1 - H^2)) = 1.29 dB. Low indeed, though not negative: the staircase still
+        // follows the sine. Allow 0.1 dB for the record's edges.
+        let up = 16usize;
+        let n = 40_000usize; // fine samples, 1000 periods of 40 fine samples
+        let fs = 1.0;
+        let f = 1.0 / 40.0;
+        let reference: Vec<f64> = (0..n).map(|i| (TAU * f * i as f64 + 0.2).cos()).collect();
+        let staircase: Vec<f64> = (0..n).map(|i| reference[i - i % up]).collect();
+        let h = (16.0 * PI * f).sin() / (16.0 * (PI * f).sin());
+        let expect = 10.0 * (h * h / (1.0 - h * h)).log10();
+        let r = fidelity(&reference, &staircase, fs, 20.0);
+        assert!(
+            (r.fidelity_db - expect).abs() < 0.1,
+            "{r:?}, theory {expect}"
+        );
+        assert!(r.fidelity_db < 6.0);
+        // The fitted gain is the hold's response at the tone; the delay is its 7.5 samples. A pure sine cannot tell
+        // a delay from one a whole period away, nor a polarity flip from half a period: the delay is checked
+        // modulo half a period (20 samples), with the gain's sign telling which half.
+        assert!((r.gain.abs() - h).abs() < 2e-3, "{r:?}");
+        let m = (r.delay_s - 7.5).rem_euclid(40.0);
+        let off = if r.gain > 0.0 {
+            m.min(40.0 - m)
+        } else {
+            (m - 20.0).abs()
+        };
+        assert!(off < 0.05, "{r:?}");
+    }
+
+    #[test]
+    fn too_short_records_give_nan() {
+        let x = multitone(40, 0.0);
+        assert!(fidelity(&x, &x, 1.0, 2.0).fidelity_db.is_nan());
+    }
+
+    #[test]
+    fn the_interpolation_kernel_is_exact_at_whole_samples_and_sums_to_one() {
+        let mut k = [0.0; 2 * HALF_TAPS];
+        kernel(0.0, &mut k);
+        for (j, w) in k.iter().enumerate() {
+            let want = if j == HALF_TAPS - 1 { 1.0 } else { 0.0 };
+            assert!((w - want).abs() < 1e-15, "{j}: {w}");
+        }
+        kernel(0.37, &mut k);
+        assert!((k.iter().sum::<f64>() - 1.0).abs() < 1e-14);
+    }
+}
