@@ -1,5 +1,6 @@
-//! Report writers: JSON, CSV, text tables.
+//! Report writers: JSON, CSV, text tables, plots (PNG and SVG).
 
 pub mod csv;
 pub mod json;
+pub mod plot;
 pub mod table;
