@@ -1,7 +1,8 @@
-//! Report writers: JSON, CSV, text tables, and the output folder they go into.
+//! Report writers: JSON, CSV, text tables, plots (PNG and SVG), and the output folder they go into.
 
 pub mod csv;
 pub mod json;
+pub mod plot;
 pub mod table;
 
 use std::fs;
