@@ -62,7 +62,7 @@ fn run_inner(sc: &Scenario, out: &OutputDir, opts: &RunOptions) -> Result<Report
         b.finish_and_clear();
     }
     csv.finish()?;
-    let metrics = measure_run(&run);
+    let metrics = measure_run(&run)?;
     let report = Report::new(&run.scenario, &run.plan, metrics);
     let json = serde_json::to_vec_pretty(&report).map_err(|e| Error::Run(e.to_string()))?;
     out.commit("waveforms.csv")?;
@@ -129,18 +129,31 @@ pub fn static_tests(sc: &Scenario) -> Result<Static> {
                 let mut rng = pipeline::stage_rng(seed, idx);
                 let dac = crate::stages::dac::Dac::new(c, &mut rng);
                 let n = 1u64 << c.bits;
-                let zero = dac.level_v(0);
-                let levels: Vec<f64> = (0..n).map(|k| dac.level_v(k as u32) - zero).collect();
-                let result = static_test::dac_from_levels(&levels);
+                if c.bits < 2 {
+                    return Err(Error::BadInput(format!(
+                        "{}: {}: static tests need a DAC of at least 2 bits",
+                        sc.origin, st.label
+                    )));
+                }
+                let absolute: Vec<f64> = (0..n).map(|k| dac.level_v(k as u32)).collect();
+                let q = (c.range_v.1 - c.range_v.0) / n as f64;
+                let result = static_test::dac_from_levels(&absolute, c.range_v.0, q);
+                let zero = absolute[0];
                 dac_res = Some(DacStatic {
                     result,
-                    levels_v: levels,
+                    levels_v: absolute.iter().map(|v| v - zero).collect(),
                 });
             }
             _ => {}
         }
     }
     if let Some((idx, cfg)) = adc_seen {
+        if cfg.bits < 2 {
+            return Err(Error::BadInput(format!(
+                "{}: static tests need an ADC of at least 2 bits",
+                sc.origin
+            )));
+        }
         let q = cfg.lsb_v();
         let (lo, hi) = cfg.range_v;
         let n_codes = 1usize << cfg.bits;
@@ -175,7 +188,9 @@ pub fn static_tests(sc: &Scenario) -> Result<Static> {
         let ramp = static_test::adc_ramp(&ramp_v, &codes, cfg.bits, lo, q);
         // Code density: a sine overdriven by 2 % around mid-range, coherent with the record.
         let cd_n = (n_codes * 64).clamp(1 << 16, 1 << 22);
-        let (f, _) = crate::measure::coherent::coherent_frequency(fs / 97.3, fs, cd_n);
+        let f = crate::measure::coherent::coherent_frequency(fs / 97.3, fs, cd_n)
+            .map(|(f, _)| f)
+            .unwrap_or(fs / 97.3);
         let c = 0.5 * (lo + hi);
         let a = 0.5 * (hi - lo) * 1.02;
         let w = 2.0 * std::f64::consts::PI * f;

@@ -169,9 +169,10 @@ impl Plan {
                     Some(a) => (a.sample_rate_hz, a.record_len),
                     None => (out_rate_hz, out_record_len),
                 };
-                let (f, j) = crate::measure::coherent::coherent_frequency(*frequency_hz, fs, n);
-                *frequency_hz = f;
-                coherent_cycles = Some(j);
+                if let Some((f, j)) = crate::measure::coherent::coherent_frequency(*frequency_hz, fs, n) {
+                    *frequency_hz = f;
+                    coherent_cycles = Some(j);
+                }
             }
         }
         let frequency_hz = sc.source.waveform.fundamental_hz();

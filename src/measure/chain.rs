@@ -4,6 +4,7 @@
 use serde::Serialize;
 
 use crate::engine::pipeline::RunOutput;
+use crate::error::Result;
 use crate::measure::latency::{self, BudgetLine};
 use crate::measure::metrics::{self, MetricsConfig, ToneMetrics};
 use crate::measure::spectrum::SpectrumAnalyzer;
@@ -84,7 +85,7 @@ fn finite(x: f64) -> Option<f64> {
 }
 
 /// Measure a finished run.
-pub fn measure_run(run: &RunOutput) -> ChainMetrics {
+pub fn measure_run(run: &RunOutput) -> Result<ChainMetrics> {
     let sc = &run.scenario;
     let plan = &run.plan;
     let harmonics = sc.analysis.harmonics;
@@ -119,10 +120,10 @@ pub fn measure_run(run: &RunOutput) -> ChainMetrics {
                 .map(|c| p.range_v.0 + (c.code as f64 + 0.5) * q)
                 .collect();
             let fs_peak = (p.range_v.1 - p.range_v.0) / 2.0;
-            let mut an = SpectrumAnalyzer::new(volts.len(), sc.analysis.window);
-            let spec = an.power_spectrum(&volts, p.sample_rate_hz);
-            let tm = sine_like.then(|| {
-                metrics::tone_metrics(
+            let mut an = SpectrumAnalyzer::new(volts.len(), sc.analysis.window)?;
+            let spec = an.power_spectrum(&volts, p.sample_rate_hz)?;
+            let tm = if sine_like {
+                Some(metrics::tone_metrics(
                     &spec,
                     &MetricsConfig {
                         harmonics,
@@ -130,8 +131,10 @@ pub fn measure_run(run: &RunOutput) -> ChainMetrics {
                         full_scale_peak_v: fs_peak,
                         fundamental_hz: f0,
                     },
-                )
-            });
+                )?)
+            } else {
+                None
+            };
             let enob_fit = f0.map(|f| {
                 let t0 = rec.codes.first().map(|c| c.t_sample_s).unwrap_or(0.0);
                 let fit = sinefit::fit3(&volts, p.sample_rate_hz, f, t0);
@@ -162,11 +165,11 @@ pub fn measure_run(run: &RunOutput) -> ChainMetrics {
     let out = &run.output_record.volts;
     let src = &run.source_record.volts;
     let rate = plan.out_rate_hz;
-    let mut an = SpectrumAnalyzer::new(out.len(), sc.analysis.window);
+    let mut an = SpectrumAnalyzer::new(out.len(), sc.analysis.window)?;
     let src_tm: Option<ToneMetrics>;
     let out_tm: Option<ToneMetrics>;
     if sine_like {
-        let spec_src = an.power_spectrum(src, rate);
+        let spec_src = an.power_spectrum(src, rate)?;
         src_tm = Some(metrics::tone_metrics(
             &spec_src,
             &MetricsConfig {
@@ -175,8 +178,8 @@ pub fn measure_run(run: &RunOutput) -> ChainMetrics {
                 full_scale_peak_v: src_amp.unwrap_or(1.0).abs().max(1e-30),
                 fundamental_hz: f0,
             },
-        ));
-        let spec_out = an.power_spectrum(out, rate);
+        )?);
+        let spec_out = an.power_spectrum(out, rate)?;
         // Input-referred full scale: the output amplitude that a full-scale signal at the ADC would give.
         let a_in = src_amp.unwrap_or(1.0).abs() * pre_gain;
         let fs_in = plan
@@ -191,7 +194,7 @@ pub fn measure_run(run: &RunOutput) -> ChainMetrics {
                 full_scale_peak_v: 1.0,
                 fundamental_hz: f0,
             },
-        );
+        )?;
         let a_out = first.fundamental_amplitude_v;
         let full_scale = if a_in > 0.0 { a_out * fs_in / a_in } else { 1.0 };
         out_tm = Some(metrics::tone_metrics(
@@ -202,7 +205,7 @@ pub fn measure_run(run: &RunOutput) -> ChainMetrics {
                 full_scale_peak_v: full_scale.max(1e-30),
                 fundamental_hz: f0,
             },
-        ));
+        )?);
     } else {
         src_tm = None;
         out_tm = None;
@@ -238,7 +241,7 @@ pub fn measure_run(run: &RunOutput) -> ChainMetrics {
     let sample_period = plan.adc.map(|a| 1.0 / a.sample_rate_hz).unwrap_or(1.0 / grid_rate);
     let flagged = difference_s.abs() > 0.05 * budget_s.abs() && difference_s.abs() > 0.1 * sample_period;
 
-    ChainMetrics {
+    Ok(ChainMetrics {
         adc,
         output: OutputMetrics {
             analysis_rate_hz: rate,
@@ -264,7 +267,7 @@ pub fn measure_run(run: &RunOutput) -> ChainMetrics {
             difference_s,
             flagged,
         },
-    }
+    })
 }
 
 /// Cross-correlation delay searched around the budget estimate (within half a period for periodic sources,

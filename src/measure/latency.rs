@@ -52,7 +52,14 @@ pub(crate) struct CrossCorrelation {
 
 impl CrossCorrelation {
     /// Prepares the correlation for lags up to `max_lag` samples either way, without wrap-around.
+    ///
+    /// When the input is long enough (over 16 `max_lag`), only its interior `[max_lag, len - max_lag)` takes part,
+    /// tapered by a Hann window, so every lag within the search range sums over the same products. Without the
+    /// trim, the overlap shrinks linearly with the lag and that taper pulls the peak of a periodic signal toward
+    /// zero lag (by about (P/2 pi)^2 / N samples for a sine of period P in N samples); without the window, a
+    /// segment holding a fractional number of cycles adds an edge term that moves the peak by samples.
     pub(crate) fn new(input: &[f64], output: &[f64], max_lag: usize) -> Self {
+        let trim = if input.len() > 16 * max_lag { max_lag } else { 0 };
         let len = fft_len(input.len().max(output.len()) + max_lag + 1);
         let mut planner = RealFftPlanner::<f64>::new();
         let fwd = planner.plan_fft_forward(len);
@@ -60,15 +67,28 @@ impl CrossCorrelation {
         let mut buf = vec![0.0; len];
         let mut spec_in = fwd.make_output_vec();
         let mut spec_out = fwd.make_output_vec();
-        for (src, spec) in [(input, &mut spec_in), (output, &mut spec_out)] {
-            let mean = src.iter().sum::<f64>() / src.len().max(1) as f64;
-            buf.fill(0.0);
-            for (p, v) in buf.iter_mut().zip(src) {
-                *p = v - mean;
-            }
-            fwd.process(&mut buf, spec)
-                .expect("length matches the plan");
+
+        let inner = &input[trim..input.len() - trim];
+        let mean_in = inner.iter().sum::<f64>() / inner.len().max(1) as f64;
+        let m = inner.len();
+        for (i, v) in inner.iter().enumerate() {
+            let w = if trim > 0 && m > 1 {
+                0.5 - 0.5 * (TAU * i as f64 / (m - 1) as f64).cos()
+            } else {
+                1.0
+            };
+            buf[trim + i] = (v - mean_in) * w;
         }
+        fwd.process(&mut buf, &mut spec_in)
+            .expect("length matches the plan");
+
+        let mean_out = output.iter().sum::<f64>() / output.len().max(1) as f64;
+        buf.fill(0.0);
+        for (p, v) in buf.iter_mut().zip(output) {
+            *p = v - mean_out;
+        }
+        fwd.process(&mut buf, &mut spec_out)
+            .expect("length matches the plan");
         let spectrum: Vec<Complex64> = spec_in
             .iter()
             .zip(&spec_out)
