@@ -6,8 +6,10 @@ use std::path::Path;
 use criterion::{Criterion, criterion_group, criterion_main};
 
 fn reference(duration: &str) -> convchain::scenario::Scenario {
-    let text = include_str!("reference-chain.toml").replace("duration = \"1 s\"", &format!("duration = \"{duration}\""));
-    convchain::scenario::parse_str(&text, "reference-chain.toml", Path::new(".")).expect("reference scenario parses")
+    let text = include_str!("reference-chain.toml")
+        .replace("duration = \"1 s\"", &format!("duration = \"{duration}\""));
+    convchain::scenario::parse_str(&text, "reference-chain.toml", Path::new("."))
+        .expect("reference scenario parses")
 }
 
 fn bench(c: &mut Criterion) {

@@ -42,13 +42,19 @@ pub fn run_to_dir(sc: &Scenario, dir: &Path, opts: &RunOptions) -> Result<Report
 
 fn run_inner(sc: &Scenario, out: &OutputDir, opts: &RunOptions) -> Result<Report> {
     let (plan, _) = Plan::new(sc)?;
-    let mut csv = CsvSink::create(out.temp_path("waveforms.csv"), plan.n_total, opts.full_waveforms)?;
+    let mut csv = CsvSink::create(
+        out.temp_path("waveforms.csv"),
+        plan.n_total,
+        opts.full_waveforms,
+    )?;
     let show = opts.progress && std::io::IsTerminal::is_terminal(&std::io::stderr());
     let bar = show.then(|| {
         let b = indicatif::ProgressBar::new(1000);
         b.set_style(
-            indicatif::ProgressStyle::with_template("  simulating [{bar:40}] {percent:>3}%  {elapsed}")
-                .unwrap_or_else(|_| indicatif::ProgressStyle::default_bar()),
+            indicatif::ProgressStyle::with_template(
+                "  simulating [{bar:40}] {percent:>3}%  {elapsed}",
+            )
+            .unwrap_or_else(|_| indicatif::ProgressStyle::default_bar()),
         );
         b
     });

@@ -9,7 +9,11 @@ fn bin() -> Command {
 }
 
 fn run_in(dir: &Path, args: &[&str]) -> Output {
-    bin().current_dir(dir).args(args).output().expect("binary runs")
+    bin()
+        .current_dir(dir)
+        .args(args)
+        .output()
+        .expect("binary runs")
 }
 
 fn repo(path: &str) -> PathBuf {
@@ -34,10 +38,28 @@ fn run_with_no_scenario_writes_the_report_and_the_waveforms() {
     for key in ["scenario", "chain", "adc", "output", "latency"] {
         assert!(r.get(key).is_some(), "report.json lacks {key}");
     }
-    for key in ["sample_rate_hz", "conversion_time_s", "codes_clipped", "snr_db", "sinad_db", "enob_bits", "thd_db", "sfdr_dbc"] {
+    for key in [
+        "sample_rate_hz",
+        "conversion_time_s",
+        "codes_clipped",
+        "snr_db",
+        "sinad_db",
+        "enob_bits",
+        "thd_db",
+        "sfdr_dbc",
+    ] {
         assert!(r["adc"].get(key).is_some(), "adc lacks {key}");
     }
-    for key in ["snr_db", "sinad_db", "enob_bits", "thd_db", "sfdr_dbc", "gain_db", "fidelity_db", "fundamental_hz"] {
+    for key in [
+        "snr_db",
+        "sinad_db",
+        "enob_bits",
+        "thd_db",
+        "sfdr_dbc",
+        "gain_db",
+        "fidelity_db",
+        "fundamental_hz",
+    ] {
         assert!(r["output"].get(key).is_some(), "output lacks {key}");
     }
     for key in ["measured_s", "phase_delay_s", "budget_s", "budget"] {
@@ -127,7 +149,10 @@ fn ideal_chain_latency_is_conversion_time_plus_half_a_sample_period() {
     let period = 1.0 / 100e3;
     for key in ["measured_s", "phase_delay_s", "budget_s"] {
         let got = r["latency"][key].as_f64().unwrap();
-        assert!((got - expect).abs() < 0.01 * period, "{key}: {got} vs {expect}");
+        assert!(
+            (got - expect).abs() < 0.01 * period,
+            "{key}: {got} vs {expect}"
+        );
     }
     // Bennett (BSTJ 1948): an ideal 12-bit quantizer of a near-full-scale sine gives SNR ~ 6.02 N + 1.76 dB
     // less 20 log10(FS/A); the ENOB (full-scale corrected) is then close to 12.
@@ -148,7 +173,10 @@ fn bad_input_exits_2_names_the_place_and_writes_nothing() {
     assert!(e.contains("bad.toml:"), "{e}");
     assert!(e.contains("bitz"), "{e}");
     assert!(e.contains("bits"), "should suggest the right key: {e}");
-    assert!(!d.path().join("out").exists(), "nothing may be written on bad input");
+    assert!(
+        !d.path().join("out").exists(),
+        "nothing may be written on bad input"
+    );
 }
 
 #[test]
@@ -197,7 +225,10 @@ fn a_folder_holding_foreign_files_is_refused() {
     fs::write(d.path().join("mine/report.json"), "keep").unwrap();
     let o = run_in(d.path(), &["run", "--quiet", "--out", "mine"]);
     assert_eq!(o.status.code(), Some(2));
-    assert_eq!(fs::read_to_string(d.path().join("mine/report.json")).unwrap(), "keep");
+    assert_eq!(
+        fs::read_to_string(d.path().join("mine/report.json")).unwrap(),
+        "keep"
+    );
 }
 
 #[test]

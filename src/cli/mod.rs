@@ -38,9 +38,7 @@ enum Command {
         json: bool,
     },
     /// Check a scenario file without running it.
-    Check {
-        scenario: PathBuf,
-    },
+    Check { scenario: PathBuf },
     /// Write a commented starter scenario.
     Init {
         /// File name to write (default scenario.toml), inside --out.
@@ -76,10 +74,10 @@ pub fn main() -> ExitCode {
     match run(args) {
         Ok(()) => ExitCode::SUCCESS,
         Err(e) => {
-            if let Some(io) = e.downcast_ref::<std::io::Error>() {
-                if io.kind() == std::io::ErrorKind::BrokenPipe {
-                    return ExitCode::SUCCESS;
-                }
+            if let Some(io) = e.downcast_ref::<std::io::Error>()
+                && io.kind() == std::io::ErrorKind::BrokenPipe
+            {
+                return ExitCode::SUCCESS;
             }
             eprintln!("error: {e:#}");
             let bad_input = e

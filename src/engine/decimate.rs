@@ -25,7 +25,11 @@ impl Decimator {
     /// If `factor` is 0.
     pub fn new(factor: usize) -> Self {
         assert!(factor >= 1);
-        let taps = if factor == 1 { vec![1.0] } else { design(factor) };
+        let taps = if factor == 1 {
+            vec![1.0]
+        } else {
+            design(factor)
+        };
         let len = taps.len();
         Decimator {
             factor,
@@ -62,7 +66,7 @@ impl Decimator {
                 self.pos = 0;
             }
             // The newest sample has index `seen`; the output centred on index c = seen - delay is due when c % factor == 0.
-            if self.seen >= delay && (self.seen - delay) % self.factor as u64 == 0 {
+            if self.seen >= delay && (self.seen - delay).is_multiple_of(self.factor as u64) {
                 let window = &self.hist[self.pos..self.pos + len];
                 out.push(dot(window, &self.taps));
             }
@@ -163,7 +167,9 @@ mod tests {
         let factor = 10;
         let fs = 1.0e6;
         let f = 0.35 * fs / factor as f64; // inside the flat passband
-        let x: Vec<f64> = (0..200_000).map(|n| (2.0 * PI * f * n as f64 / fs).sin()).collect();
+        let x: Vec<f64> = (0..200_000)
+            .map(|n| (2.0 * PI * f * n as f64 / fs).sin())
+            .collect();
         let y = run(factor, &x);
         assert_eq!(y.len(), x.len() / factor);
         let d = Decimator::new(factor);
@@ -179,11 +185,15 @@ mod tests {
         let factor = 8;
         let fs = 1.0e6;
         let f = 0.62 * fs / factor as f64 + 0.5 * fs / factor as f64; // well past the stopband edge
-        let x: Vec<f64> = (0..100_000).map(|n| (2.0 * PI * f * n as f64 / fs).sin()).collect();
+        let x: Vec<f64> = (0..100_000)
+            .map(|n| (2.0 * PI * f * n as f64 / fs).sin())
+            .collect();
         let y = run(factor, &x);
         let d = Decimator::new(factor);
         let skip = d.delay_samples() / factor + 2;
-        let peak = y[skip..y.len() - skip].iter().fold(0.0f64, |a, v| a.max(v.abs()));
+        let peak = y[skip..y.len() - skip]
+            .iter()
+            .fold(0.0f64, |a, v| a.max(v.abs()));
         assert!(peak < 1e-4, "peak {peak}");
     }
 

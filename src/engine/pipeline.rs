@@ -163,16 +163,17 @@ impl Plan {
         // Coherent sampling: move a sine to J cycles in the record (J odd, coprime with the record length).
         let requested_frequency_hz = sc.source.waveform.fundamental_hz();
         let mut coherent_cycles = None;
-        if sc.analysis.coherent {
-            if let Waveform::Sine { frequency_hz, .. } = &mut sc.source.waveform {
-                let (fs, n) = match &adc {
-                    Some(a) => (a.sample_rate_hz, a.record_len),
-                    None => (out_rate_hz, out_record_len),
-                };
-                if let Some((f, j)) = crate::measure::coherent::coherent_frequency(*frequency_hz, fs, n) {
-                    *frequency_hz = f;
-                    coherent_cycles = Some(j);
-                }
+        if sc.analysis.coherent
+            && let Waveform::Sine { frequency_hz, .. } = &mut sc.source.waveform
+        {
+            let (fs, n) = match &adc {
+                Some(a) => (a.sample_rate_hz, a.record_len),
+                None => (out_rate_hz, out_record_len),
+            };
+            if let Some((f, j)) = crate::measure::coherent::coherent_frequency(*frequency_hz, fs, n)
+            {
+                *frequency_hz = f;
+                coherent_cycles = Some(j);
             }
         }
         let frequency_hz = sc.source.waveform.fundamental_hz();
@@ -183,7 +184,12 @@ impl Plan {
         let analog_streams = 2 + sc
             .stages
             .iter()
-            .filter(|s| matches!(s.kind, StageKind::Filter(_) | StageKind::Amplifier(_) | StageKind::Dac(_)))
+            .filter(|s| {
+                matches!(
+                    s.kind,
+                    StageKind::Filter(_) | StageKind::Amplifier(_) | StageKind::Dac(_)
+                )
+            })
             .count() as u64;
         let decimated = 2 * (n_window / out_factor as u64 + 1);
         let codes = adc.map(|a| a.record_len as u64).unwrap_or(0);
@@ -297,7 +303,13 @@ pub trait WaveformSink {
     /// Called once before the first block with the analog column labels and the code column labels.
     fn begin(&mut self, analog: &[String], codes: &[String]) -> Result<()>;
     /// A block starting at grid index `n0`; columns in the order given to `begin`.
-    fn block(&mut self, timebase: Timebase, n0: u64, analog: &[&[f64]], codes: &[&[u32]]) -> Result<()>;
+    fn block(
+        &mut self,
+        timebase: Timebase,
+        n0: u64,
+        analog: &[&[f64]],
+        codes: &[&[u32]],
+    ) -> Result<()>;
 }
 
 /// Everything a run produced.
@@ -529,16 +541,17 @@ pub fn run(
     // Probe: exact source, or a history of the stream entering the converter.
     let exact = n_pre == 0 && chain.source.is_exact();
     let mut history = None;
-    if let Some(c) = &chain.converter {
-        if !exact {
-            let tconv = c.adc_cfg.conversion_time_s;
-            let span_s = tconv
-                + c.sh.lookahead_s()
-                + c.sh.history_needed_s(1.0 / c.adc_cfg.effective_sample_rate_hz())
-                + 4.0 / c.adc_cfg.effective_sample_rate_hz();
-            let cap = (span_s * tb.rate_hz).ceil() as usize + 3 * BLOCK + 16;
-            history = Some(GridHistory::new(tb.rate_hz, cap));
-        }
+    if let Some(c) = &chain.converter
+        && !exact
+    {
+        let tconv = c.adc_cfg.conversion_time_s;
+        let span_s = tconv
+            + c.sh.lookahead_s()
+            + c.sh
+                .history_needed_s(1.0 / c.adc_cfg.effective_sample_rate_hz())
+            + 4.0 / c.adc_cfg.effective_sample_rate_hz();
+        let cap = (span_s * tb.rate_hz).ceil() as usize + 3 * BLOCK + 16;
+        history = Some(GridHistory::new(tb.rate_hz, cap));
     }
 
     let mut adc_codes = plan.adc.map(|a| CodeRecord {
@@ -605,10 +618,11 @@ pub fn run(
                             &mut conv.sh,
                         ),
                     };
-                    if let (Some(rec), Some(p)) = (adc_codes.as_mut(), plan.adc.as_ref()) {
-                        if k >= p.k0 && rec.codes.len() < p.record_len {
-                            rec.codes.push(ev);
-                        }
+                    if let (Some(rec), Some(p)) = (adc_codes.as_mut(), plan.adc.as_ref())
+                        && k >= p.k0
+                        && rec.codes.len() < p.record_len
+                    {
+                        rec.codes.push(ev);
                     }
                     if sink.is_some() {
                         adc_seen.push(ev);
@@ -622,7 +636,7 @@ pub fn run(
                         }
                         std::mem::swap(&mut link_buf_a, &mut link_buf_b);
                     }
-                    dac_pending.extend(link_buf_a.drain(..));
+                    dac_pending.append(&mut link_buf_a);
                     k += 1;
                 }
             }
@@ -661,10 +675,14 @@ pub fn run(
             for i in 0..n_post {
                 if base + i == 0 {
                     // Analog-only chain: the first post stage reads the front's last stream.
-                    chain.post[i].1.process(&front_prev[n_pre][..len], &mut back[0][..len]);
+                    chain.post[i]
+                        .1
+                        .process(&front_prev[n_pre][..len], &mut back[0][..len]);
                 } else {
                     let (head, tail) = back.split_at_mut(base + i);
-                    chain.post[i].1.process(&head[base + i - 1][..len], &mut tail[0][..len]);
+                    chain.post[i]
+                        .1
+                        .process(&head[base + i - 1][..len], &mut tail[0][..len]);
                 }
             }
             // Columns: source, pre..., [dac], post...

@@ -118,7 +118,9 @@ mod tests {
         // Lagrange-4 interpolation error bound ~ (w h)^4 / 24 for a unit sine (common practice, no source).
         let rate = 20.0;
         let mut h = GridHistory::new(rate, 256);
-        let block: Vec<f64> = (0..200).map(|n| (2.0 * std::f64::consts::PI * n as f64 / rate).sin()).collect();
+        let block: Vec<f64> = (0..200)
+            .map(|n| (2.0 * std::f64::consts::PI * n as f64 / rate).sin())
+            .collect();
         h.push_block(0, &block);
         let bound = (2.0 * std::f64::consts::PI / rate).powi(4) / 24.0;
         for k in 0..500 {

@@ -196,7 +196,11 @@ pub fn measure_run(run: &RunOutput) -> Result<ChainMetrics> {
             },
         )?;
         let a_out = first.fundamental_amplitude_v;
-        let full_scale = if a_in > 0.0 { a_out * fs_in / a_in } else { 1.0 };
+        let full_scale = if a_in > 0.0 {
+            a_out * fs_in / a_in
+        } else {
+            1.0
+        };
         out_tm = Some(metrics::tone_metrics(
             &spec_out,
             &MetricsConfig {
@@ -211,9 +215,9 @@ pub fn measure_run(run: &RunOutput) -> Result<ChainMetrics> {
         out_tm = None;
     }
     let gain_db = match (&src_tm, &out_tm) {
-        (Some(s), Some(o)) if s.fundamental_amplitude_v > 0.0 => finite(
-            20.0 * (o.fundamental_amplitude_v / s.fundamental_amplitude_v).log10(),
-        ),
+        (Some(s), Some(o)) if s.fundamental_amplitude_v > 0.0 => {
+            finite(20.0 * (o.fundamental_amplitude_v / s.fundamental_amplitude_v).log10())
+        }
         _ => None,
     };
 
@@ -225,8 +229,14 @@ pub fn measure_run(run: &RunOutput) -> Result<ChainMetrics> {
     let budget_s: f64 = budget.iter().map(|b| b.seconds).sum();
     let capture_s = cap.source().len() as f64 / grid_rate;
     let period_s = f0.map(|f| 1.0 / f);
-    let (measured_s, phase_delay_s) =
-        measure_delay(cap.source(), cap.output(), grid_rate, budget_s, period_s, capture_s);
+    let (measured_s, phase_delay_s) = measure_delay(
+        cap.source(),
+        cap.output(),
+        grid_rate,
+        budget_s,
+        period_s,
+        capture_s,
+    );
     let phase_delay_s = phase_delay_s.and_then(finite);
     let group_delay_s = match &sc.source.waveform {
         Waveform::Multitone { tones } => {
@@ -236,10 +246,19 @@ pub fn measure_run(run: &RunOutput) -> Result<ChainMetrics> {
         _ => Vec::new(),
     };
     let max_delay_s = (4.0 * budget_s.abs() + 20.0 / grid_rate).min(capture_s / 4.0);
-    let fid = fidelity::fidelity(cap.source(), cap.output(), grid_rate, max_delay_s.max(measured_s.abs() * 1.5));
+    let fid = fidelity::fidelity(
+        cap.source(),
+        cap.output(),
+        grid_rate,
+        max_delay_s.max(measured_s.abs() * 1.5),
+    );
     let difference_s = measured_s - budget_s;
-    let sample_period = plan.adc.map(|a| 1.0 / a.sample_rate_hz).unwrap_or(1.0 / grid_rate);
-    let flagged = difference_s.abs() > 0.05 * budget_s.abs() && difference_s.abs() > 0.1 * sample_period;
+    let sample_period = plan
+        .adc
+        .map(|a| 1.0 / a.sample_rate_hz)
+        .unwrap_or(1.0 / grid_rate);
+    let flagged =
+        difference_s.abs() > 0.05 * budget_s.abs() && difference_s.abs() > 0.1 * sample_period;
 
     Ok(ChainMetrics {
         adc,
@@ -270,8 +289,12 @@ pub fn measure_run(run: &RunOutput) -> Result<ChainMetrics> {
     })
 }
 
-/// Cross-correlation delay searched around the budget estimate (within half a period for periodic sources,
-/// whose correlation repeats every period), and the phase delay at the fundamental.
+/// Cross-correlation delay searched around the budget estimate, and the phase delay at the fundamental.
+///
+/// For a periodic source the correlation repeats every period and its magnitude peaks every half period (a
+/// polarity flip looks like half a period of delay), so the search spans a quarter period either side of the
+/// budget: a mis-modelled delay of more than a quarter period cannot be told from a sine alone (use a
+/// multitone, chirp or noise source for that).
 fn measure_delay(
     src: &[f64],
     out: &[f64],
@@ -284,7 +307,7 @@ fn measure_delay(
     let shift = (budget_s * rate_hz).round().max(0.0) as usize;
     let shift = shift.min(src.len() / 2);
     let half_window_s = match period_s {
-        Some(p) => 0.5 * p,
+        Some(p) => 0.25 * p,
         None => (budget_s.abs() + 20.0 / rate_hz).max(capture_s / 8.0),
     }
     .min((src.len() - shift) as f64 / rate_hz / 4.0);

@@ -59,7 +59,11 @@ impl CrossCorrelation {
     /// zero lag (by about (P/2 pi)^2 / N samples for a sine of period P in N samples); without the window, a
     /// segment holding a fractional number of cycles adds an edge term that moves the peak by samples.
     pub(crate) fn new(input: &[f64], output: &[f64], max_lag: usize) -> Self {
-        let trim = if input.len() > 16 * max_lag { max_lag } else { 0 };
+        let trim = if input.len() > 16 * max_lag {
+            max_lag
+        } else {
+            0
+        };
         let len = fft_len(input.len().max(output.len()) + max_lag + 1);
         let mut planner = RealFftPlanner::<f64>::new();
         let fwd = planner.plan_fft_forward(len);

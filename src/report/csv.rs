@@ -26,10 +26,8 @@ pub fn column_name(label: &str) -> String {
     for c in label.chars() {
         if c.is_ascii_alphanumeric() {
             s.push(c.to_ascii_lowercase());
-        } else if c == ' ' || c == '-' || c == '_' {
-            if !s.ends_with('_') {
-                s.push('_');
-            }
+        } else if (c == ' ' || c == '-' || c == '_') && !s.ends_with('_') {
+            s.push('_');
         }
     }
     s.trim_matches('_').to_string()
@@ -42,7 +40,11 @@ impl CsvSink {
             path: path.clone(),
             source: e,
         })?;
-        let every = if full { 1 } else { n_total.div_ceil(MAX_ROWS).max(1) };
+        let every = if full {
+            1
+        } else {
+            n_total.div_ceil(MAX_ROWS).max(1)
+        };
         Ok(CsvSink {
             path,
             out: BufWriter::with_capacity(1 << 20, f),
@@ -83,7 +85,13 @@ impl WaveformSink for CsvSink {
         self.out.write_all(h.as_bytes()).map_err(|e| self.io(e))
     }
 
-    fn block(&mut self, timebase: Timebase, n0: u64, analog: &[&[f64]], codes: &[&[u32]]) -> Result<()> {
+    fn block(
+        &mut self,
+        timebase: Timebase,
+        n0: u64,
+        analog: &[&[f64]],
+        codes: &[&[u32]],
+    ) -> Result<()> {
         use std::fmt::Write as _;
         let len = analog.first().map(|c| c.len()).unwrap_or(0);
         let first = (self.every - n0 % self.every) % self.every;

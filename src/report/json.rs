@@ -6,8 +6,8 @@ use serde_json::{Value, json};
 use crate::engine::pipeline::Plan;
 use crate::measure::chain::{AdcMetrics, ChainMetrics, LatencyMetrics, OutputMetrics};
 use crate::scenario::{
-    AdcInput, ChirpLaw, DitherKind, FilterFamily, FilterResponse, Ladder, OutputAmpCfg, Scenario, StageKind,
-    ToleranceDistribution, Waveform, WindowKind,
+    AdcInput, ChirpLaw, DitherKind, FilterFamily, FilterResponse, Ladder, OutputAmpCfg, Scenario,
+    StageKind, ToleranceDistribution, Waveform, WindowKind,
 };
 
 /// The whole report of a run. Field names are part of the interface: later tools rely on them.
@@ -97,31 +97,45 @@ pub fn chain_json(sc: &Scenario) -> Value {
             frequency_hz,
             amplitude_v,
             phase_rad,
-        } => json!({"waveform": "sine", "frequency_hz": frequency_hz, "amplitude_v": amplitude_v, "phase_rad": phase_rad}),
+        } => {
+            json!({"waveform": "sine", "frequency_hz": frequency_hz, "amplitude_v": amplitude_v, "phase_rad": phase_rad})
+        }
         Waveform::Square {
             frequency_hz,
             amplitude_v,
             duty,
-        } => json!({"waveform": "square", "frequency_hz": frequency_hz, "amplitude_v": amplitude_v, "duty": duty}),
+        } => {
+            json!({"waveform": "square", "frequency_hz": frequency_hz, "amplitude_v": amplitude_v, "duty": duty})
+        }
         Waveform::Triangle {
             frequency_hz,
             amplitude_v,
-        } => json!({"waveform": "triangle", "frequency_hz": frequency_hz, "amplitude_v": amplitude_v}),
+        } => {
+            json!({"waveform": "triangle", "frequency_hz": frequency_hz, "amplitude_v": amplitude_v})
+        }
         Waveform::Sawtooth {
             frequency_hz,
             amplitude_v,
-        } => json!({"waveform": "sawtooth", "frequency_hz": frequency_hz, "amplitude_v": amplitude_v}),
-        Waveform::Multitone { tones } => json!({"waveform": "multitone", "tones": tones.iter().map(|t| json!({
-            "frequency_hz": t.frequency_hz, "amplitude_v": t.amplitude_v, "phase_rad": t.phase_rad})).collect::<Vec<_>>()}),
+        } => {
+            json!({"waveform": "sawtooth", "frequency_hz": frequency_hz, "amplitude_v": amplitude_v})
+        }
+        Waveform::Multitone { tones } => {
+            json!({"waveform": "multitone", "tones": tones.iter().map(|t| json!({
+            "frequency_hz": t.frequency_hz, "amplitude_v": t.amplitude_v, "phase_rad": t.phase_rad})).collect::<Vec<_>>()})
+        }
         Waveform::Chirp {
             start_hz,
             stop_hz,
             sweep_s,
             law,
             amplitude_v,
-        } => json!({"waveform": "chirp", "start_hz": start_hz, "stop_hz": stop_hz, "sweep_s": sweep_s,
-            "law": match law { ChirpLaw::Linear => "linear", ChirpLaw::Logarithmic => "log" }, "amplitude_v": amplitude_v}),
-        Waveform::Step { at_s, amplitude_v } => json!({"waveform": "step", "at_s": at_s, "amplitude_v": amplitude_v}),
+        } => {
+            json!({"waveform": "chirp", "start_hz": start_hz, "stop_hz": stop_hz, "sweep_s": sweep_s,
+            "law": match law { ChirpLaw::Linear => "linear", ChirpLaw::Logarithmic => "log" }, "amplitude_v": amplitude_v})
+        }
+        Waveform::Step { at_s, amplitude_v } => {
+            json!({"waveform": "step", "at_s": at_s, "amplitude_v": amplitude_v})
+        }
         Waveform::Dc => json!({"waveform": "dc"}),
         Waveform::Noise {
             rms_v,

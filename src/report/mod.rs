@@ -60,9 +60,11 @@ impl OutputDir {
         })?;
         let marker = path.join(MARKER);
         if !marker.exists() {
-            fs::write(&marker, b"This folder was written by convchain.\n").map_err(|e| Error::Write {
-                path: marker.clone(),
-                source: e,
+            fs::write(&marker, b"This folder was written by convchain.\n").map_err(|e| {
+                Error::Write {
+                    path: marker.clone(),
+                    source: e,
+                }
             })?;
         }
         Ok(OutputDir {

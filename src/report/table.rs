@@ -7,26 +7,28 @@ use crate::report::json::Report;
 use crate::runner::StaticReport;
 
 fn db(x: Option<f64>) -> String {
-    x.map(|v| format!("{v:.2} dB")).unwrap_or_else(|| "-".into())
+    x.map(|v| format!("{v:.2} dB"))
+        .unwrap_or_else(|| "-".into())
 }
 fn bits(x: Option<f64>) -> String {
-    x.map(|v| format!("{v:.2} bits")).unwrap_or_else(|| "-".into())
+    x.map(|v| format!("{v:.2} bits"))
+        .unwrap_or_else(|| "-".into())
 }
 
 /// The summary printed by `convchain run`.
 pub fn summary(r: &Report) -> String {
     let mut s = String::new();
     let _ = writeln!(s, "{}  ({})", r.scenario.name, r.scenario.origin);
-    if let (Some(req), Some(used)) = (r.run.requested_frequency_hz, r.run.frequency_hz) {
-        if (req - used).abs() > 0.0 {
-            let _ = writeln!(
-                s,
-                "  source moved from {} to {} for coherent sampling ({} cycles)",
-                si(req, "Hz"),
-                si(used, "Hz"),
-                r.run.coherent_cycles.unwrap_or(0)
-            );
-        }
+    if let (Some(req), Some(used)) = (r.run.requested_frequency_hz, r.run.frequency_hz)
+        && (req - used).abs() > 0.0
+    {
+        let _ = writeln!(
+            s,
+            "  source moved from {} to {} for coherent sampling ({} cycles)",
+            si(req, "Hz"),
+            si(used, "Hz"),
+            r.run.coherent_cycles.unwrap_or(0)
+        );
     }
     let _ = writeln!(s);
     let _ = writeln!(s, "  {:<14}{:>14}{:>14}", "", "ADC codes", "analog output");
@@ -36,8 +38,18 @@ pub fn summary(r: &Report) -> String {
         let _ = writeln!(s, "  {name:<14}{x:>14}{y:>14}");
     };
     row(&mut s, "SNR", db(a.and_then(|a| a.snr_db)), db(o.snr_db));
-    row(&mut s, "SINAD", db(a.and_then(|a| a.sinad_db)), db(o.sinad_db));
-    row(&mut s, "ENOB", bits(a.and_then(|a| a.enob_bits)), bits(o.enob_bits));
+    row(
+        &mut s,
+        "SINAD",
+        db(a.and_then(|a| a.sinad_db)),
+        db(o.sinad_db),
+    );
+    row(
+        &mut s,
+        "ENOB",
+        bits(a.and_then(|a| a.enob_bits)),
+        bits(o.enob_bits),
+    );
     row(
         &mut s,
         "ENOB (fit)",
@@ -51,7 +63,9 @@ pub fn summary(r: &Report) -> String {
         a.and_then(|a| a.sfdr_dbc)
             .map(|v| format!("{v:.2} dBc"))
             .unwrap_or("-".into()),
-        o.sfdr_dbc.map(|v| format!("{v:.2} dBc")).unwrap_or("-".into()),
+        o.sfdr_dbc
+            .map(|v| format!("{v:.2} dBc"))
+            .unwrap_or("-".into()),
     );
     row(&mut s, "gain", "".into(), db(o.gain_db));
     row(
@@ -80,16 +94,30 @@ pub fn summary(r: &Report) -> String {
         let _ = writeln!(s, "    {:<52}{:>14}", b.stage, si(b.seconds, "s"));
     }
     let _ = writeln!(s, "    {:<52}{:>14}", "total (budget)", si(l.budget_s, "s"));
-    let _ = writeln!(s, "    {:<52}{:>14}", "measured (cross-correlation)", si(l.measured_s, "s"));
+    let _ = writeln!(
+        s,
+        "    {:<52}{:>14}",
+        "measured (cross-correlation)",
+        si(l.measured_s, "s")
+    );
     if let Some(p) = l.phase_delay_s {
-        let _ = writeln!(s, "    {:<52}{:>14}", "phase delay at the fundamental", si(p, "s"));
+        let _ = writeln!(
+            s,
+            "    {:<52}{:>14}",
+            "phase delay at the fundamental",
+            si(p, "s")
+        );
     }
     let _ = writeln!(
         s,
         "    {:<52}{:>14}{}",
         "measured - budget",
         si(l.difference_s, "s"),
-        if l.flagged { "  <- large: check the model" } else { "" }
+        if l.flagged {
+            "  <- large: check the model"
+        } else {
+            ""
+        }
     );
     for w in &r.scenario.warnings {
         let _ = writeln!(s, "  warning: {w}");
