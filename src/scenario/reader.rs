@@ -354,8 +354,28 @@ impl<'a, 'm> TableReader<'a, 'm> {
         self.map.error(span, &self.path_of(key), message)
     }
 
-    /// An error at the table about a missing key.
+    /// An error at the table about a missing key. When the table holds an unread key that looks like a
+    /// misspelling of it (`bitz` for `bits`), that key is named instead, at its own position.
     pub fn missing(&self, key: &str, what: &str) -> ScenarioError {
+        let typo = self
+            .table
+            .entries
+            .iter()
+            .zip(&self.used)
+            .filter(|(e, used)| !**used && e.key != key)
+            .map(|(e, _)| (edit_distance(&e.key, key), e))
+            .filter(|(d, e)| *d <= 2 && *d < e.key.len().max(key.len()))
+            .min_by_key(|(d, _)| *d);
+        if let Some((_, e)) = typo {
+            return self
+                .map
+                .error(
+                    &e.key_span,
+                    &self.path_of(&e.key),
+                    format!("unknown key `{}`", e.key),
+                )
+                .with_hint(format!("did you mean `{key}`? (`{key}` is required here)"));
+        }
         let table = if self.path.is_empty() {
             "the top level".to_string()
         } else {

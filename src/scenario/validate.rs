@@ -1295,6 +1295,23 @@ clock = "2 MHz"
     }
 
     #[test]
+    fn a_misspelt_required_key_is_named_rather_than_reported_missing() {
+        let text = format!(
+            "{HEAD}\n[[stage]]\nkind = \"sar_adc\"\nbitz = 12\nrange = [\"0 V\", \"5 V\"]\nclock = \"1 MHz\"\n\n[[stage]]\nkind = \"dac\"\n"
+        );
+        let e = err(&text);
+        assert_eq!(e.key_path, "stage.1.bitz");
+        assert_eq!((e.line, e.column), (line_of(&text, "bitz"), 1));
+        assert_eq!(e.message, "unknown key `bitz`");
+        assert!(
+            e.hint
+                .as_deref()
+                .unwrap_or("")
+                .contains("did you mean `bits`")
+        );
+    }
+
+    #[test]
     fn a_key_of_another_waveform_is_named_as_not_applying() {
         let text = format!("{HEAD}duty = 0.3\n");
         let e = err(&text);
