@@ -70,7 +70,7 @@ pub fn formant_sweep(rate_hz: u32, seconds: f64) -> Vec<f64> {
         [730.0, 1090.0, 2440.0], // a
     ];
     const BANDWIDTHS_HZ: [f64; 3] = [80.0, 90.0, 120.0];
-    const LEVELS: [f64; 3] = [1.0, 0.6, 0.35];
+    const LEVELS: [f64; 3] = [1.0, 1.0, 0.8];
     let mut state = [[0.0f64; 2]; 3]; // y[n-1], y[n-2] per resonator
     let (mut x1, mut x2) = (0.0f64, 0.0f64); // source x[n-1], x[n-2]
     let mut phase = 0.0f64;
@@ -202,7 +202,11 @@ fn sample_count(rate_hz: u32, seconds: f64) -> usize {
 /// Raised-cosine fade in over `attack_s` and out over `release_s` at the ends of a `total_s` signal.
 fn fade(t: f64, total_s: f64, attack_s: f64, release_s: f64) -> f64 {
     let ramp = |u: f64| 0.5 - 0.5 * (PI * u.clamp(0.0, 1.0)).cos();
-    let a = if attack_s > 0.0 { ramp(t / attack_s) } else { 1.0 };
+    let a = if attack_s > 0.0 {
+        ramp(t / attack_s)
+    } else {
+        1.0
+    };
     let r = if release_s > 0.0 {
         ramp((total_s - t) / release_s)
     } else {
@@ -218,5 +222,189 @@ fn normalise_peak(x: &mut [f64], target: f64) {
         for v in x {
             *v *= g;
         }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use rustfft::{FftPlanner, num_complex::Complex};
+
+    fn peak_dbfs(x: &[f64]) -> f64 {
+        20.0 * x.iter().fold(0.0f64, |m, v| m.max(v.abs())).log10()
+    }
+
+    /// Power spectrum (|X_k|^2, k = 0..n/2) of a Hann-windowed slice.
+    fn power_spectrum(x: &[f64]) -> Vec<f64> {
+        let n = x.len();
+        let mut buf: Vec<Complex<f64>> = x
+            .iter()
+            .enumerate()
+            .map(|(i, v)| {
+                let w = 0.5 - 0.5 * (2.0 * PI * i as f64 / n as f64).cos();
+                Complex::new(v * w, 0.0)
+            })
+            .collect();
+        FftPlanner::new().plan_fft_forward(n).process(&mut buf);
+        buf[..=n / 2].iter().map(|c| c.norm_sqr()).collect()
+    }
+
+    fn band_power(spec: &[f64], bin_hz: f64, lo_hz: f64, hi_hz: f64) -> f64 {
+        spec.iter()
+            .enumerate()
+            .filter(|(k, _)| (lo_hz..hi_hz).contains(&(*k as f64 * bin_hz)))
+            .map(|(_, p)| p)
+            .sum()
+    }
+
+    #[test]
+    fn chord_has_the_right_length_peak_and_notes() {
+        let x = chord(48_000, 2.0);
+        assert_eq!(x.len(), 96_000);
+        // -6 dBFS target: a demo level that leaves headroom, common practice, no source.
+        assert!((peak_dbfs(&x) + 6.02).abs() < 0.05, "{}", peak_dbfs(&x));
+        // Slow attack and release: silent at the ends.
+        assert!(x[0].abs() < 1e-3 && x[x.len() - 1].abs() < 1e-3);
+        // Spectrum: A3, C#4 and E4 (equal temperament, A4 = 440 Hz) stand out; B3 (246.9 Hz) does not.
+        let seg = &x[24_000..24_000 + 32_768];
+        let spec = power_spectrum(seg);
+        let bin_hz = 48_000.0 / 32_768.0;
+        let total = band_power(&spec, bin_hz, 0.0, 24_000.0);
+        for f in [220.0, 277.18, 329.63] {
+            let p = band_power(&spec, bin_hz, f - 4.0, f + 4.0);
+            assert!(p > 0.15 * total, "{f} Hz holds {} of the power", p / total);
+        }
+        assert!(band_power(&spec, bin_hz, 242.0, 252.0) < 1e-4 * total);
+        assert!(chord(48_000, 0.0).is_empty());
+    }
+
+    #[test]
+    fn formant_sweep_is_band_limited_voiced_at_120_hz_and_glides_between_vowels() {
+        let fs = 16_000.0;
+        let seconds = 3.0;
+        let x = formant_sweep(16_000, seconds);
+        assert_eq!(x.len(), 48_000);
+        assert!((peak_dbfs(&x) + 6.02).abs() < 0.05, "{}", peak_dbfs(&x));
+        let n = 4096;
+        let bin_hz = fs / n as f64;
+        // /i/ at one third (F2 ~ 2.3 kHz), /u/ at two thirds (F2 ~ 0.87 kHz).
+        let at = |t: f64| {
+            let c = (t * fs) as usize - n / 2;
+            power_spectrum(&x[c..c + n])
+        };
+        let (spec_i, spec_u) = (at(seconds / 3.0), at(2.0 * seconds / 3.0));
+        let spec_a = at(0.15);
+        let share = |s: &[f64], lo: f64, hi: f64| {
+            band_power(s, bin_hz, lo, hi) / band_power(s, bin_hz, 0.0, 8000.0)
+        };
+        // F1: /a/ ~730 Hz, /i/ ~270 Hz.
+        assert!(
+            share(&spec_a, 600.0, 850.0) > 10.0 * share(&spec_i, 600.0, 850.0),
+            "F1 band: /a/ {} vs /i/ {}",
+            share(&spec_a, 600.0, 850.0),
+            share(&spec_i, 600.0, 850.0)
+        );
+        // F2: /u/ ~870 Hz, /i/ ~2290 Hz.
+        assert!(
+            share(&spec_u, 800.0, 1000.0) > 10.0 * share(&spec_i, 800.0, 1000.0),
+            "F2 band: /u/ {} vs /i/ {}",
+            share(&spec_u, 800.0, 1000.0),
+            share(&spec_i, 800.0, 1000.0)
+        );
+        assert!(share(&spec_i, 2150.0, 2450.0) > 3.0 * share(&spec_i, 1200.0, 2000.0));
+        // Voiced at ~120 Hz: most of the power below 1.2 kHz sits on its harmonics.
+        for spec in [&spec_i, &spec_u] {
+            let on_harmonics: f64 = (1..10)
+                .map(|k| {
+                    band_power(
+                        spec,
+                        bin_hz,
+                        120.0 * k as f64 - 12.0,
+                        120.0 * k as f64 + 12.0,
+                    )
+                })
+                .sum();
+            assert!(on_harmonics > 0.9 * band_power(spec, bin_hz, 0.0, 1150.0));
+        }
+        // Band-limited source: nothing near Nyquist (harmonics stop below 0.45 fs).
+        let whole = power_spectrum(&x[..32_768]);
+        let wb = fs / 32_768.0;
+        assert!(
+            band_power(&whole, wb, 0.47 * fs, 0.5 * fs)
+                < 1e-8 * band_power(&whole, wb, 0.0, 0.5 * fs)
+        );
+    }
+
+    #[test]
+    fn written_files_read_back_with_the_right_format_channels_and_values() {
+        let dir = tempfile::tempdir().unwrap();
+        let x = chord(44_100, 0.25);
+        for (bits, float, channels) in [
+            (16, false, 1),
+            (24, false, 2),
+            (32, true, 2),
+            (16, false, 2),
+        ] {
+            let path = dir
+                .path()
+                .join(format!("demo_{bits}_{float}_{channels}.wav"));
+            write_file(&path, &x, 44_100, bits, float, channels).unwrap();
+            let mut reader = hound::WavReader::open(&path).unwrap();
+            let spec = reader.spec();
+            assert_eq!(spec.sample_rate, 44_100);
+            assert_eq!(spec.bits_per_sample, bits);
+            assert_eq!(spec.channels, channels);
+            assert_eq!(
+                spec.sample_format,
+                if float {
+                    hound::SampleFormat::Float
+                } else {
+                    hound::SampleFormat::Int
+                }
+            );
+            assert_eq!(reader.duration() as usize, x.len());
+            let values: Vec<f64> = if float {
+                reader
+                    .samples::<f32>()
+                    .map(|s| f64::from(s.unwrap()))
+                    .collect()
+            } else {
+                let full = 2f64.powi(i32::from(bits) - 1);
+                reader
+                    .samples::<i32>()
+                    .map(|s| f64::from(s.unwrap()) / full)
+                    .collect()
+            };
+            assert_eq!(values.len(), x.len() * channels as usize);
+            let lsb = if float {
+                1e-7
+            } else {
+                2f64.powi(1 - i32::from(bits))
+            };
+            for (i, frame) in values.chunks(channels as usize).enumerate() {
+                assert!((frame[0] - x[i]).abs() <= lsb);
+                if channels == 2 {
+                    assert!(
+                        (frame[1] + x[i]).abs() <= lsb,
+                        "channel 1 is the inverted signal"
+                    );
+                }
+            }
+        }
+    }
+
+    #[test]
+    fn write_file_refuses_unsupported_formats_and_reports_unwritable_paths() {
+        let dir = tempfile::tempdir().unwrap();
+        let p = dir.path().join("x.wav");
+        assert!(write_file(&p, &[0.0], 48_000, 20, false, 1).is_err());
+        assert!(write_file(&p, &[0.0], 48_000, 24, true, 1).is_err());
+        assert!(write_file(&p, &[0.0], 48_000, 16, false, 3).is_err());
+        assert!(write_file(&p, &[f64::NAN], 48_000, 16, false, 1).is_err());
+        let missing = dir.path().join("no_such_dir").join("x.wav");
+        assert!(matches!(
+            write_file(&missing, &[0.0], 48_000, 16, false, 1),
+            Err(Error::Write { .. })
+        ));
     }
 }

@@ -126,18 +126,19 @@ impl Kernel {
         let last = (u + self.half_length_in_samples)
             .floor()
             .min((x.len() - 1) as f64);
-        if !(first <= last) {
+        if first > last {
             return 0.0;
         }
+        let first = first as usize;
         let scale = self.rho * TABLE_POINTS_PER_ZERO;
         let mut acc = 0.0;
-        for k in first as usize..=last as usize {
-            let pos = (u - k as f64).abs() * scale;
+        for (j, xk) in x[first..=last as usize].iter().enumerate() {
+            let pos = (u - (first + j) as f64).abs() * scale;
             let i = pos as usize;
             let frac = pos - i as f64;
             let a = self.table[i];
             let b = self.table[i + 1];
-            acc += x[k] * (a + frac * (b - a));
+            acc += xk * (a + frac * (b - a));
         }
         acc * self.rho
     }
@@ -145,14 +146,12 @@ impl Kernel {
     /// y[m] = band-limited x at input position u0 + m * step, for m in 0..y.len(), spread over threads.
     fn eval_grid(&self, x: &[f64], u0: f64, step: f64, y: &mut [f64]) {
         const CHUNK: usize = 1024;
-        y.par_chunks_mut(CHUNK)
-            .enumerate()
-            .for_each(|(c, chunk)| {
-                for (j, out) in chunk.iter_mut().enumerate() {
-                    let m = c * CHUNK + j;
-                    *out = self.eval(x, u0 + m as f64 * step);
-                }
-            });
+        y.par_chunks_mut(CHUNK).enumerate().for_each(|(c, chunk)| {
+            for (j, out) in chunk.iter_mut().enumerate() {
+                let m = c * CHUNK + j;
+                *out = self.eval(x, u0 + m as f64 * step);
+            }
+        });
     }
 }
 
@@ -344,11 +343,7 @@ pub fn listening_set(
             opts.listen_gain
         )));
     }
-    if let Some(i) = input_v
-        .iter()
-        .chain(output_v)
-        .position(|v| !v.is_finite())
-    {
+    if let Some(i) = input_v.iter().chain(output_v).position(|v| !v.is_finite()) {
         return Err(Error::Run(format!(
             "listening files: record sample {i} is not a finite number"
         )));
@@ -359,7 +354,8 @@ pub fn listening_set(
     let delay_in_samples = delay_s * rate_hz_in;
     // Positions in input samples along the output record's time axis.
     let start = 0.0f64.max(delay_in_samples) + margin;
-    let end = (output_v.len() as f64 - 1.0).min(delay_in_samples + input_v.len() as f64 - 1.0) - margin;
+    let end =
+        (output_v.len() as f64 - 1.0).min(delay_in_samples + input_v.len() as f64 - 1.0) - margin;
     if input_v.is_empty() || output_v.is_empty() || end < start {
         let need_s = (2.0 * margin + 1.0) / rate_hz_in + delay_s.abs();
         return Err(Error::BadInput(format!(
@@ -471,6 +467,7 @@ mod tests {
 
     /// Three-parameter sine fit at a known frequency (linear least squares on A cos + B sin + C):
     /// returns (amplitude, phase of A sin(w t + phase)).
+    #[allow(clippy::needless_range_loop)]
     fn sine_fit(y: &[f64], t0_s: f64, rate_hz: f64, f_hz: f64) -> (f64, f64) {
         let mut m = [[0.0f64; 3]; 3];
         let mut r = [0.0f64; 3];
@@ -567,7 +564,8 @@ mod tests {
         let expect_len = ((n_in - 1) as f64 * out_rate_hz / in_rate_hz + 1e-9).floor() as usize + 1;
         assert_eq!(y.len(), expect_len);
         // Leave out the edges, where the kernel reaches past the record.
-        let skip = (HALF_LENGTH_LOW_RATE_SAMPLES * (out_rate_hz / in_rate_hz).max(1.0)) as usize + 8;
+        let skip =
+            (HALF_LENGTH_LOW_RATE_SAMPLES * (out_rate_hz / in_rate_hz).max(1.0)) as usize + 8;
         let inner = &y[skip..y.len() - skip];
         let (a, p) = sine_fit(inner, skip as f64 / out_rate_hz, out_rate_hz, f_hz);
         let amp_err_db = 20.0 * (a / amp).log10();
@@ -659,7 +657,8 @@ mod tests {
         let rate_hz = 333_333.33;
         let n = 40_000;
         let delay_s = 12.37 / rate_hz;
-        let signal = |t: f64| (2.0 * PI * 1000.0 * t).sin() + 0.3 * (2.0 * PI * 7010.0 * t + 1.0).sin();
+        let signal =
+            |t: f64| (2.0 * PI * 1000.0 * t).sin() + 0.3 * (2.0 * PI * 7010.0 * t + 1.0).sin();
         let input: Vec<f64> = (0..n).map(|i| signal(i as f64 / rate_hz)).collect();
         let output: Vec<f64> = (0..n)
             .map(|i| 0.5 + 2.0 * signal(i as f64 / rate_hz - delay_s))
@@ -685,8 +684,16 @@ mod tests {
             .fold(0.0f64, |m, (i, o)| m.max((2.0 * i - o).abs()));
         assert!(mismatch < 1e-5, "{mismatch}");
         // One input sample of delay error leaves a clearly audible error.
-        let wrong =
-            listening_set(&input, &output, rate_hz, delay_s + 1.0 / rate_hz, 2.0, 0.5, &opts).unwrap();
+        let wrong = listening_set(
+            &input,
+            &output,
+            rate_hz,
+            delay_s + 1.0 / rate_hz,
+            2.0,
+            0.5,
+            &opts,
+        )
+        .unwrap();
         assert!(wrong.error_rms_v > 1e-3 * out_rms_v);
     }
 
@@ -762,7 +769,8 @@ mod tests {
             let q = 2.0 / 2f64.powi(bits);
             let input = sine(24_000, fs, 997.0, 0.9, 0.0);
             let output: Vec<f64> = input.iter().map(|&x| floor_quantize(x, q)).collect();
-            let set = listening_set(&input, &output, fs, 0.0, 1.0, 0.0, &WavOptions::default()).unwrap();
+            let set =
+                listening_set(&input, &output, fs, 0.0, 1.0, 0.0, &WavOptions::default()).unwrap();
             let (_, e) = decode(&set.error);
             let e_rms_v = rms(&e) * set.full_scale_v / set.error_gain_used;
             let bennett_v = q / 12f64.sqrt();
@@ -808,15 +816,24 @@ mod tests {
                         held[k * os] = 0.5 * (codes[k - 1] + codes[k]);
                     }
                 }
-                let set = listening_set(&input, &held, fine_rate, 0.5 / fs, 1.0, 0.0, &WavOptions::default())
-                    .unwrap();
+                let set = listening_set(
+                    &input,
+                    &held,
+                    fine_rate,
+                    0.5 / fs,
+                    1.0,
+                    0.0,
+                    &WavOptions::default(),
+                )
+                .unwrap();
                 let (_, e) = decode(&set.error);
                 let e_rms_v = rms(&e) * set.full_scale_v / set.error_gain_used;
 
                 // g^2 from the sampled error's spectrum (mean removed).
                 let err: Vec<f64> = codes.iter().zip(&samples).map(|(c, x)| c - x).collect();
                 let m = mean(&err);
-                let mut buf: Vec<Complex<f64>> = err.iter().map(|v| Complex::new(v - m, 0.0)).collect();
+                let mut buf: Vec<Complex<f64>> =
+                    err.iter().map(|v| Complex::new(v - m, 0.0)).collect();
                 FftPlanner::new().plan_fft_forward(n).process(&mut buf);
                 let (mut total, mut passed) = (0.0, 0.0);
                 for (k, c) in buf.iter().enumerate() {
@@ -900,7 +917,10 @@ mod tests {
             // "Quantization and dither: a theoretical survey", J. Audio Eng. Soc. 40(5), 1992 (from memory
             // for the exact figures). Tolerance: the estimate over 47 872 samples has ~0.7 % spread.
             let ratio = p / (3.0 * q * q / 12.0);
-            assert!((ratio - 1.0).abs() < 0.04, "TPDF, {name}: power {ratio} x 3q^2/12");
+            assert!(
+                (ratio - 1.0).abs() < 0.04,
+                "TPDF, {name}: power {ratio} x 3q^2/12"
+            );
 
             let y0: Vec<f64> = x.iter().map(|&v| round_quantize(v, q)).collect();
             undithered.push((name, error_file_power(&x, &y0, fs), x));
@@ -915,7 +935,8 @@ mod tests {
         let (_, p_large, _) = &undithered[2];
         assert!((p_large / (q * q / 12.0) - 1.0).abs() < 0.05, "{p_large}");
         let powers: Vec<f64> = undithered.iter().map(|u| u.1).collect();
-        let spread = powers.iter().cloned().fold(0.0, f64::max) / powers.iter().cloned().fold(f64::MAX, f64::min);
+        let spread = powers.iter().cloned().fold(0.0, f64::max)
+            / powers.iter().cloned().fold(f64::MAX, f64::min);
         assert!(spread > 1.5, "undithered powers {powers:?}");
     }
 
@@ -948,8 +969,14 @@ mod tests {
             assert!(mean_t.abs() < 0.006 * q, "TPDF mean at x = {x}: {mean_t}");
             let xf = x - x.round();
             let rpdf_power = xf.abs() * (q - xf.abs());
-            assert!((pow_r - rpdf_power).abs() < 0.01 * q * q, "RPDF power at x = {x}: {pow_r}");
-            assert!((pow_t / (q * q / 4.0) - 1.0).abs() < 0.02, "TPDF power at x = {x}: {pow_t}");
+            assert!(
+                (pow_r - rpdf_power).abs() < 0.01 * q * q,
+                "RPDF power at x = {x}: {pow_r}"
+            );
+            assert!(
+                (pow_t / (q * q / 4.0) - 1.0).abs() < 0.02,
+                "TPDF power at x = {x}: {pow_t}"
+            );
             // Undithered, the error is the fixed offset to the nearest level: its mean follows the signal.
             let e0 = round_quantize(x, q) - x;
             assert!((e0 + xf).abs() < 1e-12);
@@ -968,7 +995,11 @@ mod tests {
                 .collect();
             powers.push(error_file_power(&x, &y, fs) / (qv * qv / 6.0));
         }
-        assert!((powers[1] - 1.0).abs() < 0.04, "large sine, RPDF: {} x q^2/6", powers[1]);
+        assert!(
+            (powers[1] - 1.0).abs() < 0.04,
+            "large sine, RPDF: {} x q^2/6",
+            powers[1]
+        );
         assert!(powers[0] < 0.5, "0.1 LSB sine, RPDF: {} x q^2/6", powers[0]);
     }
 }
