@@ -1,9 +1,12 @@
-//! Report writers: JSON, CSV, text tables, plots (PNG and SVG), and the output folder they go into.
+//! Report writers: JSON, CSV, text tables, plots (PNG and SVG), WAV listening files and generated demo audio,
+//! and the output folder they go into.
 
 pub mod csv;
+pub mod demo_audio;
 pub mod json;
 pub mod plot;
 pub mod table;
+pub mod wav;
 
 use std::fs;
 use std::io::Write;

@@ -1,0 +1,1005 @@
+//! Listening files: band-limited resampling of simulated records to an audio rate and WAV encoding of the
+//! input, the output and the error (what the chain added), so a person can hear a converter chain.
+//!
+//! # Resampling
+//! [`resample`] evaluates a Kaiser-windowed sinc kernel directly at each output instant (no polyphase
+//! bank, no block processing). Because the kernel is symmetric and centred on the exact output instant, the
+//! output is time-aligned with the input by construction (zero delay, nothing to compensate), any real rate
+//! ratio is handled exactly (333333.33 Hz -> 48 kHz needs no rational approximation), and the same routine
+//! applies a band-limited fractional delay for free (see [`listening_set`]). The resampler in the `rubato`
+//! crate was considered: its sinc resampler works in fixed chunks and reports its delay in whole output
+//! frames, so sub-sample time alignment would need extra work on top of it, and its cut-off is chosen for
+//! it; the direct form here is short, deterministic and easy to test. Its cost is
+//! O(output length x kernel length), about 128 x (in_rate / out_rate) multiply-adds per output sample when
+//! decimating, which is fine for listening files (seconds of audio); the work is spread over threads.
+//!
+//! Kernel design (Kaiser's window formulas, e.g. Oppenheim and Schafer, "Discrete-Time Signal Processing",
+//! section 7.5): with r the lower of the two rates, the cut-off (-6 dB) is at 0.475 r, the pass band
+//! reaches 0.45 r and the stop band starts at 0.5 r (the output Nyquist frequency when decimating, the
+//! input Nyquist frequency when interpolating), attenuation about 100 dB, half-length 64 samples at rate r.
+//! When the two rates are equal nothing has to be removed, so the cut-off is placed at exactly half the rate:
+//! the kernel then has its zeros on the sample grid and whole-sample shifts are exact.
+//!
+//! Samples outside the record are taken as zero, so the first and last ~64 output samples (at rate r) of
+//! [`resample`] show the record's edges; [`listening_set`] trims them.
+
+use std::io::Cursor;
+
+use rayon::prelude::*;
+
+use crate::Error;
+
+/// Sample format of a written WAV file.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum WavFormat {
+    /// 24-bit signed integer PCM; +1.0 full scale is 2^23 (clamped to 2^23 - 1).
+    Int24,
+    /// 32-bit IEEE float; full scale is +-1.0.
+    Float32,
+}
+
+/// Options for the listening files.
+#[derive(Debug, Clone, PartialEq)]
+pub struct WavOptions {
+    /// Sample rate of the written files (Hz); default 48000.
+    pub rate_hz: u32,
+    /// Sample format; default 24-bit integer.
+    pub format: WavFormat,
+    /// Gain applied to the error file relative to the shared volts-to-full-scale mapping (linear, not dB);
+    /// default 1. Lowered automatically if the error file would clip.
+    pub listen_gain: f64,
+}
+
+impl Default for WavOptions {
+    fn default() -> Self {
+        WavOptions {
+            rate_hz: 48_000,
+            format: WavFormat::Int24,
+            listen_gain: 1.0,
+        }
+    }
+}
+
+/// Kernel half-length in samples of the lower of the two rates.
+const HALF_LENGTH_LOW_RATE_SAMPLES: f64 = 64.0;
+/// Kaiser window shape parameter: about 100 dB stop-band attenuation (Kaiser's formula beta = 0.1102 (A - 8.7)).
+const KAISER_BETA: f64 = 10.0;
+/// Cut-off (-6 dB point) as a fraction of the lower rate when the rates differ. With the Kaiser transition
+/// width (A - 8) / (2.285 x 2 pi x length) ~= 0.05 r, the stop band starts at 0.5 r.
+const CUTOFF_FRACTION_OF_LOW_RATE: f64 = 0.475;
+/// Kernel table resolution: points per zero crossing of the sinc (linear interpolation between them;
+/// error about (pi / 2048)^2 / 8, i.e. below -115 dB of the kernel's peak).
+const TABLE_POINTS_PER_ZERO: f64 = 2048.0;
+/// Peak of the error file after the gain cap, as a fraction of digital full scale (the same 1/1.05
+/// headroom the input and output files get).
+const ERROR_PEAK_CAP: f64 = 1.0 / 1.05;
+/// Headroom factor between the larger signal peak and the chosen full scale.
+const FULL_SCALE_HEADROOM: f64 = 1.05;
+
+/// A tabulated windowed-sinc low-pass kernel for one pair of rates, in units of input samples.
+struct Kernel {
+    /// K(z) = sinc(z) * kaiser(z / z_half) for z = i / TABLE_POINTS_PER_ZERO, with trailing zeros.
+    table: Vec<f64>,
+    /// Cut-off as a fraction of the input rate, times two: the sinc's zero crossings are 1/rho input samples apart.
+    rho: f64,
+    /// Half-length in input samples.
+    half_length_in_samples: f64,
+}
+
+impl Kernel {
+    fn new(in_rate_hz: f64, out_rate_hz: f64) -> Kernel {
+        let low_rate_hz = in_rate_hz.min(out_rate_hz);
+        let cutoff_hz = if in_rate_hz == out_rate_hz {
+            0.5 * in_rate_hz
+        } else {
+            CUTOFF_FRACTION_OF_LOW_RATE * low_rate_hz
+        };
+        let rho = 2.0 * cutoff_hz / in_rate_hz;
+        let half_length_in_samples = HALF_LENGTH_LOW_RATE_SAMPLES * in_rate_hz / low_rate_hz;
+        let z_half = rho * half_length_in_samples;
+        let n = (z_half * TABLE_POINTS_PER_ZERO).ceil() as usize;
+        let i0_beta = bessel_i0(KAISER_BETA);
+        let mut table = Vec::with_capacity(n + 3);
+        for i in 0..=n + 2 {
+            let z = i as f64 / TABLE_POINTS_PER_ZERO;
+            let v = z / z_half;
+            table.push(if v > 1.0 {
+                0.0
+            } else {
+                sinc(z) * bessel_i0(KAISER_BETA * (1.0 - v * v).sqrt()) / i0_beta
+            });
+        }
+        Kernel {
+            table,
+            rho,
+            half_length_in_samples,
+        }
+    }
+
+    /// The band-limited value of `x` at position `u` (in input samples; sample k sits at u = k).
+    /// Samples outside the record count as zero.
+    fn eval(&self, x: &[f64], u: f64) -> f64 {
+        if x.is_empty() {
+            return 0.0;
+        }
+        let first = (u - self.half_length_in_samples).ceil().max(0.0);
+        let last = (u + self.half_length_in_samples)
+            .floor()
+            .min((x.len() - 1) as f64);
+        if first > last {
+            return 0.0;
+        }
+        let first = first as usize;
+        let scale = self.rho * TABLE_POINTS_PER_ZERO;
+        let mut acc = 0.0;
+        for (j, xk) in x[first..=last as usize].iter().enumerate() {
+            let pos = (u - (first + j) as f64).abs() * scale;
+            let i = pos as usize;
+            let frac = pos - i as f64;
+            let a = self.table[i];
+            let b = self.table[i + 1];
+            acc += xk * (a + frac * (b - a));
+        }
+        acc * self.rho
+    }
+
+    /// y[m] = band-limited x at input position u0 + m * step, for m in 0..y.len(), spread over threads.
+    fn eval_grid(&self, x: &[f64], u0: f64, step: f64, y: &mut [f64]) {
+        const CHUNK: usize = 1024;
+        y.par_chunks_mut(CHUNK).enumerate().for_each(|(c, chunk)| {
+            for (j, out) in chunk.iter_mut().enumerate() {
+                let m = c * CHUNK + j;
+                *out = self.eval(x, u0 + m as f64 * step);
+            }
+        });
+    }
+}
+
+fn sinc(z: f64) -> f64 {
+    if z == 0.0 {
+        1.0
+    } else {
+        let a = std::f64::consts::PI * z;
+        a.sin() / a
+    }
+}
+
+/// Modified Bessel function of the first kind, order zero (power series; ample for arguments up to ~30).
+fn bessel_i0(x: f64) -> f64 {
+    let h = 0.25 * x * x;
+    let mut term = 1.0;
+    let mut sum = 1.0;
+    let mut k = 1.0;
+    while term > 1e-17 * sum {
+        term *= h / (k * k);
+        sum += term;
+        k += 1.0;
+    }
+    sum
+}
+
+fn check_rate(name: &str, rate_hz: f64) -> Result<(), Error> {
+    if rate_hz.is_finite() && rate_hz > 0.0 {
+        Ok(())
+    } else {
+        Err(Error::BadInput(format!(
+            "{name} must be a positive, finite sample rate in Hz, got {rate_hz}"
+        )))
+    }
+}
+
+/// Band-limited resampling of a uniformly sampled record from `in_rate_hz` (any positive real, e.g.
+/// 192000.0 or 333333.33) to `out_rate_hz`, with an anti-alias filter when decimating (pass band to 0.45 of
+/// the lower rate, at least ~100 dB rejection from 0.5 of it; see the module documentation).
+///
+/// Output sample m is the instant m / out_rate_hz, input sample k the instant k / in_rate_hz: sample 0 of
+/// both is the same instant and there is no delay. The output covers the instants inside the input record,
+/// `floor((x.len() - 1) * out_rate_hz / in_rate_hz) + 1` samples. Equal rates return a copy.
+///
+/// # Panics
+/// If a rate is not positive and finite.
+pub fn resample(x: &[f64], in_rate_hz: f64, out_rate_hz: f64) -> Vec<f64> {
+    assert!(
+        in_rate_hz.is_finite() && in_rate_hz > 0.0 && out_rate_hz.is_finite() && out_rate_hz > 0.0,
+        "resample: rates must be positive and finite ({in_rate_hz} Hz -> {out_rate_hz} Hz)"
+    );
+    if x.is_empty() {
+        return Vec::new();
+    }
+    if in_rate_hz == out_rate_hz {
+        return x.to_vec();
+    }
+    // The tiny tolerance keeps an output instant that falls on the last input sample despite rounding.
+    let n_out = ((x.len() - 1) as f64 * out_rate_hz / in_rate_hz + 1e-9).floor() as usize + 1;
+    let kernel = Kernel::new(in_rate_hz, out_rate_hz);
+    let mut y = vec![0.0; n_out];
+    kernel.eval_grid(x, 0.0, in_rate_hz / out_rate_hz, &mut y);
+    y
+}
+
+/// Encode mono samples (volts) as a WAV file in memory: `full_scale_v` maps to digital full scale (1.0).
+/// Values beyond full scale are clamped (both formats), so the file never holds more than +-1.0.
+pub fn encode(
+    samples_v: &[f64],
+    full_scale_v: f64,
+    rate_hz: u32,
+    format: WavFormat,
+) -> Result<Vec<u8>, Error> {
+    if !(full_scale_v.is_finite() && full_scale_v > 0.0) {
+        return Err(Error::BadInput(format!(
+            "WAV full scale must be a positive number of volts, got {full_scale_v}"
+        )));
+    }
+    if rate_hz == 0 {
+        return Err(Error::BadInput("WAV sample rate must be above 0 Hz".into()));
+    }
+    if let Some(i) = samples_v.iter().position(|v| !v.is_finite()) {
+        return Err(Error::Run(format!(
+            "cannot encode a WAV file: sample {i} is not a finite number ({})",
+            samples_v[i]
+        )));
+    }
+    let spec = match format {
+        WavFormat::Int24 => hound::WavSpec {
+            channels: 1,
+            sample_rate: rate_hz,
+            bits_per_sample: 24,
+            sample_format: hound::SampleFormat::Int,
+        },
+        WavFormat::Float32 => hound::WavSpec {
+            channels: 1,
+            sample_rate: rate_hz,
+            bits_per_sample: 32,
+            sample_format: hound::SampleFormat::Float,
+        },
+    };
+    let hound_err = |e: hound::Error| Error::Run(format!("cannot encode a WAV file: {e}"));
+    let mut bytes = Vec::with_capacity(44 + samples_v.len() * 4);
+    {
+        let mut writer = hound::WavWriter::new(Cursor::new(&mut bytes), spec).map_err(hound_err)?;
+        let inv = 1.0 / full_scale_v;
+        for &v in samples_v {
+            let s = (v * inv).clamp(-1.0, 1.0);
+            match format {
+                WavFormat::Int24 => {
+                    const FULL: f64 = 8_388_608.0; // 2^23
+                    let i = (s * FULL).round().clamp(-FULL, FULL - 1.0) as i32;
+                    writer.write_sample(i).map_err(hound_err)?;
+                }
+                WavFormat::Float32 => writer.write_sample(s as f32).map_err(hound_err)?,
+            }
+        }
+        writer.finalize().map_err(hound_err)?;
+    }
+    Ok(bytes)
+}
+
+/// The three listening files and how they were scaled.
+#[derive(Debug, Clone)]
+pub struct ListeningSet {
+    /// input.wav: the input, shifted by the chain's delay so it lines up with the output sample for sample.
+    pub input: Vec<u8>,
+    /// output.wav: the chain's output.
+    pub output: Vec<u8>,
+    /// error.wav: output - (gain x delayed input + offset), scaled by `error_gain_used`.
+    pub error: Vec<u8>,
+    /// Volts that map to digital full scale in input.wav and output.wav (and, before the error gain, in error.wav).
+    pub full_scale_v: f64,
+    /// Linear gain actually applied to the error file: the requested `listen_gain`, or lower if that would clip.
+    pub error_gain_used: f64,
+    /// Rms of the error (volts, mean removed, band-limited to the file's band, before the listening gain).
+    pub error_rms_v: f64,
+    /// Number of samples in each file.
+    pub length: usize,
+    /// Sample rate of the files (Hz).
+    pub rate_hz: u32,
+}
+
+/// Build input.wav, output.wav and error.wav.
+///
+/// `input_v` and `output_v` are records (volts) on the same uniform grid at `rate_hz_in` (sample 0 of both at
+/// the same instant). The chain is modelled as output(t) ~= gain x input(t - delay_s) + offset_v; the error is
+/// `output - (gain x input delayed by delay_s + offset_v)`, i.e. what the chain added. Both records are
+/// resampled to `opts.rate_hz` with the band-limited resampler of [`resample`], and the delay is applied in
+/// the same step by evaluating the band-limited input at t - delay_s (band-limited fractional delay).
+///
+/// The files cover the span where both the output and the delayed input are known, less the resampling
+/// kernel's half-length at each end (about 1.3 ms at 48 kHz), so record edges do not leak into the error.
+/// input.wav holds the input shifted by `delay_s`, so the three files line up sample for sample.
+///
+/// **The mean (DC) is removed from all three signals before encoding**: a chain working around a mid-rail
+/// bias (say 2.5 V) would otherwise waste headroom and thump when played.
+///
+/// Input and output share one volts-to-full-scale mapping so they compare by ear: `full_scale_v` is 1.05 x
+/// the larger peak of the two (after resampling and DC removal), rounded up to a tidy value (1, 1.2, 1.5, 2,
+/// 2.5, 3, 4, 5, 6 or 8 times a power of ten). The error file uses the same mapping times
+/// `opts.listen_gain`, but that gain is lowered so the error's peak stays at 1/1.05 of full scale: no file
+/// ever clips. The gain used is reported.
+pub fn listening_set(
+    input_v: &[f64],
+    output_v: &[f64],
+    rate_hz_in: f64,
+    delay_s: f64,
+    gain: f64,
+    offset_v: f64,
+    opts: &WavOptions,
+) -> Result<ListeningSet, Error> {
+    check_rate("the records' sample rate", rate_hz_in)?;
+    if opts.rate_hz == 0 {
+        return Err(Error::BadInput(
+            "the listening files' sample rate must be above 0 Hz".into(),
+        ));
+    }
+    for (name, v) in [("delay", delay_s), ("gain", gain), ("offset", offset_v)] {
+        if !v.is_finite() {
+            return Err(Error::BadInput(format!(
+                "listening files: {name} must be a finite number, got {v}"
+            )));
+        }
+    }
+    if !(opts.listen_gain.is_finite() && opts.listen_gain > 0.0) {
+        return Err(Error::BadInput(format!(
+            "listening gain must be a positive number, got {}",
+            opts.listen_gain
+        )));
+    }
+    if let Some(i) = input_v.iter().chain(output_v).position(|v| !v.is_finite()) {
+        return Err(Error::Run(format!(
+            "listening files: record sample {i} is not a finite number"
+        )));
+    }
+    let rate_out = f64::from(opts.rate_hz);
+    let kernel = Kernel::new(rate_hz_in, rate_out);
+    let margin = kernel.half_length_in_samples.ceil();
+    let delay_in_samples = delay_s * rate_hz_in;
+    // Positions in input samples along the output record's time axis.
+    let start = 0.0f64.max(delay_in_samples) + margin;
+    let end =
+        (output_v.len() as f64 - 1.0).min(delay_in_samples + input_v.len() as f64 - 1.0) - margin;
+    if input_v.is_empty() || output_v.is_empty() || end < start {
+        let need_s = (2.0 * margin + 1.0) / rate_hz_in + delay_s.abs();
+        return Err(Error::BadInput(format!(
+            "records too short for listening files: the input ({} samples) and output ({} samples) overlap \
+             for less than {need_s:.6} s once the {delay_s} s delay and the resampler's edges are allowed for",
+            input_v.len(),
+            output_v.len()
+        )));
+    }
+    let step = rate_hz_in / rate_out;
+    let length = ((end - start) / step + 1e-9).floor() as usize + 1;
+
+    let mut out_r = vec![0.0; length];
+    kernel.eval_grid(output_v, start, step, &mut out_r);
+    let mut in_r = vec![0.0; length];
+    kernel.eval_grid(input_v, start - delay_in_samples, step, &mut in_r);
+    let mut err: Vec<f64> = out_r
+        .iter()
+        .zip(&in_r)
+        .map(|(o, i)| o - (gain * i + offset_v))
+        .collect();
+    remove_mean(&mut in_r);
+    remove_mean(&mut out_r);
+    remove_mean(&mut err);
+
+    let signal_peak_v = peak(&in_r).max(peak(&out_r));
+    let full_scale_v = if signal_peak_v > 0.0 {
+        tidy_up(FULL_SCALE_HEADROOM * signal_peak_v)
+    } else {
+        1.0
+    };
+    let error_peak_v = peak(&err);
+    let mut error_gain_used = opts.listen_gain;
+    if error_peak_v * error_gain_used > ERROR_PEAK_CAP * full_scale_v {
+        error_gain_used = ERROR_PEAK_CAP * full_scale_v / error_peak_v;
+    }
+    let error_rms_v = (err.iter().map(|e| e * e).sum::<f64>() / length as f64).sqrt();
+    let input = encode(&in_r, full_scale_v, opts.rate_hz, opts.format)?;
+    let output = encode(&out_r, full_scale_v, opts.rate_hz, opts.format)?;
+    for e in &mut err {
+        *e *= error_gain_used;
+    }
+    let error = encode(&err, full_scale_v, opts.rate_hz, opts.format)?;
+    Ok(ListeningSet {
+        input,
+        output,
+        error,
+        full_scale_v,
+        error_gain_used,
+        error_rms_v,
+        length,
+        rate_hz: opts.rate_hz,
+    })
+}
+
+fn remove_mean(x: &mut [f64]) {
+    if x.is_empty() {
+        return;
+    }
+    let mean = x.iter().sum::<f64>() / x.len() as f64;
+    for v in x {
+        *v -= mean;
+    }
+}
+
+fn peak(x: &[f64]) -> f64 {
+    x.iter().fold(0.0, |m, v| m.max(v.abs()))
+}
+
+/// The smallest of 1, 1.2, 1.5, 2, 2.5, 3, 4, 5, 6, 8 times a power of ten that is >= v (v > 0).
+fn tidy_up(v: f64) -> f64 {
+    const STEPS: [f64; 11] = [1.0, 1.2, 1.5, 2.0, 2.5, 3.0, 4.0, 5.0, 6.0, 8.0, 10.0];
+    let decade = 10f64.powf(v.log10().floor());
+    let mantissa = v / decade;
+    let step = STEPS
+        .iter()
+        .copied()
+        .find(|s| *s >= mantissa * (1.0 - 1e-12))
+        .unwrap_or(10.0);
+    (step * decade).max(v)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use rand::{RngExt, SeedableRng};
+    use rand_chacha::ChaCha8Rng;
+    use std::f64::consts::PI;
+
+    /// Decode a WAV file with hound into (spec, samples in full-scale units).
+    fn decode(bytes: &[u8]) -> (hound::WavSpec, Vec<f64>) {
+        let mut reader = hound::WavReader::new(Cursor::new(bytes)).unwrap();
+        let spec = reader.spec();
+        let samples = match spec.sample_format {
+            hound::SampleFormat::Int => {
+                let full = 2f64.powi(i32::from(spec.bits_per_sample) - 1);
+                reader
+                    .samples::<i32>()
+                    .map(|s| f64::from(s.unwrap()) / full)
+                    .collect()
+            }
+            hound::SampleFormat::Float => reader
+                .samples::<f32>()
+                .map(|s| f64::from(s.unwrap()))
+                .collect(),
+        };
+        (spec, samples)
+    }
+
+    /// Three-parameter sine fit at a known frequency (linear least squares on A cos + B sin + C):
+    /// returns (amplitude, phase of A sin(w t + phase)).
+    #[allow(clippy::needless_range_loop)]
+    fn sine_fit(y: &[f64], t0_s: f64, rate_hz: f64, f_hz: f64) -> (f64, f64) {
+        let mut m = [[0.0f64; 3]; 3];
+        let mut r = [0.0f64; 3];
+        for (i, &v) in y.iter().enumerate() {
+            let w = 2.0 * PI * f_hz * (t0_s + i as f64 / rate_hz);
+            let b = [w.sin(), w.cos(), 1.0];
+            for a in 0..3 {
+                r[a] += b[a] * v;
+                for c in 0..3 {
+                    m[a][c] += b[a] * b[c];
+                }
+            }
+        }
+        // Gaussian elimination, 3x3.
+        for p in 0..3 {
+            for q in p + 1..3 {
+                let f = m[q][p] / m[p][p];
+                for c in 0..3 {
+                    m[q][c] -= f * m[p][c];
+                }
+                r[q] -= f * r[p];
+            }
+        }
+        let mut s = [0.0f64; 3];
+        for p in (0..3).rev() {
+            let mut acc = r[p];
+            for c in p + 1..3 {
+                acc -= m[p][c] * s[c];
+            }
+            s[p] = acc / m[p][p];
+        }
+        // s[0] sin + s[1] cos = A sin(w t + phase), A cos(phase) = s[0], A sin(phase) = s[1].
+        (s[0].hypot(s[1]), s[1].atan2(s[0]))
+    }
+
+    fn rms(x: &[f64]) -> f64 {
+        (x.iter().map(|v| v * v).sum::<f64>() / x.len() as f64).sqrt()
+    }
+
+    fn mean(x: &[f64]) -> f64 {
+        x.iter().sum::<f64>() / x.len() as f64
+    }
+
+    fn sine(n: usize, rate_hz: f64, f_hz: f64, amp: f64, phase: f64) -> Vec<f64> {
+        (0..n)
+            .map(|i| amp * (2.0 * PI * f_hz * i as f64 / rate_hz + phase).sin())
+            .collect()
+    }
+
+    #[test]
+    fn wav_round_trip_keeps_rate_format_length_and_values_within_one_lsb() {
+        let mut rng = ChaCha8Rng::seed_from_u64(7);
+        let full_scale_v = 2.5;
+        let mut v: Vec<f64> = (0..5000)
+            .map(|_| (rng.random::<f64>() * 2.0 - 1.0) * full_scale_v)
+            .collect();
+        v.extend([0.0, full_scale_v, -full_scale_v, 3.0 * full_scale_v, -4.0]);
+        for (format, bits, sf) in [
+            (WavFormat::Int24, 24, hound::SampleFormat::Int),
+            (WavFormat::Float32, 32, hound::SampleFormat::Float),
+        ] {
+            let bytes = encode(&v, full_scale_v, 44_100, format).unwrap();
+            let (spec, got) = decode(&bytes);
+            assert_eq!(spec.sample_rate, 44_100);
+            assert_eq!(spec.channels, 1);
+            assert_eq!(spec.bits_per_sample, bits);
+            assert_eq!(spec.sample_format, sf);
+            assert_eq!(got.len(), v.len());
+            let lsb = match format {
+                WavFormat::Int24 => 2f64.powi(-23),
+                WavFormat::Float32 => 2f64.powi(-24), // f32 spacing just below 1.0
+            };
+            for (g, x) in got.iter().zip(&v) {
+                let want = (x / full_scale_v).clamp(-1.0, 1.0);
+                assert!((g - want).abs() <= lsb, "{format:?}: {g} vs {want}");
+            }
+        }
+    }
+
+    #[test]
+    fn encode_refuses_a_bad_full_scale_and_non_finite_samples() {
+        assert!(encode(&[0.1], 0.0, 48_000, WavFormat::Int24).is_err());
+        assert!(encode(&[f64::NAN], 1.0, 48_000, WavFormat::Int24).is_err());
+        assert!(encode(&[0.1], 1.0, 0, WavFormat::Float32).is_err());
+    }
+
+    /// Amplitude within 0.01 dB and timing within 1 % of the finer sample period, away from the edges.
+    fn check_passband_tone(in_rate_hz: f64, out_rate_hz: f64, f_hz: f64) {
+        let n_in = ((0.1 * in_rate_hz) as usize).max(1000);
+        let amp = 0.8;
+        let phase = 0.4;
+        let x = sine(n_in, in_rate_hz, f_hz, amp, phase);
+        let y = resample(&x, in_rate_hz, out_rate_hz);
+        let expect_len = ((n_in - 1) as f64 * out_rate_hz / in_rate_hz + 1e-9).floor() as usize + 1;
+        assert_eq!(y.len(), expect_len);
+        // Leave out the edges, where the kernel reaches past the record.
+        let skip =
+            (HALF_LENGTH_LOW_RATE_SAMPLES * (out_rate_hz / in_rate_hz).max(1.0)) as usize + 8;
+        let inner = &y[skip..y.len() - skip];
+        let (a, p) = sine_fit(inner, skip as f64 / out_rate_hz, out_rate_hz, f_hz);
+        let amp_err_db = 20.0 * (a / amp).log10();
+        let mut dp = p - phase;
+        dp = (dp + PI).rem_euclid(2.0 * PI) - PI;
+        let timing_err_s = dp / (2.0 * PI * f_hz);
+        let finer_period_s = 1.0 / in_rate_hz.max(out_rate_hz);
+        // Spec of this module (0.01 dB, 1 % of a sample): common practice, no source.
+        assert!(
+            amp_err_db.abs() < 0.01,
+            "{in_rate_hz}->{out_rate_hz} at {f_hz} Hz: amplitude off by {amp_err_db} dB"
+        );
+        assert!(
+            timing_err_s.abs() < 0.01 * finer_period_s,
+            "{in_rate_hz}->{out_rate_hz} at {f_hz} Hz: timing off by {} samples",
+            timing_err_s / finer_period_s
+        );
+    }
+
+    #[test]
+    fn resampling_keeps_amplitude_and_timing_of_in_band_sines() {
+        check_passband_tone(192_000.0, 48_000.0, 1234.5);
+        check_passband_tone(192_000.0, 48_000.0, 15_003.0);
+        check_passband_tone(333_333.33, 48_000.0, 3000.7);
+        check_passband_tone(333_333.33, 48_000.0, 19_500.0);
+        check_passband_tone(4_000.0, 48_000.0, 997.0);
+        check_passband_tone(4_000.0, 48_000.0, 1_700.0);
+    }
+
+    #[test]
+    fn decimation_rejects_tones_above_the_output_nyquist_by_80_db() {
+        for (in_rate_hz, f_hz) in [
+            (192_000.0, 24_700.0),
+            (192_000.0, 40_000.0),
+            (192_000.0, 71_234.0),
+            (333_333.33, 30_000.0),
+            (333_333.33, 150_001.0),
+        ] {
+            let out_rate_hz = 48_000.0;
+            let x = sine((0.05 * in_rate_hz) as usize, in_rate_hz, f_hz, 1.0, 0.3);
+            let y = resample(&x, in_rate_hz, out_rate_hz);
+            let inner = &y[80..y.len() - 80];
+            let level_db = 20.0 * (rms(inner) * 2f64.sqrt()).log10();
+            // Requirement of this module (>= 80 dB anti-alias rejection): common practice, no source.
+            assert!(
+                level_db < -80.0,
+                "{f_hz} Hz at {in_rate_hz} Hz -> 48 kHz leaks at {level_db} dB"
+            );
+        }
+    }
+
+    #[test]
+    fn equal_rates_and_empty_records_resample_trivially() {
+        let x = [1.0, -2.0, 3.5];
+        assert_eq!(resample(&x, 48_000.0, 48_000.0), x.to_vec());
+        assert!(resample(&[], 192_000.0, 48_000.0).is_empty());
+        assert_eq!(resample(&[0.25], 192_000.0, 48_000.0).len(), 1);
+    }
+
+    #[test]
+    fn identical_records_give_a_silent_error_file_and_dc_is_removed() {
+        let rate_hz = 192_000.0;
+        let n = 19_200;
+        let x: Vec<f64> = (0..n)
+            .map(|i| {
+                let t = i as f64 / rate_hz;
+                2.5 + (2.0 * PI * 1000.0 * t).sin() + 0.1 * (2.0 * PI * 5100.0 * t).sin()
+            })
+            .collect();
+        let set = listening_set(&x, &x, rate_hz, 0.0, 1.0, 0.0, &WavOptions::default()).unwrap();
+        assert_eq!(set.rate_hz, 48_000);
+        // 0.1 s at 48 kHz less the kernel's half-length (64 samples at 48 kHz) at each end.
+        assert_eq!(set.length, 4800 - 2 * 64);
+        assert_eq!(set.error_rms_v, 0.0);
+        let (spec, e) = decode(&set.error);
+        assert_eq!((spec.sample_rate, spec.bits_per_sample), (48_000, 24));
+        assert_eq!(e.len(), set.length);
+        assert!(e.iter().all(|v| v.abs() <= 2f64.powi(-23)));
+        assert_eq!(set.input, set.output);
+        // Peak about 1.09 V once the 2.5 V mean is gone; 1.05 x that rounds up to 1.2 V.
+        assert_eq!(set.full_scale_v, 1.2);
+        let (_, input) = decode(&set.input);
+        assert!(mean(&input).abs() < 1e-3, "mean {}", mean(&input));
+        assert!(input.iter().all(|v| v.abs() < 1.0 / 1.05));
+    }
+
+    #[test]
+    fn a_delayed_scaled_offset_copy_gives_a_near_silent_error_and_a_wrong_delay_does_not() {
+        let rate_hz = 333_333.33;
+        let n = 40_000;
+        let delay_s = 12.37 / rate_hz;
+        let signal =
+            |t: f64| (2.0 * PI * 1000.0 * t).sin() + 0.3 * (2.0 * PI * 7010.0 * t + 1.0).sin();
+        let input: Vec<f64> = (0..n).map(|i| signal(i as f64 / rate_hz)).collect();
+        let output: Vec<f64> = (0..n)
+            .map(|i| 0.5 + 2.0 * signal(i as f64 / rate_hz - delay_s))
+            .collect();
+        let opts = WavOptions {
+            format: WavFormat::Float32,
+            ..WavOptions::default()
+        };
+        let set = listening_set(&input, &output, rate_hz, delay_s, 2.0, 0.5, &opts).unwrap();
+        let (_, out_wav) = decode(&set.output);
+        let out_rms_v = rms(&out_wav) * set.full_scale_v;
+        assert!(
+            set.error_rms_v < 1e-5 * out_rms_v,
+            "error {} V vs output {} V",
+            set.error_rms_v,
+            out_rms_v
+        );
+        // The input file is shifted to line up with the output: input x gain = output after DC removal.
+        let (_, in_wav) = decode(&set.input);
+        let mismatch = in_wav
+            .iter()
+            .zip(&out_wav)
+            .fold(0.0f64, |m, (i, o)| m.max((2.0 * i - o).abs()));
+        assert!(mismatch < 1e-5, "{mismatch}");
+        // One input sample of delay error leaves a clearly audible error.
+        let wrong = listening_set(
+            &input,
+            &output,
+            rate_hz,
+            delay_s + 1.0 / rate_hz,
+            2.0,
+            0.5,
+            &opts,
+        )
+        .unwrap();
+        assert!(wrong.error_rms_v > 1e-3 * out_rms_v);
+    }
+
+    #[test]
+    fn the_gain_cap_prevents_clipping_and_reports_the_lowered_gain() {
+        let rate_hz = 96_000.0;
+        let n = 20_000;
+        let mut rng = ChaCha8Rng::seed_from_u64(11);
+        let input = sine(n, rate_hz, 440.0, 1.0, 0.0);
+        let output: Vec<f64> = input
+            .iter()
+            .map(|x| x + 1e-4 * (rng.random::<f64>() - 0.5))
+            .collect();
+        for listen_gain in [1e6, 10.0] {
+            let opts = WavOptions {
+                listen_gain,
+                ..WavOptions::default()
+            };
+            let set = listening_set(&input, &output, rate_hz, 0.0, 1.0, 0.0, &opts).unwrap();
+            let (_, e) = decode(&set.error);
+            let peak_fs = e.iter().fold(0.0f64, |m, v| m.max(v.abs()));
+            assert!(peak_fs <= 1.0 / 1.05 + 2f64.powi(-23), "peak {peak_fs}");
+            // Decoded error, back in volts, matches the reported rms.
+            let e_rms_v = rms(&e) * set.full_scale_v / set.error_gain_used;
+            assert!((e_rms_v / set.error_rms_v - 1.0).abs() < 1e-3);
+            if listen_gain == 1e6 {
+                assert!(set.error_gain_used < 1e6);
+                // The cap is reached exactly: the error's peak sits at 1/1.05 of full scale.
+                assert!(peak_fs > 1.0 / 1.05 - 2f64.powi(-22), "peak {peak_fs}");
+            } else {
+                // Noise peak about 5e-5 V x 10 is far below 1.2 V full scale: the requested gain stands.
+                assert_eq!(set.error_gain_used, 10.0);
+            }
+        }
+    }
+
+    #[test]
+    fn listening_set_refuses_records_too_short_and_bad_parameters() {
+        let x = vec![0.0; 100];
+        let opts = WavOptions::default();
+        assert!(listening_set(&x, &x, 192_000.0, 0.0, 1.0, 0.0, &opts).is_err());
+        let y = vec![0.0; 10_000];
+        assert!(listening_set(&y, &y, 192_000.0, f64::NAN, 1.0, 0.0, &opts).is_err());
+        assert!(listening_set(&y, &y, -1.0, 0.0, 1.0, 0.0, &opts).is_err());
+        let bad = WavOptions {
+            listen_gain: 0.0,
+            ..WavOptions::default()
+        };
+        assert!(listening_set(&y, &y, 192_000.0, 0.0, 1.0, 0.0, &bad).is_err());
+        assert!(listening_set(&y, &y, 192_000.0, 0.0, 1.0, 0.0, &opts).is_ok());
+    }
+
+    #[test]
+    fn tidy_full_scales_round_up() {
+        assert_eq!(tidy_up(1.0), 1.0);
+        assert_eq!(tidy_up(1.01), 1.2);
+        assert_eq!(tidy_up(0.0031), 0.004);
+        assert_eq!(tidy_up(8.5), 10.0);
+        assert!((tidy_up(2.6e-5) - 3e-5).abs() < 1e-18);
+    }
+
+    /// Ideal N-bit floor quantizer over +-1 V: q = 2 / 2^N.
+    fn floor_quantize(x: f64, q: f64) -> f64 {
+        ((x / q).floor() * q).clamp(-1.0, 1.0 - q)
+    }
+
+    #[test]
+    fn sampled_quantization_error_file_has_bennett_rms() {
+        // A slow sine quantized at 48 kHz, compared on its own 48 kHz grid (no hold): the error file holds
+        // exactly the sampled quantization error (equal rates: no filtering), mean removed.
+        let fs = 48_000.0;
+        for bits in [4, 8] {
+            let q = 2.0 / 2f64.powi(bits);
+            let input = sine(24_000, fs, 997.0, 0.9, 0.0);
+            let output: Vec<f64> = input.iter().map(|&x| floor_quantize(x, q)).collect();
+            let set =
+                listening_set(&input, &output, fs, 0.0, 1.0, 0.0, &WavOptions::default()).unwrap();
+            let (_, e) = decode(&set.error);
+            let e_rms_v = rms(&e) * set.full_scale_v / set.error_gain_used;
+            let bennett_v = q / 12f64.sqrt();
+            // Ideal quantization noise q/sqrt(12): W. R. Bennett, "Spectra of quantized signals", BSTJ 1948.
+            assert!(
+                (e_rms_v / bennett_v - 1.0).abs() < 0.10,
+                "N={bits}: error rms {e_rms_v} V vs q/sqrt(12) = {bennett_v} V"
+            );
+        }
+    }
+
+    #[test]
+    fn held_quantization_error_file_matches_bennett_through_the_zoh_response() {
+        // The quantizer samples a slow sine at 48 kHz; its output is a zero-order hold drawn on a grid 16x
+        // finer. Passing the input and the held output with delay T/2 (the ZOH delay) gives the error as
+        // heard. The sampled error has Bennett's power q^2/12 (W. R. Bennett, BSTJ 1948), but the hold
+        // shapes its spectrum by |sinc(f/fs)|^2 (ZOH response, e.g. Oppenheim and Schafer, "Discrete-Time
+        // Signal Processing", section 4.8), and the 48 kHz file keeps only the band below ~0.475 fs (the
+        // resampler's cut-off), so the file's expected rms is q/sqrt(12) x g with g^2 the share of the
+        // sampled error's power that passes |sinc|^2 in band. For white error g^2 = 0.75 (the file sits
+        // 12 % under q/sqrt(12)); at 4 bits and a slow sine the error is not white, so g is taken from the
+        // sampled error's own spectrum.
+        use rustfft::{FftPlanner, num_complex::Complex};
+        let fs = 48_000.0;
+        let os = 16usize;
+        let n = 8_000usize;
+        let fine_rate = fs * os as f64;
+        let amp = 0.9;
+        for bits in [4, 8] {
+            for f_hz in [97.0, 997.0] {
+                let q = 2.0 / 2f64.powi(bits);
+                let input = sine(n * os, fine_rate, f_hz, amp, 0.0);
+                let samples: Vec<f64> = (0..n)
+                    .map(|k| amp * (2.0 * PI * f_hz * k as f64 / fs).sin())
+                    .collect();
+                let codes: Vec<f64> = samples.iter().map(|&x| floor_quantize(x, q)).collect();
+                let mut held = vec![0.0; n * os];
+                for k in 0..n {
+                    held[k * os..(k + 1) * os].fill(codes[k]);
+                    // The fine sample on a hold boundary takes the mean of the two held values (where a
+                    // band-limited step passes), so the fine-grid hold has exactly the ZOH's delay T/2.
+                    if k > 0 {
+                        held[k * os] = 0.5 * (codes[k - 1] + codes[k]);
+                    }
+                }
+                let set = listening_set(
+                    &input,
+                    &held,
+                    fine_rate,
+                    0.5 / fs,
+                    1.0,
+                    0.0,
+                    &WavOptions::default(),
+                )
+                .unwrap();
+                let (_, e) = decode(&set.error);
+                let e_rms_v = rms(&e) * set.full_scale_v / set.error_gain_used;
+
+                // g^2 from the sampled error's spectrum (mean removed).
+                let err: Vec<f64> = codes.iter().zip(&samples).map(|(c, x)| c - x).collect();
+                let m = mean(&err);
+                let mut buf: Vec<Complex<f64>> =
+                    err.iter().map(|v| Complex::new(v - m, 0.0)).collect();
+                FftPlanner::new().plan_fft_forward(n).process(&mut buf);
+                let (mut total, mut passed) = (0.0, 0.0);
+                for (k, c) in buf.iter().enumerate() {
+                    let f = k.min(n - k) as f64 / n as f64; // |frequency| / fs
+                    let p = c.norm_sqr();
+                    total += p;
+                    if f < 0.475 {
+                        passed += p * sinc(f).powi(2);
+                    }
+                }
+                let g = (passed / total).sqrt();
+                let expected_v = q / 12f64.sqrt() * g;
+                let ratio = e_rms_v / expected_v;
+                assert!(
+                    (ratio - 1.0).abs() < 0.10,
+                    "N={bits}, {f_hz} Hz: error file rms {e_rms_v} V, expected {expected_v} V (g = {g})"
+                );
+                // Tighter, and independent of how well Bennett's model fits a 4-bit quantizer: the file
+                // carries the sampled error's own in-band, hold-shaped power (measured 0.4 % to 1.5 % off).
+                let sampled_std_v = (rms(&err).powi(2) - m * m).sqrt();
+                let shaped_v = sampled_std_v * g;
+                assert!(
+                    (e_rms_v / shaped_v - 1.0).abs() < 0.03,
+                    "N={bits}, {f_hz} Hz: error file rms {e_rms_v} V, hold-shaped sampled error {shaped_v} V"
+                );
+            }
+        }
+    }
+
+    /// Ideal mid-tread rounding quantizer with step q (no range limit).
+    fn round_quantize(x: f64, q: f64) -> f64 {
+        (x / q).round() * q
+    }
+
+    /// Error power (V^2) of `output` against `input` as carried by error.wav (equal rates, no delay),
+    /// decoded from the file.
+    fn error_file_power(input: &[f64], output: &[f64], fs: f64) -> f64 {
+        let opts = WavOptions {
+            format: WavFormat::Float32,
+            ..WavOptions::default()
+        };
+        let set = listening_set(input, output, fs, 0.0, 1.0, 0.0, &opts).unwrap();
+        let (_, e) = decode(&set.error);
+        (rms(&e) * set.full_scale_v / set.error_gain_used).powi(2)
+    }
+
+    /// Test signals of very different levels, in LSB units (q = 1 mV), 1 s at 48 kHz.
+    fn dither_test_signals(q: f64, fs: f64) -> Vec<(&'static str, Vec<f64>)> {
+        let n = 48_000;
+        let two_tone: Vec<f64> = sine(n, fs, 300.0, 50.0 * q, 0.0)
+            .iter()
+            .zip(sine(n, fs, 5000.0, 0.4 * q, 1.0))
+            .map(|(a, b)| a + b)
+            .collect();
+        vec![
+            ("0.3 LSB sine", sine(n, fs, 441.0, 0.3 * q, 0.2)),
+            ("3.7 LSB sine", sine(n, fs, 997.0, 3.7 * q, 0.0)),
+            ("200.3 LSB sine", sine(n, fs, 1499.0, 200.3 * q, 0.5)),
+            ("two tones", two_tone),
+        ]
+    }
+
+    #[test]
+    fn tpdf_dither_makes_error_power_three_times_bennett_for_any_signal_and_undithered_does_not() {
+        let fs = 48_000.0;
+        let q = 1e-3;
+        let mut rng = ChaCha8Rng::seed_from_u64(1992);
+        let mut undithered = Vec::new();
+        for (name, x) in dither_test_signals(q, fs) {
+            // TPDF dither, 2 LSB peak to peak: the sum of two independent uniform variables of 1 LSB each.
+            let y: Vec<f64> = x
+                .iter()
+                .map(|&v| {
+                    let d = (rng.random::<f64>() + rng.random::<f64>() - 1.0) * q;
+                    round_quantize(v + d, q)
+                })
+                .collect();
+            let p = error_file_power(&x, &y, fs);
+            // Total error power with 2 LSB p-p TPDF dither is q^2/12 (quantization) + q^2/6 (dither)
+            // = 3 q^2/12 (+4.77 dB) whatever the signal: S. P. Lipshitz, R. A. Wannamaker and J. Vanderkooy,
+            // "Quantization and dither: a theoretical survey", J. Audio Eng. Soc. 40(5), 1992 (from memory
+            // for the exact figures). Tolerance: the estimate over 47 872 samples has ~0.7 % spread.
+            let ratio = p / (3.0 * q * q / 12.0);
+            assert!(
+                (ratio - 1.0).abs() < 0.04,
+                "TPDF, {name}: power {ratio} x 3q^2/12"
+            );
+
+            let y0: Vec<f64> = x.iter().map(|&v| round_quantize(v, q)).collect();
+            undithered.push((name, error_file_power(&x, &y0, fs), x));
+        }
+        // Without dither a signal below 1/2 LSB quantizes to zero: the error is the signal itself
+        // (same source, and plain arithmetic).
+        let (_, p_small, x_small) = &undithered[0];
+        let signal_power = x_small.iter().map(|v| v * v).sum::<f64>() / x_small.len() as f64;
+        assert!((p_small / signal_power - 1.0).abs() < 0.01);
+        // ... while a large sine gives about Bennett's q^2/12 (W. R. Bennett, BSTJ 1948): the undithered
+        // error power follows the signal.
+        let (_, p_large, _) = &undithered[2];
+        assert!((p_large / (q * q / 12.0) - 1.0).abs() < 0.05, "{p_large}");
+        let powers: Vec<f64> = undithered.iter().map(|u| u.1).collect();
+        let spread = powers.iter().cloned().fold(0.0, f64::max)
+            / powers.iter().cloned().fold(f64::MAX, f64::min);
+        assert!(spread > 1.5, "undithered powers {powers:?}");
+    }
+
+    #[test]
+    fn rpdf_dither_makes_the_error_mean_independent_of_the_signal_but_not_its_power() {
+        // Lipshitz, Wannamaker and Vanderkooy, "Quantization and dither: a theoretical survey", J. Audio
+        // Eng. Soc. 40(5), 1992 (from memory for the exact figures): with RPDF dither of 1 LSB p-p the
+        // error's conditional mean is zero for every input value, but its conditional power is
+        // |x'| (q - |x'|) (x' = distance to the nearest level; from 0 on a level to q^2/4 midway), so the
+        // noise is modulated by the signal; TPDF of 2 LSB p-p also fixes the power at q^2/4.
+        let q = 1.0;
+        let n = 200_000;
+        let mut rng = ChaCha8Rng::seed_from_u64(40);
+        for x in [0.0, 0.1, 0.25, 0.5, 0.73, 3.4] {
+            let (mut s1, mut s2, mut t1, mut t2) = (0.0, 0.0, 0.0, 0.0);
+            for _ in 0..n {
+                let d = (rng.random::<f64>() - 0.5) * q;
+                let e = round_quantize(x + d, q) - x;
+                s1 += e;
+                s2 += e * e;
+                let dt = (rng.random::<f64>() + rng.random::<f64>() - 1.0) * q;
+                let et = round_quantize(x + dt, q) - x;
+                t1 += et;
+                t2 += et * et;
+            }
+            let (mean_r, pow_r) = (s1 / n as f64, s2 / n as f64);
+            let (mean_t, pow_t) = (t1 / n as f64, t2 / n as f64);
+            // Standard error of a mean of n draws with power <= q^2/4: 0.5 q / sqrt(n) ~ 0.0011 q.
+            assert!(mean_r.abs() < 0.006 * q, "RPDF mean at x = {x}: {mean_r}");
+            assert!(mean_t.abs() < 0.006 * q, "TPDF mean at x = {x}: {mean_t}");
+            let xf = x - x.round();
+            let rpdf_power = xf.abs() * (q - xf.abs());
+            assert!(
+                (pow_r - rpdf_power).abs() < 0.01 * q * q,
+                "RPDF power at x = {x}: {pow_r}"
+            );
+            assert!(
+                (pow_t / (q * q / 4.0) - 1.0).abs() < 0.02,
+                "TPDF power at x = {x}: {pow_t}"
+            );
+            // Undithered, the error is the fixed offset to the nearest level: its mean follows the signal.
+            let e0 = round_quantize(x, q) - x;
+            assert!((e0 + xf).abs() < 1e-12);
+        }
+
+        // The same through error.wav: RPDF error power depends on the signal (a sine of 0.1 LSB around a
+        // level barely moves the quantizer, a large sine averages to q^2/6, i.e. +3 dB over q^2/12).
+        let fs = 48_000.0;
+        let qv = 1e-3;
+        let mut powers = Vec::new();
+        for (amp_lsb, f_hz) in [(0.1, 441.0), (200.3, 1499.0)] {
+            let x = sine(48_000, fs, f_hz, amp_lsb * qv, 0.3);
+            let y: Vec<f64> = x
+                .iter()
+                .map(|&v| round_quantize(v + (rng.random::<f64>() - 0.5) * qv, qv))
+                .collect();
+            powers.push(error_file_power(&x, &y, fs) / (qv * qv / 6.0));
+        }
+        assert!(
+            (powers[1] - 1.0).abs() < 0.04,
+            "large sine, RPDF: {} x q^2/6",
+            powers[1]
+        );
+        assert!(powers[0] < 0.5, "0.1 LSB sine, RPDF: {} x q^2/6", powers[0]);
+    }
+}
