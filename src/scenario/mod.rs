@@ -396,6 +396,7 @@ pub struct Analysis {
     pub harmonics: u32,
 }
 
+pub mod overrides;
 pub mod reader;
 pub mod units;
 pub mod validate;

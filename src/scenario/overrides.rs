@@ -1,0 +1,251 @@
+//! Changing values of a scenario by key path (`source.frequency`, `stage.3.slew_rate`, `simulation.seed`), for
+//! sweeps and Monte-Carlo studies. The change is made on the TOML document, and the result goes through the
+//! same checks as a file, so an override can never produce a scenario a file could not.
+
+use std::path::Path;
+
+use toml::{Table, Value};
+
+use crate::error::{Error, Result};
+use crate::scenario::{Scenario, parse_str};
+
+/// Keys whose values are whole numbers.
+const INTEGER_KEYS: &[&str] = &[
+    "seed",
+    "bits",
+    "order",
+    "cycles",
+    "frame",
+    "harmonics",
+    "channel",
+];
+
+/// A scenario's text with the ability to re-check it with some values replaced.
+#[derive(Debug, Clone)]
+pub struct ScenarioText {
+    pub text: String,
+    pub origin: String,
+    pub base_dir: std::path::PathBuf,
+    doc: Table,
+}
+
+impl ScenarioText {
+    /// Read a scenario file (checked once as it is).
+    pub fn load(path: &Path) -> Result<ScenarioText> {
+        let text = std::fs::read_to_string(path).map_err(|source| Error::Read {
+            path: path.to_path_buf(),
+            source,
+        })?;
+        let base_dir = match path.parent() {
+            Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
+            _ => std::path::PathBuf::from("."),
+        };
+        Self::new(text, path.display().to_string(), base_dir)
+    }
+
+    /// Wrap scenario text (checked once as it is).
+    pub fn new(text: String, origin: String, base_dir: std::path::PathBuf) -> Result<ScenarioText> {
+        parse_str(&text, &origin, &base_dir)?;
+        let doc: Table = text
+            .parse()
+            .map_err(|e: toml::de::Error| Error::BadInput(format!("{origin}: {e}")))?;
+        Ok(ScenarioText {
+            text,
+            origin,
+            base_dir,
+            doc,
+        })
+    }
+
+    /// The scenario as written.
+    pub fn scenario(&self) -> Result<Scenario> {
+        Ok(parse_str(&self.text, &self.origin, &self.base_dir)?)
+    }
+
+    /// The scenario with `overrides` (key path, value in SI base units) applied and checked.
+    pub fn with(&self, overrides: &[(String, f64)]) -> Result<Scenario> {
+        if overrides.is_empty() {
+            return self.scenario();
+        }
+        let mut doc = self.doc.clone();
+        for (path, value) in overrides {
+            set(&mut doc, path, *value).map_err(|m| {
+                Error::BadInput(format!("{}: cannot set `{path}`: {m}", self.origin))
+            })?;
+        }
+        let text = toml::to_string(&doc).map_err(|e| Error::Run(e.to_string()))?;
+        let described: Vec<String> = overrides.iter().map(|(p, v)| format!("{p}={v}")).collect();
+        let origin = format!("{} (with {})", self.origin, described.join(", "));
+        Ok(parse_str(&text, &origin, &self.base_dir)?)
+    }
+
+    /// The current value (SI base units) at `path`, if it is written as a number or a quantity string.
+    pub fn get(&self, path: &str) -> Option<f64> {
+        let v = lookup(&self.doc, path).ok()?;
+        match v {
+            Value::Integer(i) => Some(*i as f64),
+            Value::Float(f) => Some(*f),
+            Value::String(s) => parse_any_quantity(s),
+            _ => None,
+        }
+    }
+}
+
+/// Parse a quantity string whatever its dimension (for reading a current value).
+fn parse_any_quantity(s: &str) -> Option<f64> {
+    use crate::scenario::units::{Dimension, parse_quantity};
+    [
+        Dimension::Frequency,
+        Dimension::Time,
+        Dimension::Voltage,
+        Dimension::SlewRate,
+        Dimension::Ratio,
+        Dimension::Gain,
+        Dimension::Decibels,
+    ]
+    .into_iter()
+    .find_map(|d| parse_quantity(s, d).ok())
+}
+
+fn split(path: &str) -> std::result::Result<(Vec<&str>, &str), String> {
+    let parts: Vec<&str> = path.split('.').collect();
+    if parts.len() < 2 || parts.iter().any(|p| p.is_empty()) {
+        return Err("a key path looks like `source.frequency` or `stage.3.slew_rate`".into());
+    }
+    let (last, head) = parts.split_last().expect("two or more parts");
+    Ok((head.to_vec(), last))
+}
+
+/// The table a path's last key lives in.
+fn table_mut<'a>(doc: &'a mut Table, head: &[&str]) -> std::result::Result<&'a mut Table, String> {
+    let mut t = doc;
+    let mut i = 0;
+    while i < head.len() {
+        let name = head[i];
+        if name == "stage" {
+            let idx: usize = head.get(i + 1).and_then(|s| s.parse().ok()).ok_or(
+                "`stage` is followed by the stage's number from 1, as in `stage.3.slew_rate`",
+            )?;
+            let arr = t
+                .get_mut("stage")
+                .and_then(Value::as_array_mut)
+                .ok_or("the scenario has no [[stage]]")?;
+            let n = arr.len();
+            t = arr
+                .get_mut(idx.wrapping_sub(1))
+                .and_then(Value::as_table_mut)
+                .ok_or(format!(
+                    "there is no stage {idx} (stages are numbered 1 to {n})"
+                ))?;
+            i += 2;
+        } else {
+            t = t
+                .entry(name.to_string())
+                .or_insert_with(|| Value::Table(Table::new()))
+                .as_table_mut()
+                .ok_or(format!("`{name}` is not a table"))?;
+            i += 1;
+        }
+    }
+    Ok(t)
+}
+
+fn lookup<'a>(doc: &'a Table, path: &str) -> std::result::Result<&'a Value, String> {
+    let (head, last) = split(path)?;
+    let mut t = doc;
+    let mut i = 0;
+    while i < head.len() {
+        if head[i] == "stage" {
+            let idx: usize = head
+                .get(i + 1)
+                .and_then(|s| s.parse().ok())
+                .ok_or("bad stage number")?;
+            t = t
+                .get("stage")
+                .and_then(Value::as_array)
+                .and_then(|a| a.get(idx.wrapping_sub(1)))
+                .and_then(Value::as_table)
+                .ok_or("no such stage")?;
+            i += 2;
+        } else {
+            t = t
+                .get(head[i])
+                .and_then(Value::as_table)
+                .ok_or("no such table")?;
+            i += 1;
+        }
+    }
+    t.get(last).ok_or_else(|| format!("no key `{last}`"))
+}
+
+fn set(doc: &mut Table, path: &str, value: f64) -> std::result::Result<(), String> {
+    if !value.is_finite() {
+        return Err("the value is not a finite number".into());
+    }
+    let (head, last) = split(path)?;
+    let t = table_mut(doc, &head)?;
+    let v = if INTEGER_KEYS.contains(&last) {
+        if value.fract() != 0.0 && (value - value.round()).abs() > 1e-9 {
+            return Err(format!("`{last}` takes a whole number"));
+        }
+        Value::Integer(value.round() as i64)
+    } else {
+        Value::Float(value)
+    };
+    t.insert(last.to_string(), v);
+    Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn demo() -> ScenarioText {
+        ScenarioText::new(
+            crate::DEFAULT_SCENARIO.to_string(),
+            "demo".into(),
+            std::path::PathBuf::from("."),
+        )
+        .unwrap()
+    }
+
+    #[test]
+    fn overrides_reach_the_checked_scenario() {
+        let t = demo();
+        let sc = t
+            .with(&[
+                ("source.frequency".into(), 2000.0),
+                ("simulation.seed".into(), 42.0),
+                ("stage.6.order".into(), 2.0),
+            ])
+            .unwrap();
+        assert_eq!(sc.source.waveform.fundamental_hz(), Some(2000.0));
+        assert_eq!(sc.simulation.seed, 42);
+        match &sc.stages[5].kind {
+            crate::scenario::StageKind::Filter(f) => assert_eq!(f.order, 2),
+            k => panic!("{k:?}"),
+        }
+    }
+
+    #[test]
+    fn current_values_are_read_in_si_units() {
+        let t = demo();
+        assert_eq!(t.get("source.frequency"), Some(1000.0));
+        assert_eq!(t.get("stage.4.conversion_time"), Some(12e-6));
+        assert_eq!(t.get("stage.1.slew_rate"), Some(13e6));
+    }
+
+    #[test]
+    fn bad_paths_and_values_are_bad_input() {
+        let t = demo();
+        for (p, v) in [
+            ("stage.9.gain", 1.0),
+            ("frequency", 1.0),
+            ("stage.6.order", 2.5),
+            ("stage.6.order", 99.0),
+        ] {
+            let e = t.with(&[(p.into(), v)]).unwrap_err();
+            assert!(e.is_bad_input(), "{p}: {e}");
+        }
+    }
+}
