@@ -10,19 +10,39 @@ use crate::measure::chain::measure_run;
 use crate::measure::static_test::{self, StaticResult};
 use crate::report::OutputDir;
 use crate::report::csv::CsvSink;
-use crate::report::json::Report;
+use crate::report::json::{ListeningInfo, Report};
+use crate::report::wav::{WavFormat, WavOptions, listening_set};
+use crate::report::{document, figures};
 use crate::scenario::{Scenario, StageKind};
 use crate::stages::Probe;
 use crate::stages::sample_hold::SampleHold;
 use crate::stages::sar_adc::SarAdc;
 
 /// How to run.
-#[derive(Debug, Clone, Default)]
+#[derive(Debug, Clone)]
 pub struct RunOptions {
     /// Every grid sample in waveforms.csv (else at most 1e6 rows).
     pub full_waveforms: bool,
     /// Report progress on standard error when it is a terminal.
     pub progress: bool,
+    /// Time window of the waveform plot (s); None = the last few cycles.
+    pub window_s: Option<(f64, f64)>,
+    /// Write the plots (PNG and SVG) and the Markdown and HTML reports.
+    pub figures: bool,
+    /// Write input.wav, output.wav and error.wav with these options; None = no WAV files.
+    pub wav: Option<WavOptions>,
+}
+
+impl Default for RunOptions {
+    fn default() -> Self {
+        RunOptions {
+            full_waveforms: false,
+            progress: false,
+            window_s: None,
+            figures: true,
+            wav: Some(WavOptions::default()),
+        }
+    }
 }
 
 /// Run a scenario, measure it and write `report.json` and `waveforms.csv` into `dir` (created when the run
@@ -69,9 +89,64 @@ fn run_inner(sc: &Scenario, out: &OutputDir, opts: &RunOptions) -> Result<Report
     }
     csv.finish()?;
     let metrics = measure_run(&run)?;
-    let report = Report::new(&run.scenario, &run.plan, metrics);
+    let figs = if opts.figures {
+        figures::run_figures(&run, &metrics, opts.window_s)?
+    } else {
+        Vec::new()
+    };
+    let alignment = metrics.detail.alignment;
+    let mut report = Report::new(&run.scenario, &run.plan, metrics);
+    let mut wav_files = None;
+    if let Some(w) = &opts.wav {
+        let (delay, gain, offset) = if alignment.delay_s.is_finite() && alignment.gain.is_finite() {
+            (alignment.delay_s, alignment.gain, alignment.offset_v)
+        } else {
+            (report.latency.measured_s, 1.0, 0.0)
+        };
+        match listening_set(
+            &run.source_record.volts,
+            &run.output_record.volts,
+            run.plan.out_rate_hz,
+            delay,
+            gain,
+            offset,
+            w,
+        ) {
+            Ok(set) => {
+                report.listening = Some(ListeningInfo {
+                    rate_hz: set.rate_hz,
+                    format: match w.format {
+                        WavFormat::Int24 => "int24".into(),
+                        WavFormat::Float32 => "float32".into(),
+                    },
+                    length_samples: set.length,
+                    full_scale_v: set.full_scale_v,
+                    error_gain_used: set.error_gain_used,
+                    error_rms_v: set.error_rms_v,
+                });
+                wav_files = Some(set);
+            }
+            Err(e) => report
+                .scenario
+                .warnings
+                .push(format!("listening files not written: {e}")),
+        }
+    }
     let json = serde_json::to_vec_pretty(&report).map_err(|e| Error::Run(e.to_string()))?;
     out.commit("waveforms.csv")?;
+    for f in &figs {
+        out.write(&format!("{}.png", f.name), &f.png)?;
+        out.write(&format!("{}.svg", f.name), f.svg.as_bytes())?;
+    }
+    if let Some(set) = &wav_files {
+        out.write("input.wav", &set.input)?;
+        out.write("output.wav", &set.output)?;
+        out.write("error.wav", &set.error)?;
+    }
+    if opts.figures {
+        out.write("report.md", document::markdown(&report, &figs).as_bytes())?;
+        out.write("report.html", document::html(&report, &figs).as_bytes())?;
+    }
     out.write("report.json", &json)?;
     Ok(report)
 }
@@ -235,9 +310,17 @@ pub fn static_to_dir(sc: &Scenario, dir: &Path) -> Result<StaticReport> {
         scenario: sc.name.clone(),
         stat,
     };
-    let out = OutputDir::create(dir)?;
+    let figs = figures::static_figures(&sc.name, &report.stat)?;
     let json = serde_json::to_vec_pretty(&report).map_err(|e| Error::Run(e.to_string()))?;
-    if let Err(e) = out.write("static.json", &json) {
+    let out = OutputDir::create(dir)?;
+    let written = (|| {
+        for f in &figs {
+            out.write(&format!("{}.png", f.name), &f.png)?;
+            out.write(&format!("{}.svg", f.name), f.svg.as_bytes())?;
+        }
+        out.write("static.json", &json)
+    })();
+    if let Err(e) = written {
         out.abandon();
         return Err(e);
     }

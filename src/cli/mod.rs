@@ -36,6 +36,45 @@ enum Command {
         /// Print the report as JSON on standard output instead of the table.
         #[arg(long)]
         json: bool,
+        /// Time window of the waveform plot, e.g. "10 ms..12 ms" (default: the last few cycles).
+        #[arg(long, value_name = "START..END")]
+        window: Option<String>,
+        /// Sample rate of the WAV files (Hz).
+        #[arg(long, default_value_t = 48000)]
+        wav_rate: u32,
+        /// Sample format of the WAV files.
+        #[arg(long, value_enum, default_value_t = WavFormatArg::Int24)]
+        wav_format: WavFormatArg,
+        /// Gain applied to error.wav (lowered automatically if it would clip).
+        #[arg(long, default_value_t = 1.0)]
+        listen_gain: f64,
+        /// Do not write the WAV files.
+        #[arg(long)]
+        no_wav: bool,
+        /// Do not write the plots and the Markdown/HTML reports.
+        #[arg(long)]
+        no_plots: bool,
+    },
+    /// Write generated demo audio (no recording is shipped) to listen to a chain with.
+    Audio {
+        /// What to generate.
+        #[arg(value_enum)]
+        kind: AudioKind,
+        /// Folder to write into (default: the current folder).
+        #[arg(long)]
+        out: Option<PathBuf>,
+        /// Length in seconds.
+        #[arg(long, default_value_t = 4.0)]
+        seconds: f64,
+        /// Sample rate (Hz).
+        #[arg(long, default_value_t = 48000)]
+        rate: u32,
+        /// Bits per sample: 16 or 24 (integer), or 32 for float.
+        #[arg(long, default_value_t = 16)]
+        bits: u16,
+        /// Write two channels (the second is the first inverted).
+        #[arg(long)]
+        stereo: bool,
     },
     /// Check a scenario file without running it.
     Check { scenario: PathBuf },
@@ -59,6 +98,37 @@ enum Command {
         #[arg(long, short)]
         quiet: bool,
     },
+}
+
+#[derive(clap::ValueEnum, Clone, Copy, Debug)]
+enum WavFormatArg {
+    Int24,
+    Float32,
+}
+
+#[derive(clap::ValueEnum, Clone, Copy, Debug)]
+enum AudioKind {
+    /// A major chord with a slow attack and decay.
+    Chord,
+    /// A voice-like sound whose formants glide between vowels.
+    Formant,
+}
+
+/// Parse `START..END` with time units.
+fn parse_window(text: &str) -> Result<(f64, f64), Error> {
+    use convchain::scenario::units::{Dimension, parse_quantity};
+    let bad = |why: String| {
+        Error::BadInput(format!(
+            "--window {text}: {why}; write it as START..END with times, e.g. \"10 ms..12 ms\""
+        ))
+    };
+    let (a, b) = text.split_once("..").ok_or_else(|| bad("no `..`".into()))?;
+    let a = parse_quantity(a.trim(), Dimension::Time).map_err(|e| bad(e.message))?;
+    let b = parse_quantity(b.trim(), Dimension::Time).map_err(|e| bad(e.message))?;
+    if b <= a {
+        return Err(bad("the end must come after the start".into()));
+    }
+    Ok((a, b))
 }
 
 /// Entry point: run, print errors with their causes, map them to exit codes.
@@ -162,7 +232,21 @@ fn run(args: Args) -> anyhow::Result<()> {
             full,
             quiet,
             json,
+            window,
+            wav_rate,
+            wav_format,
+            listen_gain,
+            no_wav,
+            no_plots,
         } => {
+            let window_s = window.as_deref().map(parse_window).transpose()?;
+            if wav_rate < 8000 || !(listen_gain.is_finite() && listen_gain > 0.0) {
+                return Err(Error::BadInput(
+                    "--wav-rate must be at least 8000 Hz and --listen-gain a positive number"
+                        .into(),
+                )
+                .into());
+            }
             let sc = load(scenario.as_deref())?;
             print_warnings(&sc, quiet);
             let dir = out_dir(out, &sc);
@@ -170,6 +254,16 @@ fn run(args: Args) -> anyhow::Result<()> {
             let opts = convchain::RunOptions {
                 full_waveforms: full,
                 progress: !quiet && !json,
+                window_s,
+                figures: !no_plots,
+                wav: (!no_wav).then_some(convchain::report::wav::WavOptions {
+                    rate_hz: wav_rate,
+                    format: match wav_format {
+                        WavFormatArg::Int24 => convchain::report::wav::WavFormat::Int24,
+                        WavFormatArg::Float32 => convchain::report::wav::WavFormat::Float32,
+                    },
+                    listen_gain,
+                }),
             };
             let report = convchain::run_to_dir(&sc, &dir, &opts)?;
             let mut o = stdout.lock();
@@ -179,6 +273,55 @@ fn run(args: Args) -> anyhow::Result<()> {
                 write!(o, "{}", convchain::report::table::summary(&report))?;
                 writeln!(o, "wrote {}", dir.display())?;
             }
+        }
+        Command::Audio {
+            kind,
+            out,
+            seconds,
+            rate,
+            bits,
+            stereo,
+        } => {
+            use convchain::report::demo_audio;
+            if !(seconds > 0.0 && seconds <= 600.0) || rate < 8000 || ![16, 24, 32].contains(&bits)
+            {
+                return Err(Error::BadInput(
+                    "--seconds must be in (0, 600], --rate at least 8000, --bits 16, 24 or 32"
+                        .into(),
+                )
+                .into());
+            }
+            let dir = out.unwrap_or_else(|| PathBuf::from("."));
+            let (name, samples) = match kind {
+                AudioKind::Chord => ("chord.wav", demo_audio::chord(rate, seconds)),
+                AudioKind::Formant => ("formant.wav", demo_audio::formant_sweep(rate, seconds)),
+            };
+            let path = dir.join(name);
+            if path.exists() {
+                return Err(Error::BadInput(format!(
+                    "{} already exists; convchain does not overwrite files (remove it or choose another --out)",
+                    path.display()
+                ))
+                .into());
+            }
+            std::fs::create_dir_all(&dir).map_err(|e| Error::Write {
+                path: dir.clone(),
+                source: e,
+            })?;
+            let tmp = dir.join(format!(".{name}.tmp"));
+            demo_audio::write_file(
+                &tmp,
+                &samples,
+                rate,
+                bits,
+                bits == 32,
+                if stereo { 2 } else { 1 },
+            )?;
+            std::fs::rename(&tmp, &path).map_err(|e| Error::Write {
+                path: path.clone(),
+                source: e,
+            })?;
+            writeln!(stdout.lock(), "wrote {}", path.display())?;
         }
         Command::Static {
             scenario,

@@ -323,6 +323,10 @@ pub struct RunOutput {
     pub source_record: AnalogRecord,
     pub output_record: AnalogRecord,
     pub capture: Capture,
+    /// Converter events within the capture window: ADC codes by sampling instant, DAC input codes by the instant
+    /// they take effect (for plots of sample instants and the DAC staircase).
+    pub capture_adc_events: Vec<CodeEvent>,
+    pub capture_dac_events: Vec<CodeEvent>,
     pub codes_clipped: u64,
     pub bits_flipped: u64,
     /// The built chain, for analytic responses and the latency budget.
@@ -560,6 +564,9 @@ pub fn run(
         codes: Vec::with_capacity(a.record_len),
     });
     let mut k: u64 = 0;
+    let capture_t0_s = tb.time_s(plan.capture_n0);
+    let mut capture_adc_events: Vec<CodeEvent> = Vec::new();
+    let mut capture_dac_events: Vec<CodeEvent> = Vec::new();
     let mut dac_pending: Vec<CodeEvent> = Vec::new();
     let mut link_buf_a: Vec<CodeEvent> = Vec::new();
     let mut link_buf_b: Vec<CodeEvent> = Vec::new();
@@ -627,6 +634,9 @@ pub fn run(
                     if sink.is_some() {
                         adc_seen.push(ev);
                     }
+                    if ev.t_sample_s >= capture_t0_s {
+                        capture_adc_events.push(ev);
+                    }
                     link_buf_a.clear();
                     link_buf_a.push(ev);
                     for (_, link, _) in conv.links.iter_mut() {
@@ -636,6 +646,8 @@ pub fn run(
                         }
                         std::mem::swap(&mut link_buf_a, &mut link_buf_b);
                     }
+                    capture_dac_events
+                        .extend(link_buf_a.iter().filter(|e| e.t_avail_s >= capture_t0_s));
                     dac_pending.append(&mut link_buf_a);
                     k += 1;
                 }
@@ -760,6 +772,8 @@ pub fn run(
         source_record,
         output_record,
         capture,
+        capture_adc_events,
+        capture_dac_events,
         codes_clipped,
         bits_flipped,
         chain,

@@ -7,7 +7,7 @@ use crate::engine::pipeline::RunOutput;
 use crate::error::Result;
 use crate::measure::latency::{self, BudgetLine};
 use crate::measure::metrics::{self, MetricsConfig, ToneMetrics};
-use crate::measure::spectrum::SpectrumAnalyzer;
+use crate::measure::spectrum::{Spectrum, SpectrumAnalyzer};
 use crate::measure::{fidelity, sinefit};
 use crate::scenario::Waveform;
 
@@ -72,12 +72,31 @@ pub struct LatencyMetrics {
     pub flagged: bool,
 }
 
+/// A spectrum kept for plots, with its tone analysis and the full-scale reference of its dBFS.
+#[derive(Debug, Clone)]
+pub struct SpectrumDetail {
+    pub spectrum: Spectrum,
+    pub tones: Option<ToneMetrics>,
+    pub full_scale_peak_v: f64,
+}
+
+/// What plots and listening files need beyond the report's numbers.
+#[derive(Debug, Clone)]
+pub struct Detail {
+    pub adc: Option<SpectrumDetail>,
+    pub output: SpectrumDetail,
+    /// Best delay, gain and offset of the output against the source (full bandwidth).
+    pub alignment: fidelity::Fidelity,
+}
+
 /// Everything measured on one run.
 #[derive(Debug, Clone, Serialize)]
 pub struct ChainMetrics {
     pub adc: Option<AdcMetrics>,
     pub output: OutputMetrics,
     pub latency: LatencyMetrics,
+    #[serde(skip)]
+    pub detail: Detail,
 }
 
 fn finite(x: f64) -> Option<f64> {
@@ -111,6 +130,7 @@ pub fn measure_run(run: &RunOutput) -> Result<ChainMetrics> {
         .unwrap_or(1.0);
 
     // ---- ADC record
+    let mut adc_detail = None;
     let adc = match (&plan.adc, &run.adc_codes) {
         (Some(p), Some(rec)) => {
             let q = (p.range_v.1 - p.range_v.0) / f64::powi(2.0, p.bits as i32);
@@ -140,6 +160,11 @@ pub fn measure_run(run: &RunOutput) -> Result<ChainMetrics> {
                 let fit = sinefit::fit3(&volts, p.sample_rate_hz, f, t0);
                 sinefit::enob_from_residual(p.bits, q, fit.residual_rms_v)
             });
+            adc_detail = Some(SpectrumDetail {
+                spectrum: spec,
+                tones: tm.clone(),
+                full_scale_peak_v: fs_peak,
+            });
             Some(AdcMetrics {
                 bits: p.bits,
                 sample_rate_hz: p.sample_rate_hz,
@@ -168,6 +193,11 @@ pub fn measure_run(run: &RunOutput) -> Result<ChainMetrics> {
     let mut an = SpectrumAnalyzer::new(out.len(), sc.analysis.window)?;
     let src_tm: Option<ToneMetrics>;
     let out_tm: Option<ToneMetrics>;
+    let spec_out = an.power_spectrum(out, rate)?;
+    let mut out_full_scale = plan
+        .adc
+        .map(|a| (a.range_v.1 - a.range_v.0) / 2.0)
+        .unwrap_or_else(|| src_amp.unwrap_or(1.0).abs().max(1e-30));
     if sine_like {
         let spec_src = an.power_spectrum(src, rate)?;
         src_tm = Some(metrics::tone_metrics(
@@ -179,7 +209,6 @@ pub fn measure_run(run: &RunOutput) -> Result<ChainMetrics> {
                 fundamental_hz: f0,
             },
         )?);
-        let spec_out = an.power_spectrum(out, rate)?;
         // Input-referred full scale: the output amplitude that a full-scale signal at the ADC would give.
         let a_in = src_amp.unwrap_or(1.0).abs() * pre_gain;
         let fs_in = plan
@@ -201,6 +230,7 @@ pub fn measure_run(run: &RunOutput) -> Result<ChainMetrics> {
         } else {
             1.0
         };
+        out_full_scale = full_scale.max(1e-30);
         out_tm = Some(metrics::tone_metrics(
             &spec_out,
             &MetricsConfig {
@@ -260,7 +290,17 @@ pub fn measure_run(run: &RunOutput) -> Result<ChainMetrics> {
     let flagged =
         difference_s.abs() > 0.05 * budget_s.abs() && difference_s.abs() > 0.1 * sample_period;
 
+    let detail = Detail {
+        adc: adc_detail,
+        output: SpectrumDetail {
+            spectrum: spec_out,
+            tones: out_tm.clone(),
+            full_scale_peak_v: out_full_scale,
+        },
+        alignment: fid,
+    };
     Ok(ChainMetrics {
+        detail,
         adc,
         output: OutputMetrics {
             analysis_rate_hz: rate,

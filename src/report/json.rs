@@ -19,6 +19,21 @@ pub struct Report {
     pub output: OutputMetrics,
     pub latency: LatencyMetrics,
     pub run: RunInfo,
+    /// The listening files, when written.
+    pub listening: Option<ListeningInfo>,
+}
+
+/// What the WAV files hold.
+#[derive(Debug, Clone, Serialize)]
+pub struct ListeningInfo {
+    pub rate_hz: u32,
+    pub format: String,
+    pub length_samples: usize,
+    /// Volts that map to digital full scale in input.wav and output.wav.
+    pub full_scale_v: f64,
+    /// Gain applied to error.wav (the asked gain, lowered if it would clip).
+    pub error_gain_used: f64,
+    pub error_rms_v: f64,
 }
 
 /// Where the run came from.
@@ -77,6 +92,7 @@ impl Report {
                 capture_start_s: plan.timebase.time_s(plan.capture_n0),
                 capture_length: plan.capture_len,
             },
+            listening: None,
         }
     }
 }

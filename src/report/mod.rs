@@ -3,6 +3,8 @@
 
 pub mod csv;
 pub mod demo_audio;
+pub mod document;
+pub mod figures;
 pub mod json;
 pub mod plot;
 pub mod table;

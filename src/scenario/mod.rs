@@ -137,6 +137,7 @@ pub enum Waveform {
     },
     /// A WAV file; sample value +-1.0 (full scale) maps to +-`full_scale_v` volts.
     Wav {
+        /// As written in the scenario: relative paths are taken from [`Scenario::base_dir`].
         path: PathBuf,
         /// Zero-based channel index.
         channel: usize,

@@ -416,9 +416,9 @@ fn wav(r: &mut TableReader<'_, '_>, base_dir: &Path) -> Result<Waveform, Scenari
     let repeat = r.boolean("repeat")?.is_none_or(|q| q.value);
     let given = PathBuf::from(file.value);
     let path = if given.is_absolute() {
-        given
+        given.clone()
     } else {
-        base_dir.join(given)
+        base_dir.join(&given)
     };
     let reader = hound::WavReader::open(&path).map_err(|e| {
         r.error(
@@ -454,7 +454,7 @@ fn wav(r: &mut TableReader<'_, '_>, base_dir: &Path) -> Result<Waveform, Scenari
             )));
     }
     Ok(Waveform::Wav {
-        path,
+        path: given,
         channel: channel_index,
         full_scale_v,
         repeat,
@@ -1675,12 +1675,13 @@ clock = "2 MHz"
         assert_eq!(
             s.source.waveform,
             Waveform::Wav {
-                path: dir.path().join("take1.wav"),
+                path: PathBuf::from("take1.wav"),
                 channel: 1,
                 full_scale_v: 1.0,
                 repeat: true
             }
         );
+        assert_eq!(s.base_dir, dir.path());
         let text = format!("{head}channel = 2\n");
         let e = parse_str(&text, "t.toml", dir.path()).unwrap_err();
         assert_eq!(e.key_path, "source.channel");

@@ -1,0 +1,206 @@
+//! report.md (plots beside a summary table) and report.html (self-contained: inline SVG, inline style, no
+//! scripts, no network).
+
+use std::fmt::Write;
+
+use crate::engine::pipeline::si;
+use crate::report::figures::Figure;
+use crate::report::json::Report;
+
+fn opt(v: Option<f64>, unit: &str) -> String {
+    v.map(|x| format!("{x:.2} {unit}"))
+        .unwrap_or_else(|| "–".into())
+}
+
+/// Rows of the metrics table: (name, ADC codes, analog output).
+fn metric_rows(r: &Report) -> Vec<(&'static str, String, String)> {
+    let a = r.adc.as_ref().map(|a| &a.metrics);
+    let o = &r.output;
+    vec![
+        (
+            "SNR",
+            opt(a.and_then(|a| a.snr_db), "dB"),
+            opt(o.snr_db, "dB"),
+        ),
+        (
+            "SINAD",
+            opt(a.and_then(|a| a.sinad_db), "dB"),
+            opt(o.sinad_db, "dB"),
+        ),
+        (
+            "ENOB (SINAD)",
+            opt(a.and_then(|a| a.enob_bits), "bits"),
+            opt(o.enob_bits, "bits"),
+        ),
+        (
+            "ENOB (sine fit)",
+            opt(a.and_then(|a| a.enob_sinefit_bits), "bits"),
+            "".into(),
+        ),
+        (
+            "THD",
+            opt(a.and_then(|a| a.thd_db), "dB"),
+            opt(o.thd_db, "dB"),
+        ),
+        (
+            "SFDR",
+            opt(a.and_then(|a| a.sfdr_dbc), "dBc"),
+            opt(o.sfdr_dbc, "dBc"),
+        ),
+        ("gain", "".into(), opt(o.gain_db, "dB")),
+        ("fidelity", "".into(), format!("{:.2} dB", o.fidelity_db)),
+    ]
+}
+
+fn latency_rows(r: &Report) -> Vec<(String, String)> {
+    let l = &r.latency;
+    let mut rows: Vec<(String, String)> = l
+        .budget
+        .iter()
+        .map(|b| (b.stage.clone(), si(b.seconds, "s")))
+        .collect();
+    rows.push(("total (budget)".into(), si(l.budget_s, "s")));
+    rows.push(("measured (cross-correlation)".into(), si(l.measured_s, "s")));
+    if let Some(p) = l.phase_delay_s {
+        rows.push(("phase delay at the fundamental".into(), si(p, "s")));
+    }
+    rows.push((
+        format!(
+            "measured - budget{}",
+            if l.flagged { " (large)" } else { "" }
+        ),
+        si(l.difference_s, "s"),
+    ));
+    rows
+}
+
+/// Markdown report; images are referenced as `<name>.png` beside it.
+pub fn markdown(r: &Report, figures: &[Figure]) -> String {
+    let mut s = String::new();
+    let _ = writeln!(s, "# {}\n", r.scenario.name);
+    if !r.scenario.description.is_empty() {
+        let _ = writeln!(s, "{}\n", r.scenario.description);
+    }
+    let _ = writeln!(
+        s,
+        "Scenario: `{}`, seed {}.\n",
+        r.scenario.origin, r.scenario.seed
+    );
+    if let (Some(req), Some(used)) = (r.run.requested_frequency_hz, r.run.frequency_hz)
+        && req != used
+    {
+        let _ = writeln!(
+            s,
+            "The source was moved from {} to {} for coherent sampling.\n",
+            si(req, "Hz"),
+            si(used, "Hz")
+        );
+    }
+    let _ = writeln!(
+        s,
+        "## Metrics\n\n| | ADC codes | analog output |\n|---|---:|---:|"
+    );
+    for (n, a, o) in metric_rows(r) {
+        let _ = writeln!(s, "| {n} | {a} | {o} |");
+    }
+    let _ = writeln!(s, "\n## Latency\n\n| stage | delay |\n|---|---:|");
+    for (n, v) in latency_rows(r) {
+        let _ = writeln!(s, "| {n} | {v} |");
+    }
+    if let Some(l) = &r.listening {
+        let _ = writeln!(
+            s,
+            "\n## Listening\n\n`input.wav`, `output.wav` and `error.wav` at {} Hz; input and output share one scale \
+             ({} full scale); the error file is amplified {:.1}x. Play them at low volume first.",
+            l.rate_hz,
+            si(l.full_scale_v, "V"),
+            l.error_gain_used
+        );
+    }
+    let _ = writeln!(s, "\n## Figures\n");
+    for f in figures {
+        let _ = writeln!(s, "![{}]({}.png)\n\n{}\n", f.caption, f.name, f.caption);
+    }
+    for w in &r.scenario.warnings {
+        let _ = writeln!(s, "> warning: {w}\n");
+    }
+    s
+}
+
+fn esc(t: &str) -> String {
+    t.replace('&', "&amp;")
+        .replace('<', "&lt;")
+        .replace('>', "&gt;")
+}
+
+/// Self-contained HTML report with the figures inline as SVG.
+pub fn html(r: &Report, figures: &[Figure]) -> String {
+    let mut s = String::new();
+    let _ = write!(
+        s,
+        "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\"><title>{}</title>\n<style>\
+body{{font-family:sans-serif;max-width:1100px;margin:2em auto;color:#111;background:#fff}}\
+table{{border-collapse:collapse;margin:1em 0}}td,th{{border:1px solid #bbb;padding:.3em .7em}}\
+td.n{{text-align:right;font-variant-numeric:tabular-nums}}figure{{margin:2em 0}}svg{{max-width:100%;height:auto}}\
+figcaption{{color:#444}}</style></head><body>\n",
+        esc(&r.scenario.name)
+    );
+    let _ = writeln!(s, "<h1>{}</h1>", esc(&r.scenario.name));
+    if !r.scenario.description.is_empty() {
+        let _ = writeln!(s, "<p>{}</p>", esc(&r.scenario.description));
+    }
+    let _ = writeln!(
+        s,
+        "<p>Scenario <code>{}</code>, seed {}.</p>",
+        esc(&r.scenario.origin),
+        r.scenario.seed
+    );
+    let _ = writeln!(
+        s,
+        "<h2>Metrics</h2><table><tr><th></th><th>ADC codes</th><th>analog output</th></tr>"
+    );
+    for (n, a, o) in metric_rows(r) {
+        let _ = writeln!(
+            s,
+            "<tr><td>{n}</td><td class=\"n\">{}</td><td class=\"n\">{}</td></tr>",
+            esc(&a),
+            esc(&o)
+        );
+    }
+    let _ = writeln!(
+        s,
+        "</table><h2>Latency</h2><table><tr><th>stage</th><th>delay</th></tr>"
+    );
+    for (n, v) in latency_rows(r) {
+        let _ = writeln!(
+            s,
+            "<tr><td>{}</td><td class=\"n\">{}</td></tr>",
+            esc(&n),
+            esc(&v)
+        );
+    }
+    let _ = writeln!(s, "</table>");
+    if r.listening.is_some() {
+        let _ = writeln!(
+            s,
+            "<p>Listening files: <code>input.wav</code>, <code>output.wav</code>, <code>error.wav</code>. Play them at \
+             low volume first.</p>"
+        );
+    }
+    for f in figures {
+        let svg = match f.svg.find("<svg") {
+            Some(i) => &f.svg[i..],
+            None => &f.svg[..],
+        };
+        let _ = writeln!(
+            s,
+            "<figure>{svg}<figcaption>{}</figcaption></figure>",
+            esc(&f.caption)
+        );
+    }
+    for w in &r.scenario.warnings {
+        let _ = writeln!(s, "<p><strong>warning:</strong> {}</p>", esc(w));
+    }
+    s.push_str("</body></html>\n");
+    s
+}
