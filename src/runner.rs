@@ -98,10 +98,17 @@ fn run_inner(sc: &Scenario, out: &OutputDir, opts: &RunOptions) -> Result<Report
     let mut report = Report::new(&run.scenario, &run.plan, metrics);
     let mut wav_files = None;
     if let Some(w) = &opts.wav {
-        let (delay, gain, offset) = if alignment.delay_s.is_finite() && alignment.gain.is_finite() {
+        // Gain-matched: the fitted gain when it is near the chain's nominal gain; otherwise (a signal lost in
+        // the chain, which a least-squares fit would answer with a gain near zero and a silent error file) the
+        // nominal gain, so the error file says what was lost.
+        let nominal = nominal_gain(&run.scenario);
+        let fitted_ok = alignment.delay_s.is_finite()
+            && alignment.gain.is_finite()
+            && (20.0 * (alignment.gain / nominal).abs().log10()).abs() < 3.0;
+        let (delay, gain, offset) = if fitted_ok {
             (alignment.delay_s, alignment.gain, alignment.offset_v)
         } else {
-            (report.latency.measured_s, 1.0, 0.0)
+            (report.latency.measured_s, nominal, 0.0)
         };
         match listening_set(
             &run.source_record.volts,
@@ -149,6 +156,26 @@ fn run_inner(sc: &Scenario, out: &OutputDir, opts: &RunOptions) -> Result<Report
     }
     out.write("report.json", &json)?;
     Ok(report)
+}
+
+/// The chain's nominal passband gain: amplifier gains times the DAC's span over the ADC's span (filters are
+/// taken as passing their passband unchanged).
+pub fn nominal_gain(sc: &Scenario) -> f64 {
+    let mut g = 1.0;
+    let mut adc_span = None;
+    for st in &sc.stages {
+        match &st.kind {
+            StageKind::Amplifier(a) => g *= a.gain,
+            StageKind::SarAdc(a) => adc_span = Some(a.range_v.1 - a.range_v.0),
+            StageKind::Dac(d) => {
+                if let Some(s) = adc_span {
+                    g *= (d.range_v.1 - d.range_v.0) / s;
+                }
+            }
+            _ => {}
+        }
+    }
+    g
 }
 
 /// Static results of the ADC.

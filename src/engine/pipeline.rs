@@ -783,9 +783,10 @@ pub fn run(
 /// The code held at each grid instant of a block: the latest event whose t_avail_s is at or before the instant.
 fn fill_code_column(tb: Timebase, n0: u64, events: &[CodeEvent], last: &mut u32, out: &mut [u32]) {
     let mut i = 0;
+    let eps_s = 1e-6 * tb.dt_s(); // as the DAC does: rounding must not move a code by a grid step
     for (j, o) in out.iter_mut().enumerate() {
         let t = tb.time_s(n0 + j as u64);
-        while i < events.len() && events[i].t_avail_s <= t {
+        while i < events.len() && events[i].t_avail_s <= t + eps_s {
             *last = events[i].code;
             i += 1;
         }

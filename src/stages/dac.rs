@@ -221,16 +221,19 @@ impl Dac {
         out: &mut [f64],
     ) -> usize {
         let mut i = 0;
+        // An event within a millionth of a grid step after a grid instant is taken as at that instant: event
+        // times are sums of floating-point terms, and a rounding error must not move a step by a whole grid step.
+        let eps_s = 1e-6 * timebase.dt_s();
         for (j, y) in out.iter_mut().enumerate() {
             let t_n = timebase.time_s(n0 + j as u64);
             while let Some(ev) = events.get(i) {
-                if ev.t_avail_s > t_n {
+                if ev.t_avail_s > t_n + eps_s {
                     break;
                 }
-                if ev.t_avail_s > self.t_cur_s {
-                    self.amp
-                        .advance_const(self.target_v, ev.t_avail_s - self.t_cur_s);
-                    self.t_cur_s = ev.t_avail_s;
+                let t_ev = ev.t_avail_s.min(t_n);
+                if t_ev > self.t_cur_s {
+                    self.amp.advance_const(self.target_v, t_ev - self.t_cur_s);
+                    self.t_cur_s = t_ev;
                 }
                 self.target_v = self.level_v(ev.code);
                 i += 1;
@@ -469,6 +472,28 @@ mod tests {
             });
         }
         v
+    }
+
+    #[test]
+    fn a_code_due_at_a_grid_instant_is_not_pushed_a_step_late_by_rounding() {
+        // Availability times are sums like k/fs + t_conv; one ulp past the grid instant must not delay the step
+        // by a whole grid step (that would act like sampling jitter of one grid step on the output).
+        let tb = Timebase::new(4.8e6);
+        let mut dac = Dac::new(
+            &cfg(8, Ladder::Ideal, 0.0, ToleranceDistribution::Uniform),
+            &mut rng(1),
+        );
+        let t = tb.time_s(100);
+        let ev = CodeEvent {
+            t_sample_s: 0.0,
+            t_avail_s: t * (1.0 + 4.0 * f64::EPSILON),
+            code: 200,
+        };
+        assert!(ev.t_avail_s > t);
+        let mut out = vec![0.0; 101];
+        dac.render(tb, 0, &[ev], &mut out);
+        assert_eq!(out[100], dac.level_v(200));
+        assert_eq!(out[99], dac.level_v(0));
     }
 
     #[test]
