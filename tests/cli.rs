@@ -261,3 +261,15 @@ fn static_measures_the_adc_and_the_dac() {
     assert!(r["static"]["adc"]["dnl_max_lsb"].as_f64().unwrap() < 0.1);
     assert_eq!(r["static"]["adc"]["missing_codes"], 0);
 }
+
+#[test]
+fn a_run_too_big_for_memory_is_refused_with_advice() {
+    let d = tempfile::tempdir().unwrap();
+    let text = IDEAL_CHAIN.replace("duration = \"30 ms\"", "duration = \"2000 s\"");
+    fs::write(d.path().join("huge.toml"), text).unwrap();
+    let o = run_in(d.path(), &["run", "huge.toml"]);
+    assert_eq!(o.status.code(), Some(2));
+    let e = stderr(&o);
+    assert!(e.contains("GiB") && e.contains("simulation.duration"), "{e}");
+    assert!(!d.path().join("out").exists());
+}

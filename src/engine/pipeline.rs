@@ -143,6 +143,8 @@ impl Plan {
             }
         };
         let out_rate_hz = sim.analog_rate_hz / out_factor as f64;
+        // Start the analysis on the output analysis grid.
+        let n_settle = n_settle.div_ceil(out_factor as u64) * out_factor as u64;
         let out_record_len = match &adc {
             Some(a) if ratio_integer => {
                 a.record_len * (out_rate_hz / a.sample_rate_hz).round() as usize
@@ -575,6 +577,8 @@ pub fn run(
     let mut last_adc_code = 0u32;
     let mut last_dac_code = 0u32;
 
+    // A closed-form source is sampled directly at the analysis instants; others are decimated like the output.
+    let exact_source = chain.source.is_exact();
     let mut dec_src = Decimator::new(plan.out_factor);
     let mut dec_out = Decimator::new(plan.out_factor);
     let mut src_dec: Vec<f64> = Vec::new();
@@ -710,7 +714,9 @@ pub fn run(
             let end = n0 + len as u64;
             if end > plan.n_settle {
                 let from = plan.n_settle.saturating_sub(n0) as usize;
-                dec_src.push(&cols[0][from..], &mut src_dec);
+                if !exact_source {
+                    dec_src.push(&cols[0][from..], &mut src_dec);
+                }
                 dec_out.push(&out_col[from..], &mut out_dec);
             }
             if end > plan.capture_n0 {
@@ -731,10 +737,18 @@ pub fn run(
         }
         std::mem::swap(&mut front_cur, &mut front_prev);
     }
-    dec_src.flush(&mut src_dec);
     dec_out.flush(&mut out_dec);
+    if exact_source {
+        let d = plan.out_factor as u64;
+        src_dec = (0..out_dec.len() as u64)
+            .map(|m| chain.source.value_at(tb.time_s(plan.n_settle + m * d)))
+            .collect();
+    } else {
+        dec_src.flush(&mut src_dec);
+    }
 
-    // End-aligned output record.
+    // End-aligned output record (n_settle is a multiple of the decimation factor, so the record sits on the
+    // output analysis grid).
     let n_dec = src_dec.len().min(out_dec.len());
     let want = plan.out_record_len.min(n_dec);
     let start = n_dec - want;

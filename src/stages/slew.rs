@@ -37,6 +37,8 @@ pub struct OutputAmp {
     hi_v: f64,
     /// Output voltage (V), always inside the rails.
     v: f64,
+    /// Cache of exp(-dt/tau) for the last step length used on the fast path: (dt, factor).
+    decay_cache: (f64, f64),
 }
 
 /// The region of the error `e = T - v` that a closed-form piece lives in.
@@ -57,6 +59,7 @@ impl OutputAmp {
         let mut amp = OutputAmp {
             slew_v_per_s: cfg.slew_rate_v_per_s.unwrap_or(f64::INFINITY),
             tau_s: cfg.tau_s.unwrap_or(0.0),
+            decay_cache: (f64::NAN, f64::NAN),
             lo_v,
             hi_v,
             v: 0.0,
@@ -84,6 +87,21 @@ impl OutputAmp {
     /// Hold a constant target `target_v` (V) for `dt_s` (s); returns the output at the end (V). Exact.
     /// Without slew limit and time constant the output equals the target at once, even for `dt_s = 0`.
     pub fn advance_const(&mut self, target_v: f64, dt_s: f64) -> f64 {
+        // Fast path for the common case (a DAC settling between codes on a uniform grid): inside the linear
+        // region and within the rails, the first-order decay is all there is, and stays so.
+        let e = target_v - self.v;
+        if self.tau_s > 0.0
+            && dt_s > 0.0
+            && e.abs() <= self.slew_v_per_s * self.tau_s
+            && target_v >= self.lo_v
+            && target_v <= self.hi_v
+        {
+            if self.decay_cache.0 != dt_s {
+                self.decay_cache = (dt_s, (-dt_s / self.tau_s).exp());
+            }
+            self.v = target_v - e * self.decay_cache.1;
+            return self.v;
+        }
         self.advance_linear(target_v, target_v, dt_s)
     }
 

@@ -127,6 +127,24 @@ impl SourceGen {
     pub fn fill(&mut self, n0: u64, out: &mut [f64]) {
         let offset = self.offset_v;
         match &mut self.kind {
+            Kind::Exact(Waveform::Sine {
+                frequency_hz,
+                amplitude_v,
+                phase_rad,
+            }) => {
+                // Rotation recurrence, started exactly at the block's first sample (so rounding cannot build
+                // up beyond one block, about 1e-13 relative), instead of a sine per sample.
+                let t0 = self.timebase.time_s(n0);
+                let ph0 = 2.0 * PI * cycles_frac(*frequency_hz, t0) + *phase_rad;
+                let (mut s, mut c) = ph0.sin_cos();
+                let (ds, dc) = (2.0 * PI * *frequency_hz * self.timebase.dt_s()).sin_cos();
+                for y in out.iter_mut() {
+                    *y = offset + *amplitude_v * s;
+                    let s1 = s * dc + c * ds;
+                    c = c * dc - s * ds;
+                    s = s1;
+                }
+            }
             Kind::Exact(w) => {
                 for (i, y) in out.iter_mut().enumerate() {
                     let t = self.timebase.time_s(n0 + i as u64);
