@@ -270,6 +270,9 @@ fn a_run_too_big_for_memory_is_refused_with_advice() {
     let o = run_in(d.path(), &["run", "huge.toml"]);
     assert_eq!(o.status.code(), Some(2));
     let e = stderr(&o);
-    assert!(e.contains("GiB") && e.contains("simulation.duration"), "{e}");
+    assert!(
+        e.contains("GiB") && e.contains("simulation.duration"),
+        "{e}"
+    );
     assert!(!d.path().join("out").exists());
 }

@@ -581,8 +581,9 @@ pub fn run(
     let exact_source = chain.source.is_exact();
     let mut dec_src = Decimator::new(plan.out_factor);
     let mut dec_out = Decimator::new(plan.out_factor);
-    let mut src_dec: Vec<f64> = Vec::new();
-    let mut out_dec: Vec<f64> = Vec::new();
+    let dec_len = (plan.n_total - plan.n_settle) as usize / plan.out_factor + 16;
+    let mut src_dec: Vec<f64> = Vec::with_capacity(if exact_source { 0 } else { dec_len });
+    let mut out_dec: Vec<f64> = Vec::with_capacity(dec_len);
     let mut capture: Vec<Vec<f64>> = vec![Vec::with_capacity(plan.capture_len); labels.len()];
 
     let end_s = sc.simulation.duration_s;

@@ -224,6 +224,14 @@ impl Dac {
         // An event within a millionth of a grid step after a grid instant is taken as at that instant: event
         // times are sums of floating-point terms, and a rounding error must not move a step by a whole grid step.
         let eps_s = 1e-6 * timebase.dt_s();
+        let grid_dt_s = timebase.dt_s();
+        // A whole grid step with no event in it uses the grid step itself (not the difference of two rounded
+        // instants), so the amplifier's cached decay factor applies.
+        let mut prev_t = if n0 > 0 {
+            timebase.time_s(n0 - 1)
+        } else {
+            f64::NAN
+        };
         for (j, y) in out.iter_mut().enumerate() {
             let t_n = timebase.time_s(n0 + j as u64);
             while let Some(ev) = events.get(i) {
@@ -238,9 +246,14 @@ impl Dac {
                 self.target_v = self.level_v(ev.code);
                 i += 1;
             }
-            let dt = (t_n - self.t_cur_s).max(0.0);
+            let dt = if self.t_cur_s == prev_t {
+                grid_dt_s
+            } else {
+                (t_n - self.t_cur_s).max(0.0)
+            };
             *y = self.amp.advance_const(self.target_v, dt);
             self.t_cur_s = self.t_cur_s.max(t_n);
+            prev_t = t_n;
         }
         i
     }

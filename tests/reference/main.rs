@@ -7,14 +7,22 @@ use convchain::engine::pipeline::{self, RunOutput};
 use convchain::measure::chain::{ChainMetrics, measure_run};
 
 fn run(text: &str) -> (RunOutput, ChainMetrics) {
-    let sc = convchain::scenario::parse_str(text, "reference.toml", Path::new(".")).expect("scenario parses");
+    let sc = convchain::scenario::parse_str(text, "reference.toml", Path::new("."))
+        .expect("scenario parses");
     let r = pipeline::run(&sc, None, &mut |_| {}).expect("runs");
     let m = measure_run(&r).expect("measures");
     (r, m)
 }
 
 /// sine -> [extra stages] -> ideal SAR -> ideal DAC, on a grid of 100 x the conversion rate.
-fn chain(bits: u32, fs_hz: f64, f_hz: f64, amplitude_v: f64, before_adc: &str, duration_s: f64) -> String {
+fn chain(
+    bits: u32,
+    fs_hz: f64,
+    f_hz: f64,
+    amplitude_v: f64,
+    before_adc: &str,
+    duration_s: f64,
+) -> String {
     format!(
         r#"
 name = "reference"
@@ -57,7 +65,10 @@ fn ideal_converter_snr_follows_bennett_for_4_to_16_bits() {
         let expect = 6.02 * bits as f64 + 1.76 + 20.0 * 0.999f64.log10();
         let tol = if bits <= 5 { 0.35 } else { 0.2 };
         let snr = a.sinad_db.unwrap();
-        assert!((snr - expect).abs() < tol, "{bits} bits: SINAD {snr:.3} dB vs {expect:.3} dB");
+        assert!(
+            (snr - expect).abs() < tol,
+            "{bits} bits: SINAD {snr:.3} dB vs {expect:.3} dB"
+        );
     }
 }
 
@@ -69,8 +80,14 @@ fn sine_fit_enob_and_fft_enob_agree_on_ideal_8_and_12_bit_converters() {
         let (_, m) = run(&chain(bits, 100e3, 2.71e3, 0.95, "", 40e-3));
         let a = m.adc.unwrap();
         let (fft, fit) = (a.enob_bits.unwrap(), a.enob_sinefit_bits.unwrap());
-        assert!((fft - fit).abs() < 0.1, "{bits} bits: FFT {fft:.3} vs fit {fit:.3}");
-        assert!((fit - bits as f64).abs() < 0.1, "{bits} bits: fit ENOB {fit:.3}");
+        assert!(
+            (fft - fit).abs() < 0.1,
+            "{bits} bits: FFT {fft:.3} vs fit {fit:.3}"
+        );
+        assert!(
+            (fit - bits as f64).abs() < 0.1,
+            "{bits} bits: fit ENOB {fit:.3}"
+        );
     }
 }
 
@@ -86,10 +103,16 @@ fn zero_order_hold_droops_as_sinc_and_delays_half_a_period() {
         let x = std::f64::consts::PI * f / fs;
         let sinc_db = 20.0 * (x.sin() / x).log10();
         let gain = m.output.gain_db.unwrap();
-        assert!((gain - sinc_db).abs() < 0.05, "f = {f:.1} Hz: gain {gain:.4} dB vs sinc {sinc_db:.4} dB");
+        assert!(
+            (gain - sinc_db).abs() < 0.05,
+            "f = {f:.1} Hz: gain {gain:.4} dB vs sinc {sinc_db:.4} dB"
+        );
         let expect = 0.8 / fs + 0.5 / fs;
         let phase = m.latency.phase_delay_s.unwrap();
-        assert!((phase - expect).abs() < 0.01 / fs, "f = {f:.1} Hz: phase delay {phase:e} vs {expect:e}");
+        assert!(
+            (phase - expect).abs() < 0.01 / fs,
+            "f = {f:.1} Hz: phase delay {phase:e} vs {expect:e}"
+        );
     }
 }
 
