@@ -214,7 +214,10 @@ pub fn candidates(text: &ScenarioText, sc: &Scenario) -> Vec<Candidate> {
                         "dac.settling",
                         label,
                         "settling (tau) removed",
-                        vec![Edit::Remove(key("settling")), Edit::Remove(key("bandwidth"))],
+                        vec![
+                            Edit::Remove(key("settling")),
+                            Edit::Remove(key("bandwidth")),
+                        ],
                     );
                 }
                 if c.ladder != Ladder::Ideal && c.tolerance > 0.0 {
@@ -240,7 +243,10 @@ pub fn candidates(text: &ScenarioText, sc: &Scenario) -> Vec<Candidate> {
                         "amplifier.settling",
                         label,
                         "settling (tau) removed",
-                        vec![Edit::Remove(key("settling")), Edit::Remove(key("bandwidth"))],
+                        vec![
+                            Edit::Remove(key("settling")),
+                            Edit::Remove(key("bandwidth")),
+                        ],
                     );
                 }
             }
@@ -341,7 +347,9 @@ fn rates_of_interest(sc: &Scenario) -> (Vec<f64>, Option<f64>) {
             StageKind::SarAdc(c) => v.push(c.effective_sample_rate_hz()),
             StageKind::Filter(f) => match f.response {
                 FilterResponse::Lowpass => v.push(f.cutoff_hz),
-                FilterResponse::Highpass => hp = Some(hp.map_or(f.cutoff_hz, |h| h.max(f.cutoff_hz))),
+                FilterResponse::Highpass => {
+                    hp = Some(hp.map_or(f.cutoff_hz, |h| h.max(f.cutoff_hz)))
+                }
             },
             StageKind::Amplifier(a) => {
                 if let Some(t) = a.output.tau_s {

@@ -286,11 +286,7 @@ pub struct SweepOptions {
 pub fn simulate(sc: &Scenario) -> Result<(Option<f64>, Option<f64>, ChainMetrics)> {
     let run = pipeline::run(sc, None, &mut |_| {})?;
     let m = measure_run(&run)?;
-    Ok((
-        run.plan.requested_frequency_hz,
-        run.plan.frequency_hz,
-        m,
-    ))
+    Ok((run.plan.requested_frequency_hz, run.plan.frequency_hz, m))
 }
 
 /// A rayon pool of `threads` workers (None or 0: one per core).
@@ -318,7 +314,11 @@ pub fn progress_bar(n: usize, show: bool, what: &str) -> Option<indicatif::Progr
 /// Run every point of the sweep. Every point's scenario is checked (and planned) before any runs, so a value
 /// the scenario cannot take is reported as bad input at once; a point that fails while running is kept as a
 /// row with its error.
-pub fn run_sweep(text: &ScenarioText, spec: &SweepSpec, opts: &SweepOptions) -> Result<SweepResult> {
+pub fn run_sweep(
+    text: &ScenarioText,
+    spec: &SweepSpec,
+    opts: &SweepOptions,
+) -> Result<SweepResult> {
     if spec.vary.is_empty() {
         return Err(Error::BadInput(
             "give at least one --vary KEY=FROM..TO".into(),
@@ -476,7 +476,12 @@ impl SweepResult {
 
     /// The plots: (file stem, plot title, y label, metric columns). One series per metric and per combination of
     /// the other keys' values.
-    pub const PLOTS: &'static [(&'static str, &'static str, &'static str, &'static [&'static str])] = &[
+    pub const PLOTS: &'static [(
+        &'static str,
+        &'static str,
+        &'static str,
+        &'static [&'static str],
+    )] = &[
         (
             "sweep-enob",
             "ENOB",
@@ -524,7 +529,14 @@ impl SweepResult {
                 }
                 let mut label = name.to_string();
                 for (v, val) in self.spec.vary[1..].iter().zip(rest) {
-                    label.push_str(&format!(", {}={}", v.key, val));
+                    let shown = match key_dimension(&v.key) {
+                        Some(Dimension::Angle) => format!("{val} deg"),
+                        Some(d) if d != Dimension::Gain && !d.base_unit().is_empty() => {
+                            crate::scenario::units::format_si(*val, d.base_unit())
+                        }
+                        _ => val.to_string(),
+                    };
+                    label.push_str(&format!(", {}={shown}", v.key));
                 }
                 out.push((label, x, y));
             }
@@ -538,8 +550,8 @@ pub fn write_sweep(result: &SweepResult, dir: &Path) -> Result<()> {
     let out = OutputDir::create(dir)?;
     let r = (|| -> Result<()> {
         out.write("sweep.csv", &result.to_csv()?)?;
-        let json = serde_json::to_vec_pretty(&result.to_json())
-            .map_err(|e| Error::Run(e.to_string()))?;
+        let json =
+            serde_json::to_vec_pretty(&result.to_json()).map_err(|e| Error::Run(e.to_string()))?;
         out.write("sweep.json", &json)?;
         let first = &result.spec.vary[0].key;
         let x_label = match key_dimension(first) {
@@ -647,12 +659,9 @@ mod tests {
     #[test]
     fn every_number_of_the_report_sections_has_a_column() {
         // Guards the explicit column list against fields added to the report later.
-        let sc = crate::scenario::parse_str(
-            crate::DEFAULT_SCENARIO,
-            "demo",
-            std::path::Path::new("."),
-        )
-        .unwrap();
+        let sc =
+            crate::scenario::parse_str(crate::DEFAULT_SCENARIO, "demo", std::path::Path::new("."))
+                .unwrap();
         let text = crate::scenario::overrides::ScenarioText::new(
             crate::DEFAULT_SCENARIO.to_string(),
             "demo".into(),
