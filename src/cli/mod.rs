@@ -10,6 +10,8 @@ use convchain::error::Error;
 use convchain::report::OutputDir;
 use convchain::scenario::{self, Scenario};
 
+mod study_cli;
+
 /// Simulate an analog -> ADC -> digital -> DAC -> analog chain and measure it like a bench.
 #[derive(Parser, Debug)]
 #[command(name = "convchain", version, about, long_about = None)]
@@ -98,6 +100,10 @@ enum Command {
         #[arg(long, short)]
         quiet: bool,
     },
+    /// Sweep numeric keys over ranges (several --vary make a grid) and tabulate every metric.
+    Sweep(study_cli::SweepArgs),
+    /// Find the lowest sine frequency at which the chain starts to struggle, and why.
+    Limit(study_cli::LimitArgs),
 }
 
 #[derive(clap::ValueEnum, Clone, Copy, Debug)]
@@ -186,6 +192,8 @@ fn out_dir(out: Option<PathBuf>, sc: &Scenario) -> PathBuf {
 fn run(args: Args) -> anyhow::Result<()> {
     let stdout = std::io::stdout();
     match args.command {
+        Command::Sweep(a) => study_cli::sweep(a)?,
+        Command::Limit(a) => study_cli::limit(a)?,
         Command::Check { scenario } => {
             let sc = scenario::load(&scenario)?;
             print_warnings(&sc, false);

@@ -20,6 +20,37 @@ const INTEGER_KEYS: &[&str] = &[
     "channel",
 ];
 
+/// Whether the key (the last part of a path, e.g. `bits` in `stage.2.bits`) takes a whole number.
+pub fn is_integer_key(key: &str) -> bool {
+    INTEGER_KEYS.contains(&key)
+}
+
+/// One change to a scenario document, for [`ScenarioText::with_edits`]. Paths are as for
+/// [`ScenarioText::with`]; stage numbers count from 1 and refer to the document as it stands when the edit is
+/// applied (edits apply in order, so a removed stage shifts the numbers of the stages after it).
+#[derive(Debug, Clone, PartialEq)]
+pub enum Edit {
+    /// Set a number (SI base units; whole numbers for integer keys).
+    Set(String, f64),
+    /// Set a string value (a choice such as `input = "held"`, or a quantity string such as `"1 kHz"`).
+    SetStr(String, String),
+    /// Remove a key (the scenario's default then applies). Removing a key that is absent is not an error.
+    Remove(String),
+    /// Remove a whole `[[stage]]` by its number from 1.
+    RemoveStage(usize),
+}
+
+impl std::fmt::Display for Edit {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match self {
+            Edit::Set(p, v) => write!(f, "{p}={v}"),
+            Edit::SetStr(p, v) => write!(f, "{p}=\"{v}\""),
+            Edit::Remove(p) => write!(f, "{p} removed"),
+            Edit::RemoveStage(i) => write!(f, "stage.{i} removed"),
+        }
+    }
+}
+
 /// A scenario's text with the ability to re-check it with some values replaced.
 #[derive(Debug, Clone)]
 pub struct ScenarioText {
@@ -77,6 +108,33 @@ impl ScenarioText {
         let described: Vec<String> = overrides.iter().map(|(p, v)| format!("{p}={v}")).collect();
         let origin = format!("{} (with {})", self.origin, described.join(", "));
         Ok(parse_str(&text, &origin, &self.base_dir)?)
+    }
+
+    /// The scenario with `edits` applied in order and checked like a file.
+    pub fn with_edits(&self, edits: &[Edit]) -> Result<Scenario> {
+        if edits.is_empty() {
+            return self.scenario();
+        }
+        let mut doc = self.doc.clone();
+        for e in edits {
+            apply(&mut doc, e).map_err(|m| {
+                Error::BadInput(format!("{}: cannot apply `{e}`: {m}", self.origin))
+            })?;
+        }
+        let text = toml::to_string(&doc).map_err(|e| Error::Run(e.to_string()))?;
+        let described: Vec<String> = edits.iter().map(|e| e.to_string()).collect();
+        let origin = format!("{} (with {})", self.origin, described.join(", "));
+        Ok(parse_str(&text, &origin, &self.base_dir)?)
+    }
+
+    /// True when `path` is written in the scenario (whatever its type).
+    pub fn contains(&self, path: &str) -> bool {
+        lookup(&self.doc, path).is_ok()
+    }
+
+    /// The string written at `path`, if it is a string.
+    pub fn get_str(&self, path: &str) -> Option<&str> {
+        lookup(&self.doc, path).ok()?.as_str()
     }
 
     /// The current value (SI base units) at `path`, if it is written as a number or a quantity string.
@@ -196,6 +254,36 @@ fn set(doc: &mut Table, path: &str, value: f64) -> std::result::Result<(), Strin
     Ok(())
 }
 
+fn apply(doc: &mut Table, edit: &Edit) -> std::result::Result<(), String> {
+    match edit {
+        Edit::Set(path, v) => set(doc, path, *v),
+        Edit::SetStr(path, v) => {
+            let (head, last) = split(path)?;
+            table_mut(doc, &head)?.insert(last.to_string(), Value::String(v.clone()));
+            Ok(())
+        }
+        Edit::Remove(path) => {
+            let (head, last) = split(path)?;
+            table_mut(doc, &head)?.remove(last);
+            Ok(())
+        }
+        Edit::RemoveStage(idx) => {
+            let arr = doc
+                .get_mut("stage")
+                .and_then(Value::as_array_mut)
+                .ok_or("the scenario has no [[stage]]")?;
+            let n = arr.len();
+            if *idx == 0 || *idx > n {
+                return Err(format!(
+                    "there is no stage {idx} (stages are numbered 1 to {n})"
+                ));
+            }
+            arr.remove(idx - 1);
+            Ok(())
+        }
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -247,5 +335,55 @@ mod tests {
             let e = t.with(&[(p.into(), v)]).unwrap_err();
             assert!(e.is_bad_input(), "{p}: {e}");
         }
+    }
+
+    #[test]
+    fn edits_set_strings_remove_keys_and_remove_stages() {
+        let t = demo();
+        // Stage 1 of the demo is an amplifier with a slew rate; stage 6 a filter.
+        assert!(t.contains("stage.1.slew_rate"));
+        let n = t.scenario().unwrap().stages.len();
+        let sc = t
+            .with_edits(&[
+                Edit::Remove("stage.1.slew_rate".into()),
+                Edit::SetStr("source.frequency".into(), "2 kHz".into()),
+                Edit::Set("simulation.seed".into(), 9.0),
+                Edit::RemoveStage(6),
+            ])
+            .unwrap();
+        assert_eq!(sc.stages.len(), n - 1);
+        assert_eq!(sc.simulation.seed, 9);
+        assert_eq!(sc.source.waveform.fundamental_hz(), Some(2000.0));
+        match &sc.stages[0].kind {
+            crate::scenario::StageKind::Amplifier(a) => {
+                assert_eq!(a.output.slew_rate_v_per_s, None)
+            }
+            k => panic!("{k:?}"),
+        }
+        assert!(
+            !sc.stages
+                .iter()
+                .any(|s| s.label == t.scenario().unwrap().stages[5].label)
+        );
+    }
+
+    #[test]
+    fn bad_edits_are_bad_input() {
+        let t = demo();
+        for e in [
+            Edit::RemoveStage(0),
+            Edit::RemoveStage(99),
+            Edit::SetStr("stage.4.input".into(), "floating".into()),
+            Edit::Remove("frequency".into()),
+        ] {
+            let err = t.with_edits(std::slice::from_ref(&e)).unwrap_err();
+            assert!(err.is_bad_input(), "{e}: {err}");
+        }
+    }
+
+    #[test]
+    fn integer_keys_are_known() {
+        assert!(is_integer_key("bits"));
+        assert!(!is_integer_key("frequency"));
     }
 }

@@ -1,0 +1,154 @@
+//! `convchain sweep` and `convchain limit`: arguments and printing; the work is in `convchain::study`.
+
+use std::io::Write;
+use std::path::{Path, PathBuf};
+
+use convchain::error::Error;
+use convchain::report::OutputDir;
+use convchain::scenario::overrides::ScenarioText;
+use convchain::scenario::units::{Dimension, parse_quantity};
+use convchain::study::{limit, sweep};
+
+fn frequency(s: &str) -> Result<f64, String> {
+    let f = parse_quantity(s, Dimension::Frequency).map_err(|e| e.message)?;
+    if f > 0.0 {
+        Ok(f)
+    } else {
+        Err(format!("must be above 0 Hz, found {s}"))
+    }
+}
+
+#[derive(clap::Args, Debug)]
+pub struct SweepArgs {
+    /// Scenario file (TOML).
+    scenario: PathBuf,
+    /// KEY=FROM..TO, e.g. "source.frequency=1 kHz..20 kHz" or stage.3.slew_rate=1e6..2e7 (units as in the
+    /// scenario). Repeat for a grid of all combinations.
+    #[arg(long, required = true)]
+    vary: Vec<String>,
+    /// Values per key.
+    #[arg(long, default_value_t = 11)]
+    points: usize,
+    /// Space the values logarithmically.
+    #[arg(long)]
+    log: bool,
+    /// Output folder (default out/<name>-sweep/).
+    #[arg(long)]
+    out: Option<PathBuf>,
+    /// Worker threads (default: all cores).
+    #[arg(long)]
+    threads: Option<usize>,
+    /// Print nothing but errors.
+    #[arg(long, short)]
+    quiet: bool,
+}
+
+#[derive(clap::Args, Debug)]
+pub struct LimitArgs {
+    /// Scenario file (TOML) with a sine source.
+    scenario: PathBuf,
+    /// Low end of the search, e.g. "100 Hz" (default: 1/50 of the lowest rate of interest of the chain).
+    #[arg(long, value_parser = frequency)]
+    from: Option<f64>,
+    /// High end, e.g. "50 kHz" (default: min(analog_rate/20, 10 x ADC sample rate), within what the meters see).
+    #[arg(long, value_parser = frequency)]
+    to: Option<f64>,
+    /// Accuracy: ENOB drop from its value at --from (bits).
+    #[arg(long, default_value_t = 1.0)]
+    enob_drop: f64,
+    /// Level: gain drop from its value at --from (dB).
+    #[arg(long, default_value_t = 3.0)]
+    gain_drop: f64,
+    /// Shape: waveform fidelity below this (dB).
+    #[arg(long, default_value_t = 6.0)]
+    fidelity_min: f64,
+    /// Output folder (default out/<name>-limit/).
+    #[arg(long)]
+    out: Option<PathBuf>,
+    /// Worker threads (default: all cores).
+    #[arg(long)]
+    threads: Option<usize>,
+    /// Print nothing but errors.
+    #[arg(long, short)]
+    quiet: bool,
+    /// Print limit.json on standard output instead of the table.
+    #[arg(long)]
+    json: bool,
+}
+
+fn threads(t: Option<usize>) -> Result<Option<usize>, Error> {
+    match t {
+        Some(0) => Err(Error::BadInput("--threads must be at least 1".into())),
+        t => Ok(t),
+    }
+}
+
+pub fn sweep(a: SweepArgs) -> anyhow::Result<()> {
+    let vary = a
+        .vary
+        .iter()
+        .map(|v| sweep::parse_vary(v))
+        .collect::<Result<Vec<_>, _>>()?;
+    let text = ScenarioText::load(&a.scenario)?;
+    let sc = text.scenario()?;
+    let dir = a
+        .out
+        .unwrap_or_else(|| Path::new("out").join(format!("{}-sweep", sc.name)));
+    OutputDir::check(&dir)?;
+    let spec = sweep::SweepSpec {
+        vary,
+        points: a.points,
+        log: a.log,
+    };
+    let opts = sweep::SweepOptions {
+        threads: threads(a.threads)?,
+        progress: !a.quiet,
+    };
+    let result = sweep::run_sweep(&text, &spec, &opts)?;
+    sweep::write_sweep(&result, &dir)?;
+    if !a.quiet {
+        let failed = result.rows.iter().filter(|r| r.error.is_some()).count();
+        let mut o = std::io::stdout().lock();
+        writeln!(
+            o,
+            "{} points{}; wrote {}",
+            result.rows.len(),
+            if failed > 0 {
+                format!(" ({failed} failed: see the error column)")
+            } else {
+                String::new()
+            },
+            dir.display()
+        )?;
+    }
+    Ok(())
+}
+
+pub fn limit(a: LimitArgs) -> anyhow::Result<()> {
+    let text = ScenarioText::load(&a.scenario)?;
+    let sc = text.scenario()?;
+    let dir = a
+        .out
+        .unwrap_or_else(|| Path::new("out").join(format!("{}-limit", sc.name)));
+    OutputDir::check(&dir)?;
+    let opts = limit::LimitOptions {
+        from_hz: a.from,
+        to_hz: a.to,
+        enob_drop_bits: a.enob_drop,
+        gain_drop_db: a.gain_drop,
+        fidelity_min_db: a.fidelity_min,
+        threads: threads(a.threads)?,
+        progress: !a.quiet && !a.json,
+        ..Default::default()
+    };
+    let report = limit::find_limits(&text, &opts)?;
+    limit::write_limit(&report, &dir)?;
+    let mut o = std::io::stdout().lock();
+    if a.json {
+        writeln!(o, "{}", serde_json::to_string_pretty(&report)?)?;
+    } else if !a.quiet {
+        write!(o, "{}", limit::table(&report))?;
+        writeln!(o, "wrote {}", dir.display())?;
+    }
+    Ok(())
+}

@@ -1,0 +1,1097 @@
+//! The limit finder: the lowest sine frequency at which a chain starts to struggle, for four criteria, and the
+//! mechanism behind each.
+//!
+//! Criteria (each against the chain's behaviour at the low end of the range, `from`):
+//! - accuracy: ENOB (the output's, or the ADC's when the output has none) falls `enob_drop_bits` below its value
+//!   at `from`;
+//! - level: the output's gain falls `gain_drop_db` below its value at `from`;
+//! - shape: waveform fidelity falls below `fidelity_min_db`;
+//! - aliasing: the input passes the ADC's Nyquist frequency (computed, not searched).
+//!
+//! Method: a coarse logarithmic sweep from `from` to `to`, then bisection (in log frequency) of the first
+//! crossing until the bracket is narrower than `tolerance` (2 %). Every run holds at least `min_cycles` cycles
+//! of the input in its analysis window (20 in the coarse sweep; 100 while bisecting when the scenario samples
+//! coherently, so that the coherent move of the frequency stays near 1 %): `simulation.duration` is lengthened
+//! and `simulation.settle` set to at least two periods, never shortened below the scenario's own, and the total
+//! is bounded by `max_grid_steps` (a note says when that left fewer cycles).
+//!
+//! Diagnosis: at a criterion's frequency (and at `from`) the chain is re-run with each non-ideality made ideal,
+//! one at a time (edits of the scenario text, [`Edit`]); the mechanism is the one whose removal takes away the
+//! most of the metric's fall from `from` to the criterion's frequency.
+
+use std::path::Path;
+
+use rayon::prelude::*;
+use serde::Serialize;
+
+use crate::engine::pipeline::Plan;
+use crate::error::{Error, Result};
+use crate::report::OutputDir;
+use crate::report::plot::{self, Plot, XyPlot};
+use crate::scenario::overrides::{Edit, ScenarioText};
+use crate::scenario::units::format_si;
+use crate::scenario::{AdcInput, FilterResponse, Ladder, Scenario, StageKind, Waveform};
+use crate::study::sweep::{progress_bar, simulate, thread_pool};
+
+/// Settings of the limit finder.
+#[derive(Debug, Clone, Copy)]
+pub struct LimitOptions {
+    /// Low end (Hz); None: 1/50 of the lowest rate of interest of the chain (10 Hz when it has none).
+    pub from_hz: Option<f64>,
+    /// High end (Hz); None: min(analog_rate/20, 10 x ADC sample rate), kept inside what the meters can see.
+    pub to_hz: Option<f64>,
+    pub enob_drop_bits: f64,
+    pub gain_drop_db: f64,
+    pub fidelity_min_db: f64,
+    /// Points of the coarse sweep.
+    pub coarse_points: usize,
+    /// Relative width of the final bracket (0.02 = 2 %).
+    pub tolerance: f64,
+    /// Cycles of the input in each analysis window (coarse sweep).
+    pub min_cycles: f64,
+    /// Upper bound on the grid steps of one run (bounds the lengthened duration).
+    pub max_grid_steps: f64,
+    pub threads: Option<usize>,
+    pub progress: bool,
+}
+
+impl Default for LimitOptions {
+    fn default() -> Self {
+        LimitOptions {
+            from_hz: None,
+            to_hz: None,
+            enob_drop_bits: 1.0,
+            gain_drop_db: 3.0,
+            fidelity_min_db: 6.0,
+            coarse_points: 24,
+            tolerance: 0.02,
+            min_cycles: 20.0,
+            max_grid_steps: 8e6,
+            threads: None,
+            progress: false,
+        }
+    }
+}
+
+/// What can limit a chain.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Criterion {
+    Accuracy,
+    Level,
+    Shape,
+    Aliasing,
+}
+
+impl Criterion {
+    pub fn name(self) -> &'static str {
+        match self {
+            Criterion::Accuracy => "accuracy",
+            Criterion::Level => "level",
+            Criterion::Shape => "shape",
+            Criterion::Aliasing => "aliasing",
+        }
+    }
+}
+
+/// The three metrics of one run at one frequency.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct LimitPoint {
+    pub requested_hz: f64,
+    /// The frequency the run used (moved slightly for coherent sampling).
+    pub frequency_hz: f64,
+    /// ENOB used by the accuracy criterion (output, or ADC as a fallback).
+    pub enob_bits: Option<f64>,
+    pub gain_db: Option<f64>,
+    pub fidelity_db: Option<f64>,
+    /// Cycles of the input in the analysis window.
+    pub cycles: f64,
+    pub error: Option<String>,
+}
+
+/// One re-run with a non-ideality made ideal.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Ablation {
+    /// What was changed, e.g. "stage.2 dac: slew_rate removed".
+    pub change: String,
+    /// The mechanism as stage kind and parameter, e.g. `dac.slew_rate`.
+    pub mechanism: String,
+    pub enob_bits: Option<f64>,
+    pub gain_db: Option<f64>,
+    pub fidelity_db: Option<f64>,
+    /// How much of the row's loss the change wins back at the criterion's frequency (bits or dB): the metric
+    /// with the change, capped at the unchanged chain's value at the low end, minus the unchanged chain's value
+    /// at the criterion's frequency. The cap keeps a change that helps at every frequency (a faster converter's
+    /// oversampling gain in the output band) from looking like more than a full recovery.
+    pub recovery: Option<f64>,
+    pub error: Option<String>,
+}
+
+/// One row of the table.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct CriterionResult {
+    pub criterion: Criterion,
+    /// Where the criterion is first met (the frequency used at the failing end of the final bracket); None
+    /// when it is not reached in the range.
+    pub frequency_hz: Option<f64>,
+    /// The final bracket (passing, failing), frequencies used.
+    pub bracket_hz: Option<(f64, f64)>,
+    /// The threshold the metric was compared with.
+    pub threshold: Option<f64>,
+    /// The row's metric at `frequency_hz`.
+    pub value: Option<f64>,
+    /// The mechanism whose removal recovers the most, e.g. `dac.slew_rate`.
+    pub mechanism: Option<String>,
+    /// Label of the stage that mechanism belongs to.
+    pub mechanism_stage: Option<String>,
+    pub ablation: Vec<Ablation>,
+    pub note: String,
+}
+
+/// The headline and the table: `limit` in limit.json.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Limit {
+    pub frequency_hz: Option<f64>,
+    pub criterion: Option<Criterion>,
+    pub mechanism: Option<String>,
+    pub criteria: Vec<CriterionResult>,
+}
+
+/// Everything the limit finder found.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct LimitReport {
+    pub scenario: String,
+    pub from_hz: f64,
+    pub to_hz: f64,
+    pub enob_drop_bits: f64,
+    pub gain_drop_db: f64,
+    pub fidelity_min_db: f64,
+    /// "output" or "adc": whose ENOB the accuracy criterion follows.
+    pub enob_source: String,
+    pub limit: Limit,
+    /// The coarse sweep.
+    pub coarse: Vec<LimitPoint>,
+    /// How runs were set up (durations), and anything the reader should know.
+    pub notes: Vec<String>,
+}
+
+/// A candidate ablation: (mechanism, stage label, description, edits).
+#[derive(Debug, Clone, PartialEq)]
+pub struct Candidate {
+    pub mechanism: String,
+    pub stage: String,
+    pub change: String,
+    pub edits: Vec<Edit>,
+}
+
+/// The non-idealities present in the scenario, each with the edits that make it ideal.
+pub fn candidates(text: &ScenarioText, sc: &Scenario) -> Vec<Candidate> {
+    let mut out = Vec::new();
+    let mut add = |mech: &str, label: &str, what: &str, edits: Vec<Edit>| {
+        out.push(Candidate {
+            mechanism: mech.to_string(),
+            stage: label.to_string(),
+            change: format!("{label}: {what}"),
+            edits,
+        })
+    };
+    for (i, st) in sc.stages.iter().enumerate() {
+        let n = i + 1;
+        let key = |k: &str| format!("stage.{n}.{k}");
+        let label = st.label.as_str();
+        match &st.kind {
+            StageKind::Dac(c) => {
+                if c.output.slew_rate_v_per_s.is_some() {
+                    add(
+                        "dac.slew_rate",
+                        label,
+                        "slew_rate removed",
+                        vec![Edit::Remove(key("slew_rate"))],
+                    );
+                }
+                if c.output.tau_s.is_some() {
+                    add(
+                        "dac.settling",
+                        label,
+                        "settling (tau) removed",
+                        vec![
+                            Edit::Remove(key("settling")),
+                            Edit::Remove(key("bandwidth")),
+                        ],
+                    );
+                }
+                if c.ladder != Ladder::Ideal && c.tolerance > 0.0 {
+                    add(
+                        "dac.tolerance",
+                        label,
+                        "tolerance = 0",
+                        vec![Edit::Set(key("tolerance"), 0.0)],
+                    );
+                }
+            }
+            StageKind::Amplifier(c) => {
+                if c.output.slew_rate_v_per_s.is_some() {
+                    add(
+                        "amplifier.slew_rate",
+                        label,
+                        "slew_rate removed",
+                        vec![Edit::Remove(key("slew_rate"))],
+                    );
+                }
+                if c.output.tau_s.is_some() {
+                    add(
+                        "amplifier.settling",
+                        label,
+                        "settling (tau) removed",
+                        vec![
+                            Edit::Remove(key("settling")),
+                            Edit::Remove(key("bandwidth")),
+                        ],
+                    );
+                }
+            }
+            StageKind::SampleHold(c) => {
+                for (name, v) in [
+                    ("aperture_jitter", c.aperture_jitter_s),
+                    ("acquisition", c.acquisition_s),
+                    ("droop", c.droop_v_per_s),
+                    ("hold_step", c.hold_step_v),
+                ] {
+                    if v != 0.0 {
+                        add(
+                            &format!("sample_hold.{name}"),
+                            label,
+                            &format!("{name} = 0"),
+                            vec![Edit::Set(key(name), 0.0)],
+                        );
+                    }
+                }
+            }
+            StageKind::SarAdc(c) => {
+                if c.input == AdcInput::Live {
+                    add(
+                        "sar_adc.input",
+                        label,
+                        "input = \"held\" (live -> held)",
+                        vec![Edit::SetStr(key("input"), "held".into())],
+                    );
+                }
+                if c.comparator_noise_v > 0.0 {
+                    add(
+                        "sar_adc.comparator_noise",
+                        label,
+                        "comparator_noise = 0",
+                        vec![Edit::Set(key("comparator_noise"), 0.0)],
+                    );
+                }
+                if c.capacitor_mismatch > 0.0 {
+                    add(
+                        "sar_adc.capacitor_mismatch",
+                        label,
+                        "capacitor_mismatch = 0",
+                        vec![Edit::Set(key("capacitor_mismatch"), 0.0)],
+                    );
+                }
+                let fs = c.effective_sample_rate_hz();
+                let fs10 = 10.0 * fs;
+                let mut edits = vec![Edit::Set(key("sample_rate"), fs10)];
+                if text.contains(&key("clock")) {
+                    edits.push(Edit::Set(
+                        key("clock"),
+                        c.clock_hz.max(f64::from(c.cycles) * fs10),
+                    ));
+                } else {
+                    edits.push(Edit::Set(
+                        key("conversion_time"),
+                        c.conversion_time_s.min(1.0 / fs10),
+                    ));
+                }
+                add(
+                    "sar_adc.sample_rate",
+                    label,
+                    &format!(
+                        "sample_rate raised tenfold to {} (conversion shortened to fit)",
+                        format_si(fs10, "Hz")
+                    ),
+                    edits,
+                );
+            }
+            StageKind::Link(c) => {
+                if c.bit_error_rate > 0.0 {
+                    add(
+                        "link.bit_error_rate",
+                        label,
+                        "bit_error_rate = 0",
+                        vec![Edit::Set(key("bit_error_rate"), 0.0)],
+                    );
+                }
+            }
+            StageKind::Filter(_) => add(
+                "filter",
+                label,
+                "filter removed (flat)",
+                vec![Edit::RemoveStage(n)],
+            ),
+        }
+    }
+    out
+}
+
+/// Rates of interest of a chain: the ADC's sample rate, low-pass cutoffs, amplifier and DAC bandwidths, the
+/// analysis band. And the highest high-pass cutoff.
+fn rates_of_interest(sc: &Scenario) -> (Vec<f64>, Option<f64>) {
+    let mut v = Vec::new();
+    let mut hp: Option<f64> = None;
+    for st in &sc.stages {
+        match &st.kind {
+            StageKind::SarAdc(c) => v.push(c.effective_sample_rate_hz()),
+            StageKind::Filter(f) => match f.response {
+                FilterResponse::Lowpass => v.push(f.cutoff_hz),
+                FilterResponse::Highpass => {
+                    hp = Some(hp.map_or(f.cutoff_hz, |h| h.max(f.cutoff_hz)))
+                }
+            },
+            StageKind::Amplifier(a) => {
+                if let Some(t) = a.output.tau_s {
+                    v.push(1.0 / (2.0 * std::f64::consts::PI * t))
+                }
+            }
+            StageKind::Dac(d) => {
+                if let Some(t) = d.output.tau_s {
+                    v.push(1.0 / (2.0 * std::f64::consts::PI * t))
+                }
+            }
+            _ => {}
+        }
+    }
+    if let Some(b) = sc.analysis.band_hz {
+        v.push(b);
+    }
+    (v, hp)
+}
+
+/// Runs of the scenario at chosen frequencies, with durations scaled for the cycles needed.
+struct Runner<'a> {
+    text: &'a ScenarioText,
+    base: &'a Scenario,
+    max_grid_steps: f64,
+    use_output_enob: bool,
+}
+
+impl Runner<'_> {
+    /// Duration and settle for `cycles` cycles at `f_hz`: (duration, settle, cycles actually held).
+    fn timing(&self, f_hz: f64, cycles: f64) -> (f64, f64, f64) {
+        let sim = &self.base.simulation;
+        let w0 = sim.duration_s - sim.settle_s;
+        let cap_s = sim.duration_s.max(self.max_grid_steps / sim.analog_rate_hz);
+        let settle = sim.settle_s.max(2.0 / f_hz);
+        let want = settle + w0.max(cycles / f_hz);
+        if want <= cap_s {
+            return (want, settle, (want - settle) * f_hz);
+        }
+        // Bounded: keep at most a quarter of the run (or the scenario's own settle) for settling.
+        let settle = settle.min(sim.settle_s.max(0.25 * cap_s));
+        (cap_s, settle, (cap_s - settle) * f_hz)
+    }
+
+    fn point(&self, f_hz: f64, cycles: f64, extra: &[Edit]) -> LimitPoint {
+        let (duration, settle, held) = self.timing(f_hz, cycles);
+        let mut edits = vec![
+            Edit::Set("source.frequency".into(), f_hz),
+            Edit::Set("simulation.duration".into(), duration),
+            Edit::Set("simulation.settle".into(), settle),
+        ];
+        edits.extend_from_slice(extra);
+        let fail = |e: Error| LimitPoint {
+            requested_hz: f_hz,
+            frequency_hz: f_hz,
+            enob_bits: None,
+            gain_db: None,
+            fidelity_db: None,
+            cycles: held,
+            error: Some(e.to_string()),
+        };
+        let sc = match self.text.with_edits(&edits) {
+            Ok(s) => s,
+            Err(e) => return fail(e),
+        };
+        match simulate(&sc) {
+            Ok((_, used, m)) => {
+                let enob = if self.use_output_enob {
+                    m.output.enob_bits
+                } else {
+                    m.adc.as_ref().and_then(|a| a.enob_bits)
+                };
+                LimitPoint {
+                    requested_hz: f_hz,
+                    frequency_hz: used.unwrap_or(f_hz),
+                    enob_bits: enob,
+                    gain_db: m.output.gain_db,
+                    fidelity_db: Some(m.output.fidelity_db),
+                    cycles: held,
+                    error: None,
+                }
+            }
+            Err(e) => fail(e),
+        }
+    }
+}
+
+/// The metric a criterion follows.
+fn metric(c: Criterion, p: &LimitPoint) -> Option<f64> {
+    match c {
+        Criterion::Accuracy => p.enob_bits,
+        Criterion::Level => p.gain_db,
+        Criterion::Shape => p.fidelity_db,
+        Criterion::Aliasing => None,
+    }
+}
+
+/// Find the limits of a scenario with a sine source.
+pub fn find_limits(text: &ScenarioText, opts: &LimitOptions) -> Result<LimitReport> {
+    let base = text.scenario()?;
+    if !matches!(base.source.waveform, Waveform::Sine { .. }) {
+        return Err(Error::BadInput(format!(
+            "{}: the limit finder varies source.frequency and needs a sine source (waveform = \"sine\")",
+            base.origin
+        )));
+    }
+    for (name, v) in [
+        ("--enob-drop", opts.enob_drop_bits),
+        ("--gain-drop", opts.gain_drop_db),
+    ] {
+        if !(v.is_finite() && v > 0.0) {
+            return Err(Error::BadInput(format!(
+                "{name} must be a positive number, found {v}"
+            )));
+        }
+    }
+    if !opts.fidelity_min_db.is_finite() {
+        return Err(Error::BadInput("--fidelity-min must be a number".into()));
+    }
+    let (plan, _) = Plan::new(&base)?;
+    let mut notes = Vec::new();
+    let adc_fs = plan.adc.map(|a| a.sample_rate_hz);
+    let analog = base.simulation.analog_rate_hz;
+
+    // ---- range
+    let (rates, hp) = rates_of_interest(&base);
+    let from_hz = match opts.from_hz {
+        Some(f) => f,
+        None => {
+            let lowest = rates.iter().copied().reduce(f64::min);
+            let mut f = lowest.map_or(10.0, |r| r / 50.0);
+            if let Some(h) = hp {
+                f = f.max(5.0 * h);
+            }
+            f
+        }
+    };
+    // The meters find the tone at the source frequency: the output's analysis band and the ADC's Nyquist
+    // frequency bound what can be measured.
+    let mut ceiling = 0.95 * plan.out_band_hz;
+    let mut why = format!(
+        "95 % of the output analysis band ({})",
+        format_si(plan.out_band_hz, "Hz")
+    );
+    if let Some(fs) = adc_fs
+        && 0.49 * fs < ceiling
+    {
+        ceiling = 0.49 * fs;
+        why = format!(
+            "just below the ADC's Nyquist frequency ({})",
+            format_si(fs / 2.0, "Hz")
+        );
+    }
+    let wanted_to = opts
+        .to_hz
+        .unwrap_or_else(|| (analog / 20.0).min(adc_fs.map_or(f64::INFINITY, |fs| 10.0 * fs)));
+    let to_hz = if wanted_to > ceiling {
+        notes.push(format!(
+            "range ends at {} instead of {}: the meters measure the tone only up to {why}; above the ADC's \
+             Nyquist frequency the aliasing criterion applies",
+            format_si(ceiling, "Hz"),
+            format_si(wanted_to, "Hz")
+        ));
+        ceiling
+    } else {
+        wanted_to
+    };
+    if !(from_hz.is_finite() && from_hz > 0.0 && to_hz > from_hz * 1.1) {
+        return Err(Error::BadInput(format!(
+            "the frequency range {}..{} is empty or inverted; give --from below --to (the meters reach up to \
+             {why})",
+            format_si(from_hz, "Hz"),
+            format_si(to_hz, "Hz")
+        )));
+    }
+
+    let coherent = base.analysis.coherent;
+    let fine_cycles = if coherent {
+        opts.min_cycles.max(100.0)
+    } else {
+        opts.min_cycles
+    };
+    let mut runner = Runner {
+        text,
+        base: &base,
+        max_grid_steps: opts.max_grid_steps,
+        use_output_enob: true,
+    };
+    let pool = thread_pool(opts.threads)?;
+
+    // ---- coarse sweep
+    let n = opts.coarse_points.max(3);
+    let freqs: Vec<f64> = (0..n)
+        .map(|i| from_hz * (to_hz / from_hz).powf(i as f64 / (n - 1) as f64))
+        .collect();
+    let first = runner.point(from_hz, opts.min_cycles, &[]);
+    if let Some(e) = &first.error {
+        return Err(Error::Run(format!(
+            "the run at the low end ({}) failed: {e}",
+            format_si(from_hz, "Hz")
+        )));
+    }
+    if first.enob_bits.is_none() {
+        runner.use_output_enob = false;
+    }
+    let enob_source = if runner.use_output_enob {
+        "output"
+    } else {
+        "adc"
+    };
+    let first = if runner.use_output_enob {
+        first
+    } else {
+        runner.point(from_hz, opts.min_cycles, &[])
+    };
+    let bar = progress_bar(n, opts.progress, "coarse sweep");
+    let mut coarse: Vec<LimitPoint> = pool.install(|| {
+        freqs[1..]
+            .par_iter()
+            .map(|&f| {
+                let p = runner.point(f, opts.min_cycles, &[]);
+                if let Some(b) = &bar {
+                    b.inc(1);
+                }
+                p
+            })
+            .collect()
+    });
+    if let Some(b) = bar {
+        b.finish_and_clear();
+    }
+    coarse.insert(0, first.clone());
+    let failed: Vec<String> = coarse
+        .iter()
+        .filter_map(|p| {
+            p.error
+                .as_ref()
+                .map(|e| format!("{}: {e}", format_si(p.requested_hz, "Hz")))
+        })
+        .collect();
+    if !failed.is_empty() {
+        notes.push(format!(
+            "{} coarse point(s) could not be measured and were skipped: {}",
+            failed.len(),
+            failed.join("; ")
+        ));
+    }
+    let short: Vec<&LimitPoint> = coarse
+        .iter()
+        .filter(|p| p.cycles + 1e-9 < opts.min_cycles)
+        .collect();
+    notes.push(format!(
+        "each run holds at least {} cycles in its analysis window ({} while bisecting{}): simulation.duration \
+         lengthened to settle + max(the scenario's window, cycles/f), simulation.settle = max(the scenario's, \
+         2 periods), at most {:.0e} grid steps per run",
+        opts.min_cycles,
+        fine_cycles,
+        if coherent {
+            ", so that the coherent frequency moves by about 1 % at most"
+        } else {
+            ""
+        },
+        opts.max_grid_steps
+    ));
+    if let Some(p) = short.first() {
+        notes.push(format!(
+            "the grid-step bound left only {:.1} cycles at {} (and fewer below)",
+            p.cycles,
+            format_si(p.requested_hz, "Hz")
+        ));
+    }
+
+    // ---- thresholds and first crossings
+    let thresholds = [
+        (
+            Criterion::Accuracy,
+            first.enob_bits.map(|e| e - opts.enob_drop_bits),
+        ),
+        (
+            Criterion::Level,
+            first.gain_db.map(|g| g - opts.gain_drop_db),
+        ),
+        (Criterion::Shape, Some(opts.fidelity_min_db)),
+    ];
+    let fails = |c: Criterion, thr: f64, p: &LimitPoint| metric(c, p).is_some_and(|v| v < thr);
+    let cands = candidates(text, &base);
+    let rows: Vec<CriterionResult> = pool.install(|| {
+        thresholds
+            .par_iter()
+            .map(|&(c, thr)| {
+                let Some(thr) = thr else {
+                    return CriterionResult {
+                        criterion: c,
+                        frequency_hz: None,
+                        bracket_hz: None,
+                        threshold: None,
+                        value: None,
+                        mechanism: None,
+                        mechanism_stage: None,
+                        ablation: Vec::new(),
+                        note: format!("no {} metric at the low end", c.name()),
+                    };
+                };
+                let idx = coarse
+                    .iter()
+                    .position(|p| p.error.is_none() && fails(c, thr, p));
+                let Some(idx) = idx else {
+                    return CriterionResult {
+                        criterion: c,
+                        frequency_hz: None,
+                        bracket_hz: None,
+                        threshold: Some(thr),
+                        value: None,
+                        mechanism: None,
+                        mechanism_stage: None,
+                        ablation: Vec::new(),
+                        note: format!("not reached below {}", format_si(to_hz, "Hz")),
+                    };
+                };
+                let mut note = String::new();
+                let (mut lo, mut hi) = if idx == 0 {
+                    note = format!(
+                        "already met at the low end ({})",
+                        format_si(coarse[0].frequency_hz, "Hz")
+                    );
+                    (None, coarse[0].clone())
+                } else {
+                    let lo = coarse[..idx]
+                        .iter()
+                        .rev()
+                        .find(|p| p.error.is_none())
+                        .cloned();
+                    (lo, runner.point(coarse[idx].requested_hz, fine_cycles, &[]))
+                };
+                // The fine run at the coarse failing frequency may pass; then walk up the coarse grid.
+                if lo.is_some() && !fails(c, thr, &hi) {
+                    let mut j = idx;
+                    let mut found = false;
+                    while j + 1 < coarse.len() {
+                        j += 1;
+                        let p = runner.point(coarse[j].requested_hz, fine_cycles, &[]);
+                        if fails(c, thr, &p) {
+                            lo = Some(coarse[j - 1].clone());
+                            hi = p;
+                            found = true;
+                            break;
+                        }
+                    }
+                    if !found {
+                        return CriterionResult {
+                            criterion: c,
+                            frequency_hz: None,
+                            bracket_hz: None,
+                            threshold: Some(thr),
+                            value: None,
+                            mechanism: None,
+                            mechanism_stage: None,
+                            ablation: Vec::new(),
+                            note: format!(
+                                "not reached below {} (a coarse crossing did not repeat with longer runs)",
+                                format_si(to_hz, "Hz")
+                            ),
+                        };
+                    }
+                }
+                if let Some(mut l) = lo {
+                    while hi.requested_hz / l.requested_hz > 1.0 + opts.tolerance {
+                        let mid = (hi.requested_hz * l.requested_hz).sqrt();
+                        let p = runner.point(mid, fine_cycles, &[]);
+                        if p.error.is_some() {
+                            note = format!(
+                                "bisection stopped: the run at {} failed",
+                                format_si(mid, "Hz")
+                            );
+                            break;
+                        }
+                        if fails(c, thr, &p) {
+                            hi = p;
+                        } else {
+                            l = p;
+                        }
+                    }
+                    lo = Some(l);
+                }
+                let bracket = lo.as_ref().map(|l| (l.frequency_hz, hi.frequency_hz));
+                // ---- diagnosis at the criterion's frequency
+                let base_value = metric(c, &hi);
+                let reference = metric(c, &first);
+                let ablation: Vec<Ablation> = cands
+                    .iter()
+                    .map(|cand| {
+                        let p = runner.point(hi.requested_hz, fine_cycles, &cand.edits);
+                        let recovery = match (metric(c, &p), base_value, reference) {
+                            (Some(a), Some(b), Some(r)) => Some(a.min(r.max(b)) - b),
+                            _ => None,
+                        };
+                        Ablation {
+                            change: cand.change.clone(),
+                            mechanism: cand.mechanism.clone(),
+                            enob_bits: p.enob_bits,
+                            gain_db: p.gain_db,
+                            fidelity_db: p.fidelity_db,
+                            recovery,
+                            error: p.error,
+                        }
+                    })
+                    .collect();
+                let significant = match c {
+                    Criterion::Accuracy => 0.1,
+                    Criterion::Level => 0.1,
+                    _ => 0.5,
+                };
+                // The best recovery; among changes within `significant` of it, a single-parameter change is
+                // preferred to the compound sample-rate change (which also shortens the conversion).
+                let top = ablation
+                    .iter()
+                    .filter_map(|a| a.recovery)
+                    .fold(f64::NEG_INFINITY, f64::max);
+                let best = ablation
+                    .iter()
+                    .enumerate()
+                    .filter_map(|(i, a)| a.recovery.map(|r| (i, r)))
+                    .filter(|(_, r)| *r > significant && *r >= top - significant)
+                    .max_by(|(i, a), (j, b)| {
+                        let compound = |k: usize| cands[k].mechanism == "sar_adc.sample_rate";
+                        compound(*j).cmp(&compound(*i)).then(a.total_cmp(b))
+                    });
+                let (mechanism, mechanism_stage) = match best {
+                    Some((i, _)) => (
+                        Some(cands[i].mechanism.clone()),
+                        Some(cands[i].stage.clone()),
+                    ),
+                    None => {
+                        if !note.is_empty() {
+                            note.push_str("; ");
+                        }
+                        note.push_str("no single ablation recovers the metric");
+                        (None, None)
+                    }
+                };
+                CriterionResult {
+                    criterion: c,
+                    frequency_hz: Some(hi.frequency_hz),
+                    bracket_hz: bracket,
+                    threshold: Some(thr),
+                    value: base_value,
+                    mechanism,
+                    mechanism_stage,
+                    ablation,
+                    note,
+                }
+            })
+            .collect()
+    });
+    let mut criteria = rows;
+    // ---- aliasing: computed
+    criteria.push(match plan.adc {
+        Some(a) => CriterionResult {
+            criterion: Criterion::Aliasing,
+            frequency_hz: Some(a.sample_rate_hz / 2.0),
+            bracket_hz: None,
+            threshold: None,
+            value: None,
+            mechanism: Some("sar_adc.sample_rate".into()),
+            mechanism_stage: base
+                .stages
+                .iter()
+                .find(|s| matches!(s.kind, StageKind::SarAdc(_)))
+                .map(|s| s.label.clone()),
+            ablation: Vec::new(),
+            note: "computed: sample_rate / 2".into(),
+        },
+        None => CriterionResult {
+            criterion: Criterion::Aliasing,
+            frequency_hz: None,
+            bracket_hz: None,
+            threshold: None,
+            value: None,
+            mechanism: None,
+            mechanism_stage: None,
+            ablation: Vec::new(),
+            note: "the chain has no converter".into(),
+        },
+    });
+    let head = criteria
+        .iter()
+        .filter(|r| r.frequency_hz.is_some())
+        .min_by(|a, b| a.frequency_hz.unwrap().total_cmp(&b.frequency_hz.unwrap()));
+    let limit = Limit {
+        frequency_hz: head.and_then(|h| h.frequency_hz),
+        criterion: head.map(|h| h.criterion),
+        mechanism: head.and_then(|h| h.mechanism.clone()),
+        criteria: criteria.clone(),
+    };
+    Ok(LimitReport {
+        scenario: base.name.clone(),
+        from_hz,
+        to_hz,
+        enob_drop_bits: opts.enob_drop_bits,
+        gain_drop_db: opts.gain_drop_db,
+        fidelity_min_db: opts.fidelity_min_db,
+        enob_source: enob_source.into(),
+        limit,
+        coarse,
+        notes,
+    })
+}
+
+fn opt(v: Option<f64>, unit: &str) -> String {
+    v.map_or("-".into(), |x| format_si(x, unit))
+}
+
+/// A readable table of the limits.
+pub fn table(r: &LimitReport) -> String {
+    use std::fmt::Write;
+    let mut s = String::new();
+    let _ = writeln!(
+        s,
+        "{}: limits from {} to {} (ENOB of the {}; drop {} bit, gain drop {} dB, fidelity under {} dB)",
+        r.scenario,
+        format_si(r.from_hz, "Hz"),
+        format_si(r.to_hz, "Hz"),
+        r.enob_source,
+        r.enob_drop_bits,
+        r.gain_drop_db,
+        r.fidelity_min_db
+    );
+    let _ = writeln!(
+        s,
+        "  {:<10} {:>12}  {:<28} note",
+        "criterion", "frequency", "mechanism"
+    );
+    for c in &r.limit.criteria {
+        let mech = match (&c.mechanism, &c.mechanism_stage) {
+            (Some(m), Some(st)) if !st.is_empty() => format!("{m} ({st})"),
+            (Some(m), _) => m.clone(),
+            _ => "-".into(),
+        };
+        let _ = writeln!(
+            s,
+            "  {:<10} {:>12}  {:<28} {}",
+            c.criterion.name(),
+            opt(c.frequency_hz, "Hz"),
+            mech,
+            c.note
+        );
+    }
+    match (r.limit.frequency_hz, r.limit.criterion) {
+        (Some(f), Some(c)) => {
+            let _ = writeln!(
+                s,
+                "limit: {} ({}{})",
+                format_si(f, "Hz"),
+                c.name(),
+                r.limit
+                    .mechanism
+                    .as_ref()
+                    .map(|m| format!(", {m}"))
+                    .unwrap_or_default()
+            );
+        }
+        _ => {
+            let _ = writeln!(s, "limit: not reached below {}", format_si(r.to_hz, "Hz"));
+        }
+    }
+    for n in &r.notes {
+        let _ = writeln!(s, "note: {n}");
+    }
+    s
+}
+
+/// Write `limit.json` and the plot of the coarse sweep (`limit.png`, `limit.svg`) atomically into `dir`.
+pub fn write_limit(r: &LimitReport, dir: &Path) -> Result<()> {
+    let out = OutputDir::create(dir)?;
+    let res = (|| -> Result<()> {
+        let json = serde_json::to_vec_pretty(r).map_err(|e| Error::Run(e.to_string()))?;
+        out.write("limit.json", &json)?;
+        let ok: Vec<&LimitPoint> = r.coarse.iter().filter(|p| p.error.is_none()).collect();
+        let col = |f: fn(&LimitPoint) -> Option<f64>| -> (Vec<f64>, Vec<f64>) {
+            ok.iter()
+                .filter_map(|p| f(p).map(|y| (p.frequency_hz, y)))
+                .unzip()
+        };
+        let enob = col(|p| p.enob_bits);
+        let gain = col(|p| p.gain_db);
+        let fid = col(|p| p.fidelity_db);
+        let enob_name = format!("ENOB of the {} (bits)", r.enob_source);
+        let markers: Vec<(f64, String)> = r
+            .limit
+            .criteria
+            .iter()
+            .filter_map(|c| c.frequency_hz.map(|f| (f, c.criterion.name().to_string())))
+            .filter(|(f, _)| *f >= r.from_hz * 0.5 && *f <= r.to_hz * 2.0)
+            .collect();
+        let p = Plot::Xy(XyPlot {
+            title: format!("{}: ENOB, gain and fidelity against frequency", r.scenario),
+            x_label: "input frequency (Hz)".into(),
+            y_label: "bits / dB".into(),
+            series: vec![
+                (enob_name.as_str(), &enob.0, &enob.1),
+                ("gain (dB)", &gain.0, &gain.1),
+                ("fidelity (dB)", &fid.0, &fid.1),
+            ],
+            log_x: true,
+            markers,
+        });
+        let (png, _) = plot::render_png(&p, 1000, 620)?;
+        out.write("limit.png", &png)?;
+        let (svg, _) = plot::render_svg(&p)?;
+        out.write("limit.svg", svg.as_bytes())?;
+        Ok(())
+    })();
+    if let Err(e) = res {
+        out.abandon();
+        return Err(e);
+    }
+    Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn text(s: &str) -> ScenarioText {
+        ScenarioText::new(s.to_string(), "test".into(), ".".into()).unwrap()
+    }
+
+    const CHAIN: &str = r#"
+name = "t"
+description = ""
+[simulation]
+analog_rate = "1 MHz"
+duration = "20 ms"
+settle = "2 ms"
+[source]
+waveform = "sine"
+frequency = "100 Hz"
+amplitude = "1 V"
+offset = "2.5 V"
+[[stage]]
+kind = "filter"
+order = 2
+cutoff = "20 kHz"
+[[stage]]
+kind = "sample_hold"
+aperture_jitter = "1 ns"
+[[stage]]
+kind = "sar_adc"
+bits = 10
+range = ["0 V", "5 V"]
+clock = "1 MHz"
+sample_rate = "50 kHz"
+input = "live"
+comparator_noise = "1 mV"
+[[stage]]
+kind = "link"
+bit_error_rate = 1e-6
+[[stage]]
+kind = "dac"
+ladder = "r2r"
+tolerance = "1%"
+slew_rate = "1 V/us"
+bandwidth = "1 MHz"
+range = ["0 V", "5 V"]
+[[stage]]
+kind = "amplifier"
+gain = 2
+slew_rate = "10 V/us"
+"#;
+
+    #[test]
+    fn every_non_ideality_present_has_an_ablation_that_checks() {
+        let t = text(CHAIN);
+        let sc = t.scenario().unwrap();
+        let c = candidates(&t, &sc);
+        let names: Vec<&str> = c.iter().map(|c| c.mechanism.as_str()).collect();
+        assert_eq!(
+            names,
+            vec![
+                "filter",
+                "sample_hold.aperture_jitter",
+                "sar_adc.input",
+                "sar_adc.comparator_noise",
+                "sar_adc.sample_rate",
+                "link.bit_error_rate",
+                "dac.slew_rate",
+                "dac.settling",
+                "dac.tolerance",
+                "amplifier.slew_rate",
+            ]
+        );
+        for cand in &c {
+            let s = t
+                .with_edits(&cand.edits)
+                .unwrap_or_else(|e| panic!("{}: {e}", cand.change));
+            match cand.mechanism.as_str() {
+                "filter" => assert_eq!(s.stages.len(), sc.stages.len() - 1),
+                "sar_adc.sample_rate" => match &s.stages[2].kind {
+                    StageKind::SarAdc(a) => {
+                        assert!((a.effective_sample_rate_hz() - 500e3).abs() < 1e-6);
+                        assert!(a.conversion_time_s <= 2e-6 + 1e-15);
+                    }
+                    k => panic!("{k:?}"),
+                },
+                "sar_adc.input" => match &s.stages[2].kind {
+                    StageKind::SarAdc(a) => assert_eq!(a.input, AdcInput::Held),
+                    k => panic!("{k:?}"),
+                },
+                "dac.settling" => match &s.stages[4].kind {
+                    StageKind::Dac(d) => assert_eq!(d.output.tau_s, None),
+                    k => panic!("{k:?}"),
+                },
+                _ => assert_ne!(s, sc, "{}", cand.change),
+            }
+        }
+    }
+
+    #[test]
+    fn runs_are_lengthened_for_low_frequencies_and_bounded() {
+        let t = text(CHAIN);
+        let sc = t.scenario().unwrap();
+        let r = Runner {
+            text: &t,
+            base: &sc,
+            max_grid_steps: 1e6,
+            use_output_enob: true,
+        };
+        // 10 kHz: the scenario's own 18 ms window already holds 180 cycles.
+        let (d, s, cyc) = r.timing(10e3, 20.0);
+        assert!((d - 0.020).abs() < 1e-12 && (s - 0.002).abs() < 1e-12 && cyc > 179.0);
+        // 100 Hz: 20 cycles need 200 ms of window after 20 ms of settling.
+        let (d, s, cyc) = r.timing(100.0, 20.0);
+        assert!((s - 0.02).abs() < 1e-12 && (d - 0.22).abs() < 1e-12 && (cyc - 20.0).abs() < 1e-9);
+        // 1 Hz: bounded by 1e6 steps = 1 s.
+        let (d, _, cyc) = r.timing(1.0, 20.0);
+        assert!((d - 1.0).abs() < 1e-12 && cyc < 20.0);
+    }
+
+    #[test]
+    fn a_source_that_is_not_a_sine_is_bad_input() {
+        let t = text(&CHAIN.replace("waveform = \"sine\"", "waveform = \"triangle\""));
+        let e = find_limits(&t, &LimitOptions::default()).unwrap_err();
+        assert!(e.is_bad_input(), "{e}");
+    }
+}

@@ -1,0 +1,4 @@
+//! Studies built on many runs of one scenario: parameter sweeps and the frequency-limit finder.
+
+pub mod limit;
+pub mod sweep;

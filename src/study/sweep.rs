@@ -1,0 +1,695 @@
+//! Parameter sweeps: run a scenario at every point of a one- or many-dimensional grid of values of numeric
+//! keys (`source.frequency`, `stage.3.slew_rate`, ...) and tabulate every metric of the report.
+//!
+//! Each point is an ordinary run of the scenario with the values set through
+//! [`ScenarioText::with`], so it is checked like a file and keeps the scenario's seed unless
+//! `simulation.seed` is itself varied: the results do not depend on how many threads run the points.
+
+use std::path::Path;
+
+use rayon::prelude::*;
+use serde::Serialize;
+
+use crate::engine::pipeline::{self, Plan};
+use crate::error::{Error, Result};
+use crate::measure::chain::{ChainMetrics, measure_run};
+use crate::report::OutputDir;
+use crate::report::plot::{self, Plot, XyPlot};
+use crate::scenario::Scenario;
+use crate::scenario::overrides::{ScenarioText, is_integer_key};
+use crate::scenario::units::{Dimension, parse_quantity};
+
+/// One varied key: `KEY=FROM..TO` on the command line.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Vary {
+    /// Key path, e.g. `source.frequency` or `stage.3.slew_rate`.
+    pub key: String,
+    /// First and last value, in the key's base unit (SI; degrees for `phase`).
+    pub from: f64,
+    pub to: f64,
+}
+
+/// The dimension a key's value has, from the key's name (the last part of the path). `None`: a plain number.
+pub fn key_dimension(key: &str) -> Option<Dimension> {
+    use Dimension as D;
+    let last = key.rsplit('.').next().unwrap_or(key);
+    Some(match last {
+        "frequency" | "analog_rate" | "sample_rate" | "clock" | "cutoff" | "bandwidth" | "band"
+        | "start" | "stop" => D::Frequency,
+        "duration" | "settle" | "conversion_time" | "acquisition" | "aperture_delay"
+        | "aperture_jitter" | "settling" | "delay" | "sweep_time" | "at" => D::Time,
+        "amplitude" | "offset" | "comparator_offset" | "comparator_noise" | "hold_step" | "rms"
+        | "full_scale" => D::Voltage,
+        "slew_rate" | "droop" => D::SlewRate,
+        "tolerance" | "capacitor_mismatch" | "bit_error_rate" | "gain_error" | "duty" => D::Ratio,
+        "gain" => D::Gain,
+        "ripple" => D::Decibels,
+        "phase" => D::Angle,
+        _ => return None,
+    })
+}
+
+/// Parse one value of `key` ("1 kHz", "4.7k", "1%", "13 V/us", 12) into the number written to the scenario.
+fn parse_value(key: &str, text: &str) -> std::result::Result<f64, String> {
+    let t = text.trim();
+    match key_dimension(key) {
+        Some(Dimension::Angle) => parse_quantity(t, Dimension::Angle)
+            .map(f64::to_degrees)
+            .map_err(|e| e.message),
+        Some(d) => parse_quantity(t, d).map_err(|e| match e.hint {
+            Some(h) => format!("{} ({h})", e.message),
+            None => e.message,
+        }),
+        None => t
+            .parse::<f64>()
+            .ok()
+            .filter(|v| v.is_finite())
+            .ok_or_else(|| format!("expected a plain number, found \"{t}\"")),
+    }
+}
+
+/// Parse `KEY=FROM..TO` (units as in the scenario: `source.frequency=1 kHz..20 kHz`).
+pub fn parse_vary(spec: &str) -> Result<Vary> {
+    let bad = |why: String| {
+        Error::BadInput(format!(
+            "--vary {spec:?}: {why}; write KEY=FROM..TO, e.g. --vary \"source.frequency=1 kHz..20 kHz\" or \
+             --vary stage.3.slew_rate=1e6..2e7"
+        ))
+    };
+    let (key, range) = spec
+        .split_once('=')
+        .ok_or_else(|| bad("no `=` between the key and the range".into()))?;
+    let key = key.trim();
+    let parts: Vec<&str> = key.split('.').collect();
+    if parts.len() < 2 || parts.iter().any(|p| p.trim().is_empty()) {
+        return Err(bad(format!(
+            "`{key}` is not a key path such as `source.frequency` or `stage.3.slew_rate`"
+        )));
+    }
+    let (from, to) = range
+        .split_once("..")
+        .ok_or_else(|| bad("no `..` between FROM and TO".into()))?;
+    let from = parse_value(key, from).map_err(|m| bad(format!("FROM: {m}")))?;
+    let to = parse_value(key, to).map_err(|m| bad(format!("TO: {m}")))?;
+    Ok(Vary {
+        key: key.to_string(),
+        from,
+        to,
+    })
+}
+
+/// What to sweep.
+#[derive(Debug, Clone, PartialEq)]
+pub struct SweepSpec {
+    /// One or more keys; several make a grid of all combinations (the last key varies fastest).
+    pub vary: Vec<Vary>,
+    /// Values per key (at least 2 unless FROM = TO).
+    pub points: usize,
+    /// Space the values logarithmically (FROM and TO must then have the same sign and not be zero).
+    pub log: bool,
+}
+
+/// The values of one key: `points` values from `from` to `to`, rounded and de-duplicated for integer keys.
+pub fn axis_values(v: &Vary, points: usize, log: bool) -> Result<Vec<f64>> {
+    let bad = |m: String| Error::BadInput(format!("--vary {}: {m}", v.key));
+    if points == 0 {
+        return Err(bad("--points must be at least 1".into()));
+    }
+    if points == 1 && v.from != v.to {
+        return Err(bad(
+            "one point cannot span FROM..TO; give --points 2 or more, or FROM = TO".into(),
+        ));
+    }
+    if log && (v.from == 0.0 || v.to == 0.0 || v.from.signum() != v.to.signum()) {
+        return Err(bad(format!(
+            "--log needs FROM and TO of the same sign and not zero (found {}..{})",
+            v.from, v.to
+        )));
+    }
+    let n = points;
+    let mut out: Vec<f64> = (0..n)
+        .map(|i| {
+            if n == 1 {
+                return v.from;
+            }
+            let u = i as f64 / (n - 1) as f64;
+            if i == n - 1 {
+                v.to
+            } else if log {
+                v.from * (v.to / v.from).powf(u)
+            } else {
+                v.from + (v.to - v.from) * u
+            }
+        })
+        .collect();
+    let last = v.key.rsplit('.').next().unwrap_or(&v.key);
+    if is_integer_key(last) {
+        for x in &mut out {
+            *x = x.round();
+        }
+        out.dedup();
+    }
+    Ok(out)
+}
+
+/// Every combination of the axes' values (the last axis varies fastest).
+pub fn grid(axes: &[Vec<f64>]) -> Vec<Vec<f64>> {
+    let mut pts: Vec<Vec<f64>> = vec![Vec::new()];
+    for axis in axes {
+        pts = pts
+            .into_iter()
+            .flat_map(|p| {
+                axis.iter().map(move |&x| {
+                    let mut q = p.clone();
+                    q.push(x);
+                    q
+                })
+            })
+            .collect();
+    }
+    pts
+}
+
+/// Names of the metric columns, in the order of [`metric_values`].
+pub const METRIC_COLUMNS: &[&str] = &[
+    "adc.bits",
+    "adc.sample_rate_hz",
+    "adc.conversion_time_s",
+    "adc.codes_clipped",
+    "adc.record_length",
+    "adc.fundamental_hz",
+    "adc.amplitude_v",
+    "adc.snr_db",
+    "adc.sinad_db",
+    "adc.enob_bits",
+    "adc.enob_sinefit_bits",
+    "adc.thd_db",
+    "adc.sfdr_dbc",
+    "adc.noise_floor_dbfs",
+    "adc.harmonics_counted",
+    "output.analysis_rate_hz",
+    "output.band_hz",
+    "output.record_length",
+    "output.fundamental_hz",
+    "output.amplitude_v",
+    "output.snr_db",
+    "output.sinad_db",
+    "output.enob_bits",
+    "output.thd_db",
+    "output.sfdr_dbc",
+    "output.gain_db",
+    "output.fidelity_db",
+    "output.bits_flipped",
+    "latency.measured_s",
+    "latency.budget_s",
+];
+
+/// Every number of a report's `adc` and `output` sections, and the measured and budgeted latency, in the
+/// order of [`METRIC_COLUMNS`] (`None` where the report has no value, or no ADC).
+pub fn metric_values(m: &ChainMetrics) -> Vec<Option<f64>> {
+    let mut v = Vec::with_capacity(METRIC_COLUMNS.len());
+    match &m.adc {
+        Some(a) => v.extend([
+            Some(a.bits as f64),
+            Some(a.sample_rate_hz),
+            Some(a.conversion_time_s),
+            Some(a.codes_clipped as f64),
+            Some(a.record_length as f64),
+            a.fundamental_hz,
+            a.amplitude_v,
+            a.snr_db,
+            a.sinad_db,
+            a.enob_bits,
+            a.enob_sinefit_bits,
+            a.thd_db,
+            a.sfdr_dbc,
+            a.noise_floor_dbfs,
+            Some(a.harmonics_counted as f64),
+        ]),
+        None => v.extend([None; 15]),
+    }
+    let o = &m.output;
+    v.extend([
+        Some(o.analysis_rate_hz),
+        Some(o.band_hz),
+        Some(o.record_length as f64),
+        o.fundamental_hz,
+        o.amplitude_v,
+        o.snr_db,
+        o.sinad_db,
+        o.enob_bits,
+        o.thd_db,
+        o.sfdr_dbc,
+        o.gain_db,
+        Some(o.fidelity_db),
+        Some(o.bits_flipped as f64),
+        Some(m.latency.measured_s),
+        Some(m.latency.budget_s),
+    ]);
+    v
+}
+
+/// One point of a sweep.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct SweepRow {
+    /// The varied values, in the order of [`SweepSpec::vary`].
+    pub values: Vec<f64>,
+    /// Sine sources: the frequency asked for and the one the run used (moved for coherent sampling).
+    pub frequency_requested_hz: Option<f64>,
+    pub frequency_used_hz: Option<f64>,
+    /// In the order of [`METRIC_COLUMNS`].
+    pub metrics: Vec<Option<f64>>,
+    /// Why the point could not be simulated or measured (its metrics are then empty).
+    pub error: Option<String>,
+}
+
+/// A whole sweep.
+#[derive(Debug, Clone, PartialEq)]
+pub struct SweepResult {
+    pub scenario: String,
+    pub spec: SweepSpec,
+    /// The values of each key.
+    pub axes: Vec<Vec<f64>>,
+    pub rows: Vec<SweepRow>,
+}
+
+/// How to run a sweep.
+#[derive(Debug, Clone, Copy, Default)]
+pub struct SweepOptions {
+    /// Worker threads (None: all cores).
+    pub threads: Option<usize>,
+    /// Show a progress bar on standard error when it is a terminal.
+    pub progress: bool,
+}
+
+/// Simulate and measure one checked scenario: (requested frequency, used frequency, metrics).
+pub fn simulate(sc: &Scenario) -> Result<(Option<f64>, Option<f64>, ChainMetrics)> {
+    let run = pipeline::run(sc, None, &mut |_| {})?;
+    let m = measure_run(&run)?;
+    Ok((run.plan.requested_frequency_hz, run.plan.frequency_hz, m))
+}
+
+/// A rayon pool of `threads` workers (None or 0: one per core).
+pub fn thread_pool(threads: Option<usize>) -> Result<rayon::ThreadPool> {
+    rayon::ThreadPoolBuilder::new()
+        .num_threads(threads.unwrap_or(0))
+        .build()
+        .map_err(|e| Error::Run(format!("cannot start worker threads: {e}")))
+}
+
+/// A progress bar for `n` items, shown only when asked and standard error is a terminal.
+pub fn progress_bar(n: usize, show: bool, what: &str) -> Option<indicatif::ProgressBar> {
+    (show && std::io::IsTerminal::is_terminal(&std::io::stderr())).then(|| {
+        let b = indicatif::ProgressBar::new(n as u64);
+        b.set_style(
+            indicatif::ProgressStyle::with_template(&format!(
+                "  {what} [{{bar:40}}] {{pos}}/{{len}}  {{elapsed}}"
+            ))
+            .unwrap_or_else(|_| indicatif::ProgressStyle::default_bar()),
+        );
+        b
+    })
+}
+
+/// Run every point of the sweep. Every point's scenario is checked (and planned) before any runs, so a value
+/// the scenario cannot take is reported as bad input at once; a point that fails while running is kept as a
+/// row with its error.
+pub fn run_sweep(
+    text: &ScenarioText,
+    spec: &SweepSpec,
+    opts: &SweepOptions,
+) -> Result<SweepResult> {
+    if spec.vary.is_empty() {
+        return Err(Error::BadInput(
+            "give at least one --vary KEY=FROM..TO".into(),
+        ));
+    }
+    let axes = spec
+        .vary
+        .iter()
+        .map(|v| axis_values(v, spec.points, spec.log))
+        .collect::<Result<Vec<_>>>()?;
+    let points = grid(&axes);
+    let scenarios = points
+        .iter()
+        .map(|p| {
+            let ov: Vec<(String, f64)> = spec
+                .vary
+                .iter()
+                .zip(p)
+                .map(|(v, x)| (v.key.clone(), *x))
+                .collect();
+            let sc = text.with(&ov)?;
+            Plan::new(&sc)?;
+            Ok(sc)
+        })
+        .collect::<Result<Vec<Scenario>>>()?;
+    let name = scenarios
+        .first()
+        .map(|s| s.name.clone())
+        .unwrap_or_default();
+    let pool = thread_pool(opts.threads)?;
+    let bar = progress_bar(points.len(), opts.progress, "sweeping");
+    let rows: Vec<SweepRow> = pool.install(|| {
+        scenarios
+            .par_iter()
+            .zip(points.par_iter())
+            .map(|(sc, p)| {
+                let row = match simulate(sc) {
+                    Ok((fr, fu, m)) => SweepRow {
+                        values: p.clone(),
+                        frequency_requested_hz: fr,
+                        frequency_used_hz: fu,
+                        metrics: metric_values(&m),
+                        error: None,
+                    },
+                    Err(e) => SweepRow {
+                        values: p.clone(),
+                        frequency_requested_hz: sc.source.waveform.fundamental_hz(),
+                        frequency_used_hz: None,
+                        metrics: vec![None; METRIC_COLUMNS.len()],
+                        error: Some(e.to_string()),
+                    },
+                };
+                if let Some(b) = &bar {
+                    b.inc(1);
+                }
+                row
+            })
+            .collect()
+    });
+    if let Some(b) = bar {
+        b.finish_and_clear();
+    }
+    Ok(SweepResult {
+        scenario: name,
+        spec: spec.clone(),
+        axes,
+        rows,
+    })
+}
+
+impl SweepResult {
+    /// Column names: the varied keys, `frequency_used_hz` (beside the requested frequency), the metrics, `error`.
+    pub fn columns(&self) -> Vec<String> {
+        let mut c: Vec<String> = self.spec.vary.iter().map(|v| v.key.clone()).collect();
+        c.push("frequency_requested_hz".into());
+        c.push("frequency_used_hz".into());
+        c.extend(METRIC_COLUMNS.iter().map(|s| s.to_string()));
+        c.push("error".into());
+        c
+    }
+
+    /// Index of a metric column in [`SweepRow::metrics`].
+    pub fn metric_index(name: &str) -> Option<usize> {
+        METRIC_COLUMNS.iter().position(|c| *c == name)
+    }
+
+    /// The CSV text (empty cells for missing values; numbers in Rust's shortest round-trip form).
+    pub fn to_csv(&self) -> Result<Vec<u8>> {
+        let mut w = csv::Writer::from_writer(Vec::new());
+        let io = |e: csv::Error| Error::Run(format!("sweep.csv: {e}"));
+        w.write_record(self.columns()).map_err(io)?;
+        let num = |x: Option<f64>| x.map(|v| v.to_string()).unwrap_or_default();
+        for r in &self.rows {
+            let mut rec: Vec<String> = r.values.iter().map(|v| v.to_string()).collect();
+            rec.push(num(r.frequency_requested_hz));
+            rec.push(num(r.frequency_used_hz));
+            rec.extend(r.metrics.iter().map(|m| num(*m)));
+            rec.push(r.error.clone().unwrap_or_default());
+            w.write_record(&rec).map_err(io)?;
+        }
+        w.into_inner()
+            .map_err(|e| Error::Run(format!("sweep.csv: {e}")))
+    }
+
+    /// The JSON document: scenario, the varied keys with their values, the columns, one object per row.
+    pub fn to_json(&self) -> serde_json::Value {
+        use serde_json::{Map, Value, json};
+        let vary: Vec<Value> = self
+            .spec
+            .vary
+            .iter()
+            .zip(&self.axes)
+            .map(|(v, a)| {
+                json!({"key": v.key, "from": v.from, "to": v.to, "points": a.len(), "log": self.spec.log,
+                       "values": a})
+            })
+            .collect();
+        let rows: Vec<Value> = self
+            .rows
+            .iter()
+            .map(|r| {
+                let mut m = Map::new();
+                for (v, x) in self.spec.vary.iter().zip(&r.values) {
+                    m.insert(v.key.clone(), json!(x));
+                }
+                m.insert(
+                    "frequency_requested_hz".into(),
+                    json!(r.frequency_requested_hz),
+                );
+                m.insert("frequency_used_hz".into(), json!(r.frequency_used_hz));
+                for (c, x) in METRIC_COLUMNS.iter().zip(&r.metrics) {
+                    m.insert(c.to_string(), json!(x));
+                }
+                m.insert("error".into(), json!(r.error));
+                Value::Object(m)
+            })
+            .collect();
+        json!({
+            "scenario": self.scenario,
+            "vary": vary,
+            "columns": self.columns(),
+            "rows": rows,
+        })
+    }
+
+    /// The x value of a row for plots: the first varied value, or the frequency used when the first key is
+    /// the source frequency.
+    fn plot_x(&self, r: &SweepRow) -> f64 {
+        if self.spec.vary[0].key == "source.frequency" {
+            r.frequency_used_hz.unwrap_or(r.values[0])
+        } else {
+            r.values[0]
+        }
+    }
+
+    /// The plots: (file stem, plot title, y label, metric columns). One series per metric and per combination of
+    /// the other keys' values.
+    pub const PLOTS: &'static [(
+        &'static str,
+        &'static str,
+        &'static str,
+        &'static [&'static str],
+    )] = &[
+        (
+            "sweep-enob",
+            "ENOB",
+            "ENOB (bits)",
+            &["adc.enob_bits", "output.enob_bits"],
+        ),
+        (
+            "sweep-sinad",
+            "SINAD",
+            "SINAD (dB)",
+            &["adc.sinad_db", "output.sinad_db"],
+        ),
+        ("sweep-gain", "Gain", "gain (dB)", &["output.gain_db"]),
+        (
+            "sweep-fidelity",
+            "Waveform fidelity",
+            "fidelity (dB)",
+            &["output.fidelity_db"],
+        ),
+    ];
+
+    /// The series of one plot: (name, x, y), skipping missing values.
+    pub fn plot_series(&self, metrics: &[&str]) -> Vec<(String, Vec<f64>, Vec<f64>)> {
+        let mut out = Vec::new();
+        // Groups: rows sharing the values of every key but the first.
+        let mut groups: Vec<(Vec<f64>, Vec<&SweepRow>)> = Vec::new();
+        for r in &self.rows {
+            let rest = r.values[1..].to_vec();
+            match groups.iter_mut().find(|(k, _)| *k == rest) {
+                Some((_, g)) => g.push(r),
+                None => groups.push((rest, vec![r])),
+            }
+        }
+        for name in metrics {
+            let Some(i) = Self::metric_index(name) else {
+                continue;
+            };
+            for (rest, rows) in &groups {
+                let (x, y): (Vec<f64>, Vec<f64>) = rows
+                    .iter()
+                    .filter_map(|r| r.metrics[i].map(|y| (self.plot_x(r), y)))
+                    .unzip();
+                if x.is_empty() {
+                    continue;
+                }
+                let mut label = name.to_string();
+                for (v, val) in self.spec.vary[1..].iter().zip(rest) {
+                    let shown = match key_dimension(&v.key) {
+                        Some(Dimension::Angle) => format!("{val} deg"),
+                        Some(d) if d != Dimension::Gain && !d.base_unit().is_empty() => {
+                            crate::scenario::units::format_si(*val, d.base_unit())
+                        }
+                        _ => val.to_string(),
+                    };
+                    label.push_str(&format!(", {}={shown}", v.key));
+                }
+                out.push((label, x, y));
+            }
+        }
+        out
+    }
+}
+
+/// Write `sweep.csv`, `sweep.json` and the plots (PNG and SVG) atomically into `dir`.
+pub fn write_sweep(result: &SweepResult, dir: &Path) -> Result<()> {
+    let out = OutputDir::create(dir)?;
+    let r = (|| -> Result<()> {
+        out.write("sweep.csv", &result.to_csv()?)?;
+        let json =
+            serde_json::to_vec_pretty(&result.to_json()).map_err(|e| Error::Run(e.to_string()))?;
+        out.write("sweep.json", &json)?;
+        let first = &result.spec.vary[0].key;
+        let x_label = match key_dimension(first) {
+            _ if first == "source.frequency" => "source frequency used (Hz)".to_string(),
+            Some(Dimension::Angle) => format!("{first} (deg)"),
+            Some(d) if !d.base_unit().is_empty() && d != Dimension::Gain => {
+                format!("{first} ({})", d.base_unit())
+            }
+            _ => first.clone(),
+        };
+        for (stem, title, y_label, metrics) in SweepResult::PLOTS {
+            let series = result.plot_series(metrics);
+            let xy = XyPlot {
+                title: format!("{}: {title} against {first}", result.scenario),
+                x_label: x_label.clone(),
+                y_label: y_label.to_string(),
+                series: series
+                    .iter()
+                    .map(|(n, x, y)| (n.as_str(), x.as_slice(), y.as_slice()))
+                    .collect(),
+                log_x: result.spec.log,
+                markers: Vec::new(),
+            };
+            let p = Plot::Xy(xy);
+            let (png, _) = plot::render_png(&p, 1000, 620)?;
+            out.write(&format!("{stem}.png"), &png)?;
+            let (svg, _) = plot::render_svg(&p)?;
+            out.write(&format!("{stem}.svg"), svg.as_bytes())?;
+        }
+        Ok(())
+    })();
+    if let Err(e) = r {
+        out.abandon();
+        return Err(e);
+    }
+    Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn vary_specs_take_units_of_the_key() {
+        let v = parse_vary("source.frequency=1 kHz..20 kHz").unwrap();
+        assert_eq!((v.from, v.to), (1e3, 20e3));
+        let v = parse_vary("stage.3.slew_rate=1 V/us..13 V/us").unwrap();
+        assert_eq!((v.from, v.to), (1e6, 13e6));
+        let v = parse_vary("stage.2.bits=8..12").unwrap();
+        assert_eq!((v.from, v.to), (8.0, 12.0));
+        let v = parse_vary("source.phase=0 deg..90 deg").unwrap();
+        assert!((v.to - 90.0).abs() < 1e-12);
+    }
+
+    #[test]
+    fn bad_vary_specs_are_bad_input_with_the_form_to_use() {
+        for s in [
+            "source.frequency",
+            "source.frequency=1 kHz",
+            "frequency=1..2",
+            "source.frequency=1 kV..2 kV",
+            "stage.2.bits=eight..12",
+        ] {
+            let e = parse_vary(s).unwrap_err();
+            assert!(e.is_bad_input(), "{s}");
+            assert!(e.to_string().contains("KEY=FROM..TO"), "{s}: {e}");
+        }
+    }
+
+    #[test]
+    fn axes_are_linear_logarithmic_and_whole_for_integer_keys() {
+        let v = Vary {
+            key: "source.frequency".into(),
+            from: 10.0,
+            to: 1000.0,
+        };
+        let lin = axis_values(&v, 3, false).unwrap();
+        assert_eq!(lin, vec![10.0, 505.0, 1000.0]);
+        let log = axis_values(&v, 3, true).unwrap();
+        assert!((log[1] - 100.0).abs() < 1e-9);
+        let b = Vary {
+            key: "stage.2.bits".into(),
+            from: 8.0,
+            to: 10.0,
+        };
+        assert_eq!(axis_values(&b, 5, false).unwrap(), vec![8.0, 9.0, 10.0]);
+        let z = Vary {
+            key: "source.offset".into(),
+            from: 0.0,
+            to: 1.0,
+        };
+        assert!(axis_values(&z, 3, true).unwrap_err().is_bad_input());
+        assert!(axis_values(&z, 1, false).unwrap_err().is_bad_input());
+    }
+
+    #[test]
+    fn a_grid_holds_every_combination_with_the_last_key_fastest() {
+        let g = grid(&[vec![1.0, 2.0], vec![10.0, 20.0, 30.0]]);
+        assert_eq!(g.len(), 6);
+        assert_eq!(g[0], vec![1.0, 10.0]);
+        assert_eq!(g[1], vec![1.0, 20.0]);
+        assert_eq!(g[5], vec![2.0, 30.0]);
+    }
+
+    #[test]
+    fn every_number_of_the_report_sections_has_a_column() {
+        // Guards the explicit column list against fields added to the report later.
+        let sc =
+            crate::scenario::parse_str(crate::DEFAULT_SCENARIO, "demo", std::path::Path::new("."))
+                .unwrap();
+        let text = crate::scenario::overrides::ScenarioText::new(
+            crate::DEFAULT_SCENARIO.to_string(),
+            "demo".into(),
+            ".".into(),
+        )
+        .unwrap();
+        let short = text
+            .with(&[
+                ("simulation.duration".into(), 0.012),
+                ("simulation.settle".into(), 0.002),
+            ])
+            .unwrap();
+        assert_eq!(short.name, sc.name);
+        let (_, _, m) = simulate(&short).unwrap();
+        let vals = metric_values(&m);
+        assert_eq!(vals.len(), METRIC_COLUMNS.len());
+        let j = serde_json::to_value(&m).unwrap();
+        for section in ["adc", "output"] {
+            for (k, v) in j[section].as_object().unwrap() {
+                if v.is_number() || v.is_null() {
+                    let col = format!("{section}.{k}");
+                    let i = METRIC_COLUMNS
+                        .iter()
+                        .position(|c| *c == col)
+                        .unwrap_or_else(|| panic!("no column for {col}"));
+                    assert_eq!(vals[i], v.as_f64(), "{col}");
+                }
+            }
+        }
+    }
+}
