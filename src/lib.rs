@@ -7,7 +7,8 @@
 //! - [`engine`]: the streaming pipeline that runs a scenario on a uniform analog grid, in blocks;
 //! - [`measure`]: spectra, dynamic metrics, sine fits, latency, static tests;
 //! - [`report`]: JSON, CSV and text output;
-//! - [`runner`]: a whole run, from a checked scenario to files in a folder.
+//! - [`runner`]: a whole run, from a checked scenario to files in a folder;
+//! - [`study`]: many runs of one scenario (Monte-Carlo), shards and merging.
 //!
 //! Units are explicit in names: `_s` seconds, `_hz` hertz, `_v` volts, `_db` decibels.
 //!
@@ -23,6 +24,7 @@ pub mod report;
 pub mod runner;
 pub mod scenario;
 pub mod stages;
+pub mod study;
 
 pub use error::Error;
 pub use runner::{RunOptions, run_to_dir, static_to_dir};
