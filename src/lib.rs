@@ -8,7 +8,8 @@
 //! - [`measure`]: spectra, dynamic metrics, sine fits, latency, static tests;
 //! - [`report`]: JSON, CSV and text output;
 //! - [`runner`]: a whole run, from a checked scenario to files in a folder;
-//! - [`study`]: many runs of one scenario (parameter sweeps, the frequency-limit finder).
+//! - [`study`]: many runs of one scenario: parameter sweeps, the frequency-limit finder, Monte-Carlo, and the
+//!   shards and merging that spread a study over machines.
 //!
 //! Units are explicit in names: `_s` seconds, `_hz` hertz, `_v` volts, `_db` decibels.
 //!

@@ -6,6 +6,8 @@ use std::process::ExitCode;
 
 use clap::{Parser, Subcommand};
 
+mod montecarlo;
+
 use convchain::error::Error;
 use convchain::report::OutputDir;
 use convchain::scenario::{self, Scenario};
@@ -104,6 +106,10 @@ enum Command {
     Sweep(study_cli::SweepArgs),
     /// Find the lowest sine frequency at which the chain starts to struggle, and why.
     Limit(study_cli::LimitArgs),
+    /// Monte-Carlo study: run the scenario many times with fresh draws; percentiles and yield.
+    Montecarlo(montecarlo::McArgs),
+    /// Join the folders of shards (--shard K/N) of one study into what a single machine would have written.
+    Merge(montecarlo::MergeArgs),
 }
 
 #[derive(clap::ValueEnum, Clone, Copy, Debug)]
@@ -149,6 +155,10 @@ pub fn main() -> ExitCode {
     };
     match run(args) {
         Ok(()) => ExitCode::SUCCESS,
+        Err(e) if e.downcast_ref::<montecarlo::Interrupted>().is_some() => {
+            eprintln!("{e}");
+            ExitCode::from(montecarlo::INTERRUPTED_EXIT)
+        }
         Err(e) => {
             if let Some(io) = e.downcast_ref::<std::io::Error>()
                 && io.kind() == std::io::ErrorKind::BrokenPipe
@@ -350,6 +360,8 @@ fn run(args: Args) -> anyhow::Result<()> {
                 writeln!(o, "wrote {}", dir.display())?;
             }
         }
+        Command::Montecarlo(a) => montecarlo::run(a)?,
+        Command::Merge(a) => montecarlo::merge(a)?,
     }
     Ok(())
 }

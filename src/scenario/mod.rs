@@ -48,6 +48,8 @@ pub struct Scenario {
     /// The signal path, in order.
     pub stages: Vec<Stage>,
     pub analysis: Analysis,
+    /// `[spread]`: values drawn afresh for each Monte-Carlo run, in file order (empty for a single run).
+    pub spread: Vec<Spread>,
     /// Non-fatal remarks found while checking (e.g. an analog rate below 20x the highest source frequency).
     pub warnings: Vec<String>,
 }
@@ -395,6 +397,40 @@ pub struct Analysis {
     pub coherent: bool,
     /// Highest harmonic counted in THD (and removed for SNR).
     pub harmonics: u32,
+}
+
+/// How a `[spread]` value is drawn around its nominal.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum SpreadLaw {
+    /// Gaussian; the amount is the standard deviation.
+    Gaussian,
+    /// Uniform within +-amount.
+    Uniform,
+}
+
+/// One `[spread]` entry: the value at `path` is drawn for each Monte-Carlo run.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Spread {
+    /// Key path as for overrides: `stage.4.offset`, `source.frequency`.
+    pub path: String,
+    pub law: SpreadLaw,
+    /// Sigma (Gaussian) or half-width (uniform): a fraction of the nominal when `relative`, else in the key's
+    /// SI base unit (V, Hz, s, V/s, V/V for gains, dB for ripple, plain number for ratios).
+    pub amount: f64,
+    pub relative: bool,
+    /// The value written in the scenario, SI base units.
+    pub nominal: f64,
+}
+
+impl Spread {
+    /// Sigma or half-width in the key's SI base unit.
+    pub fn absolute_amount(&self) -> f64 {
+        if self.relative {
+            self.amount * self.nominal.abs()
+        } else {
+            self.amount
+        }
+    }
 }
 
 pub mod overrides;

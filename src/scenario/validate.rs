@@ -84,6 +84,7 @@ pub fn build(
     let src_t = r.table("source")?;
     let stage_nodes = r.array("stage")?;
     let analysis_t = r.table("analysis")?;
+    let spread_t = r.table("spread")?;
     // Report an unknown top-level key (e.g. `[stages]`) before complaining about missing ones.
     let missing_name = r.missing("name", "\"my-bench\"");
     let missing_sim = r.missing("simulation", "a [simulation] table");
@@ -149,6 +150,10 @@ pub fn build(
         },
         Some(t) => analysis(map, t)?,
     };
+    let spread = match spread_t {
+        None => Vec::new(),
+        Some(t) => spread(map, t, root)?,
+    };
     Ok(Scenario {
         name: name.value.to_string(),
         description,
@@ -158,6 +163,7 @@ pub fn build(
         source,
         stages,
         analysis,
+        spread,
         warnings,
     })
 }
@@ -1095,6 +1101,330 @@ fn analysis(map: &SourceMap<'_>, t: &Table) -> Result<Analysis, ScenarioError> {
     })
 }
 
+/// Keys a `[spread]` entry may name: (table or stage kind, key, dimension of the value).
+const SPREAD_KEYS: &[(&str, &str, Dimension)] = {
+    use Dimension as D;
+    &[
+        ("simulation", "analog_rate", D::Frequency),
+        ("simulation", "duration", D::Time),
+        ("simulation", "settle", D::Time),
+        ("source", "frequency", D::Frequency),
+        ("source", "amplitude", D::Voltage),
+        ("source", "offset", D::Voltage),
+        ("source", "duty", D::Ratio),
+        ("source", "start", D::Frequency),
+        ("source", "stop", D::Frequency),
+        ("source", "sweep_time", D::Time),
+        ("source", "at", D::Time),
+        ("source", "rms", D::Voltage),
+        ("source", "bandwidth", D::Frequency),
+        ("source", "full_scale", D::Voltage),
+        ("sample_hold", "acquisition", D::Time),
+        ("sample_hold", "aperture_delay", D::Time),
+        ("sample_hold", "aperture_jitter", D::Time),
+        ("sample_hold", "droop", D::SlewRate),
+        ("sample_hold", "hold_step", D::Voltage),
+        ("sar_adc", "clock", D::Frequency),
+        ("sar_adc", "conversion_time", D::Time),
+        ("sar_adc", "sample_rate", D::Frequency),
+        ("sar_adc", "comparator_offset", D::Voltage),
+        ("sar_adc", "comparator_noise", D::Voltage),
+        ("sar_adc", "capacitor_mismatch", D::Ratio),
+        ("sar_adc", "dither_lsb", D::Ratio),
+        ("link", "delay", D::Time),
+        ("link", "bit_error_rate", D::Ratio),
+        ("dac", "tolerance", D::Ratio),
+        ("dac", "offset", D::Voltage),
+        ("dac", "gain_error", D::Ratio),
+        ("dac", "slew_rate", D::SlewRate),
+        ("dac", "settling", D::Time),
+        ("dac", "bandwidth", D::Frequency),
+        ("filter", "cutoff", D::Frequency),
+        ("filter", "ripple", D::Decibels),
+        ("amplifier", "gain", D::Gain),
+        ("amplifier", "offset", D::Voltage),
+        ("amplifier", "slew_rate", D::SlewRate),
+        ("amplifier", "settling", D::Time),
+        ("amplifier", "bandwidth", D::Frequency),
+        ("analysis", "band", D::Frequency),
+    ]
+};
+
+/// Keys that take whole numbers (never spread).
+const WHOLE_NUMBER_KEYS: [&str; 7] = [
+    "seed",
+    "bits",
+    "order",
+    "cycles",
+    "frame",
+    "harmonics",
+    "channel",
+];
+
+/// One `[spread]` entry before checking: its key path, where the key is written, its value.
+struct SpreadEntry<'a> {
+    path: String,
+    key_span: Span,
+    node: &'a Node,
+}
+
+/// True while a dotted path is still short of a whole key path (`stage.4` needs its key).
+fn path_is_partial(path: &str) -> bool {
+    let parts = path.split('.').count();
+    parts
+        < if path.split('.').next() == Some("stage") {
+            3
+        } else {
+            2
+        }
+}
+
+/// Entries of `[spread]`, with dotted keys (`stage.4.offset = ...` unquoted) joined back into paths.
+fn flatten_spread<'a>(t: &'a Table, prefix: &str, out: &mut Vec<SpreadEntry<'a>>) {
+    for e in &t.entries {
+        let path = if prefix.is_empty() {
+            e.key.clone()
+        } else {
+            format!("{prefix}.{}", e.key)
+        };
+        match &e.node.value {
+            Value::Table(sub) if path_is_partial(&path) => flatten_spread(sub, &path, out),
+            _ => out.push(SpreadEntry {
+                path,
+                key_span: e.key_span.clone(),
+                node: &e.node,
+            }),
+        }
+    }
+}
+
+fn table_entry<'a>(t: &'a Table, key: &str) -> Option<&'a Node> {
+    t.entries.iter().find(|e| e.key == key).map(|e| &e.node)
+}
+
+/// The node a spread path points at in the scenario, and the dimension of its value.
+fn spread_target<'a>(
+    map: &SourceMap<'_>,
+    root: &'a Table,
+    e: &SpreadEntry<'_>,
+    at: &str,
+) -> Result<(&'a Node, Dimension), ScenarioError> {
+    let err = |m: String| map.error(&e.key_span, at, m);
+    let parts: Vec<&str> = e.path.split('.').collect();
+    let (table, kind, key) = match parts.as_slice() {
+        [section @ ("simulation" | "source" | "analysis"), key] => {
+            let t = match table_entry(root, section).map(|n| &n.value) {
+                Some(Value::Table(t)) => t,
+                _ => {
+                    return Err(err(format!("the scenario has no [{section}] table"))
+                        .with_hint(format!("write the key in [{section}] first")));
+                }
+            };
+            (t, *section, *key)
+        }
+        ["stage", n, key] => {
+            let stages = match table_entry(root, "stage").map(|n| &n.value) {
+                Some(Value::Array(a)) => a.as_slice(),
+                _ => {
+                    return Err(err("the scenario has no [[stage]]".into())
+                        .with_hint("spread keys of stages that exist"));
+                }
+            };
+            let idx: usize = n.parse().map_err(|_| {
+                err(format!("`{n}` is not a stage number")).with_hint(
+                    "stages are numbered from 1 in file order, as in \"stage.3.slew_rate\"",
+                )
+            })?;
+            let Some(Value::Table(t)) = idx
+                .checked_sub(1)
+                .and_then(|i| stages.get(i))
+                .map(|n| &n.value)
+            else {
+                return Err(err(format!(
+                    "there is no stage {idx} (stages are numbered 1 to {})",
+                    stages.len()
+                ))
+                .with_hint("count the [[stage]] sections from 1 in file order"));
+            };
+            let kind = match table_entry(t, "kind").map(|n| &n.value) {
+                Some(Value::Str(k)) => STAGE_KINDS
+                    .iter()
+                    .find(|s| **s == k.as_str())
+                    .copied()
+                    .unwrap_or("stage"),
+                _ => "stage",
+            };
+            (t, kind, *key)
+        }
+        _ => {
+            return Err(err(format!("`{}` is not a key path", e.path)).with_hint(
+                "write \"simulation.KEY\", \"source.KEY\", \"analysis.KEY\" or \"stage.N.KEY\" (N from 1), \
+                 e.g. \"stage.4.offset\" = \"2 mV\"",
+            ));
+        }
+    };
+    let what = if matches!(kind, "simulation" | "source" | "analysis") {
+        format!("[{kind}]")
+    } else {
+        format!("a {kind} stage")
+    };
+    let dim = SPREAD_KEYS
+        .iter()
+        .find(|(k, name, _)| *k == kind && *name == key)
+        .map(|(_, _, d)| *d);
+    let Some(dim) = dim else {
+        if WHOLE_NUMBER_KEYS.contains(&key) {
+            return Err(
+                err(format!("`{key}` takes a whole number and cannot be spread")).with_hint(
+                    "spread continuous values; each Monte-Carlo run already draws its own seed",
+                ),
+            );
+        }
+        let keys: Vec<&str> = SPREAD_KEYS
+            .iter()
+            .filter(|(k, _, _)| *k == kind)
+            .map(|(_, n, _)| *n)
+            .collect();
+        let mut er = err(format!(
+            "`{key}` is not a numeric key of {what} that can be spread"
+        ));
+        er = match super::reader::did_you_mean(key, &keys) {
+            Some(m) => er.with_hint(format!(
+                "did you mean `{m}`? keys of {what}: {}",
+                keys.join(", ")
+            )),
+            None => er.with_hint(format!(
+                "keys of {what} that can be spread: {}",
+                keys.join(", ")
+            )),
+        };
+        return Err(er);
+    };
+    let Some(node) = table_entry(table, key) else {
+        return Err(err(format!(
+            "`{}` is not written in the scenario, so it has no nominal value to spread around",
+            e.path
+        ))
+        .with_hint(format!("write `{key} = ...` in {what} (0 is allowed)")));
+    };
+    Ok((node, dim))
+}
+
+/// A spread amount: (value, relative). `%` and `ppm` are fractions of the nominal; anything else is in the
+/// key's own unit.
+fn spread_amount(
+    map: &SourceMap<'_>,
+    node: &Node,
+    at: &str,
+    dim: Dimension,
+) -> Result<(f64, bool), ScenarioError> {
+    let (v, relative) = match &node.value {
+        Value::Str(s) if s.trim_end().ends_with('%') || s.trim_end().ends_with("ppm") => (
+            super::reader::node_quantity(map, node, at, Dimension::Ratio)?,
+            true,
+        ),
+        Value::Str(s) if dim == Dimension::Gain && s.contains("dB") => {
+            return Err(map
+                .error(&node.span, at, "a gain's spread cannot be given in dB")
+                .with_hint("give it relative (\"1%\") or in V/V (0.01)"));
+        }
+        Value::Str(_) | Value::Int(_) | Value::Float(_) => (
+            super::reader::node_quantity(map, node, at, dim).map_err(|e| {
+                let h = format!(
+                    "a spread is given like the key itself ({}), or relative to it (\"1%\")",
+                    dim.expectation()
+                );
+                let joined = match &e.hint {
+                    Some(old) => format!("{old}; {h}"),
+                    None => h,
+                };
+                e.with_hint(joined)
+            })?,
+            false,
+        ),
+        other => {
+            return Err(map
+                .error(
+                    &node.span,
+                    at,
+                    format!("expected a spread, found {}", other.type_name()),
+                )
+                .with_hint(SPREAD_FORMS));
+        }
+    };
+    if !(v.is_finite() && v >= 0.0) {
+        return Err(map
+            .error(
+                &node.span,
+                at,
+                format!("a spread must be zero or positive, found {v}"),
+            )
+            .with_hint(SPREAD_FORMS));
+    }
+    Ok((v, relative))
+}
+
+const SPREAD_FORMS: &str = "write \"2 mV\" (Gaussian sigma), \"1%\" (sigma relative to the nominal), \
+                            { sigma = \"2 mV\" } or { uniform = \"5%\" } (uniform within +-5 %)";
+
+/// `[spread]`: key paths that exist in the scenario and hold continuous values, with their amounts.
+fn spread(map: &SourceMap<'_>, t: &Table, root: &Table) -> Result<Vec<Spread>, ScenarioError> {
+    let mut entries = Vec::new();
+    flatten_spread(t, "", &mut entries);
+    let mut out: Vec<Spread> = Vec::with_capacity(entries.len());
+    for e in &entries {
+        let at = format!("spread.\"{}\"", e.path);
+        if out.iter().any(|s| s.path == e.path) {
+            return Err(map
+                .error(&e.key_span, &at, format!("`{}` is spread twice", e.path))
+                .with_hint("keep one entry per key"));
+        }
+        let (target, dim) = spread_target(map, root, e, &at)?;
+        let nominal = super::reader::node_quantity(map, target, &e.path, dim)?;
+        let (law, amount_node) = match &e.node.value {
+            Value::Table(spec) => {
+                let mut r = TableReader::new(map, spec, at.clone());
+                let sigma = r.take("sigma");
+                let uniform = r.take("uniform");
+                r.finish(&[], "a spread")?;
+                match (sigma, uniform) {
+                    (Some(n), None) => (SpreadLaw::Gaussian, n),
+                    (None, Some(n)) => (SpreadLaw::Uniform, n),
+                    _ => {
+                        return Err(map
+                            .error(&e.node.span, &at, "give either `sigma` or `uniform`")
+                            .with_hint(SPREAD_FORMS));
+                    }
+                }
+            }
+            _ => (SpreadLaw::Gaussian, e.node),
+        };
+        let (amount, relative) = spread_amount(map, amount_node, &at, dim)?;
+        if relative && nominal == 0.0 && amount > 0.0 {
+            return Err(map
+                .error(
+                    &amount_node.span,
+                    &at,
+                    format!(
+                        "a relative spread of `{}`, whose nominal is 0, is always 0",
+                        e.path
+                    ),
+                )
+                .with_hint(
+                    "give the spread in the key's unit, e.g. \"2 mV\" (a bare number for ratios)",
+                ));
+        }
+        out.push(Spread {
+            path: e.path.clone(),
+            law,
+            amount,
+            relative,
+            nominal,
+        });
+    }
+    Ok(out)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -1138,6 +1468,121 @@ clock = "2 MHz"
             .position(|l| l.contains(needle))
             .expect("needle")
             + 1
+    }
+
+    /// HEAD + ADC + a DAC with an offset written, then the given `[spread]` body.
+    fn with_spread(body: &str) -> String {
+        format!(
+            "{HEAD}{ADC}comparator_offset = \"0.2 mV\"\n{DAC}offset = \"1 mV\"\ntolerance = \"1%\"\n[[stage]]\nkind = \"filter\"\norder = 2\ncutoff = \"20 kHz\"\n\
+             [spread]\n{body}"
+        )
+    }
+
+    #[test]
+    fn spreads_read_in_every_form_with_their_nominals() {
+        let s = ok(&with_spread(
+            "\"stage.2.offset\" = \"2 mV\"\n\"stage.3.cutoff\" = { uniform = \"5%\" }\n\
+             \"stage.1.comparator_offset\" = { sigma = \"0.5 mV\" }\n\"source.amplitude\" = \"1%\"\n\
+             stage.2.tolerance = 0.001\n",
+        ));
+        let got: Vec<(&str, SpreadLaw, f64, bool, f64)> = s
+            .spread
+            .iter()
+            .map(|p| (p.path.as_str(), p.law, p.amount, p.relative, p.nominal))
+            .collect();
+        let close = |a: f64, b: f64| (a - b).abs() <= 1e-12 * b.abs().max(1e-9);
+        let want = [
+            ("stage.2.offset", SpreadLaw::Gaussian, 2e-3, false, 1e-3),
+            ("stage.3.cutoff", SpreadLaw::Uniform, 0.05, true, 20e3),
+            (
+                "stage.1.comparator_offset",
+                SpreadLaw::Gaussian,
+                0.5e-3,
+                false,
+                0.2e-3,
+            ),
+            ("source.amplitude", SpreadLaw::Gaussian, 0.01, true, 1.0),
+            ("stage.2.tolerance", SpreadLaw::Gaussian, 0.001, false, 0.01),
+        ];
+        assert_eq!(got.len(), 5, "{got:?}");
+        for (g, w) in got.iter().zip(want.iter()) {
+            assert_eq!((g.0, g.1, g.3), (w.0, w.1, w.3));
+            assert!(close(g.2, w.2) && close(g.4, w.4), "{g:?} vs {w:?}");
+        }
+        assert!(close(s.spread[2].absolute_amount(), 0.5e-3));
+        assert!(close(s.spread[1].absolute_amount(), 1000.0));
+    }
+
+    #[test]
+    fn bad_spreads_are_located_errors_with_hints() {
+        let cases: [(&str, &str, &str); 9] = [
+            (
+                "\"stage.9.offset\" = \"1 mV\"\n",
+                "\"stage.9.offset\"",
+                "no stage 9",
+            ),
+            ("\"stage.2.bits\" = 1\n", "\"stage.2.bits\"", "whole number"),
+            (
+                "\"stage.2.ofset\" = \"1 mV\"\n",
+                "\"stage.2.ofset\"",
+                "not a numeric key",
+            ),
+            ("\"stage.2.offset\" = \"2 kHz\"\n", "\"2 kHz\"", "voltage"),
+            (
+                "\"stage.2.offset\" = \"-1 mV\"\n",
+                "\"-1 mV\"",
+                "zero or positive",
+            ),
+            (
+                "\"stage.2.slew_rate\" = \"1%\"\n",
+                "\"stage.2.slew_rate\"",
+                "not written",
+            ),
+            (
+                "\"stage.2.offset\" = { sigma = \"1 mV\", uniform = \"1 mV\" }\n",
+                "{ sigma",
+                "either",
+            ),
+            (
+                "\"stage.2.offset\" = { sgma = \"1 mV\" }\n",
+                "sgma",
+                "unknown key",
+            ),
+            (
+                "\"frequency\" = \"1%\"\n",
+                "\"frequency\"",
+                "not a key path",
+            ),
+        ];
+        for (body, needle, msg) in cases {
+            let text = with_spread(body);
+            let e = err(&text);
+            assert_eq!(e.line, line_of(&text, needle), "{body}: {e}");
+            let col = text.lines().nth(e.line - 1).unwrap().find(needle).unwrap() + 1;
+            assert_eq!(e.column, col, "{body}: {e}");
+            assert!(e.message.contains(msg), "{body}: {e}");
+            assert!(e.hint.is_some() || msg.is_empty(), "{body}: {e}");
+            assert!(
+                e.to_string()
+                    .starts_with(&format!("t.toml:{}:{}:", e.line, e.column))
+            );
+        }
+    }
+
+    #[test]
+    fn a_relative_spread_of_a_zero_nominal_is_refused_and_a_spread_key_must_be_written() {
+        let text = format!(
+            "{HEAD}{ADC}comparator_offset = 0\n{DAC}[spread]\n\"stage.1.comparator_offset\" = \"1%\"\n"
+        );
+        let e = err(&text);
+        assert!(e.message.contains("nominal is 0"), "{e}");
+        let text = format!("{HEAD}{ADC}{DAC}[spread]\n\"stage.1.comparator_offset\" = \"1 mV\"\n");
+        let e = err(&text);
+        assert!(e.message.contains("not written"), "{e}");
+        let text = format!(
+            "{HEAD}{ADC}comparator_offset = 0\n{DAC}[spread]\n\"stage.1.comparator_offset\" = \"1 mV\"\n"
+        );
+        assert_eq!(ok(&text).spread[0].nominal, 0.0);
     }
 
     #[test]

@@ -1,0 +1,242 @@
+//! `convchain montecarlo` and `convchain merge`: arguments, Ctrl-C, printing.
+
+use std::fmt::Write as _;
+use std::io::Write;
+use std::path::{Path, PathBuf};
+use std::sync::atomic::{AtomicBool, Ordering};
+use std::time::Instant;
+
+use clap::Args;
+
+use convchain::report::plot::format_si;
+use convchain::scenario::overrides::ScenarioText;
+use convchain::study::montecarlo::{self, McOptions, Requirement, Summary};
+use convchain::study::shard::{self, Shard};
+
+/// Exit code after Ctrl-C (128 + SIGINT, the shell's convention).
+pub const INTERRUPTED_EXIT: u8 = 130;
+
+/// A study stopped by Ctrl-C; its finished rows were written.
+#[derive(Debug)]
+pub struct Interrupted(pub String);
+
+impl std::fmt::Display for Interrupted {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(&self.0)
+    }
+}
+
+impl std::error::Error for Interrupted {}
+
+#[derive(Args, Debug)]
+pub struct McArgs {
+    /// Scenario file (TOML); its [spread] table says which values vary. Without it, the embedded demo.
+    scenario: Option<PathBuf>,
+    /// Number of runs in the whole study.
+    #[arg(long)]
+    runs: u64,
+    /// Base seed (default: the scenario's simulation.seed); run i uses a seed derived from it and i.
+    #[arg(long)]
+    seed: Option<u64>,
+    /// A requirement each run passes or fails, e.g. "output.enob_bits>=7.5" (repeatable); the yield is
+    /// reported.
+    #[arg(long = "require", value_name = "METRIC>=X")]
+    requires: Vec<String>,
+    /// Worker threads (default: one per core). Results do not depend on it.
+    #[arg(long)]
+    threads: Option<usize>,
+    /// Run only the runs with index % N == K-1 (K from 1), to split a study over machines; join the
+    /// folders with `convchain merge`.
+    #[arg(long, value_name = "K/N")]
+    shard: Option<String>,
+    /// Only the static tests (DNL, INL, missing codes, monotonicity); no simulated run.
+    #[arg(long, conflicts_with = "no_static")]
+    static_only: bool,
+    /// Skip the static tests (faster for converters of many bits).
+    #[arg(long)]
+    no_static: bool,
+    /// Output folder (default out/<name>-montecarlo/, or .../shard-K-of-N/ for a shard).
+    #[arg(long)]
+    out: Option<PathBuf>,
+    /// Print nothing but errors (no progress bar, no table).
+    #[arg(long, short)]
+    quiet: bool,
+}
+
+#[derive(Args, Debug)]
+pub struct MergeArgs {
+    /// Folders written by `convchain montecarlo --shard K/N`.
+    #[arg(required = true)]
+    dirs: Vec<PathBuf>,
+    /// Folder for the merged study.
+    #[arg(long)]
+    out: PathBuf,
+    #[arg(long, short)]
+    quiet: bool,
+}
+
+static CANCEL: AtomicBool = AtomicBool::new(false);
+
+/// On the first Ctrl-C no new run starts and the finished rows are written; a second one stops at once.
+fn install_interrupt_handler() {
+    let _ = ctrlc::set_handler(|| {
+        if CANCEL.swap(true, Ordering::SeqCst) {
+            eprintln!("\nsecond interrupt: stopping now, nothing more is written");
+            std::process::exit(i32::from(INTERRUPTED_EXIT));
+        }
+        eprintln!(
+            "\ninterrupt: no new runs start; the runs in progress finish and the finished rows are written \
+             (Ctrl-C again stops at once)"
+        );
+    });
+}
+
+fn fmt_value(name: &str, v: Option<f64>) -> String {
+    match v {
+        None => "-".into(),
+        Some(x) if name.ends_with("_s") => format_si(x, "s", 4),
+        Some(x) => format!("{x:.4}"),
+    }
+}
+
+/// The table printed after a study.
+pub fn table(s: &Summary, dir: &Path) -> String {
+    let mut t = String::new();
+    let name = s
+        .study
+        .get("scenario")
+        .and_then(|v| v.as_str())
+        .unwrap_or("");
+    let seed = s.study.get("seed").and_then(|v| v.as_u64()).unwrap_or(0);
+    let _ = writeln!(
+        t,
+        "{name}: {} runs (shard {}, base seed {seed}), {} failed",
+        s.runs_done, s.shard, s.runs_failed
+    );
+    let _ = writeln!(
+        t,
+        "  {:<26}{:>14}{:>14}{:>14}",
+        "metric", "5 %", "median", "95 %"
+    );
+    // Pass/fail metrics (monotonic, missing codes) are summarised as fractions below.
+    let pass_fail = |n: &str| n.ends_with(".monotonic") || n.ends_with(".missing_codes");
+    for m in s
+        .metrics
+        .iter()
+        .chain(&s.drawn)
+        .filter(|m| m.runs > 0 && !pass_fail(&m.name))
+    {
+        let _ = writeln!(
+            t,
+            "  {:<26}{:>14}{:>14}{:>14}",
+            m.name,
+            fmt_value(&m.name, m.p5),
+            fmt_value(&m.name, m.median),
+            fmt_value(&m.name, m.p95)
+        );
+    }
+    let f = &s.fractions;
+    if let Some(x) = f.dac_monotonic {
+        let _ = writeln!(t, "  DAC monotonic: {:.1} % of {}", 100.0 * x, f.dac_tested);
+    }
+    if let Some(x) = f.adc_without_missing_codes {
+        let _ = writeln!(
+            t,
+            "  ADC without missing codes: {:.1} % of {}",
+            100.0 * x,
+            f.adc_tested
+        );
+    }
+    for y in &s.yields {
+        let _ = writeln!(
+            t,
+            "  yield {}: {} of {} ({:.1} %)",
+            y.require,
+            y.passed,
+            y.runs,
+            100.0 * y.fraction.unwrap_or(0.0)
+        );
+    }
+    for fl in s.failures.iter().take(3) {
+        let _ = writeln!(
+            t,
+            "  run {} (seed {}) failed: {}",
+            fl.index, fl.seed, fl.error
+        );
+    }
+    let _ = writeln!(t, "wrote {}", dir.display());
+    t
+}
+
+pub fn run(a: McArgs) -> anyhow::Result<()> {
+    let text = match &a.scenario {
+        Some(p) => ScenarioText::load(p)?,
+        None => ScenarioText::new(
+            convchain::DEFAULT_SCENARIO.to_string(),
+            "<embedded default>".into(),
+            PathBuf::from("."),
+        )?,
+    };
+    let sc = text.scenario()?;
+    if !a.quiet {
+        for w in &sc.warnings {
+            eprintln!("warning: {w}");
+        }
+    }
+    let requires = a
+        .requires
+        .iter()
+        .map(|r| Requirement::parse(r))
+        .collect::<Result<Vec<_>, _>>()?;
+    let shard = match &a.shard {
+        Some(s) => Shard::parse(s)?,
+        None => Shard::WHOLE,
+    };
+    if a.threads == Some(0) {
+        return Err(convchain::Error::BadInput("--threads 0: give at least 1".into()).into());
+    }
+    let opts = McOptions {
+        runs: a.runs,
+        seed: a.seed,
+        requires,
+        threads: a.threads,
+        shard,
+        dynamic: !a.static_only,
+        static_tests: !a.no_static,
+        progress: !a.quiet,
+    };
+    let dir = a.out.clone().unwrap_or_else(|| {
+        let base = Path::new("out").join(format!("{}-montecarlo", sc.name));
+        if shard == Shard::WHOLE {
+            base
+        } else {
+            base.join(format!("shard-{}-of-{}", shard.k, shard.n))
+        }
+    });
+    install_interrupt_handler();
+    let started = Instant::now();
+    let summary = montecarlo::montecarlo_to_dir(&text, &opts, &dir, &CANCEL)?;
+    let elapsed = started.elapsed().as_secs_f64();
+    if !a.quiet {
+        let mut o = std::io::stdout().lock();
+        write!(o, "{}", table(&summary, &dir))?;
+        writeln!(o, "{} runs in {elapsed:.1} s", summary.runs_done)?;
+    }
+    if let Some(note) = &summary.interrupted {
+        return Err(Interrupted(format!(
+            "{note}; wrote the finished rows to {} (exit code {INTERRUPTED_EXIT})",
+            dir.display()
+        ))
+        .into());
+    }
+    Ok(())
+}
+
+pub fn merge(a: MergeArgs) -> anyhow::Result<()> {
+    let merged = shard::merge_dirs(&a.dirs, &a.out)?;
+    if !a.quiet && merged.kind == montecarlo::KIND {
+        let summary = montecarlo::summarize(&merged)?;
+        write!(std::io::stdout().lock(), "{}", table(&summary, &a.out))?;
+    }
+    Ok(())
+}

@@ -1,0 +1,901 @@
+//! Monte-Carlo studies: the same scenario run many times, each run with its own seed (so the ladder resistors,
+//! capacitor mismatch, comparator noise and link bit errors are drawn afresh) and its own draw of every
+//! `[spread]` value; the metrics of every run, their percentiles, and the yield against requirements.
+//!
+//! Seeds: run `i` (from 0) of a study with base seed `S` uses [`run_seed`]`(S, i)`, the `(i + 1)`-th output of
+//! the SplitMix64 generator started at state `S`, shifted right by 11 bits (53 bits, so the seed is exact in a
+//! TOML integer and in an `f64`). The `[spread]` values of the run are drawn, in file order, from a ChaCha8
+//! stream seeded with the run's seed on stream `u64::MAX` (the stages use streams 0 and `index + 1`), so a
+//! run's results depend only on `S` and `i`: not on the thread count, the shard, or which runs went before.
+//!
+//! Percentiles: linear interpolation between order statistics at rank `(n - 1) q` (the default of numpy's
+//! `percentile`), over the runs that gave a value.
+
+use std::io::IsTerminal;
+use std::path::Path;
+use std::sync::Mutex;
+use std::sync::atomic::{AtomicBool, AtomicUsize, Ordering};
+
+use rand::{RngExt, SeedableRng};
+use rand_chacha::ChaCha8Rng;
+use rand_distr::{Distribution, StandardNormal};
+use serde::Serialize;
+use serde_json::{Value, json};
+
+use super::shard::{ROWS_FILE, ROWS_FORMAT, RowSet, Shard, fingerprint};
+use crate::engine::pipeline;
+use crate::error::{Error, Result};
+use crate::measure::chain::{ChainMetrics, measure_run};
+use crate::report::OutputDir;
+use crate::report::plot::{Plot, PlotFormat, XyPlot, render};
+use crate::runner::{Static, static_tests};
+use crate::scenario::overrides::ScenarioText;
+use crate::scenario::{Scenario, Spread, SpreadLaw, StageKind};
+
+/// `kind` of a Monte-Carlo [`RowSet`].
+pub const KIND: &str = "montecarlo";
+
+/// How each run's seed is made (written into the study header).
+pub const SEED_RULE: &str =
+    "run i uses the (i+1)-th output of SplitMix64 started at the base seed, >> 11";
+
+/// How percentiles are computed (written into the summary).
+pub const PERCENTILE_RULE: &str =
+    "linear interpolation between order statistics at rank (n-1)q over the runs that gave a value";
+
+/// Metrics recorded for every run, as named in reports and in `--require`. `static.*` come from the static
+/// tests, the others from the simulated run. `static.adc.missing_codes` counts codes; `static.dac.monotonic`
+/// and `static.adc.monotonic` are 1 (yes) or 0 (no).
+pub const METRICS: [&str; 21] = [
+    "adc.enob_bits",
+    "adc.sinad_db",
+    "adc.snr_db",
+    "adc.thd_db",
+    "adc.sfdr_dbc",
+    "output.enob_bits",
+    "output.sinad_db",
+    "output.snr_db",
+    "output.thd_db",
+    "output.sfdr_dbc",
+    "output.gain_db",
+    "output.fidelity_db",
+    "latency.measured_s",
+    "static.adc.dnl_max_lsb",
+    "static.adc.inl_max_lsb",
+    "static.adc.missing_codes",
+    "static.adc.monotonic",
+    "static.dac.dnl_max_lsb",
+    "static.dac.inl_max_lsb",
+    "static.dac.monotonic",
+    "static.dac.missing_codes",
+];
+
+/// Metrics drawn as histograms (when they vary).
+const PLOTTED: [&str; 9] = [
+    "output.enob_bits",
+    "adc.enob_bits",
+    "output.sinad_db",
+    "output.gain_db",
+    "latency.measured_s",
+    "static.dac.dnl_max_lsb",
+    "static.dac.inl_max_lsb",
+    "static.adc.dnl_max_lsb",
+    "static.adc.inl_max_lsb",
+];
+
+fn is_static(metric: &str) -> bool {
+    metric.starts_with("static.")
+}
+
+/// The seed of run `index` of a study with base seed `base` (see the module notes): 53 bits.
+pub fn run_seed(base: u64, index: u64) -> u64 {
+    let mut z = base.wrapping_add((index.wrapping_add(1)).wrapping_mul(0x9E37_79B9_7F4A_7C15));
+    z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
+    z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
+    (z ^ (z >> 31)) >> 11
+}
+
+/// The values of the `[spread]` entries for the run with seed `seed`, in file order (SI base units):
+/// Gaussian `nominal + sigma z`, uniform `nominal + a (2u - 1)`.
+pub fn draw_spread(spreads: &[Spread], seed: u64) -> Vec<f64> {
+    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    rng.set_stream(u64::MAX);
+    spreads
+        .iter()
+        .map(|s| {
+            let a = s.absolute_amount();
+            match s.law {
+                SpreadLaw::Gaussian => {
+                    let z: f64 = StandardNormal.sample(&mut rng);
+                    s.nominal + a * z
+                }
+                SpreadLaw::Uniform => s.nominal + a * (2.0 * rng.random::<f64>() - 1.0),
+            }
+        })
+        .collect()
+}
+
+/// Comparison of a `--require`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Cmp {
+    Ge,
+    Le,
+    Gt,
+    Lt,
+}
+
+/// A requirement `METRIC>=X` (or `<=`, `>`, `<`) that each run passes or fails.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Requirement {
+    /// As given (spaces removed).
+    pub text: String,
+    pub metric: String,
+    pub cmp: Cmp,
+    pub threshold: f64,
+}
+
+impl Requirement {
+    /// Parse `METRIC>=X`; an unknown metric or bad syntax is [`Error::BadInput`] listing the metrics.
+    pub fn parse(text: &str) -> Result<Requirement> {
+        let compact: String = text.chars().filter(|c| !c.is_whitespace()).collect();
+        let list = || format!("metrics: {}", METRICS.join(", "));
+        let bad = |why: String| {
+            Error::BadInput(format!(
+                "--require {text:?}: {why}\n  hint: write METRIC>=X, METRIC<=X, METRIC>X or METRIC<X, e.g. \
+                 --require \"output.enob_bits>=7.5\"; {}",
+                list()
+            ))
+        };
+        let pos = compact
+            .find(['<', '>'])
+            .ok_or_else(|| bad("no comparison (>=, <=, > or <)".into()))?;
+        let (metric, rest) = compact.split_at(pos);
+        let (cmp, value) = if let Some(v) = rest.strip_prefix(">=") {
+            (Cmp::Ge, v)
+        } else if let Some(v) = rest.strip_prefix("<=") {
+            (Cmp::Le, v)
+        } else if let Some(v) = rest.strip_prefix('>') {
+            (Cmp::Gt, v)
+        } else {
+            (Cmp::Lt, &rest[1..])
+        };
+        if !METRICS.contains(&metric) {
+            let near = (!metric.is_empty())
+                .then(|| METRICS.iter().find(|m| m.starts_with(metric)).copied())
+                .flatten()
+                .or_else(|| crate::scenario::reader::did_you_mean(metric, &METRICS))
+                .map(|m| format!(" (did you mean `{m}`?)"))
+                .unwrap_or_default();
+            return Err(bad(format!("unknown metric `{metric}`{near}")));
+        }
+        let threshold: f64 = value
+            .parse()
+            .ok()
+            .filter(|x: &f64| x.is_finite())
+            .ok_or_else(|| bad(format!("`{value}` is not a number")))?;
+        Ok(Requirement {
+            text: compact.clone(),
+            metric: metric.to_string(),
+            cmp,
+            threshold,
+        })
+    }
+
+    /// Whether a run's value passes; a run without a value (failed run, metric not defined) fails.
+    pub fn passes(&self, value: Option<f64>) -> bool {
+        let Some(v) = value else { return false };
+        match self.cmp {
+            Cmp::Ge => v >= self.threshold,
+            Cmp::Le => v <= self.threshold,
+            Cmp::Gt => v > self.threshold,
+            Cmp::Lt => v < self.threshold,
+        }
+    }
+}
+
+/// What to run.
+#[derive(Debug, Clone)]
+pub struct McOptions {
+    /// Runs in the whole study.
+    pub runs: u64,
+    /// Base seed; None = the scenario's `simulation.seed`.
+    pub seed: Option<u64>,
+    pub requires: Vec<Requirement>,
+    /// Worker threads; None = one per core.
+    pub threads: Option<usize>,
+    pub shard: Shard,
+    /// Simulate and measure the chain.
+    pub dynamic: bool,
+    /// Run the static tests of the ADC and DAC (skipped when the chain has neither).
+    pub static_tests: bool,
+    /// Show a progress bar on standard error when it is a terminal.
+    pub progress: bool,
+}
+
+impl McOptions {
+    /// Defaults: both kinds of measurement, all runs, one thread per core, no progress bar.
+    pub fn new(runs: u64) -> McOptions {
+        McOptions {
+            runs,
+            seed: None,
+            requires: Vec::new(),
+            threads: None,
+            shard: Shard::WHOLE,
+            dynamic: true,
+            static_tests: true,
+            progress: false,
+        }
+    }
+}
+
+/// A prepared study: the scenario text, the study header and the columns.
+struct Prepared<'a> {
+    text: &'a ScenarioText,
+    spreads: Vec<Spread>,
+    base_seed: u64,
+    dynamic: bool,
+    statics: bool,
+    header: Value,
+    columns: Vec<String>,
+}
+
+fn has_converter(sc: &Scenario) -> bool {
+    sc.stages.iter().any(|s| match &s.kind {
+        StageKind::SarAdc(c) => c.bits >= 2,
+        StageKind::Dac(c) => c.bits >= 2,
+        _ => false,
+    })
+}
+
+fn prepare<'a>(text: &'a ScenarioText, opts: &McOptions) -> Result<Prepared<'a>> {
+    let sc = text.scenario()?;
+    if opts.runs == 0 {
+        return Err(Error::BadInput("--runs 0: give at least one run".into()));
+    }
+    if opts.runs > 1 << 40 {
+        return Err(Error::BadInput(format!(
+            "--runs {}: at most 2^40 runs",
+            opts.runs
+        )));
+    }
+    pipeline::Plan::new(&sc)?;
+    let statics = opts.static_tests && has_converter(&sc);
+    if !opts.dynamic && !statics {
+        return Err(Error::BadInput(format!(
+            "{}: --static-only needs a sar_adc or dac of at least 2 bits in the chain",
+            sc.origin
+        )));
+    }
+    for r in &opts.requires {
+        if is_static(&r.metric) && !statics {
+            return Err(Error::BadInput(format!(
+                "--require {}: the static tests are not run (no converter in the chain, or --no-static)",
+                r.text
+            )));
+        }
+        if !is_static(&r.metric) && !opts.dynamic {
+            return Err(Error::BadInput(format!(
+                "--require {}: --static-only skips the simulated run this metric comes from",
+                r.text
+            )));
+        }
+    }
+    let base_seed = opts.seed.unwrap_or(sc.simulation.seed);
+    let spreads = sc.spread.clone();
+    let spread_json: Vec<Value> = spreads
+        .iter()
+        .map(|s| {
+            json!({
+                "path": s.path,
+                "law": match s.law { SpreadLaw::Gaussian => "gaussian", SpreadLaw::Uniform => "uniform" },
+                "amount": s.amount,
+                "relative": s.relative,
+                "nominal": s.nominal,
+            })
+        })
+        .collect();
+    let header = json!({
+        "runs": opts.runs,
+        "scenario": sc.name,
+        "scenario_hash": fingerprint(text.text.as_bytes()),
+        "seed": base_seed,
+        "seed_rule": SEED_RULE,
+        "dynamic": opts.dynamic,
+        "static_tests": statics,
+        "spread": spread_json,
+        "require": opts.requires.iter().map(|r| r.text.clone()).collect::<Vec<_>>(),
+    });
+    let mut columns = vec!["index".to_string(), "seed".to_string()];
+    columns.extend(spreads.iter().map(|s| s.path.clone()));
+    columns.extend(METRICS.iter().map(|m| m.to_string()));
+    columns.push("error".into());
+    Ok(Prepared {
+        text,
+        spreads,
+        base_seed,
+        dynamic: opts.dynamic,
+        statics,
+        header,
+        columns,
+    })
+}
+
+/// The metrics of one run in [`METRICS`] order (non-finite values become None).
+fn metric_values(chain: Option<&ChainMetrics>, stat: Option<&Static>) -> Vec<Option<f64>> {
+    let b = |x: bool| Some(if x { 1.0 } else { 0.0 });
+    let adc = chain.and_then(|c| c.adc.as_ref());
+    let out = chain.map(|c| &c.output);
+    let sa = stat.and_then(|s| s.adc.as_ref());
+    let sd = stat.and_then(|s| s.dac.as_ref());
+    let v = [
+        adc.and_then(|a| a.enob_bits),
+        adc.and_then(|a| a.sinad_db),
+        adc.and_then(|a| a.snr_db),
+        adc.and_then(|a| a.thd_db),
+        adc.and_then(|a| a.sfdr_dbc),
+        out.and_then(|o| o.enob_bits),
+        out.and_then(|o| o.sinad_db),
+        out.and_then(|o| o.snr_db),
+        out.and_then(|o| o.thd_db),
+        out.and_then(|o| o.sfdr_dbc),
+        out.and_then(|o| o.gain_db),
+        out.map(|o| o.fidelity_db),
+        chain.map(|c| c.latency.measured_s),
+        sa.map(|a| a.code_density.dnl_max_lsb),
+        sa.map(|a| a.code_density.inl_max_lsb),
+        sa.map(|a| a.code_density.missing_codes as f64),
+        sa.and_then(|a| b(a.code_density.monotonic)),
+        sd.map(|d| d.result.dnl_max_lsb),
+        sd.map(|d| d.result.inl_max_lsb),
+        sd.and_then(|d| b(d.result.monotonic)),
+        sd.map(|d| d.result.missing_codes as f64),
+    ];
+    v.into_iter().map(|x| x.filter(|x| x.is_finite())).collect()
+}
+
+fn num(x: f64) -> Value {
+    serde_json::Number::from_f64(x).map_or(Value::Null, Value::Number)
+}
+
+/// One run: draw, check, simulate and measure; a failure is kept in the row's `error` cell.
+fn one_run(p: &Prepared<'_>, index: u64) -> Vec<Value> {
+    let seed = run_seed(p.base_seed, index);
+    let drawn = draw_spread(&p.spreads, seed);
+    let mut overrides: Vec<(String, f64)> = vec![("simulation.seed".into(), seed as f64)];
+    overrides.extend(
+        p.spreads
+            .iter()
+            .zip(&drawn)
+            .map(|(s, v)| (s.path.clone(), *v)),
+    );
+    let result = (|| -> Result<Vec<Option<f64>>> {
+        let sc = p.text.with(&overrides)?;
+        let chain = if p.dynamic {
+            let run = pipeline::run(&sc, None, &mut |_| {})?;
+            Some(measure_run(&run)?)
+        } else {
+            None
+        };
+        let stat = if p.statics {
+            Some(static_tests(&sc)?)
+        } else {
+            None
+        };
+        Ok(metric_values(chain.as_ref(), stat.as_ref()))
+    })();
+    let mut row = vec![json!(index), json!(seed)];
+    row.extend(drawn.iter().map(|v| num(*v)));
+    match result {
+        Ok(m) => {
+            row.extend(m.into_iter().map(|v| v.map_or(Value::Null, num)));
+            row.push(Value::Null);
+        }
+        Err(e) => {
+            row.extend(METRICS.iter().map(|_| Value::Null));
+            // One line: the origin of a drawn scenario lists every override, which the row already holds.
+            let msg = e.to_string().replace('\n', " ");
+            row.push(Value::String(msg));
+        }
+    }
+    row
+}
+
+/// Run the study's runs (those of `opts.shard`) on `opts.threads` threads. When `cancel` becomes true no new
+/// run starts; the runs in progress finish and the set is marked interrupted. Bad options or a bad nominal
+/// scenario are [`Error::BadInput`]; a run that fails (e.g. a drawn value out of range) is a row with an error.
+pub fn run_rows(text: &ScenarioText, opts: &McOptions, cancel: &AtomicBool) -> Result<RowSet> {
+    let p = prepare(text, opts)?;
+    let indices: Vec<u64> = (0..opts.runs).filter(|i| opts.shard.contains(*i)).collect();
+    let mut builder = rayon::ThreadPoolBuilder::new();
+    if let Some(t) = opts.threads {
+        builder = builder.num_threads(t.max(1));
+    }
+    let pool = builder
+        .build()
+        .map_err(|e| Error::Run(format!("cannot start worker threads: {e}")))?;
+    let bar = (opts.progress && std::io::stderr().is_terminal()).then(|| {
+        let b = indicatif::ProgressBar::new(indices.len() as u64);
+        b.set_style(
+            indicatif::ProgressStyle::with_template(
+                "  runs [{bar:40}] {pos}/{len}  {elapsed} (about {eta} left)",
+            )
+            .unwrap_or_else(|_| indicatif::ProgressStyle::default_bar()),
+        );
+        b
+    });
+    let slots: Vec<Mutex<Option<Vec<Value>>>> = indices.iter().map(|_| Mutex::new(None)).collect();
+    let next = AtomicUsize::new(0);
+    // Workers take the next index in order, so an interrupted study holds (nearly) the first runs.
+    pool.scope(|s| {
+        for _ in 0..pool.current_num_threads() {
+            s.spawn(|_| {
+                loop {
+                    if cancel.load(Ordering::SeqCst) {
+                        break;
+                    }
+                    let j = next.fetch_add(1, Ordering::SeqCst);
+                    let Some(&index) = indices.get(j) else { break };
+                    let row = one_run(&p, index);
+                    *slots[j].lock().unwrap_or_else(|e| e.into_inner()) = Some(row);
+                    if let Some(b) = &bar {
+                        b.inc(1);
+                    }
+                }
+            });
+        }
+    });
+    if let Some(b) = bar {
+        b.finish_and_clear();
+    }
+    let rows: Vec<Vec<Value>> = slots
+        .into_iter()
+        .filter_map(|m| m.into_inner().unwrap_or_else(|e| e.into_inner()))
+        .collect();
+    let interrupted = (rows.len() < indices.len())
+        .then(|| format!("interrupted after {} of {} runs", rows.len(), indices.len()));
+    Ok(RowSet {
+        format: ROWS_FORMAT.into(),
+        kind: KIND.into(),
+        study: p.header,
+        shard: opts.shard,
+        interrupted,
+        columns: p.columns,
+        rows,
+    })
+}
+
+/// Percentiles and extremes of the values a metric took.
+#[derive(Debug, Clone, Serialize, PartialEq)]
+pub struct Stats {
+    pub name: String,
+    /// Runs that gave a value.
+    pub runs: u64,
+    pub p5: Option<f64>,
+    pub median: Option<f64>,
+    pub p95: Option<f64>,
+    pub mean: Option<f64>,
+    pub min: Option<f64>,
+    pub max: Option<f64>,
+}
+
+/// The `q` quantile (0..1) of sorted values (see the module notes).
+pub fn percentile(sorted: &[f64], q: f64) -> Option<f64> {
+    let n = sorted.len();
+    if n == 0 {
+        return None;
+    }
+    let h = (n - 1) as f64 * q.clamp(0.0, 1.0);
+    let lo = h.floor() as usize;
+    let hi = (lo + 1).min(n - 1);
+    Some(sorted[lo] + (h - lo as f64) * (sorted[hi] - sorted[lo]))
+}
+
+fn stats(name: &str, values: &[Option<f64>]) -> Stats {
+    let mut v: Vec<f64> = values.iter().flatten().copied().collect();
+    v.sort_by(f64::total_cmp);
+    Stats {
+        name: name.to_string(),
+        runs: v.len() as u64,
+        p5: percentile(&v, 0.05),
+        median: percentile(&v, 0.5),
+        p95: percentile(&v, 0.95),
+        mean: (!v.is_empty()).then(|| v.iter().sum::<f64>() / v.len() as f64),
+        min: v.first().copied(),
+        max: v.last().copied(),
+    }
+}
+
+/// Fractions of converters passing the static pass/fail checks, over the runs with static results.
+#[derive(Debug, Clone, Serialize, PartialEq)]
+pub struct Fractions {
+    pub dac_tested: u64,
+    pub dac_monotonic: Option<f64>,
+    pub adc_tested: u64,
+    pub adc_without_missing_codes: Option<f64>,
+}
+
+/// Yield against one requirement.
+#[derive(Debug, Clone, Serialize, PartialEq)]
+pub struct YieldLine {
+    pub require: String,
+    pub passed: u64,
+    /// Runs in this folder (failed runs count as not passing).
+    pub runs: u64,
+    #[serde(rename = "yield")]
+    pub fraction: Option<f64>,
+}
+
+/// A run that failed.
+#[derive(Debug, Clone, Serialize, PartialEq)]
+pub struct Failure {
+    pub index: u64,
+    pub seed: u64,
+    pub error: String,
+}
+
+/// What `montecarlo.json` holds.
+#[derive(Debug, Clone, Serialize, PartialEq)]
+pub struct Summary {
+    /// The study header (scenario, hash, base seed, runs, options, spreads, requirements).
+    pub study: Value,
+    /// The slice of runs this folder was made for (`1/1`: all).
+    pub shard: String,
+    pub runs_done: u64,
+    pub runs_failed: u64,
+    /// `interrupted after M of N runs` when cut short.
+    pub interrupted: Option<String>,
+    pub percentiles: String,
+    pub metrics: Vec<Stats>,
+    /// The drawn `[spread]` values.
+    pub drawn: Vec<Stats>,
+    pub fractions: Fractions,
+    #[serde(rename = "yield")]
+    pub yields: Vec<YieldLine>,
+    /// The first 20 failed runs.
+    pub failures: Vec<Failure>,
+}
+
+fn column(set: &RowSet, name: &str) -> Result<Vec<Option<f64>>> {
+    let c = set
+        .columns
+        .iter()
+        .position(|n| n == name)
+        .ok_or_else(|| Error::BadInput(format!("the rows have no column `{name}`")))?;
+    Ok(set
+        .rows
+        .iter()
+        .map(|r| r.get(c).and_then(Value::as_f64))
+        .collect())
+}
+
+/// The summary of a Monte-Carlo row set.
+pub fn summarize(set: &RowSet) -> Result<Summary> {
+    let err_col = set.columns.len() - 1;
+    let failures: Vec<Failure> = set
+        .rows
+        .iter()
+        .filter_map(|r| {
+            let e = r.get(err_col)?.as_str()?;
+            Some(Failure {
+                index: r[0].as_u64().unwrap_or(0),
+                seed: r[1].as_u64().unwrap_or(0),
+                error: e.to_string(),
+            })
+        })
+        .collect();
+    let mut metrics = Vec::with_capacity(METRICS.len());
+    for m in METRICS {
+        metrics.push(stats(m, &column(set, m)?));
+    }
+    let spreads: Vec<String> = set.columns[2..set.columns.len() - 1 - METRICS.len()].to_vec();
+    let mut drawn = Vec::with_capacity(spreads.len());
+    for s in &spreads {
+        drawn.push(stats(s, &column(set, s)?));
+    }
+    let frac = |name: &str, pass: &dyn Fn(f64) -> bool| -> Result<(u64, Option<f64>)> {
+        let v: Vec<f64> = column(set, name)?.into_iter().flatten().collect();
+        let k = v.iter().filter(|x| pass(**x)).count();
+        Ok((
+            v.len() as u64,
+            (!v.is_empty()).then(|| k as f64 / v.len() as f64),
+        ))
+    };
+    let (dac_tested, dac_monotonic) = frac("static.dac.monotonic", &|x| x == 1.0)?;
+    let (adc_tested, adc_without_missing_codes) = frac("static.adc.missing_codes", &|x| x == 0.0)?;
+    let requires: Vec<Requirement> = set
+        .study
+        .get("require")
+        .and_then(Value::as_array)
+        .map(|a| {
+            a.iter()
+                .filter_map(Value::as_str)
+                .map(Requirement::parse)
+                .collect()
+        })
+        .transpose()?
+        .unwrap_or_default();
+    let mut yields = Vec::with_capacity(requires.len());
+    let n = set.rows.len() as u64;
+    for r in &requires {
+        let passed = column(set, &r.metric)?
+            .into_iter()
+            .filter(|v| r.passes(*v))
+            .count() as u64;
+        yields.push(YieldLine {
+            require: r.text.clone(),
+            passed,
+            runs: n,
+            fraction: (n > 0).then(|| passed as f64 / n as f64),
+        });
+    }
+    Ok(Summary {
+        study: set.study.clone(),
+        shard: set.shard.to_string(),
+        runs_done: n,
+        runs_failed: failures.len() as u64,
+        interrupted: set.interrupted.clone(),
+        percentiles: PERCENTILE_RULE.into(),
+        metrics,
+        drawn,
+        fractions: Fractions {
+            dac_tested,
+            dac_monotonic,
+            adc_tested,
+            adc_without_missing_codes,
+        },
+        yields,
+        failures: failures.into_iter().take(20).collect(),
+    })
+}
+
+/// `montecarlo.csv`: the header row (the set's columns) and one row per run; numbers in Rust's shortest
+/// round-trip form, empty cells for missing values.
+pub fn csv_bytes(set: &RowSet) -> Result<Vec<u8>> {
+    let mut w = csv::Writer::from_writer(Vec::new());
+    let io = |e: csv::Error| Error::Run(format!("csv: {e}"));
+    w.write_record(&set.columns).map_err(io)?;
+    for r in &set.rows {
+        let cells = r.iter().map(|v| match v {
+            Value::Null => String::new(),
+            Value::String(s) => s.clone(),
+            Value::Number(n) => match n.as_u64() {
+                Some(u) => u.to_string(),
+                None => n.as_f64().map_or(String::new(), |x| format!("{x}")),
+            },
+            other => other.to_string(),
+        });
+        w.write_record(cells).map_err(io)?;
+    }
+    w.into_inner().map_err(|e| Error::Run(format!("csv: {e}")))
+}
+
+/// Axis label of a metric with its unit from the name's suffix.
+fn axis_label(name: &str) -> String {
+    for (suffix, unit) in [
+        ("_s", "s"),
+        ("_db", "dB"),
+        ("_dbc", "dBc"),
+        ("_bits", "bits"),
+        ("_lsb", "LSB"),
+    ] {
+        if let Some(stem) = name.strip_suffix(suffix) {
+            return format!("{stem} ({unit})");
+        }
+    }
+    name.to_string()
+}
+
+/// A histogram as a step outline: (x, y) points over `bins` equal bins between the extremes.
+pub fn histogram_outline(values: &[f64], bins: usize) -> Option<(Vec<f64>, Vec<f64>)> {
+    let lo = values.iter().copied().fold(f64::INFINITY, f64::min);
+    let hi = values.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+    if values.is_empty() || hi.partial_cmp(&lo) != Some(std::cmp::Ordering::Greater) || bins == 0 {
+        return None;
+    }
+    let w = (hi - lo) / bins as f64;
+    let mut counts = vec![0u64; bins];
+    for v in values {
+        let b = (((v - lo) / w) as usize).min(bins - 1);
+        counts[b] += 1;
+    }
+    let mut x = vec![lo];
+    let mut y = vec![0.0];
+    for (b, c) in counts.iter().enumerate() {
+        let (e0, e1) = (lo + b as f64 * w, lo + (b + 1) as f64 * w);
+        x.extend([e0, e1]);
+        y.extend([*c as f64, *c as f64]);
+    }
+    x.push(hi);
+    y.push(0.0);
+    Some((x, y))
+}
+
+/// Write `montecarlo.csv`, `montecarlo.json`, `rows.json` and histograms (`hist-<metric>.png/.svg`) of the
+/// main metrics that vary. The same rows always give the same csv and json bytes.
+pub fn write_outputs(out: &OutputDir, set: &RowSet) -> Result<Summary> {
+    let summary = summarize(set)?;
+    out.write("montecarlo.csv", &csv_bytes(set)?)?;
+    let mut json = serde_json::to_vec_pretty(&summary).map_err(|e| Error::Run(e.to_string()))?;
+    json.push(b'\n');
+    out.write("montecarlo.json", &json)?;
+    out.write(ROWS_FILE, &set.to_json()?)?;
+    let requires: Vec<Requirement> = summary
+        .yields
+        .iter()
+        .filter_map(|y| Requirement::parse(&y.require).ok())
+        .collect();
+    for m in PLOTTED {
+        let values: Vec<f64> = column(set, m)?.into_iter().flatten().collect();
+        let bins = ((values.len() as f64).sqrt().ceil() as usize).clamp(5, 50);
+        let Some((x, y)) = histogram_outline(&values, bins) else {
+            continue;
+        };
+        let st = summary
+            .metrics
+            .iter()
+            .find(|s| s.name == m)
+            .expect("every metric is summarised");
+        let mut markers = Vec::new();
+        for (label, v) in [("5 %", st.p5), ("median", st.median), ("95 %", st.p95)] {
+            if let Some(v) = v {
+                markers.push((v, label.to_string()));
+            }
+        }
+        for r in requires.iter().filter(|r| r.metric == m) {
+            markers.push((r.threshold, format!("require {}", r.text)));
+        }
+        let plot = Plot::Xy(XyPlot {
+            title: format!(
+                "{m}: {} runs ({} with a value)",
+                set.rows.len(),
+                values.len()
+            ),
+            x_label: axis_label(m),
+            y_label: "runs".into(),
+            series: vec![("runs per bin", &x, &y)],
+            log_x: false,
+            markers,
+        });
+        for fmt in [PlotFormat::Png, PlotFormat::Svg] {
+            let (bytes, _) = render(&plot, fmt, 1000, 620)?;
+            out.write(&format!("hist-{m}.{}", fmt.extension()), &bytes)?;
+        }
+    }
+    Ok(summary)
+}
+
+/// Run a Monte-Carlo study (or one shard of it) and write its files into `dir`. Returns the summary; its
+/// `interrupted` is set when `cancel` stopped the study (the finished rows are still written).
+pub fn montecarlo_to_dir(
+    text: &ScenarioText,
+    opts: &McOptions,
+    dir: &Path,
+    cancel: &AtomicBool,
+) -> Result<Summary> {
+    prepare(text, opts)?;
+    OutputDir::check(dir)?;
+    let set = run_rows(text, opts, cancel)?;
+    let out = OutputDir::create(dir)?;
+    match write_outputs(&out, &set) {
+        Ok(s) => Ok(s),
+        Err(e) => {
+            out.abandon();
+            Err(e)
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn run_seeds_are_splitmix64_outputs_cut_to_53_bits() {
+        // SplitMix64 started at state 0 gives 0xe220a8397b1dcdaf first (the reference output of
+        // Vigna's splitmix64.c; from memory).
+        assert_eq!(run_seed(0, 0), 0xe220_a839_7b1d_cdaf >> 11);
+        let s: Vec<u64> = (0..1000).map(|i| run_seed(42, i)).collect();
+        assert!(s.iter().all(|x| *x < 1 << 53));
+        let mut d = s.clone();
+        d.sort();
+        d.dedup();
+        assert_eq!(d.len(), s.len());
+    }
+
+    #[test]
+    fn percentiles_interpolate_between_order_statistics() {
+        // numpy.percentile([1, 2, 3, 4, 5], [5, 50, 95]) = [1.2, 3.0, 4.8] (linear method, numpy's default;
+        // worked by hand: rank (n-1)q = 0.2, 2, 3.8).
+        let v = [1.0, 2.0, 3.0, 4.0, 5.0];
+        let close = |a: Option<f64>, b: f64| (a.unwrap() - b).abs() < 1e-12;
+        assert!(close(percentile(&v, 0.05), 1.2));
+        assert!(close(percentile(&v, 0.5), 3.0));
+        assert!(close(percentile(&v, 0.95), 4.8));
+        assert_eq!(percentile(&[7.0], 0.95), Some(7.0));
+        assert_eq!(percentile(&[], 0.5), None);
+    }
+
+    #[test]
+    fn requirements_parse_and_compare() {
+        let r = Requirement::parse(" output.enob_bits >= 7.5 ").unwrap();
+        assert_eq!(
+            (r.metric.as_str(), r.cmp, r.threshold),
+            ("output.enob_bits", Cmp::Ge, 7.5)
+        );
+        assert!(r.passes(Some(7.5)) && !r.passes(Some(7.49)) && !r.passes(None));
+        let r = Requirement::parse("latency.measured_s<1e-3").unwrap();
+        assert!(r.passes(Some(0.5e-3)) && !r.passes(Some(1e-3)));
+        assert_eq!(
+            Requirement::parse("static.dac.monotonic>0").unwrap().cmp,
+            Cmp::Gt
+        );
+        assert_eq!(
+            Requirement::parse("output.thd_db<=-60").unwrap().threshold,
+            -60.0
+        );
+        for bad in [
+            "output.enob>=7",
+            "output.enob_bits=7",
+            "output.enob_bits>=x",
+            ">=3",
+            "adc.enob_bits>=inf",
+        ] {
+            let e = Requirement::parse(bad).unwrap_err();
+            assert!(
+                e.is_bad_input() && e.to_string().contains("adc.sinad_db"),
+                "{bad}: {e}"
+            );
+        }
+        assert!(
+            Requirement::parse("output.enob>=7")
+                .unwrap_err()
+                .to_string()
+                .contains("did you mean `output.enob_bits`")
+        );
+    }
+
+    #[test]
+    fn gaussian_and_uniform_draws_have_their_spread() {
+        let g = Spread {
+            path: "a.b".into(),
+            law: SpreadLaw::Gaussian,
+            amount: 0.01,
+            relative: true,
+            nominal: 2.0,
+        };
+        let u = Spread {
+            law: SpreadLaw::Uniform,
+            amount: 0.5,
+            relative: false,
+            nominal: -1.0,
+            ..g.clone()
+        };
+        let n = 20_000;
+        let draws: Vec<Vec<f64>> = (0..n)
+            .map(|i| draw_spread(&[g.clone(), u.clone()], run_seed(1, i)))
+            .collect();
+        let mean = |k: usize| draws.iter().map(|d| d[k]).sum::<f64>() / n as f64;
+        let var = |k: usize, m: f64| {
+            draws.iter().map(|d| (d[k] - m).powi(2)).sum::<f64>() / (n - 1) as f64
+        };
+        let (mg, mu) = (mean(0), mean(1));
+        // Standard errors: mean sigma/sqrt(n); sample sd about sd/sqrt(2n) (Gaussian) -- 5 of them allowed.
+        assert!((mg - 2.0).abs() < 5.0 * 0.02 / (n as f64).sqrt(), "{mg}");
+        assert!((var(0, mg).sqrt() - 0.02).abs() < 5.0 * 0.02 / (2.0 * n as f64).sqrt());
+        // Uniform on [-1.5, -0.5]: variance a^2/3 = 1/12 (common practice, no source).
+        assert!(draws.iter().all(|d| (-1.5..=-0.5).contains(&d[1])));
+        assert!((mu + 1.0).abs() < 5.0 * (1.0f64 / 12.0 / n as f64).sqrt());
+        // Sd of the sample variance: sqrt((mu4 - sigma^4)/n) with mu4 = a^4/5 = 1/80, i.e. 5.3e-4.
+        assert!((var(1, mu) - 1.0 / 12.0).abs() < 0.003);
+    }
+
+    #[test]
+    fn histogram_outline_counts_every_value_once() {
+        let v: Vec<f64> = (0..100).map(|i| i as f64).collect();
+        let (x, y) = histogram_outline(&v, 10).unwrap();
+        assert_eq!(x.len(), y.len());
+        let total: f64 = y.iter().skip(1).step_by(2).sum();
+        assert_eq!(total, 100.0);
+        assert!(histogram_outline(&[1.0, 1.0], 5).is_none());
+    }
+}
