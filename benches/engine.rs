@@ -13,11 +13,11 @@ fn reference(duration: &str) -> convchain::scenario::Scenario {
 }
 
 fn bench(c: &mut Criterion) {
-    // 100 ms of signal = 1e6 grid steps per iteration: divide the reported time by 1e6 for ns per step.
-    let sc = reference("100 ms");
+    // 1 s of signal = 1e7 grid steps per iteration: divide the reported time by 1e7 for ns per step.
+    let sc = reference("1 s");
     let mut g = c.benchmark_group("reference_chain");
     g.sample_size(10);
-    g.bench_function("simulate_100ms_1e6_steps", |b| {
+    g.bench_function("simulate_1s_1e7_steps", |b| {
         b.iter(|| convchain::engine::pipeline::run(&sc, None, &mut |_| {}).expect("runs"))
     });
     g.finish();

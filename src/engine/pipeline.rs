@@ -33,6 +33,9 @@ use crate::stages::source::SourceGen;
 pub const BLOCK: usize = 4096;
 /// Longest grid capture kept for full-bandwidth measurements (fidelity, cross-correlation) and plots.
 pub const CAPTURE_MAX: usize = 1 << 20;
+/// Longest output analysis record (samples); the ADC record is shortened to match. 2^20 points give bins of
+/// a millionth of the analysis rate, far finer than any metric needs.
+pub const RECORD_MAX: usize = 1 << 20;
 /// Runs whose analysis record would need more memory than this are refused.
 pub const MEMORY_LIMIT_BYTES: u64 = 4 << 30;
 
@@ -117,8 +120,13 @@ impl Plan {
                         si(fs, "Hz")
                     )));
                 }
-                let k0 = (sim.settle_s * fs).ceil() as u64;
                 let (factor, integer) = choose_factor_with_adc(sim.analog_rate_hz, fs, band);
+                // Records longer than RECORD_MAX output samples add nothing to the meters but memory: keep the
+                // last part of the window.
+                let per_code = sim.analog_rate_hz / factor as f64 / fs;
+                let m_keep = m.min((RECORD_MAX as f64 / per_code).floor());
+                let k0 = (sim.settle_s * fs).ceil() as u64 + (m - m_keep) as u64;
+                let m = m_keep;
                 (
                     Some(AdcPlan {
                         sample_rate_hz: fs,
@@ -150,7 +158,7 @@ impl Plan {
                 a.record_len * (out_rate_hz / a.sample_rate_hz).round() as usize
             }
             Some(a) => (a.record_len as f64 / a.sample_rate_hz * out_rate_hz).floor() as usize,
-            None => (window_s * out_rate_hz).floor() as usize,
+            None => ((window_s * out_rate_hz).floor() as usize).min(RECORD_MAX),
         };
         if out_record_len < 16 {
             return Err(Error::BadInput(format!(
@@ -755,18 +763,22 @@ pub fn run(
     let start = n_dec - want;
     let rec_n0_dec = plan.n_settle / plan.out_factor as u64 + start as u64;
     let out_tb = Timebase::new(plan.out_rate_hz);
+    // Trim in place (no second copy of the records at the peak of memory use).
+    for v in [&mut src_dec, &mut out_dec] {
+        v.truncate(start + want);
+        v.drain(..start);
+        v.shrink_to_fit();
+    }
     let source_record = AnalogRecord {
         timebase: out_tb,
         n0: rec_n0_dec,
-        volts: src_dec[start..start + want].to_vec(),
+        volts: src_dec,
     };
     let output_record = AnalogRecord {
         timebase: out_tb,
         n0: rec_n0_dec,
-        volts: out_dec[start..start + want].to_vec(),
+        volts: out_dec,
     };
-    drop(src_dec);
-    drop(out_dec);
 
     let (codes_clipped, bits_flipped) = match &chain.converter {
         Some(c) => (
