@@ -623,10 +623,18 @@ pub fn find_limits(text: &ScenarioText, opts: &LimitOptions) -> Result<LimitRepo
     }
 
     // ---- thresholds and first crossings
+    // Without a converter there are no bits to lose: the output "ENOB" would only measure rounding noise.
+    let has_adc = base
+        .stages
+        .iter()
+        .any(|st| matches!(st.kind, crate::scenario::StageKind::SarAdc(_)));
     let thresholds = [
         (
             Criterion::Accuracy,
-            first.enob_bits.map(|e| e - opts.enob_drop_bits),
+            first
+                .enob_bits
+                .filter(|_| has_adc)
+                .map(|e| e - opts.enob_drop_bits),
         ),
         (
             Criterion::Level,
@@ -650,7 +658,11 @@ pub fn find_limits(text: &ScenarioText, opts: &LimitOptions) -> Result<LimitRepo
                         mechanism: None,
                         mechanism_stage: None,
                         ablation: Vec::new(),
-                        note: format!("no {} metric at the low end", c.name()),
+                        note: if c == Criterion::Accuracy && !has_adc {
+                            "not applicable: the chain has no converter".to_string()
+                        } else {
+                            format!("no {} metric at the low end", c.name())
+                        },
                     };
                 };
                 let idx = coarse
