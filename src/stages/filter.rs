@@ -337,7 +337,26 @@ impl AnalogStage for Filter {
     fn process(&mut self, input: &[f64], output: &mut [f64]) {
         assert_eq!(input.len(), output.len(), "block lengths differ");
         output.copy_from_slice(input);
-        for sec in &mut self.sections {
+        // Two sections per pass, sample by sample: the second section's recursion overlaps the first's in the
+        // pipeline instead of waiting for it block by block. State is kept in locals during the pass.
+        let mut pairs = self.sections.chunks_exact_mut(2);
+        for pair in &mut pairs {
+            let (p, q) = pair.split_at_mut(1);
+            let (p, q) = (&mut p[0], &mut q[0]);
+            let (mut p1, mut p2, mut q1, mut q2) = (p.s1, p.s2, q.s1, q.s2);
+            for y in output.iter_mut() {
+                let x = *y;
+                let u = p.b[0] * x + p1;
+                p1 = p.b[1] * x - p.a1 * u + p2;
+                p2 = p.b[2] * x - p.a2 * u;
+                let v = q.b[0] * u + q1;
+                q1 = q.b[1] * u - q.a1 * v + q2;
+                q2 = q.b[2] * u - q.a2 * v;
+                *y = v;
+            }
+            (p.s1, p.s2, q.s1, q.s2) = (p1, p2, q1, q2);
+        }
+        for sec in pairs.into_remainder() {
             for y in output.iter_mut() {
                 *y = sec.tick(*y);
             }
