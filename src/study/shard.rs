@@ -91,7 +91,7 @@ impl fmt::Display for Shard {
 pub struct RowSet {
     /// Always [`ROWS_FORMAT`].
     pub format: String,
-    /// What made the rows (`"montecarlo"`, ...): chooses the writer of the study's other files.
+    /// What made the rows (`"montecarlo"`, `"sweep"`): chooses the writer of the study's other files.
     pub kind: String,
     /// Everything that identifies the study; must hold `runs`, the total number of runs. Shards merge only
     /// when their `study` values are equal.
