@@ -390,3 +390,100 @@ fn limit_needs_a_sine_source() {
     assert_eq!(o.status.code(), Some(2), "{}", stderr(&o));
     assert!(stderr(&o).contains("sine"), "{}", stderr(&o));
 }
+
+#[test]
+fn merged_sweep_shards_equal_one_run_and_foreign_or_missing_shards_are_refused() {
+    let d = tempfile::tempdir().unwrap();
+    fs::write(d.path().join("c.toml"), SMALL_CHAIN).unwrap();
+    let sweep = |to: &str, extra: &[&str]| -> Output {
+        let range = format!("source.frequency=1 kHz..{to}");
+        let mut args = vec![
+            "sweep",
+            "c.toml",
+            "--vary",
+            &range,
+            "--vary",
+            "stage.3.slew_rate=0.2 V/us..1 V/us",
+            "--points",
+            "3",
+            "--quiet",
+        ];
+        args.extend(extra);
+        run_in(d.path(), &args)
+    };
+    let o = sweep("4 kHz", &["--out", "one"]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    for k in 1..=3 {
+        let shard = format!("{k}/3");
+        let o = sweep("4 kHz", &["--shard", &shard, "--threads", "1"]);
+        assert!(o.status.success(), "{shard}: {}", stderr(&o));
+    }
+    let shard_dir = |k: u32| format!("out/small-chain-sweep/shard-{k}-of-3");
+    // A shard holds only its points (grid index % 3 == K-1) and says so in its sweep.json.
+    let (_, rows2) = csv_rows(&d.path().join(shard_dir(2)).join("sweep.csv"));
+    let (_, all) = csv_rows(&d.path().join("one/sweep.csv"));
+    assert_eq!(rows2, vec![all[1].clone(), all[4].clone(), all[7].clone()]);
+    let j2 = json(&d.path().join(shard_dir(2)).join("sweep.json"));
+    assert_eq!(j2["shard"]["shard"], "2/3");
+    assert_eq!(j2["shard"]["of_points"], 9);
+    assert!(
+        json(&d.path().join("one/sweep.json"))
+            .get("shard")
+            .is_none()
+    );
+
+    // Merged in a shuffled order: the very files one machine writes.
+    let (s1, s2, s3) = (shard_dir(1), shard_dir(2), shard_dir(3));
+    let o = run_in(d.path(), &["merge", &s3, &s1, &s2, "--out", "merged"]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    assert!(
+        String::from_utf8_lossy(&o.stdout).contains("9 points; wrote merged"),
+        "{}",
+        String::from_utf8_lossy(&o.stdout)
+    );
+    for f in ["sweep.csv", "sweep.json", "rows.json"] {
+        let one = fs::read(d.path().join("one").join(f)).unwrap();
+        let merged = fs::read(d.path().join("merged").join(f)).unwrap();
+        assert!(one == merged, "{f}: merged shards differ from one run");
+    }
+    for stem in ["sweep-enob", "sweep-sinad", "sweep-gain", "sweep-fidelity"] {
+        assert!(
+            d.path().join(format!("merged/{stem}.svg")).exists(),
+            "{stem}"
+        );
+    }
+
+    // A missing shard: the points it holds are named, nothing is written.
+    let o = run_in(d.path(), &["merge", &s1, &s3, "--out", "bad1"]);
+    assert_eq!(o.status.code(), Some(2), "{}", stderr(&o));
+    assert!(
+        stderr(&o).contains("3 of 9 runs are in no folder (runs 1, 4, 7)"),
+        "{}",
+        stderr(&o)
+    );
+    assert!(!d.path().join("bad1").exists());
+    // A shard of another sweep (a different range): refused, naming what differs.
+    let o = sweep("5 kHz", &["--shard", "2/3", "--out", "other"]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    let o = run_in(d.path(), &["merge", &s1, "other", &s3, "--out", "bad2"]);
+    assert_eq!(o.status.code(), Some(2), "{}", stderr(&o));
+    let e = stderr(&o);
+    assert!(
+        e.contains("not shards of the same study") && e.contains("vary:"),
+        "{e}"
+    );
+    assert!(!d.path().join("bad2").exists());
+    // A Monte-Carlo shard is not a sweep shard.
+    let mc = d.path().join("mc");
+    fs::create_dir(&mc).unwrap();
+    let mut rows = json(&d.path().join(&s2).join("rows.json"));
+    rows["kind"] = "montecarlo".into();
+    fs::write(mc.join("rows.json"), rows.to_string()).unwrap();
+    let o = run_in(d.path(), &["merge", &s1, "mc", &s3, "--out", "bad3"]);
+    assert_eq!(o.status.code(), Some(2), "{}", stderr(&o));
+    assert!(
+        stderr(&o).contains("a `montecarlo` study"),
+        "{}",
+        stderr(&o)
+    );
+}

@@ -12,6 +12,7 @@ use convchain::report::plot::format_si;
 use convchain::scenario::overrides::ScenarioText;
 use convchain::study::montecarlo::{self, McOptions, Requirement, Summary};
 use convchain::study::shard::{self, Shard};
+use convchain::study::sweep;
 
 /// Exit code after Ctrl-C (128 + SIGINT, the shell's convention).
 pub const INTERRUPTED_EXIT: u8 = 130;
@@ -65,7 +66,7 @@ pub struct McArgs {
 
 #[derive(Args, Debug)]
 pub struct MergeArgs {
-    /// Folders written by `convchain montecarlo --shard K/N`.
+    /// Folders written by `convchain montecarlo --shard K/N` or `convchain sweep --shard K/N`.
     #[arg(required = true)]
     dirs: Vec<PathBuf>,
     /// Folder for the merged study.
@@ -237,6 +238,14 @@ pub fn merge(a: MergeArgs) -> anyhow::Result<()> {
     if !a.quiet && merged.kind == montecarlo::KIND {
         let summary = montecarlo::summarize(&merged)?;
         write!(std::io::stdout().lock(), "{}", table(&summary, &a.out))?;
+    }
+    if !a.quiet && merged.kind == sweep::KIND {
+        let result = sweep::SweepResult::from_rows(&merged)?;
+        write!(
+            std::io::stdout().lock(),
+            "{}",
+            super::study_cli::sweep_line(&result, &a.out)
+        )?;
     }
     Ok(())
 }

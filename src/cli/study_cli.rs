@@ -7,6 +7,7 @@ use convchain::error::Error;
 use convchain::report::OutputDir;
 use convchain::scenario::overrides::ScenarioText;
 use convchain::scenario::units::{Dimension, parse_quantity};
+use convchain::study::shard::Shard;
 use convchain::study::{limit, sweep};
 
 fn frequency(s: &str) -> Result<f64, String> {
@@ -32,12 +33,16 @@ pub struct SweepArgs {
     /// Space the values logarithmically.
     #[arg(long)]
     log: bool,
-    /// Output folder (default out/<name>-sweep/).
+    /// Output folder (default out/<name>-sweep/, or .../shard-K-of-N/ for a shard).
     #[arg(long)]
     out: Option<PathBuf>,
     /// Worker threads (default: all cores).
     #[arg(long)]
     threads: Option<usize>,
+    /// Run only the points with index % N == K-1 (K from 1; index in grid order), to split a sweep over
+    /// machines; join the folders with `convchain merge`.
+    #[arg(long, value_name = "K/N")]
+    shard: Option<String>,
     /// Print nothing but errors.
     #[arg(long, short)]
     quiet: bool,
@@ -89,11 +94,20 @@ pub fn sweep(a: SweepArgs) -> anyhow::Result<()> {
         .iter()
         .map(|v| sweep::parse_vary(v))
         .collect::<Result<Vec<_>, _>>()?;
+    let shard = match &a.shard {
+        Some(s) => Shard::parse(s)?,
+        None => Shard::WHOLE,
+    };
     let text = ScenarioText::load(&a.scenario)?;
     let sc = text.scenario()?;
-    let dir = a
-        .out
-        .unwrap_or_else(|| Path::new("out").join(format!("{}-sweep", sc.name)));
+    let dir = a.out.unwrap_or_else(|| {
+        let base = Path::new("out").join(format!("{}-sweep", sc.name));
+        if shard == Shard::WHOLE {
+            base
+        } else {
+            base.join(format!("shard-{}-of-{}", shard.k, shard.n))
+        }
+    });
     OutputDir::check(&dir)?;
     let spec = sweep::SweepSpec {
         vary,
@@ -103,25 +117,34 @@ pub fn sweep(a: SweepArgs) -> anyhow::Result<()> {
     let opts = sweep::SweepOptions {
         threads: threads(a.threads)?,
         progress: !a.quiet,
+        shard,
     };
     let result = sweep::run_sweep(&text, &spec, &opts)?;
     sweep::write_sweep(&result, &dir)?;
     if !a.quiet {
-        let failed = result.rows.iter().filter(|r| r.error.is_some()).count();
-        let mut o = std::io::stdout().lock();
-        writeln!(
-            o,
-            "{} points{}; wrote {}",
-            result.rows.len(),
-            if failed > 0 {
-                format!(" ({failed} failed: see the error column)")
-            } else {
-                String::new()
-            },
-            dir.display()
-        )?;
+        write!(std::io::stdout().lock(), "{}", sweep_line(&result, &dir))?;
     }
     Ok(())
+}
+
+/// The line printed after a sweep (or a merge of sweep shards).
+pub fn sweep_line(result: &sweep::SweepResult, dir: &Path) -> String {
+    let failed = result.rows.iter().filter(|r| r.error.is_some()).count();
+    let shard = if result.shard == Shard::WHOLE {
+        String::new()
+    } else {
+        format!(" of {} (shard {})", result.total_points(), result.shard)
+    };
+    let failed = if failed > 0 {
+        format!(" ({failed} failed: see the error column)")
+    } else {
+        String::new()
+    };
+    format!(
+        "{} points{shard}{failed}; wrote {}\n",
+        result.rows.len(),
+        dir.display()
+    )
 }
 
 pub fn limit(a: LimitArgs) -> anyhow::Result<()> {

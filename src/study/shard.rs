@@ -73,6 +73,13 @@ impl Shard {
     }
 }
 
+impl Default for Shard {
+    /// [`Shard::WHOLE`].
+    fn default() -> Shard {
+        Shard::WHOLE
+    }
+}
+
 impl fmt::Display for Shard {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         write!(f, "{}/{}", self.k, self.n)
@@ -84,7 +91,7 @@ impl fmt::Display for Shard {
 pub struct RowSet {
     /// Always [`ROWS_FORMAT`].
     pub format: String,
-    /// What made the rows (`"montecarlo"`, ...): chooses the writer of the study's other files.
+    /// What made the rows (`"montecarlo"`, `"sweep"`): chooses the writer of the study's other files.
     pub kind: String,
     /// Everything that identifies the study; must hold `runs`, the total number of runs. Shards merge only
     /// when their `study` values are equal.
@@ -126,7 +133,8 @@ impl RowSet {
         })?;
         let set: RowSet = serde_json::from_str(&text).map_err(|e| {
             Error::BadInput(format!(
-                "{}: not a convchain rows file ({e}); give folders written by `convchain montecarlo`",
+                "{}: not a convchain rows file ({e}); give folders written by `convchain montecarlo` or \
+                 `convchain sweep`",
                 path.display()
             ))
         })?;
@@ -205,7 +213,7 @@ pub fn merge(sets: Vec<(PathBuf, RowSet)>) -> Result<RowSet> {
                 .collect();
             return Err(Error::BadInput(format!(
                 "merge: {} and {} are not shards of the same study ({}); run every shard from the same \
-                 scenario file with the same --runs, --seed and options",
+                 scenario file with the same options (--runs and --seed, or --vary, --points and --log)",
                 first_dir.display(),
                 dir.display(),
                 detail.join("; ")
@@ -294,6 +302,7 @@ pub fn merge_dirs(dirs: &[PathBuf], out: &Path) -> Result<RowSet> {
     OutputDir::check(out)?;
     let writer: fn(&OutputDir, &RowSet) -> Result<()> = match merged.kind.as_str() {
         "montecarlo" => |o, s| super::montecarlo::write_outputs(o, s).map(|_| ()),
+        "sweep" => |o, s| super::sweep::write_outputs(o, s).map(|_| ()),
         other => {
             return Err(Error::BadInput(format!(
                 "merge: this convchain cannot write `{other}` studies"

@@ -4,12 +4,19 @@
 //! Each point is an ordinary run of the scenario with the values set through
 //! [`ScenarioText::with`], so it is checked like a file and keeps the scenario's seed unless
 //! `simulation.seed` is itself varied: the results do not depend on how many threads run the points.
+//!
+//! Point `i` (from 0, in grid order) is run `i` of the study: a shard `K/N` runs the points with
+//! `i % N == K - 1`, and its rows are kept in `rows.json` (a [`RowSet`] of kind [`KIND`]) so that
+//! `convchain merge` can join shards into exactly the files one machine writes. Every file of a sweep is
+//! written from its row set, whether it came from one run or from merged shards.
 
 use std::path::Path;
 
 use rayon::prelude::*;
 use serde::Serialize;
+use serde_json::{Value, json};
 
+use super::shard::{ROWS_FILE, ROWS_FORMAT, RowSet, Shard, fingerprint};
 use crate::engine::pipeline::{self, Plan};
 use crate::error::{Error, Result};
 use crate::measure::chain::{ChainMetrics, measure_run};
@@ -18,6 +25,9 @@ use crate::report::plot::{self, Plot, XyPlot};
 use crate::scenario::Scenario;
 use crate::scenario::overrides::{ScenarioText, is_integer_key};
 use crate::scenario::units::{Dimension, parse_quantity};
+
+/// `kind` of a sweep's [`RowSet`].
+pub const KIND: &str = "sweep";
 
 /// One varied key: `KEY=FROM..TO` on the command line.
 #[derive(Debug, Clone, PartialEq, Serialize)]
@@ -252,6 +262,8 @@ pub fn metric_values(m: &ChainMetrics) -> Vec<Option<f64>> {
 /// One point of a sweep.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct SweepRow {
+    /// Position of the point in the whole grid (from 0; see [`grid`]).
+    pub index: u64,
     /// The varied values, in the order of [`SweepSpec::vary`].
     pub values: Vec<f64>,
     /// Sine sources: the frequency asked for and the one the run used (moved for coherent sampling).
@@ -263,13 +275,18 @@ pub struct SweepRow {
     pub error: Option<String>,
 }
 
-/// A whole sweep.
+/// A whole sweep, or the points of one shard of it.
 #[derive(Debug, Clone, PartialEq)]
 pub struct SweepResult {
     pub scenario: String,
+    /// Fingerprint of the scenario's text ([`fingerprint`]), so shards of different files do not merge.
+    pub scenario_hash: String,
     pub spec: SweepSpec,
     /// The values of each key.
     pub axes: Vec<Vec<f64>>,
+    /// The slice of the grid these rows are ([`Shard::WHOLE`]: every point).
+    pub shard: Shard,
+    /// The points of [`Self::shard`], in grid order.
     pub rows: Vec<SweepRow>,
 }
 
@@ -280,6 +297,8 @@ pub struct SweepOptions {
     pub threads: Option<usize>,
     /// Show a progress bar on standard error when it is a terminal.
     pub progress: bool,
+    /// Run only the points of this shard (default: all).
+    pub shard: Shard,
 }
 
 /// Simulate and measure one checked scenario: (requested frequency, used frequency, metrics).
@@ -348,24 +367,34 @@ pub fn run_sweep(
         .first()
         .map(|s| s.name.clone())
         .unwrap_or_default();
+    // Every point is checked above, so each shard refuses a bad sweep alike; only the shard's points run.
+    let mine: Vec<(u64, &Scenario, &Vec<f64>)> = scenarios
+        .iter()
+        .zip(&points)
+        .enumerate()
+        .map(|(i, (sc, p))| (i as u64, sc, p))
+        .filter(|(i, _, _)| opts.shard.contains(*i))
+        .collect();
     let pool = thread_pool(opts.threads)?;
-    let bar = progress_bar(points.len(), opts.progress, "sweeping");
+    let bar = progress_bar(mine.len(), opts.progress, "sweeping");
+    let finite = |x: Option<f64>| x.filter(|v| v.is_finite());
     let rows: Vec<SweepRow> = pool.install(|| {
-        scenarios
-            .par_iter()
-            .zip(points.par_iter())
-            .map(|(sc, p)| {
+        mine.par_iter()
+            .map(|&(index, sc, p)| {
                 let row = match simulate(sc) {
                     Ok((fr, fu, m)) => SweepRow {
+                        index,
                         values: p.clone(),
-                        frequency_requested_hz: fr,
-                        frequency_used_hz: fu,
-                        metrics: metric_values(&m),
+                        frequency_requested_hz: finite(fr),
+                        frequency_used_hz: finite(fu),
+                        // Non-finite values are kept as missing, as rows.json holds them.
+                        metrics: metric_values(&m).into_iter().map(finite).collect(),
                         error: None,
                     },
                     Err(e) => SweepRow {
+                        index,
                         values: p.clone(),
-                        frequency_requested_hz: sc.source.waveform.fundamental_hz(),
+                        frequency_requested_hz: finite(sc.source.waveform.fundamental_hz()),
                         frequency_used_hz: None,
                         metrics: vec![None; METRIC_COLUMNS.len()],
                         error: Some(e.to_string()),
@@ -383,13 +412,180 @@ pub fn run_sweep(
     }
     Ok(SweepResult {
         scenario: name,
+        scenario_hash: fingerprint(text.text.as_bytes()),
         spec: spec.clone(),
         axes,
+        shard: opts.shard,
         rows,
     })
 }
 
+fn num(x: f64) -> Value {
+    serde_json::Number::from_f64(x).map_or(Value::Null, Value::Number)
+}
+
+fn opt_num(x: Option<f64>) -> Value {
+    x.map_or(Value::Null, num)
+}
+
 impl SweepResult {
+    /// Points in the whole grid (all shards).
+    pub fn total_points(&self) -> u64 {
+        self.axes.iter().map(|a| a.len() as u64).product()
+    }
+
+    /// The study header of `rows.json`: what must match for shards to merge (`runs` is the number of points
+    /// of the whole grid; `vary` holds FROM and TO in the key's base unit).
+    pub fn study_header(&self) -> Value {
+        json!({
+            "runs": self.total_points(),
+            "scenario": self.scenario,
+            "scenario_hash": self.scenario_hash,
+            "vary": self.spec.vary.iter().map(|v| json!({"key": v.key, "from": v.from, "to": v.to}))
+                .collect::<Vec<_>>(),
+            "points": self.spec.points,
+            "log": self.spec.log,
+        })
+    }
+
+    /// The rows as a [`RowSet`] of kind [`KIND`]: `index`, then the cells of [`Self::columns`].
+    pub fn to_rows(&self) -> RowSet {
+        let mut columns = vec!["index".to_string()];
+        columns.extend(self.columns());
+        let rows = self
+            .rows
+            .iter()
+            .map(|r| {
+                let mut row = vec![json!(r.index)];
+                row.extend(r.values.iter().map(|v| num(*v)));
+                row.push(opt_num(r.frequency_requested_hz));
+                row.push(opt_num(r.frequency_used_hz));
+                row.extend(r.metrics.iter().map(|m| opt_num(*m)));
+                row.push(r.error.clone().map_or(Value::Null, Value::String));
+                row
+            })
+            .collect();
+        RowSet {
+            format: ROWS_FORMAT.into(),
+            kind: KIND.into(),
+            study: self.study_header(),
+            shard: self.shard,
+            interrupted: None,
+            columns,
+            rows,
+        }
+    }
+
+    /// The sweep a [`RowSet`] of kind [`KIND`] holds (the inverse of [`Self::to_rows`]). A header or row
+    /// that does not fit is [`Error::BadInput`].
+    pub fn from_rows(set: &RowSet) -> Result<SweepResult> {
+        let bad = |why: String| Error::BadInput(format!("rows of a sweep: {why}"));
+        if set.kind != KIND {
+            return Err(bad(format!("kind `{}` is not `{KIND}`", set.kind)));
+        }
+        let h = &set.study;
+        let text = |k: &str| {
+            h.get(k)
+                .and_then(Value::as_str)
+                .map(str::to_string)
+                .ok_or_else(|| bad(format!("the header lacks `{k}`")))
+        };
+        let vary = h
+            .get("vary")
+            .and_then(Value::as_array)
+            .filter(|a| !a.is_empty())
+            .ok_or_else(|| bad("the header lacks `vary`".into()))?
+            .iter()
+            .map(|v| {
+                Some(Vary {
+                    key: v.get("key")?.as_str()?.to_string(),
+                    from: v.get("from")?.as_f64()?,
+                    to: v.get("to")?.as_f64()?,
+                })
+            })
+            .collect::<Option<Vec<Vary>>>()
+            .ok_or_else(|| bad("a `vary` entry lacks key, from or to".into()))?;
+        let spec = SweepSpec {
+            vary,
+            points: h
+                .get("points")
+                .and_then(Value::as_u64)
+                .ok_or_else(|| bad("the header lacks `points`".into()))?
+                as usize,
+            log: h
+                .get("log")
+                .and_then(Value::as_bool)
+                .ok_or_else(|| bad("the header lacks `log`".into()))?,
+        };
+        let axes = spec
+            .vary
+            .iter()
+            .map(|v| axis_values(v, spec.points, spec.log))
+            .collect::<Result<Vec<_>>>()?;
+        let mut result = SweepResult {
+            scenario: text("scenario")?,
+            scenario_hash: text("scenario_hash")?,
+            spec,
+            axes,
+            shard: set.shard,
+            rows: Vec::with_capacity(set.rows.len()),
+        };
+        if set.total_runs() != Some(result.total_points()) {
+            return Err(bad(format!(
+                "the header says {:?} points, the grid has {}",
+                set.total_runs(),
+                result.total_points()
+            )));
+        }
+        let mut columns = vec!["index".to_string()];
+        columns.extend(result.columns());
+        if set.columns != columns {
+            return Err(bad("the columns are not those of this sweep".into()));
+        }
+        let nv = result.spec.vary.len();
+        let cell = |c: &Value| -> std::result::Result<Option<f64>, ()> {
+            match c {
+                Value::Null => Ok(None),
+                v => v.as_f64().map(Some).ok_or(()),
+            }
+        };
+        for r in &set.rows {
+            let parsed = (|| -> std::result::Result<SweepRow, ()> {
+                if r.len() != columns.len() {
+                    return Err(());
+                }
+                let index = r[0].as_u64().ok_or(())?;
+                let values = r[1..=nv]
+                    .iter()
+                    .map(|c| c.as_f64().ok_or(()))
+                    .collect::<std::result::Result<Vec<f64>, ()>>()?;
+                let metrics = r[nv + 3..nv + 3 + METRIC_COLUMNS.len()]
+                    .iter()
+                    .map(cell)
+                    .collect::<std::result::Result<Vec<_>, ()>>()?;
+                let error = match &r[columns.len() - 1] {
+                    Value::Null => None,
+                    Value::String(s) => Some(s.clone()),
+                    _ => return Err(()),
+                };
+                Ok(SweepRow {
+                    index,
+                    values,
+                    frequency_requested_hz: cell(&r[nv + 1])?,
+                    frequency_used_hz: cell(&r[nv + 2])?,
+                    metrics,
+                    error,
+                })
+            })()
+            .map_err(|_| {
+                let at = r.first().map_or("?".to_string(), Value::to_string);
+                bad(format!("the row with index {at} does not fit the columns"))
+            })?;
+            result.rows.push(parsed);
+        }
+        Ok(result)
+    }
+
     /// Column names: the varied keys, `frequency_used_hz` (beside the requested frequency), the metrics, `error`.
     pub fn columns(&self) -> Vec<String> {
         let mut c: Vec<String> = self.spec.vary.iter().map(|v| v.key.clone()).collect();
@@ -425,7 +621,7 @@ impl SweepResult {
 
     /// The JSON document: scenario, the varied keys with their values, the columns, one object per row.
     pub fn to_json(&self) -> serde_json::Value {
-        use serde_json::{Map, Value, json};
+        use serde_json::Map;
         let vary: Vec<Value> = self
             .spec
             .vary
@@ -456,12 +652,21 @@ impl SweepResult {
                 Value::Object(m)
             })
             .collect();
-        json!({
+        let mut doc = json!({
             "scenario": self.scenario,
             "vary": vary,
             "columns": self.columns(),
             "rows": rows,
-        })
+        });
+        if self.shard != Shard::WHOLE {
+            doc["shard"] = json!({
+                "shard": self.shard.to_string(),
+                "points": self.rows.len(),
+                "of_points": self.total_points(),
+                "note": "one shard of the sweep: its rows only; join every shard's folder with `convchain merge`",
+            });
+        }
+        doc
     }
 
     /// The x value of a row for plots: the first varied value, or the frequency used when the first key is
@@ -545,45 +750,55 @@ impl SweepResult {
     }
 }
 
-/// Write `sweep.csv`, `sweep.json` and the plots (PNG and SVG) atomically into `dir`.
+/// Write `sweep.csv`, `sweep.json`, `rows.json` and the plots (PNG and SVG) of the sweep a row set holds
+/// (one machine's, one shard's or merged shards') into `out`. The same rows always give the same bytes.
+pub fn write_outputs(out: &OutputDir, set: &RowSet) -> Result<SweepResult> {
+    let result = SweepResult::from_rows(set)?;
+    out.write("sweep.csv", &result.to_csv()?)?;
+    let json =
+        serde_json::to_vec_pretty(&result.to_json()).map_err(|e| Error::Run(e.to_string()))?;
+    out.write("sweep.json", &json)?;
+    out.write(ROWS_FILE, &set.to_json()?)?;
+    let first = &result.spec.vary[0].key;
+    let x_label = match key_dimension(first) {
+        _ if first == "source.frequency" => "source frequency used (Hz)".to_string(),
+        Some(Dimension::Angle) => format!("{first} (deg)"),
+        Some(d) if !d.base_unit().is_empty() && d != Dimension::Gain => {
+            format!("{first} ({})", d.base_unit())
+        }
+        _ => first.clone(),
+    };
+    let shard_note = if result.shard == Shard::WHOLE {
+        String::new()
+    } else {
+        format!(" (shard {} only)", result.shard)
+    };
+    for (stem, title, y_label, metrics) in SweepResult::PLOTS {
+        let series = result.plot_series(metrics);
+        let xy = XyPlot {
+            title: format!("{}: {title} against {first}{shard_note}", result.scenario),
+            x_label: x_label.clone(),
+            y_label: y_label.to_string(),
+            series: series
+                .iter()
+                .map(|(n, x, y)| (n.as_str(), x.as_slice(), y.as_slice()))
+                .collect(),
+            log_x: result.spec.log,
+            markers: Vec::new(),
+        };
+        let p = Plot::Xy(xy);
+        let (png, _) = plot::render_png(&p, 1000, 620)?;
+        out.write(&format!("{stem}.png"), &png)?;
+        let (svg, _) = plot::render_svg(&p)?;
+        out.write(&format!("{stem}.svg"), svg.as_bytes())?;
+    }
+    Ok(result)
+}
+
+/// Write a sweep's files ([`write_outputs`] of its rows) atomically into `dir`.
 pub fn write_sweep(result: &SweepResult, dir: &Path) -> Result<()> {
     let out = OutputDir::create(dir)?;
-    let r = (|| -> Result<()> {
-        out.write("sweep.csv", &result.to_csv()?)?;
-        let json =
-            serde_json::to_vec_pretty(&result.to_json()).map_err(|e| Error::Run(e.to_string()))?;
-        out.write("sweep.json", &json)?;
-        let first = &result.spec.vary[0].key;
-        let x_label = match key_dimension(first) {
-            _ if first == "source.frequency" => "source frequency used (Hz)".to_string(),
-            Some(Dimension::Angle) => format!("{first} (deg)"),
-            Some(d) if !d.base_unit().is_empty() && d != Dimension::Gain => {
-                format!("{first} ({})", d.base_unit())
-            }
-            _ => first.clone(),
-        };
-        for (stem, title, y_label, metrics) in SweepResult::PLOTS {
-            let series = result.plot_series(metrics);
-            let xy = XyPlot {
-                title: format!("{}: {title} against {first}", result.scenario),
-                x_label: x_label.clone(),
-                y_label: y_label.to_string(),
-                series: series
-                    .iter()
-                    .map(|(n, x, y)| (n.as_str(), x.as_slice(), y.as_slice()))
-                    .collect(),
-                log_x: result.spec.log,
-                markers: Vec::new(),
-            };
-            let p = Plot::Xy(xy);
-            let (png, _) = plot::render_png(&p, 1000, 620)?;
-            out.write(&format!("{stem}.png"), &png)?;
-            let (svg, _) = plot::render_svg(&p)?;
-            out.write(&format!("{stem}.svg"), svg.as_bytes())?;
-        }
-        Ok(())
-    })();
-    if let Err(e) = r {
+    if let Err(e) = write_outputs(&out, &result.to_rows()) {
         out.abandon();
         return Err(e);
     }
@@ -690,6 +905,115 @@ mod tests {
                     assert_eq!(vals[i], v.as_f64(), "{col}");
                 }
             }
+        }
+    }
+
+    fn synthetic(shard: Shard) -> SweepResult {
+        let spec = SweepSpec {
+            vary: vec![
+                Vary {
+                    key: "source.frequency".into(),
+                    from: 1e3,
+                    to: 4e3,
+                },
+                Vary {
+                    key: "stage.2.bits".into(),
+                    from: 8.0,
+                    to: 10.0,
+                },
+            ],
+            points: 3,
+            log: true,
+        };
+        let axes: Vec<Vec<f64>> = spec
+            .vary
+            .iter()
+            .map(|v| axis_values(v, spec.points, spec.log).unwrap())
+            .collect();
+        let rows = grid(&axes)
+            .into_iter()
+            .enumerate()
+            .filter(|(i, _)| shard.contains(*i as u64))
+            .map(|(i, values)| {
+                let failed = i % 4 == 3;
+                SweepRow {
+                    index: i as u64,
+                    frequency_requested_hz: Some(values[0]),
+                    frequency_used_hz: (!failed).then(|| values[0] * (1.0 + 1e-3 / 3.0)),
+                    values,
+                    metrics: (0..METRIC_COLUMNS.len())
+                        .map(|m| (!failed && m % 5 != 2).then(|| 0.1 * (i * m) as f64 + 1.0 / 3.0))
+                        .collect(),
+                    error: failed.then(|| format!("point {i}: a \"quoted\", two-line\nmessage")),
+                }
+            })
+            .collect();
+        SweepResult {
+            scenario: "synthetic".into(),
+            scenario_hash: fingerprint(b"synthetic"),
+            spec,
+            axes,
+            shard,
+            rows,
+        }
+    }
+
+    #[test]
+    fn a_sweep_survives_a_round_trip_through_its_rows() {
+        for shard in [Shard::WHOLE, Shard { k: 2, n: 4 }] {
+            let r = synthetic(shard);
+            let set = r.to_rows();
+            assert_eq!(set.total_runs(), Some(9));
+            assert_eq!(set.rows.len(), shard.count(9) as usize);
+            let back: RowSet = serde_json::from_slice(&set.to_json().unwrap()).unwrap();
+            assert_eq!(SweepResult::from_rows(&back).unwrap(), r);
+        }
+    }
+
+    #[test]
+    fn merged_shard_rows_give_the_whole_sweep() {
+        let whole = synthetic(Shard::WHOLE);
+        let parts = [3, 1, 2]
+            .iter()
+            .map(|k| {
+                let s = synthetic(Shard { k: *k, n: 3 }).to_rows();
+                (std::path::PathBuf::from(format!("s{k}")), s)
+            })
+            .collect();
+        let merged = crate::study::shard::merge(parts).unwrap();
+        assert_eq!(merged, whole.to_rows());
+        let back = SweepResult::from_rows(&merged).unwrap();
+        assert_eq!(back.to_csv().unwrap(), whole.to_csv().unwrap());
+        assert_eq!(back.to_json(), whole.to_json());
+        assert!(whole.to_json().get("shard").is_none());
+        assert_eq!(
+            synthetic(Shard { k: 1, n: 3 }).to_json()["shard"]["shard"],
+            "1/3"
+        );
+    }
+
+    #[test]
+    fn rows_that_do_not_fit_the_sweep_are_bad_input() {
+        let good = synthetic(Shard::WHOLE).to_rows();
+        let mut wrong_kind = good.clone();
+        wrong_kind.kind = "montecarlo".into();
+        let mut wrong_columns = good.clone();
+        wrong_columns.columns[1] = "source.amplitude".into();
+        let mut wrong_runs = good.clone();
+        wrong_runs.study["runs"] = json!(10);
+        let mut short_row = good.clone();
+        short_row.rows[4].pop();
+        let mut text_value = good.clone();
+        text_value.rows[0][1] = json!("1 kHz");
+        for (name, set) in [
+            ("kind", wrong_kind),
+            ("columns", wrong_columns),
+            ("runs", wrong_runs),
+            ("short row", short_row),
+            ("text value", text_value),
+        ] {
+            let e = SweepResult::from_rows(&set).unwrap_err();
+            assert!(e.is_bad_input(), "{name}: {e}");
         }
     }
 }
