@@ -276,3 +276,29 @@ fn a_run_too_big_for_memory_is_refused_with_advice() {
     );
     assert!(!d.path().join("out").exists());
 }
+
+#[test]
+fn a_live_input_converter_budget_matches_the_measured_delay() {
+    // No outside source: the budget's own model of a converter without a hold (the code follows the input at
+    // the finer bit trials) against the measured delay of the same chain. The river-gauge demo: 8 bits, 50 us per
+    // trial, a framed link and an RC filter; the budget must land within 2 % of the conversion time.
+    let d = tempfile::tempdir().unwrap();
+    let sc = repo("scenarios/river-gauge.toml");
+    let o = run_in(
+        d.path(),
+        &[
+            "run",
+            sc.to_str().unwrap(),
+            "--json",
+            "--no-plots",
+            "--no-wav",
+            "--out",
+            "o",
+        ],
+    );
+    assert!(o.status.success(), "{}", stderr(&o));
+    let r: serde_json::Value = serde_json::from_slice(&o.stdout).unwrap();
+    let diff = r["latency"]["difference_s"].as_f64().unwrap();
+    assert!(diff.abs() < 0.02 * 450e-6, "measured - budget = {diff:e} s");
+    assert_eq!(r["latency"]["flagged"], false);
+}

@@ -487,10 +487,30 @@ impl Chain {
                     seconds: c.sh_cfg.aperture_delay_s,
                 });
             }
-            lines.push(BudgetLine {
-                stage: format!("{}: conversion time", c.adc_label),
-                seconds: c.adc_cfg.conversion_time_s,
-            });
+            match c.adc_cfg.input {
+                crate::scenario::AdcInput::Held => lines.push(BudgetLine {
+                    stage: format!("{}: conversion time", c.adc_label),
+                    seconds: c.adc_cfg.conversion_time_s,
+                }),
+                crate::scenario::AdcInput::Live => {
+                    // Without a hold the code follows the input during the bit trials. A small movement of the
+                    // input changes the code where it crosses a trial's threshold; trial i (at (i + 1)/clock) has
+                    // 2^i thresholds across the range, so the later, finer trials decide most often: the code's
+                    // effective instant is the trial instants weighted by 2^i / (2^N - 1).
+                    let n = c.adc_cfg.bits as i32;
+                    let total = f64::powi(2.0, n) - 1.0;
+                    let t_eff: f64 = (0..n)
+                        .map(|i| f64::powi(2.0, i) / total * (i + 1) as f64 / c.adc_cfg.clock_hz)
+                        .sum();
+                    lines.push(BudgetLine {
+                        stage: format!(
+                            "{}: conversion time less the bit trials' weighted instant (live input)",
+                            c.adc_label
+                        ),
+                        seconds: c.adc_cfg.conversion_time_s - t_eff,
+                    });
+                }
+            }
             for (label, link, _) in &c.links {
                 lines.push(BudgetLine {
                     stage: format!("{label}: delay and frame wait"),
