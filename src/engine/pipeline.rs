@@ -259,35 +259,9 @@ fn choose_factor_with_adc(rate_hz: f64, fs_hz: f64, band_hz: Option<f64>) -> (us
     (((rate_hz / out).floor() as usize).max(1), false)
 }
 
-/// Format a value with an SI prefix (for messages).
+/// Format a value with an SI prefix (for messages and tables).
 pub fn si(v: f64, unit: &str) -> String {
-    let a = v.abs();
-    let (scale, p) = if a == 0.0 {
-        (1.0, "")
-    } else if a >= 1e9 {
-        (1e-9, "G")
-    } else if a >= 1e6 {
-        (1e-6, "M")
-    } else if a >= 1e3 {
-        (1e-3, "k")
-    } else if a >= 1.0 {
-        (1.0, "")
-    } else if a >= 1e-3 {
-        (1e3, "m")
-    } else if a >= 1e-6 {
-        (1e6, "µ")
-    } else if a >= 1e-9 {
-        (1e9, "n")
-    } else {
-        (1e12, "p")
-    };
-    format!("{} {}{}", trim_float(v * scale), p, unit)
-}
-
-fn trim_float(x: f64) -> String {
-    let s = format!("{x:.4}");
-    let s = s.trim_end_matches('0').trim_end_matches('.');
-    s.to_string()
+    crate::scenario::units::format_si_table(v, unit)
 }
 
 /// A grid capture: the source and every analog stage output over the same grid window.

@@ -314,13 +314,10 @@ fn unknown_unit(text: &str, rest: &str, dim: Dimension) -> UnitError {
     ))
 }
 
-/// Format a value with an SI prefix and 4 significant digits, e.g. `format_si(83_333.3, "Hz")` = `"83.33 kHz"`.
-pub fn format_si(value: f64, unit: &str) -> String {
-    if !value.is_finite() {
-        return format!("{value} {unit}");
-    }
+/// The SI prefix for showing `value`: (factor to divide by, prefix), from p to G; `micro` is the symbol for 1e-6.
+pub fn si_prefix(value: f64, micro: &'static str) -> (f64, &'static str) {
     let a = value.abs();
-    let (factor, prefix) = if a == 0.0 {
+    if a == 0.0 || !a.is_finite() {
         (1.0, "")
     } else if a >= 1e9 {
         (1e9, "G")
@@ -333,12 +330,21 @@ pub fn format_si(value: f64, unit: &str) -> String {
     } else if a >= 1e-3 {
         (1e-3, "m")
     } else if a >= 1e-6 {
-        (1e-6, "u")
+        (1e-6, micro)
     } else if a >= 1e-9 {
         (1e-9, "n")
     } else {
         (1e-12, "p")
-    };
+    }
+}
+
+/// Format a value with an SI prefix and 4 significant digits, e.g. `format_si(83_333.3, "Hz")` = `"83.33 kHz"`.
+/// Micro is written `u`, so the text parses back.
+pub fn format_si(value: f64, unit: &str) -> String {
+    if !value.is_finite() {
+        return format!("{value} {unit}");
+    }
+    let (factor, prefix) = si_prefix(value, "u");
     let scaled = value / factor;
     // Keep about 4 significant digits, drop trailing zeros.
     let int_digits = scaled.abs().max(1.0).log10().floor() as usize + 1;
@@ -347,6 +353,14 @@ pub fn format_si(value: f64, unit: &str) -> String {
     if s.contains('.') {
         s = s.trim_end_matches('0').trim_end_matches('.').to_string();
     }
+    format!("{s} {prefix}{unit}")
+}
+
+/// Format a value for tables: SI prefix (micro as `µ`) and up to 4 decimals, e.g. `"67.2309 µs"`.
+pub fn format_si_table(value: f64, unit: &str) -> String {
+    let (factor, prefix) = si_prefix(value, "µ");
+    let s = format!("{:.4}", value / factor);
+    let s = s.trim_end_matches('0').trim_end_matches('.');
     format!("{s} {prefix}{unit}")
 }
 
