@@ -294,11 +294,22 @@ pub fn static_tests(sc: &Scenario) -> Result<Static> {
             codes.push(ev.code);
         }
         let ramp = static_test::adc_ramp(&ramp_v, &codes, cfg.bits, lo, q);
-        // Code density: a sine overdriven by 2 % around mid-range, coherent with the record.
-        let cd_n = (n_codes * 64).clamp(1 << 16, 1 << 22);
-        let f = crate::measure::coherent::coherent_frequency(fs / 97.3, fs, cd_n)
+        // Code density: a sine overdriven by 2 % around mid-range, coherent with the record. A converter
+        // without a hold sees its input move during the bit trials, so for a static test the sine must be slow
+        // enough to move under a twentieth of an LSB during a conversion (a full-scale sine moves at most
+        // 2 pi f A t_conv); the record then grows to hold at least 8 cycles.
+        let mut f_want = fs / 97.3;
+        if cfg.input == crate::scenario::AdcInput::Live {
+            let f_static = 0.05
+                / (f64::powi(2.0, cfg.bits as i32) * std::f64::consts::PI * cfg.conversion_time_s);
+            f_want = f_want.min(f_static);
+        }
+        let cd_n = (n_codes * 64)
+            .max((8.0 * fs / f_want).ceil() as usize)
+            .clamp(1 << 16, 1 << 22);
+        let f = crate::measure::coherent::coherent_frequency(f_want, fs, cd_n)
             .map(|(f, _)| f)
-            .unwrap_or(fs / 97.3);
+            .unwrap_or(f_want);
         let c = 0.5 * (lo + hi);
         let a = 0.5 * (hi - lo) * 1.02;
         let w = 2.0 * std::f64::consts::PI * f;
