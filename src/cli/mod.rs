@@ -24,7 +24,7 @@ struct Args {
 
 #[derive(Subcommand, Debug)]
 enum Command {
-    /// Run a scenario (or the embedded demo) and write report.json and waveforms.csv.
+    /// Run a scenario (or the embedded demo): report.json, waveforms.csv, plots, WAV files, report.md/.html.
     Run {
         /// Scenario file (TOML). Without it, the embedded demo scenario runs.
         scenario: Option<PathBuf>,
