@@ -275,13 +275,13 @@ pub fn measure_run(run: &RunOutput) -> Result<ChainMetrics> {
         }
         _ => Vec::new(),
     };
-    let max_delay_s = (4.0 * budget_s.abs() + 20.0 / grid_rate).min(capture_s / 4.0);
-    let fid = fidelity::fidelity(
-        cap.source(),
-        cap.output(),
-        grid_rate,
-        max_delay_s.max(measured_s.abs() * 1.5),
-    );
+    // The measured delay is where the correlation peaks: the alignment starts there.
+    let fid = if measured_s.is_finite() && measured_s.abs() < capture_s / 4.0 {
+        fidelity::fidelity_at(cap.source(), cap.output(), grid_rate, measured_s)
+    } else {
+        let max_delay_s = (4.0 * budget_s.abs() + 20.0 / grid_rate).min(capture_s / 4.0);
+        fidelity::fidelity(cap.source(), cap.output(), grid_rate, max_delay_s)
+    };
     let difference_s = measured_s - budget_s;
     let sample_period = plan
         .adc

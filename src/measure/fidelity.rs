@@ -139,6 +139,21 @@ pub fn fidelity(
     if !d0_s.is_finite() {
         return nan;
     }
+    fidelity_at(reference, output, sample_rate_hz, d0_s)
+}
+
+/// [`fidelity`] with the delay already known (e.g. from [`xcorr_delay_s`] run by the caller), so the
+/// cross-correlation is not computed twice.
+pub fn fidelity_at(reference: &[f64], output: &[f64], sample_rate_hz: f64, d0_s: f64) -> Fidelity {
+    let nan = Fidelity {
+        fidelity_db: f64::NAN,
+        delay_s: f64::NAN,
+        gain: f64::NAN,
+        offset_v: f64::NAN,
+    };
+    if !d0_s.is_finite() || reference.len() < 2 || output.len() < 2 || sample_rate_hz <= 0.0 {
+        return nan;
+    }
     let d0 = d0_s * sample_rate_hz;
     // Output samples whose interpolation stencil lies inside the reference for every delay in the search range.
     let first = HALF_TAPS as f64 - 1.0;
@@ -157,8 +172,13 @@ pub fn fidelity(
         n_hi,
         y: vec![0.0; n_hi - n_lo],
     };
+    // The least-squares delay (with the gain free) is the lag that maximises the correlation with the
+    // (nearly constant-energy) shifted reference, which xcorr_delay_s already finds between samples; one
+    // alignment pass then gives gain, offset and the error. A parabola through three neighbouring fits checks
+    // it only when the correlation's lag and the error's minimum could disagree (a short record).
     let mut d = d0;
-    for h in [0.1, 0.01] {
+    if hi - lo < 4096.0 {
+        let h = 0.05;
         let (em, ..) = al.fit(d - h);
         let (e0, ..) = al.fit(d);
         let (ep, ..) = al.fit(d + h);

@@ -75,13 +75,22 @@ impl CrossCorrelation {
         let inner = &input[trim..input.len() - trim];
         let mean_in = inner.iter().sum::<f64>() / inner.len().max(1) as f64;
         let m = inner.len();
+        // Hann taper by a rotation recurrence (restarted exactly every 4096 samples) rather than a cosine per
+        // sample.
+        let step = if m > 1 { TAU / (m - 1) as f64 } else { 0.0 };
+        let (ds, dc) = step.sin_cos();
+        let (mut s, mut c) = (0.0f64, 1.0f64);
         for (i, v) in inner.iter().enumerate() {
+            if i % 4096 == 0 {
+                (s, c) = (step * i as f64).sin_cos();
+            }
             let w = if trim > 0 && m > 1 {
-                0.5 - 0.5 * (TAU * i as f64 / (m - 1) as f64).cos()
+                0.5 - 0.5 * c
             } else {
                 1.0
             };
             buf[trim + i] = (v - mean_in) * w;
+            (s, c) = (s * dc + c * ds, c * dc - s * ds);
         }
         fwd.process(&mut buf, &mut spec_in)
             .expect("length matches the plan");
