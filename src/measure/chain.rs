@@ -62,7 +62,8 @@ pub struct LatencyMetrics {
     pub measured_s: f64,
     /// Phase delay at the fundamental (sine sources), ambiguity resolved with the correlation estimate.
     pub phase_delay_s: Option<f64>,
-    /// Group delay at the tones of a multitone source: (frequency, seconds).
+    /// Group delay at the tones of a multitone source, or along the sweep of a chirp source
+    /// ([`CHIRP_GROUP_DELAY_POINTS`] points per sweep): (frequency, seconds).
     pub group_delay_s: Vec<(f64, f64)>,
     pub budget_s: f64,
     pub budget: Vec<BudgetLine>,
@@ -98,6 +99,9 @@ pub struct ChainMetrics {
     #[serde(skip)]
     pub detail: Detail,
 }
+
+/// How many frequencies of a chirp's sweep the group delay is measured at.
+pub const CHIRP_GROUP_DELAY_POINTS: usize = 12;
 
 fn finite(x: f64) -> Option<f64> {
     x.is_finite().then_some(x)
@@ -273,6 +277,17 @@ pub fn measure_run(run: &RunOutput) -> Result<ChainMetrics> {
             let f: Vec<f64> = tones.iter().map(|t| t.frequency_hz).collect();
             latency::group_delay_s(cap.source(), cap.output(), grid_rate, &f)
         }
+        w @ Waveform::Chirp { .. } => match latency::ChirpSweep::from_waveform(w) {
+            Some(sweep) => latency::chirp_group_delay_s(
+                cap.source(),
+                cap.output(),
+                grid_rate,
+                cap.timebase.time_s(cap.n0),
+                &sweep,
+                CHIRP_GROUP_DELAY_POINTS,
+            ),
+            None => Vec::new(),
+        },
         _ => Vec::new(),
     };
     // The measured delay is where the correlation peaks: the alignment starts there.

@@ -249,7 +249,7 @@ fn exact_excursion(w: &Waveform, t_s: f64) -> f64 {
 /// Linear law: f(tau) = f0 + (f1 - f0) tau / T, cycles = f0 tau + (f1 - f0) tau^2 / (2 T).
 /// Logarithmic law: f(tau) = f0 k^(tau/T), k = f1/f0, cycles = f0 T / ln k (k^(tau/T) - 1). The logarithmic
 /// law needs f0, f1 > 0; otherwise (or when f0 = f1) the linear law is used.
-fn chirp_cycles(f0: f64, f1: f64, sweep_s: f64, law: ChirpLaw, t_s: f64) -> f64 {
+pub(crate) fn chirp_cycles(f0: f64, f1: f64, sweep_s: f64, law: ChirpLaw, t_s: f64) -> f64 {
     let mut tau = t_s - (t_s / sweep_s).floor() * sweep_s;
     if tau >= sweep_s {
         tau -= sweep_s;
