@@ -187,6 +187,36 @@ pub struct Candidate {
 /// The non-idealities present in the scenario, each with the edits that make it ideal.
 pub fn candidates(text: &ScenarioText, sc: &Scenario) -> Vec<Candidate> {
     let mut out = Vec::new();
+    /// Records one ablation candidate: (mechanism, stage label, change, edits).
+    type Add<'a> = dyn FnMut(&str, &str, &str, Vec<Edit>) + 'a;
+    // The output-amplifier model is shared by the DAC and the amplifier stage: the same two ablations.
+    fn amp_ablations(
+        kind: &str,
+        amp: &crate::scenario::OutputAmpCfg,
+        label: &str,
+        key: &dyn Fn(&str) -> String,
+        add: &mut Add<'_>,
+    ) {
+        if amp.slew_rate_v_per_s.is_some() {
+            add(
+                &format!("{kind}.slew_rate"),
+                label,
+                "slew_rate removed",
+                vec![Edit::Remove(key("slew_rate"))],
+            );
+        }
+        if amp.tau_s.is_some() {
+            add(
+                &format!("{kind}.settling"),
+                label,
+                "settling (tau) removed",
+                vec![
+                    Edit::Remove(key("settling")),
+                    Edit::Remove(key("bandwidth")),
+                ],
+            );
+        }
+    }
     let mut add = |mech: &str, label: &str, what: &str, edits: Vec<Edit>| {
         out.push(Candidate {
             mechanism: mech.to_string(),
@@ -201,25 +231,7 @@ pub fn candidates(text: &ScenarioText, sc: &Scenario) -> Vec<Candidate> {
         let label = st.label.as_str();
         match &st.kind {
             StageKind::Dac(c) => {
-                if c.output.slew_rate_v_per_s.is_some() {
-                    add(
-                        "dac.slew_rate",
-                        label,
-                        "slew_rate removed",
-                        vec![Edit::Remove(key("slew_rate"))],
-                    );
-                }
-                if c.output.tau_s.is_some() {
-                    add(
-                        "dac.settling",
-                        label,
-                        "settling (tau) removed",
-                        vec![
-                            Edit::Remove(key("settling")),
-                            Edit::Remove(key("bandwidth")),
-                        ],
-                    );
-                }
+                amp_ablations("dac", &c.output, label, &key, &mut add);
                 if c.ladder != Ladder::Ideal && c.tolerance > 0.0 {
                     add(
                         "dac.tolerance",
@@ -229,27 +241,7 @@ pub fn candidates(text: &ScenarioText, sc: &Scenario) -> Vec<Candidate> {
                     );
                 }
             }
-            StageKind::Amplifier(c) => {
-                if c.output.slew_rate_v_per_s.is_some() {
-                    add(
-                        "amplifier.slew_rate",
-                        label,
-                        "slew_rate removed",
-                        vec![Edit::Remove(key("slew_rate"))],
-                    );
-                }
-                if c.output.tau_s.is_some() {
-                    add(
-                        "amplifier.settling",
-                        label,
-                        "settling (tau) removed",
-                        vec![
-                            Edit::Remove(key("settling")),
-                            Edit::Remove(key("bandwidth")),
-                        ],
-                    );
-                }
-            }
+            StageKind::Amplifier(c) => amp_ablations("amplifier", &c.output, label, &key, &mut add),
             StageKind::SampleHold(c) => {
                 for (name, v) in [
                     ("aperture_jitter", c.aperture_jitter_s),
