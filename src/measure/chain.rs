@@ -263,7 +263,7 @@ pub fn measure_run(run: &RunOutput) -> Result<ChainMetrics> {
     let budget_s: f64 = budget.iter().map(|b| b.seconds).sum();
     let capture_s = cap.source().len() as f64 / grid_rate;
     let period_s = f0.map(|f| 1.0 / f);
-    let (measured_s, phase_delay_s) = measure_delay(
+    let measured_s = measure_delay(
         cap.source(),
         cap.output(),
         grid_rate,
@@ -271,7 +271,11 @@ pub fn measure_run(run: &RunOutput) -> Result<ChainMetrics> {
         period_s,
         capture_s,
     );
-    let phase_delay_s = phase_delay_s.and_then(finite);
+    // The phase delay needs only the fundamental: the band-limited analysis records (same instants for source
+    // and output) hold it with far fewer samples than the full-rate capture.
+    let phase_delay_s = f0
+        .map(|f| latency::phase_delay_s(src, out, rate, f, measured_s))
+        .and_then(finite);
     let group_delay_s = match &sc.source.waveform {
         Waveform::Multitone { tones } => {
             let f: Vec<f64> = tones.iter().map(|t| t.frequency_hz).collect();
@@ -344,7 +348,7 @@ pub fn measure_run(run: &RunOutput) -> Result<ChainMetrics> {
     })
 }
 
-/// Cross-correlation delay searched around the budget estimate, and the phase delay at the fundamental.
+/// Cross-correlation delay searched around the budget estimate.
 ///
 /// For a periodic source the correlation repeats every period and its magnitude peaks every half period (a
 /// polarity flip looks like half a period of delay), so the search spans a quarter period either side of the
@@ -357,7 +361,7 @@ fn measure_delay(
     budget_s: f64,
     period_s: Option<f64>,
     capture_s: f64,
-) -> (f64, Option<f64>) {
+) -> f64 {
     // Shift the output back by the budget's whole samples, then search +- half a period (or a wide window).
     let shift = (budget_s * rate_hz).round().max(0.0) as usize;
     let shift = shift.min(src.len() / 2);
@@ -368,7 +372,5 @@ fn measure_delay(
     .min((src.len() - shift) as f64 / rate_hz / 4.0);
     let a = &src[..src.len() - shift];
     let b = &out[shift..];
-    let measured = shift as f64 / rate_hz + latency::xcorr_delay_s(a, b, rate_hz, half_window_s);
-    let phase = period_s.map(|p| latency::phase_delay_s(src, out, rate_hz, 1.0 / p, measured));
-    (measured, phase)
+    shift as f64 / rate_hz + latency::xcorr_delay_s(a, b, rate_hz, half_window_s)
 }
