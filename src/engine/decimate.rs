@@ -6,6 +6,8 @@
 //! meters keep below 0.4 x the output rate. The filter's delay is compensated: output sample m stands for the
 //! instant of input sample m x factor.
 
+use crate::measure::window::bessel_i0;
+
 /// One FIR decimation stage.
 struct Single {
     factor: usize,
@@ -204,21 +206,6 @@ fn design(factor: usize, pass: f64, stop: f64) -> Vec<f64> {
     let sum: f64 = taps.iter().sum();
     taps.iter_mut().for_each(|t| *t /= sum);
     taps
-}
-
-/// Modified Bessel function of the first kind, order 0 (power series).
-fn bessel_i0(x: f64) -> f64 {
-    let mut sum = 1.0;
-    let mut term = 1.0;
-    let half = x / 2.0;
-    for k in 1..200 {
-        term *= (half / k as f64) * (half / k as f64);
-        sum += term;
-        if term < sum * 1e-17 {
-            break;
-        }
-    }
-    sum
 }
 
 #[cfg(test)]

@@ -9,6 +9,7 @@
 //! ([`super::latency::xcorr_delay_s`]) refined by two rounds of a three-point parabola on the error itself.
 
 use super::latency::xcorr_delay_s;
+use super::window::bessel_i0;
 
 /// Half-length of the interpolation kernel (taps each side).
 const HALF_TAPS: usize = 32;
@@ -29,21 +30,6 @@ pub struct Fidelity {
     pub gain: f64,
     /// Least-squares offset (V).
     pub offset_v: f64,
-}
-
-/// Zeroth-order modified Bessel function of the first kind (power series; ample for |x| < 30).
-fn bessel_i0(x: f64) -> f64 {
-    let q = 0.25 * x * x;
-    let mut term = 1.0;
-    let mut sum = 1.0;
-    for k in 1..200 {
-        term *= q / (k as f64 * k as f64);
-        sum += term;
-        if term < 1e-17 * sum {
-            break;
-        }
-    }
-    sum
 }
 
 /// Fractional-delay kernel: weights for `ref[i + m]`, m = -HALF_TAPS+1 ..= HALF_TAPS, to evaluate the reference

@@ -121,6 +121,21 @@ pub fn lobe_half_width_bins(kind: WindowKind) -> usize {
     cosine_coefficients(kind).len()
 }
 
+/// Modified Bessel function of the first kind, order 0, by its power series (for Kaiser windows).
+pub fn bessel_i0(x: f64) -> f64 {
+    let q = 0.25 * x * x;
+    let mut term = 1.0;
+    let mut sum = 1.0;
+    for k in 1..200 {
+        term *= q / (k as f64 * k as f64);
+        sum += term;
+        if term < 1e-17 * sum {
+            break;
+        }
+    }
+    sum
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

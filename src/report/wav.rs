@@ -28,6 +28,7 @@ use std::io::Cursor;
 use rayon::prelude::*;
 
 use crate::Error;
+use crate::measure::window::bessel_i0;
 
 /// Sample format of a written WAV file.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -162,20 +163,6 @@ fn sinc(z: f64) -> f64 {
         let a = std::f64::consts::PI * z;
         a.sin() / a
     }
-}
-
-/// Modified Bessel function of the first kind, order zero (power series; ample for arguments up to ~30).
-fn bessel_i0(x: f64) -> f64 {
-    let h = 0.25 * x * x;
-    let mut term = 1.0;
-    let mut sum = 1.0;
-    let mut k = 1.0;
-    while term > 1e-17 * sum {
-        term *= h / (k * k);
-        sum += term;
-        k += 1.0;
-    }
-    sum
 }
 
 fn check_rate(name: &str, rate_hz: f64) -> Result<(), Error> {
