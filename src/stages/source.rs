@@ -306,6 +306,32 @@ impl Biquad {
     }
 }
 
+/// A grid-based source that produces its samples in order: noise and WAV streams. Seeking is shared: back
+/// means restart, forward means generate and discard, so output never depends on how calls are split.
+trait GridStream {
+    /// Grid index of the next sample `generate` will produce.
+    fn next_n(&self) -> u64;
+    fn restart(&mut self);
+    fn generate(&mut self, out: &mut [f64]);
+    /// Scratch buffer kept between seeks (taken and put back, so seeking does not allocate each time).
+    fn scratch(&mut self) -> &mut Vec<f64>;
+
+    fn seek(&mut self, n0: u64) {
+        if n0 < self.next_n() {
+            self.restart();
+        }
+        if n0 > self.next_n() {
+            let mut scratch = std::mem::take(self.scratch());
+            scratch.resize(SKIP_CHUNK, 0.0);
+            while self.next_n() < n0 {
+                let m = ((n0 - self.next_n()) as usize).min(SKIP_CHUNK);
+                self.generate(&mut scratch[..m]);
+            }
+            *self.scratch() = scratch;
+        }
+    }
+}
+
 /// Gaussian noise on the grid, optionally band-limited by a Butterworth low-pass and rescaled so the
 /// rms after band-limiting is the requested one.
 struct NoiseGen {
@@ -316,6 +342,21 @@ struct NoiseGen {
     sections: Vec<Biquad>,
     next_n: u64,
     scratch: Vec<f64>,
+}
+
+impl GridStream for NoiseGen {
+    fn next_n(&self) -> u64 {
+        self.next_n
+    }
+    fn restart(&mut self) {
+        NoiseGen::restart(self)
+    }
+    fn generate(&mut self, out: &mut [f64]) {
+        NoiseGen::generate(self, out)
+    }
+    fn scratch(&mut self) -> &mut Vec<f64> {
+        &mut self.scratch
+    }
 }
 
 impl NoiseGen {
@@ -352,21 +393,6 @@ impl NoiseGen {
             s.s2 = 0.0;
         }
         self.next_n = 0;
-    }
-
-    fn seek(&mut self, n0: u64) {
-        if n0 < self.next_n {
-            self.restart();
-        }
-        if n0 > self.next_n {
-            let mut scratch = std::mem::take(&mut self.scratch);
-            scratch.resize(SKIP_CHUNK, 0.0);
-            while self.next_n < n0 {
-                let m = ((n0 - self.next_n) as usize).min(SKIP_CHUNK);
-                self.generate(&mut scratch[..m]);
-            }
-            self.scratch = scratch;
-        }
     }
 
     fn generate(&mut self, out: &mut [f64]) {
@@ -503,6 +529,21 @@ fn wav_error(path: &Path, e: hound::Error) -> crate::Error {
     }
 }
 
+impl GridStream for WavStream {
+    fn next_n(&self) -> u64 {
+        self.next_n
+    }
+    fn restart(&mut self) {
+        WavStream::restart(self)
+    }
+    fn generate(&mut self, out: &mut [f64]) {
+        WavStream::generate(self, out)
+    }
+    fn scratch(&mut self) -> &mut Vec<f64> {
+        &mut self.scratch
+    }
+}
+
 impl WavStream {
     fn open(
         path: &Path,
@@ -607,21 +648,6 @@ impl WavStream {
         self.out_pos = 0;
         self.out_len = 0;
         self.next_n = 0;
-    }
-
-    fn seek(&mut self, n0: u64) {
-        if n0 < self.next_n {
-            self.restart();
-        }
-        if n0 > self.next_n {
-            let mut scratch = std::mem::take(&mut self.scratch);
-            scratch.resize(SKIP_CHUNK, 0.0);
-            while self.next_n < n0 {
-                let m = ((n0 - self.next_n) as usize).min(SKIP_CHUNK);
-                self.generate(&mut scratch[..m]);
-            }
-            self.scratch = scratch;
-        }
     }
 
     /// Run the resampler until it has output frames ready.
