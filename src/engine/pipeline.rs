@@ -586,7 +586,10 @@ pub fn run(
     let dec_len = (plan.n_total - plan.n_settle) as usize / plan.out_factor + 16;
     let mut src_dec: Vec<f64> = Vec::with_capacity(if exact_source { 0 } else { dec_len });
     let mut out_dec: Vec<f64> = Vec::with_capacity(dec_len);
-    let mut capture: Vec<Vec<f64>> = vec![Vec::with_capacity(plan.capture_len); labels.len()];
+    // One allocation per column up front (`vec![v; n]` would clone away the capacity and grow by copying).
+    let mut capture: Vec<Vec<f64>> = (0..labels.len())
+        .map(|_| Vec::with_capacity(plan.capture_len))
+        .collect();
 
     let end_s = sc.simulation.duration_s;
     let n_blocks = plan.n_total.div_ceil(BLOCK as u64);
@@ -742,10 +745,12 @@ pub fn run(
     }
     dec_out.flush(&mut out_dec);
     if exact_source {
-        let d = plan.out_factor as u64;
-        src_dec = (0..out_dec.len() as u64)
-            .map(|m| chain.source.value_at(tb.time_s(plan.n_settle + m * d)))
-            .collect();
+        src_dec = vec![0.0; out_dec.len()];
+        chain.source.fill_at(
+            tb.time_s(plan.n_settle),
+            plan.out_factor as f64 * tb.dt_s(),
+            &mut src_dec,
+        );
     } else {
         dec_src.flush(&mut src_dec);
     }

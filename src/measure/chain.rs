@@ -255,7 +255,7 @@ pub fn measure_run(run: &RunOutput) -> Result<ChainMetrics> {
         _ => None,
     };
 
-    // ---- latency and fidelity on the full-bandwidth grid capture
+    // ---- latency on the band-limited analysis records, fidelity on the full-bandwidth grid capture
     let cap = &run.capture;
     let grid_rate = cap.timebase.rate_hz;
     let broadband_hz = plan.out_band_hz.min(grid_rate / 4.0) / 10.0;
@@ -263,16 +263,12 @@ pub fn measure_run(run: &RunOutput) -> Result<ChainMetrics> {
     let budget_s: f64 = budget.iter().map(|b| b.seconds).sum();
     let capture_s = cap.source().len() as f64 / grid_rate;
     let period_s = f0.map(|f| 1.0 / f);
-    let measured_s = measure_delay(
-        cap.source(),
-        cap.output(),
-        grid_rate,
-        budget_s,
-        period_s,
-        capture_s,
-    );
-    // The phase delay needs only the fundamental: the band-limited analysis records (same instants for source
-    // and output) hold it with far fewer samples than the full-rate capture.
+    // The delay of what the chain carries: the source and output records hold the analysis band at the same
+    // instants, free of the images and steps above it, in a few thousand samples rather than the capture's
+    // hundreds of thousands; the correlation is interpolated exactly between their samples.
+    let record_s = src.len() as f64 / rate;
+    let measured_s = measure_delay(src, out, rate, budget_s, period_s, record_s);
+    // The phase delay needs only the fundamental, from the same records.
     let phase_delay_s = f0
         .map(|f| latency::phase_delay_s(src, out, rate, f, measured_s))
         .and_then(finite);
@@ -294,12 +290,24 @@ pub fn measure_run(run: &RunOutput) -> Result<ChainMetrics> {
         },
         _ => Vec::new(),
     };
-    // The measured delay is where the correlation peaks: the alignment starts there.
-    let fid = if measured_s.is_finite() && measured_s.abs() < capture_s / 4.0 {
-        fidelity::fidelity_at(cap.source(), cap.output(), grid_rate, measured_s)
-    } else {
+    // The alignment starts at the measured delay. A closed-form source is evaluated exactly at the delayed
+    // instants; a sampled one (noise, WAV) is interpolated from its capture.
+    let source = &run.chain.source;
+    let fid = if !(measured_s.is_finite() && measured_s.abs() < capture_s / 4.0) {
         let max_delay_s = (4.0 * budget_s.abs() + 20.0 / grid_rate).min(capture_s / 4.0);
         fidelity::fidelity(cap.source(), cap.output(), grid_rate, max_delay_s)
+    } else if source.is_exact() {
+        fidelity::fidelity_exact_at(
+            |t0, dt, y| {
+                source.fill_at(t0, dt, y);
+            },
+            cap.output(),
+            cap.timebase.time_s(cap.n0),
+            grid_rate,
+            measured_s,
+        )
+    } else {
+        fidelity::fidelity_at(cap.source(), cap.output(), grid_rate, measured_s)
     };
     let difference_s = measured_s - budget_s;
     let sample_period = plan

@@ -84,97 +84,56 @@ impl Aligner<'_> {
             let taps = &self.reference[start..start + 2 * HALF_TAPS];
             self.y[j] = taps.iter().zip(&k).map(|(r, w)| r * w).sum();
         }
-        let out = &self.output[self.n_lo..self.n_hi];
-        let count = out.len() as f64;
-        let mean_y = self.y.iter().sum::<f64>() / count;
-        let mean_o = out.iter().sum::<f64>() / count;
-        let (mut syy, mut soy) = (0.0, 0.0);
-        for (&yv, &ov) in self.y.iter().zip(out) {
-            let yc = yv - mean_y;
-            syy += yc * yc;
-            soy += yc * (ov - mean_o);
-        }
-        let g = soy / syy;
-        let c = mean_o - g * mean_y;
-        let mut see = 0.0;
-        for (&yv, &ov) in self.y.iter().zip(out) {
-            let e = ov - g * yv - c;
-            see += e * e;
-        }
-        (see / count, g, c, syy / count)
+        least_squares(&self.y, &self.output[self.n_lo..self.n_hi])
     }
 }
 
-/// Full-bandwidth signal-to-error ratio of `output` against `reference` (same uniform grid at
-/// `sample_rate_hz`) after the best sub-sample delay (searched up to `max_delay_s` either way), gain and offset.
-/// See the module notes for the exact definition. Cost: one FFT cross-correlation plus seven passes of a 64-tap
-/// interpolator over the overlap.
-pub fn fidelity(
-    reference: &[f64],
-    output: &[f64],
+/// Least-squares fit of `out ~ g y + c`: `(mean squared error, g, c, variance of y)`.
+fn least_squares(y: &[f64], out: &[f64]) -> (f64, f64, f64, f64) {
+    let count = out.len() as f64;
+    let mean_y = y.iter().sum::<f64>() / count;
+    let mean_o = out.iter().sum::<f64>() / count;
+    let (mut syy, mut soy) = (0.0, 0.0);
+    for (&yv, &ov) in y.iter().zip(out) {
+        let yc = yv - mean_y;
+        syy += yc * yc;
+        soy += yc * (ov - mean_o);
+    }
+    let g = soy / syy;
+    let c = mean_o - g * mean_y;
+    let mut see = 0.0;
+    for (&yv, &ov) in y.iter().zip(out) {
+        let e = ov - g * yv - c;
+        see += e * e;
+    }
+    (see / count, g, c, syy / count)
+}
+
+/// The delay search and the result shared by the sampled and the closed-form references: `fit(d)` aligns the
+/// reference delayed by `d` samples and returns [`least_squares`] of the output on it.
+fn align(
+    d0: f64,
+    n_used: usize,
     sample_rate_hz: f64,
-    max_delay_s: f64,
+    mut fit: impl FnMut(f64) -> (f64, f64, f64, f64),
 ) -> Fidelity {
-    let nan = Fidelity {
-        fidelity_db: f64::NAN,
-        delay_s: f64::NAN,
-        gain: f64::NAN,
-        offset_v: f64::NAN,
-    };
-    let d0_s = xcorr_delay_s(reference, output, sample_rate_hz, max_delay_s);
-    if !d0_s.is_finite() {
-        return nan;
-    }
-    fidelity_at(reference, output, sample_rate_hz, d0_s)
-}
-
-/// [`fidelity`] with the delay already known (e.g. from [`xcorr_delay_s`] run by the caller), so the
-/// cross-correlation is not computed twice.
-pub fn fidelity_at(reference: &[f64], output: &[f64], sample_rate_hz: f64, d0_s: f64) -> Fidelity {
-    let nan = Fidelity {
-        fidelity_db: f64::NAN,
-        delay_s: f64::NAN,
-        gain: f64::NAN,
-        offset_v: f64::NAN,
-    };
-    if !d0_s.is_finite() || reference.len() < 2 || output.len() < 2 || sample_rate_hz <= 0.0 {
-        return nan;
-    }
-    let d0 = d0_s * sample_rate_hz;
-    // Output samples whose interpolation stencil lies inside the reference for every delay in the search range.
-    let first = HALF_TAPS as f64 - 1.0;
-    let shift_min = (-(d0 + SEARCH_SAMPLES + 1.0)).floor();
-    let shift_max = (-(d0 - SEARCH_SAMPLES - 1.0)).floor();
-    let lo = (first - shift_min).max(0.0);
-    let hi = (reference.len() as f64 - HALF_TAPS as f64 - shift_max).min(output.len() as f64);
-    if hi - lo < 16.0 {
-        return nan;
-    }
-    let (n_lo, n_hi) = (lo as usize, hi as usize);
-    let mut al = Aligner {
-        reference,
-        output,
-        n_lo,
-        n_hi,
-        y: vec![0.0; n_hi - n_lo],
-    };
     // The least-squares delay (with the gain free) is the lag that maximises the correlation with the
     // (nearly constant-energy) shifted reference, which xcorr_delay_s already finds between samples; one
     // alignment pass then gives gain, offset and the error. A parabola through three neighbouring fits checks
     // it only when the correlation's lag and the error's minimum could disagree (a short record).
     let mut d = d0;
-    if hi - lo < 4096.0 {
+    if n_used < 4096 {
         let h = 0.05;
-        let (em, ..) = al.fit(d - h);
-        let (e0, ..) = al.fit(d);
-        let (ep, ..) = al.fit(d + h);
+        let (em, ..) = fit(d - h);
+        let (e0, ..) = fit(d);
+        let (ep, ..) = fit(d + h);
         let den = em - 2.0 * e0 + ep;
         if den > 0.0 {
             d += (0.5 * h * (em - ep) / den).clamp(-10.0 * h, 10.0 * h);
         }
         d = d.clamp(d0 - SEARCH_SAMPLES, d0 + SEARCH_SAMPLES);
     }
-    let (mse, g, c, var_y) = al.fit(d);
+    let (mse, g, c, var_y) = fit(d);
     let fidelity_db = if var_y <= 0.0 {
         f64::NAN
     } else if mse == 0.0 {
@@ -188,6 +147,79 @@ pub fn fidelity_at(reference: &[f64], output: &[f64], sample_rate_hz: f64, d0_s:
         gain: g,
         offset_v: c,
     }
+}
+
+const NAN_FIDELITY: Fidelity = Fidelity {
+    fidelity_db: f64::NAN,
+    delay_s: f64::NAN,
+    gain: f64::NAN,
+    offset_v: f64::NAN,
+};
+
+/// [`fidelity_at`] against a reference known at any instant (a closed-form source): `reference(t0, dt, y)`
+/// fills `y[j]` with the reference at `t0 + j dt`. `output[n]` is at `output_t0_s + n / sample_rate_hz`. The
+/// delayed reference is evaluated exactly instead of interpolated, so every output sample takes part and the
+/// cost is one evaluation of the reference per sample and delay tried.
+pub fn fidelity_exact_at(
+    reference: impl Fn(f64, f64, &mut [f64]),
+    output: &[f64],
+    output_t0_s: f64,
+    sample_rate_hz: f64,
+    d0_s: f64,
+) -> Fidelity {
+    if !d0_s.is_finite() || output.len() < 16 || sample_rate_hz <= 0.0 {
+        return NAN_FIDELITY;
+    }
+    let dt = 1.0 / sample_rate_hz;
+    let mut y = vec![0.0; output.len()];
+    align(d0_s * sample_rate_hz, output.len(), sample_rate_hz, |d| {
+        reference(output_t0_s - d * dt, dt, &mut y);
+        least_squares(&y, output)
+    })
+}
+
+/// Full-bandwidth signal-to-error ratio of `output` against `reference` (same uniform grid at
+/// `sample_rate_hz`) after the best sub-sample delay (searched up to `max_delay_s` either way), gain and offset.
+/// See the module notes for the exact definition. Cost: one FFT cross-correlation plus seven passes of a 64-tap
+/// interpolator over the overlap.
+pub fn fidelity(
+    reference: &[f64],
+    output: &[f64],
+    sample_rate_hz: f64,
+    max_delay_s: f64,
+) -> Fidelity {
+    let d0_s = xcorr_delay_s(reference, output, sample_rate_hz, max_delay_s);
+    if !d0_s.is_finite() {
+        return NAN_FIDELITY;
+    }
+    fidelity_at(reference, output, sample_rate_hz, d0_s)
+}
+
+/// [`fidelity`] with the delay already known (e.g. from [`xcorr_delay_s`] run by the caller), so the
+/// cross-correlation is not computed twice.
+pub fn fidelity_at(reference: &[f64], output: &[f64], sample_rate_hz: f64, d0_s: f64) -> Fidelity {
+    if !d0_s.is_finite() || reference.len() < 2 || output.len() < 2 || sample_rate_hz <= 0.0 {
+        return NAN_FIDELITY;
+    }
+    let d0 = d0_s * sample_rate_hz;
+    // Output samples whose interpolation stencil lies inside the reference for every delay in the search range.
+    let first = HALF_TAPS as f64 - 1.0;
+    let shift_min = (-(d0 + SEARCH_SAMPLES + 1.0)).floor();
+    let shift_max = (-(d0 - SEARCH_SAMPLES - 1.0)).floor();
+    let lo = (first - shift_min).max(0.0);
+    let hi = (reference.len() as f64 - HALF_TAPS as f64 - shift_max).min(output.len() as f64);
+    if hi - lo < 16.0 {
+        return NAN_FIDELITY;
+    }
+    let (n_lo, n_hi) = (lo as usize, hi as usize);
+    let mut al = Aligner {
+        reference,
+        output,
+        n_lo,
+        n_hi,
+        y: vec![0.0; n_hi - n_lo],
+    };
+    align(d0, n_hi - n_lo, sample_rate_hz, |d| al.fit(d))
 }
 
 #[cfg(test)]

@@ -5,8 +5,8 @@
 
 use std::f64::consts::{PI, TAU};
 
+use super::spectrum::{plan_forward, plan_inverse};
 use num_complex::Complex64;
-use realfft::RealFftPlanner;
 
 use super::sinefit::{fit_multitone, fit3};
 use crate::scenario::{ChirpLaw, Waveform};
@@ -67,9 +67,8 @@ impl CrossCorrelation {
             0
         };
         let len = fft_len(input.len().max(output.len()) + max_lag + 1);
-        let mut planner = RealFftPlanner::<f64>::new();
-        let fwd = planner.plan_fft_forward(len);
-        let inv = planner.plan_fft_inverse(len);
+        let fwd = plan_forward(len);
+        let inv = plan_inverse(len);
         let mut buf = vec![0.0; len];
         let mut spec_in = fwd.make_output_vec();
         let mut spec_out = fwd.make_output_vec();
@@ -490,6 +489,7 @@ mod tests {
     use rand::SeedableRng;
     use rand_chacha::ChaCha8Rng;
     use rand_distr::{Distribution, Normal};
+    use realfft::RealFftPlanner;
 
     /// White Gaussian noise with its Nyquist bin removed, and the same record delayed by `delay` samples
     /// exactly (circularly, in the frequency domain: X_k e^{-i 2 pi k delay / n}).

@@ -13,8 +13,6 @@
 
 use std::f64::consts::TAU;
 
-use realfft::RealFftPlanner;
-
 /// Samples between exact recomputations of the rotation recurrence (bounds its rounding drift to ~1e-13).
 const RESET_EVERY: usize = 1024;
 
@@ -461,8 +459,7 @@ pub fn estimate_frequency_hz(x: &[f64], sample_rate_hz: f64) -> f64 {
         .enumerate()
         .map(|(i, v)| (v - mean) * (0.5 - 0.5 * (TAU * i as f64 / n as f64).cos()))
         .collect();
-    let mut planner = RealFftPlanner::<f64>::new();
-    let fft = planner.plan_fft_forward(n);
+    let fft = super::spectrum::plan_forward(n);
     let mut spec = fft.make_output_vec();
     if fft.process(&mut buf, &mut spec).is_err() {
         return f64::NAN;

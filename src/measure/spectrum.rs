@@ -7,10 +7,11 @@
 //! noise bins and dividing by ENBW gives the noise power in their bandwidth (the window's noise gain is ENBW times
 //! its tone gain). DC is kept in bin 0 (a constant c reads c^2); the metrics leave its lobe out.
 
+use std::cell::RefCell;
 use std::sync::Arc;
 
 use num_complex::Complex;
-use realfft::{RealFftPlanner, RealToComplex};
+use realfft::{ComplexToReal, RealFftPlanner, RealToComplex};
 
 use crate::error::{Error, Result};
 use crate::measure::window::Window;
@@ -18,6 +19,66 @@ use crate::scenario::WindowKind;
 
 /// Shortest record the analyser accepts (samples).
 pub const MIN_RECORD_LEN: usize = 16;
+
+/// How many plans of each direction a thread keeps (most recently used first).
+const PLAN_CACHE: usize = 8;
+
+/// The plans a thread made last, by length.
+#[derive(Default)]
+struct PlanCache {
+    forward: Vec<(usize, Arc<dyn RealToComplex<f64>>)>,
+    inverse: Vec<(usize, Arc<dyn ComplexToReal<f64>>)>,
+    windows: Vec<((WindowKind, usize), Arc<Window>)>,
+}
+
+thread_local! {
+    /// The runs of a study analyse records of the same lengths again and again: keeping the last few plans per
+    /// thread computes twiddle factors once per length, not once per run. Bounded (a sweep over durations
+    /// meets a new length at every point), unlike a planner's own cache.
+    static PLANS: RefCell<PlanCache> = RefCell::new(PlanCache::default());
+}
+
+/// Look `n` up in a most-recently-used list, making and inserting the plan on a miss.
+fn cached<K: PartialEq + Copy, P: Clone>(
+    list: &mut Vec<(K, P)>,
+    n: K,
+    make: impl FnOnce() -> P,
+) -> P {
+    let plan = match list.iter().position(|(m, _)| *m == n) {
+        Some(i) => list.remove(i).1,
+        None => make(),
+    };
+    list.insert(0, (n, plan.clone()));
+    list.truncate(PLAN_CACHE);
+    plan
+}
+
+/// A forward real FFT plan of length `n`, shared with recent callers on this thread.
+pub(crate) fn plan_forward(n: usize) -> Arc<dyn RealToComplex<f64>> {
+    PLANS.with(|c| {
+        cached(&mut c.borrow_mut().forward, n, || {
+            RealFftPlanner::new().plan_fft_forward(n)
+        })
+    })
+}
+
+/// An inverse real FFT plan of length `n`, shared with recent callers on this thread.
+pub(crate) fn plan_inverse(n: usize) -> Arc<dyn ComplexToReal<f64>> {
+    PLANS.with(|c| {
+        cached(&mut c.borrow_mut().inverse, n, || {
+            RealFftPlanner::new().plan_fft_inverse(n)
+        })
+    })
+}
+
+/// A window of `kind` and length `n`, shared with recent callers on this thread.
+fn shared_window(kind: WindowKind, n: usize) -> Arc<Window> {
+    PLANS.with(|c| {
+        cached(&mut c.borrow_mut().windows, (kind, n), || {
+            Arc::new(Window::new(kind, n))
+        })
+    })
+}
 
 /// A one-sided power spectrum (see the module doc for its scaling).
 #[derive(Debug, Clone, PartialEq)]
@@ -99,7 +160,7 @@ fn db_floor(ratio: f64) -> f64 {
 /// and reused by every call.
 pub struct SpectrumAnalyzer {
     n: usize,
-    window: Window,
+    window: Arc<Window>,
     enbw_bins: f64,
     coherent_gain: f64,
     fft: Arc<dyn RealToComplex<f64>>,
@@ -125,8 +186,8 @@ impl SpectrumAnalyzer {
                 "spectrum analysis needs at least {MIN_RECORD_LEN} samples, got {n}"
             )));
         }
-        let window = Window::new(kind, n);
-        let fft = RealFftPlanner::<f64>::new().plan_fft_forward(n);
+        let window = shared_window(kind, n);
+        let fft = plan_forward(n);
         let input = fft.make_input_vec();
         let output = fft.make_output_vec();
         let scratch = fft.make_scratch_vec();

@@ -118,6 +118,41 @@ impl SourceGen {
         }
     }
 
+    /// For closed-form sources, fill `out[j]` with the value at `t0_s + j dt_s` (any instants, e.g. a grid
+    /// shifted by a fraction of a step) and return true; noise and WAV sources leave `out` alone and return
+    /// false. A sine uses a rotation recurrence restarted exactly every 1024 samples.
+    pub fn fill_at(&self, t0_s: f64, dt_s: f64, out: &mut [f64]) -> bool {
+        let offset = self.offset_v;
+        match &self.kind {
+            Kind::Exact(Waveform::Sine {
+                frequency_hz,
+                amplitude_v,
+                phase_rad,
+            }) => {
+                let (ds, dc) = (2.0 * PI * *frequency_hz * dt_s).sin_cos();
+                for (b, chunk) in out.chunks_mut(1024).enumerate() {
+                    let t = t0_s + (b * 1024) as f64 * dt_s;
+                    let (mut s, mut c) =
+                        (2.0 * PI * cycles_frac(*frequency_hz, t) + *phase_rad).sin_cos();
+                    for y in chunk.iter_mut() {
+                        *y = offset + *amplitude_v * s;
+                        let s1 = s * dc + c * ds;
+                        c = c * dc - s * ds;
+                        s = s1;
+                    }
+                }
+                true
+            }
+            Kind::Exact(w) => {
+                for (j, y) in out.iter_mut().enumerate() {
+                    *y = offset + exact_excursion(w, t0_s + j as f64 * dt_s);
+                }
+                true
+            }
+            Kind::Noise(_) | Kind::Wav(_) => false,
+        }
+    }
+
     /// Fill `out` with grid samples `n0 .. n0 + out.len()` (sample n at `n / rate` s).
     ///
     /// Closed-form kinds may be asked for any `n0`. Noise and WAV sources keep state: call them with
@@ -852,6 +887,42 @@ mod tests {
                 );
             }
         }
+    }
+
+    #[test]
+    fn fill_at_matches_value_at_off_the_grid() {
+        let sine = Waveform::Sine {
+            frequency_hz: 1234.5,
+            amplitude_v: 2.0,
+            phase_rad: 0.3,
+        };
+        let square = Waveform::Square {
+            frequency_hz: 700.0,
+            amplitude_v: 1.0,
+            duty: 0.5,
+        };
+        for w in [sine, square] {
+            let g = gen_for(w, 0.25, 1.0e6, 0);
+            let mut buf = vec![0.0; 5000];
+            let (t0, dt) = (0.012_345_678_9, 0.37e-6);
+            assert!(g.fill_at(t0, dt, &mut buf));
+            for (j, v) in buf.iter().enumerate() {
+                let want = g.value_at(t0 + j as f64 * dt);
+                assert!((v - want).abs() < 1e-11, "j {j}: {v} vs {want}");
+            }
+        }
+        let noise = gen_for(
+            Waveform::Noise {
+                rms_v: 1.0,
+                bandwidth_hz: Some(1.0e3),
+            },
+            0.0,
+            1.0e6,
+            0,
+        );
+        let mut buf = vec![7.0; 4];
+        assert!(!noise.fill_at(0.0, 1e-6, &mut buf));
+        assert_eq!(buf, vec![7.0; 4]);
     }
 
     #[test]
