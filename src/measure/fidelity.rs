@@ -89,24 +89,55 @@ impl Aligner<'_> {
 }
 
 /// Least-squares fit of `out ~ g y + c`: `(mean squared error, g, c, variance of y)`.
+///
+/// Two passes with four partial sums each (so the additions overlap): the first sums about the first samples
+/// (which keeps a large common offset from cancelling digits), the second sums the error itself, which keeps
+/// its precision however small the error is.
 fn least_squares(y: &[f64], out: &[f64]) -> (f64, f64, f64, f64) {
-    let count = out.len() as f64;
-    let mean_y = y.iter().sum::<f64>() / count;
-    let mean_o = out.iter().sum::<f64>() / count;
-    let (mut syy, mut soy) = (0.0, 0.0);
-    for (&yv, &ov) in y.iter().zip(out) {
-        let yc = yv - mean_y;
-        syy += yc * yc;
-        soy += yc * (ov - mean_o);
+    let n = y.len().min(out.len());
+    let (y, out) = (&y[..n], &out[..n]);
+    let count = n as f64;
+    let (y0, o0) = (y[0], out[0]);
+    let (mut sy, mut so, mut syy, mut soy) = ([0.0f64; 4], [0.0f64; 4], [0.0f64; 4], [0.0f64; 4]);
+    let (yq, oq) = (y.chunks_exact(4), out.chunks_exact(4));
+    let (yr, or) = (yq.remainder(), oq.remainder());
+    for (a, b) in yq.zip(oq) {
+        for k in 0..4 {
+            let (yc, oc) = (a[k] - y0, b[k] - o0);
+            sy[k] += yc;
+            so[k] += oc;
+            syy[k] += yc * yc;
+            soy[k] += yc * oc;
+        }
     }
-    let g = soy / syy;
-    let c = mean_o - g * mean_y;
-    let mut see = 0.0;
-    for (&yv, &ov) in y.iter().zip(out) {
-        let e = ov - g * yv - c;
-        see += e * e;
+    for (k, (a, b)) in yr.iter().zip(or).enumerate() {
+        let (yc, oc) = (a - y0, b - o0);
+        sy[k] += yc;
+        so[k] += oc;
+        syy[k] += yc * yc;
+        soy[k] += yc * oc;
     }
-    (see / count, g, c, syy / count)
+    let total = |v: [f64; 4]| (v[0] + v[1]) + (v[2] + v[3]);
+    let (sy, so, syy, soy) = (total(sy), total(so), total(syy), total(soy));
+    let (my, mo) = (sy / count, so / count);
+    let var_y = (syy / count - my * my).max(0.0);
+    let cov = soy / count - my * mo;
+    let g = cov / var_y;
+    let c = (mo + o0) - g * (my + y0);
+    let mut see = [0.0f64; 4];
+    let (yq, oq) = (y.chunks_exact(4), out.chunks_exact(4));
+    let (yr, or) = (yq.remainder(), oq.remainder());
+    for (a, b) in yq.zip(oq) {
+        for k in 0..4 {
+            let e = b[k] - g * a[k] - c;
+            see[k] += e * e;
+        }
+    }
+    for (k, (a, b)) in yr.iter().zip(or).enumerate() {
+        let e = b - g * a - c;
+        see[k] += e * e;
+    }
+    (total(see) / count, g, c, var_y)
 }
 
 /// The delay search and the result shared by the sampled and the closed-form references: `fit(d)` aligns the

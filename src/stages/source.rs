@@ -129,18 +129,13 @@ impl SourceGen {
                 amplitude_v,
                 phase_rad,
             }) => {
-                let (ds, dc) = (2.0 * PI * *frequency_hz * dt_s).sin_cos();
-                for (b, chunk) in out.chunks_mut(1024).enumerate() {
-                    let t = t0_s + (b * 1024) as f64 * dt_s;
-                    let (mut s, mut c) =
-                        (2.0 * PI * cycles_frac(*frequency_hz, t) + *phase_rad).sin_cos();
-                    for y in chunk.iter_mut() {
-                        *y = offset + *amplitude_v * s;
-                        let s1 = s * dc + c * ds;
-                        c = c * dc - s * ds;
-                        s = s1;
-                    }
-                }
+                fill_sine(
+                    out,
+                    offset,
+                    *amplitude_v,
+                    2.0 * PI * *frequency_hz * dt_s,
+                    |j| 2.0 * PI * cycles_frac(*frequency_hz, t0_s + j as f64 * dt_s) + *phase_rad,
+                );
                 true
             }
             Kind::Exact(w) => {
@@ -167,18 +162,18 @@ impl SourceGen {
                 amplitude_v,
                 phase_rad,
             }) => {
-                // Rotation recurrence, started exactly at the block's first sample (so rounding cannot build
-                // up beyond one block, about 1e-13 relative), instead of a sine per sample.
-                let t0 = self.timebase.time_s(n0);
-                let ph0 = 2.0 * PI * cycles_frac(*frequency_hz, t0) + *phase_rad;
-                let (mut s, mut c) = ph0.sin_cos();
-                let (ds, dc) = (2.0 * PI * *frequency_hz * self.timebase.dt_s()).sin_cos();
-                for y in out.iter_mut() {
-                    *y = offset + *amplitude_v * s;
-                    let s1 = s * dc + c * ds;
-                    c = c * dc - s * ds;
-                    s = s1;
-                }
+                // Rotation recurrences restarted exactly every RESTART samples (so rounding cannot build up,
+                // about 1e-13 relative), instead of a sine per sample.
+                let tb = self.timebase;
+                fill_sine(
+                    out,
+                    offset,
+                    *amplitude_v,
+                    2.0 * PI * *frequency_hz * tb.dt_s(),
+                    |j| {
+                        2.0 * PI * cycles_frac(*frequency_hz, tb.time_s(n0 + j as u64)) + *phase_rad
+                    },
+                );
             }
             Kind::Exact(w) => {
                 for (i, y) in out.iter_mut().enumerate() {
@@ -200,6 +195,37 @@ impl SourceGen {
                     *y += offset;
                 }
             }
+        }
+    }
+}
+
+/// Samples between exact restarts of [`fill_sine`]'s recurrences.
+const RESTART: usize = 1024;
+
+/// `out[j] = offset + amp sin(phase_at(j))` for a phase advancing by `w_rad` per sample: four interleaved
+/// rotations (sample j by rotator j mod 4, each advancing 4 w per step) so that the recurrences overlap instead
+/// of waiting on each other, restarted exactly from `phase_at` every [`RESTART`] samples.
+fn fill_sine(out: &mut [f64], offset: f64, amp: f64, w_rad: f64, phase_at: impl Fn(usize) -> f64) {
+    let (s1, c1) = w_rad.sin_cos();
+    let (s4, c4) = (4.0 * w_rad).sin_cos();
+    for (b, chunk) in out.chunks_mut(RESTART).enumerate() {
+        let (mut s, mut c) = ([0.0f64; 4], [0.0f64; 4]);
+        (s[0], c[0]) = phase_at(b * RESTART).sin_cos();
+        for k in 1..4 {
+            s[k] = s[k - 1] * c1 + c[k - 1] * s1;
+            c[k] = c[k - 1] * c1 - s[k - 1] * s1;
+        }
+        let mut quads = chunk.chunks_exact_mut(4);
+        for q in &mut quads {
+            for k in 0..4 {
+                q[k] = offset + amp * s[k];
+                let sn = s[k] * c4 + c[k] * s4;
+                c[k] = c[k] * c4 - s[k] * s4;
+                s[k] = sn;
+            }
+        }
+        for (k, y) in quads.into_remainder().iter_mut().enumerate() {
+            *y = offset + amp * s[k];
         }
     }
 }
@@ -886,6 +912,29 @@ mod tests {
                     "t = {t}: got {got}, want {want}"
                 );
             }
+        }
+    }
+
+    #[test]
+    fn sine_fill_matches_value_at_over_many_restarts() {
+        let mut g = gen_for(
+            Waveform::Sine {
+                frequency_hz: 19_076.75,
+                amplitude_v: 2.0,
+                phase_rad: -0.7,
+            },
+            2.5,
+            10.0e6,
+            0,
+        );
+        // An odd length and a late start: every rotator, the remainder and many restarts take part.
+        let mut buf = vec![0.0; 100_003];
+        let n0 = 12_345_679u64; // 1.23 s: the instants n / rate are exact to about 2e-16 s
+        g.fill(n0, &mut buf);
+        for (i, v) in buf.iter().enumerate() {
+            // value_at's own instant n / rate is rounded to about 1e-16 s: 2 pi f A x 1e-16 s = 2.4e-11 V.
+            let want = g.value_at((n0 + i as u64) as f64 / 10.0e6);
+            assert!((v - want).abs() < 1e-10, "i {i}: {v} vs {want}");
         }
     }
 
