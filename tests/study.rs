@@ -5,8 +5,9 @@ mod common;
 use std::fs;
 use std::path::Path;
 use std::process::Output;
+use std::time::Duration;
 
-use common::{json, ok, run_in, stderr, stdout};
+use common::{bin, interrupt_after, json, ok, run_in, stderr, stdout};
 
 /// A short 10-bit chain on a 1 MHz grid: hold, SAR at 50 kSPS, DAC with slew and settling, 2nd-order filter.
 const SMALL_CHAIN: &str = r#"
@@ -441,11 +442,20 @@ fn merged_sweep_shards_equal_one_run_and_foreign_or_missing_shards_are_refused()
     let o = run_in(d.path(), &["merge", &s1, &s3, "--out", "bad1"]);
     assert_eq!(o.status.code(), Some(2), "{}", stderr(&o));
     assert!(
-        stderr(&o).contains("3 of 9 runs are in no folder (runs 1, 4, 7)"),
+        stderr(&o).contains("3 of 9 points are in no folder (points 1, 4, 7)"),
         "{}",
         stderr(&o)
     );
     assert!(!d.path().join("bad1").exists());
+    // A shard given twice: the point it holds twice is named.
+    let o = run_in(d.path(), &["merge", &s1, &s2, &s3, &s1, "--out", "bad0"]);
+    assert_eq!(o.status.code(), Some(2), "{}", stderr(&o));
+    assert!(
+        stderr(&o).contains("merge: point 0 is in both"),
+        "{}",
+        stderr(&o)
+    );
+    assert!(!d.path().join("bad0").exists());
     // A shard of another sweep (a different range): refused, naming what differs.
     let o = sweep("5 kHz", &["--shard", "2/3", "--out", "other"]);
     ok(&o);
@@ -470,4 +480,62 @@ fn merged_sweep_shards_equal_one_run_and_foreign_or_missing_shards_are_refused()
         "{}",
         stderr(&o)
     );
+}
+
+#[test]
+fn ctrl_c_stops_a_sweep_keeping_the_first_points_and_says_how_many() {
+    let d = tempfile::tempdir().unwrap();
+    fs::write(d.path().join("c.toml"), SMALL_CHAIN).unwrap();
+    let n = 3000u64;
+    let points = n.to_string();
+    // A point takes a few milliseconds: after 1.5 s some are done and most are not.
+    let (status, err) = interrupt_after(
+        bin().current_dir(d.path()).args([
+            "sweep",
+            "c.toml",
+            "--vary",
+            "source.frequency=1 kHz..4 kHz",
+            "--points",
+            &points,
+            "--threads",
+            "1",
+            "--quiet",
+            "--out",
+            "o",
+        ]),
+        Duration::from_millis(1500),
+    );
+    assert_eq!(status.code(), Some(130), "{err}");
+    let out = d.path().join("o");
+    let j = json(&out.join("sweep.json"));
+    let m = j["points_done"].as_u64().unwrap();
+    assert!((1..n).contains(&m), "{m}");
+    let note = format!("interrupted after {m} of {n} points");
+    assert_eq!(j["interrupted"], note.as_str());
+    assert!(err.contains(&note), "{err}");
+    assert_eq!(j["rows"].as_array().unwrap().len() as u64, m);
+    // The finished points are the first ones of the grid, in order.
+    let (header, rows) = csv_rows(&out.join("sweep.csv"));
+    assert_eq!(rows.len() as u64, m);
+    let f = col(&header, "source.frequency");
+    for (i, r) in rows.iter().enumerate() {
+        let want = 1e3 + 3e3 * i as f64 / (n - 1) as f64;
+        let got: f64 = r[f].parse().unwrap();
+        assert!(
+            (got - want).abs() <= 1e-9 * want,
+            "row {i}: {got} against {want}"
+        );
+    }
+    for stem in ["sweep-enob", "sweep-sinad", "sweep-gain", "sweep-fidelity"] {
+        assert!(out.join(format!("{stem}.svg")).exists(), "{stem}");
+    }
+    // An interrupted folder does not merge as a whole sweep.
+    let o = run_in(d.path(), &["merge", "o", "--out", "m"]);
+    assert_eq!(o.status.code(), Some(2), "{}", stderr(&o));
+    let e = stderr(&o);
+    assert!(
+        e.contains(&format!("{} of {n} points are in no folder", n - m)) && e.contains(&note),
+        "{e}"
+    );
+    assert!(!d.path().join("m").exists());
 }
