@@ -281,11 +281,9 @@ fn a_chord_through_four_bits_can_be_heard() {
         &["audio", "chord", "--out", "listen", "--seconds", "1"],
     ));
     fs::create_dir(d.path().join("scenarios")).unwrap();
-    let sc = fs::read_to_string(
-        repo("scenarios/four-bit-listen.toml"),
-    )
-    .unwrap()
-    .replace("duration = \"4 s\"", "duration = \"1 s\"");
+    let sc = fs::read_to_string(repo("scenarios/four-bit-listen.toml"))
+        .unwrap()
+        .replace("duration = \"4 s\"", "duration = \"1 s\"");
     fs::write(d.path().join("scenarios/four-bit-listen.toml"), sc).unwrap();
     ok(&run_in(
         d.path(),

@@ -62,8 +62,7 @@ pub fn read(dir: &Path, f: &str) -> Vec<u8> {
 
 /// A JSON file, parsed.
 pub fn json(path: &Path) -> serde_json::Value {
-    let text = std::fs::read_to_string(path)
-        .unwrap_or_else(|e| panic!("{}: {e}", path.display()));
+    let text = std::fs::read_to_string(path).unwrap_or_else(|e| panic!("{}: {e}", path.display()));
     serde_json::from_str(&text).unwrap_or_else(|e| panic!("{}: {e}", path.display()))
 }
 
