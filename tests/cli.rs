@@ -1,38 +1,16 @@
 //! Integration tests: they run the built `convchain` binary like a user would.
 
+mod common;
+
 use std::fs;
-use std::path::{Path, PathBuf};
-use std::process::{Command, Output};
 
-fn bin() -> Command {
-    Command::new(env!("CARGO_BIN_EXE_convchain"))
-}
-
-fn run_in(dir: &Path, args: &[&str]) -> Output {
-    bin()
-        .current_dir(dir)
-        .args(args)
-        .output()
-        .expect("binary runs")
-}
-
-fn repo(path: &str) -> PathBuf {
-    Path::new(env!("CARGO_MANIFEST_DIR")).join(path)
-}
-
-fn json(path: &Path) -> serde_json::Value {
-    serde_json::from_str(&fs::read_to_string(path).unwrap()).unwrap()
-}
-
-fn stderr(o: &Output) -> String {
-    String::from_utf8_lossy(&o.stderr).to_string()
-}
+use common::{json, ok, repo, run_in, stderr};
 
 #[test]
 fn run_with_no_scenario_writes_the_report_and_the_waveforms() {
     let d = tempfile::tempdir().unwrap();
     let o = run_in(d.path(), &["run", "--quiet"]);
-    assert!(o.status.success(), "{}", stderr(&o));
+    ok(&o);
     let out = d.path().join("out/studio-interface");
     let r = json(&out.join("report.json"));
     for key in ["scenario", "chain", "adc", "output", "latency"] {
@@ -86,7 +64,7 @@ fn the_same_scenario_and_seed_give_byte_identical_outputs() {
     let sc = sc.to_str().unwrap();
     for out in ["a", "b"] {
         let o = run_in(d.path(), &["run", sc, "--quiet", "--out", out]);
-        assert!(o.status.success(), "{}", stderr(&o));
+        ok(&o);
     }
     for f in ["report.json", "waveforms.csv"] {
         let a = fs::read(d.path().join("a").join(f)).unwrap();
@@ -143,7 +121,7 @@ fn ideal_chain_latency_is_conversion_time_plus_half_a_sample_period() {
     let d = tempfile::tempdir().unwrap();
     fs::write(d.path().join("ideal.toml"), IDEAL_CHAIN).unwrap();
     let o = run_in(d.path(), &["run", "ideal.toml", "--quiet"]);
-    assert!(o.status.success(), "{}", stderr(&o));
+    ok(&o);
     let r = json(&d.path().join("out/ideal/report.json"));
     let expect = 8e-6 + 0.5 / 100e3;
     let period = 1.0 / 100e3;
@@ -198,7 +176,7 @@ fn check_validates_without_writing() {
     let d = tempfile::tempdir().unwrap();
     let sc = repo("scenarios/river-gauge.toml");
     let o = run_in(d.path(), &["check", sc.to_str().unwrap()]);
-    assert!(o.status.success(), "{}", stderr(&o));
+    ok(&o);
     assert!(String::from_utf8_lossy(&o.stdout).contains("ok"));
     assert_eq!(fs::read_dir(d.path()).unwrap().count(), 0);
 }
@@ -207,11 +185,11 @@ fn check_validates_without_writing() {
 fn init_writes_a_starter_that_checks_and_never_overwrites() {
     let d = tempfile::tempdir().unwrap();
     let o = run_in(d.path(), &["init", "mine.toml", "--out", "work"]);
-    assert!(o.status.success(), "{}", stderr(&o));
+    ok(&o);
     let path = d.path().join("work/mine.toml");
     assert!(path.exists());
     let o = run_in(d.path(), &["check", path.to_str().unwrap()]);
-    assert!(o.status.success(), "{}", stderr(&o));
+    ok(&o);
     fs::write(&path, "my own notes").unwrap();
     let o = run_in(d.path(), &["init", "mine.toml", "--out", "work"]);
     assert_eq!(o.status.code(), Some(2));
@@ -236,7 +214,7 @@ fn json_flag_prints_the_report() {
     let d = tempfile::tempdir().unwrap();
     fs::write(d.path().join("ideal.toml"), IDEAL_CHAIN).unwrap();
     let o = run_in(d.path(), &["run", "ideal.toml", "--json"]);
-    assert!(o.status.success(), "{}", stderr(&o));
+    ok(&o);
     let v: serde_json::Value = serde_json::from_slice(&o.stdout).unwrap();
     assert_eq!(v["scenario"]["name"], "ideal");
 }
@@ -246,7 +224,7 @@ fn static_measures_the_adc_and_the_dac() {
     let d = tempfile::tempdir().unwrap();
     fs::write(d.path().join("ideal.toml"), IDEAL_CHAIN).unwrap();
     let o = run_in(d.path(), &["static", "ideal.toml", "--quiet"]);
-    assert!(o.status.success(), "{}", stderr(&o));
+    ok(&o);
     let r = json(&d.path().join("out/ideal/static.json"));
     for part in ["adc", "dac"] {
         let s = &r["static"][part];
@@ -296,7 +274,7 @@ fn a_live_input_converter_budget_matches_the_measured_delay() {
             "o",
         ],
     );
-    assert!(o.status.success(), "{}", stderr(&o));
+    ok(&o);
     let r: serde_json::Value = serde_json::from_slice(&o.stdout).unwrap();
     let diff = r["latency"]["difference_s"].as_f64().unwrap();
     assert!(diff.abs() < 0.02 * 450e-6, "measured - budget = {diff:e} s");

@@ -1,21 +1,12 @@
 //! Plots, listening files and reports of a run, checked through the files a user gets (and the library for
 //! what pictures contain).
 
+mod common;
+
 use std::fs;
 use std::path::Path;
-use std::process::{Command, Output};
 
-fn run_in(dir: &Path, args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_convchain"))
-        .current_dir(dir)
-        .args(args)
-        .output()
-        .expect("binary runs")
-}
-
-fn ok(o: &Output) {
-    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
-}
+use common::{ok, repo, run_in};
 
 /// An ideal N-bit chain at 48 kSPS on a 4.8 MHz grid: sine -> sar_adc -> dac (zero-order hold), nothing else.
 fn ideal_chain(bits: u32, amplitude_v: f64, extra_adc: &str) -> String {
@@ -290,11 +281,9 @@ fn a_chord_through_four_bits_can_be_heard() {
         &["audio", "chord", "--out", "listen", "--seconds", "1"],
     ));
     fs::create_dir(d.path().join("scenarios")).unwrap();
-    let sc = fs::read_to_string(
-        Path::new(env!("CARGO_MANIFEST_DIR")).join("scenarios/four-bit-listen.toml"),
-    )
-    .unwrap()
-    .replace("duration = \"4 s\"", "duration = \"1 s\"");
+    let sc = fs::read_to_string(repo("scenarios/four-bit-listen.toml"))
+        .unwrap()
+        .replace("duration = \"4 s\"", "duration = \"1 s\"");
     fs::write(d.path().join("scenarios/four-bit-listen.toml"), sc).unwrap();
     ok(&run_in(
         d.path(),

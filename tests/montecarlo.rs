@@ -1,17 +1,18 @@
 //! Monte-Carlo studies, shards, merge and Ctrl-C, end to end.
 
-use std::path::{Path, PathBuf};
-use std::process::{Command, Output};
+mod common;
+
+use std::path::PathBuf;
 use std::sync::atomic::AtomicBool;
-use std::time::{Duration, Instant};
+use std::time::Duration;
+
+use common::{bin, interrupt_after, ok, read, run, stderr};
 
 use convchain::scenario::overrides::ScenarioText;
 use convchain::study::montecarlo::{McOptions, Requirement, run_rows};
 use convchain::study::shard::RowSet;
 use rand::{RngExt, SeedableRng};
 use rand_chacha::ChaCha8Rng;
-
-const BIN: &str = env!("CARGO_BIN_EXE_convchain");
 
 /// An 8-bit converter pair whose DAC is a current-mode R-2R ladder of the given tolerance (uniform, the
 /// default distribution).
@@ -291,24 +292,6 @@ fn r2r_ladder_monte_carlo_matches_a_nodal_oracle_at_1_and_0_1_percent() {
 // CLI: threads, shards, merge, requirements, Ctrl-C
 // ------------------------------------------------------------------------------------------------------
 
-fn run_cli(args: &[&str]) -> Output {
-    Command::new(BIN).args(args).output().unwrap()
-}
-
-fn ok(o: &Output) {
-    assert!(
-        o.status.success(),
-        "status {:?}\nstdout {}\nstderr {}",
-        o.status,
-        String::from_utf8_lossy(&o.stdout),
-        String::from_utf8_lossy(&o.stderr)
-    );
-}
-
-fn read(dir: &Path, f: &str) -> Vec<u8> {
-    std::fs::read(dir.join(f)).unwrap_or_else(|e| panic!("{}: {e}", dir.join(f).display()))
-}
-
 #[test]
 fn results_do_not_depend_on_threads_and_merged_shards_equal_one_run() {
     let d = tempfile::tempdir().unwrap();
@@ -331,7 +314,7 @@ fn results_do_not_depend_on_threads_and_merged_shards_equal_one_run() {
     let with = |extra: &[&str]| -> Vec<String> {
         base.iter().chain(extra).map(|x| x.to_string()).collect()
     };
-    let go = |args: Vec<String>| ok(&Command::new(BIN).args(&args).output().unwrap());
+    let go = |args: Vec<String>| ok(&run(&args));
     go(with(&["--threads", "1", "--out", &s(&out("one"))]));
     go(with(&["--threads", "2", "--out", &s(&out("two"))]));
     for k in 1..=3 {
@@ -345,7 +328,7 @@ fn results_do_not_depend_on_threads_and_merged_shards_equal_one_run() {
         ]));
     }
     // Merge in a shuffled order.
-    ok(&run_cli(&[
+    ok(&run(&[
         "merge",
         &s(&out("s2")),
         &s(&out("s3")),
@@ -382,7 +365,7 @@ fn results_do_not_depend_on_threads_and_merged_shards_equal_one_run() {
     assert_eq!(idx, ["1", "4", "7"]);
 
     // Missing shard, foreign shard: clear errors, exit 2.
-    let o = run_cli(&[
+    let o = run(&[
         "merge",
         &s(&out("s1")),
         &s(&out("s2")),
@@ -390,7 +373,7 @@ fn results_do_not_depend_on_threads_and_merged_shards_equal_one_run() {
         &s(&out("bad1")),
     ]);
     assert_eq!(o.status.code(), Some(2));
-    let e = String::from_utf8_lossy(&o.stderr);
+    let e = stderr(&o);
     assert!(
         e.contains("3 of 10 runs are in no folder (runs 2, 5, 8)"),
         "{e}"
@@ -411,7 +394,7 @@ fn results_do_not_depend_on_threads_and_merged_shards_equal_one_run() {
         "--out".into(),
         s(&out("other")),
     ]);
-    let o = run_cli(&[
+    let o = run(&[
         "merge",
         &s(&out("s1")),
         &s(&out("s2")),
@@ -420,7 +403,7 @@ fn results_do_not_depend_on_threads_and_merged_shards_equal_one_run() {
         &s(&out("bad2")),
     ]);
     assert_eq!(o.status.code(), Some(2));
-    let e = String::from_utf8_lossy(&o.stderr);
+    let e = stderr(&o);
     assert!(
         e.contains("not shards of the same study") && e.contains("seed: 77 against 78"),
         "{e}"
@@ -509,13 +492,13 @@ fn bad_requirements_and_options_exit_2_without_writing() {
     ] {
         let mut a = vec!["montecarlo", sc, "--runs", "3", "--out", outs];
         a.extend(&args);
-        let o = run_cli(&a);
-        let e = String::from_utf8_lossy(&o.stderr);
+        let o = run(&a);
+        let e = stderr(&o);
         assert_eq!(o.status.code(), Some(2), "{args:?}: {e}");
         assert!(e.contains(needle), "{args:?}: {e}");
         assert!(!out.exists(), "{args:?} left a folder");
     }
-    let o = run_cli(&[
+    let o = run(&[
         "montecarlo",
         sc,
         "--runs",
@@ -525,7 +508,7 @@ fn bad_requirements_and_options_exit_2_without_writing() {
         "--require",
         "x>=1",
     ]);
-    let e = String::from_utf8_lossy(&o.stderr);
+    let e = stderr(&o);
     assert!(e.contains("metrics: adc.enob_bits, adc.sinad_db"), "{e}");
 }
 
@@ -535,43 +518,23 @@ fn ctrl_c_keeps_the_finished_rows_and_says_so() {
     let sc = d.path().join("small.toml");
     std::fs::write(&sc, SMALL).unwrap();
     let out = d.path().join("o");
-    let mut child = Command::new(BIN)
-        .args([
-            "montecarlo",
-            sc.to_str().unwrap(),
-            "--runs",
-            "100000",
-            "--threads",
-            "1",
-            "--no-static",
-            "--quiet",
-        ])
-        .arg("--out")
-        .arg(&out)
-        .stdout(std::process::Stdio::null())
-        .stderr(std::process::Stdio::piped())
-        .spawn()
-        .unwrap();
     // A run takes tens of milliseconds: after 1.5 s some are done and most are not.
-    std::thread::sleep(Duration::from_millis(1500));
-    let st = Command::new("kill")
-        .args(["-INT", &child.id().to_string()])
-        .status()
-        .unwrap();
-    assert!(st.success());
-    let t0 = Instant::now();
-    let status = loop {
-        if let Some(s) = child.try_wait().unwrap() {
-            break s;
-        }
-        assert!(
-            t0.elapsed() < Duration::from_secs(30),
-            "no exit after SIGINT"
-        );
-        std::thread::sleep(Duration::from_millis(50));
-    };
-    let mut err = String::new();
-    std::io::Read::read_to_string(&mut child.stderr.take().unwrap(), &mut err).unwrap();
+    let (status, err) = interrupt_after(
+        bin()
+            .args([
+                "montecarlo",
+                sc.to_str().unwrap(),
+                "--runs",
+                "100000",
+                "--threads",
+                "1",
+                "--no-static",
+                "--quiet",
+            ])
+            .arg("--out")
+            .arg(&out),
+        Duration::from_millis(1500),
+    );
     assert_eq!(status.code(), Some(130), "{err}");
     let json: serde_json::Value = serde_json::from_slice(&read(&out, "montecarlo.json")).unwrap();
     let note = json["interrupted"].as_str().unwrap().to_string();
@@ -582,12 +545,12 @@ fn ctrl_c_keeps_the_finished_rows_and_says_so() {
     let csv = String::from_utf8(read(&out, "montecarlo.csv")).unwrap();
     assert_eq!(csv.lines().count() as u64, m + 1);
     // An interrupted folder does not merge as a whole study.
-    let o = run_cli(&[
+    let o = run(&[
         "merge",
         out.to_str().unwrap(),
         "--out",
         d.path().join("m").to_str().unwrap(),
     ]);
     assert_eq!(o.status.code(), Some(2));
-    assert!(String::from_utf8_lossy(&o.stderr).contains("interrupted after"));
+    assert!(stderr(&o).contains("interrupted after"));
 }

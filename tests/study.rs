@@ -1,28 +1,13 @@
 //! Integration tests of `convchain sweep` and `convchain limit`, driving the built binary.
 
+mod common;
+
 use std::fs;
 use std::path::Path;
-use std::process::{Command, Output};
+use std::process::Output;
+use std::time::Duration;
 
-fn bin() -> Command {
-    Command::new(env!("CARGO_BIN_EXE_convchain"))
-}
-
-fn run_in(dir: &Path, args: &[&str]) -> Output {
-    bin()
-        .current_dir(dir)
-        .args(args)
-        .output()
-        .expect("binary runs")
-}
-
-fn stderr(o: &Output) -> String {
-    String::from_utf8_lossy(&o.stderr).to_string()
-}
-
-fn json(path: &Path) -> serde_json::Value {
-    serde_json::from_str(&fs::read_to_string(path).unwrap()).unwrap()
-}
+use common::{bin, interrupt_after, json, ok, run_in, stderr, stdout};
 
 /// A short 10-bit chain on a 1 MHz grid: hold, SAR at 50 kSPS, DAC with slew and settling, 2nd-order filter.
 const SMALL_CHAIN: &str = r#"
@@ -103,7 +88,7 @@ fn a_log_sweep_has_the_points_asked_for_and_every_metric() {
             "--quiet",
         ],
     );
-    assert!(o.status.success(), "{}", stderr(&o));
+    ok(&o);
     let out = d.path().join("out/small-chain-sweep");
     let (h, rows) = csv_rows(&out.join("sweep.csv"));
     assert_eq!(rows.len(), 5);
@@ -169,9 +154,9 @@ fn two_keys_make_a_grid_and_the_results_do_not_depend_on_the_thread_count() {
         ]
     };
     let o1 = run_in(d.path(), &args("one", "1"));
-    assert!(o1.status.success(), "{}", stderr(&o1));
+    ok(&o1);
     let o2 = run_in(d.path(), &args("two", "2"));
-    assert!(o2.status.success(), "{}", stderr(&o2));
+    ok(&o2);
     let a = fs::read(d.path().join("one/sweep.csv")).unwrap();
     let b = fs::read(d.path().join("two/sweep.csv")).unwrap();
     assert_eq!(a, b, "sweep.csv differs between 1 and 2 threads");
@@ -259,8 +244,8 @@ fn a_slew_limited_amplifier_loses_3_db_near_1_8_times_its_full_power_bandwidth()
         d.path(),
         &["limit", "amp.toml", "--from", "100 Hz", "--to", "10 kHz"],
     );
-    assert!(o.status.success(), "{}", stderr(&o));
-    let table = String::from_utf8_lossy(&o.stdout);
+    ok(&o);
+    let table = stdout(&o);
     assert!(
         table.contains("level") && table.contains("amplifier.slew_rate"),
         "{table}"
@@ -348,7 +333,7 @@ fn an_adc_without_a_hold_loses_accuracy_far_below_nyquist_and_the_live_input_is_
             "--quiet",
         ],
     );
-    assert!(o.status.success(), "{}", stderr(&o));
+    ok(&o);
     let j = json(&d.path().join("out/live-adc-limit/limit.json"));
     let acc = criterion(&j, "accuracy");
     let f = acc["frequency_hz"].as_f64().unwrap();
@@ -412,7 +397,7 @@ fn merged_sweep_shards_equal_one_run_and_foreign_or_missing_shards_are_refused()
         run_in(d.path(), &args)
     };
     let o = sweep("4 kHz", &["--out", "one"]);
-    assert!(o.status.success(), "{}", stderr(&o));
+    ok(&o);
     for k in 1..=3 {
         let shard = format!("{k}/3");
         let o = sweep("4 kHz", &["--shard", &shard, "--threads", "1"]);
@@ -435,11 +420,11 @@ fn merged_sweep_shards_equal_one_run_and_foreign_or_missing_shards_are_refused()
     // Merged in a shuffled order: the very files one machine writes.
     let (s1, s2, s3) = (shard_dir(1), shard_dir(2), shard_dir(3));
     let o = run_in(d.path(), &["merge", &s3, &s1, &s2, "--out", "merged"]);
-    assert!(o.status.success(), "{}", stderr(&o));
+    ok(&o);
     assert!(
-        String::from_utf8_lossy(&o.stdout).contains("9 points; wrote merged"),
+        stdout(&o).contains("9 points; wrote merged"),
         "{}",
-        String::from_utf8_lossy(&o.stdout)
+        stdout(&o)
     );
     for f in ["sweep.csv", "sweep.json", "rows.json"] {
         let one = fs::read(d.path().join("one").join(f)).unwrap();
@@ -457,14 +442,23 @@ fn merged_sweep_shards_equal_one_run_and_foreign_or_missing_shards_are_refused()
     let o = run_in(d.path(), &["merge", &s1, &s3, "--out", "bad1"]);
     assert_eq!(o.status.code(), Some(2), "{}", stderr(&o));
     assert!(
-        stderr(&o).contains("3 of 9 runs are in no folder (runs 1, 4, 7)"),
+        stderr(&o).contains("3 of 9 points are in no folder (points 1, 4, 7)"),
         "{}",
         stderr(&o)
     );
     assert!(!d.path().join("bad1").exists());
+    // A shard given twice: the point it holds twice is named.
+    let o = run_in(d.path(), &["merge", &s1, &s2, &s3, &s1, "--out", "bad0"]);
+    assert_eq!(o.status.code(), Some(2), "{}", stderr(&o));
+    assert!(
+        stderr(&o).contains("merge: point 0 is in both"),
+        "{}",
+        stderr(&o)
+    );
+    assert!(!d.path().join("bad0").exists());
     // A shard of another sweep (a different range): refused, naming what differs.
     let o = sweep("5 kHz", &["--shard", "2/3", "--out", "other"]);
-    assert!(o.status.success(), "{}", stderr(&o));
+    ok(&o);
     let o = run_in(d.path(), &["merge", &s1, "other", &s3, "--out", "bad2"]);
     assert_eq!(o.status.code(), Some(2), "{}", stderr(&o));
     let e = stderr(&o);
@@ -486,4 +480,62 @@ fn merged_sweep_shards_equal_one_run_and_foreign_or_missing_shards_are_refused()
         "{}",
         stderr(&o)
     );
+}
+
+#[test]
+fn ctrl_c_stops_a_sweep_keeping_the_first_points_and_says_how_many() {
+    let d = tempfile::tempdir().unwrap();
+    fs::write(d.path().join("c.toml"), SMALL_CHAIN).unwrap();
+    let n = 3000u64;
+    let points = n.to_string();
+    // A point takes a few milliseconds: after 1.5 s some are done and most are not.
+    let (status, err) = interrupt_after(
+        bin().current_dir(d.path()).args([
+            "sweep",
+            "c.toml",
+            "--vary",
+            "source.frequency=1 kHz..4 kHz",
+            "--points",
+            &points,
+            "--threads",
+            "1",
+            "--quiet",
+            "--out",
+            "o",
+        ]),
+        Duration::from_millis(1500),
+    );
+    assert_eq!(status.code(), Some(130), "{err}");
+    let out = d.path().join("o");
+    let j = json(&out.join("sweep.json"));
+    let m = j["points_done"].as_u64().unwrap();
+    assert!((1..n).contains(&m), "{m}");
+    let note = format!("interrupted after {m} of {n} points");
+    assert_eq!(j["interrupted"], note.as_str());
+    assert!(err.contains(&note), "{err}");
+    assert_eq!(j["rows"].as_array().unwrap().len() as u64, m);
+    // The finished points are the first ones of the grid, in order.
+    let (header, rows) = csv_rows(&out.join("sweep.csv"));
+    assert_eq!(rows.len() as u64, m);
+    let f = col(&header, "source.frequency");
+    for (i, r) in rows.iter().enumerate() {
+        let want = 1e3 + 3e3 * i as f64 / (n - 1) as f64;
+        let got: f64 = r[f].parse().unwrap();
+        assert!(
+            (got - want).abs() <= 1e-9 * want,
+            "row {i}: {got} against {want}"
+        );
+    }
+    for stem in ["sweep-enob", "sweep-sinad", "sweep-gain", "sweep-fidelity"] {
+        assert!(out.join(format!("{stem}.svg")).exists(), "{stem}");
+    }
+    // An interrupted folder does not merge as a whole sweep.
+    let o = run_in(d.path(), &["merge", "o", "--out", "m"]);
+    assert_eq!(o.status.code(), Some(2), "{}", stderr(&o));
+    let e = stderr(&o);
+    assert!(
+        e.contains(&format!("{} of {n} points are in no folder", n - m)) && e.contains(&note),
+        "{e}"
+    );
+    assert!(!d.path().join("m").exists());
 }

@@ -6,6 +6,7 @@ use std::process::ExitCode;
 
 use clap::{Parser, Subcommand};
 
+mod interrupt;
 mod montecarlo;
 
 use convchain::error::Error;
@@ -155,9 +156,9 @@ pub fn main() -> ExitCode {
     };
     match run(args) {
         Ok(()) => ExitCode::SUCCESS,
-        Err(e) if e.downcast_ref::<montecarlo::Interrupted>().is_some() => {
+        Err(e) if e.downcast_ref::<interrupt::Interrupted>().is_some() => {
             eprintln!("{e}");
-            ExitCode::from(montecarlo::INTERRUPTED_EXIT)
+            ExitCode::from(interrupt::INTERRUPTED_EXIT)
         }
         Err(e) => {
             if let Some(io) = e.downcast_ref::<std::io::Error>()

@@ -1,9 +1,8 @@
-//! `convchain montecarlo` and `convchain merge`: arguments, Ctrl-C, printing.
+//! `convchain montecarlo` and `convchain merge`: arguments and printing (Ctrl-C is in `interrupt`).
 
 use std::fmt::Write as _;
 use std::io::Write;
 use std::path::{Path, PathBuf};
-use std::sync::atomic::{AtomicBool, Ordering};
 use std::time::Instant;
 
 use clap::Args;
@@ -14,20 +13,7 @@ use convchain::study::montecarlo::{self, McOptions, Requirement, Summary};
 use convchain::study::shard::{self, Shard};
 use convchain::study::sweep;
 
-/// Exit code after Ctrl-C (128 + SIGINT, the shell's convention).
-pub const INTERRUPTED_EXIT: u8 = 130;
-
-/// A study stopped by Ctrl-C; its finished rows were written.
-#[derive(Debug)]
-pub struct Interrupted(pub String);
-
-impl std::fmt::Display for Interrupted {
-    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
-        f.write_str(&self.0)
-    }
-}
-
-impl std::error::Error for Interrupted {}
+use super::interrupt::{self, CANCEL, INTERRUPTED_EXIT, Interrupted};
 
 #[derive(Args, Debug)]
 pub struct McArgs {
@@ -74,22 +60,6 @@ pub struct MergeArgs {
     out: PathBuf,
     #[arg(long, short)]
     quiet: bool,
-}
-
-static CANCEL: AtomicBool = AtomicBool::new(false);
-
-/// On the first Ctrl-C no new run starts and the finished rows are written; a second one stops at once.
-fn install_interrupt_handler() {
-    let _ = ctrlc::set_handler(|| {
-        if CANCEL.swap(true, Ordering::SeqCst) {
-            eprintln!("\nsecond interrupt: stopping now, nothing more is written");
-            std::process::exit(i32::from(INTERRUPTED_EXIT));
-        }
-        eprintln!(
-            "\ninterrupt: no new runs start; the runs in progress finish and the finished rows are written \
-             (Ctrl-C again stops at once)"
-        );
-    });
 }
 
 fn fmt_value(name: &str, v: Option<f64>) -> String {
@@ -214,7 +184,7 @@ pub fn run(a: McArgs) -> anyhow::Result<()> {
             base.join(format!("shard-{}-of-{}", shard.k, shard.n))
         }
     });
-    install_interrupt_handler();
+    interrupt::install_handler("runs");
     let started = Instant::now();
     let summary = montecarlo::montecarlo_to_dir(&text, &opts, &dir, &CANCEL)?;
     let elapsed = started.elapsed().as_secs_f64();

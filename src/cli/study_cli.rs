@@ -10,6 +10,8 @@ use convchain::scenario::units::{Dimension, parse_quantity};
 use convchain::study::shard::Shard;
 use convchain::study::{limit, sweep};
 
+use super::interrupt::{self, CANCEL, INTERRUPTED_EXIT, Interrupted};
+
 fn frequency(s: &str) -> Result<f64, String> {
     let f = parse_quantity(s, Dimension::Frequency).map_err(|e| e.message)?;
     if f > 0.0 {
@@ -119,10 +121,18 @@ pub fn sweep(a: SweepArgs) -> anyhow::Result<()> {
         progress: !a.quiet,
         shard,
     };
-    let result = sweep::run_sweep(&text, &spec, &opts)?;
+    interrupt::install_handler("points");
+    let result = sweep::run_sweep_until(&text, &spec, &opts, &CANCEL)?;
     sweep::write_sweep(&result, &dir)?;
     if !a.quiet {
         write!(std::io::stdout().lock(), "{}", sweep_line(&result, &dir))?;
+    }
+    if let Some(note) = &result.interrupted {
+        return Err(Interrupted(format!(
+            "{note}; wrote the finished rows to {} (exit code {INTERRUPTED_EXIT})",
+            dir.display()
+        ))
+        .into());
     }
     Ok(())
 }

@@ -23,6 +23,7 @@ use plotters::style::{
 };
 
 use crate::Error;
+use crate::scenario::units;
 
 // ---------------------------------------------------------------------------------------------------------
 // Public data types
@@ -234,7 +235,7 @@ pub fn render(
 // SI prefixes
 // ---------------------------------------------------------------------------------------------------------
 
-/// An SI prefix: its symbol and its power of ten.
+/// An SI prefix: its symbol and its power of ten (chosen by [`units::si_prefix`]).
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub struct SiPrefix {
     /// "µ", "m", "", "k", ...
@@ -256,64 +257,16 @@ impl SiPrefix {
     }
 }
 
-const PREFIXES: [SiPrefix; 10] = [
-    SiPrefix {
-        symbol: "f",
-        exponent: -15,
-    },
-    SiPrefix {
-        symbol: "p",
-        exponent: -12,
-    },
-    SiPrefix {
-        symbol: "n",
-        exponent: -9,
-    },
-    SiPrefix {
-        symbol: "µ",
-        exponent: -6,
-    },
-    SiPrefix {
-        symbol: "m",
-        exponent: -3,
-    },
-    SiPrefix {
-        symbol: "",
-        exponent: 0,
-    },
-    SiPrefix {
-        symbol: "k",
-        exponent: 3,
-    },
-    SiPrefix {
-        symbol: "M",
-        exponent: 6,
-    },
-    SiPrefix {
-        symbol: "G",
-        exponent: 9,
-    },
-    SiPrefix {
-        symbol: "T",
-        exponent: 12,
-    },
-];
-
-/// The prefix whose range holds `magnitude` (1 <= magnitude / 10^exponent < 1000); no prefix for zero or
-/// non-finite input; clamped to f..T.
+/// The prefix whose range holds `magnitude` (1 <= magnitude / 10^exponent < 1000), from p to G as
+/// [`units::si_prefix`] picks it (micro written µ); no prefix for zero or non-finite input.
 pub fn si_prefix_for_value(magnitude: f64) -> SiPrefix {
-    let m = magnitude.abs();
-    if m == 0.0 || !m.is_finite() {
-        return SiPrefix::NONE;
+    // A nudge of 1e-9 decades keeps exact powers of ten that rounding left just below themselves (a span
+    // of 1e-3 computed as 0.000999...) in their own decade.
+    let m = magnitude.abs() * 10f64.powf(1e-9);
+    SiPrefix {
+        symbol: units::si_prefix(m, "µ").1,
+        exponent: units::si_prefix_exponent(m),
     }
-    // The small offset keeps exact powers of ten (1e-3) in their own decade despite rounding in log10.
-    let e3 = ((m.log10() + 1e-9) / 3.0).floor() as i32 * 3;
-    let e3 = e3.clamp(-15, 12);
-    PREFIXES
-        .iter()
-        .copied()
-        .find(|p| p.exponent == e3)
-        .unwrap_or(SiPrefix::NONE)
 }
 
 /// The prefix for an axis spanning `span` base units: the span then reads between 1 and 1000
@@ -2131,6 +2084,26 @@ mod tests {
         assert_eq!(si_prefix_for_span(40e-9).symbol, "n");
         assert_eq!(si_prefix_for_span(0.0), SiPrefix::NONE);
         assert_eq!(si_prefix_for_span(f64::NAN), SiPrefix::NONE);
+    }
+
+    #[test]
+    fn plot_prefixes_are_those_of_the_scenario_units() {
+        // Away from the decade edges the plot's prefix is exactly units::si_prefix's, from p to G.
+        for e in -13..11 {
+            for m in [1.5, 4.0, 30.0, 700.0] {
+                let v = m * 10f64.powi(e);
+                let p = si_prefix_for_value(v);
+                let (factor, symbol) = units::si_prefix(v, "µ");
+                assert_eq!(p.symbol, symbol, "{v}");
+                assert_eq!(10f64.powi(p.exponent), factor, "{v}");
+            }
+        }
+        // Out of range: clamped to p and G.
+        assert_eq!(si_prefix_for_value(3e-15).symbol, "p");
+        assert_eq!(si_prefix_for_value(3e13).symbol, "G");
+        // A span that rounding left just below a power of ten keeps that decade's prefix.
+        let one = 1.0 - f64::EPSILON / 2.0;
+        assert_eq!(si_prefix_for_span(one), SiPrefix::NONE);
     }
 
     #[test]

@@ -338,6 +338,12 @@ pub fn si_prefix(value: f64, micro: &'static str) -> (f64, &'static str) {
     }
 }
 
+/// The power of ten of the prefix [`si_prefix`] picks for `value` (-12 for p to 9 for G; 0 for zero or a
+/// non-finite value), for code that scales by it (plot axes).
+pub fn si_prefix_exponent(value: f64) -> i32 {
+    si_prefix(value, "").0.log10().round() as i32
+}
+
 /// Format a value with an SI prefix and 4 significant digits, e.g. `format_si(83_333.3, "Hz")` = `"83.33 kHz"`.
 /// Micro is written `u`, so the text parses back.
 pub fn format_si(value: f64, unit: &str) -> String {
@@ -454,6 +460,29 @@ mod tests {
         assert_eq!(format_si(12e-6, "s"), "12 us");
         assert_eq!(format_si(0.0, "V"), "0 V");
         assert_eq!(format_si(-2.5, "V"), "-2.5 V");
+    }
+
+    #[test]
+    fn prefix_exponents_match_the_prefix_factors() {
+        for (v, e, p) in [
+            (3e-13, -12, "p"),
+            (1e-12, -12, "p"),
+            (2e-9, -9, "n"),
+            (999e-9, -9, "n"),
+            (1e-6, -6, "µ"),
+            (0.2, -3, "m"),
+            (1.0, 0, ""),
+            (-999.0, 0, ""),
+            (1e3, 3, "k"),
+            (2.5e6, 6, "M"),
+            (4e12, 9, "G"),
+            (0.0, 0, ""),
+            (f64::NAN, 0, ""),
+        ] {
+            assert_eq!(si_prefix_exponent(v), e, "{v}");
+            assert_eq!(si_prefix(v, "µ").1, p, "{v}");
+            assert_eq!(si_prefix(v, "µ").0, 10f64.powi(e), "{v}");
+        }
     }
 
     const PFX: [(&str, f64); 10] = [

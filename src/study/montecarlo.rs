@@ -13,8 +13,7 @@
 
 use std::io::IsTerminal;
 use std::path::Path;
-use std::sync::Mutex;
-use std::sync::atomic::{AtomicBool, AtomicUsize, Ordering};
+use std::sync::atomic::AtomicBool;
 
 use rand::{RngExt, SeedableRng};
 use rand_chacha::ChaCha8Rng;
@@ -22,7 +21,9 @@ use rand_distr::{Distribution, StandardNormal};
 use serde::Serialize;
 use serde_json::{Value, json};
 
-use super::shard::{ROWS_FILE, ROWS_FORMAT, RowSet, Shard, fingerprint};
+use super::shard::{
+    ROWS_FILE, ROWS_FORMAT, RowSet, Shard, fingerprint, interrupted_note, run_in_order,
+};
 use crate::engine::pipeline;
 use crate::error::{Error, Result};
 use crate::measure::chain::{ChainMetrics, measure_run};
@@ -423,36 +424,15 @@ pub fn run_rows(text: &ScenarioText, opts: &McOptions, cancel: &AtomicBool) -> R
         );
         b
     });
-    let slots: Vec<Mutex<Option<Vec<Value>>>> = indices.iter().map(|_| Mutex::new(None)).collect();
-    let next = AtomicUsize::new(0);
-    // Workers take the next index in order, so an interrupted study holds (nearly) the first runs.
-    pool.scope(|s| {
-        for _ in 0..pool.current_num_threads() {
-            s.spawn(|_| {
-                loop {
-                    if cancel.load(Ordering::SeqCst) {
-                        break;
-                    }
-                    let j = next.fetch_add(1, Ordering::SeqCst);
-                    let Some(&index) = indices.get(j) else { break };
-                    let row = one_run(&p, index);
-                    *slots[j].lock().unwrap_or_else(|e| e.into_inner()) = Some(row);
-                    if let Some(b) = &bar {
-                        b.inc(1);
-                    }
-                }
-            });
-        }
+    // Workers take the next index in order, so an interrupted study holds the first runs.
+    let rows = run_in_order(&pool, indices.len(), cancel, bar.as_ref(), |j| {
+        one_run(&p, indices[j])
     });
     if let Some(b) = bar {
         b.finish_and_clear();
     }
-    let rows: Vec<Vec<Value>> = slots
-        .into_iter()
-        .filter_map(|m| m.into_inner().unwrap_or_else(|e| e.into_inner()))
-        .collect();
-    let interrupted = (rows.len() < indices.len())
-        .then(|| format!("interrupted after {} of {} runs", rows.len(), indices.len()));
+    let interrupted =
+        (rows.len() < indices.len()).then(|| interrupted_note(KIND, rows.len(), indices.len()));
     Ok(RowSet {
         format: ROWS_FORMAT.into(),
         kind: KIND.into(),

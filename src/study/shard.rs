@@ -7,10 +7,15 @@
 //! the same study (equal `kind`, `study` and `columns`) and together hold every index once, then writes the
 //! study's outputs from the merged rows with the same code a single machine uses, so the files are
 //! byte-identical to an unsharded run's.
+//!
+//! [`run_in_order`] is the run loop every such study shares: items in index order on a thread pool, stopping
+//! cleanly (the finished rows kept) when a cancel flag is raised, e.g. by Ctrl-C.
 
 use std::collections::BTreeMap;
 use std::fmt;
 use std::path::{Path, PathBuf};
+use std::sync::Mutex;
+use std::sync::atomic::{AtomicBool, AtomicUsize, Ordering};
 
 use serde::{Deserialize, Serialize};
 use serde_json::Value;
@@ -22,6 +27,60 @@ use crate::report::OutputDir;
 pub const ROWS_FILE: &str = "rows.json";
 /// Value of [`RowSet::format`] for this version of the file.
 pub const ROWS_FORMAT: &str = "convchain-rows/1";
+
+/// The words for the items of a study of kind `kind`, singular and plural: a sweep's items are points, every
+/// other study's are runs.
+pub fn item_words(kind: &str) -> (&'static str, &'static str) {
+    if kind == super::sweep::KIND {
+        ("point", "points")
+    } else {
+        ("run", "runs")
+    }
+}
+
+/// The note of a study of kind `kind` cut short: `interrupted after M of N runs` (`points` for a sweep).
+pub fn interrupted_note(kind: &str, done: usize, of: usize) -> String {
+    format!("interrupted after {done} of {of} {}", item_words(kind).1)
+}
+
+/// Run `work(j)` for every `j` in `0..n` on the threads of `pool`, each thread taking the next `j` in increasing
+/// order, and return the results in order of `j`. Once `cancel` is true no new item starts; the items in
+/// progress finish, so the result holds the items `0..m` for some `m <= n` (every item when `cancel` stays
+/// false). `bar`, when given, advances by one per finished item.
+pub fn run_in_order<T: Send>(
+    pool: &rayon::ThreadPool,
+    n: usize,
+    cancel: &AtomicBool,
+    bar: Option<&indicatif::ProgressBar>,
+    work: impl Fn(usize) -> T + Sync,
+) -> Vec<T> {
+    let slots: Vec<Mutex<Option<T>>> = (0..n).map(|_| Mutex::new(None)).collect();
+    let next = AtomicUsize::new(0);
+    pool.scope(|s| {
+        for _ in 0..pool.current_num_threads() {
+            s.spawn(|_| {
+                loop {
+                    if cancel.load(Ordering::SeqCst) {
+                        break;
+                    }
+                    let j = next.fetch_add(1, Ordering::SeqCst);
+                    if j >= n {
+                        break;
+                    }
+                    let out = work(j);
+                    *slots[j].lock().unwrap_or_else(|e| e.into_inner()) = Some(out);
+                    if let Some(b) = bar {
+                        b.inc(1);
+                    }
+                }
+            });
+        }
+    });
+    slots
+        .into_iter()
+        .filter_map(|m| m.into_inner().unwrap_or_else(|e| e.into_inner()))
+        .collect()
+}
 
 /// A slice of a study's runs: the runs with `index % n == k - 1` (`k` from 1 to `n`).
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
@@ -98,7 +157,7 @@ pub struct RowSet {
     pub study: Value,
     /// The slice of runs this set was made for.
     pub shard: Shard,
-    /// `Some("interrupted after M of N runs")` when the set was cut short.
+    /// `Some("interrupted after M of N runs")` (`points` for a sweep) when the set was cut short.
     pub interrupted: Option<String>,
     /// Column names; the first is `index`.
     pub columns: Vec<String>,
@@ -189,6 +248,7 @@ pub fn merge(sets: Vec<(PathBuf, RowSet)>) -> Result<RowSet> {
             "merge: give at least one folder to merge".into(),
         ));
     };
+    let (one, many) = item_words(&first.kind);
     for (dir, s) in &sets[1..] {
         if s.kind != first.kind {
             return Err(Error::BadInput(format!(
@@ -211,9 +271,14 @@ pub fn merge(sets: Vec<(PathBuf, RowSet)>) -> Result<RowSet> {
                     )
                 })
                 .collect();
+            let options = if first.kind == super::sweep::KIND {
+                "--vary, --points and --log"
+            } else {
+                "--runs and --seed"
+            };
             return Err(Error::BadInput(format!(
                 "merge: {} and {} are not shards of the same study ({}); run every shard from the same \
-                 scenario file with the same options (--runs and --seed, or --vary, --points and --log)",
+                 scenario file with the same options ({options})",
                 first_dir.display(),
                 dir.display(),
                 detail.join("; ")
@@ -240,7 +305,7 @@ pub fn merge(sets: Vec<(PathBuf, RowSet)>) -> Result<RowSet> {
             };
             if row.len() != first.columns.len() {
                 return Err(Error::BadInput(format!(
-                    "merge: {}: run {i} has {} cells for {} columns",
+                    "merge: {}: {one} {i} has {} cells for {} columns",
                     dir.display(),
                     row.len(),
                     first.columns.len()
@@ -248,7 +313,7 @@ pub fn merge(sets: Vec<(PathBuf, RowSet)>) -> Result<RowSet> {
             }
             if let Some((other, _)) = by_index.get(&i) {
                 return Err(Error::BadInput(format!(
-                    "merge: run {i} is in both {} and {}; give each shard once",
+                    "merge: {one} {i} is in both {} and {}; give each shard once",
                     sets[*other].0.display(),
                     dir.display()
                 )));
@@ -273,8 +338,8 @@ pub fn merge(sets: Vec<(PathBuf, RowSet)>) -> Result<RowSet> {
             .collect();
         shards.sort();
         return Err(Error::BadInput(format!(
-            "merge: {} of {runs} runs are in no folder (runs {}{more}); folders given: {}. Add the missing \
-             shards, or re-run an interrupted one",
+            "merge: {} of {runs} {many} are in no folder ({many} {}{more}); folders given: {}. Add the \
+             missing shards, or re-run an interrupted one",
             missing.len(),
             shown.join(", "),
             shards.join("; ")
@@ -406,6 +471,81 @@ mod tests {
         let e = merge(vec![s(1), s(2), other]).unwrap_err().to_string();
         assert!(e.contains("seed: 1 against 2"), "{e}");
         assert!(merge(vec![]).unwrap_err().is_bad_input());
+    }
+
+    #[test]
+    fn merge_messages_say_points_for_sweeps_and_runs_otherwise() {
+        let s = |kind: &str, k| {
+            let mut set = set(Shard { k, n: 3 }, 10);
+            set.kind = kind.into();
+            (PathBuf::from(format!("s{k}")), set)
+        };
+        for (kind, one, many) in [("sweep", "point", "points"), ("montecarlo", "run", "runs")] {
+            let e = merge(vec![s(kind, 1), s(kind, 2)]).unwrap_err().to_string();
+            assert!(
+                e.contains(&format!("3 of 10 {many} are in no folder ({many} 2, 5, 8)")),
+                "{e}"
+            );
+            let e = merge(vec![s(kind, 1), s(kind, 2), s(kind, 3), s(kind, 2)])
+                .unwrap_err()
+                .to_string();
+            assert!(e.contains(&format!("{one} 1 is in both s2 and s2")), "{e}");
+            let mut short = s(kind, 3);
+            short.1.rows[0].pop();
+            let e = merge(vec![s(kind, 1), s(kind, 2), short])
+                .unwrap_err()
+                .to_string();
+            assert!(e.contains(&format!("s3: {one} 2 has 1 cells")), "{e}");
+            assert_eq!(
+                interrupted_note(kind, 4, 10),
+                format!("interrupted after 4 of 10 {many}")
+            );
+        }
+    }
+
+    fn pool(threads: usize) -> rayon::ThreadPool {
+        rayon::ThreadPoolBuilder::new()
+            .num_threads(threads)
+            .build()
+            .unwrap()
+    }
+
+    #[test]
+    fn the_run_loop_returns_every_item_in_order_unless_stopped() {
+        let never = AtomicBool::new(false);
+        let all = run_in_order(&pool(2), 50, &never, None, |j| j * 10);
+        assert_eq!(all, (0..50).map(|j| j * 10).collect::<Vec<_>>());
+        // A flag raised before the loop starts: nothing runs.
+        let raised = AtomicBool::new(true);
+        let none = run_in_order(&pool(2), 50, &raised, None, |j| -> usize {
+            panic!("item {j} ran")
+        });
+        assert!(none.is_empty());
+    }
+
+    #[test]
+    fn a_stopped_run_loop_keeps_the_items_before_the_stop() {
+        // One thread: the item that raises the flag finishes, and no later item starts.
+        let cancel = AtomicBool::new(false);
+        let got = run_in_order(&pool(1), 20, &cancel, None, |j| {
+            if j == 4 {
+                cancel.store(true, Ordering::SeqCst);
+            }
+            j
+        });
+        assert_eq!(got, vec![0, 1, 2, 3, 4]);
+        // Two threads: the other thread may have started one more item, which finishes; no gap appears.
+        for _ in 0..20 {
+            let cancel = AtomicBool::new(false);
+            let got = run_in_order(&pool(2), 200, &cancel, None, |j| {
+                if j == 9 {
+                    cancel.store(true, Ordering::SeqCst);
+                }
+                j
+            });
+            assert!((10..=11).contains(&got.len()), "{}", got.len());
+            assert_eq!(got, (0..got.len()).collect::<Vec<_>>());
+        }
     }
 
     #[test]

@@ -9,14 +9,19 @@
 //! `i % N == K - 1`, and its rows are kept in `rows.json` (a [`RowSet`] of kind [`KIND`]) so that
 //! `convchain merge` can join shards into exactly the files one machine writes. Every file of a sweep is
 //! written from its row set, whether it came from one run or from merged shards.
+//!
+//! A sweep stops cleanly when asked (Ctrl-C in `convchain sweep`): no new point starts, the points in
+//! progress finish, and the finished points are kept, the result marked [`SweepResult::interrupted`].
 
 use std::path::Path;
+use std::sync::atomic::AtomicBool;
 
-use rayon::prelude::*;
 use serde::Serialize;
 use serde_json::{Value, json};
 
-use super::shard::{ROWS_FILE, ROWS_FORMAT, RowSet, Shard, fingerprint};
+use super::shard::{
+    ROWS_FILE, ROWS_FORMAT, RowSet, Shard, fingerprint, interrupted_note, run_in_order,
+};
 use crate::engine::pipeline::{self, Plan};
 use crate::error::{Error, Result};
 use crate::measure::chain::{ChainMetrics, measure_run};
@@ -288,6 +293,9 @@ pub struct SweepResult {
     pub shard: Shard,
     /// The points of [`Self::shard`], in grid order.
     pub rows: Vec<SweepRow>,
+    /// `Some("interrupted after M of N points")` when the sweep was stopped before every point of its shard
+    /// ran; [`Self::rows`] then holds the first `M` of them.
+    pub interrupted: Option<String>,
 }
 
 /// How to run a sweep.
@@ -338,6 +346,18 @@ pub fn run_sweep(
     spec: &SweepSpec,
     opts: &SweepOptions,
 ) -> Result<SweepResult> {
+    run_sweep_until(text, spec, opts, &AtomicBool::new(false))
+}
+
+/// [`run_sweep`], stopping when `cancel` becomes true: no new point starts, the points in progress finish,
+/// and the result holds the points finished (the first ones of the shard, in grid order) with
+/// [`SweepResult::interrupted`] set. The flag is read only once the points are checked.
+pub fn run_sweep_until(
+    text: &ScenarioText,
+    spec: &SweepSpec,
+    opts: &SweepOptions,
+    cancel: &AtomicBool,
+) -> Result<SweepResult> {
     if spec.vary.is_empty() {
         return Err(Error::BadInput(
             "give at least one --vary KEY=FROM..TO".into(),
@@ -378,38 +398,34 @@ pub fn run_sweep(
     let pool = thread_pool(opts.threads)?;
     let bar = progress_bar(mine.len(), opts.progress, "sweeping");
     let finite = |x: Option<f64>| x.filter(|v| v.is_finite());
-    let rows: Vec<SweepRow> = pool.install(|| {
-        mine.par_iter()
-            .map(|&(index, sc, p)| {
-                let row = match simulate(sc) {
-                    Ok((fr, fu, m)) => SweepRow {
-                        index,
-                        values: p.clone(),
-                        frequency_requested_hz: finite(fr),
-                        frequency_used_hz: finite(fu),
-                        // Non-finite values are kept as missing, as rows.json holds them.
-                        metrics: metric_values(&m).into_iter().map(finite).collect(),
-                        error: None,
-                    },
-                    Err(e) => SweepRow {
-                        index,
-                        values: p.clone(),
-                        frequency_requested_hz: finite(sc.source.waveform.fundamental_hz()),
-                        frequency_used_hz: None,
-                        metrics: vec![None; METRIC_COLUMNS.len()],
-                        error: Some(e.to_string()),
-                    },
-                };
-                if let Some(b) = &bar {
-                    b.inc(1);
-                }
-                row
-            })
-            .collect()
+    // Points start in grid order, so an interrupted sweep holds the first points of its shard.
+    let rows: Vec<SweepRow> = run_in_order(&pool, mine.len(), cancel, bar.as_ref(), |j| {
+        let (index, sc, p) = mine[j];
+        match simulate(sc) {
+            Ok((fr, fu, m)) => SweepRow {
+                index,
+                values: p.clone(),
+                frequency_requested_hz: finite(fr),
+                frequency_used_hz: finite(fu),
+                // Non-finite values are kept as missing, as rows.json holds them.
+                metrics: metric_values(&m).into_iter().map(finite).collect(),
+                error: None,
+            },
+            Err(e) => SweepRow {
+                index,
+                values: p.clone(),
+                frequency_requested_hz: finite(sc.source.waveform.fundamental_hz()),
+                frequency_used_hz: None,
+                metrics: vec![None; METRIC_COLUMNS.len()],
+                error: Some(e.to_string()),
+            },
+        }
     });
     if let Some(b) = bar {
         b.finish_and_clear();
     }
+    let interrupted =
+        (rows.len() < mine.len()).then(|| interrupted_note(KIND, rows.len(), mine.len()));
     Ok(SweepResult {
         scenario: name,
         scenario_hash: fingerprint(text.text.as_bytes()),
@@ -417,6 +433,7 @@ pub fn run_sweep(
         axes,
         shard: opts.shard,
         rows,
+        interrupted,
     })
 }
 
@@ -470,7 +487,7 @@ impl SweepResult {
             kind: KIND.into(),
             study: self.study_header(),
             shard: self.shard,
-            interrupted: None,
+            interrupted: self.interrupted.clone(),
             columns,
             rows,
         }
@@ -529,6 +546,7 @@ impl SweepResult {
             axes,
             shard: set.shard,
             rows: Vec::with_capacity(set.rows.len()),
+            interrupted: set.interrupted.clone(),
         };
         if set.total_runs() != Some(result.total_points()) {
             return Err(bad(format!(
@@ -666,6 +684,10 @@ impl SweepResult {
                 "note": "one shard of the sweep: its rows only; join every shard's folder with `convchain merge`",
             });
         }
+        if let Some(note) = &self.interrupted {
+            doc["interrupted"] = json!(note);
+            doc["points_done"] = json!(self.rows.len());
+        }
         doc
     }
 
@@ -768,11 +790,14 @@ pub fn write_outputs(out: &OutputDir, set: &RowSet) -> Result<SweepResult> {
         }
         _ => first.clone(),
     };
-    let shard_note = if result.shard == Shard::WHOLE {
+    let mut shard_note = if result.shard == Shard::WHOLE {
         String::new()
     } else {
         format!(" (shard {} only)", result.shard)
     };
+    if let Some(note) = &result.interrupted {
+        shard_note.push_str(&format!(" ({note})"));
+    }
     for (stem, title, y_label, metrics) in SweepResult::PLOTS {
         let series = result.plot_series(metrics);
         let xy = XyPlot {
@@ -955,6 +980,7 @@ mod tests {
             axes,
             shard,
             rows,
+            interrupted: None,
         }
     }
 
@@ -968,6 +994,92 @@ mod tests {
             let back: RowSet = serde_json::from_slice(&set.to_json().unwrap()).unwrap();
             assert_eq!(SweepResult::from_rows(&back).unwrap(), r);
         }
+    }
+
+    #[test]
+    fn an_interrupted_sweep_keeps_its_note_through_its_rows_and_files() {
+        let mut r = synthetic(Shard::WHOLE);
+        r.rows.truncate(4);
+        r.interrupted = Some(interrupted_note(KIND, 4, 9));
+        let set = r.to_rows();
+        assert_eq!(
+            set.interrupted.as_deref(),
+            Some("interrupted after 4 of 9 points")
+        );
+        let back: RowSet = serde_json::from_slice(&set.to_json().unwrap()).unwrap();
+        assert_eq!(SweepResult::from_rows(&back).unwrap(), r);
+        let j = r.to_json();
+        assert_eq!(j["interrupted"], "interrupted after 4 of 9 points");
+        assert_eq!(j["points_done"], 4);
+        assert!(
+            synthetic(Shard::WHOLE)
+                .to_json()
+                .get("interrupted")
+                .is_none()
+        );
+        // An interrupted whole sweep does not merge as the whole study, and says why.
+        let e = crate::study::shard::merge(vec![("a".into(), set)])
+            .unwrap_err()
+            .to_string();
+        assert!(
+            e.contains("5 of 9 points are in no folder") && e.contains("interrupted after 4 of 9"),
+            "{e}"
+        );
+    }
+
+    #[test]
+    fn a_raised_stop_flag_runs_no_point_and_marks_the_sweep_partial() {
+        let text = crate::scenario::overrides::ScenarioText::new(
+            crate::DEFAULT_SCENARIO.to_string(),
+            "demo".into(),
+            ".".into(),
+        )
+        .unwrap();
+        let spec = SweepSpec {
+            vary: vec![Vary {
+                key: "source.frequency".into(),
+                from: 1e3,
+                to: 2e3,
+            }],
+            points: 3,
+            log: false,
+        };
+        let cancel = AtomicBool::new(true);
+        for (shard, of) in [(Shard::WHOLE, 3), (Shard { k: 2, n: 2 }, 1)] {
+            let opts = SweepOptions {
+                threads: Some(2),
+                progress: false,
+                shard,
+            };
+            let r = run_sweep_until(&text, &spec, &opts, &cancel).unwrap();
+            assert!(r.rows.is_empty());
+            assert_eq!(
+                r.interrupted,
+                Some(format!("interrupted after 0 of {of} points"))
+            );
+            assert_eq!(r.total_points(), 3);
+        }
+        // The files are still written (a header-only table, empty plots).
+        let opts = SweepOptions {
+            threads: Some(1),
+            progress: false,
+            shard: Shard::WHOLE,
+        };
+        let r = run_sweep_until(&text, &spec, &opts, &cancel).unwrap();
+        let d = tempfile::tempdir().unwrap();
+        let dir = d.path().join("s");
+        write_sweep(&r, &dir).unwrap();
+        let csv = std::fs::read_to_string(dir.join("sweep.csv")).unwrap();
+        assert_eq!(csv.lines().count(), 1);
+        assert!(dir.join("sweep-enob.svg").exists());
+        // Bad values are still refused before the flag is looked at.
+        let mut bad = spec.clone();
+        bad.vary[0].from = -1e3;
+        assert!(
+            run_sweep_until(&text, &bad, &opts, &cancel)
+                .unwrap_err()
+                .is_bad_input()
+        );
     }
 
     #[test]
