@@ -519,8 +519,67 @@ impl Chain {
 /// fraction done.
 pub fn run(
     scenario: &Scenario,
+    sink: Option<&mut dyn WaveformSink>,
+    progress: &mut dyn FnMut(f64),
+) -> Result<RunOutput> {
+    run_with(scenario, sink, progress, false)
+}
+
+/// [`run`] for a study: no waveform sink, no progress, and a grid capture of the source and the output only
+/// (what the meters use; the stages in between are only for plots), in buffers reused from earlier runs on
+/// this thread (see [`RunOutput::recycle`]).
+pub fn run_lean(scenario: &Scenario) -> Result<RunOutput> {
+    run_with(scenario, None, &mut |_| {}, true)
+}
+
+thread_local! {
+    /// Buffers of finished runs, kept for the next run on this thread (see [`RunOutput::recycle`]): a study
+    /// then does not ask the system for fresh, zeroed pages at every point.
+    static SPARE: std::cell::RefCell<Vec<Vec<f64>>> = const { std::cell::RefCell::new(Vec::new()) };
+}
+
+/// Spare buffers kept per thread.
+const SPARE_MAX: usize = 8;
+
+/// An empty buffer with room for `cap` samples: the smallest spare that fits, or a new one.
+fn take_buffer(cap: usize) -> Vec<f64> {
+    SPARE.with(|s| {
+        let mut s = s.borrow_mut();
+        let best = (0..s.len())
+            .filter(|&i| s[i].capacity() >= cap)
+            .min_by_key(|&i| s[i].capacity());
+        match best {
+            Some(i) => {
+                let mut v = s.swap_remove(i);
+                v.clear();
+                v
+            }
+            None => Vec::with_capacity(cap),
+        }
+    })
+}
+
+impl RunOutput {
+    /// Hand this run's large buffers (grid capture, analysis records) to the next run on this thread.
+    pub fn recycle(self) {
+        let mut bufs: Vec<Vec<f64>> = self.capture.columns.into_iter().map(|(_, v)| v).collect();
+        bufs.push(self.source_record.volts);
+        bufs.push(self.output_record.volts);
+        SPARE.with(|s| {
+            let mut s = s.borrow_mut();
+            s.extend(bufs.into_iter().filter(|v| v.capacity() > 0));
+            // Keep the largest few.
+            s.sort_by_key(|v| std::cmp::Reverse(v.capacity()));
+            s.truncate(SPARE_MAX);
+        });
+    }
+}
+
+fn run_with(
+    scenario: &Scenario,
     mut sink: Option<&mut dyn WaveformSink>,
     progress: &mut dyn FnMut(f64),
+    lean: bool,
 ) -> Result<RunOutput> {
     let (plan, sc) = Plan::new(scenario)?;
     let tb = plan.timebase;
@@ -584,11 +643,17 @@ pub fn run(
     let mut dec_src = Decimator::new(plan.out_factor);
     let mut dec_out = Decimator::new(plan.out_factor);
     let dec_len = (plan.n_total - plan.n_settle) as usize / plan.out_factor + 16;
-    let mut src_dec: Vec<f64> = Vec::with_capacity(if exact_source { 0 } else { dec_len });
-    let mut out_dec: Vec<f64> = Vec::with_capacity(dec_len);
-    // One allocation per column up front (`vec![v; n]` would clone away the capacity and grow by copying).
-    let mut capture: Vec<Vec<f64>> = (0..labels.len())
-        .map(|_| Vec::with_capacity(plan.capture_len))
+    let mut src_dec: Vec<f64> = take_buffer(if exact_source { 0 } else { dec_len });
+    let mut out_dec: Vec<f64> = take_buffer(dec_len);
+    // The captured columns: every stream, or (lean) the source and the output.
+    let captured: Vec<usize> = if lean && labels.len() > 2 {
+        vec![0, labels.len() - 1]
+    } else {
+        (0..labels.len()).collect()
+    };
+    let mut capture: Vec<Vec<f64>> = captured
+        .iter()
+        .map(|_| take_buffer(plan.capture_len))
         .collect();
 
     let end_s = sc.simulation.duration_s;
@@ -727,8 +792,8 @@ pub fn run(
             }
             if end > plan.capture_n0 {
                 let from = plan.capture_n0.saturating_sub(n0) as usize;
-                for (c, col) in capture.iter_mut().zip(cols.iter()) {
-                    c.extend_from_slice(&col[from..]);
+                for (c, &i) in capture.iter_mut().zip(&captured) {
+                    c.extend_from_slice(&cols[i][from..]);
                 }
             }
             if let Some(s) = sink.as_deref_mut() {
@@ -745,7 +810,7 @@ pub fn run(
     }
     dec_out.flush(&mut out_dec);
     if exact_source {
-        src_dec = vec![0.0; out_dec.len()];
+        src_dec.resize(out_dec.len(), 0.0);
         chain.source.fill_at(
             tb.time_s(plan.n_settle),
             plan.out_factor as f64 * tb.dt_s(),
@@ -766,7 +831,9 @@ pub fn run(
     for v in [&mut src_dec, &mut out_dec] {
         v.truncate(start + want);
         v.drain(..start);
-        v.shrink_to_fit();
+        if !lean {
+            v.shrink_to_fit();
+        }
     }
     let source_record = AnalogRecord {
         timebase: out_tb,
@@ -789,7 +856,11 @@ pub fn run(
     let capture = Capture {
         timebase: tb,
         n0: plan.capture_n0,
-        columns: labels.into_iter().zip(capture).collect(),
+        columns: captured
+            .iter()
+            .map(|&i| labels[i].clone())
+            .zip(capture)
+            .collect(),
     };
     Ok(RunOutput {
         scenario: sc,

@@ -372,8 +372,10 @@ fn one_run(p: &Prepared<'_>, index: u64) -> Vec<Value> {
     let result = (|| -> Result<Vec<Option<f64>>> {
         let sc = p.text.with(&overrides)?;
         let chain = if p.dynamic {
-            let run = pipeline::run(&sc, None, &mut |_| {})?;
-            Some(measure_run(&run)?)
+            let run = pipeline::run_lean(&sc)?;
+            let m = measure_run(&run)?;
+            run.recycle();
+            Some(m)
         } else {
             None
         };

@@ -311,9 +311,11 @@ pub struct SweepOptions {
 
 /// Simulate and measure one checked scenario: (requested frequency, used frequency, metrics).
 pub fn simulate(sc: &Scenario) -> Result<(Option<f64>, Option<f64>, ChainMetrics)> {
-    let run = pipeline::run(sc, None, &mut |_| {})?;
+    let run = pipeline::run_lean(sc)?;
     let m = measure_run(&run)?;
-    Ok((run.plan.requested_frequency_hz, run.plan.frequency_hz, m))
+    let freqs = (run.plan.requested_frequency_hz, run.plan.frequency_hz);
+    run.recycle();
+    Ok((freqs.0, freqs.1, m))
 }
 
 /// A rayon pool of `threads` workers (None or 0: one per core).
