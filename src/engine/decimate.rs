@@ -137,18 +137,27 @@ fn dot4(a: [&[f64]; 4], b: &[f64]) -> [f64; 4] {
     let n = b.len();
     let (a0, a1, a2, a3) = (&a[0][..n], &a[1][..n], &a[2][..n], &a[3][..n]);
     let mut acc = [[0.0f64; 4]; 4];
-    let full = n - n % 4;
-    let mut i = 0;
-    while i < full {
+    let chunks = a0
+        .chunks_exact(4)
+        .zip(a1.chunks_exact(4))
+        .zip(a2.chunks_exact(4))
+        .zip(a3.chunks_exact(4))
+        .zip(b.chunks_exact(4));
+    for ((((x0, x1), x2), x3), t) in chunks {
         for l in 0..4 {
-            let t = b[i + l];
-            acc[0][l] += a0[i + l] * t;
-            acc[1][l] += a1[i + l] * t;
-            acc[2][l] += a2[i + l] * t;
-            acc[3][l] += a3[i + l] * t;
+            acc[0][l] += x0[l] * t[l];
         }
-        i += 4;
+        for l in 0..4 {
+            acc[1][l] += x1[l] * t[l];
+        }
+        for l in 0..4 {
+            acc[2][l] += x2[l] * t[l];
+        }
+        for l in 0..4 {
+            acc[3][l] += x3[l] * t[l];
+        }
     }
+    let full = n - n % 4;
     let rows = [a0, a1, a2, a3];
     let mut out = [0.0; 4];
     for k in 0..4 {
