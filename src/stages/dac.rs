@@ -328,7 +328,7 @@ fn first_due_step(
     t_ev_s: f64,
     eps_s: f64,
 ) -> usize {
-    let due = |j: usize| !(t_ev_s > tb.time_s(n0 + j as u64) + eps_s);
+    let due = |j: usize| t_ev_s.is_nan() || t_ev_s <= tb.time_s(n0 + j as u64) + eps_s;
     if from >= len || due(from) {
         return from.min(len);
     }

@@ -127,7 +127,7 @@ impl SarAdc {
         // (the same expressions as the general loop, evaluated once), and the trials need no instants.
         if let Some(h) = held
             && h.droop_v_per_s == 0.0
-            && !(noise_sigma > 0.0)
+            && (noise_sigma.is_nan() || noise_sigma <= 0.0)
         {
             let v = h.v;
             let u0 = (v - low) / q;
