@@ -232,6 +232,65 @@ impl Dac {
         } else {
             f64::NAN
         };
+        let len = out.len();
+        let mut j = 0;
+        while j < len {
+            let t_n = timebase.time_s(n0 + j as u64);
+            while let Some(ev) = events.get(i) {
+                if ev.t_avail_s > t_n + eps_s {
+                    break;
+                }
+                let t_ev = ev.t_avail_s.min(t_n);
+                if t_ev > self.t_cur_s {
+                    self.amp.advance_const(self.target_v, t_ev - self.t_cur_s);
+                    self.t_cur_s = t_ev;
+                }
+                self.target_v = self.level_v(ev.code);
+                i += 1;
+            }
+            if self.t_cur_s != prev_t {
+                // A partial step (after an event, or at the start): one step on its own.
+                let dt = (t_n - self.t_cur_s).max(0.0);
+                out[j] = self.amp.advance_const(self.target_v, dt);
+                self.t_cur_s = self.t_cur_s.max(t_n);
+                prev_t = t_n;
+                j += 1;
+            }
+            // Whole grid steps up to the next event's step: the target is constant, one run.
+            let end = match events.get(i) {
+                Some(ev) => first_due_step(timebase, n0, j, len, ev.t_avail_s, eps_s),
+                None => len,
+            };
+            if end > j {
+                self.amp
+                    .advance_const_run(self.target_v, grid_dt_s, &mut out[j..end]);
+                let t_last = timebase.time_s(n0 + end as u64 - 1);
+                self.t_cur_s = self.t_cur_s.max(t_last);
+                prev_t = t_last;
+                j = end;
+            }
+        }
+        i
+    }
+
+    /// The per-step form of [`Dac::render`] (one amplifier step per grid sample), kept as the reference for the
+    /// run-wise rendering.
+    #[cfg(test)]
+    fn render_per_step(
+        &mut self,
+        timebase: Timebase,
+        n0: u64,
+        events: &[CodeEvent],
+        out: &mut [f64],
+    ) -> usize {
+        let mut i = 0;
+        let eps_s = 1e-6 * timebase.dt_s();
+        let grid_dt_s = timebase.dt_s();
+        let mut prev_t = if n0 > 0 {
+            timebase.time_s(n0 - 1)
+        } else {
+            f64::NAN
+        };
         for (j, y) in out.iter_mut().enumerate() {
             let t_n = timebase.time_s(n0 + j as u64);
             while let Some(ev) = events.get(i) {
@@ -257,6 +316,36 @@ impl Dac {
         }
         i
     }
+}
+
+/// The first block index `j` in `from..len` whose grid instant takes an event at `t_ev_s` (the event is due
+/// once `t_ev_s <= time(n0 + j) + eps_s`, the rule of [`Dac::render`]), or `len` if none does.
+fn first_due_step(
+    tb: Timebase,
+    n0: u64,
+    from: usize,
+    len: usize,
+    t_ev_s: f64,
+    eps_s: f64,
+) -> usize {
+    let due = |j: usize| t_ev_s.is_nan() || t_ev_s <= tb.time_s(n0 + j as u64) + eps_s;
+    if from >= len || due(from) {
+        return from.min(len);
+    }
+    // Estimate from the rate, then correct by single steps (the test above is monotonic in j).
+    let est = ((t_ev_s - eps_s) * tb.rate_hz).ceil() - n0 as f64;
+    let mut j = if est.is_nan() {
+        len
+    } else {
+        est.clamp(from as f64 + 1.0, len as f64) as usize
+    };
+    while j > from + 1 && due(j - 1) {
+        j -= 1;
+    }
+    while j < len && !due(j) {
+        j += 1;
+    }
+    j
 }
 
 #[cfg(test)]
@@ -621,5 +710,99 @@ mod tests {
         let used = dac.render(Timebase::new(1e6), 0, &[], &mut out);
         assert_eq!(used, 0);
         assert!(out.iter().all(|y| *y == -5.0 + 0.25));
+    }
+
+    #[test]
+    fn run_wise_rendering_matches_per_step_rendering_with_events_on_and_off_the_grid() {
+        let rate = 1e6;
+        let tb = Timebase::new(rate);
+        let amps = [
+            // slew and settling: big code steps slew, then settle
+            OutputAmpCfg {
+                slew_rate_v_per_s: Some(2e6),
+                tau_s: Some(0.5e-6),
+                rails_v: None,
+            },
+            // with rails inside the range: some levels are clipped
+            OutputAmpCfg {
+                slew_rate_v_per_s: Some(3e6),
+                tau_s: Some(0.3e-6),
+                rails_v: Some((-4.0, 4.5)),
+            },
+            // settling only, slew only, neither
+            OutputAmpCfg {
+                slew_rate_v_per_s: None,
+                tau_s: Some(2e-6),
+                rails_v: None,
+            },
+            OutputAmpCfg {
+                slew_rate_v_per_s: Some(1e6),
+                tau_s: None,
+                rails_v: None,
+            },
+            OutputAmpCfg::default(),
+        ];
+        // Events at irregular instants (some exactly on grid instants, some a rounding error past one), and a
+        // sparse set so that runs settle for long stretches.
+        let mut evs = events(rate, 300);
+        for (k, e) in evs.iter_mut().enumerate() {
+            if k % 7 == 3 {
+                e.t_avail_s = (e.t_avail_s * rate).round() / rate * (1.0 + 2.0 * f64::EPSILON);
+            }
+        }
+        let sparse: Vec<CodeEvent> = events(rate, 300).into_iter().step_by(9).collect();
+        for out_cfg in amps {
+            for evs in [&evs, &sparse] {
+                let mut c = cfg(8, Ladder::R2r, 0.01, ToleranceDistribution::Uniform);
+                c.output = out_cfg;
+                let mut fast = Dac::new(&c, &mut rng(4));
+                let mut slow = fast.clone();
+                for split in [1000usize, 37, 1] {
+                    let (mut a, mut b) = (vec![0.0; 1000], vec![0.0; 1000]);
+                    let (mut used_a, mut used_b) = (0, 0);
+                    for n0 in (0..1000).step_by(split) {
+                        let n1 = (n0 + split).min(1000);
+                        used_a += fast.render(tb, n0 as u64, &evs[used_a..], &mut a[n0..n1]);
+                        used_b +=
+                            slow.render_per_step(tb, n0 as u64, &evs[used_b..], &mut b[n0..n1]);
+                    }
+                    assert_eq!(used_a, used_b);
+                    for (n, (x, y)) in a.iter().zip(&b).enumerate() {
+                        assert!(
+                            (x - y).abs() < 1e-12,
+                            "{out_cfg:?} split {split} n={n}: {x} vs {y}"
+                        );
+                    }
+                    // Continue from the state reached (a second period of the same events, shifted).
+                    fast = Dac::new(&c, &mut rng(4));
+                    slow = fast.clone();
+                }
+            }
+        }
+    }
+
+    #[test]
+    fn first_due_step_is_the_first_grid_instant_that_takes_the_event() {
+        let tb = Timebase::new(1e7);
+        let eps = 1e-6 * tb.dt_s();
+        let n0 = 123_456u64;
+        for t_ev in [
+            tb.time_s(n0 + 10),
+            tb.time_s(n0 + 10) * (1.0 + 2.0 * f64::EPSILON),
+            tb.time_s(n0 + 10) * (1.0 - 2.0 * f64::EPSILON),
+            tb.time_s(n0 + 10) + 0.5 * tb.dt_s(),
+            tb.time_s(n0 + 10) + 2.0 * eps,
+            tb.time_s(n0) - 1.0,
+            tb.time_s(n0 + 5000),
+        ] {
+            for from in [0usize, 3, 10, 11, 50] {
+                let got = first_due_step(tb, n0, from, 50, t_ev, eps);
+                // Slow oracle: scan.
+                let want = (from..50)
+                    .find(|&j| t_ev <= tb.time_s(n0 + j as u64) + eps)
+                    .unwrap_or(50);
+                assert_eq!(got, want, "t_ev {t_ev} from {from}");
+            }
+        }
     }
 }

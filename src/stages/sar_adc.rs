@@ -123,6 +123,33 @@ impl SarAdc {
         let noise_sigma = self.cfg.comparator_noise_v;
         let mut code: u64 = 0;
         let mut level = 0.0;
+        // Fast path: a held value without droop and a noiseless comparator compare the same u at every trial
+        // (the same expressions as the general loop, evaluated once), and the trials need no instants.
+        if let Some(h) = held
+            && h.droop_v_per_s == 0.0
+            && (noise_sigma.is_nan() || noise_sigma <= 0.0)
+        {
+            let v = h.v;
+            let u0 = (v - low) / q;
+            if !(0.0..full).contains(&u0) {
+                self.clipped += 1;
+            }
+            let noise = 0.0;
+            let u = (v + offset + noise - low) / q + dither;
+            for (i, w) in self.weights_lsb.iter().enumerate() {
+                let trial = level + w;
+                let keep = u >= trial;
+                level = if keep { trial } else { level };
+                code |= u64::from(keep) << (n as usize - 1 - i);
+            }
+            let t_avail = t_k + self.cfg.conversion_time_s;
+            sh.release(t_avail);
+            return CodeEvent {
+                t_sample_s: t_k,
+                t_avail_s: t_avail,
+                code: code as u32,
+            };
+        }
         for i in 0..n as usize {
             let t = t_k + (i + 1) as f64 / self.cfg.clock_hz;
             let v = match &held {
@@ -535,5 +562,34 @@ mod tests {
         let distinct: std::collections::BTreeSet<_> = a.iter().collect();
         assert!(distinct.len() >= 3);
         assert!(a.iter().all(|&k| (1995..=2006).contains(&k)));
+    }
+
+    #[test]
+    fn held_fast_path_matches_trials_written_out_one_by_one() {
+        // Slow oracle: the trial loop of the module documentation, one comparison per bit, for a mismatched
+        // array with offset and dither (the fast path covers a held value without droop or comparator noise).
+        let mut c = cfg(12);
+        c.capacitor_mismatch = 0.02;
+        c.comparator_offset_v = 0.37 * c.lsb_v();
+        c.dither = DitherKind::Tpdf;
+        c.dither_lsb = 2.0;
+        let mut a = adc(&c, 3);
+        let mut twin = adc(&c, 3);
+        let mut rng = ChaCha8Rng::seed_from_u64(8);
+        let span = c.range_v.1 - c.range_v.0;
+        for k in 0..20_000u64 {
+            let v = c.range_v.0 - 0.02 * span + 1.04 * span * rng.random::<f64>();
+            let got = a.convert(k, &FnProbe(move |_| v), &mut SampleHold::ideal());
+            let dither = twin.draw_dither_lsb();
+            let u = (v + c.comparator_offset_v - c.range_v.0) / c.lsb_v() + dither;
+            let (mut code, mut level) = (0u32, 0.0);
+            for (i, w) in twin.weights_lsb.iter().enumerate() {
+                if u >= level + w {
+                    level += w;
+                    code |= 1 << (11 - i);
+                }
+            }
+            assert_eq!(got.code, code, "k {k}, v {v}");
+        }
     }
 }

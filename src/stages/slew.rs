@@ -39,6 +39,10 @@ pub struct OutputAmp {
     v: f64,
     /// Cache of exp(-dt/tau) for the last step length used on the fast path: (dt, factor).
     decay_cache: (f64, f64),
+    /// After a settling run of [`OutputAmp::advance_const_run`]: its target, its error `target - v` (kept
+    /// unrounded, so a run continued in the next call goes on exactly as if it had not been split) and the
+    /// output it ended on. Cleared by every other change of the output.
+    run: Option<(f64, f64, f64)>,
 }
 
 /// The region of the error `e = T - v` that a closed-form piece lives in.
@@ -60,6 +64,7 @@ impl OutputAmp {
             slew_v_per_s: cfg.slew_rate_v_per_s.unwrap_or(f64::INFINITY),
             tau_s: cfg.tau_s.unwrap_or(0.0),
             decay_cache: (f64::NAN, f64::NAN),
+            run: None,
             lo_v,
             hi_v,
             v: 0.0,
@@ -70,6 +75,7 @@ impl OutputAmp {
 
     /// Force the output to `v` (V), clipped to the rails (e.g. to start settled at a first input).
     pub fn set_value_v(&mut self, v: f64) {
+        self.run = None;
         self.v = v.clamp(self.lo_v, self.hi_v);
     }
 
@@ -87,6 +93,7 @@ impl OutputAmp {
     /// Hold a constant target `target_v` (V) for `dt_s` (s); returns the output at the end (V). Exact.
     /// Without slew limit and time constant the output equals the target at once, even for `dt_s = 0`.
     pub fn advance_const(&mut self, target_v: f64, dt_s: f64) -> f64 {
+        self.run = None;
         // Fast path for the common case (a DAC settling between codes on a uniform grid): inside the linear
         // region and within the rails, the first-order decay is all there is, and stays so.
         let e = target_v - self.v;
@@ -105,9 +112,82 @@ impl OutputAmp {
         self.advance_linear(target_v, target_v, dt_s)
     }
 
+    /// Hold a constant target `target_v` (V) for `out.len()` successive steps of `dt_s` (s) each, writing the
+    /// output (V) after each step into `out`: the same as calling [`OutputAmp::advance_const`] once per step,
+    /// but in tight loops. Slewing steps that stay slewing are the same straight-line step as in
+    /// `advance_const` (bit-identical); the settling part is the geometric sequence `e <- e exp(-dt/tau)` of the
+    /// error `e = target - v` (agrees with per-step `advance_const` to a few ulp of the target per step).
+    /// Steps that leave the slewing region, touch a rail or need the general solution go through
+    /// `advance_const`. A run continued by a second call (same target, untouched output) gives the same
+    /// values as one call.
+    pub fn advance_const_run(&mut self, target_v: f64, dt_s: f64, out: &mut [f64]) {
+        let sr = self.slew_v_per_s;
+        let tau = self.tau_s;
+        if !(tau > 0.0 && dt_s > 0.0 && target_v >= self.lo_v && target_v <= self.hi_v) {
+            for y in out.iter_mut() {
+                *y = self.advance_const(target_v, dt_s);
+            }
+            return;
+        }
+        // Half-width of the linear region, the same expression as in `advance_const`'s fast path.
+        let band = sr * tau;
+        let step_v = sr * dt_s;
+        let mut j = 0;
+        // Slewing: while the whole step stays outside the band, the general solution is the straight piece
+        // v + SR dt (see `advance_linear`: piece duration (|e| - band)/SR >= dt).
+        while j < out.len() {
+            let v = self.v;
+            let e = target_v - v;
+            // The straight step and whether it meets a rail, as `advance_linear` / `first_rail_contact` decide.
+            let next = if e > band && (e - band) / sr >= dt_s {
+                let contact = self.hi_v.is_finite() && (self.hi_v - v) / sr <= dt_s;
+                (!contact).then_some(v + step_v)
+            } else if e < -band && (-band - e) / sr >= dt_s {
+                let contact = self.lo_v.is_finite() && (self.lo_v - v) / -sr <= dt_s;
+                (!contact).then_some(v + -step_v)
+            } else if e.abs() <= band {
+                break;
+            } else {
+                None
+            };
+            out[j] = match next {
+                Some(next) => {
+                    self.run = None;
+                    self.v = next.clamp(self.lo_v, self.hi_v);
+                    self.v
+                }
+                // Leaves the slewing region within the step, or meets a rail: the general path.
+                None => self.advance_const(target_v, dt_s),
+            };
+            j += 1;
+        }
+        if j == out.len() {
+            return;
+        }
+        // Settling: inside the band the error only shrinks, so the fast path of `advance_const` holds to the
+        // end of the run.
+        if self.decay_cache.0 != dt_s {
+            self.decay_cache = (dt_s, (-dt_s / tau).exp());
+        }
+        let decay = self.decay_cache.1;
+        let mut e = match self.run {
+            Some((t, e, v)) if t == target_v && v == self.v => e,
+            _ => target_v - self.v,
+        };
+        let mut v = self.v;
+        for y in out[j..].iter_mut() {
+            e *= decay;
+            v = target_v - e;
+            *y = v;
+        }
+        self.v = v;
+        self.run = Some((target_v, e, v));
+    }
+
     /// The target moves linearly from `target0_v` to `target1_v` (V) over `dt_s` (s); returns the output
     /// at the end (V). Exact up to rounding (closed form per piece).
     pub fn advance_linear(&mut self, target0_v: f64, target1_v: f64, dt_s: f64) -> f64 {
+        self.run = None;
         let sr = self.slew_v_per_s;
         let tau = self.tau_s;
         if sr.is_infinite() && tau == 0.0 {
@@ -710,5 +790,55 @@ mod tests {
         assert!((h.norm() - 0.5f64.sqrt()).abs() < 1e-15);
         assert!((h.arg() + PI / 4.0).abs() < 1e-15);
         assert_eq!(amp.response(0.0), Complex64::new(1.0, 0.0));
+    }
+
+    #[test]
+    fn a_run_of_constant_target_steps_matches_stepping_one_at_a_time() {
+        let cases = [
+            (cfg(Some(2e6), Some(0.5e-6), None), 0.0, 4.0),
+            (cfg(Some(2e6), Some(0.5e-6), None), 4.0, -3.0),
+            (cfg(Some(2e6), Some(0.5e-6), None), 1.0, 1.3),
+            (cfg(Some(2e6), Some(0.5e-6), Some((-1.0, 2.0))), 0.0, 1.999),
+            (cfg(Some(2e6), Some(0.5e-6), Some((-1.0, 2.0))), 0.0, 3.0),
+            (cfg(None, Some(1e-6), None), 0.0, 5.0),
+            (cfg(Some(1e6), None, None), 0.0, 2.0),
+            (cfg(None, None, Some((-1.0, 1.0))), 0.0, 2.0),
+        ];
+        for (c, v0, target) in cases {
+            for dt in [1e-7, 3.3e-8] {
+                let mut fast = OutputAmp::new(&c, v0);
+                let mut slow = fast.clone();
+                let mut a = vec![0.0; 300];
+                // Split in two calls: the second one continues the first's run.
+                fast.advance_const_run(target, dt, &mut a[..113]);
+                fast.advance_const_run(target, dt, &mut a[113..]);
+                for (n, y) in a.iter().enumerate() {
+                    let want = slow.advance_const(target, dt);
+                    assert!(
+                        (y - want).abs() <= 1e-13,
+                        "{c:?} {v0} -> {target}, dt {dt}, step {n}: {y} vs {want}"
+                    );
+                }
+                // Slewing steps are the same straight steps, bit for bit.
+                let mut s2 = OutputAmp::new(&c, v0);
+                assert_eq!(a[0].to_bits(), s2.advance_const(target, dt).to_bits());
+            }
+        }
+    }
+
+    #[test]
+    fn a_run_split_across_calls_is_bit_identical_to_one_call() {
+        let c = cfg(Some(2e6), Some(0.5e-6), None);
+        let mut one = OutputAmp::new(&c, 0.0);
+        let mut split = one.clone();
+        let mut a = vec![0.0; 200];
+        let mut b = vec![0.0; 200];
+        one.advance_const_run(3.0, 1e-7, &mut a);
+        for k in (0..200).step_by(17) {
+            split.advance_const_run(3.0, 1e-7, &mut b[k..(k + 17).min(200)]);
+        }
+        for (x, y) in a.iter().zip(&b) {
+            assert_eq!(x.to_bits(), y.to_bits());
+        }
     }
 }
