@@ -146,25 +146,49 @@ impl CrossCorrelation {
     }
 
     /// Band-limited correlation and its first two derivatives at a real lag `tau` (samples).
+    ///
+    /// The phase factors `e^{i 2 pi k tau / len}` come from four interleaved rotations (bins k, k+1, k+2, k+3,
+    /// each advancing four bins per step), recomputed exactly every 1024 bins, so the recurrences overlap.
     pub(crate) fn eval(&self, tau: f64) -> (f64, f64, f64) {
         let len = self.len as f64;
         let half = self.len / 2;
         let step = TAU * tau / len;
-        let (sd, cd) = step.sin_cos();
-        let (mut r, mut r1, mut r2) = (self.spectrum[0].re, 0.0, 0.0);
-        let mut e = Complex64::new(cd, sd);
-        for k in 1..half {
-            if k % 1024 == 0 {
-                let (s, c) = (step * k as f64).sin_cos();
-                e = Complex64::new(c, s);
+        let w1 = TAU / len;
+        let e1 = Complex64::from_polar(1.0, step);
+        let e4 = Complex64::from_polar(1.0, 4.0 * step);
+        let (mut r, mut r1, mut r2) = ([0.0f64; 4], [0.0f64; 4], [0.0f64; 4]);
+        // Bins 1 .. half (exclusive), in runs of 1024 restarted exactly.
+        let mut k0 = 1;
+        while k0 < half {
+            let k_end = (k0 + 1024).min(half);
+            let mut e = [Complex64::new(0.0, 0.0); 4];
+            e[0] = Complex64::from_polar(1.0, step * k0 as f64);
+            for l in 1..4 {
+                e[l] = e[l - 1] * e1;
             }
-            let w = TAU * k as f64 / len;
-            let z = self.spectrum[k] * e;
-            r += 2.0 * z.re;
-            r1 += -2.0 * w * z.im;
-            r2 += -2.0 * w * w * z.re;
-            e = Complex64::new(e.re * cd - e.im * sd, e.re * sd + e.im * cd);
+            let mut k = k0;
+            while k + 4 <= k_end {
+                for l in 0..4 {
+                    let w = w1 * (k + l) as f64;
+                    let z = self.spectrum[k + l] * e[l];
+                    r[l] += z.re;
+                    r1[l] -= w * z.im;
+                    r2[l] -= w * w * z.re;
+                    e[l] *= e4;
+                }
+                k += 4;
+            }
+            for (l, kk) in (k..k_end).enumerate() {
+                let w = w1 * kk as f64;
+                let z = self.spectrum[kk] * e[l];
+                r[l] += z.re;
+                r1[l] -= w * z.im;
+                r2[l] -= w * w * z.re;
+            }
+            k0 = k_end;
         }
+        let total = |v: [f64; 4]| 2.0 * ((v[0] + v[1]) + (v[2] + v[3]));
+        let (mut r, mut r1, mut r2) = (self.spectrum[0].re + total(r), total(r1), total(r2));
         let ny = self.spectrum[half].re;
         let (s, c) = (PI * tau).sin_cos();
         r += ny * c;

@@ -210,6 +210,66 @@ pub(crate) fn solve_sym_psd(g: &mut [f64], r: &[f64], n: usize) -> Vec<f64> {
     y
 }
 
+/// Calls `f(block, cos, sin)` for consecutive blocks of four samples of `x` with the cosines and sines of
+/// `phi + theta n` of their samples: four interleaved rotations (each advancing 4 theta), so the recurrences
+/// overlap, recomputed exactly every [`RESET_EVERY`] samples. Samples past the last whole block of four are
+/// passed with zero-padded `x` (the caller's sums must not count them: they are multiplied by x = 0, and the
+/// block carries how many are real).
+fn for_each_quad(
+    x: &[f64],
+    phi: f64,
+    theta: f64,
+    mut f: impl FnMut(&[f64; 4], usize, &[f64; 4], &[f64; 4]),
+) {
+    let (s1, c1) = theta.sin_cos();
+    let (s4, c4) = (4.0 * theta).sin_cos();
+    for (b, chunk) in x.chunks(RESET_EVERY).enumerate() {
+        let (mut s, mut c) = ([0.0f64; 4], [0.0f64; 4]);
+        (s[0], c[0]) = (phi + theta * (b * RESET_EVERY) as f64).sin_cos();
+        for k in 1..4 {
+            s[k] = s[k - 1] * c1 + c[k - 1] * s1;
+            c[k] = c[k - 1] * c1 - s[k - 1] * s1;
+        }
+        for q in chunk.chunks(4) {
+            let mut xv = [0.0f64; 4];
+            xv[..q.len()].copy_from_slice(q);
+            f(&xv, q.len(), &c, &s);
+            for k in 0..4 {
+                let sn = s[k] * c4 + c[k] * s4;
+                c[k] = c[k] * c4 - s[k] * s4;
+                s[k] = sn;
+            }
+        }
+    }
+}
+
+/// One tone: the projections `(sum x cos, sum x sin)` of `x` on `phi + theta n`.
+fn project_one(x: &[f64], phi: f64, theta: f64) -> (f64, f64) {
+    let (mut pc, mut ps) = ([0.0f64; 4], [0.0f64; 4]);
+    for_each_quad(x, phi, theta, |xv, _, c, s| {
+        for k in 0..4 {
+            pc[k] += xv[k] * c[k];
+            ps[k] += xv[k] * s[k];
+        }
+    });
+    (
+        (pc[0] + pc[1]) + (pc[2] + pc[3]),
+        (ps[0] + ps[1]) + (ps[2] + ps[3]),
+    )
+}
+
+/// One tone: the sum of squared residuals of `x ~ a cos + b sin + c`.
+fn residual_one(x: &[f64], phi: f64, theta: f64, a: f64, b: f64, off: f64) -> f64 {
+    let mut acc = [0.0f64; 4];
+    for_each_quad(x, phi, theta, |xv, used, c, s| {
+        for k in 0..4 {
+            let e = xv[k] - (a * c[k] + b * s[k] + off);
+            acc[k] += if k < used { e * e } else { 0.0 };
+        }
+    });
+    (acc[0] + acc[1]) + (acc[2] + acc[3])
+}
+
 /// Joint three-parameter fit of tones at known frequencies (Hz) plus a common offset:
 /// `x ~ sum_i (a_i cos(w_i t) + b_i sin(w_i t)) + c` at `t_n = t0_s + n / sample_rate_hz`.
 /// The normal matrix is built in closed form (no accumulation error); the projections and the residual take
@@ -271,34 +331,44 @@ pub fn fit_multitone(x: &[f64], sample_rate_hz: f64, tones_hz: &[f64], t0_s: f64
     }
     g[p * p - 1] = n as f64;
 
-    // Projections: one pass.
-    let mut rot: Vec<Rotator> = (0..k).map(|i| Rotator::new(phi[i], theta[i])).collect();
+    // Projections: one pass (a single tone, the common case, by four interleaved rotations).
     let mut rhs = vec![0.0; p];
-    let mut sum_x = 0.0;
-    for &xv in x {
-        for (i, r) in rot.iter_mut().enumerate() {
-            rhs[2 * i] += xv * r.c;
-            rhs[2 * i + 1] += xv * r.s;
-            r.advance();
+    if k == 1 {
+        (rhs[0], rhs[1]) = project_one(x, phi[0], theta[0]);
+        rhs[2] = x.iter().sum();
+    } else {
+        let mut rot: Vec<Rotator> = (0..k).map(|i| Rotator::new(phi[i], theta[i])).collect();
+        let mut sum_x = 0.0;
+        for &xv in x {
+            for (i, r) in rot.iter_mut().enumerate() {
+                rhs[2 * i] += xv * r.c;
+                rhs[2 * i + 1] += xv * r.s;
+                r.advance();
+            }
+            sum_x += xv;
         }
-        sum_x += xv;
+        rhs[p - 1] = sum_x;
     }
-    rhs[p - 1] = sum_x;
     let sol = solve_sym_psd(&mut g, &rhs, p);
 
     // Residual: second pass.
-    let mut rot: Vec<Rotator> = (0..k).map(|i| Rotator::new(phi[i], theta[i])).collect();
     let offset = sol[p - 1];
-    let mut ssr = 0.0;
-    for &xv in x {
-        let mut m = offset;
-        for (i, r) in rot.iter_mut().enumerate() {
-            m += sol[2 * i] * r.c + sol[2 * i + 1] * r.s;
-            r.advance();
+    let ssr = if k == 1 {
+        residual_one(x, phi[0], theta[0], sol[0], sol[1], offset)
+    } else {
+        let mut rot: Vec<Rotator> = (0..k).map(|i| Rotator::new(phi[i], theta[i])).collect();
+        let mut ssr = 0.0;
+        for &xv in x {
+            let mut m = offset;
+            for (i, r) in rot.iter_mut().enumerate() {
+                m += sol[2 * i] * r.c + sol[2 * i + 1] * r.s;
+                r.advance();
+            }
+            let e = xv - m;
+            ssr += e * e;
         }
-        let e = xv - m;
-        ssr += e * e;
-    }
+        ssr
+    };
     MultiToneFit {
         tones: (0..k)
             .map(|i| {
