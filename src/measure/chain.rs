@@ -58,7 +58,8 @@ pub struct OutputMetrics {
 /// Delay through the chain.
 #[derive(Debug, Clone, Serialize)]
 pub struct LatencyMetrics {
-    /// Cross-correlation delay, source to output, refined between samples.
+    /// Cross-correlation delay of the band-limited output record against the source record (the analysis
+    /// band, same instants), refined between samples.
     pub measured_s: f64,
     /// Phase delay at the fundamental (sine sources), ambiguity resolved with the correlation estimate.
     pub phase_delay_s: Option<f64>,

@@ -1,12 +1,13 @@
 //! Waveform fidelity: how closely an output follows a reference once delay, gain and offset are taken out.
 //!
-//! Definition used here: with `y(t) = reference(t - D)` (the reference delayed by `D` and interpolated between
-//! samples by a 64-tap Kaiser-windowed sinc, accurate to about -100 dB up to 0.44 of the sample rate), and
-//! `g`, `c` the least-squares gain and offset of `output ~ g y + c` over the samples where both exist,
-//! `fidelity_db = 10 log10(g^2 var(y) / mean(e^2))` with `e = output - g y - c`. That is the aligned reference's
-//! power over the error's power, both as they appear at the output (the same as the error referred back to the
-//! reference's scale). `D` is the delay that minimises `mean(e^2)`: the cross-correlation peak
-//! ([`super::latency::xcorr_delay_s`]) refined by two rounds of a three-point parabola on the error itself.
+//! Definition used here: with `y(t) = reference(t - D)` and `g`, `c` the least-squares gain and offset of
+//! `output ~ g y + c` over the samples where both exist, `fidelity_db = 10 log10(g^2 var(y) / mean(e^2))` with
+//! `e = output - g y - c`. That is the aligned reference's power over the error's power, both as they appear at
+//! the output (the same as the error referred back to the reference's scale). The delayed reference is either
+//! evaluated exactly ([`fidelity_exact_at`], for a reference known at any instant such as a closed-form source)
+//! or interpolated between its samples by a 64-tap Kaiser-windowed sinc (accurate to about -100 dB up to 0.44
+//! of the sample rate). `D` is the cross-correlation delay ([`super::latency::xcorr_delay_s`], or one given by
+//! the caller); on records under 4096 samples a three-point parabola on the error itself refines it.
 
 use super::latency::xcorr_delay_s;
 use super::window::bessel_i0;
