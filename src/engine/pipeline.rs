@@ -124,7 +124,9 @@ impl Plan {
                 // Records longer than RECORD_MAX output samples add nothing to the meters but memory: keep the
                 // last part of the window.
                 let per_code = sim.analog_rate_hz / factor as f64 / fs;
-                let m_keep = m.min((RECORD_MAX as f64 / per_code).floor());
+                // A length with only small prime factors keeps every FFT of the record fast (no chirp-z
+                // fallback for a large prime factor); it gives up at most a few per cent of the window.
+                let m_keep = smooth_at_most(m.min((RECORD_MAX as f64 / per_code).floor()) as usize) as f64;
                 let k0 = (sim.settle_s * fs).ceil() as u64 + (m - m_keep) as u64;
                 let m = m_keep;
                 (
@@ -158,7 +160,7 @@ impl Plan {
                 a.record_len * (out_rate_hz / a.sample_rate_hz).round() as usize
             }
             Some(a) => (a.record_len as f64 / a.sample_rate_hz * out_rate_hz).floor() as usize,
-            None => ((window_s * out_rate_hz).floor() as usize).min(RECORD_MAX),
+            None => smooth_at_most(((window_s * out_rate_hz).floor() as usize).min(RECORD_MAX)),
         };
         if out_record_len < 16 {
             return Err(Error::BadInput(format!(
@@ -235,6 +237,19 @@ impl Plan {
         };
         Ok((plan, sc))
     }
+}
+
+/// The largest length `<= n` whose prime factors are all 2, 3, 5 or 7 (`n` itself when `n < 1`).
+pub fn smooth_at_most(n: usize) -> usize {
+    let smooth = |mut m: usize| {
+        for p in [2, 3, 5, 7] {
+            while m.is_multiple_of(p) {
+                m /= p;
+            }
+        }
+        m == 1
+    };
+    (1..=n).rev().find(|&m| smooth(m)).unwrap_or(n)
 }
 
 /// Pick the decimation factor for the output analysis stream of a chain with a converter: the output rate is
@@ -888,5 +903,29 @@ fn fill_code_column(tb: Timebase, n0: u64, events: &[CodeEvent], last: &mut u32,
             i += 1;
         }
         *o = *last;
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn smooth_lengths_have_small_prime_factors_and_stay_close() {
+        assert_eq!(smooth_at_most(1798), 1792); // 2^8 x 7
+        assert_eq!(smooth_at_most(7192), 7168); // 2^10 x 7
+        assert_eq!(smooth_at_most(1024), 1024);
+        assert_eq!(smooth_at_most(0), 0);
+        for n in [16usize, 97, 1000, 65_537, 999_983, 1 << 20] {
+            let m = smooth_at_most(n);
+            assert!(m <= n && m as f64 >= 0.95 * n as f64, "{n} -> {m}");
+            let mut r = m;
+            for p in [2, 3, 5, 7] {
+                while r % p == 0 {
+                    r /= p;
+                }
+            }
+            assert_eq!(r, 1, "{m}");
+        }
     }
 }
