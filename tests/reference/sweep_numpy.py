@@ -18,9 +18,9 @@ Chain (same parameters as benches/reference-chain.toml, duration 20 ms, settle 2
      (scipy.signal.butter(4, 20e3, fs=10e6, output="sos")), scipy.signal.sosfilt on the grid, from rest
   -> analysis records: scipy.signal.resample_poly(x, 1, 25, window=("kaiser", 10.0)) to 400 kHz (zero phase,
      odd extension at the record end; beta 10 rather than scipy's default 5, whose +0.012 dB ripple at 19 kHz
-     showed up as a gain difference), the output record of 7192 samples (4 per code, 1798 codes) ending at the
-     end of the run; the source record is the closed-form source at the same instants. Coherent frequency: the
-     nearest odd cycle count coprime with the 1798-code record, as src/measure/coherent.rs.
+     showed up as a gain difference), the output record of 7168 samples (4 per code, 1792 codes: the 1798
+     conversions of the window trimmed to a 2^a 3^b 5^c 7^d length, as convchain) ending at the end of the run; the source record is the closed-form source at the same instants. Coherent frequency: the
+     nearest odd cycle count coprime with the 1792-code record, as src/measure/coherent.rs.
 
 Meters (`point` / `measure`; the definitions of convchain's src/measure/*.rs, vectorised with numpy/scipy):
   - spectrum: 4-term Blackman-Harris (periodic), numpy.fft.rfft, bin powers 2 |X|^2 / (N cg)^2 (half at DC and
@@ -118,8 +118,23 @@ STEP = int(round(GRID_HZ / FS_HZ))  # grid steps per conversion
 DELAY = int(round(CONV_S * GRID_HZ))  # grid steps from sampling to code availability
 N_CODES = int(round(DURATION_S * FS_HZ))
 # Record: the conversions in (duration - settle - conversion time - one period), as convchain's plan.
-M_REC = int(math.floor((DURATION_S - SETTLE_S - CONV_S - 1 / FS_HZ) * FS_HZ))  # 1798
-K0 = int(math.ceil(SETTLE_S * FS_HZ))
+M_AVAIL = int(math.floor((DURATION_S - SETTLE_S - CONV_S - 1 / FS_HZ) * FS_HZ))  # 1798
+
+
+def smooth_at_most(n):
+    """Largest length <= n with prime factors 2, 3, 5, 7 only (as convchain's Plan: fast FFTs)."""
+    for m in range(n, 0, -1):
+        r = m
+        for p in (2, 3, 5, 7):
+            while r % p == 0:
+                r //= p
+        if r == 1:
+            return m
+    return n
+
+
+M_REC = smooth_at_most(M_AVAIL)  # 1792; the record keeps the end of the window
+K0 = int(math.ceil(SETTLE_S * FS_HZ)) + (M_AVAIL - M_REC)
 OUT_HZ = GRID_HZ / DECIM
 OUT_REC = M_REC * int(round(OUT_HZ / FS_HZ))
 
