@@ -342,7 +342,7 @@ pub struct Chain {
     pub post: Vec<(String, Box<dyn AnalogStage>)>,
 }
 
-/// The converter group: [sample_hold] sar_adc link* dac.
+/// The converter group: `[sample_hold] sar_adc link* dac`.
 pub struct Converter {
     pub sh_label: Option<String>,
     pub sh: SampleHold,

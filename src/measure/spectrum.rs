@@ -1,6 +1,6 @@
 //! Windowed one-sided power spectra, scaled so that tone powers read in V^2.
 //!
-//! Scaling: with window w of coherent gain CG = sum(w)/N and X[k] = sum w[n] x[n] e^(-j 2 pi k n / N),
+//! Scaling: with window w of coherent gain CG = sum(w)/N and `X[k] = sum w[n] x[n] e^(-j 2 pi k n / N)`,
 //! `P[k] = c_k |X[k]|^2 / (N CG)^2` with c_k = 2 for 0 < k < N/2 and 1 for DC and (N even) the Nyquist bin.
 //! A sine of amplitude A exactly on bin k (0 < k < N/2) then reads A^2/2 in bin k, whatever the window. Summing
 //! the bins of a tone's main lobe and dividing by the window's ENBW (bins) gives the tone's power, and summing
