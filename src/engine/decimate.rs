@@ -5,6 +5,16 @@
 //! stopband starts at 0.6 x the output rate, so only the top fifth of the output band can carry aliases and the
 //! meters keep below 0.4 x the output rate. The filter's delay is compensated: output sample m stands for the
 //! instant of input sample m x factor.
+//!
+//! Computation (per pushed block, no per-sample work): the inputs the due outputs read are split into `factor`
+//! phase rows, so that the inputs one tap sees for consecutive outputs are consecutive; the symmetric taps are
+//! folded (`t[i] (x[i] + x[L - 1 - i])`, half the multiplies); and many outputs are computed at once, one per
+//! vector lane, with each tap broadcast over the lanes (16 outputs at a time on the baseline x86-64 build, 32 in
+//! an AVX2 build of the same code chosen at run time). Every output is summed in one fixed order (centre tap, then
+//! the folded pairs phase by phase), whatever block or lane group it falls in and whichever build runs it (no fused
+//! multiply-add), so the result does not depend on how the stream is split into blocks nor on the processor. That
+//! order differs from a plain left-to-right dot product: outputs agree with one to rounding (below 1e-15 of the
+//! signal's peak through both stages of a factor of 25), not bit for bit.
 
 use crate::measure::window::bessel_i0;
 
