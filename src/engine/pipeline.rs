@@ -126,7 +126,8 @@ impl Plan {
                 let per_code = sim.analog_rate_hz / factor as f64 / fs;
                 // A length with only small prime factors keeps every FFT of the record fast (no chirp-z
                 // fallback for a large prime factor); it gives up at most a few per cent of the window.
-                let m_keep = smooth_at_most(m.min((RECORD_MAX as f64 / per_code).floor()) as usize) as f64;
+                let m_keep =
+                    smooth_at_most(m.min((RECORD_MAX as f64 / per_code).floor()) as usize) as f64;
                 let k0 = (sim.settle_s * fs).ceil() as u64 + (m - m_keep) as u64;
                 let m = m_keep;
                 (
@@ -284,13 +285,17 @@ pub fn si(v: f64, unit: &str) -> String {
 pub struct Capture {
     pub timebase: Timebase,
     pub n0: u64,
-    /// (column label, volts); the first column is the source, the last the chain's output.
+    /// (column label, volts); the first column is the source (when captured), the last the chain's output.
     pub columns: Vec<(String, Vec<f64>)>,
+    /// False when a lean run left the source out (a closed-form source the meters evaluate themselves).
+    pub has_source: bool,
 }
 
 impl Capture {
-    pub fn source(&self) -> &[f64] {
-        &self.columns[0].1
+    /// The source's grid samples, when captured (always, except in [`run_lean`] for closed-form sources whose
+    /// meters do not need them).
+    pub fn source(&self) -> Option<&[f64]> {
+        self.has_source.then(|| &self.columns[0].1[..])
     }
     pub fn output(&self) -> &[f64] {
         &self.columns[self.columns.len() - 1].1
@@ -660,8 +665,20 @@ fn run_with(
     let dec_len = (plan.n_total - plan.n_settle) as usize / plan.out_factor + 16;
     let mut src_dec: Vec<f64> = take_buffer(if exact_source { 0 } else { dec_len });
     let mut out_dec: Vec<f64> = take_buffer(dec_len);
-    // The captured columns: every stream, or (lean) the source and the output.
-    let captured: Vec<usize> = if lean && labels.len() > 2 {
+    // The captured columns: every stream, or (lean) the source and the output; a lean run leaves out a
+    // closed-form source that feeds the converter directly (the meters evaluate it exactly; only the group
+    // delay of a multitone or chirp reads its grid samples), and then does not generate it on the grid at all.
+    let skip_source = lean
+        && exact_source
+        && n_pre == 0
+        && has_conv
+        && !matches!(
+            sc.source.waveform,
+            Waveform::Multitone { .. } | Waveform::Chirp { .. }
+        );
+    let captured: Vec<usize> = if skip_source {
+        vec![labels.len() - 1]
+    } else if lean && labels.len() > 2 {
         vec![0, labels.len() - 1]
     } else {
         (0..labels.len()).collect()
@@ -679,7 +696,9 @@ fn run_with(
         if b < n_blocks {
             let n0 = b * BLOCK as u64;
             let len = (plan.n_total - n0).min(BLOCK as u64) as usize;
-            chain.source.fill(n0, &mut front_cur[0][..len]);
+            if !skip_source {
+                chain.source.fill(n0, &mut front_cur[0][..len]);
+            }
             for i in 0..n_pre {
                 let (head, tail) = front_cur.split_at_mut(i + 1);
                 chain.pre[i].1.process(&head[i][..len], &mut tail[0][..len]);
@@ -876,6 +895,7 @@ fn run_with(
             .map(|&i| labels[i].clone())
             .zip(capture)
             .collect(),
+        has_source: !skip_source,
     };
     Ok(RunOutput {
         scenario: sc,

@@ -262,7 +262,7 @@ pub fn measure_run(run: &RunOutput) -> Result<ChainMetrics> {
     let broadband_hz = plan.out_band_hz.min(grid_rate / 4.0) / 10.0;
     let budget = run.chain.budget(f0, broadband_hz);
     let budget_s: f64 = budget.iter().map(|b| b.seconds).sum();
-    let capture_s = cap.source().len() as f64 / grid_rate;
+    let capture_s = cap.output().len() as f64 / grid_rate;
     let period_s = f0.map(|f| 1.0 / f);
     // The delay of what the chain carries: the source and output records hold the analysis band at the same
     // instants, free of the images and steps above it, in a few thousand samples rather than the capture's
@@ -273,42 +273,49 @@ pub fn measure_run(run: &RunOutput) -> Result<ChainMetrics> {
     let phase_delay_s = f0
         .map(|f| latency::phase_delay_s(src, out, rate, f, measured_s))
         .and_then(finite);
-    let group_delay_s = match &sc.source.waveform {
-        Waveform::Multitone { tones } => {
+    let group_delay_s = match (&sc.source.waveform, cap.source()) {
+        (Waveform::Multitone { tones }, Some(cap_src)) => {
             let f: Vec<f64> = tones.iter().map(|t| t.frequency_hz).collect();
-            latency::group_delay_s(cap.source(), cap.output(), grid_rate, &f)
+            latency::group_delay_s(cap_src, cap.output(), grid_rate, &f)
         }
-        w @ Waveform::Chirp { .. } => match latency::ChirpSweep::from_waveform(w) {
-            Some(sweep) => latency::chirp_group_delay_s(
-                cap.source(),
-                cap.output(),
-                grid_rate,
-                cap.timebase.time_s(cap.n0),
-                &sweep,
-                CHIRP_GROUP_DELAY_POINTS,
-            ),
-            None => Vec::new(),
-        },
+        (w @ Waveform::Chirp { .. }, Some(cap_src)) => {
+            match latency::ChirpSweep::from_waveform(w) {
+                Some(sweep) => latency::chirp_group_delay_s(
+                    cap_src,
+                    cap.output(),
+                    grid_rate,
+                    cap.timebase.time_s(cap.n0),
+                    &sweep,
+                    CHIRP_GROUP_DELAY_POINTS,
+                ),
+                None => Vec::new(),
+            }
+        }
         _ => Vec::new(),
     };
     // The alignment starts at the measured delay. A closed-form source is evaluated exactly at the delayed
     // instants; a sampled one (noise, WAV) is interpolated from its capture.
     let source = &run.chain.source;
-    let fid = if !(measured_s.is_finite() && measured_s.abs() < capture_s / 4.0) {
-        let max_delay_s = (4.0 * budget_s.abs() + 20.0 / grid_rate).min(capture_s / 4.0);
-        fidelity::fidelity(cap.source(), cap.output(), grid_rate, max_delay_s)
-    } else if source.is_exact() {
-        fidelity::fidelity_exact_at(
+    let delay_ok = measured_s.is_finite() && measured_s.abs() < capture_s / 4.0;
+    let fid = match cap.source() {
+        Some(cap_src) if !delay_ok => {
+            let max_delay_s = (4.0 * budget_s.abs() + 20.0 / grid_rate).min(capture_s / 4.0);
+            fidelity::fidelity(cap_src, cap.output(), grid_rate, max_delay_s)
+        }
+        Some(cap_src) if !source.is_exact() => {
+            fidelity::fidelity_at(cap_src, cap.output(), grid_rate, measured_s)
+        }
+        // A closed-form source is evaluated exactly at the delayed instants (at the budget's delay when the
+        // correlation found none).
+        _ => fidelity::fidelity_exact_at(
             |t0, dt, y| {
                 source.fill_at(t0, dt, y);
             },
             cap.output(),
             cap.timebase.time_s(cap.n0),
             grid_rate,
-            measured_s,
-        )
-    } else {
-        fidelity::fidelity_at(cap.source(), cap.output(), grid_rate, measured_s)
+            if delay_ok { measured_s } else { budget_s },
+        ),
     };
     let difference_s = measured_s - budget_s;
     let sample_period = plan

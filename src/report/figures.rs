@@ -40,7 +40,7 @@ pub fn default_window_s(run: &RunOutput) -> (f64, f64) {
     let cap = &run.capture;
     let dt = cap.timebase.dt_s();
     let start = cap.timebase.time_s(cap.n0);
-    let end = start + (cap.source().len().saturating_sub(1)) as f64 * dt;
+    let end = start + (cap.output().len().saturating_sub(1)) as f64 * dt;
     let mut width = 64.0 * dt;
     if let Some(f) = run.plan.frequency_hz {
         width = width.max(3.0 / f);
@@ -65,7 +65,7 @@ pub fn run_figures(
     let tb = cap.timebase;
     let (w0, w1) = window_s.unwrap_or_else(|| default_window_s(run));
     let cap_t0 = tb.time_s(cap.n0);
-    let len = cap.source().len();
+    let len = cap.output().len();
     let i0 = (((w0 - cap_t0) * tb.rate_hz).floor().max(0.0) as usize).min(len.saturating_sub(2));
     let i1 = (((w1 - cap_t0) * tb.rate_hz).ceil().max(0.0) as usize + 1).clamp(i0 + 2, len);
     let t0 = cap_t0 + i0 as f64 * tb.dt_s();

@@ -899,6 +899,56 @@ mod tests {
     }
 
     #[test]
+    fn a_study_point_measures_exactly_what_a_run_measures() {
+        // A study's lean run (source left off the grid, buffers reused) must give the run's numbers bit for bit:
+        // a sine (source skipped) and a multitone (source kept for the group delay), twice each on one thread
+        // so the second lean run works in the first one's recycled buffers.
+        // The speed reference chain: a closed-form source straight into the hold.
+        let text = crate::scenario::overrides::ScenarioText::new(
+            include_str!("../../benches/reference-chain.toml").to_string(),
+            "reference".into(),
+            ".".into(),
+        )
+        .unwrap();
+        let sine = text
+            .with(&[
+                ("simulation.duration".into(), 0.012),
+                ("simulation.settle".into(), 0.002),
+            ])
+            .unwrap();
+        let mut multi = sine.clone();
+        multi.source.waveform = crate::scenario::Waveform::Multitone {
+            tones: [(1000.0, 0.3), (3100.0, 0.2), (7300.0, 0.1)]
+                .iter()
+                .map(|&(f, a)| crate::scenario::Tone {
+                    frequency_hz: f,
+                    amplitude_v: a,
+                    phase_rad: 0.4,
+                })
+                .collect(),
+        };
+        for sc in [&sine, &multi, &sine, &multi] {
+            let full = pipeline::run(sc, None, &mut |_| {}).unwrap();
+            let want = metric_values(&measure_run(&full).unwrap());
+            let want_gd = measure_run(&full).unwrap().latency.group_delay_s;
+            let lean = pipeline::run_lean(sc).unwrap();
+            assert_eq!(lean.capture.source().is_some(), sc == &multi);
+            let m = measure_run(&lean).unwrap();
+            lean.recycle();
+            let got = metric_values(&m);
+            for (i, (a, b)) in want.iter().zip(&got).enumerate() {
+                assert_eq!(
+                    a.map(f64::to_bits),
+                    b.map(f64::to_bits),
+                    "{}",
+                    METRIC_COLUMNS[i]
+                );
+            }
+            assert_eq!(want_gd, m.latency.group_delay_s);
+        }
+    }
+
+    #[test]
     fn every_number_of_the_report_sections_has_a_column() {
         // Guards the explicit column list against fields added to the report later.
         let sc =
