@@ -441,7 +441,8 @@ fn block_step<const N: usize>(
         }
     }
     let mut xb = [0.0; N];
-    for k in 0..N {
+    // The last state is the padding (always 0): its column is skipped.
+    for k in 0..N - 1 {
         let xk = x[k];
         for j in 0..BLOCK_LEN {
             acc[j] += m[k][j] * xk;
