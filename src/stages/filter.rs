@@ -44,9 +44,21 @@
 //! - DC accuracy of the f64 recursion: measured 5.3e-11 relative at cutoff rate/2000, 1.2e-8 at rate/20000
 //!   (order 8 Chebyshev), from rounding with poles close to z = 1.
 //!
-//! The hot path (`tick`, `process`) is 5 multiply-adds per second-order section plus one per FIR tap; no
-//! allocation. The recursion through the output is one multiply and one subtraction per sample and section
-//! (the feed-forward sums are off that dependency chain), which sets the speed of `process`. `process` gives bit-identical output to repeated `tick`.
+//! # Sample path and block path
+//! `tick` runs the sections' recursion: 5 multiply-adds per second-order section plus one per FIR tap, the
+//! recursion through the output one multiply and one subtraction per sample and section, which bounds its
+//! speed by latency. `process` runs the sections as one state-space system over whole blocks of `BLOCK_LEN` = 8
+//! samples (block state-space form, see `BlockForm`): y = M z + T u and z <- P z + Q u, written in column form
+//! so that it vectorises; the only loop-carried dependency is the state update once per block. Samples left
+//! over after the last whole block of a call, and calls shorter than a block, run the sections' recursion.
+//! The FIR section runs sample by sample in both paths. No allocation in either.
+//!
+//! The two paths realise the same coefficients and differ by rounding only: `process` agrees with repeated
+//! `tick` within 3.1e-11 of the output's peak over 1e6 samples of noise for every design at cutoff rate/2000
+//! (2.6e-14 at rate/20); against a double-double run of the same recursion the block path is the more accurate
+//! one for lowpasses (about 1e-15 against 1e-13..3e-12). The block state carries over exactly between calls
+//! that end with a whole block, so the output does not depend on how whole blocks are grouped into calls;
+//! calls that are not multiples of the block length shift the blocks and change only the rounding.
 
 use std::f64::consts::PI;
 use std::sync::OnceLock;
@@ -181,6 +193,271 @@ impl Fir {
     }
 }
 
+/// Samples per block of the block path (`process`).
+const BLOCK_LEN: usize = 8;
+/// Most states of the block form: h of the first section, then g and y1 of each of at most 4 sections, and
+/// one unused state that pads the count to an even number (whole vector registers).
+const MAX_STATES: usize = 2 + 2 * (MAX_ORDER as usize).div_ceil(2);
+
+/// The cascade of sections as one linear state-space system, advanced `BLOCK_LEN` samples at a time.
+///
+/// State z: h of the first section (b2 times the previous input), then for each section its last output
+/// y1 ("level") and s - y1 ("slope"), where s = g - a1 y1 is the section's next output for a zero input; the
+/// h of every later section is not a state (it is b2 times the previous section's y1). The level/slope basis
+/// keeps the block matrices well conditioned with poles close to z = 1: a section's part of P = A^L is then
+/// close to [[1, L], [0, 1]] and the rounding of its entries moves the poles by about one ulp, whereas in the
+/// sections' own (g, y1) basis the entries grow like L and the poles of the block form would move about 20x
+/// more (measured: 1.3e-10 relative output error for a 6 dB Chebyshev at rate/2000 instead of 3e-12).
+/// Over a block of L = `BLOCK_LEN` inputs u (state z at the block start): y = M z + T u and z <- P z + Q u,
+/// with M (L x n) rows C A^j, T (L x L) the lower-triangular Toeplitz matrix of the impulse response, P = A^L
+/// and Q (n x L) columns A^(L-1-k) B. The matrices are built by running the sections' recursion on unit states
+/// and unit inputs in double-double arithmetic and rounding once. They are stored by columns (one column per
+/// state or input sample) for the column-form kernel.
+#[derive(Debug, Clone, PartialEq)]
+struct BlockForm {
+    /// Number of states n (3, 5, 7 or 9), padded to an even number by a state that stays 0.
+    states: usize,
+    /// m[k][j]: output j of the block for unit state k.
+    m: [[f64; BLOCK_LEN]; MAX_STATES],
+    /// t[k][j]: output j of the block for a unit input at sample k (0 for j < k).
+    t: [[f64; BLOCK_LEN]; BLOCK_LEN],
+    /// p[k][i]: state i at the block end for unit state k.
+    p: [[f64; MAX_STATES]; MAX_STATES],
+    /// q[k][i]: state i at the block end for a unit input at sample k.
+    q: [[f64; MAX_STATES]; BLOCK_LEN],
+}
+
+/// A double-double number hi + lo (|lo| <= ulp(hi) / 2), for building the block matrices.
+#[derive(Debug, Clone, Copy, Default)]
+struct Dd {
+    hi: f64,
+    lo: f64,
+}
+
+impl Dd {
+    fn from(x: f64) -> Dd {
+        Dd { hi: x, lo: 0.0 }
+    }
+
+    /// Error-free sum, then renormalised (Knuth's two-sum).
+    fn add(self, o: Dd) -> Dd {
+        let s = self.hi + o.hi;
+        let bb = s - self.hi;
+        let e = (self.hi - (s - bb)) + (o.hi - bb);
+        let e = e + self.lo + o.lo;
+        let hi = s + e;
+        Dd {
+            hi,
+            lo: e - (hi - s),
+        }
+    }
+
+    fn neg(self) -> Dd {
+        Dd {
+            hi: -self.hi,
+            lo: -self.lo,
+        }
+    }
+
+    /// Product with an f64 (the error of hi * c by a fused multiply-add).
+    fn mul(self, c: f64) -> Dd {
+        let p = self.hi * c;
+        let e = self.hi.mul_add(c, -p) + self.lo * c;
+        let hi = p + e;
+        Dd {
+            hi,
+            lo: e - (hi - p),
+        }
+    }
+}
+
+impl BlockForm {
+    /// One sample of the cascade in double-double, state x = (h of the first section, then g and y1 of each
+    /// section).
+    fn step(sections: &[Section], x: &mut [Dd], u: Dd) -> Dd {
+        let old = x.to_vec();
+        let mut v = u;
+        for (k, s) in sections.iter().enumerate() {
+            let h = if k == 0 {
+                old[0]
+            } else {
+                old[2 * k].mul(s.b[2])
+            };
+            let (g, y1) = (old[1 + 2 * k], old[2 + 2 * k]);
+            let y = v.mul(s.b[0]).add(g).add(y1.mul(s.a1).neg());
+            x[1 + 2 * k] = v.mul(s.b[1]).add(h).add(y1.mul(s.a2).neg());
+            x[2 + 2 * k] = y;
+            v = y;
+        }
+        x[0] = u.mul(sections[0].b[2]);
+        v
+    }
+
+    fn new(sections: &[Section]) -> BlockForm {
+        let n = 2 + 2 * sections.len();
+        assert!(n <= MAX_STATES);
+        let mut bf = BlockForm {
+            states: n,
+            m: [[0.0; BLOCK_LEN]; MAX_STATES],
+            t: [[0.0; BLOCK_LEN]; BLOCK_LEN],
+            p: [[0.0; MAX_STATES]; MAX_STATES],
+            q: [[0.0; MAX_STATES]; BLOCK_LEN],
+        };
+        let zero = Dd::default();
+        // 1 + a1 of each section, exactly.
+        let c: Vec<Dd> = sections
+            .iter()
+            .map(|s| Dd::from(1.0).add(Dd::from(s.a1)))
+            .collect();
+        // z -> x: g = slope + (1 + a1) level, y1 = level.
+        let to_x = |z: &[Dd]| {
+            let mut x = z.to_vec();
+            for (k, ck) in c.iter().enumerate() {
+                let (level, slope) = (z[1 + 2 * k], z[2 + 2 * k]);
+                x[1 + 2 * k] = slope.add(level.mul(ck.hi)).add(level.mul(ck.lo));
+                x[2 + 2 * k] = level;
+            }
+            x
+        };
+        // x -> z: level = y1, slope = g - (1 + a1) y1.
+        let to_z = |x: &[Dd]| {
+            let mut z = x.to_vec();
+            for (k, ck) in c.iter().enumerate() {
+                let (g, y1) = (x[1 + 2 * k], x[2 + 2 * k]);
+                z[1 + 2 * k] = y1;
+                z[2 + 2 * k] = g.add(y1.mul(ck.hi).neg()).add(y1.mul(ck.lo).neg());
+            }
+            z
+        };
+        // The last state is the padding: its row and column stay 0.
+        for k in 0..n - 1 {
+            let mut z = vec![zero; n];
+            z[k] = Dd::from(1.0);
+            let mut x = to_x(&z);
+            for j in 0..BLOCK_LEN {
+                bf.m[k][j] = Self::step(sections, &mut x, zero).hi;
+            }
+            for (i, zi) in to_z(&x).iter().enumerate() {
+                bf.p[k][i] = zi.hi;
+            }
+        }
+        for k in 0..BLOCK_LEN {
+            let mut x = vec![zero; n];
+            for j in 0..BLOCK_LEN {
+                let u = if j == k { Dd::from(1.0) } else { zero };
+                bf.t[k][j] = Self::step(sections, &mut x, u).hi;
+            }
+            for (i, zi) in to_z(&x).iter().enumerate() {
+                bf.q[k][i] = zi.hi;
+            }
+        }
+        bf
+    }
+
+    /// The block state z of the sections' state (rounded once).
+    fn state_of(sections: &[Section]) -> [f64; MAX_STATES] {
+        let mut z = [0.0; MAX_STATES];
+        z[0] = sections[0].h;
+        for (k, sec) in sections.iter().enumerate() {
+            z[1 + 2 * k] = sec.y1;
+            z[2 + 2 * k] = sec.g - (1.0 + sec.a1) * sec.y1;
+        }
+        z
+    }
+
+    /// Set the sections' state from the block state z (rounded once); `last_input` is the cascade's last
+    /// input, for the h of the first section.
+    fn set_sections(z: &[f64; MAX_STATES], sections: &mut [Section], last_input: f64) {
+        let mut v = last_input;
+        for (k, sec) in sections.iter_mut().enumerate() {
+            sec.y1 = z[1 + 2 * k];
+            sec.g = z[2 + 2 * k] + (1.0 + sec.a1) * sec.y1;
+            // As the sample path computes it: b2 times the section's last input.
+            sec.h = sec.b[2] * v;
+            v = sec.y1;
+        }
+    }
+
+    /// Run whole blocks: `input.len()` is a multiple of `BLOCK_LEN`; `x` is the state (first `states` used).
+    fn run(&self, x: &mut [f64; MAX_STATES], input: &[f64], output: &mut [f64]) {
+        match self.states {
+            4 => self.run_n::<4>(x, input, output),
+            6 => self.run_n::<6>(x, input, output),
+            8 => self.run_n::<8>(x, input, output),
+            _ => self.run_n::<10>(x, input, output),
+        }
+    }
+
+    fn run_n<const N: usize>(
+        &self,
+        state: &mut [f64; MAX_STATES],
+        input: &[f64],
+        output: &mut [f64],
+    ) {
+        let mut x: [f64; N] = *state.first_chunk::<N>().expect("N <= MAX_STATES");
+        let m: &[[f64; BLOCK_LEN]; N] = self.m.first_chunk::<N>().expect("N <= MAX_STATES");
+        let mut p = [[0.0; N]; N];
+        for (pk, full) in p.iter_mut().zip(&self.p) {
+            *pk = *full.first_chunk::<N>().expect("N <= MAX_STATES");
+        }
+        let mut q = [[0.0; N]; BLOCK_LEN];
+        for (qk, full) in q.iter_mut().zip(&self.q) {
+            *qk = *full.first_chunk::<N>().expect("N <= MAX_STATES");
+        }
+        for (u, y) in input
+            .chunks_exact(BLOCK_LEN)
+            .zip(output.chunks_exact_mut(BLOCK_LEN))
+        {
+            let u: &[f64; BLOCK_LEN] = u.try_into().expect("whole block");
+            let y: &mut [f64; BLOCK_LEN] = y.try_into().expect("whole block");
+            block_step(m, &self.t, &p, &q, &mut x, u, y);
+        }
+        state[..N].copy_from_slice(&x);
+    }
+}
+
+/// One block of the block form in column form (broadcast one state or input, scale a whole column, add), so
+/// that the loops vectorise. The input terms are summed first, off the recursion; the state terms of x <- P x
+/// + Q u go to two partial sums (even and odd states) to shorten the loop-carried chain.
+#[inline(always)]
+fn block_step<const N: usize>(
+    m: &[[f64; BLOCK_LEN]; N],
+    t: &[[f64; BLOCK_LEN]; BLOCK_LEN],
+    p: &[[f64; N]; N],
+    q: &[[f64; N]; BLOCK_LEN],
+    x: &mut [f64; N],
+    u: &[f64; BLOCK_LEN],
+    y: &mut [f64; BLOCK_LEN],
+) {
+    let mut acc = [0.0; BLOCK_LEN];
+    let mut xa = [0.0; N];
+    for k in 0..BLOCK_LEN {
+        let uk = u[k];
+        for j in k..BLOCK_LEN {
+            acc[j] += t[k][j] * uk;
+        }
+        for i in 0..N {
+            xa[i] += q[k][i] * uk;
+        }
+    }
+    let mut xb = [0.0; N];
+    // The last state is the padding (always 0): its column is skipped.
+    for k in 0..N - 1 {
+        let xk = x[k];
+        for j in 0..BLOCK_LEN {
+            acc[j] += m[k][j] * xk;
+        }
+        let part = if k % 2 == 0 { &mut xa } else { &mut xb };
+        for i in 0..N {
+            part[i] += p[k][i] * xk;
+        }
+    }
+    *y = acc;
+    for i in 0..N {
+        x[i] = xa[i] + xb[i];
+    }
+}
+
 /// A continuous-time filter realised on the analog grid. See the module documentation for the prototypes and
 /// the realisation.
 #[derive(Debug, Clone)]
@@ -196,6 +473,11 @@ pub struct Filter {
     ref_gain: f64,
     sections: Vec<Section>,
     fir: Option<Fir>,
+    /// The sections as one state-space system over blocks of `BLOCK_LEN` samples (the block path).
+    block: BlockForm,
+    /// The block form's state after the last call of `process` if that ended with a whole block (the
+    /// sections' state is then its rounded image); `None` once the sections' recursion has run since.
+    block_state: Option<[f64; MAX_STATES]>,
 }
 
 impl Filter {
@@ -232,6 +514,7 @@ impl Filter {
         };
         let dt_s = timebase.dt_s();
         let (sections, fir) = realise(&poles, cfg.response, ref_gain, dt_s);
+        let block = BlockForm::new(&sections);
         Filter {
             cfg: *cfg,
             dt_s,
@@ -240,6 +523,8 @@ impl Filter {
             ref_gain,
             sections,
             fir,
+            block,
+            block_state: None,
         }
     }
 
@@ -317,6 +602,7 @@ impl Filter {
 
     /// Clear the internal state (as if the input had been 0 forever).
     pub fn reset(&mut self) {
+        self.block_state = None;
         for sec in &mut self.sections {
             sec.g = 0.0;
             sec.h = 0.0;
@@ -326,25 +612,11 @@ impl Filter {
             fir.w = [0.0; MAX_FIR_TAPS];
         }
     }
-}
 
-impl AnalogStage for Filter {
-    #[inline]
-    fn tick(&mut self, x_v: f64) -> f64 {
-        let mut y = x_v;
-        for sec in &mut self.sections {
-            y = sec.tick(y);
-        }
-        if let Some(fir) = &mut self.fir {
-            y = fir.tick(y);
-        }
-        y
-    }
-
-    /// Block path: stage by stage over the whole block (same arithmetic, in the same order per sample, as
-    /// `tick`, hence bit-identical output).
-    fn process(&mut self, input: &[f64], output: &mut [f64]) {
-        assert_eq!(input.len(), output.len(), "block lengths differ");
+    /// The sections (not the FIR section) sample by sample: the same arithmetic, in the same order per sample,
+    /// as `tick`. Used for the samples that do not fill a block, and as the reference in the tests.
+    fn process_samples(&mut self, input: &[f64], output: &mut [f64]) {
+        self.block_state = None;
         output.copy_from_slice(input);
         // Two sections per pass, sample by sample: the second section's recursion overlaps the first's in the
         // pipeline instead of waiting for it block by block. State is kept in locals during the pass.
@@ -373,6 +645,44 @@ impl AnalogStage for Filter {
             for y in output.iter_mut() {
                 *y = sec.tick(*y);
             }
+        }
+    }
+}
+
+impl AnalogStage for Filter {
+    #[inline]
+    fn tick(&mut self, x_v: f64) -> f64 {
+        self.block_state = None;
+        let mut y = x_v;
+        for sec in &mut self.sections {
+            y = sec.tick(y);
+        }
+        if let Some(fir) = &mut self.fir {
+            y = fir.tick(y);
+        }
+        y
+    }
+
+    /// Block path: the sections in their block state-space form over whole blocks of `BLOCK_LEN` samples
+    /// (see [`BlockForm`]), the leftover samples through the sections' own recursion (as `tick`), then the
+    /// FIR section. Agrees with repeated `tick` to rounding (the block form sums in another order).
+    fn process(&mut self, input: &[f64], output: &mut [f64]) {
+        assert_eq!(input.len(), output.len(), "block lengths differ");
+        let blocked = input.len() - input.len() % BLOCK_LEN;
+        if blocked > 0 {
+            // The block state carries over exactly from the previous call when that ended with a whole block
+            // (so the output does not depend on how whole blocks are grouped into calls).
+            let mut z = match self.block_state {
+                Some(z) => z,
+                None => BlockForm::state_of(&self.sections),
+            };
+            self.block
+                .run(&mut z, &input[..blocked], &mut output[..blocked]);
+            BlockForm::set_sections(&z, &mut self.sections, input[blocked - 1]);
+            self.block_state = Some(z);
+        }
+        if blocked < input.len() {
+            self.process_samples(&input[blocked..], &mut output[blocked..]);
         }
         if let Some(fir) = &mut self.fir {
             for y in output.iter_mut() {
@@ -2355,31 +2665,159 @@ mod tests {
         }
     }
 
+    /// Uniform noise in [-1, 1) from a seeded generator.
+    fn noise(len: usize, seed: u64) -> Vec<f64> {
+        use rand::{RngExt, SeedableRng};
+        let mut r = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
+        (0..len).map(|_| r.random_range(-1.0..1.0)).collect()
+    }
+
+    /// The sample-by-sample reference: `tick` for every sample.
+    fn ticked(f: &mut Filter, input: &[f64]) -> Vec<f64> {
+        input.iter().map(|x| f.tick(*x)).collect()
+    }
+
+    /// `process` over `input` cut into consecutive calls of the lengths in `split` (repeated cyclically).
+    fn processed(f: &mut Filter, input: &[f64], split: &[usize]) -> Vec<f64> {
+        let mut out = vec![0.0; input.len()];
+        let mut at = 0;
+        for len in split.iter().cycle() {
+            if at == input.len() {
+                break;
+            }
+            let end = (at + len).min(input.len());
+            f.process(&input[at..end], &mut out[at..end]);
+            at = end;
+        }
+        out
+    }
+
+    /// Largest |a - b| relative to the largest |b|.
+    fn rel_diff(a: &[f64], b: &[f64]) -> f64 {
+        let peak = b.iter().fold(0.0f64, |m, v| m.max(v.abs()));
+        let worst = a
+            .iter()
+            .zip(b)
+            .fold(0.0f64, |m, (x, y)| m.max((x - y).abs()));
+        worst / peak
+    }
+
+    /// Mixed call lengths: whole blocks, leftovers and blocks shorter than `BLOCK_LEN`.
+    const MIXED: [usize; 9] = [5, 8, 13, 1, 4096, 3, 64, 7, 1000];
+
     #[test]
-    fn block_and_tick_give_identical_output() {
-        let mut seed = 0x2545_f491_4f6c_dd1du64;
-        let input: Vec<f64> = (0..3000)
-            .map(|_| {
-                seed ^= seed << 13;
-                seed ^= seed >> 7;
-                seed ^= seed << 17;
-                (seed >> 11) as f64 / (1u64 << 53) as f64 - 0.5
-            })
-            .collect();
+    fn blocks_shorter_than_the_block_length_run_the_sample_path_exactly() {
+        let input = noise(3000, 1);
         for fam in FAMILIES {
             for resp in RESPONSES {
                 for n in [1, 2, 5, 8] {
-                    let mut a = make(fam, resp, n, RATE_HZ / 37.0);
-                    let mut b = a.clone();
-                    let ticked: Vec<f64> = input.iter().map(|x| a.tick(*x)).collect();
-                    let mut blocked = vec![0.0; input.len()];
-                    for (i, o) in input.chunks(701).zip(blocked.chunks_mut(701)) {
-                        b.process(i, o);
+                    let f = make(fam, resp, n, RATE_HZ / 37.0);
+                    let reference = ticked(&mut f.clone(), &input);
+                    for split in [1, 3, 7] {
+                        let got = processed(&mut f.clone(), &input, &[split]);
+                        assert_eq!(got, reference, "{fam:?} {resp:?} n={n} split {split}");
                     }
-                    assert_eq!(ticked, blocked, "{fam:?} {resp:?} n={n}");
                 }
             }
         }
+    }
+
+    #[test]
+    fn block_path_is_bit_identical_whenever_the_same_blocks_occur() {
+        // Calls whose lengths are multiples of BLOCK_LEN cut the signal into the same blocks: the state passes
+        // between calls exactly, so the output cannot depend on the call lengths.
+        let input = noise(20_000, 2);
+        for fam in FAMILIES {
+            for resp in RESPONSES {
+                for n in 1..=MAX_ORDER {
+                    let f = make(fam, resp, n, RATE_HZ / 200.0);
+                    let whole = processed(&mut f.clone(), &input, &[input.len()]);
+                    for split in [&[8][..], &[4096], &[8, 4096, 24, 800]] {
+                        let got = processed(&mut f.clone(), &input, split);
+                        assert_eq!(got, whole, "{fam:?} {resp:?} n={n} split {split:?}");
+                    }
+                }
+            }
+        }
+    }
+
+    /// Block path (calls of `split`) against the sample path over `len` samples of noise, for every family,
+    /// order and response at each cutoff divisor in `divs`; returns the worst relative difference.
+    fn worst_block_vs_sample(divs: &[f64], len: usize, split: &[usize]) -> f64 {
+        let input = noise(len, 3);
+        let mut worst = 0.0f64;
+        for fam in FAMILIES {
+            for resp in RESPONSES {
+                for n in 1..=MAX_ORDER {
+                    for div in divs {
+                        let f = make(fam, resp, n, RATE_HZ / div);
+                        let reference = ticked(&mut f.clone(), &input);
+                        let got = processed(&mut f.clone(), &input, split);
+                        let d = rel_diff(&got, &reference);
+                        // Both are f64 realisations of the same coefficients; they differ by rounding only.
+                        assert!(d < 1e-10, "{fam:?} {resp:?} n={n} /{div}: {d:e}");
+                        worst = worst.max(d);
+                    }
+                }
+            }
+        }
+        worst
+    }
+
+    #[test]
+    fn block_path_matches_the_sample_path_for_every_design() {
+        let worst = worst_block_vs_sample(&[2000.0, 600.0, 200.0, 60.0, 20.0], 20_000, &MIXED);
+        eprintln!("worst block vs sample, mixed calls: {worst:e}");
+    }
+
+    #[test]
+    fn block_path_matches_the_sample_path_over_a_long_run_at_the_lowest_cutoff() {
+        let worst = worst_block_vs_sample(&[2000.0], 1_000_000, &[4096]);
+        eprintln!("worst block vs sample over 1e6 samples at rate/2000: {worst:e}");
+    }
+
+    #[test]
+    fn block_path_matches_the_sample_path_over_a_long_run_at_the_highest_cutoff() {
+        let worst = worst_block_vs_sample(&[20.0], 1_000_000, &[4096]);
+        eprintln!("worst block vs sample over 1e6 samples at rate/20: {worst:e}");
+    }
+
+    #[test]
+    fn block_path_hardly_depends_on_where_the_blocks_fall() {
+        // Calls of other lengths shift the blocks and run a few samples through the sections' recursion in
+        // between: only rounding may change. (Calls all shorter than BLOCK_LEN run the sample path alone,
+        // checked against `tick` above.)
+        let input = noise(100_000, 4);
+        let mut worst = 0.0f64;
+        for fam in FAMILIES {
+            for resp in RESPONSES {
+                for n in 1..=MAX_ORDER {
+                    for div in [2000.0, 200.0, 20.0] {
+                        let f = make(fam, resp, n, RATE_HZ / div);
+                        let reference = processed(&mut f.clone(), &input, &[4096]);
+                        for split in [&[4099][..], &[3, 4096], &[4103, 1, 8], &MIXED] {
+                            let got = processed(&mut f.clone(), &input, split);
+                            let d = rel_diff(&got, &reference);
+                            // The few samples through the sections' recursion carry that path's own rounding
+                            // error, largest at rate/2000 and for highpasses (whose states are as large as the
+                            // input); measured here: lowpass 1.3e-12 at rate/2000, highpass 1.6e-11 at rate/2000
+                            // and 1.1e-12 at rate/200 (order-8 RC).
+                            let tol = match (resp, div < 500.0) {
+                                (FilterResponse::Lowpass, true) => 1e-12,
+                                (FilterResponse::Lowpass, false) => 5e-12,
+                                (FilterResponse::Highpass, true) => 5e-12,
+                                (FilterResponse::Highpass, false) => 5e-11,
+                            };
+                            assert!(d < tol, "{fam:?} {resp:?} n={n} /{div} {split:?}: {d:e}");
+                            if div < 500.0 && resp == FilterResponse::Lowpass {
+                                worst = worst.max(d);
+                            }
+                        }
+                    }
+                }
+            }
+        }
+        eprintln!("worst difference between block placements, lowpass >= rate/200: {worst:e}");
     }
 
     /// Largest realised gain from DC to rate/2.
@@ -2520,5 +2958,91 @@ mod tests {
             2,
             RATE_HZ / 2.0,
         );
+    }
+}
+#[cfg(test)]
+mod oracle_tests {
+    //! The block and sample paths against the same recursion run in double-double arithmetic.
+    use super::*;
+    #[test]
+    fn block_path_error_against_a_double_double_oracle() {
+        let cases = [
+            (
+                FilterFamily::Chebyshev { ripple_db: 6.0 },
+                FilterResponse::Lowpass,
+                5,
+                2000.0,
+            ),
+            (FilterFamily::Bessel, FilterResponse::Highpass, 8, 2000.0),
+            (
+                FilterFamily::Butterworth,
+                FilterResponse::Lowpass,
+                2,
+                2000.0,
+            ),
+            (FilterFamily::Butterworth, FilterResponse::Lowpass, 4, 500.0),
+            (
+                FilterFamily::Butterworth,
+                FilterResponse::Lowpass,
+                8,
+                2000.0,
+            ),
+        ];
+        use rand::{RngExt, SeedableRng};
+        let mut r = rand_chacha::ChaCha8Rng::seed_from_u64(3);
+        let input: Vec<f64> = (0..200_000).map(|_| r.random_range(-1.0..1.0)).collect();
+        for (fam, resp, n, div) in cases {
+            let cfg = FilterCfg {
+                response: resp,
+                family: fam,
+                order: n,
+                cutoff_hz: 1e6 / div,
+            };
+            let f = Filter::new(&cfg, Timebase::new(1e6));
+            let mut a = f.clone();
+            let ticked: Vec<f64> = input.iter().map(|x| a.tick(*x)).collect();
+            let mut b = f.clone();
+            let mut blocked = vec![0.0; input.len()];
+            for (i, o) in input.chunks(4096).zip(blocked.chunks_mut(4096)) {
+                b.process(i, o);
+            }
+            // double-double reference of the sections, then FIR in dd
+            let ns = 1 + 2 * f.sections.len();
+            let mut x = vec![Dd::default(); ns + 1];
+            let mut hist: Vec<Dd> = vec![Dd::default(); MAX_FIR_TAPS];
+            let mut exact = vec![0.0; input.len()];
+            for (i, u) in input.iter().enumerate() {
+                let y = BlockForm::step(&f.sections, &mut x, Dd::from(*u));
+                let y = match &f.fir {
+                    None => y,
+                    Some(fir) => {
+                        hist.rotate_right(1);
+                        hist[0] = y;
+                        let mut acc = Dd::default();
+                        for (h, t) in hist.iter().zip(&fir.taps[..fir.len]) {
+                            acc = acc.add(h.mul(*t));
+                        }
+                        acc
+                    }
+                };
+                exact[i] = y.hi;
+            }
+            let peak = exact.iter().fold(0.0f64, |m, v| m.max(v.abs()));
+            let e = |v: &[f64]| {
+                v.iter()
+                    .zip(&exact)
+                    .fold(0.0f64, |m, (a, b)| m.max((a - b).abs()))
+                    / peak
+            };
+            let (et, eb) = (e(&ticked), e(&blocked));
+            eprintln!("{fam:?} {resp:?} n={n} /{div}: sample path {et:e}, block path {eb:e}");
+            // Measured: lowpass block path 1e-15 to 7e-15 (sample path 1e-13 to 3e-12); the order-8 Bessel
+            // highpass 2.8e-11 (sample path 5.7e-12).
+            let tol = match resp {
+                FilterResponse::Lowpass => 1e-13,
+                FilterResponse::Highpass => 1e-10,
+            };
+            assert!(eb < tol, "{fam:?} {resp:?} n={n} /{div}: {eb:e}");
+        }
     }
 }
