@@ -941,7 +941,7 @@ mod tests {
             assert!(m <= n && m as f64 >= 0.95 * n as f64, "{n} -> {m}");
             let mut r = m;
             for p in [2, 3, 5, 7] {
-                while r % p == 0 {
+                while r.is_multiple_of(p) {
                     r /= p;
                 }
             }

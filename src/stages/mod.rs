@@ -7,8 +7,9 @@ use num_complex::Complex64;
 
 /// A continuous-time stage realised on the analog grid (dt fixed at construction).
 ///
-/// `tick` is the per-sample path; `process` the block path. The two must agree exactly (a unit test per
-/// implementor checks it).
+/// `tick` is the per-sample path; `process` the block path. The two must agree to rounding (a block path may
+/// sum in another order, e.g. the filter's block state-space form), and `process` must not depend on how a
+/// stream is cut into calls beyond rounding (a unit test per implementor checks both).
 pub trait AnalogStage: Send {
     /// Advance one grid step with input `x_v`; return the output at the same instant.
     fn tick(&mut self, x_v: f64) -> f64;
