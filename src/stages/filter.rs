@@ -454,7 +454,8 @@ fn block_step<const N: usize>(
     let mut xa = [0.0; N];
     for k in 0..BLOCK_LEN {
         let uk = u[k];
-        for j in k..BLOCK_LEN {
+        // Dense (t[k][j] = 0 for j < k): whole columns vectorise; adding 0 x u leaves acc unchanged.
+        for j in 0..BLOCK_LEN {
             acc[j] += t[k][j] * uk;
         }
         for i in 0..N {
