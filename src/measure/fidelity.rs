@@ -207,24 +207,30 @@ impl LineSums {
     fn add(&mut self, y: &[f64], o: &[f64]) {
         let (y0, o0) = *self.shift.get_or_insert((y[0], o[0]));
         self.n += y.len();
-        let mut add_one = |k: usize, yv: f64, ov: f64| {
-            let (yc, oc) = (yv - y0, ov - o0);
-            self.sy[k] += yc;
-            self.so[k] += oc;
-            self.syy[k] += yc * yc;
-            self.soy[k] += yc * oc;
-            self.soo[k] += oc * oc;
-        };
+        // Locals rather than fields in the loop, so the partial sums stay in registers.
+        let (mut sy, mut so, mut syy, mut soy, mut soo) =
+            (self.sy, self.so, self.syy, self.soy, self.soo);
         let (yq, oq) = (y.chunks_exact(4), o.chunks_exact(4));
         let (yr, or) = (yq.remainder(), oq.remainder());
         for (a, b) in yq.zip(oq) {
             for k in 0..4 {
-                add_one(k, a[k], b[k]);
+                let (yc, oc) = (a[k] - y0, b[k] - o0);
+                sy[k] += yc;
+                so[k] += oc;
+                syy[k] += yc * yc;
+                soy[k] += yc * oc;
+                soo[k] += oc * oc;
             }
         }
         for (k, (a, b)) in yr.iter().zip(or).enumerate() {
-            add_one(k, *a, *b);
+            let (yc, oc) = (a - y0, b - o0);
+            sy[k] += yc;
+            so[k] += oc;
+            syy[k] += yc * yc;
+            soy[k] += yc * oc;
+            soo[k] += oc * oc;
         }
+        (self.sy, self.so, self.syy, self.soy, self.soo) = (sy, so, syy, soy, soo);
     }
 
     /// `(g, c, variance of y, mean squared error from the sums, variance of o)`.
