@@ -91,40 +91,19 @@ impl Aligner<'_> {
 
 /// Least-squares fit of `out ~ g y + c`: `(mean squared error, g, c, variance of y)`.
 ///
-/// Two passes with four partial sums each (so the additions overlap): the first sums about the first samples
-/// (which keeps a large common offset from cancelling digits), the second sums the error itself, which keeps
-/// its precision however small the error is.
+/// Two passes: [`LineSums`] (sums about the first samples, which keeps a large common offset from cancelling
+/// digits), then the error itself ([`error_power`]), which keeps its precision however small the error is.
 fn least_squares(y: &[f64], out: &[f64]) -> (f64, f64, f64, f64) {
     let n = y.len().min(out.len());
     let (y, out) = (&y[..n], &out[..n]);
-    let count = n as f64;
-    let (y0, o0) = (y[0], out[0]);
-    let (mut sy, mut so, mut syy, mut soy) = ([0.0f64; 4], [0.0f64; 4], [0.0f64; 4], [0.0f64; 4]);
-    let (yq, oq) = (y.chunks_exact(4), out.chunks_exact(4));
-    let (yr, or) = (yq.remainder(), oq.remainder());
-    for (a, b) in yq.zip(oq) {
-        for k in 0..4 {
-            let (yc, oc) = (a[k] - y0, b[k] - o0);
-            sy[k] += yc;
-            so[k] += oc;
-            syy[k] += yc * yc;
-            soy[k] += yc * oc;
-        }
-    }
-    for (k, (a, b)) in yr.iter().zip(or).enumerate() {
-        let (yc, oc) = (a - y0, b - o0);
-        sy[k] += yc;
-        so[k] += oc;
-        syy[k] += yc * yc;
-        soy[k] += yc * oc;
-    }
-    let total = |v: [f64; 4]| (v[0] + v[1]) + (v[2] + v[3]);
-    let (sy, so, syy, soy) = (total(sy), total(so), total(syy), total(soy));
-    let (my, mo) = (sy / count, so / count);
-    let var_y = (syy / count - my * my).max(0.0);
-    let cov = soy / count - my * mo;
-    let g = cov / var_y;
-    let c = (mo + o0) - g * (my + y0);
+    let mut sums = LineSums::default();
+    sums.add(y, out);
+    let (g, c, var_y, ..) = sums.solve();
+    (error_power(y, out, g, c) / n as f64, g, c, var_y)
+}
+
+/// `sum (out - g y - c)^2`, four partial sums.
+fn error_power(y: &[f64], out: &[f64], g: f64, c: f64) -> f64 {
     let mut see = [0.0f64; 4];
     let (yq, oq) = (y.chunks_exact(4), out.chunks_exact(4));
     let (yr, or) = (yq.remainder(), oq.remainder());
@@ -138,7 +117,7 @@ fn least_squares(y: &[f64], out: &[f64]) -> (f64, f64, f64, f64) {
         let e = b - g * a - c;
         see[k] += e * e;
     }
-    (total(see) / count, g, c, var_y)
+    (see[0] + see[1]) + (see[2] + see[3])
 }
 
 /// The delay search and the result shared by the sampled and the closed-form references: `fit(d)` aligns the
@@ -286,11 +265,7 @@ pub fn fidelity_exact_at(
         for (i, o) in output.chunks(CHUNK).enumerate() {
             let yc = &mut y[..o.len()];
             reference(t0 + (i * CHUNK) as f64 * dt, dt, yc);
-            see += yc
-                .iter()
-                .zip(o)
-                .map(|(yv, ov)| (ov - g * yv - c).powi(2))
-                .sum::<f64>();
+            see += error_power(yc, o, g, c);
         }
         (see / output.len() as f64, g, c, var_y)
     })
