@@ -371,20 +371,27 @@ pub fn run_sweep_until(
         .map(|v| axis_values(v, spec.points, spec.log))
         .collect::<Result<Vec<_>>>()?;
     let points = grid(&axes);
-    let scenarios = points
-        .iter()
-        .map(|p| {
-            let ov: Vec<(String, f64)> = spec
-                .vary
-                .iter()
-                .zip(p)
-                .map(|(v, x)| (v.key.clone(), *x))
-                .collect();
-            let sc = text.with(&ov)?;
-            Plan::new(&sc)?;
-            Ok(sc)
-        })
-        .collect::<Result<Vec<Scenario>>>()?;
+    let pool = thread_pool(opts.threads)?;
+    // Check every point (on the pool: with fast points the checks are a visible share of a sweep); the first
+    // bad point in grid order is the one reported, whatever the thread count.
+    let checked: Vec<Result<Scenario>> = pool.install(|| {
+        use rayon::prelude::*;
+        points
+            .par_iter()
+            .map(|p| {
+                let ov: Vec<(String, f64)> = spec
+                    .vary
+                    .iter()
+                    .zip(p)
+                    .map(|(v, x)| (v.key.clone(), *x))
+                    .collect();
+                let sc = text.with(&ov)?;
+                Plan::new(&sc)?;
+                Ok(sc)
+            })
+            .collect()
+    });
+    let scenarios = checked.into_iter().collect::<Result<Vec<Scenario>>>()?;
     let name = scenarios
         .first()
         .map(|s| s.name.clone())
@@ -397,7 +404,6 @@ pub fn run_sweep_until(
         .map(|(i, (sc, p))| (i as u64, sc, p))
         .filter(|(i, _, _)| opts.shard.contains(*i))
         .collect();
-    let pool = thread_pool(opts.threads)?;
     let bar = progress_bar(mine.len(), opts.progress, "sweeping");
     let finite = |x: Option<f64>| x.filter(|v| v.is_finite());
     // Points start in grid order, so an interrupted sweep holds the first points of its shard.
