@@ -1141,6 +1141,41 @@ mod tests {
     }
 
     #[test]
+    fn the_first_bad_point_in_grid_order_is_reported_whatever_the_threads() {
+        // Every duration from 0.2 ms to 0.3 ms is too short for the demo's analysis window; the points are
+        // checked in parallel, and the message must name the first one (0.2 ms) on 1 and on 2 threads.
+        let text = crate::scenario::overrides::ScenarioText::new(
+            crate::DEFAULT_SCENARIO.to_string(),
+            "demo".into(),
+            ".".into(),
+        )
+        .unwrap();
+        let spec = SweepSpec {
+            vary: vec![parse_vary("simulation.duration=0.2 ms..0.3 ms").unwrap()],
+            points: 16,
+            log: false,
+        };
+        let mut messages = Vec::new();
+        for threads in [1, 2] {
+            let opts = SweepOptions {
+                threads: Some(threads),
+                progress: false,
+                shard: Shard::WHOLE,
+            };
+            let e = run_sweep(&text, &spec, &opts).unwrap_err();
+            assert!(e.is_bad_input(), "{e}");
+            messages.push(e.to_string());
+        }
+        assert_eq!(messages[0], messages[1]);
+        let first = match text.with(&[("simulation.duration".into(), 0.2e-3)]) {
+            Ok(sc) => Plan::new(&sc).unwrap_err().to_string(),
+            Err(e) => e.to_string(),
+        };
+        assert_eq!(messages[0], first);
+        assert!(first.contains("simulation.duration=0.0002)"), "{first}");
+    }
+
+    #[test]
     fn merged_shard_rows_give_the_whole_sweep() {
         let whole = synthetic(Shard::WHOLE);
         let parts = [3, 1, 2]
