@@ -987,6 +987,29 @@ fn left_margin<DB: DrawingBackend>(p: &Painter<DB>, y: &Axis) -> i32 {
 }
 
 /// Height below a frame taken by x tick labels and the x title.
+/// The common layout of a one-frame plot: the title, the legend under it, and the frame below them with room
+/// for the y axis' tick labels at the left and the x axis' at the bottom.
+fn titled_frame<DB: DrawingBackend>(
+    p: &mut Painter<DB>,
+    title: &str,
+    entries: &[(String, Key)],
+    x: Axis,
+    y: Axis,
+) -> Result<Frame, Error> {
+    let top = p.title(title)?;
+    let left = left_margin(p, &y);
+    let right = p.w - p.fpx(1.2);
+    let top = p.legend(entries, left, top, right - left)?;
+    Ok(Frame {
+        x0: left,
+        y0: top + p.fpx(0.3),
+        x1: right,
+        y1: p.h - bottom_margin(p),
+        x,
+        y,
+    })
+}
+
 fn bottom_margin<DB: DrawingBackend>(p: &Painter<DB>) -> i32 {
     p.fpx(0.35) + p.fpx(1.25) + p.fpx(1.6)
 }
@@ -1250,18 +1273,7 @@ fn draw_waveform<DB: DrawingBackend>(p: &mut Painter<DB>, w: &WaveformPlot) -> R
         entries.push(("converted values".to_string(), Key::Cross(palette::BLACK)));
     }
 
-    let top = p.title(&w.title)?;
-    let left = left_margin(p, &y);
-    let right = p.w - p.fpx(1.2);
-    let top = p.legend(&entries, left, top, right - left)?;
-    let f = Frame {
-        x0: left,
-        y0: top + p.fpx(0.3),
-        x1: right,
-        y1: p.h - bottom_margin(p),
-        x,
-        y,
-    };
+    let f = titled_frame(p, &w.title, &entries, x, y)?;
     f.draw(p, true)?;
 
     // Staircase below the traces.
@@ -1428,18 +1440,7 @@ fn draw_spectrum<DB: DrawingBackend>(p: &mut Painter<DB>, s: &SpectrumPlot) -> R
     if s.band_hz.is_some() {
         entries.push(("analysis band".to_string(), Key::Shade(palette::SKY_BLUE)));
     }
-    let top = p.title(&s.title)?;
-    let left = left_margin(p, &y);
-    let right = p.w - p.fpx(1.2);
-    let top = p.legend(&entries, left, top, right - left)?;
-    let f = Frame {
-        x0: left,
-        y0: top + p.fpx(0.3),
-        x1: right,
-        y1: p.h - bottom_margin(p),
-        x,
-        y,
-    };
+    let f = titled_frame(p, &s.title, &entries, x, y)?;
 
     if let Some(band) = s.band_hz {
         let a = f.pt(f.x.lo, f.y.hi);
@@ -1810,18 +1811,7 @@ fn draw_xy<DB: DrawingBackend>(p: &mut Painter<DB>, xy: &XyPlot) -> Result<(), E
         .enumerate()
         .map(|(k, (name, _, _))| (name.to_string(), Key::Line(palette::SERIES[k % 8], 2)))
         .collect();
-    let top = p.title(&xy.title)?;
-    let left = left_margin(p, &y);
-    let right = p.w - p.fpx(1.2);
-    let top = p.legend(&entries, left, top, right - left)?;
-    let f = Frame {
-        x0: left,
-        y0: top + p.fpx(0.3),
-        x1: right,
-        y1: p.h - bottom_margin(p),
-        x,
-        y,
-    };
+    let f = titled_frame(p, &xy.title, &entries, x, y)?;
     f.draw(p, true)?;
     for (x, label) in &xy.markers {
         if !usable(*x) {
