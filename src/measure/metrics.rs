@@ -474,14 +474,6 @@ mod tests {
         (0.5 * (a * a + b * b), res)
     }
 
-    const ALL: [WindowKind; 5] = [
-        WindowKind::Rectangular,
-        WindowKind::Hann,
-        WindowKind::Hamming,
-        WindowKind::BlackmanHarris,
-        WindowKind::FlatTop,
-    ];
-
     fn cfg(harmonics: u32) -> MetricsConfig {
         MetricsConfig {
             harmonics,
@@ -572,7 +564,7 @@ mod tests {
         let a = 0.8;
         let sigma: f64 = 1.0e-3;
         let expect_snr: f64 = 10.0 * ((a * a / 2.0) / (sigma * sigma)).log10();
-        for (seed, kind) in ALL.iter().enumerate() {
+        for (seed, kind) in WindowKind::ALL.iter().enumerate() {
             let f = match kind {
                 WindowKind::BlackmanHarris | WindowKind::FlatTop => 0.123_456_7 * fs,
                 _ => coherent_frequency(0.1234567 * fs, fs, n).unwrap().0,
@@ -633,7 +625,7 @@ mod tests {
         let thd = 10.0 * ((amps[1] * amps[1] + amps[2] * amps[2]) / (amps[0] * amps[0])).log10();
         let sfdr = 20.0 * (amps[0] / amps[1]).log10();
         let coherent = coherent_frequency(0.1831, 1.0, n).unwrap().0;
-        for kind in ALL {
+        for kind in WindowKind::ALL {
             let mut freqs = vec![coherent];
             if kind != WindowKind::Rectangular {
                 freqs.push(0.183_137_7);
@@ -680,7 +672,7 @@ mod tests {
             .collect();
         let p_fund: f64 = (0..n).map(|i| fund_part(i).powi(2)).sum::<f64>() / n as f64;
         let p_h2: f64 = (0..n).map(|i| h2_part(i).powi(2)).sum::<f64>() / n as f64;
-        for kind in ALL {
+        for kind in WindowKind::ALL {
             let m = analyse(&x, 1.0, kind, &cfg(6));
             let h = &m.harmonics;
             assert_eq!(h.len(), 5);

@@ -280,14 +280,6 @@ mod tests {
     use super::*;
     use std::f64::consts::TAU;
 
-    const ALL: [WindowKind; 5] = [
-        WindowKind::Rectangular,
-        WindowKind::Hann,
-        WindowKind::Hamming,
-        WindowKind::BlackmanHarris,
-        WindowKind::FlatTop,
-    ];
-
     #[test]
     fn a_sine_on_a_bin_reads_half_its_amplitude_squared_with_every_window() {
         let n = 1024;
@@ -297,7 +289,7 @@ mod tests {
         let x: Vec<f64> = (0..n)
             .map(|i| a * (TAU * k0 as f64 * i as f64 / n as f64 + 0.3).sin())
             .collect();
-        for kind in ALL {
+        for kind in WindowKind::ALL {
             let mut an = SpectrumAnalyzer::new(n, kind).unwrap();
             let s = an.power_spectrum(&x, fs).unwrap();
             assert_eq!(s.power_v2.len(), n / 2 + 1);

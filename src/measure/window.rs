@@ -140,14 +140,6 @@ pub fn bessel_i0(x: f64) -> f64 {
 mod tests {
     use super::*;
 
-    const ALL: [WindowKind; 5] = [
-        WindowKind::Rectangular,
-        WindowKind::Hann,
-        WindowKind::Hamming,
-        WindowKind::BlackmanHarris,
-        WindowKind::FlatTop,
-    ];
-
     /// Slow DFT of the window shifted by `delta` bins, bin k: sum w[n] e^(-j 2 pi (k - delta) n / N).
     fn dft_power(w: &[f64], k: f64) -> f64 {
         let n = w.len() as f64;
@@ -242,7 +234,7 @@ mod tests {
     fn enbw_equals_noise_power_gain_over_tone_power_gain_by_slow_dft() {
         // Oracle: ENBW is the sum over all bins of |W(k)|^2 divided by |W(0)|^2 (Parseval), by slow DFT.
         let n = 256;
-        for kind in ALL {
+        for kind in WindowKind::ALL {
             let w = Window::new(kind, n);
             let total: f64 = (0..n).map(|k| dft_power(&w.coeffs, k as f64)).sum();
             let enbw = total / dft_power(&w.coeffs, 0.0);
@@ -279,7 +271,7 @@ mod tests {
     #[test]
     fn periodic_window_is_symmetric_about_n_over_2() {
         let n = 64;
-        for kind in ALL {
+        for kind in WindowKind::ALL {
             let w = Window::new(kind, n);
             for i in 1..n {
                 assert!((w.coeffs[i] - w.coeffs[n - i]).abs() < 1e-14);

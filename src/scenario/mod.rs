@@ -387,6 +387,17 @@ pub enum WindowKind {
     FlatTop,
 }
 
+impl WindowKind {
+    /// Every window, in declaration order.
+    pub const ALL: [WindowKind; 5] = [
+        WindowKind::Rectangular,
+        WindowKind::Hann,
+        WindowKind::Hamming,
+        WindowKind::BlackmanHarris,
+        WindowKind::FlatTop,
+    ];
+}
+
 /// `[analysis]`
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct Analysis {

@@ -88,3 +88,14 @@ pub mod sample_hold;
 pub mod sar_adc;
 pub mod slew;
 pub mod source;
+
+/// A probe that evaluates a function of time, for the converter stages' unit tests.
+#[cfg(test)]
+pub(crate) struct FnProbe<F: Fn(f64) -> f64>(pub F);
+
+#[cfg(test)]
+impl<F: Fn(f64) -> f64> Probe for FnProbe<F> {
+    fn value_at(&self, t_s: f64) -> f64 {
+        (self.0)(t_s)
+    }
+}

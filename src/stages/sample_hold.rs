@@ -180,12 +180,7 @@ impl SampleHold {
 mod tests {
     use super::*;
 
-    struct FnProbe<F: Fn(f64) -> f64>(F);
-    impl<F: Fn(f64) -> f64> Probe for FnProbe<F> {
-        fn value_at(&self, t_s: f64) -> f64 {
-            (self.0)(t_s)
-        }
-    }
+    use crate::stages::FnProbe;
 
     fn sh(cfg: SampleHoldCfg) -> SampleHold {
         SampleHold::new(&cfg, ChaCha8Rng::seed_from_u64(11))

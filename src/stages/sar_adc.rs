@@ -265,12 +265,7 @@ mod tests {
     use rand::{RngExt, SeedableRng};
     use std::cell::RefCell;
 
-    struct FnProbe<F: Fn(f64) -> f64>(F);
-    impl<F: Fn(f64) -> f64> Probe for FnProbe<F> {
-        fn value_at(&self, t_s: f64) -> f64 {
-            (self.0)(t_s)
-        }
-    }
+    use crate::stages::FnProbe;
 
     fn cfg(bits: u32) -> SarAdcCfg {
         let clock = 20e6;
