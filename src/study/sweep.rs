@@ -842,6 +842,11 @@ pub fn write_sweep(result: &SweepResult, dir: &Path) -> Result<()> {
 mod tests {
     use super::*;
 
+    /// A scenario text from an embedded file, relative paths from the working folder.
+    fn text_of(toml: &str, origin: &str) -> ScenarioText {
+        ScenarioText::new(toml.to_string(), origin.into(), ".".into()).unwrap()
+    }
+
     #[test]
     fn vary_specs_take_units_of_the_key() {
         let v = parse_vary("source.frequency=1 kHz..20 kHz").unwrap();
@@ -910,12 +915,10 @@ mod tests {
         // a sine (source skipped) and a multitone (source kept for the group delay), twice each on one thread
         // so the second lean run works in the first one's recycled buffers.
         // The speed reference chain: a closed-form source straight into the hold.
-        let text = crate::scenario::overrides::ScenarioText::new(
-            include_str!("../../benches/reference-chain.toml").to_string(),
-            "reference".into(),
-            ".".into(),
-        )
-        .unwrap();
+        let text = text_of(
+            include_str!("../../benches/reference-chain.toml"),
+            "reference",
+        );
         let sine = text
             .with(&[
                 ("simulation.duration".into(), 0.012),
@@ -960,12 +963,7 @@ mod tests {
         let sc =
             crate::scenario::parse_str(crate::DEFAULT_SCENARIO, "demo", std::path::Path::new("."))
                 .unwrap();
-        let text = crate::scenario::overrides::ScenarioText::new(
-            crate::DEFAULT_SCENARIO.to_string(),
-            "demo".into(),
-            ".".into(),
-        )
-        .unwrap();
+        let text = text_of(crate::DEFAULT_SCENARIO, "demo");
         let short = text
             .with(&[
                 ("simulation.duration".into(), 0.012),
@@ -1087,12 +1085,7 @@ mod tests {
 
     #[test]
     fn a_raised_stop_flag_runs_no_point_and_marks_the_sweep_partial() {
-        let text = crate::scenario::overrides::ScenarioText::new(
-            crate::DEFAULT_SCENARIO.to_string(),
-            "demo".into(),
-            ".".into(),
-        )
-        .unwrap();
+        let text = text_of(crate::DEFAULT_SCENARIO, "demo");
         let spec = SweepSpec {
             vary: vec![Vary {
                 key: "source.frequency".into(),
@@ -1144,12 +1137,7 @@ mod tests {
     fn the_first_bad_point_in_grid_order_is_reported_whatever_the_threads() {
         // Every duration from 0.2 ms to 0.3 ms is too short for the demo's analysis window; the points are
         // checked in parallel, and the message must name the first one (0.2 ms) on 1 and on 2 threads.
-        let text = crate::scenario::overrides::ScenarioText::new(
-            crate::DEFAULT_SCENARIO.to_string(),
-            "demo".into(),
-            ".".into(),
-        )
-        .unwrap();
+        let text = text_of(crate::DEFAULT_SCENARIO, "demo");
         let spec = SweepSpec {
             vary: vec![parse_vary("simulation.duration=0.2 ms..0.3 ms").unwrap()],
             points: 16,
