@@ -1150,17 +1150,6 @@ const SPREAD_KEYS: &[(&str, &str, Dimension)] = {
     ]
 };
 
-/// Keys that take whole numbers (never spread).
-const WHOLE_NUMBER_KEYS: [&str; 7] = [
-    "seed",
-    "bits",
-    "order",
-    "cycles",
-    "frame",
-    "harmonics",
-    "channel",
-];
-
 /// One `[spread]` entry before checking: its key path, where the key is written, its value.
 struct SpreadEntry<'a> {
     path: String,
@@ -1273,7 +1262,7 @@ fn spread_target<'a>(
         .find(|(k, name, _)| *k == kind && *name == key)
         .map(|(_, _, d)| *d);
     let Some(dim) = dim else {
-        if WHOLE_NUMBER_KEYS.contains(&key) {
+        if crate::scenario::overrides::is_integer_key(key) {
             return Err(
                 err(format!("`{key}` takes a whole number and cannot be spread")).with_hint(
                     "spread continuous values; each Monte-Carlo run already draws its own seed",
