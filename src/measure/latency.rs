@@ -8,6 +8,7 @@ use std::f64::consts::{PI, TAU};
 use super::spectrum::{plan_forward, plan_inverse};
 use num_complex::Complex64;
 
+use super::rotation::Quad;
 use super::sinefit::{fit_multitone, fit3};
 use crate::scenario::{ChirpLaw, Waveform};
 use crate::stages::source::chirp_cycles;
@@ -154,36 +155,29 @@ impl CrossCorrelation {
         let half = self.len / 2;
         let step = TAU * tau / len;
         let w1 = TAU / len;
-        let e1 = Complex64::from_polar(1.0, step);
-        let e4 = Complex64::from_polar(1.0, 4.0 * step);
         let (mut r, mut r1, mut r2) = ([0.0f64; 4], [0.0f64; 4], [0.0f64; 4]);
+        let mut add = |l: usize, k: usize, rot: &Quad| {
+            let w = w1 * k as f64;
+            let z = self.spectrum[k] * Complex64::new(rot.cos[l], rot.sin[l]);
+            r[l] += z.re;
+            r1[l] -= w * z.im;
+            r2[l] -= w * w * z.re;
+        };
         // Bins 1 .. half (exclusive), in runs of 1024 restarted exactly.
         let mut k0 = 1;
         while k0 < half {
             let k_end = (k0 + 1024).min(half);
-            let mut e = [Complex64::new(0.0, 0.0); 4];
-            e[0] = Complex64::from_polar(1.0, step * k0 as f64);
-            for l in 1..4 {
-                e[l] = e[l - 1] * e1;
-            }
+            let mut rot = Quad::new(step * k0 as f64, step);
             let mut k = k0;
             while k + 4 <= k_end {
                 for l in 0..4 {
-                    let w = w1 * (k + l) as f64;
-                    let z = self.spectrum[k + l] * e[l];
-                    r[l] += z.re;
-                    r1[l] -= w * z.im;
-                    r2[l] -= w * w * z.re;
-                    e[l] *= e4;
+                    add(l, k + l, &rot);
                 }
+                rot.advance();
                 k += 4;
             }
             for (l, kk) in (k..k_end).enumerate() {
-                let w = w1 * kk as f64;
-                let z = self.spectrum[kk] * e[l];
-                r[l] += z.re;
-                r1[l] -= w * z.im;
-                r2[l] -= w * w * z.re;
+                add(l, kk, &rot);
             }
             k0 = k_end;
         }

@@ -13,6 +13,8 @@
 
 use std::f64::consts::TAU;
 
+use super::rotation::Quad;
+
 /// Samples between exact recomputations of the rotation recurrence (bounds its rounding drift to ~1e-13).
 const RESET_EVERY: usize = 1024;
 
@@ -210,35 +212,22 @@ pub(crate) fn solve_sym_psd(g: &mut [f64], r: &[f64], n: usize) -> Vec<f64> {
     y
 }
 
-/// Calls `f(block, cos, sin)` for consecutive blocks of four samples of `x` with the cosines and sines of
-/// `phi + theta n` of their samples: four interleaved rotations (each advancing 4 theta), so the recurrences
-/// overlap, recomputed exactly every [`RESET_EVERY`] samples. Samples past the last whole block of four are
-/// passed with zero-padded `x` (the caller's sums must not count them: they are multiplied by x = 0, and the
-/// block carries how many are real).
+/// Calls `f(block, used, cos, sin)` for consecutive blocks of four samples of `x` with the cosines and sines
+/// of `phi + theta n` of their samples ([`Quad`], recomputed exactly every [`RESET_EVERY`] samples). The last
+/// block is zero-padded; `used` says how many of its samples are real.
 fn for_each_quad(
     x: &[f64],
     phi: f64,
     theta: f64,
     mut f: impl FnMut(&[f64; 4], usize, &[f64; 4], &[f64; 4]),
 ) {
-    let (s1, c1) = theta.sin_cos();
-    let (s4, c4) = (4.0 * theta).sin_cos();
     for (b, chunk) in x.chunks(RESET_EVERY).enumerate() {
-        let (mut s, mut c) = ([0.0f64; 4], [0.0f64; 4]);
-        (s[0], c[0]) = (phi + theta * (b * RESET_EVERY) as f64).sin_cos();
-        for k in 1..4 {
-            s[k] = s[k - 1] * c1 + c[k - 1] * s1;
-            c[k] = c[k - 1] * c1 - s[k - 1] * s1;
-        }
+        let mut rot = Quad::new(phi + theta * (b * RESET_EVERY) as f64, theta);
         for q in chunk.chunks(4) {
             let mut xv = [0.0f64; 4];
             xv[..q.len()].copy_from_slice(q);
-            f(&xv, q.len(), &c, &s);
-            for k in 0..4 {
-                let sn = s[k] * c4 + c[k] * s4;
-                c[k] = c[k] * c4 - s[k] * s4;
-                s[k] = sn;
-            }
+            f(&xv, q.len(), &rot.cos, &rot.sin);
+            rot.advance();
         }
     }
 }

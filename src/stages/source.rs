@@ -24,6 +24,7 @@ use rubato::{
 };
 
 use crate::engine::stream::Timebase;
+use crate::measure::rotation::Quad;
 use crate::scenario::{ChirpLaw, Source, Waveform};
 
 /// Order of the Butterworth low-pass that band-limits noise (three biquads).
@@ -202,30 +203,20 @@ impl SourceGen {
 /// Samples between exact restarts of [`fill_sine`]'s recurrences.
 const RESTART: usize = 1024;
 
-/// `out[j] = offset + amp sin(phase_at(j))` for a phase advancing by `w_rad` per sample: four interleaved
-/// rotations (sample j by rotator j mod 4, each advancing 4 w per step) so that the recurrences overlap instead
-/// of waiting on each other, restarted exactly from `phase_at` every [`RESTART`] samples.
+/// `out[j] = offset + amp sin(phase_at(j))` for a phase advancing by `w_rad` per sample, by four interleaved
+/// rotations ([`Quad`]) restarted exactly from `phase_at` every [`RESTART`] samples.
 fn fill_sine(out: &mut [f64], offset: f64, amp: f64, w_rad: f64, phase_at: impl Fn(usize) -> f64) {
-    let (s1, c1) = w_rad.sin_cos();
-    let (s4, c4) = (4.0 * w_rad).sin_cos();
     for (b, chunk) in out.chunks_mut(RESTART).enumerate() {
-        let (mut s, mut c) = ([0.0f64; 4], [0.0f64; 4]);
-        (s[0], c[0]) = phase_at(b * RESTART).sin_cos();
-        for k in 1..4 {
-            s[k] = s[k - 1] * c1 + c[k - 1] * s1;
-            c[k] = c[k - 1] * c1 - s[k - 1] * s1;
-        }
+        let mut rot = Quad::new(phase_at(b * RESTART), w_rad);
         let mut quads = chunk.chunks_exact_mut(4);
         for q in &mut quads {
-            for k in 0..4 {
-                q[k] = offset + amp * s[k];
-                let sn = s[k] * c4 + c[k] * s4;
-                c[k] = c[k] * c4 - s[k] * s4;
-                s[k] = sn;
+            for (y, s) in q.iter_mut().zip(rot.sin) {
+                *y = offset + amp * s;
             }
+            rot.advance();
         }
         for (k, y) in quads.into_remainder().iter_mut().enumerate() {
-            *y = offset + amp * s[k];
+            *y = offset + amp * rot.sin[k];
         }
     }
 }
