@@ -20,6 +20,7 @@
 
 pub mod engine;
 pub mod error;
+pub mod format;
 pub mod measure;
 pub mod report;
 pub mod runner;

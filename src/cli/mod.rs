@@ -129,7 +129,7 @@ enum AudioKind {
 
 /// Parse `START..END` with time units.
 fn parse_window(text: &str) -> Result<(f64, f64), Error> {
-    use convchain::scenario::units::{Dimension, parse_quantity};
+    use convchain::format::units::{Dimension, parse_quantity};
     let bad = |why: String| {
         Error::BadInput(format!(
             "--window {text}: {why}; write it as START..END with times, e.g. \"10 ms..12 ms\""

@@ -4,9 +4,9 @@ use std::io::Write;
 use std::path::{Path, PathBuf};
 
 use convchain::error::Error;
+use convchain::format::units::{Dimension, parse_quantity};
 use convchain::report::OutputDir;
 use convchain::scenario::overrides::ScenarioText;
-use convchain::scenario::units::{Dimension, parse_quantity};
 use convchain::study::shard::Shard;
 use convchain::study::{limit, sweep};
 

@@ -277,7 +277,7 @@ fn choose_factor_with_adc(rate_hz: f64, fs_hz: f64, band_hz: Option<f64>) -> (us
 
 /// Format a value with an SI prefix (for messages and tables).
 pub fn si(v: f64, unit: &str) -> String {
-    crate::scenario::units::format_si_table(v, unit)
+    crate::format::units::format_si_table(v, unit)
 }
 
 /// A grid capture: the source and every analog stage output over the same grid window.

@@ -23,7 +23,7 @@ use plotters::style::{
 };
 
 use crate::Error;
-use crate::scenario::units;
+use crate::format::units;
 
 // ---------------------------------------------------------------------------------------------------------
 // Public data types

@@ -6,7 +6,7 @@
 
 use std::path::{Path, PathBuf};
 
-pub use reader::ScenarioError;
+pub use crate::format::reader::ScenarioError;
 
 /// The commented starter scenario written by `convchain init`. It parses (a test checks it).
 pub const STARTER: &str = include_str!("starter.toml");
@@ -14,8 +14,8 @@ pub const STARTER: &str = include_str!("starter.toml");
 /// Parse and check a scenario. `origin` names the file in messages; relative WAV paths resolve against
 /// `base_dir`. Non-fatal remarks end up in [`Scenario::warnings`].
 pub fn parse_str(text: &str, origin: &str, base_dir: &Path) -> Result<Scenario, ScenarioError> {
-    let map = reader::SourceMap::new(origin, text);
-    let root = reader::parse_document(&map)?;
+    let map = crate::format::reader::SourceMap::new(origin, text);
+    let root = crate::format::reader::parse_document(&map)?;
     validate::build(&map, &root, base_dir)
 }
 
@@ -445,6 +445,5 @@ impl Spread {
 }
 
 pub mod overrides;
-pub mod reader;
-pub mod units;
+
 pub mod validate;

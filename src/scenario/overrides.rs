@@ -151,7 +151,7 @@ impl ScenarioText {
 
 /// Parse a quantity string whatever its dimension (for reading a current value).
 fn parse_any_quantity(s: &str) -> Option<f64> {
-    use crate::scenario::units::{Dimension, parse_quantity};
+    use crate::format::units::{Dimension, parse_quantity};
     [
         Dimension::Frequency,
         Dimension::Time,

@@ -3,11 +3,11 @@
 
 use std::path::{Path, PathBuf};
 
-use super::reader::{
+use super::*;
+use crate::format::reader::{
     At, Node, ScenarioError, SourceMap, Span, Table, TableReader, Value, show, unknown_choice,
 };
-use super::units::{Dimension, format_si};
-use super::*;
+use crate::format::units::{Dimension, format_si};
 
 /// Stage kinds as written in a file.
 const STAGE_KINDS: [&str; 6] = [
@@ -1277,7 +1277,7 @@ fn spread_target<'a>(
         let mut er = err(format!(
             "`{key}` is not a numeric key of {what} that can be spread"
         ));
-        er = match super::reader::did_you_mean(key, &keys) {
+        er = match crate::format::reader::did_you_mean(key, &keys) {
             Some(m) => er.with_hint(format!(
                 "did you mean `{m}`? keys of {what}: {}",
                 keys.join(", ")
@@ -1309,7 +1309,7 @@ fn spread_amount(
 ) -> Result<(f64, bool), ScenarioError> {
     let (v, relative) = match &node.value {
         Value::Str(s) if s.trim_end().ends_with('%') || s.trim_end().ends_with("ppm") => (
-            super::reader::node_quantity(map, node, at, Dimension::Ratio)?,
+            crate::format::reader::node_quantity(map, node, at, Dimension::Ratio)?,
             true,
         ),
         Value::Str(s) if dim == Dimension::Gain && s.contains("dB") => {
@@ -1318,7 +1318,7 @@ fn spread_amount(
                 .with_hint("give it relative (\"1%\") or in V/V (0.01)"));
         }
         Value::Str(_) | Value::Int(_) | Value::Float(_) => (
-            super::reader::node_quantity(map, node, at, dim).map_err(|e| {
+            crate::format::reader::node_quantity(map, node, at, dim).map_err(|e| {
                 let h = format!(
                     "a spread is given like the key itself ({}), or relative to it (\"1%\")",
                     dim.expectation()
@@ -1369,7 +1369,7 @@ fn spread(map: &SourceMap<'_>, t: &Table, root: &Table) -> Result<Vec<Spread>, S
                 .with_hint("keep one entry per key"));
         }
         let (target, dim) = spread_target(map, root, e, &at)?;
-        let nominal = super::reader::node_quantity(map, target, &e.path, dim)?;
+        let nominal = crate::format::reader::node_quantity(map, target, &e.path, dim)?;
         let (law, amount_node) = match &e.node.value {
             Value::Table(spec) => {
                 let mut r = TableReader::new(map, spec, at.clone());

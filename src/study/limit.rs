@@ -26,10 +26,10 @@ use serde::Serialize;
 
 use crate::engine::pipeline::Plan;
 use crate::error::{Error, Result};
+use crate::format::units::format_si;
 use crate::report::OutputDir;
 use crate::report::plot::{self, Plot, XyPlot};
 use crate::scenario::overrides::{Edit, ScenarioText};
-use crate::scenario::units::format_si;
 use crate::scenario::{AdcInput, FilterResponse, Ladder, Scenario, StageKind, Waveform};
 use crate::study::sweep::{progress_bar, simulate, thread_pool};
 

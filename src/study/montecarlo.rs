@@ -164,7 +164,7 @@ impl Requirement {
             let near = (!metric.is_empty())
                 .then(|| METRICS.iter().find(|m| m.starts_with(metric)).copied())
                 .flatten()
-                .or_else(|| crate::scenario::reader::did_you_mean(metric, &METRICS))
+                .or_else(|| crate::format::reader::did_you_mean(metric, &METRICS))
                 .map(|m| format!(" (did you mean `{m}`?)"))
                 .unwrap_or_default();
             return Err(bad(format!("unknown metric `{metric}`{near}")));

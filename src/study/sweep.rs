@@ -24,12 +24,12 @@ use super::shard::{
 };
 use crate::engine::pipeline::{self, Plan};
 use crate::error::{Error, Result};
+use crate::format::units::{Dimension, parse_quantity};
 use crate::measure::chain::{ChainMetrics, measure_run};
 use crate::report::OutputDir;
 use crate::report::plot::{self, Plot, XyPlot};
 use crate::scenario::Scenario;
 use crate::scenario::overrides::{ScenarioText, is_integer_key};
-use crate::scenario::units::{Dimension, parse_quantity};
 
 /// `kind` of a sweep's [`RowSet`].
 pub const KIND: &str = "sweep";
@@ -767,7 +767,7 @@ impl SweepResult {
                     let shown = match key_dimension(&v.key) {
                         Some(Dimension::Angle) => format!("{val} deg"),
                         Some(d) if d != Dimension::Gain && !d.base_unit().is_empty() => {
-                            crate::scenario::units::format_si(*val, d.base_unit())
+                            crate::format::units::format_si(*val, d.base_unit())
                         }
                         _ => val.to_string(),
                     };
