@@ -2,21 +2,17 @@
 
 use std::path::Path;
 
-use serde::Serialize;
-
 use crate::engine::pipeline::{self, Plan};
+use crate::engine::static_bench::{StaticReport, static_tests};
 use crate::error::{Error, Result};
 use crate::measure::chain::measure_run;
-use crate::measure::static_test::{self, StaticResult};
 use crate::report::OutputDir;
 use crate::report::csv::CsvSink;
 use crate::report::json::{ListeningInfo, Report};
 use crate::report::wav::{WavFormat, WavOptions, listening_set};
 use crate::report::{document, figures};
-use crate::scenario::{Scenario, StageKind};
-use crate::stages::Probe;
-use crate::stages::sample_hold::SampleHold;
-use crate::stages::sar_adc::SarAdc;
+use crate::scenario::Scenario;
+use crate::stages::kind::Upstream;
 
 /// How to run.
 #[derive(Debug, Clone)]
@@ -158,187 +154,16 @@ fn run_inner(sc: &Scenario, out: &OutputDir, opts: &RunOptions) -> Result<Report
     Ok(report)
 }
 
-/// The chain's nominal passband gain: amplifier gains times the DAC's span over the ADC's span (filters are
-/// taken as passing their passband unchanged).
+/// The chain's nominal passband gain: each stage's passband gain in turn (amplifier gains, the DAC's span over
+/// the ADC's; filters pass their passband unchanged).
 pub fn nominal_gain(sc: &Scenario) -> f64 {
+    let mut up = Upstream::default();
     let mut g = 1.0;
-    let mut adc_span = None;
     for st in &sc.stages {
-        match &st.kind {
-            StageKind::Amplifier(a) => g *= a.gain,
-            StageKind::SarAdc(a) => adc_span = Some(a.range_v.1 - a.range_v.0),
-            StageKind::Dac(d) => {
-                if let Some(s) = adc_span {
-                    g *= (d.range_v.1 - d.range_v.0) / s;
-                }
-            }
-            _ => {}
-        }
+        g *= st.kind.passband_gain(&up);
+        st.kind.clone().resolve(&mut up);
     }
     g
-}
-
-/// Static results of the ADC.
-#[derive(Debug, Clone, Serialize)]
-pub struct AdcStatic {
-    /// The code-density (histogram) test with a sine (IEEE Std 1241); its fields sit directly under `static.adc`.
-    #[serde(flatten)]
-    pub code_density: StaticResult,
-    pub ramp: StaticResult,
-    /// Samples used by each test.
-    pub code_density_samples: usize,
-    pub ramp_samples: usize,
-}
-
-/// Static results of the DAC.
-#[derive(Debug, Clone, Serialize)]
-pub struct DacStatic {
-    #[serde(flatten)]
-    pub result: StaticResult,
-    /// Settled output of every code relative to the zero-code output (V).
-    pub levels_v: Vec<f64>,
-}
-
-/// `static.adc` and `static.dac`.
-#[derive(Debug, Clone, Serialize)]
-pub struct Static {
-    pub adc: Option<AdcStatic>,
-    pub dac: Option<DacStatic>,
-}
-
-/// What `convchain static` writes.
-#[derive(Debug, Clone, Serialize)]
-pub struct StaticReport {
-    pub scenario: String,
-    #[serde(rename = "static")]
-    pub stat: Static,
-}
-
-struct FnProbe<F: Fn(f64) -> f64>(F);
-impl<F: Fn(f64) -> f64> Probe for FnProbe<F> {
-    fn value_at(&self, t_s: f64) -> f64 {
-        (self.0)(t_s)
-    }
-}
-
-/// Static tests of the scenario's ADC and DAC, drawn with the same seeds as a run.
-pub fn static_tests(sc: &Scenario) -> Result<Static> {
-    let seed = sc.simulation.seed;
-    let mut adc_res = None;
-    let mut dac_res = None;
-    let mut adc_seen: Option<(u64, crate::scenario::SarAdcCfg)> = None;
-    let mut sh_cfg = None;
-    for (i, st) in sc.stages.iter().enumerate() {
-        let idx = i as u64 + 1;
-        match &st.kind {
-            StageKind::SampleHold(c) => sh_cfg = Some(*c),
-            StageKind::SarAdc(c) => adc_seen = Some((idx, *c)),
-            StageKind::Dac(c) => {
-                let mut rng = pipeline::stage_rng(seed, idx);
-                let dac = crate::stages::dac::Dac::new(c, &mut rng);
-                let n = 1u64 << c.bits;
-                if c.bits < 2 {
-                    return Err(Error::BadInput(format!(
-                        "{}: {}: static tests need a DAC of at least 2 bits",
-                        sc.origin, st.label
-                    )));
-                }
-                let absolute: Vec<f64> = (0..n).map(|k| dac.level_v(k as u32)).collect();
-                let q = (c.range_v.1 - c.range_v.0) / n as f64;
-                let result = static_test::dac_from_levels(&absolute, c.range_v.0, q);
-                let zero = absolute[0];
-                dac_res = Some(DacStatic {
-                    result,
-                    levels_v: absolute.iter().map(|v| v - zero).collect(),
-                });
-            }
-            _ => {}
-        }
-    }
-    if let Some((idx, cfg)) = adc_seen {
-        if cfg.bits < 2 {
-            return Err(Error::BadInput(format!(
-                "{}: static tests need an ADC of at least 2 bits",
-                sc.origin
-            )));
-        }
-        let q = cfg.lsb_v();
-        let (lo, hi) = cfg.range_v;
-        let n_codes = 1usize << cfg.bits;
-        let fs = cfg.effective_sample_rate_hz();
-        let sh_of = |cfg_sh: Option<crate::scenario::SampleHoldCfg>| match cfg_sh {
-            // Static tests are about levels: keep the hold's level errors, not its timing.
-            Some(c) => SampleHold::new(
-                &crate::scenario::SampleHoldCfg {
-                    aperture_jitter_s: 0.0,
-                    ..c
-                },
-                pipeline::stage_rng(seed, idx + 1_000_000),
-            ),
-            None => SampleHold::ideal(),
-        };
-        // Slow ramp: 16 samples per LSB (capped), from 2 LSB below to 2 LSB above the range.
-        let ramp_n = (n_codes * 16).clamp(4096, 1 << 22);
-        let v0 = lo - 2.0 * q;
-        let v1 = hi + 2.0 * q;
-        let dur = ramp_n as f64 / fs;
-        let slope = (v1 - v0) / dur;
-        let probe = FnProbe(|t: f64| v0 + slope * t);
-        let mut adc = SarAdc::new(&cfg, pipeline::stage_rng(seed, idx));
-        let mut sh = sh_of(sh_cfg);
-        let mut ramp_v = Vec::with_capacity(ramp_n);
-        let mut codes = Vec::with_capacity(ramp_n);
-        for k in 0..ramp_n as u64 {
-            let ev = adc.convert(k, &probe, &mut sh);
-            ramp_v.push(v0 + slope * adc.sample_time_s(k));
-            codes.push(ev.code);
-        }
-        let ramp = static_test::adc_ramp(&ramp_v, &codes, cfg.bits, lo, q);
-        // Code density: a sine overdriven by 2 % around mid-range, coherent with the record. A converter
-        // without a hold sees its input move during the bit trials, so for a static test the sine must be slow
-        // enough to move under a twentieth of an LSB during a conversion (a full-scale sine moves at most
-        // 2 pi f A t_conv); the record then grows to hold at least 8 cycles.
-        let mut f_want = fs / 97.3;
-        if cfg.input == crate::scenario::AdcInput::Live {
-            let f_static = 0.05
-                / (f64::powi(2.0, cfg.bits as i32) * std::f64::consts::PI * cfg.conversion_time_s);
-            f_want = f_want.min(f_static);
-        }
-        let cd_n = (n_codes * 64)
-            .max((8.0 * fs / f_want).ceil() as usize)
-            .clamp(1 << 16, 1 << 22);
-        let f = crate::measure::coherent::coherent_frequency(f_want, fs, cd_n)
-            .map(|(f, _)| f)
-            .unwrap_or(f_want);
-        let c = 0.5 * (lo + hi);
-        let a = 0.5 * (hi - lo) * 1.02;
-        let w = 2.0 * std::f64::consts::PI * f;
-        let probe = FnProbe(|t: f64| c + a * (w * t).sin());
-        let mut adc = SarAdc::new(&cfg, pipeline::stage_rng(seed, idx));
-        let mut sh = sh_of(sh_cfg);
-        let mut hist = vec![0u64; n_codes];
-        for k in 0..cd_n as u64 {
-            let ev = adc.convert(k, &probe, &mut sh);
-            hist[ev.code as usize] += 1;
-        }
-        let code_density = static_test::adc_code_density(&hist, None, None, lo, q);
-        adc_res = Some(AdcStatic {
-            code_density,
-            ramp,
-            code_density_samples: cd_n,
-            ramp_samples: ramp_n,
-        });
-    }
-    if adc_res.is_none() && dac_res.is_none() {
-        return Err(Error::BadInput(format!(
-            "{}: the chain has no sar_adc or dac to test",
-            sc.origin
-        )));
-    }
-    Ok(Static {
-        adc: adc_res,
-        dac: dac_res,
-    })
 }
 
 /// Run the static tests and write `static.json`.

@@ -3,6 +3,7 @@
 pub mod decimate;
 pub mod pipeline;
 pub mod probe;
+pub mod static_bench;
 pub mod stream;
 
 pub use stream::{AnalogRecord, CodeEvent, CodeRecord, Timebase};

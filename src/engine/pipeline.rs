@@ -18,15 +18,10 @@ use crate::engine::decimate::{Decimator, PASSBAND_FRACTION};
 use crate::engine::probe::{ExactProbe, GridHistory};
 use crate::engine::stream::{AnalogRecord, CodeEvent, CodeRecord, Timebase};
 use crate::error::{Error, Result};
-use crate::measure::latency::BudgetLine;
-use crate::scenario::{Scenario, StageKind, Waveform};
+use crate::scenario::{Scenario, Waveform};
 use crate::stages::AnalogStage;
-use crate::stages::amplifier::Amplifier;
-use crate::stages::dac::Dac;
-use crate::stages::filter::Filter;
-use crate::stages::link::Link;
-use crate::stages::sample_hold::SampleHold;
-use crate::stages::sar_adc::SarAdc;
+use crate::stages::kind::{BuildContext, Role, Runtime, Upstream};
+use crate::stages::roles::{BudgetLine, CodeStage, Quantizer, Reconstructor};
 use crate::stages::source::SourceGen;
 
 /// Grid samples per block.
@@ -90,17 +85,14 @@ impl Plan {
         let n_settle = (sim.settle_s * sim.analog_rate_hz).round() as u64;
         let window_s = sim.duration_s - sim.settle_s;
 
-        let adc_cfg = sc.stages.iter().find_map(|s| match &s.kind {
-            StageKind::SarAdc(c) => Some(*c),
-            _ => None,
-        });
+        let adc_cfg = sc.stages.iter().find_map(|s| s.kind.quantizer_timing());
         // Time from a sample to its arrival at the DAC, plus one sample period: the output record must not start
         // before the first recorded code has reached the output.
         let mut transport_s = 0.0;
         for s in &sc.stages {
-            if let StageKind::Link(l) = &s.kind {
-                let fs = adc_cfg.map(|a| a.effective_sample_rate_hz()).unwrap_or(1.0);
-                transport_s += l.delay_s + l.frame as f64 / fs;
+            if s.kind.role() == Role::Code {
+                let fs = adc_cfg.map(|a| a.sample_rate_hz).unwrap_or(1.0);
+                transport_s += s.kind.transport_s(fs);
             }
         }
         let band = sc.analysis.band_hz;
@@ -108,7 +100,7 @@ impl Plan {
 
         let (adc, out_factor, ratio_integer) = match adc_cfg {
             Some(a) => {
-                let fs = a.effective_sample_rate_hz();
+                let fs = a.sample_rate_hz;
                 let margin_s = a.conversion_time_s + transport_s + 1.0 / fs;
                 let m = ((window_s - margin_s) * fs).floor();
                 if m < 16.0 {
@@ -197,12 +189,7 @@ impl Plan {
         let analog_streams = 2 + sc
             .stages
             .iter()
-            .filter(|s| {
-                matches!(
-                    s.kind,
-                    StageKind::Filter(_) | StageKind::Amplifier(_) | StageKind::Dac(_)
-                )
-            })
+            .filter(|s| matches!(s.kind.role(), Role::Analog | Role::Reconstructor))
             .count() as u64;
         let decimated = 2 * (n_window / out_factor as u64 + 1);
         let codes = adc.map(|a| a.record_len as u64).unwrap_or(0);
@@ -347,18 +334,13 @@ pub struct Chain {
     pub post: Vec<(String, Box<dyn AnalogStage>)>,
 }
 
-/// The converter group: `[sample_hold] sar_adc link* dac`.
+/// The converter group, by role: `[hold] quantizer code* reconstructor` (the hold belongs to the quantizer).
 pub struct Converter {
-    pub sh_label: Option<String>,
-    pub sh: SampleHold,
-    pub sh_cfg: crate::scenario::SampleHoldCfg,
-    pub adc_label: String,
-    pub adc: SarAdc,
-    pub adc_cfg: crate::scenario::SarAdcCfg,
-    pub links: Vec<(String, Link, crate::scenario::LinkCfg)>,
-    pub dac_label: String,
-    pub dac: Dac,
-    pub dac_cfg: crate::scenario::DacCfg,
+    pub quantizer_label: String,
+    pub quantizer: Box<dyn Quantizer>,
+    pub code: Vec<Box<dyn CodeStage>>,
+    pub reconstructor_label: String,
+    pub reconstructor: Box<dyn Reconstructor>,
 }
 
 /// A ChaCha stream of its own for each stage, derived from the base seed and the stage's index.
@@ -368,76 +350,69 @@ pub fn stage_rng(seed: u64, index: u64) -> ChaCha8Rng {
     rng
 }
 
+/// The build context of stage `index` (from 1): its own stream, and the stream of a hold owned by the quantizer
+/// that follows it (derived from the quantizer's index, `index + 1`, offset by a million).
+pub fn build_context(
+    seed: u64,
+    index: u64,
+    label: &str,
+    timebase: Option<Timebase>,
+    upstream: Upstream,
+) -> BuildContext {
+    BuildContext {
+        label: label.to_string(),
+        timebase,
+        rng: stage_rng(seed, index),
+        hold_rng: stage_rng(seed, index + 1 + 1_000_000),
+        static_bench: timebase.is_none(),
+        upstream,
+        pending_hold: None,
+    }
+}
+
 impl Chain {
-    /// Build every stage of a checked scenario.
+    /// Build every stage of a checked scenario, each through its kind's description, and sort them by role.
     pub fn build(sc: &Scenario, timebase: Timebase) -> Result<Chain> {
         let seed = sc.simulation.seed;
         let source = SourceGen::new(&sc.source, timebase, seed, &sc.base_dir)?;
         let mut pre: Vec<(String, Box<dyn AnalogStage>)> = Vec::new();
         let mut post: Vec<(String, Box<dyn AnalogStage>)> = Vec::new();
-        let mut sh: Option<(String, crate::scenario::SampleHoldCfg)> = None;
-        let mut adc: Option<(String, crate::scenario::SarAdcCfg, u64)> = None;
-        let mut links = Vec::new();
+        let mut quantizer: Option<(String, Box<dyn Quantizer>)> = None;
+        let mut code = Vec::new();
         let mut converter = None;
-        let mut in_bits = 0;
+        let mut up = Upstream::default();
+        let mut pending_hold = None;
         for (i, stage) in sc.stages.iter().enumerate() {
-            let idx = i as u64 + 1;
-            let analog: Option<Box<dyn AnalogStage>> = match &stage.kind {
-                StageKind::Filter(c) => Some(Box::new(Filter::new(c, timebase))),
-                StageKind::Amplifier(c) => Some(Box::new(Amplifier::new(c, timebase))),
-                StageKind::SampleHold(c) => {
-                    sh = Some((stage.label.clone(), *c));
-                    None
+            let mut ctx = build_context(seed, i as u64 + 1, &stage.label, Some(timebase), up);
+            ctx.pending_hold = pending_hold.take();
+            let runtime = stage.kind.build(&mut ctx)?;
+            pending_hold = ctx.pending_hold.take();
+            stage.kind.clone().resolve(&mut up);
+            match runtime {
+                Runtime::Analog(a) => {
+                    if converter.is_some() {
+                        post.push((stage.label.clone(), a));
+                    } else {
+                        pre.push((stage.label.clone(), a));
+                    }
                 }
-                StageKind::SarAdc(c) => {
-                    adc = Some((stage.label.clone(), *c, idx));
-                    in_bits = c.bits;
-                    None
-                }
-                StageKind::Link(c) => {
-                    links.push((
-                        stage.label.clone(),
-                        Link::new(c, in_bits, stage_rng(seed, idx)),
-                        *c,
-                    ));
-                    in_bits = c.bits;
-                    None
-                }
-                StageKind::Dac(c) => {
-                    let (adc_label, adc_cfg, adc_idx) = adc.take().ok_or_else(|| {
-                        Error::BadInput(format!("{}: a dac needs a sar_adc before it", sc.origin))
+                Runtime::Hold => {}
+                Runtime::Quantizer(q) => quantizer = Some((stage.label.clone(), q)),
+                Runtime::Code(c) => code.push(c),
+                Runtime::Reconstructor(r) => {
+                    let (quantizer_label, quantizer) = quantizer.take().ok_or_else(|| {
+                        Error::BadInput(format!(
+                            "{}: {} needs an ADC before it",
+                            sc.origin, stage.label
+                        ))
                     })?;
-                    let mut rng = stage_rng(seed, idx);
-                    let (sh_label, sh_stage, sh_cfg) = match sh.take() {
-                        Some((label, cfg)) => (
-                            Some(label),
-                            SampleHold::new(&cfg, stage_rng(seed, adc_idx + 1_000_000)),
-                            cfg,
-                        ),
-                        None => (None, SampleHold::ideal(), Default::default()),
-                    };
-                    let mut sh_stage = sh_stage;
-                    sh_stage.set_input_step_s(timebase.dt_s());
                     converter = Some(Converter {
-                        sh_label,
-                        sh: sh_stage,
-                        sh_cfg,
-                        adc_label,
-                        adc: SarAdc::new(&adc_cfg, stage_rng(seed, adc_idx)),
-                        adc_cfg,
-                        links: std::mem::take(&mut links),
-                        dac_label: stage.label.clone(),
-                        dac: Dac::new(c, &mut rng),
-                        dac_cfg: *c,
+                        quantizer_label,
+                        quantizer,
+                        code: std::mem::take(&mut code),
+                        reconstructor_label: stage.label.clone(),
+                        reconstructor: r,
                     });
-                    None
-                }
-            };
-            if let Some(a) = analog {
-                if converter.is_some() {
-                    post.push((stage.label.clone(), a));
-                } else {
-                    pre.push((stage.label.clone(), a));
                 }
             }
         }
@@ -454,7 +429,7 @@ impl Chain {
         let mut v = vec!["source".to_string()];
         v.extend(self.pre.iter().map(|(l, _)| l.clone()));
         if let Some(c) = &self.converter {
-            v.push(c.dac_label.clone());
+            v.push(c.reconstructor_label.clone());
         }
         v.extend(self.post.iter().map(|(l, _)| l.clone()));
         v
@@ -474,56 +449,12 @@ impl Chain {
             });
         }
         if let Some(c) = &self.converter {
-            let fs = c.adc_cfg.effective_sample_rate_hz();
-            if let Some(l) = &c.sh_label {
-                lines.push(BudgetLine {
-                    stage: format!("{l}: aperture delay"),
-                    seconds: c.sh_cfg.aperture_delay_s,
-                });
+            let fs = c.quantizer.sample_rate_hz();
+            lines.extend(c.quantizer.budget());
+            for stage in &c.code {
+                lines.extend(stage.budget(fs));
             }
-            match c.adc_cfg.input {
-                crate::scenario::AdcInput::Held => lines.push(BudgetLine {
-                    stage: format!("{}: conversion time", c.adc_label),
-                    seconds: c.adc_cfg.conversion_time_s,
-                }),
-                crate::scenario::AdcInput::Live => {
-                    // Without a hold the code follows the input during the bit trials. A small movement of the
-                    // input changes the code where it crosses a trial's threshold; trial i (at (i + 1)/clock) has
-                    // 2^i thresholds across the range, so the later, finer trials decide most often: the code's
-                    // effective instant is the trial instants weighted by 2^i / (2^N - 1).
-                    let n = c.adc_cfg.bits as i32;
-                    let total = f64::powi(2.0, n) - 1.0;
-                    let t_eff: f64 = (0..n)
-                        .map(|i| f64::powi(2.0, i) / total * (i + 1) as f64 / c.adc_cfg.clock_hz)
-                        .sum();
-                    lines.push(BudgetLine {
-                        stage: format!(
-                            "{}: conversion time less the bit trials' weighted instant (live input)",
-                            c.adc_label
-                        ),
-                        seconds: c.adc_cfg.conversion_time_s - t_eff,
-                    });
-                }
-            }
-            for (label, link, _) in &c.links {
-                lines.push(BudgetLine {
-                    stage: format!("{label}: delay and frame wait"),
-                    seconds: link.mean_latency_s(fs),
-                });
-            }
-            lines.push(BudgetLine {
-                stage: format!("{}: zero-order hold (half an update period)", c.dac_label),
-                seconds: 0.5 / fs,
-            });
-            if let Some(tau) = c.dac_cfg.output.tau_s {
-                let f = f_hz.unwrap_or(broadband_hz);
-                let w = 2.0 * std::f64::consts::PI * f;
-                let lag = if w > 0.0 { (w * tau).atan() / w } else { tau };
-                lines.push(BudgetLine {
-                    stage: format!("{}: output amplifier lag", c.dac_label),
-                    seconds: lag,
-                });
-            }
+            lines.extend(c.reconstructor.budget(fs, f_hz.unwrap_or(broadband_hz)));
         }
         for (label, s) in &self.post {
             lines.push(BudgetLine {
@@ -610,8 +541,8 @@ fn run_with(
     let has_conv = chain.converter.is_some();
     let code_labels: Vec<String> = match &chain.converter {
         Some(c) => vec![
-            format!("{} code", c.adc_label),
-            format!("{} code", c.dac_label),
+            format!("{} code", c.quantizer_label),
+            format!("{} code", c.reconstructor_label),
         ],
         None => vec![],
     };
@@ -631,12 +562,7 @@ fn run_with(
     if let Some(c) = &chain.converter
         && !exact
     {
-        let tconv = c.adc_cfg.conversion_time_s;
-        let span_s = tconv
-            + c.sh.lookahead_s()
-            + c.sh
-                .history_needed_s(1.0 / c.adc_cfg.effective_sample_rate_hz())
-            + 4.0 / c.adc_cfg.effective_sample_rate_hz();
+        let span_s = c.quantizer.history_needed_s();
         let cap = (span_s * tb.rate_hz).ceil() as usize + 3 * BLOCK + 16;
         history = Some(GridHistory::new(tb.rate_hz, cap));
     }
@@ -713,11 +639,11 @@ fn run_with(
                 };
                 let last_block = b + 1 == n_blocks;
                 loop {
-                    let t_k = conv.adc.sample_time_s(k);
+                    let t_k = conv.quantizer.sample_time_s(k);
                     if t_k >= end_s {
                         break;
                     }
-                    let needed = conv.adc.latest_input_needed_s(k, conv.sh.lookahead_s());
+                    let needed = conv.quantizer.latest_input_needed_s(k);
                     if needed > t_avail_input && !last_block {
                         break;
                     }
@@ -725,13 +651,12 @@ fn run_with(
                         break;
                     }
                     let ev = match history.as_ref() {
-                        Some(h) => conv.adc.convert(k, h, &mut conv.sh),
-                        None => conv.adc.convert(
+                        Some(h) => conv.quantizer.convert(k, h),
+                        None => conv.quantizer.convert(
                             k,
                             &ExactProbe {
                                 source: &chain.source,
                             },
-                            &mut conv.sh,
                         ),
                     };
                     if let (Some(rec), Some(p)) = (adc_codes.as_mut(), plan.adc.as_ref())
@@ -748,7 +673,7 @@ fn run_with(
                     }
                     link_buf_a.clear();
                     link_buf_a.push(ev);
-                    for (_, link, _) in conv.links.iter_mut() {
+                    for link in conv.code.iter_mut() {
                         link_buf_b.clear();
                         for e in link_buf_a.drain(..) {
                             link.push(e, &mut link_buf_b);
@@ -789,7 +714,9 @@ fn run_with(
                         &mut code_cols[1][..len],
                     );
                 }
-                let used = conv.dac.render(tb, n0, &dac_pending, &mut back[0][..len]);
+                let used = conv
+                    .reconstructor
+                    .render(tb, n0, &dac_pending, &mut back[0][..len]);
                 dac_pending.drain(..used);
             }
             let base = usize::from(has_conv);
@@ -882,8 +809,8 @@ fn run_with(
 
     let (codes_clipped, bits_flipped) = match &chain.converter {
         Some(c) => (
-            c.adc.codes_clipped(),
-            c.links.iter().map(|(_, l, _)| l.bits_flipped()).sum(),
+            c.quantizer.codes_clipped(),
+            c.code.iter().map(|l| l.bits_flipped()).sum(),
         ),
         None => (0, 0),
     };

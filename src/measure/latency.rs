@@ -13,14 +13,7 @@ use super::sinefit::{fit_multitone, fit3};
 use crate::scenario::{ChirpLaw, Waveform};
 use crate::stages::source::chirp_cycles;
 
-/// One line of a latency budget.
-#[derive(Debug, Clone, PartialEq, serde::Serialize)]
-pub struct BudgetLine {
-    /// What the line stands for (a stage name, "transport", "jitter buffer", ...).
-    pub stage: String,
-    /// Its contribution (s).
-    pub seconds: f64,
-}
+pub use crate::stages::roles::BudgetLine;
 
 /// Sum of a budget's lines (s).
 pub fn budget_total_s(lines: &[BudgetLine]) -> f64 {

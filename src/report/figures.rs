@@ -1,12 +1,12 @@
 //! The pictures of a run and of the static tests, built from the engine's records and the meters' results.
 
 use crate::engine::pipeline::RunOutput;
+use crate::engine::static_bench::Static;
 use crate::error::Result;
 use crate::measure::chain::{ChainMetrics, SpectrumDetail};
 use crate::report::plot::{
     BudgetPlot, Plot, PlotSummary, SpectrumPlot, StaticPlot, WaveformPlot, render_png, render_svg,
 };
-use crate::runner::Static;
 
 /// Pixel size of the PNG files.
 pub const PNG_SIZE: (u32, u32) = (1200, 750);
@@ -97,7 +97,7 @@ pub fn run_figures(
             .filter(|e| e.t_avail_s <= t1)
         {
             st_t.push(e.t_avail_s.max(t0));
-            st_v.push(conv.dac.level_v(e.code));
+            st_v.push(conv.reconstructor.level_v(e.code));
         }
     }
     let wave = Plot::Waveform(WaveformPlot {

@@ -5,10 +5,7 @@ use serde_json::{Value, json};
 
 use crate::engine::pipeline::Plan;
 use crate::measure::chain::{AdcMetrics, ChainMetrics, LatencyMetrics, OutputMetrics};
-use crate::scenario::{
-    AdcInput, ChirpLaw, DitherKind, FilterFamily, FilterResponse, Ladder, OutputAmpCfg, Scenario,
-    StageKind, ToleranceDistribution, Waveform, WindowKind,
-};
+use crate::scenario::{ChirpLaw, Scenario, Waveform, WindowKind};
 
 /// The whole report of a run. Field names are part of the interface: later tools rely on them.
 #[derive(Debug, Clone, Serialize)]
@@ -97,14 +94,6 @@ impl Report {
     }
 }
 
-fn amp_json(o: &OutputAmpCfg) -> Value {
-    json!({
-        "slew_rate_v_per_s": o.slew_rate_v_per_s,
-        "tau_s": o.tau_s,
-        "rails_v": o.rails_v.map(|(a, b)| [a, b]),
-    })
-}
-
 /// Every resolved parameter, SI units in the key names.
 pub fn chain_json(sc: &Scenario) -> Value {
     let s = &sc.simulation;
@@ -171,39 +160,7 @@ pub fn chain_json(sc: &Scenario) -> Value {
         .stages
         .iter()
         .map(|st| {
-            let mut v = match &st.kind {
-                StageKind::SampleHold(c) => json!({
-                    "acquisition_s": c.acquisition_s, "aperture_delay_s": c.aperture_delay_s,
-                    "aperture_jitter_s": c.aperture_jitter_s, "droop_v_per_s": c.droop_v_per_s, "hold_step_v": c.hold_step_v}),
-                StageKind::SarAdc(c) => json!({
-                    "bits": c.bits, "range_v": [c.range_v.0, c.range_v.1], "lsb_v": c.lsb_v(), "clock_hz": c.clock_hz,
-                    "cycles": c.cycles, "conversion_time_s": c.conversion_time_s,
-                    "sample_rate_hz": c.effective_sample_rate_hz(), "free_running": c.sample_rate_hz.is_none(),
-                    "input": match c.input { AdcInput::Held => "held", AdcInput::Live => "live" },
-                    "comparator_offset_v": c.comparator_offset_v, "comparator_noise_v": c.comparator_noise_v,
-                    "capacitor_mismatch": c.capacitor_mismatch,
-                    "dither": match c.dither { DitherKind::None => "none", DitherKind::Rpdf => "rpdf", DitherKind::Tpdf => "tpdf" },
-                    "dither_lsb": c.dither_lsb}),
-                StageKind::Link(c) => json!({
-                    "delay_s": c.delay_s, "frame": c.frame, "bit_error_rate": c.bit_error_rate, "bits": c.bits}),
-                StageKind::Dac(c) => json!({
-                    "bits": c.bits, "range_v": [c.range_v.0, c.range_v.1],
-                    "ladder": match c.ladder { Ladder::Ideal => "ideal", Ladder::R2r => "r2r", Ladder::Binary => "binary" },
-                    "tolerance": c.tolerance,
-                    "tolerance_distribution": match c.tolerance_distribution { ToleranceDistribution::Uniform => "uniform", ToleranceDistribution::Gaussian => "gaussian" },
-                    "offset_v": c.offset_v, "gain_error": c.gain_error, "output": amp_json(&c.output)}),
-                StageKind::Filter(c) => {
-                    let (family, ripple) = match c.family {
-                        FilterFamily::Butterworth => ("butterworth", None),
-                        FilterFamily::Bessel => ("bessel", None),
-                        FilterFamily::Chebyshev { ripple_db } => ("chebyshev", Some(ripple_db)),
-                        FilterFamily::Rc => ("rc", None),
-                    };
-                    json!({"response": match c.response { FilterResponse::Lowpass => "lowpass", FilterResponse::Highpass => "highpass" },
-                        "family": family, "ripple_db": ripple, "order": c.order, "cutoff_hz": c.cutoff_hz})
-                }
-                StageKind::Amplifier(c) => json!({"gain": c.gain, "offset_v": c.offset_v, "output": amp_json(&c.output)}),
-            };
+            let mut v = st.kind.echo();
             v["label"] = json!(st.label);
             v["kind"] = json!(st.kind.kind_name());
             v

@@ -3,8 +3,8 @@
 use std::fmt::Write;
 
 use crate::engine::pipeline::si;
+use crate::engine::static_bench::StaticReport;
 use crate::report::json::Report;
-use crate::runner::StaticReport;
 
 fn db(x: Option<f64>) -> String {
     x.map(|v| format!("{v:.2} dB"))

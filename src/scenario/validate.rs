@@ -8,16 +8,8 @@ use crate::format::reader::{
     At, Node, ScenarioError, SourceMap, Span, Table, TableReader, Value, show, unknown_choice,
 };
 use crate::format::units::{Dimension, format_si};
-
-/// Stage kinds as written in a file.
-const STAGE_KINDS: [&str; 6] = [
-    "sample_hold",
-    "sar_adc",
-    "link",
-    "dac",
-    "filter",
-    "amplifier",
-];
+use crate::stages::kind::{ReadContext, Role, Upstream};
+use crate::stages::registry::KIND_NAMES;
 
 const WAVEFORMS: [(&str, WaveKind); 10] = [
     ("sine", WaveKind::Sine),
@@ -472,10 +464,6 @@ struct ReadStage {
     label: String,
     kind_span: Span,
     kind: StageKind,
-    /// Link or DAC `bits` when given.
-    bits_given: bool,
-    /// DAC `range` when given.
-    range_given: bool,
 }
 
 fn stages(
@@ -512,38 +500,23 @@ fn stage(
     let label = r.string("name")?;
     let kind_at = r.string("kind")?.ok_or_else(|| {
         r.missing("kind", "\"filter\"")
-            .with_hint(format!("add `kind = ...`, one of {}", quoted(&STAGE_KINDS)))
+            .with_hint(format!("add `kind = ...`, one of {}", quoted(KIND_NAMES)))
     })?;
     let kind_name = kind_at.value;
-    if !STAGE_KINDS.contains(&kind_name) {
+    let ctx = ReadContext {
+        analog_rate_hz: sim.analog_rate_hz,
+    };
+    let Some(kind) = StageKind::read(kind_name, &mut r, &ctx) else {
         return Err(unknown_choice(
             map,
             &kind_at.span,
             &r.path_of("kind"),
             "stage kind",
             kind_name,
-            &STAGE_KINDS,
+            KIND_NAMES,
         ));
-    }
-    let mut bits_given = false;
-    let mut range_given = false;
-    let kind = match kind_name {
-        "sample_hold" => StageKind::SampleHold(sample_hold(&mut r)?),
-        "sar_adc" => StageKind::SarAdc(sar_adc(&mut r)?),
-        "link" => {
-            let (cfg, given) = link(&mut r)?;
-            bits_given = given;
-            StageKind::Link(cfg)
-        }
-        "dac" => {
-            let (cfg, b, rg) = dac(&mut r)?;
-            bits_given = b;
-            range_given = rg;
-            StageKind::Dac(cfg)
-        }
-        "filter" => StageKind::Filter(filter(&mut r, sim)?),
-        _ => StageKind::Amplifier(amplifier(&mut r)?),
     };
+    let kind = kind?;
     r.finish(&[], &format!("a {kind_name} stage"))?;
     let label = match label {
         Some(l) if !l.value.trim().is_empty() => l.value.to_string(),
@@ -553,8 +526,6 @@ fn stage(
         label,
         kind_span: kind_at.span,
         kind,
-        bits_given,
-        range_given,
     })
 }
 
@@ -566,391 +537,26 @@ fn quoted(names: &[&str]) -> String {
         .join(", ")
 }
 
-fn sample_hold(r: &mut TableReader<'_, '_>) -> Result<SampleHoldCfg, ScenarioError> {
-    use Dimension as D;
-    Ok(SampleHoldCfg {
-        acquisition_s: r.non_negative("acquisition", D::Time)?,
-        aperture_delay_s: r.non_negative("aperture_delay", D::Time)?,
-        aperture_jitter_s: r.non_negative("aperture_jitter", D::Time)?,
-        droop_v_per_s: r.quantity("droop", D::SlewRate)?.map_or(0.0, |q| q.value),
-        hold_step_v: r
-            .quantity("hold_step", D::Voltage)?
-            .map_or(0.0, |q| q.value),
-    })
-}
-
-/// Bits of a converter, link or DAC word.
-const MAX_BITS: i128 = 24;
-
-fn sar_adc(r: &mut TableReader<'_, '_>) -> Result<SarAdcCfg, ScenarioError> {
-    use Dimension as D;
-    let bits = r
-        .integer("bits", 1, MAX_BITS)?
-        .ok_or_else(|| r.missing("bits", "12"))?
-        .value as u32;
-    let range_v = r
-        .pair("range", D::Voltage)?
-        .ok_or_else(|| r.missing("range", "[\"0 V\", \"5 V\"]"))?
-        .value;
-    let cycles_at = r.integer("cycles", 1, 10_000)?;
-    let cycles = cycles_at.as_ref().map_or(bits + 1, |c| c.value as u32);
-    if let Some(c) = &cycles_at
-        && c.value < i128::from(bits)
-    {
-        return Err(r
-            .error(
-                &c.span,
-                "cycles",
-                format!(
-                    "a {bits}-bit SAR needs at least {bits} cycles (one per bit), found {}",
-                    c.value
-                ),
-            )
-            .with_hint(format!(
-                "use cycles = {} (one per bit plus one to sample)",
-                bits + 1
-            )));
-    }
-    let clock = r.positive("clock", D::Frequency)?;
-    let conv = r.positive("conversion_time", D::Time)?;
-    let (clock_hz, conversion_time_s) = match (&clock, &conv) {
-        (Some(_), Some(ct)) => {
-            return Err(r
-                .error(
-                    &ct.span,
-                    "conversion_time",
-                    "give clock or conversion_time, not both",
-                )
-                .with_hint("remove one: conversion_time = cycles / clock"));
-        }
-        (Some(c), None) => (c.value, f64::from(cycles) / c.value),
-        (None, Some(ct)) => (f64::from(cycles) / ct.value, ct.value),
-        (None, None) => {
-            return Err(r
-                .missing("clock", "\"1 MHz\"")
-                .with_hint("give the bit-trial clock (clock = \"1 MHz\") or the conversion time (conversion_time = \"10 us\")"));
-        }
-    };
-    let sample_rate = r.positive("sample_rate", D::Frequency)?;
-    if let Some(sr) = &sample_rate {
-        let max_rate = 1.0 / conversion_time_s;
-        // A relative tolerance so that e.g. 100 kSPS with a 10 us conversion is accepted despite rounding.
-        if sr.value > max_rate * (1.0 + 1e-9) {
-            let faster = if clock.is_some() {
-                format!(
-                    "raise clock to at least {}",
-                    format_si(f64::from(cycles) * sr.value, "Hz")
-                )
-            } else {
-                format!(
-                    "shorten conversion_time to at most {}",
-                    format_si(1.0 / sr.value, "s")
-                )
-            };
-            return Err(r
-                .error(
-                    &sr.span,
-                    "sample_rate",
-                    format!(
-                        "sample_rate {} is faster than the converter allows: one conversion takes {} ({} cycles at {}), so \
-                         at most {}",
-                        format_si(sr.value, "Hz"),
-                        format_si(conversion_time_s, "s"),
-                        cycles,
-                        format_si(clock_hz, "Hz"),
-                        format_si(max_rate, "Hz")
-                    ),
-                )
-                .with_hint(format!("lower sample_rate to at most {}, or {faster}", format_si(max_rate, "Hz"))));
-        }
-    }
-    let input = r
-        .choice(
-            "input",
-            &[("held", AdcInput::Held), ("live", AdcInput::Live)],
-        )?
-        .map_or(AdcInput::Held, |q| q.value);
-    let comparator_offset_v = r
-        .quantity("comparator_offset", D::Voltage)?
-        .map_or(0.0, |q| q.value);
-    let comparator_noise_v = r.non_negative("comparator_noise", D::Voltage)?;
-    let capacitor_mismatch = r.non_negative("capacitor_mismatch", D::Ratio)?;
-    let dither = r
-        .choice(
-            "dither",
-            &[
-                ("none", DitherKind::None),
-                ("rpdf", DitherKind::Rpdf),
-                ("tpdf", DitherKind::Tpdf),
-            ],
-        )?
-        .map_or(DitherKind::None, |q| q.value);
-    let dither_lsb = match (r.number("dither_lsb")?, dither) {
-        (Some(d), DitherKind::None) => {
-            return Err(r
-                .error(&d.span, "dither_lsb", "has no effect without dither")
-                .with_hint("set dither = \"rpdf\" or \"tpdf\", or remove dither_lsb"));
-        }
-        (Some(d), _) if d.value < 0.0 => {
-            return Err(r.error(&d.span, "dither_lsb", "must not be negative"));
-        }
-        (Some(d), _) => d.value,
-        (None, DitherKind::None) => 0.0,
-        (None, DitherKind::Rpdf) => 1.0,
-        (None, DitherKind::Tpdf) => 2.0,
-    };
-    Ok(SarAdcCfg {
-        bits,
-        range_v,
-        clock_hz,
-        cycles,
-        conversion_time_s,
-        sample_rate_hz: sample_rate.map(|q| q.value),
-        input,
-        comparator_offset_v,
-        comparator_noise_v,
-        capacitor_mismatch,
-        dither,
-        dither_lsb,
-    })
-}
-
-fn link(r: &mut TableReader<'_, '_>) -> Result<(LinkCfg, bool), ScenarioError> {
-    let delay_s = r.non_negative("delay", Dimension::Time)?;
-    let frame = r
-        .integer("frame", 1, 1 << 24)?
-        .map_or(1, |q| q.value as u32);
-    let bit_error_rate = r.non_negative("bit_error_rate", Dimension::Ratio)?;
-    if bit_error_rate > 0.5 {
-        let span = r
-            .take("bit_error_rate")
-            .map(|n| n.span.clone())
-            .unwrap_or_default();
-        return Err(r
-            .error(
-                &span,
-                "bit_error_rate",
-                format!("must be at most 0.5, found {bit_error_rate}"),
-            )
-            .with_hint("it is the probability that one bit is flipped, e.g. \"1 ppm\""));
-    }
-    let bits = r.integer("bits", 1, MAX_BITS)?;
-    Ok((
-        LinkCfg {
-            delay_s,
-            frame,
-            bit_error_rate,
-            bits: bits.as_ref().map_or(0, |b| b.value as u32),
-        },
-        bits.is_some(),
-    ))
-}
-
-fn dac(r: &mut TableReader<'_, '_>) -> Result<(DacCfg, bool, bool), ScenarioError> {
-    use Dimension as D;
-    let bits = r.integer("bits", 1, MAX_BITS)?;
-    let range = r.pair("range", D::Voltage)?;
-    let ladder = r
-        .choice(
-            "ladder",
-            &[
-                ("ideal", Ladder::Ideal),
-                ("r2r", Ladder::R2r),
-                ("binary", Ladder::Binary),
-            ],
-        )?
-        .map_or(Ladder::Ideal, |q| q.value);
-    let tolerance = r.non_negative("tolerance", D::Ratio)?;
-    if tolerance >= 1.0 {
-        let span = r
-            .take("tolerance")
-            .map(|n| n.span.clone())
-            .unwrap_or_default();
-        return Err(r
-            .error(
-                &span,
-                "tolerance",
-                format!("must be below 1 (100 %), found {tolerance}"),
-            )
-            .with_hint("write a relative tolerance such as \"1%\" or 0.001"));
-    }
-    let tolerance_distribution = r
-        .choice(
-            "tolerance_distribution",
-            &[
-                ("uniform", ToleranceDistribution::Uniform),
-                ("gaussian", ToleranceDistribution::Gaussian),
-            ],
-        )?
-        .map_or(ToleranceDistribution::Uniform, |q| q.value);
-    let offset_v = r.quantity("offset", D::Voltage)?.map_or(0.0, |q| q.value);
-    let gain_error = match r.quantity("gain_error", D::Ratio)? {
-        Some(g) if g.value <= -1.0 => {
-            return Err(r.error(
-                &g.span,
-                "gain_error",
-                format!("must be above -1 (-100 %), found {}", g.value),
-            ));
-        }
-        g => g.map_or(0.0, |q| q.value),
-    };
-    let output = output_amp(r)?;
-    Ok((
-        DacCfg {
-            bits: bits.as_ref().map_or(0, |b| b.value as u32),
-            range_v: range.as_ref().map_or((0.0, 0.0), |q| q.value),
-            ladder,
-            tolerance,
-            tolerance_distribution,
-            offset_v,
-            gain_error,
-            output,
-        },
-        bits.is_some(),
-        range.is_some(),
-    ))
-}
-
-/// `slew_rate`, `settling` | `bandwidth`, `rails`, shared by dac and amplifier.
-fn output_amp(r: &mut TableReader<'_, '_>) -> Result<OutputAmpCfg, ScenarioError> {
-    use Dimension as D;
-    let slew = r.positive("slew_rate", D::SlewRate)?;
-    let settling = r.positive("settling", D::Time)?;
-    let bandwidth = r.positive("bandwidth", D::Frequency)?;
-    let tau_s = match (&settling, &bandwidth) {
-        (Some(_), Some(b)) => {
-            return Err(r
-                .error(&b.span, "bandwidth", "give settling or bandwidth, not both")
-                .with_hint("settling is the time constant tau; bandwidth f gives tau = 1/(2 pi f); remove one"));
-        }
-        (Some(s), None) => Some(s.value),
-        (None, Some(b)) => Some(1.0 / (2.0 * std::f64::consts::PI * b.value)),
-        (None, None) => None,
-    };
-    Ok(OutputAmpCfg {
-        slew_rate_v_per_s: slew.map(|q| q.value),
-        tau_s,
-        rails_v: r.pair("rails", D::Voltage)?.map(|q| q.value),
-    })
-}
-
-fn filter(r: &mut TableReader<'_, '_>, sim: &Simulation) -> Result<FilterCfg, ScenarioError> {
-    use Dimension as D;
-    #[derive(Clone, Copy, PartialEq)]
-    enum Fam {
-        Butterworth,
-        Bessel,
-        Chebyshev,
-        Rc,
-    }
-    let response = r
-        .choice(
-            "response",
-            &[
-                ("lowpass", FilterResponse::Lowpass),
-                ("highpass", FilterResponse::Highpass),
-            ],
-        )?
-        .map_or(FilterResponse::Lowpass, |q| q.value);
-    let fam = r
-        .choice(
-            "family",
-            &[
-                ("butterworth", Fam::Butterworth),
-                ("bessel", Fam::Bessel),
-                ("chebyshev", Fam::Chebyshev),
-                ("rc", Fam::Rc),
-            ],
-        )?
-        .map_or(Fam::Butterworth, |q| q.value);
-    let order = r
-        .integer("order", 1, 8)?
-        .ok_or_else(|| r.missing("order", "4"))?
-        .value as u32;
-    let cutoff = r.req_positive("cutoff", D::Frequency, "\"20 kHz\"")?;
-    let nyquist = sim.analog_rate_hz / 2.0;
-    if cutoff.value >= nyquist {
-        return Err(r
-            .error(
-                &cutoff.span,
-                "cutoff",
-                format!(
-                    "cutoff {} must be below half the analog rate ({})",
-                    format_si(cutoff.value, "Hz"),
-                    format_si(nyquist, "Hz")
-                ),
-            )
-            .with_hint(format!(
-                "lower cutoff, or raise simulation.analog_rate above {} (10x or more is better)",
-                format_si(2.0 * cutoff.value, "Hz")
-            )));
-    }
-    let ripple = r.quantity("ripple", D::Decibels)?;
-    let family = match (fam, ripple) {
-        (Fam::Chebyshev, None) => {
-            return Err(r.missing("ripple", "\"0.5 dB\"").with_hint(
-                "a chebyshev filter needs its passband ripple: add ripple = \"0.5 dB\"",
-            ));
-        }
-        (Fam::Chebyshev, Some(q)) if q.value <= 0.0 => {
-            return Err(r
-                .error(
-                    &q.span,
-                    "ripple",
-                    format!("must be greater than 0 dB, found {} dB", q.value),
-                )
-                .with_hint("write the ripple as a positive number of decibels, e.g. \"0.5 dB\""));
-        }
-        (Fam::Chebyshev, Some(q)) => FilterFamily::Chebyshev { ripple_db: q.value },
-        (_, Some(q)) => {
-            return Err(r
-                .error(
-                    &q.span,
-                    "ripple",
-                    "ripple is only used by family = \"chebyshev\"",
-                )
-                .with_hint("remove ripple, or set family = \"chebyshev\""));
-        }
-        (Fam::Butterworth, None) => FilterFamily::Butterworth,
-        (Fam::Bessel, None) => FilterFamily::Bessel,
-        (Fam::Rc, None) => FilterFamily::Rc,
-    };
-    Ok(FilterCfg {
-        response,
-        family,
-        order,
-        cutoff_hz: cutoff.value,
-    })
-}
-
-fn amplifier(r: &mut TableReader<'_, '_>) -> Result<AmplifierCfg, ScenarioError> {
-    Ok(AmplifierCfg {
-        gain: r
-            .quantity("gain", Dimension::Gain)?
-            .map_or(1.0, |q| q.value),
-        offset_v: r
-            .quantity("offset", Dimension::Voltage)?
-            .map_or(0.0, |q| q.value),
-        output: output_amp(r)?,
-    })
-}
-
-/// Where a stage sits relative to the converter group `[sample_hold] sar_adc link* dac`.
+/// Where a stage sits in the role grammar `analog* [hold? quantizer code* reconstructor] analog*`.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 enum Place {
-    /// Before the group (or an analog-only chain).
+    /// Before the converter group (or an analog-only chain).
     Before,
-    /// Just after a sample_hold; only a sar_adc may follow.
+    /// Just after a hold; only a quantizer may follow.
     AfterHold,
-    /// After the sar_adc or a link: codes are digital; only links or the dac may follow.
+    /// After the quantizer or a code stage: codes are digital; only code stages or a reconstructor may follow.
     Digital,
-    /// After the dac.
+    /// After the reconstructor.
     After,
 }
 
+/// The chain's grammar in words, for messages.
+const GRAMMAR: &str = "a chain reads: analog stages, then one converter group [hold] ADC [links] DAC, then analog \
+                       stages";
+
 fn check_order(map: &SourceMap<'_>, stages: &[ReadStage]) -> Result<(), ScenarioError> {
     let mut place = Place::Before;
-    let mut adc_index = None;
+    let mut quantizer_index = None;
     for (i, s) in stages.iter().enumerate() {
         let path = format!("stage.{}.kind", i + 1);
         let err = |msg: String, hint: &str| {
@@ -958,57 +564,57 @@ fn check_order(map: &SourceMap<'_>, stages: &[ReadStage]) -> Result<(), Scenario
                 .with_hint(hint.to_string())
         };
         let kind = s.kind.kind_name();
-        place = match (&s.kind, place) {
-            (StageKind::Filter(_) | StageKind::Amplifier(_), Place::Before | Place::After) => place,
-            (StageKind::Filter(_) | StageKind::Amplifier(_), Place::AfterHold) => {
+        place = match (s.kind.role(), place) {
+            (Role::Analog, Place::Before | Place::After) => place,
+            (Role::Analog, Place::AfterHold) => {
                 return Err(err(
-                    format!("a {kind} cannot sit between sample_hold and sar_adc"),
-                    "sample_hold must come directly before the sar_adc; move the analog stage before the sample_hold",
+                    format!("a {kind} cannot sit between a hold and the ADC it feeds"),
+                    "the hold must come directly before the ADC; move the analog stage before the hold",
                 ));
             }
-            (StageKind::Filter(_) | StageKind::Amplifier(_), Place::Digital) => {
+            (Role::Analog, Place::Digital) => {
                 return Err(err(
                     format!(
-                        "a {kind} cannot sit between sar_adc and dac: the signal there is digital codes"
+                        "a {kind} cannot sit between the ADC and the DAC: the signal there is digital codes"
                     ),
-                    "move it before the sar_adc (e.g. an anti-alias filter) or after the dac (e.g. a reconstruction filter)",
+                    "move it before the ADC (e.g. an anti-alias filter) or after the DAC (e.g. a reconstruction filter)",
                 ));
             }
-            (StageKind::SampleHold(_), Place::Before) => Place::AfterHold,
-            (StageKind::SampleHold(_), _) => {
+            (Role::Hold, Place::Before) => Place::AfterHold,
+            (Role::Hold, _) => {
                 return Err(err(
-                    "a sample_hold must come directly before a sar_adc".into(),
-                    "a chain has one converter group: [sample_hold] sar_adc link* dac",
+                    format!("a {kind} must come directly before an ADC"),
+                    GRAMMAR,
                 ));
             }
-            (StageKind::SarAdc(_), Place::Before | Place::AfterHold) => {
-                adc_index = Some(i);
+            (Role::Quantizer, Place::Before | Place::AfterHold) => {
+                quantizer_index = Some(i);
                 Place::Digital
             }
-            (StageKind::SarAdc(_), _) => {
+            (Role::Quantizer, _) => {
                 return Err(err(
-                    "only one sar_adc is allowed in a chain".into(),
-                    "a chain has one converter group: [sample_hold] sar_adc link* dac",
+                    format!("only one ADC is allowed in a chain (this {kind} is a second)"),
+                    GRAMMAR,
                 ));
             }
-            (StageKind::Link(_), Place::Digital) => Place::Digital,
-            (StageKind::Link(_), _) => {
+            (Role::Code, Place::Digital) => Place::Digital,
+            (Role::Code, _) => {
                 return Err(err(
-                    "a link carries codes: it must sit between the sar_adc and the dac".into(),
-                    "move it after the sar_adc and before the dac",
+                    format!("a {kind} carries codes: it must sit between the ADC and the DAC"),
+                    "move it after the ADC and before the DAC",
                 ));
             }
-            (StageKind::Dac(_), Place::Digital) => Place::After,
-            (StageKind::Dac(_), Place::After) => {
+            (Role::Reconstructor, Place::Digital) => Place::After,
+            (Role::Reconstructor, Place::After) => {
                 return Err(err(
-                    "only one dac is allowed in a chain".into(),
-                    "a chain has one converter group: [sample_hold] sar_adc link* dac",
+                    format!("only one DAC is allowed in a chain (this {kind} is a second)"),
+                    GRAMMAR,
                 ));
             }
-            (StageKind::Dac(_), _) => {
+            (Role::Reconstructor, _) => {
                 return Err(err(
-                    "a dac needs codes: put a sar_adc before it".into(),
-                    "a chain has one converter group: [sample_hold] sar_adc link* dac",
+                    format!("a {kind} needs codes: put an ADC (e.g. a sar_adc) before it"),
+                    GRAMMAR,
                 ));
             }
         };
@@ -1016,57 +622,38 @@ fn check_order(map: &SourceMap<'_>, stages: &[ReadStage]) -> Result<(), Scenario
     match place {
         Place::AfterHold => {
             let s = stages.last().map_or(0..0, |s| s.kind_span.clone());
+            let kind = stages.last().map_or("hold", |s| s.kind.kind_name());
             Err(map
                 .error(
                     &s,
                     &format!("stage.{}.kind", stages.len()),
-                    "a sample_hold must come directly before a sar_adc",
+                    format!("a {kind} must come directly before an ADC"),
                 )
-                .with_hint("add a sar_adc stage after it, or remove it"))
+                .with_hint("add an ADC stage (e.g. kind = \"sar_adc\") after it, or remove it"))
         }
         Place::Digital => {
-            let i = adc_index.unwrap_or(0);
+            let i = quantizer_index.unwrap_or(0);
             let s = stages.get(i).map_or(0..0, |s| s.kind_span.clone());
+            let kind = stages.get(i).map_or("ADC", |s| s.kind.kind_name());
             Err(map
                 .error(
                     &s,
                     &format!("stage.{}.kind", i + 1),
-                    "a sar_adc needs a dac after it (links may sit between)",
+                    format!("a {kind} needs a DAC after it (links may sit between)"),
                 )
-                .with_hint("add a [[stage]] with kind = \"dac\" after the sar_adc (and any links)"))
+                .with_hint("add a [[stage]] with kind = \"dac\" after the ADC (and any links)"))
         }
         Place::Before | Place::After => Ok(()),
     }
 }
 
-/// Fill in cross-stage defaults: link bits from upstream, DAC bits from the width arriving, DAC range
-/// from the ADC. Assumes the order has been checked.
+/// Fill in cross-stage defaults, each kind from what the stages before it resolved to (a link's and a DAC's
+/// width, a DAC's range). Assumes the order has been checked.
 fn resolve(read: Vec<ReadStage>) -> Vec<Stage> {
-    let mut width = 0u32;
-    let mut adc_range = (0.0, 0.0);
+    let mut up = Upstream::default();
     read.into_iter()
         .map(|mut s| {
-            match &mut s.kind {
-                StageKind::SarAdc(c) => {
-                    width = c.bits;
-                    adc_range = c.range_v;
-                }
-                StageKind::Link(c) => {
-                    if !s.bits_given {
-                        c.bits = width;
-                    }
-                    width = c.bits;
-                }
-                StageKind::Dac(c) => {
-                    if !s.bits_given {
-                        c.bits = width;
-                    }
-                    if !s.range_given {
-                        c.range_v = adc_range;
-                    }
-                }
-                _ => {}
-            }
+            s.kind.resolve(&mut up);
             Stage {
                 label: s.label,
                 kind: s.kind,
@@ -1101,8 +688,9 @@ fn analysis(map: &SourceMap<'_>, t: &Table) -> Result<Analysis, ScenarioError> {
     })
 }
 
-/// Keys a `[spread]` entry may name: (table or stage kind, key, dimension of the value).
-const SPREAD_KEYS: &[(&str, &str, Dimension)] = {
+/// Keys of `[simulation]`, `[source]` and `[analysis]` a `[spread]` entry may name, with their dimension. Stage
+/// keys come from each kind's parameter list ([`crate::stages::kind::KindSpec::PARAMS`]).
+const SECTION_SPREAD_KEYS: &[(&str, &str, Dimension)] = {
     use Dimension as D;
     &[
         ("simulation", "analog_rate", D::Frequency),
@@ -1119,36 +707,25 @@ const SPREAD_KEYS: &[(&str, &str, Dimension)] = {
         ("source", "rms", D::Voltage),
         ("source", "bandwidth", D::Frequency),
         ("source", "full_scale", D::Voltage),
-        ("sample_hold", "acquisition", D::Time),
-        ("sample_hold", "aperture_delay", D::Time),
-        ("sample_hold", "aperture_jitter", D::Time),
-        ("sample_hold", "droop", D::SlewRate),
-        ("sample_hold", "hold_step", D::Voltage),
-        ("sar_adc", "clock", D::Frequency),
-        ("sar_adc", "conversion_time", D::Time),
-        ("sar_adc", "sample_rate", D::Frequency),
-        ("sar_adc", "comparator_offset", D::Voltage),
-        ("sar_adc", "comparator_noise", D::Voltage),
-        ("sar_adc", "capacitor_mismatch", D::Ratio),
-        ("sar_adc", "dither_lsb", D::Ratio),
-        ("link", "delay", D::Time),
-        ("link", "bit_error_rate", D::Ratio),
-        ("dac", "tolerance", D::Ratio),
-        ("dac", "offset", D::Voltage),
-        ("dac", "gain_error", D::Ratio),
-        ("dac", "slew_rate", D::SlewRate),
-        ("dac", "settling", D::Time),
-        ("dac", "bandwidth", D::Frequency),
-        ("filter", "cutoff", D::Frequency),
-        ("filter", "ripple", D::Decibels),
-        ("amplifier", "gain", D::Gain),
-        ("amplifier", "offset", D::Voltage),
-        ("amplifier", "slew_rate", D::SlewRate),
-        ("amplifier", "settling", D::Time),
-        ("amplifier", "bandwidth", D::Frequency),
         ("analysis", "band", D::Frequency),
     ]
 };
+
+/// The keys of a section or stage kind that can be spread, with their dimension.
+fn spreadable_keys(kind: &str) -> Vec<(&'static str, Dimension)> {
+    match crate::stages::registry::params_of(kind) {
+        Some(params) => params
+            .iter()
+            .filter(|p| p.spread)
+            .filter_map(|p| Some((p.key, p.dimension()?)))
+            .collect(),
+        None => SECTION_SPREAD_KEYS
+            .iter()
+            .filter(|(k, _, _)| *k == kind)
+            .map(|(_, n, d)| (*n, *d))
+            .collect(),
+    }
+}
 
 /// One `[spread]` entry before checking: its key path, where the key is written, its value.
 struct SpreadEntry<'a> {
@@ -1236,7 +813,7 @@ fn spread_target<'a>(
                 .with_hint("count the [[stage]] sections from 1 in file order"));
             };
             let kind = match table_entry(t, "kind").map(|n| &n.value) {
-                Some(Value::Str(k)) => STAGE_KINDS
+                Some(Value::Str(k)) => KIND_NAMES
                     .iter()
                     .find(|s| **s == k.as_str())
                     .copied()
@@ -1257,10 +834,11 @@ fn spread_target<'a>(
     } else {
         format!("a {kind} stage")
     };
-    let dim = SPREAD_KEYS
+    let spreadable = spreadable_keys(kind);
+    let dim = spreadable
         .iter()
-        .find(|(k, name, _)| *k == kind && *name == key)
-        .map(|(_, _, d)| *d);
+        .find(|(name, _)| *name == key)
+        .map(|(_, d)| *d);
     let Some(dim) = dim else {
         if crate::scenario::overrides::is_integer_key(key) {
             return Err(
@@ -1269,11 +847,7 @@ fn spread_target<'a>(
                 ),
             );
         }
-        let keys: Vec<&str> = SPREAD_KEYS
-            .iter()
-            .filter(|(k, _, _)| *k == kind)
-            .map(|(_, n, _)| *n)
-            .collect();
+        let keys: Vec<&str> = spreadable.iter().map(|(n, _)| *n).collect();
         let mut er = err(format!(
             "`{key}` is not a numeric key of {what} that can be spread"
         ));

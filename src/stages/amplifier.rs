@@ -6,10 +6,77 @@
 
 use num_complex::Complex64;
 
+use serde::Serialize;
+
 use crate::engine::stream::Timebase;
-use crate::scenario::AmplifierCfg;
+use crate::error::{Error, Result};
+use crate::format::reader::{ScenarioError, TableReader};
+use crate::format::units::Dimension;
 use crate::stages::AnalogStage;
-use crate::stages::slew::OutputAmp;
+use crate::stages::kind::{
+    Ablation, BuildContext, KindSpec, Param, Rates, ReadContext, Role, Runtime, Upstream,
+};
+use crate::stages::slew::{OUTPUT_AMP_PARAMS, OutputAmp, OutputAmpCfg, read_output_amp};
+
+/// `kind = "amplifier"`
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct AmplifierCfg {
+    /// Voltage gain (V/V).
+    pub gain: f64,
+    /// Added at the output (V).
+    pub offset_v: f64,
+    pub output: OutputAmpCfg,
+}
+
+impl KindSpec for AmplifierCfg {
+    const NAME: &'static str = "amplifier";
+    const ROLE: Role = Role::Analog;
+    const PARAMS: &'static [Param] = &[
+        Param::spread("gain", Dimension::Gain),
+        Param::spread("offset", Dimension::Voltage),
+        OUTPUT_AMP_PARAMS[0],
+        OUTPUT_AMP_PARAMS[1],
+        OUTPUT_AMP_PARAMS[2],
+        OUTPUT_AMP_PARAMS[3],
+    ];
+
+    fn read(
+        r: &mut TableReader<'_, '_>,
+        _ctx: &ReadContext,
+    ) -> std::result::Result<Self, ScenarioError> {
+        Ok(AmplifierCfg {
+            gain: r
+                .quantity("gain", Dimension::Gain)?
+                .map_or(1.0, |q| q.value),
+            offset_v: r
+                .quantity("offset", Dimension::Voltage)?
+                .map_or(0.0, |q| q.value),
+            output: read_output_amp(r)?,
+        })
+    }
+
+    fn ablations(&self) -> Vec<Ablation> {
+        self.output.ablations(Self::NAME)
+    }
+
+    fn rates(&self) -> Rates {
+        Rates {
+            lowpass_hz: self.output.bandwidth_hz(),
+            highpass_hz: None,
+        }
+    }
+
+    fn passband_gain(&self, _up: &Upstream) -> f64 {
+        self.gain
+    }
+
+    fn build(&self, ctx: &mut BuildContext) -> Result<Runtime> {
+        let tb = ctx
+            .timebase
+            .ok_or_else(|| Error::Run("an amplifier needs the analog grid".into()))?;
+        Ok(Runtime::Analog(Box::new(Amplifier::new(self, tb))))
+    }
+}
 
 /// A gain stage with a slew-limited, first-order, railed output.
 #[derive(Debug, Clone)]
@@ -62,7 +129,6 @@ impl AnalogStage for Amplifier {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::scenario::OutputAmpCfg;
     use rand::{RngExt, SeedableRng};
     use rand_chacha::ChaCha8Rng;
     use std::f64::consts::PI;

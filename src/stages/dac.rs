@@ -10,9 +10,246 @@ use rand::RngExt;
 use rand_chacha::ChaCha8Rng;
 use rand_distr::{Distribution, StandardNormal};
 
+use serde::Serialize;
+
 use crate::engine::stream::{CodeEvent, Timebase};
-use crate::scenario::{DacCfg, Ladder, ToleranceDistribution};
-use crate::stages::slew::OutputAmp;
+use crate::error::Result;
+use crate::format::reader::{ScenarioError, TableReader};
+use crate::format::units::Dimension;
+use crate::stages::kind::{
+    Ablation, BuildContext, KeyEdit, KindSpec, Param, ParamKind, Rates, ReadContext, Role, Runtime,
+    Upstream, mechanism,
+};
+use crate::stages::roles::{BudgetLine, Reconstructor};
+use crate::stages::sar_adc::MAX_BITS;
+use crate::stages::slew::{OUTPUT_AMP_PARAMS, OutputAmp, OutputAmpCfg, read_output_amp};
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Ladder {
+    Ideal,
+    R2r,
+    Binary,
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "lowercase")]
+pub enum ToleranceDistribution {
+    /// Uniform within +-tolerance.
+    Uniform,
+    /// Gaussian with sigma = tolerance / 3.
+    Gaussian,
+}
+
+/// `kind = "dac"`
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct DacCfg {
+    /// Resolved: given, or the width of the codes arriving (0 until resolved).
+    pub bits: u32,
+    /// Code k gives low + k (high - low)/2^bits. Resolved: given, or the quantizer's range.
+    pub range_v: (f64, f64),
+    /// `range` was written in the scenario (otherwise the quantizer's range is taken).
+    #[serde(skip)]
+    pub range_given: bool,
+    pub ladder: Ladder,
+    /// Relative resistor tolerance (0.01 = 1 %).
+    pub tolerance: f64,
+    pub tolerance_distribution: ToleranceDistribution,
+    pub offset_v: f64,
+    /// Relative gain error (0.01 = +1 %).
+    pub gain_error: f64,
+    pub output: OutputAmpCfg,
+}
+
+impl KindSpec for DacCfg {
+    const NAME: &'static str = "dac";
+    const ROLE: Role = Role::Reconstructor;
+    const PARAMS: &'static [Param] = {
+        use Dimension as D;
+        &[
+            Param::fixed("bits", ParamKind::Integer),
+            Param::fixed("range", ParamKind::Pair(D::Voltage)),
+            Param::fixed("ladder", ParamKind::Choice(&["ideal", "r2r", "binary"])),
+            Param::spread("tolerance", D::Ratio),
+            Param::fixed(
+                "tolerance_distribution",
+                ParamKind::Choice(&["uniform", "gaussian"]),
+            ),
+            Param::spread("offset", D::Voltage),
+            Param::spread("gain_error", D::Ratio),
+            OUTPUT_AMP_PARAMS[0],
+            OUTPUT_AMP_PARAMS[1],
+            OUTPUT_AMP_PARAMS[2],
+            OUTPUT_AMP_PARAMS[3],
+        ]
+    };
+
+    fn read(
+        r: &mut TableReader<'_, '_>,
+        _ctx: &ReadContext,
+    ) -> std::result::Result<Self, ScenarioError> {
+        read_dac(r)
+    }
+
+    /// Without `bits` the DAC takes the width of the codes arriving; without `range`, the quantizer's.
+    fn resolve(&mut self, up: &mut Upstream) {
+        if self.bits == 0 {
+            self.bits = up.width_bits;
+        }
+        if !self.range_given {
+            self.range_v = up.quantizer_range_v.unwrap_or((0.0, 0.0));
+        }
+    }
+
+    fn ablations(&self) -> Vec<Ablation> {
+        let mut out = self.output.ablations(Self::NAME);
+        if self.ladder != Ladder::Ideal && self.tolerance > 0.0 {
+            out.push(Ablation::new(
+                mechanism::<Self>("tolerance"),
+                "tolerance = 0",
+                vec![KeyEdit::Set("tolerance", 0.0)],
+            ));
+        }
+        out
+    }
+
+    fn rates(&self) -> Rates {
+        Rates {
+            lowpass_hz: self.output.bandwidth_hz(),
+            highpass_hz: None,
+        }
+    }
+
+    /// The DAC's span over the quantizer's: the chain's gain through the converters.
+    fn passband_gain(&self, up: &Upstream) -> f64 {
+        match up.quantizer_range_v {
+            Some((lo, hi)) => {
+                let (a, b) = self.range_v;
+                (b - a) / (hi - lo)
+            }
+            None => 1.0,
+        }
+    }
+
+    fn has_static_levels(&self) -> bool {
+        self.bits >= 2
+    }
+
+    fn build(&self, ctx: &mut BuildContext) -> Result<Runtime> {
+        let mut rng = ctx.rng.clone();
+        Ok(Runtime::Reconstructor(Box::new(LabelledDac {
+            dac: Dac::new(self, &mut rng),
+            cfg: *self,
+            label: ctx.label.clone(),
+        })))
+    }
+}
+
+fn read_dac(r: &mut TableReader<'_, '_>) -> std::result::Result<DacCfg, ScenarioError> {
+    use Dimension as D;
+    let bits = r.integer("bits", 1, MAX_BITS)?;
+    let range = r.pair("range", D::Voltage)?;
+    let ladder = r
+        .choice(
+            "ladder",
+            &[
+                ("ideal", Ladder::Ideal),
+                ("r2r", Ladder::R2r),
+                ("binary", Ladder::Binary),
+            ],
+        )?
+        .map_or(Ladder::Ideal, |q| q.value);
+    let tolerance = r.non_negative("tolerance", D::Ratio)?;
+    if tolerance >= 1.0 {
+        let span = r
+            .take("tolerance")
+            .map(|n| n.span.clone())
+            .unwrap_or_default();
+        return Err(r
+            .error(
+                &span,
+                "tolerance",
+                format!("must be below 1 (100 %), found {tolerance}"),
+            )
+            .with_hint("write a relative tolerance such as \"1%\" or 0.001"));
+    }
+    let tolerance_distribution = r
+        .choice(
+            "tolerance_distribution",
+            &[
+                ("uniform", ToleranceDistribution::Uniform),
+                ("gaussian", ToleranceDistribution::Gaussian),
+            ],
+        )?
+        .map_or(ToleranceDistribution::Uniform, |q| q.value);
+    let offset_v = r.quantity("offset", D::Voltage)?.map_or(0.0, |q| q.value);
+    let gain_error = match r.quantity("gain_error", D::Ratio)? {
+        Some(g) if g.value <= -1.0 => {
+            return Err(r.error(
+                &g.span,
+                "gain_error",
+                format!("must be above -1 (-100 %), found {}", g.value),
+            ));
+        }
+        g => g.map_or(0.0, |q| q.value),
+    };
+    let output = read_output_amp(r)?;
+    Ok(DacCfg {
+        bits: bits.as_ref().map_or(0, |b| b.value as u32),
+        range_v: range.as_ref().map_or((0.0, 0.0), |q| q.value),
+        range_given: range.is_some(),
+        ladder,
+        tolerance,
+        tolerance_distribution,
+        offset_v,
+        gain_error,
+        output,
+    })
+}
+
+/// A DAC with its configuration and label: the reconstructor role.
+pub struct LabelledDac {
+    dac: Dac,
+    cfg: DacCfg,
+    label: String,
+}
+
+impl Reconstructor for LabelledDac {
+    fn render(
+        &mut self,
+        timebase: Timebase,
+        n0: u64,
+        events: &[CodeEvent],
+        out: &mut [f64],
+    ) -> usize {
+        self.dac.render(timebase, n0, events, out)
+    }
+    fn level_v(&self, code: u32) -> f64 {
+        self.dac.level_v(code)
+    }
+    fn bits(&self) -> u32 {
+        self.cfg.bits
+    }
+    fn range_v(&self) -> (f64, f64) {
+        self.cfg.range_v
+    }
+    /// Half an update period for the zero-order hold, and the output amplifier's lag at `f_hz`.
+    fn budget(&self, update_rate_hz: f64, f_hz: f64) -> Vec<BudgetLine> {
+        let mut lines = vec![BudgetLine {
+            stage: format!("{}: zero-order hold (half an update period)", self.label),
+            seconds: 0.5 / update_rate_hz,
+        }];
+        if let Some(tau) = self.cfg.output.tau_s {
+            let w = 2.0 * std::f64::consts::PI * f_hz;
+            let lag = if w > 0.0 { (w * tau).atan() / w } else { tau };
+            lines.push(BudgetLine {
+                stage: format!("{}: output amplifier lag", self.label),
+                seconds: lag,
+            });
+        }
+        lines
+    }
+}
 
 /// Smallest relative resistor value a draw may give (guards against a Gaussian draw at an absurd
 /// tolerance making a resistor zero or negative).
@@ -351,13 +588,13 @@ fn first_due_step(
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::scenario::OutputAmpCfg;
     use rand::SeedableRng;
 
     fn cfg(bits: u32, ladder: Ladder, tol: f64, dist: ToleranceDistribution) -> DacCfg {
         DacCfg {
             bits,
             range_v: (-5.0, 5.0),
+            range_given: true,
             ladder,
             tolerance: tol,
             tolerance_distribution: dist,

@@ -14,8 +14,132 @@
 use rand::RngExt;
 use rand_chacha::ChaCha8Rng;
 
+use serde::Serialize;
+
 use crate::engine::stream::CodeEvent;
-use crate::scenario::LinkCfg;
+use crate::error::Result;
+use crate::format::reader::{ScenarioError, TableReader};
+use crate::format::units::Dimension;
+use crate::stages::kind::{
+    Ablation, BuildContext, KeyEdit, KindSpec, Param, ParamKind, ReadContext, Role, Runtime,
+    Upstream, mechanism,
+};
+use crate::stages::roles::{BudgetLine, CodeStage};
+use crate::stages::sar_adc::MAX_BITS;
+
+/// `kind = "link"`: a digital transport between converter and DAC.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct LinkCfg {
+    /// Fixed transport delay.
+    pub delay_s: f64,
+    /// Samples per frame; a frame leaves when full (1 = no framing).
+    pub frame: u32,
+    /// Probability that any one transported bit is flipped.
+    pub bit_error_rate: f64,
+    /// Word width on the link (resolved: given, or the upstream width; 0 until resolved). A narrower word
+    /// drops LSBs; a wider one pads with zero LSBs.
+    pub bits: u32,
+}
+
+impl KindSpec for LinkCfg {
+    const NAME: &'static str = "link";
+    const ROLE: Role = Role::Code;
+    const PARAMS: &'static [Param] = &[
+        Param::spread("delay", Dimension::Time),
+        Param::fixed("frame", ParamKind::Integer),
+        Param::spread("bit_error_rate", Dimension::Ratio),
+        Param::fixed("bits", ParamKind::Integer),
+    ];
+
+    fn read(
+        r: &mut TableReader<'_, '_>,
+        _ctx: &ReadContext,
+    ) -> std::result::Result<Self, ScenarioError> {
+        read_link(r)
+    }
+
+    /// Without `bits`, the link carries the width arriving.
+    fn resolve(&mut self, up: &mut Upstream) {
+        if self.bits == 0 {
+            self.bits = up.width_bits;
+        }
+        up.width_bits = self.bits;
+    }
+
+    fn ablations(&self) -> Vec<Ablation> {
+        if self.bit_error_rate > 0.0 {
+            vec![Ablation::new(
+                mechanism::<Self>("bit_error_rate"),
+                "bit_error_rate = 0",
+                vec![KeyEdit::Set("bit_error_rate", 0.0)],
+            )]
+        } else {
+            Vec::new()
+        }
+    }
+
+    /// The delay plus the time a frame takes to fill.
+    fn transport_s(&self, sample_rate_hz: f64) -> f64 {
+        self.delay_s + self.frame as f64 / sample_rate_hz
+    }
+
+    fn build(&self, ctx: &mut BuildContext) -> Result<Runtime> {
+        let in_bits = ctx.upstream.width_bits;
+        Ok(Runtime::Code(Box::new(LabelledLink {
+            link: Link::new(self, in_bits, ctx.rng.clone()),
+            label: ctx.label.clone(),
+        })))
+    }
+}
+
+fn read_link(r: &mut TableReader<'_, '_>) -> std::result::Result<LinkCfg, ScenarioError> {
+    let delay_s = r.non_negative("delay", Dimension::Time)?;
+    let frame = r
+        .integer("frame", 1, 1 << 24)?
+        .map_or(1, |q| q.value as u32);
+    let bit_error_rate = r.non_negative("bit_error_rate", Dimension::Ratio)?;
+    if bit_error_rate > 0.5 {
+        let span = r
+            .take("bit_error_rate")
+            .map(|n| n.span.clone())
+            .unwrap_or_default();
+        return Err(r
+            .error(
+                &span,
+                "bit_error_rate",
+                format!("must be at most 0.5, found {bit_error_rate}"),
+            )
+            .with_hint("it is the probability that one bit is flipped, e.g. \"1 ppm\""));
+    }
+    let bits = r.integer("bits", 1, MAX_BITS)?;
+    Ok(LinkCfg {
+        delay_s,
+        frame,
+        bit_error_rate,
+        bits: bits.as_ref().map_or(0, |b| b.value as u32),
+    })
+}
+
+/// A link with its label: the code-stage role.
+pub struct LabelledLink {
+    link: Link,
+    label: String,
+}
+
+impl CodeStage for LabelledLink {
+    fn push(&mut self, ev: CodeEvent, out: &mut Vec<CodeEvent>) {
+        self.link.push(ev, out)
+    }
+    fn bits_flipped(&self) -> u64 {
+        self.link.bits_flipped()
+    }
+    fn budget(&self, sample_rate_hz: f64) -> Vec<BudgetLine> {
+        vec![BudgetLine {
+            stage: format!("{}: delay and frame wait", self.label),
+            seconds: self.link.mean_latency_s(sample_rate_hz),
+        }]
+    }
+}
 
 /// A digital link with delay, framing, bit errors and width conversion.
 #[derive(Debug, Clone)]

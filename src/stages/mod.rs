@@ -1,7 +1,9 @@
 //! Stage models, one file per stage kind.
 //!
-//! Continuous-time stages ([`AnalogStage`]) run on the uniform analog grid. Converter-side stages
-//! (sample-and-hold, SAR ADC, link, DAC) work with events at exact instants and have their own APIs.
+//! Every kind describes itself through [`kind::KindSpec`] and is listed once in [`registry`]. At run time a
+//! stage plays one role: continuous-time stages ([`AnalogStage`]) run on the uniform analog grid; converter-side
+//! stages work with events at exact instants through the roles of [`roles`] (hold, quantizer, code stage,
+//! reconstructor).
 
 use num_complex::Complex64;
 
@@ -83,11 +85,17 @@ pub trait Probe {
 pub mod amplifier;
 pub mod dac;
 pub mod filter;
+pub mod filter_kind;
+pub mod kind;
 pub mod link;
+pub mod registry;
+pub mod roles;
 pub mod sample_hold;
 pub mod sar_adc;
 pub mod slew;
 pub mod source;
+
+pub use registry::StageKind;
 
 /// A probe that evaluates a function of time, for the converter stages' unit tests.
 #[cfg(test)]

@@ -14,8 +14,98 @@ use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 use rand_distr::{Distribution, StandardNormal};
 
-use crate::scenario::SampleHoldCfg;
+use serde::Serialize;
+
+use crate::error::Result;
+use crate::format::reader::{ScenarioError, TableReader};
+use crate::format::units::Dimension;
 use crate::stages::Probe;
+use crate::stages::kind::{
+    Ablation, BuildContext, KeyEdit, KindSpec, Param, ReadContext, Role, Runtime, mechanism,
+};
+use crate::stages::roles::{BudgetLine, Hold};
+
+/// `kind = "sample_hold"`. All zero = an ideal hold.
+#[derive(Debug, Clone, Copy, PartialEq, Default, Serialize)]
+pub struct SampleHoldCfg {
+    /// Time constant with which the hold capacitor tracks the input (0 = ideal tracking).
+    pub acquisition_s: f64,
+    /// Pure delay between the nominal sampling instant and the moment the switch opens.
+    pub aperture_delay_s: f64,
+    /// Rms of a Gaussian timing error added to each sampling instant.
+    pub aperture_jitter_s: f64,
+    /// Rate at which the held voltage falls while holding (V/s; negative rises).
+    pub droop_v_per_s: f64,
+    /// Pedestal added to the held value when the switch opens (V).
+    pub hold_step_v: f64,
+}
+
+impl KindSpec for SampleHoldCfg {
+    const NAME: &'static str = "sample_hold";
+    const ROLE: Role = Role::Hold;
+    const PARAMS: &'static [Param] = &[
+        Param::spread("acquisition", Dimension::Time),
+        Param::spread("aperture_delay", Dimension::Time),
+        Param::spread("aperture_jitter", Dimension::Time),
+        Param::spread("droop", Dimension::SlewRate),
+        Param::spread("hold_step", Dimension::Voltage),
+    ];
+
+    fn read(
+        r: &mut TableReader<'_, '_>,
+        _ctx: &ReadContext,
+    ) -> std::result::Result<Self, ScenarioError> {
+        use Dimension as D;
+        Ok(SampleHoldCfg {
+            acquisition_s: r.non_negative("acquisition", D::Time)?,
+            aperture_delay_s: r.non_negative("aperture_delay", D::Time)?,
+            aperture_jitter_s: r.non_negative("aperture_jitter", D::Time)?,
+            droop_v_per_s: r.quantity("droop", D::SlewRate)?.map_or(0.0, |q| q.value),
+            hold_step_v: r
+                .quantity("hold_step", D::Voltage)?
+                .map_or(0.0, |q| q.value),
+        })
+    }
+
+    fn ablations(&self) -> Vec<Ablation> {
+        [
+            ("aperture_jitter", self.aperture_jitter_s),
+            ("acquisition", self.acquisition_s),
+            ("droop", self.droop_v_per_s),
+            ("hold_step", self.hold_step_v),
+        ]
+        .into_iter()
+        .filter(|(_, v)| *v != 0.0)
+        .map(|(name, _)| {
+            Ablation::new(
+                mechanism::<Self>(name),
+                format!("{name} = 0"),
+                vec![KeyEdit::Set(name, 0.0)],
+            )
+        })
+        .collect()
+    }
+
+    /// The hold's random stream comes from [`BuildContext::hold_rng`], derived from the quantizer's index, so
+    /// that a chain draws the same jitter whether the hold is counted or not. A static bench keeps the hold's
+    /// level errors but not its timing (no aperture jitter).
+    fn build(&self, ctx: &mut BuildContext) -> Result<Runtime> {
+        let cfg = SampleHoldCfg {
+            aperture_jitter_s: if ctx.static_bench {
+                0.0
+            } else {
+                self.aperture_jitter_s
+            },
+            ..*self
+        };
+        let mut sh = SampleHold::new(&cfg, ctx.hold_rng.clone()).with_label(ctx.label.clone());
+        if let Some(tb) = ctx.timebase {
+            sh.set_input_step_s(tb.dt_s());
+        }
+        ctx.pending_hold = Some(Box::new(sh));
+        Ok(Runtime::Hold)
+    }
+}
 
 /// Tracking is integrated over at most this many time constants before the switch opens; older input has
 /// decayed by e^-40 (about 4e-18).
@@ -45,6 +135,8 @@ impl Held {
 
 /// The sample-and-hold stage.
 pub struct SampleHold {
+    /// The stage's label when it was written in the scenario (none for the ideal hold of a bare quantizer).
+    label: Option<String>,
     cfg: SampleHoldCfg,
     rng: ChaCha8Rng,
     /// The last capture, until its release.
@@ -59,6 +151,7 @@ impl SampleHold {
     /// A sample-and-hold with the given imperfections; `rng` draws the aperture jitter.
     pub fn new(cfg: &SampleHoldCfg, rng: ChaCha8Rng) -> SampleHold {
         SampleHold {
+            label: None,
             cfg: *cfg,
             rng,
             last_held: None,
@@ -173,6 +266,38 @@ impl SampleHold {
     /// aperture delay + 6 sigma of jitter (the jitter is truncated there).
     pub fn lookahead_s(&self) -> f64 {
         (self.cfg.aperture_delay_s + JITTER_CLIP_SIGMA * self.cfg.aperture_jitter_s).max(0.0)
+    }
+}
+
+impl SampleHold {
+    /// Name the hold for budget lines.
+    pub fn with_label(mut self, label: String) -> SampleHold {
+        self.label = Some(label);
+        self
+    }
+}
+
+impl Hold for SampleHold {
+    fn acquire(&mut self, t_nominal_s: f64, probe: &dyn Probe) -> Held {
+        SampleHold::acquire(self, t_nominal_s, probe)
+    }
+    fn release(&mut self, t_s: f64) {
+        SampleHold::release(self, t_s)
+    }
+    fn history_needed_s(&self, track_time_s: f64) -> f64 {
+        SampleHold::history_needed_s(self, track_time_s)
+    }
+    fn lookahead_s(&self) -> f64 {
+        SampleHold::lookahead_s(self)
+    }
+    fn budget(&self) -> Vec<BudgetLine> {
+        match &self.label {
+            Some(l) => vec![BudgetLine {
+                stage: format!("{l}: aperture delay"),
+                seconds: self.cfg.aperture_delay_s,
+            }],
+            None => Vec::new(),
+        }
     }
 }
 

@@ -18,10 +18,339 @@
 use rand_chacha::ChaCha8Rng;
 use rand_distr::{Distribution, StandardNormal};
 
+use serde::Serialize;
+
 use crate::engine::stream::CodeEvent;
-use crate::scenario::{AdcInput, DitherKind, SarAdcCfg};
+use crate::error::Result;
+use crate::format::reader::{ScenarioError, TableReader};
+use crate::format::units::{Dimension, format_si};
 use crate::stages::Probe;
+use crate::stages::kind::{
+    Ablation, BuildContext, KeyEdit, KindSpec, Param, ParamKind, QuantizerTiming, Rates,
+    ReadContext, Role, Runtime, Upstream, mechanism,
+};
+use crate::stages::roles::{BudgetLine, Hold, Quantizer};
 use crate::stages::sample_hold::SampleHold;
+
+/// What a SAR converter compares during its bit trials.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "lowercase")]
+pub enum AdcInput {
+    /// The value captured at the sampling instant (from an upstream `sample_hold`, or an ideal one).
+    Held,
+    /// No hold: each bit trial compares the input at the moment of that trial.
+    Live,
+}
+
+/// Dither added before quantisation.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "lowercase")]
+pub enum DitherKind {
+    None,
+    /// Rectangular PDF, `dither_lsb` peak-to-peak.
+    Rpdf,
+    /// Triangular PDF, `dither_lsb` peak-to-peak.
+    Tpdf,
+}
+
+/// `kind = "sar_adc"`
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct SarAdcCfg {
+    pub bits: u32,
+    /// Input range `[low, high]` (V); q = (high - low) / 2^bits.
+    pub range_v: (f64, f64),
+    /// Bit-trial clock (resolved: given, or `cycles / conversion_time`).
+    pub clock_hz: f64,
+    /// Clock cycles per conversion (default bits + 1).
+    pub cycles: u32,
+    /// Time from the sampling instant until the code is available (resolved: given, or `cycles / clock`).
+    pub conversion_time_s: f64,
+    /// None = free-running: the next conversion starts when the previous one ends.
+    pub sample_rate_hz: Option<f64>,
+    pub input: AdcInput,
+    pub comparator_offset_v: f64,
+    /// Rms of Gaussian noise added to each comparison.
+    pub comparator_noise_v: f64,
+    /// Relative sigma of each unit capacitor of the internal DAC.
+    pub capacitor_mismatch: f64,
+    pub dither: DitherKind,
+    /// Dither size, LSB peak-to-peak.
+    pub dither_lsb: f64,
+    /// The scenario gave `clock` (rather than `conversion_time`): an ablation that speeds the converter up
+    /// edits the key that was written.
+    #[serde(skip)]
+    pub clock_given: bool,
+}
+
+impl SarAdcCfg {
+    /// The rate at which conversions start.
+    pub fn effective_sample_rate_hz(&self) -> f64 {
+        self.sample_rate_hz.unwrap_or(1.0 / self.conversion_time_s)
+    }
+    /// One LSB (volts).
+    pub fn lsb_v(&self) -> f64 {
+        (self.range_v.1 - self.range_v.0) / f64::powi(2.0, self.bits as i32)
+    }
+}
+
+/// Bits of a converter, link or DAC word.
+pub const MAX_BITS: i128 = 24;
+
+impl KindSpec for SarAdcCfg {
+    const NAME: &'static str = "sar_adc";
+    const ROLE: Role = Role::Quantizer;
+    const PARAMS: &'static [Param] = {
+        use Dimension as D;
+        &[
+            Param::fixed("bits", ParamKind::Integer),
+            Param::fixed("range", ParamKind::Pair(D::Voltage)),
+            Param::fixed("cycles", ParamKind::Integer),
+            Param::spread("clock", D::Frequency),
+            Param::spread("conversion_time", D::Time),
+            Param::spread("sample_rate", D::Frequency),
+            Param::fixed("input", ParamKind::Choice(&["held", "live"])),
+            Param::spread("comparator_offset", D::Voltage),
+            Param::spread("comparator_noise", D::Voltage),
+            Param::spread("capacitor_mismatch", D::Ratio),
+            Param::fixed("dither", ParamKind::Choice(&["none", "rpdf", "tpdf"])),
+            Param::spread("dither_lsb", D::Ratio),
+        ]
+    };
+
+    fn read(
+        r: &mut TableReader<'_, '_>,
+        _ctx: &ReadContext,
+    ) -> std::result::Result<Self, ScenarioError> {
+        read_sar(r)
+    }
+
+    fn resolve(&mut self, up: &mut Upstream) {
+        up.width_bits = self.bits;
+        up.quantizer_range_v = Some(self.range_v);
+        up.sample_rate_hz = Some(self.effective_sample_rate_hz());
+    }
+
+    fn ablations(&self) -> Vec<Ablation> {
+        let mut out = Vec::new();
+        if self.input == AdcInput::Live {
+            out.push(Ablation::new(
+                mechanism::<Self>("input"),
+                "input = \"held\" (live -> held)",
+                vec![KeyEdit::SetStr("input", "held")],
+            ));
+        }
+        for (name, v) in [
+            ("comparator_noise", self.comparator_noise_v),
+            ("capacitor_mismatch", self.capacitor_mismatch),
+        ] {
+            if v > 0.0 {
+                out.push(Ablation::new(
+                    mechanism::<Self>(name),
+                    format!("{name} = 0"),
+                    vec![KeyEdit::Set(name, 0.0)],
+                ));
+            }
+        }
+        // Sampling ten times faster, with the conversion shortened to fit, on the key that was written.
+        let fs10 = 10.0 * self.effective_sample_rate_hz();
+        let mut edits = vec![KeyEdit::Set("sample_rate", fs10)];
+        if self.clock_given {
+            edits.push(KeyEdit::Set(
+                "clock",
+                self.clock_hz.max(f64::from(self.cycles) * fs10),
+            ));
+        } else {
+            edits.push(KeyEdit::Set(
+                "conversion_time",
+                self.conversion_time_s.min(1.0 / fs10),
+            ));
+        }
+        out.push(Ablation::new(
+            mechanism::<Self>("sample_rate"),
+            format!(
+                "sample_rate raised tenfold to {} (conversion shortened to fit)",
+                format_si(fs10, "Hz")
+            ),
+            edits,
+        ));
+        out
+    }
+
+    fn rates(&self) -> Rates {
+        Rates {
+            lowpass_hz: Some(self.effective_sample_rate_hz()),
+            highpass_hz: None,
+        }
+    }
+
+    fn quantizer_timing(&self) -> Option<QuantizerTiming> {
+        Some(QuantizerTiming {
+            sample_rate_hz: self.effective_sample_rate_hz(),
+            conversion_time_s: self.conversion_time_s,
+            bits: self.bits,
+            range_v: self.range_v,
+        })
+    }
+
+    fn has_static_levels(&self) -> bool {
+        self.bits >= 2
+    }
+
+    fn echo(&self) -> serde_json::Value {
+        let mut v = serde_json::to_value(self).unwrap_or(serde_json::Value::Null);
+        v["sample_rate_hz"] = serde_json::json!(self.effective_sample_rate_hz());
+        v["free_running"] = serde_json::json!(self.sample_rate_hz.is_none());
+        v["lsb_v"] = serde_json::json!(self.lsb_v());
+        v
+    }
+
+    /// The quantizer owns the hold read just before it, or an ideal one.
+    fn build(&self, ctx: &mut BuildContext) -> Result<Runtime> {
+        let hold: Box<dyn Hold> = match ctx.pending_hold.take() {
+            Some(h) => h,
+            None => Box::new(SampleHold::ideal()),
+        };
+        Ok(Runtime::Quantizer(Box::new(SarQuantizer {
+            adc: SarAdc::new(self, ctx.rng.clone()),
+            hold,
+            label: ctx.label.clone(),
+        })))
+    }
+}
+
+fn read_sar(r: &mut TableReader<'_, '_>) -> std::result::Result<SarAdcCfg, ScenarioError> {
+    use Dimension as D;
+    let bits = r
+        .integer("bits", 1, MAX_BITS)?
+        .ok_or_else(|| r.missing("bits", "12"))?
+        .value as u32;
+    let range_v = r
+        .pair("range", D::Voltage)?
+        .ok_or_else(|| r.missing("range", "[\"0 V\", \"5 V\"]"))?
+        .value;
+    let cycles_at = r.integer("cycles", 1, 10_000)?;
+    let cycles = cycles_at.as_ref().map_or(bits + 1, |c| c.value as u32);
+    if let Some(c) = &cycles_at
+        && c.value < i128::from(bits)
+    {
+        return Err(r
+            .error(
+                &c.span,
+                "cycles",
+                format!(
+                    "a {bits}-bit SAR needs at least {bits} cycles (one per bit), found {}",
+                    c.value
+                ),
+            )
+            .with_hint(format!(
+                "use cycles = {} (one per bit plus one to sample)",
+                bits + 1
+            )));
+    }
+    let clock = r.positive("clock", D::Frequency)?;
+    let conv = r.positive("conversion_time", D::Time)?;
+    let (clock_hz, conversion_time_s) = match (&clock, &conv) {
+        (Some(_), Some(ct)) => {
+            return Err(r
+                .error(
+                    &ct.span,
+                    "conversion_time",
+                    "give clock or conversion_time, not both",
+                )
+                .with_hint("remove one: conversion_time = cycles / clock"));
+        }
+        (Some(c), None) => (c.value, f64::from(cycles) / c.value),
+        (None, Some(ct)) => (f64::from(cycles) / ct.value, ct.value),
+        (None, None) => {
+            return Err(r
+                .missing("clock", "\"1 MHz\"")
+                .with_hint("give the bit-trial clock (clock = \"1 MHz\") or the conversion time (conversion_time = \"10 us\")"));
+        }
+    };
+    let sample_rate = r.positive("sample_rate", D::Frequency)?;
+    if let Some(sr) = &sample_rate {
+        let max_rate = 1.0 / conversion_time_s;
+        // A relative tolerance so that e.g. 100 kSPS with a 10 us conversion is accepted despite rounding.
+        if sr.value > max_rate * (1.0 + 1e-9) {
+            let faster = if clock.is_some() {
+                format!(
+                    "raise clock to at least {}",
+                    format_si(f64::from(cycles) * sr.value, "Hz")
+                )
+            } else {
+                format!(
+                    "shorten conversion_time to at most {}",
+                    format_si(1.0 / sr.value, "s")
+                )
+            };
+            return Err(r
+                .error(
+                    &sr.span,
+                    "sample_rate",
+                    format!(
+                        "sample_rate {} is faster than the converter allows: one conversion takes {} ({} cycles at {}), so \
+                         at most {}",
+                        format_si(sr.value, "Hz"),
+                        format_si(conversion_time_s, "s"),
+                        cycles,
+                        format_si(clock_hz, "Hz"),
+                        format_si(max_rate, "Hz")
+                    ),
+                )
+                .with_hint(format!("lower sample_rate to at most {}, or {faster}", format_si(max_rate, "Hz"))));
+        }
+    }
+    let input = r
+        .choice(
+            "input",
+            &[("held", AdcInput::Held), ("live", AdcInput::Live)],
+        )?
+        .map_or(AdcInput::Held, |q| q.value);
+    let comparator_offset_v = r
+        .quantity("comparator_offset", D::Voltage)?
+        .map_or(0.0, |q| q.value);
+    let comparator_noise_v = r.non_negative("comparator_noise", D::Voltage)?;
+    let capacitor_mismatch = r.non_negative("capacitor_mismatch", D::Ratio)?;
+    let dither = r
+        .choice(
+            "dither",
+            &[
+                ("none", DitherKind::None),
+                ("rpdf", DitherKind::Rpdf),
+                ("tpdf", DitherKind::Tpdf),
+            ],
+        )?
+        .map_or(DitherKind::None, |q| q.value);
+    let dither_lsb = match (r.number("dither_lsb")?, dither) {
+        (Some(d), DitherKind::None) => {
+            return Err(r
+                .error(&d.span, "dither_lsb", "has no effect without dither")
+                .with_hint("set dither = \"rpdf\" or \"tpdf\", or remove dither_lsb"));
+        }
+        (Some(d), _) if d.value < 0.0 => {
+            return Err(r.error(&d.span, "dither_lsb", "must not be negative"));
+        }
+        (Some(d), _) => d.value,
+        (None, DitherKind::None) => 0.0,
+        (None, DitherKind::Rpdf) => 1.0,
+        (None, DitherKind::Tpdf) => 2.0,
+    };
+    Ok(SarAdcCfg {
+        bits,
+        range_v,
+        clock_hz,
+        cycles,
+        conversion_time_s,
+        sample_rate_hz: sample_rate.map(|q| q.value),
+        input,
+        comparator_offset_v,
+        comparator_noise_v,
+        capacitor_mismatch,
+        dither,
+        dither_lsb,
+        clock_given: clock.is_some(),
+    })
+}
 
 /// The SAR converter stage.
 pub struct SarAdc {
@@ -108,7 +437,7 @@ impl SarAdc {
     /// value at each trial instant, then release `sh` at t_k + conversion_time. Live input: each trial
     /// compares the input at its own instant. Dither is drawn once per conversion, comparator noise once
     /// per comparison.
-    pub fn convert(&mut self, k: u64, probe: &dyn Probe, sh: &mut SampleHold) -> CodeEvent {
+    pub fn convert(&mut self, k: u64, probe: &dyn Probe, sh: &mut dyn Hold) -> CodeEvent {
         let t_k = self.sample_time_s(k);
         let n = self.cfg.bits;
         let low = self.cfg.range_v.0;
@@ -259,6 +588,84 @@ impl SarAdc {
     }
 }
 
+/// A SAR converter with the hold it samples through: the quantizer role.
+pub struct SarQuantizer {
+    adc: SarAdc,
+    hold: Box<dyn Hold>,
+    label: String,
+}
+
+impl Quantizer for SarQuantizer {
+    fn sample_time_s(&self, k: u64) -> f64 {
+        self.adc.sample_time_s(k)
+    }
+    fn latest_input_needed_s(&self, k: u64) -> f64 {
+        self.adc.latest_input_needed_s(k, self.hold.lookahead_s())
+    }
+    fn history_needed_s(&self) -> f64 {
+        let fs = self.adc.cfg.effective_sample_rate_hz();
+        self.adc.cfg.conversion_time_s
+            + self.hold.lookahead_s()
+            + self.hold.history_needed_s(1.0 / fs)
+            + 4.0 / fs
+    }
+    fn convert(&mut self, k: u64, probe: &dyn Probe) -> CodeEvent {
+        self.adc.convert(k, probe, self.hold.as_mut())
+    }
+    fn codes_clipped(&self) -> u64 {
+        self.adc.codes_clipped()
+    }
+    fn bits(&self) -> u32 {
+        self.adc.cfg.bits
+    }
+    fn range_v(&self) -> (f64, f64) {
+        self.adc.cfg.range_v
+    }
+    fn sample_rate_hz(&self) -> f64 {
+        self.adc.cfg.effective_sample_rate_hz()
+    }
+    /// Without a hold the input moves during the bit trials: a static test's sine must move under a
+    /// twentieth of an LSB during a conversion (a full-scale sine moves at most 2 pi f A t_conv).
+    fn static_sine_limit_hz(&self) -> f64 {
+        let c = &self.adc.cfg;
+        match c.input {
+            AdcInput::Held => f64::INFINITY,
+            AdcInput::Live => {
+                0.05 / (f64::powi(2.0, c.bits as i32) * std::f64::consts::PI * c.conversion_time_s)
+            }
+        }
+    }
+    fn budget(&self) -> Vec<BudgetLine> {
+        let c = &self.adc.cfg;
+        let mut lines = self.hold.budget();
+        match c.input {
+            AdcInput::Held => lines.push(BudgetLine {
+                stage: format!("{}: conversion time", self.label),
+                seconds: c.conversion_time_s,
+            }),
+            AdcInput::Live => {
+                // Without a hold the code follows the input during the bit trials. A small movement of the
+                // input changes the code where it crosses a trial's threshold; trial i (at (i + 1)/clock) has
+                // 2^i thresholds across the range, so the later, finer trials decide most often: the code's
+                // effective instant is the trial instants weighted by 2^i / (2^N - 1).
+                let n = c.bits as i32;
+                let total = f64::powi(2.0, n) - 1.0;
+                let t_eff: f64 = (0..n)
+                    .map(|i| f64::powi(2.0, i) / total * (i + 1) as f64 / c.clock_hz)
+                    .sum();
+                lines.push(BudgetLine {
+                    stage: format!(
+                        "{}: conversion time less the bit trials' weighted instant (live input)",
+                        self.label
+                    ),
+                    seconds: c.conversion_time_s - t_eff,
+                });
+            }
+        }
+        lines
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -282,6 +689,7 @@ mod tests {
             capacitor_mismatch: 0.0,
             dither: DitherKind::None,
             dither_lsb: 0.0,
+            clock_given: true,
         }
     }
 

@@ -19,7 +19,84 @@
 
 use num_complex::Complex64;
 
-use crate::scenario::OutputAmpCfg;
+use serde::Serialize;
+
+use crate::format::reader::{ScenarioError, TableReader};
+use crate::format::units::Dimension;
+use crate::stages::kind::{Ablation, KeyEdit, Param, ParamKind};
+
+/// The output amplifier model shared by `dac` and `amplifier`:
+/// dv/dt = clamp((target - v)/tau, -slew, +slew), then clipped to the rails.
+#[derive(Debug, Clone, Copy, PartialEq, Default, Serialize)]
+pub struct OutputAmpCfg {
+    /// None = unlimited.
+    pub slew_rate_v_per_s: Option<f64>,
+    /// First-order time constant (from `settling`, or `bandwidth` as 1/(2 pi f)); None = instantaneous.
+    pub tau_s: Option<f64>,
+    /// Output swing limits `[low, high]`; None = unlimited.
+    pub rails_v: Option<(f64, f64)>,
+}
+
+/// The keys of the output amplifier, in the parameter lists of the kinds that have one.
+pub const OUTPUT_AMP_PARAMS: [Param; 4] = [
+    Param::spread("slew_rate", Dimension::SlewRate),
+    Param::spread("settling", Dimension::Time),
+    Param::spread("bandwidth", Dimension::Frequency),
+    Param::fixed("rails", ParamKind::Pair(Dimension::Voltage)),
+];
+
+impl OutputAmpCfg {
+    /// The two ablations of the output amplifier: its slew limit and its settling (`kind` names the stage
+    /// kind, for the mechanism: `dac.slew_rate`).
+    pub fn ablations(&self, kind: &str) -> Vec<Ablation> {
+        let mut out = Vec::new();
+        if self.slew_rate_v_per_s.is_some() {
+            out.push(Ablation::new(
+                format!("{kind}.slew_rate"),
+                "slew_rate removed",
+                vec![KeyEdit::Remove("slew_rate")],
+            ));
+        }
+        if self.tau_s.is_some() {
+            out.push(Ablation::new(
+                format!("{kind}.settling"),
+                "settling (tau) removed",
+                vec![KeyEdit::Remove("settling"), KeyEdit::Remove("bandwidth")],
+            ));
+        }
+        out
+    }
+
+    /// The amplifier's -3 dB bandwidth (Hz), when it has a time constant.
+    pub fn bandwidth_hz(&self) -> Option<f64> {
+        self.tau_s.map(|t| 1.0 / (2.0 * std::f64::consts::PI * t))
+    }
+}
+
+/// `slew_rate`, `settling` | `bandwidth`, `rails`, shared by dac and amplifier.
+pub fn read_output_amp(
+    r: &mut TableReader<'_, '_>,
+) -> std::result::Result<OutputAmpCfg, ScenarioError> {
+    use Dimension as D;
+    let slew = r.positive("slew_rate", D::SlewRate)?;
+    let settling = r.positive("settling", D::Time)?;
+    let bandwidth = r.positive("bandwidth", D::Frequency)?;
+    let tau_s = match (&settling, &bandwidth) {
+        (Some(_), Some(b)) => {
+            return Err(r
+                .error(&b.span, "bandwidth", "give settling or bandwidth, not both")
+                .with_hint("settling is the time constant tau; bandwidth f gives tau = 1/(2 pi f); remove one"));
+        }
+        (Some(s), None) => Some(s.value),
+        (None, Some(b)) => Some(1.0 / (2.0 * std::f64::consts::PI * b.value)),
+        (None, None) => None,
+    };
+    Ok(OutputAmpCfg {
+        slew_rate_v_per_s: slew.map(|q| q.value),
+        tau_s,
+        rails_v: r.pair("rails", D::Voltage)?.map(|q| q.value),
+    })
+}
 
 /// Upper bound on the closed-form pieces of one segment (at most 3 dynamic pieces plus rail contacts;
 /// the bound only guards against a pathological floating-point loop).

@@ -25,11 +25,11 @@ use super::shard::{
     ROWS_FILE, ROWS_FORMAT, RowSet, Shard, fingerprint, interrupted_note, run_in_order,
 };
 use crate::engine::pipeline;
+use crate::engine::static_bench::{Static, static_tests};
 use crate::error::{Error, Result};
 use crate::measure::chain::{ChainMetrics, measure_run};
 use crate::report::OutputDir;
 use crate::report::plot::{Plot, PlotFormat, XyPlot, render};
-use crate::runner::{Static, static_tests};
 use crate::scenario::overrides::ScenarioText;
 use crate::scenario::{Scenario, Spread, SpreadLaw, StageKind};
 

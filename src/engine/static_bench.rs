@@ -1,0 +1,206 @@
+//! The static bench: the ADC's slow-ramp and code-density tests and the DAC's every-code levels, on the
+//! scenario's own converters (built through their kinds, with the same seeds as a run), driven through the
+//! quantizer and reconstructor roles.
+
+use serde::Serialize;
+
+use crate::engine::pipeline::build_context;
+use crate::error::{Error, Result};
+use crate::measure::static_test::{self, StaticResult};
+use crate::scenario::Scenario;
+use crate::stages::Probe;
+use crate::stages::kind::{Runtime, Upstream};
+use crate::stages::roles::{Quantizer, Reconstructor};
+
+/// Static results of the ADC.
+#[derive(Debug, Clone, Serialize)]
+pub struct AdcStatic {
+    /// The code-density (histogram) test with a sine (IEEE Std 1241); its fields sit directly under `static.adc`.
+    #[serde(flatten)]
+    pub code_density: StaticResult,
+    pub ramp: StaticResult,
+    /// Samples used by each test.
+    pub code_density_samples: usize,
+    pub ramp_samples: usize,
+}
+
+/// Static results of the DAC.
+#[derive(Debug, Clone, Serialize)]
+pub struct DacStatic {
+    #[serde(flatten)]
+    pub result: StaticResult,
+    /// Settled output of every code relative to the zero-code output (V).
+    pub levels_v: Vec<f64>,
+}
+
+/// `static.adc` and `static.dac`.
+#[derive(Debug, Clone, Serialize)]
+pub struct Static {
+    pub adc: Option<AdcStatic>,
+    pub dac: Option<DacStatic>,
+}
+
+/// What `convchain static` writes.
+#[derive(Debug, Clone, Serialize)]
+pub struct StaticReport {
+    pub scenario: String,
+    #[serde(rename = "static")]
+    pub stat: Static,
+}
+
+struct FnProbe<F: Fn(f64) -> f64>(F);
+impl<F: Fn(f64) -> f64> Probe for FnProbe<F> {
+    fn value_at(&self, t_s: f64) -> f64 {
+        (self.0)(t_s)
+    }
+}
+
+/// A fresh quantizer of the scenario (with its hold, level errors only), or `None` when it has none.
+type QuantizerMaker<'a> = Box<dyn Fn() -> Result<Box<dyn Quantizer>> + 'a>;
+
+/// The scenario's converters built for the bench: a maker of fresh quantizers (each test starts from the
+/// same draws), and the reconstructor with its label.
+fn converters(
+    sc: &Scenario,
+) -> Result<(
+    Option<QuantizerMaker<'_>>,
+    Option<(String, Box<dyn Reconstructor>)>,
+)> {
+    let seed = sc.simulation.seed;
+    let mut quantizer_at = None;
+    let mut reconstructor = None;
+    let mut up = Upstream::default();
+    let mut ups = Vec::with_capacity(sc.stages.len());
+    for (i, st) in sc.stages.iter().enumerate() {
+        ups.push(up);
+        match st.kind.role() {
+            crate::stages::kind::Role::Quantizer => quantizer_at = Some(i),
+            crate::stages::kind::Role::Reconstructor => {
+                let mut ctx = build_context(seed, i as u64 + 1, &st.label, None, up);
+                if let Runtime::Reconstructor(r) = st.kind.build(&mut ctx)? {
+                    reconstructor = Some((st.label.clone(), r));
+                }
+            }
+            _ => {}
+        }
+        st.kind.clone().resolve(&mut up);
+    }
+    let maker = quantizer_at.map(|qi| -> QuantizerMaker<'_> {
+        let ups = ups.clone();
+        Box::new(move || {
+            // The hold (if any) sits just before the quantizer and hands itself over through the context.
+            let first = match qi.checked_sub(1) {
+                Some(h) if sc.stages[h].kind.role() == crate::stages::kind::Role::Hold => h,
+                _ => qi,
+            };
+            let mut pending = None;
+            for i in first..=qi {
+                let st = &sc.stages[i];
+                let mut ctx = build_context(seed, i as u64 + 1, &st.label, None, ups[i]);
+                ctx.pending_hold = pending.take();
+                match st.kind.build(&mut ctx)? {
+                    Runtime::Quantizer(q) => return Ok(q),
+                    _ => pending = ctx.pending_hold.take(),
+                }
+            }
+            Err(Error::Run("the quantizer could not be built".into()))
+        })
+    });
+    Ok((maker, reconstructor))
+}
+
+/// Static tests of the scenario's ADC and DAC, drawn with the same seeds as a run.
+pub fn static_tests(sc: &Scenario) -> Result<Static> {
+    let (make_quantizer, reconstructor) = converters(sc)?;
+    let mut dac_res = None;
+    if let Some((label, dac)) = &reconstructor {
+        let bits = dac.bits();
+        if bits < 2 {
+            return Err(Error::BadInput(format!(
+                "{}: {}: static tests need a DAC of at least 2 bits",
+                sc.origin, label
+            )));
+        }
+        let n = 1u64 << bits;
+        let absolute: Vec<f64> = (0..n).map(|k| dac.level_v(k as u32)).collect();
+        let (lo, hi) = dac.range_v();
+        let q = (hi - lo) / n as f64;
+        let result = static_test::dac_from_levels(&absolute, lo, q);
+        let zero = absolute[0];
+        dac_res = Some(DacStatic {
+            result,
+            levels_v: absolute.iter().map(|v| v - zero).collect(),
+        });
+    }
+    let adc_res = match &make_quantizer {
+        Some(make) => Some(adc_static(sc, make)?),
+        None => None,
+    };
+    if adc_res.is_none() && dac_res.is_none() {
+        return Err(Error::BadInput(format!(
+            "{}: the chain has no ADC or DAC to test",
+            sc.origin
+        )));
+    }
+    Ok(Static {
+        adc: adc_res,
+        dac: dac_res,
+    })
+}
+
+fn adc_static(sc: &Scenario, make: &QuantizerMaker<'_>) -> Result<AdcStatic> {
+    let probe_adc = make()?;
+    let bits = probe_adc.bits();
+    if bits < 2 {
+        return Err(Error::BadInput(format!(
+            "{}: static tests need an ADC of at least 2 bits",
+            sc.origin
+        )));
+    }
+    let (lo, hi) = probe_adc.range_v();
+    let n_codes = 1usize << bits;
+    let q = (hi - lo) / n_codes as f64;
+    let fs = probe_adc.sample_rate_hz();
+    // Slow ramp: 16 samples per LSB (capped), from 2 LSB below to 2 LSB above the range.
+    let ramp_n = (n_codes * 16).clamp(4096, 1 << 22);
+    let v0 = lo - 2.0 * q;
+    let v1 = hi + 2.0 * q;
+    let dur = ramp_n as f64 / fs;
+    let slope = (v1 - v0) / dur;
+    let probe = FnProbe(|t: f64| v0 + slope * t);
+    let mut adc = make()?;
+    let mut ramp_v = Vec::with_capacity(ramp_n);
+    let mut codes = Vec::with_capacity(ramp_n);
+    for k in 0..ramp_n as u64 {
+        let ev = adc.convert(k, &probe);
+        ramp_v.push(v0 + slope * adc.sample_time_s(k));
+        codes.push(ev.code);
+    }
+    let ramp = static_test::adc_ramp(&ramp_v, &codes, bits, lo, q);
+    // Code density: a sine overdriven by 2 % around mid-range, coherent with the record, no faster than the
+    // converter allows for a static test; the record then grows to hold at least 8 cycles.
+    let f_want = (fs / 97.3).min(probe_adc.static_sine_limit_hz());
+    let cd_n = (n_codes * 64)
+        .max((8.0 * fs / f_want).ceil() as usize)
+        .clamp(1 << 16, 1 << 22);
+    let f = crate::measure::coherent::coherent_frequency(f_want, fs, cd_n)
+        .map(|(f, _)| f)
+        .unwrap_or(f_want);
+    let c = 0.5 * (lo + hi);
+    let a = 0.5 * (hi - lo) * 1.02;
+    let w = 2.0 * std::f64::consts::PI * f;
+    let probe = FnProbe(|t: f64| c + a * (w * t).sin());
+    let mut adc = make()?;
+    let mut hist = vec![0u64; n_codes];
+    for k in 0..cd_n as u64 {
+        let ev = adc.convert(k, &probe);
+        hist[ev.code as usize] += 1;
+    }
+    let code_density = static_test::adc_code_density(&hist, None, None, lo, q);
+    Ok(AdcStatic {
+        code_density,
+        ramp,
+        code_density_samples: cd_n,
+        ramp_samples: ramp_n,
+    })
+}

@@ -1,0 +1,88 @@
+//! Runtime roles beside [`crate::stages::AnalogStage`]: what the engine and the static bench drive, without
+//! naming a concrete kind. A chain reads `analog* [hold? quantizer code* reconstructor] analog*`.
+
+use serde::Serialize;
+
+use crate::engine::stream::{CodeEvent, Timebase};
+use crate::stages::Probe;
+
+/// One line of the latency budget: a stage (or a part of one) and the delay it contributes.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct BudgetLine {
+    /// What the line stands for (a stage name, "transport", "jitter buffer", ...).
+    pub stage: String,
+    /// Its contribution (s).
+    pub seconds: f64,
+}
+
+/// A sample-and-hold owned by the quantizer after it.
+pub trait Hold: Send {
+    /// Acquire the input for nominal instant `t_nominal_s` and return the held value.
+    fn acquire(&mut self, t_nominal_s: f64, probe: &dyn Probe) -> crate::stages::sample_hold::Held;
+    /// The conversion ended at `t_s`: tracking resumes.
+    fn release(&mut self, t_s: f64);
+    /// History the probe must keep before a nominal instant, given the track time (s).
+    fn history_needed_s(&self, track_time_s: f64) -> f64;
+    /// Latest input instant an acquisition may ask for, relative to its nominal instant (s).
+    fn lookahead_s(&self) -> f64;
+    /// Budget lines of the hold itself (its aperture delay).
+    fn budget(&self) -> Vec<BudgetLine>;
+}
+
+/// An ADC: samples its input at exact instants and turns it into codes.
+pub trait Quantizer: Send {
+    /// Nominal sampling instant of conversion `k` (s).
+    fn sample_time_s(&self, k: u64) -> f64;
+    /// Latest input instant conversion `k` needs (s), its hold's look-ahead included.
+    fn latest_input_needed_s(&self, k: u64) -> f64;
+    /// Input history needed before a sampling instant (s).
+    fn history_needed_s(&self) -> f64;
+    /// Convert sample `k`, reading the input through `probe`.
+    fn convert(&mut self, k: u64, probe: &dyn Probe) -> CodeEvent;
+    /// Codes clipped so far (input beyond the range).
+    fn codes_clipped(&self) -> u64;
+    /// Word width (bits).
+    fn bits(&self) -> u32;
+    /// Input range `[low, high]` (V).
+    fn range_v(&self) -> (f64, f64);
+    /// Rate at which conversions start (Hz).
+    fn sample_rate_hz(&self) -> f64;
+    /// The highest sine frequency a static code-density test may use (Hz): a converter that sees its input
+    /// move during a conversion needs a slower one. Infinite when any will do.
+    fn static_sine_limit_hz(&self) -> f64 {
+        f64::INFINITY
+    }
+    /// Budget lines: the hold's, then the conversion's.
+    fn budget(&self) -> Vec<BudgetLine>;
+}
+
+/// A digital stage between the quantizer and the reconstructor.
+pub trait CodeStage: Send {
+    /// Take one code; push the codes that leave (with their availability times) to `out`.
+    fn push(&mut self, ev: CodeEvent, out: &mut Vec<CodeEvent>);
+    /// Bits flipped by transport errors so far.
+    fn bits_flipped(&self) -> u64 {
+        0
+    }
+    /// Budget lines for codes arriving at `sample_rate_hz`.
+    fn budget(&self, sample_rate_hz: f64) -> Vec<BudgetLine>;
+}
+
+/// A DAC: renders codes on the analog grid.
+pub trait Reconstructor: Send {
+    /// Render grid samples `n0 .. n0 + out.len()` from the pending `events`; return how many were consumed.
+    fn render(
+        &mut self,
+        timebase: Timebase,
+        n0: u64,
+        events: &[CodeEvent],
+        out: &mut [f64],
+    ) -> usize;
+    /// Static output (V) for `code`, before any output dynamics.
+    fn level_v(&self, code: u32) -> f64;
+    fn bits(&self) -> u32;
+    /// Output range `[low, high]` (V) of an ideal converter.
+    fn range_v(&self) -> (f64, f64);
+    /// Budget lines for codes updated at `update_rate_hz`, at `f_hz` (phase delays).
+    fn budget(&self, update_rate_hz: f64, f_hz: f64) -> Vec<BudgetLine>;
+}
