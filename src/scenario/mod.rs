@@ -262,6 +262,7 @@ impl Spread {
     }
 }
 
+pub mod keys;
 pub mod overrides;
 
 pub mod validate;

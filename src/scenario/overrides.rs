@@ -9,21 +9,7 @@ use toml::{Table, Value};
 use crate::error::{Error, Result};
 use crate::scenario::{Scenario, parse_str};
 
-/// Keys whose values are whole numbers.
-const INTEGER_KEYS: &[&str] = &[
-    "seed",
-    "bits",
-    "order",
-    "cycles",
-    "frame",
-    "harmonics",
-    "channel",
-];
-
-/// Whether the key (the last part of a path, e.g. `bits` in `stage.2.bits`) takes a whole number.
-pub fn is_integer_key(key: &str) -> bool {
-    INTEGER_KEYS.contains(&key)
-}
+pub use crate::scenario::keys::is_integer_key;
 
 /// One change to a scenario document, for [`ScenarioText::with_edits`]. Paths are as for
 /// [`ScenarioText::with`]; stage numbers count from 1 and refer to the document as it stands when the edit is
@@ -242,7 +228,7 @@ fn set(doc: &mut Table, path: &str, value: f64) -> std::result::Result<(), Strin
     }
     let (head, last) = split(path)?;
     let t = table_mut(doc, &head)?;
-    let v = if INTEGER_KEYS.contains(&last) {
+    let v = if is_integer_key(last) {
         if value.fract() != 0.0 && (value - value.round()).abs() > 1e-9 {
             return Err(format!("`{last}` takes a whole number"));
         }

@@ -688,43 +688,13 @@ fn analysis(map: &SourceMap<'_>, t: &Table) -> Result<Analysis, ScenarioError> {
     })
 }
 
-/// Keys of `[simulation]`, `[source]` and `[analysis]` a `[spread]` entry may name, with their dimension. Stage
-/// keys come from each kind's parameter list ([`crate::stages::kind::KindSpec::PARAMS`]).
-const SECTION_SPREAD_KEYS: &[(&str, &str, Dimension)] = {
-    use Dimension as D;
-    &[
-        ("simulation", "analog_rate", D::Frequency),
-        ("simulation", "duration", D::Time),
-        ("simulation", "settle", D::Time),
-        ("source", "frequency", D::Frequency),
-        ("source", "amplitude", D::Voltage),
-        ("source", "offset", D::Voltage),
-        ("source", "duty", D::Ratio),
-        ("source", "start", D::Frequency),
-        ("source", "stop", D::Frequency),
-        ("source", "sweep_time", D::Time),
-        ("source", "at", D::Time),
-        ("source", "rms", D::Voltage),
-        ("source", "bandwidth", D::Frequency),
-        ("source", "full_scale", D::Voltage),
-        ("analysis", "band", D::Frequency),
-    ]
-};
-
 /// The keys of a section or stage kind that can be spread, with their dimension.
 fn spreadable_keys(kind: &str) -> Vec<(&'static str, Dimension)> {
-    match crate::stages::registry::params_of(kind) {
-        Some(params) => params
-            .iter()
-            .filter(|p| p.spread)
-            .filter_map(|p| Some((p.key, p.dimension()?)))
-            .collect(),
-        None => SECTION_SPREAD_KEYS
-            .iter()
-            .filter(|(k, _, _)| *k == kind)
-            .map(|(_, n, d)| (*n, *d))
-            .collect(),
-    }
+    crate::scenario::keys::params_of(kind)
+        .iter()
+        .filter(|p| p.spread)
+        .filter_map(|p| Some((p.key, p.dimension()?)))
+        .collect()
 }
 
 /// One `[spread]` entry before checking: its key path, where the key is written, its value.

@@ -132,14 +132,6 @@ pub fn params_of(name: &str) -> Option<&'static [Param]> {
         .map(|(_, p)| *p)
 }
 
-/// Whether any kind's key `key` takes a whole number.
-pub fn is_integer_key(key: &str) -> bool {
-    KIND_PARAMS
-        .iter()
-        .flat_map(|(_, ps)| ps.iter())
-        .any(|p| p.key == key && p.is_integer())
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;

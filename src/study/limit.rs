@@ -30,7 +30,8 @@ use crate::format::units::format_si;
 use crate::report::OutputDir;
 use crate::report::plot::{self, Plot, XyPlot};
 use crate::scenario::overrides::{Edit, ScenarioText};
-use crate::scenario::{AdcInput, FilterResponse, Ladder, Scenario, StageKind, Waveform};
+use crate::scenario::{Scenario, Waveform};
+use crate::stages::kind::{KeyEdit, Role};
 use crate::study::sweep::{progress_bar, simulate, thread_pool};
 
 /// Settings of the limit finder.
@@ -184,176 +185,45 @@ pub struct Candidate {
     pub edits: Vec<Edit>,
 }
 
-/// The non-idealities present in the scenario, each with the edits that make it ideal.
-pub fn candidates(text: &ScenarioText, sc: &Scenario) -> Vec<Candidate> {
+/// The non-idealities present in the scenario, each with the edits that make it ideal (each stage kind lists its
+/// own: [`crate::stages::kind::KindSpec::ablations`]).
+pub fn candidates(sc: &Scenario) -> Vec<Candidate> {
     let mut out = Vec::new();
-    /// Records one ablation candidate: (mechanism, stage label, change, edits).
-    type Add<'a> = dyn FnMut(&str, &str, &str, Vec<Edit>) + 'a;
-    // The output-amplifier model is shared by the DAC and the amplifier stage: the same two ablations.
-    fn amp_ablations(
-        kind: &str,
-        amp: &crate::scenario::OutputAmpCfg,
-        label: &str,
-        key: &dyn Fn(&str) -> String,
-        add: &mut Add<'_>,
-    ) {
-        if amp.slew_rate_v_per_s.is_some() {
-            add(
-                &format!("{kind}.slew_rate"),
-                label,
-                "slew_rate removed",
-                vec![Edit::Remove(key("slew_rate"))],
-            );
-        }
-        if amp.tau_s.is_some() {
-            add(
-                &format!("{kind}.settling"),
-                label,
-                "settling (tau) removed",
-                vec![
-                    Edit::Remove(key("settling")),
-                    Edit::Remove(key("bandwidth")),
-                ],
-            );
-        }
-    }
-    let mut add = |mech: &str, label: &str, what: &str, edits: Vec<Edit>| {
-        out.push(Candidate {
-            mechanism: mech.to_string(),
-            stage: label.to_string(),
-            change: format!("{label}: {what}"),
-            edits,
-        })
-    };
     for (i, st) in sc.stages.iter().enumerate() {
         let n = i + 1;
         let key = |k: &str| format!("stage.{n}.{k}");
-        let label = st.label.as_str();
-        match &st.kind {
-            StageKind::Dac(c) => {
-                amp_ablations("dac", &c.output, label, &key, &mut add);
-                if c.ladder != Ladder::Ideal && c.tolerance > 0.0 {
-                    add(
-                        "dac.tolerance",
-                        label,
-                        "tolerance = 0",
-                        vec![Edit::Set(key("tolerance"), 0.0)],
-                    );
-                }
-            }
-            StageKind::Amplifier(c) => amp_ablations("amplifier", &c.output, label, &key, &mut add),
-            StageKind::SampleHold(c) => {
-                for (name, v) in [
-                    ("aperture_jitter", c.aperture_jitter_s),
-                    ("acquisition", c.acquisition_s),
-                    ("droop", c.droop_v_per_s),
-                    ("hold_step", c.hold_step_v),
-                ] {
-                    if v != 0.0 {
-                        add(
-                            &format!("sample_hold.{name}"),
-                            label,
-                            &format!("{name} = 0"),
-                            vec![Edit::Set(key(name), 0.0)],
-                        );
-                    }
-                }
-            }
-            StageKind::SarAdc(c) => {
-                if c.input == AdcInput::Live {
-                    add(
-                        "sar_adc.input",
-                        label,
-                        "input = \"held\" (live -> held)",
-                        vec![Edit::SetStr(key("input"), "held".into())],
-                    );
-                }
-                if c.comparator_noise_v > 0.0 {
-                    add(
-                        "sar_adc.comparator_noise",
-                        label,
-                        "comparator_noise = 0",
-                        vec![Edit::Set(key("comparator_noise"), 0.0)],
-                    );
-                }
-                if c.capacitor_mismatch > 0.0 {
-                    add(
-                        "sar_adc.capacitor_mismatch",
-                        label,
-                        "capacitor_mismatch = 0",
-                        vec![Edit::Set(key("capacitor_mismatch"), 0.0)],
-                    );
-                }
-                let fs = c.effective_sample_rate_hz();
-                let fs10 = 10.0 * fs;
-                let mut edits = vec![Edit::Set(key("sample_rate"), fs10)];
-                if text.contains(&key("clock")) {
-                    edits.push(Edit::Set(
-                        key("clock"),
-                        c.clock_hz.max(f64::from(c.cycles) * fs10),
-                    ));
-                } else {
-                    edits.push(Edit::Set(
-                        key("conversion_time"),
-                        c.conversion_time_s.min(1.0 / fs10),
-                    ));
-                }
-                add(
-                    "sar_adc.sample_rate",
-                    label,
-                    &format!(
-                        "sample_rate raised tenfold to {} (conversion shortened to fit)",
-                        format_si(fs10, "Hz")
-                    ),
-                    edits,
-                );
-            }
-            StageKind::Link(c) => {
-                if c.bit_error_rate > 0.0 {
-                    add(
-                        "link.bit_error_rate",
-                        label,
-                        "bit_error_rate = 0",
-                        vec![Edit::Set(key("bit_error_rate"), 0.0)],
-                    );
-                }
-            }
-            StageKind::Filter(_) => add(
-                "filter",
-                label,
-                "filter removed (flat)",
-                vec![Edit::RemoveStage(n)],
-            ),
+        for ab in st.kind.ablations() {
+            let edits = ab
+                .edits
+                .iter()
+                .map(|e| match e {
+                    KeyEdit::Set(k, v) => Edit::Set(key(k), *v),
+                    KeyEdit::SetStr(k, v) => Edit::SetStr(key(k), v.to_string()),
+                    KeyEdit::Remove(k) => Edit::Remove(key(k)),
+                    KeyEdit::RemoveStage => Edit::RemoveStage(n),
+                })
+                .collect();
+            out.push(Candidate {
+                mechanism: ab.mechanism,
+                stage: st.label.clone(),
+                change: format!("{}: {}", st.label, ab.change),
+                edits,
+            });
         }
     }
     out
 }
 
-/// Rates of interest of a chain: the ADC's sample rate, low-pass cutoffs, amplifier and DAC bandwidths, the
-/// analysis band. And the highest high-pass cutoff.
+/// Rates of interest of a chain: each stage's (the ADC's sample rate, low-pass cutoffs, amplifier and DAC
+/// bandwidths), the analysis band. And the highest high-pass cutoff.
 fn rates_of_interest(sc: &Scenario) -> (Vec<f64>, Option<f64>) {
     let mut v = Vec::new();
     let mut hp: Option<f64> = None;
     for st in &sc.stages {
-        match &st.kind {
-            StageKind::SarAdc(c) => v.push(c.effective_sample_rate_hz()),
-            StageKind::Filter(f) => match f.response {
-                FilterResponse::Lowpass => v.push(f.cutoff_hz),
-                FilterResponse::Highpass => {
-                    hp = Some(hp.map_or(f.cutoff_hz, |h| h.max(f.cutoff_hz)))
-                }
-            },
-            StageKind::Amplifier(a) => {
-                if let Some(t) = a.output.tau_s {
-                    v.push(1.0 / (2.0 * std::f64::consts::PI * t))
-                }
-            }
-            StageKind::Dac(d) => {
-                if let Some(t) = d.output.tau_s {
-                    v.push(1.0 / (2.0 * std::f64::consts::PI * t))
-                }
-            }
-            _ => {}
+        let r = st.kind.rates();
+        v.extend(r.lowpass_hz);
+        if let Some(h) = r.highpass_hz {
+            hp = Some(hp.map_or(h, |x| x.max(h)));
         }
     }
     if let Some(b) = sc.analysis.band_hz {
@@ -619,7 +489,7 @@ pub fn find_limits(text: &ScenarioText, opts: &LimitOptions) -> Result<LimitRepo
     let has_adc = base
         .stages
         .iter()
-        .any(|st| matches!(st.kind, crate::scenario::StageKind::SarAdc(_)));
+        .any(|st| st.kind.role() == Role::Quantizer);
     let thresholds = [
         (
             Criterion::Accuracy,
@@ -635,7 +505,7 @@ pub fn find_limits(text: &ScenarioText, opts: &LimitOptions) -> Result<LimitRepo
         (Criterion::Shape, Some(opts.fidelity_min_db)),
     ];
     let fails = |c: Criterion, thr: f64, p: &LimitPoint| metric(c, p).is_some_and(|v| v < thr);
-    let cands = candidates(text, &base);
+    let cands = candidates(&base);
     let rows: Vec<CriterionResult> = pool.install(|| {
         thresholds
             .par_iter()
@@ -778,7 +648,9 @@ pub fn find_limits(text: &ScenarioText, opts: &LimitOptions) -> Result<LimitRepo
                     .filter_map(|(i, a)| a.recovery.map(|r| (i, r)))
                     .filter(|(_, r)| *r > significant && *r >= top - significant)
                     .max_by(|(i, a), (j, b)| {
-                        let compound = |k: usize| cands[k].mechanism == "sar_adc.sample_rate";
+                        // Raising a converter's sample rate changes its conversion too: on a tie, a single
+                        // mechanism is the better answer.
+                        let compound = |k: usize| cands[k].mechanism.ends_with(".sample_rate");
                         compound(*j).cmp(&compound(*i)).then(a.total_cmp(b))
                     });
                 let (mechanism, mechanism_stage) = match best {
@@ -810,6 +682,10 @@ pub fn find_limits(text: &ScenarioText, opts: &LimitOptions) -> Result<LimitRepo
     });
     let mut criteria = rows;
     // ---- aliasing: computed
+    let quantizer = base
+        .stages
+        .iter()
+        .find(|s| s.kind.role() == Role::Quantizer);
     criteria.push(match plan.adc {
         Some(a) => CriterionResult {
             criterion: Criterion::Aliasing,
@@ -817,12 +693,8 @@ pub fn find_limits(text: &ScenarioText, opts: &LimitOptions) -> Result<LimitRepo
             bracket_hz: None,
             threshold: None,
             value: None,
-            mechanism: Some("sar_adc.sample_rate".into()),
-            mechanism_stage: base
-                .stages
-                .iter()
-                .find(|s| matches!(s.kind, StageKind::SarAdc(_)))
-                .map(|s| s.label.clone()),
+            mechanism: quantizer.map(|s| format!("{}.sample_rate", s.kind.kind_name())),
+            mechanism_stage: quantizer.map(|s| s.label.clone()),
             ablation: Vec::new(),
             note: "computed: sample_rate / 2".into(),
         },
@@ -976,6 +848,7 @@ pub fn write_limit(r: &LimitReport, dir: &Path) -> Result<()> {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::scenario::{AdcInput, StageKind};
 
     fn text(s: &str) -> ScenarioText {
         ScenarioText::new(s.to_string(), "test".into(), ".".into()).unwrap()
@@ -1028,7 +901,7 @@ slew_rate = "10 V/us"
     fn every_non_ideality_present_has_an_ablation_that_checks() {
         let t = text(CHAIN);
         let sc = t.scenario().unwrap();
-        let c = candidates(&t, &sc);
+        let c = candidates(&sc);
         let names: Vec<&str> = c.iter().map(|c| c.mechanism.as_str()).collect();
         assert_eq!(
             names,

@@ -31,7 +31,7 @@ use crate::measure::chain::{ChainMetrics, measure_run};
 use crate::report::OutputDir;
 use crate::report::plot::{Plot, PlotFormat, XyPlot, render};
 use crate::scenario::overrides::ScenarioText;
-use crate::scenario::{Scenario, Spread, SpreadLaw, StageKind};
+use crate::scenario::{Scenario, Spread, SpreadLaw};
 
 /// `kind` of a Monte-Carlo [`RowSet`].
 pub const KIND: &str = "montecarlo";
@@ -241,11 +241,7 @@ struct Prepared<'a> {
 }
 
 fn has_converter(sc: &Scenario) -> bool {
-    sc.stages.iter().any(|s| match &s.kind {
-        StageKind::SarAdc(c) => c.bits >= 2,
-        StageKind::Dac(c) => c.bits >= 2,
-        _ => false,
-    })
+    sc.stages.iter().any(|s| s.kind.has_static_levels())
 }
 
 fn prepare<'a>(text: &'a ScenarioText, opts: &McOptions) -> Result<Prepared<'a>> {

@@ -44,24 +44,10 @@ pub struct Vary {
     pub to: f64,
 }
 
-/// The dimension a key's value has, from the key's name (the last part of the path). `None`: a plain number.
+/// The dimension a key's value has, from the key's name (the last part of the path), as the scenario's key
+/// lists give it. `None`: a plain number.
 pub fn key_dimension(key: &str) -> Option<Dimension> {
-    use Dimension as D;
-    let last = key.rsplit('.').next().unwrap_or(key);
-    Some(match last {
-        "frequency" | "analog_rate" | "sample_rate" | "clock" | "cutoff" | "bandwidth" | "band"
-        | "start" | "stop" => D::Frequency,
-        "duration" | "settle" | "conversion_time" | "acquisition" | "aperture_delay"
-        | "aperture_jitter" | "settling" | "delay" | "sweep_time" | "at" => D::Time,
-        "amplitude" | "offset" | "comparator_offset" | "comparator_noise" | "hold_step" | "rms"
-        | "full_scale" => D::Voltage,
-        "slew_rate" | "droop" => D::SlewRate,
-        "tolerance" | "capacitor_mismatch" | "bit_error_rate" | "gain_error" | "duty" => D::Ratio,
-        "gain" => D::Gain,
-        "ripple" => D::Decibels,
-        "phase" => D::Angle,
-        _ => return None,
-    })
+    crate::scenario::keys::quantity_dimension(key)
 }
 
 /// Parse one value of `key` ("1 kHz", "4.7k", "1%", "13 V/us", 12) into the number written to the scenario.
