@@ -84,7 +84,7 @@ fn run_inner(sc: &Scenario, out: &OutputDir, opts: &RunOptions) -> Result<Report
         b.finish_and_clear();
     }
     csv.finish()?;
-    let metrics = measure_run(&run)?;
+    let metrics = measure_run(&run.records())?;
     let figs = if opts.figures {
         figures::run_figures(&run, &metrics, opts.window_s)?
     } else {

@@ -257,7 +257,7 @@ fn pictures_hold_every_stream_of_the_chain() {
     let text = ideal_chain(8, 0.9, "");
     let sc = convchain::scenario::parse_str(&text, "t.toml", Path::new(".")).unwrap();
     let run = convchain::engine::pipeline::run(&sc, None, &mut |_| {}).unwrap();
-    let m = convchain::measure::chain::measure_run(&run).unwrap();
+    let m = convchain::measure::chain::measure_run(&run.records()).unwrap();
     let figs = convchain::report::figures::run_figures(&run, &m, None).unwrap();
     let wave = figs.iter().find(|f| f.name == "waveform").unwrap();
     // source + DAC output, and the staircase.

@@ -204,7 +204,7 @@ pub fn run(a: McArgs) -> anyhow::Result<()> {
 }
 
 pub fn merge(a: MergeArgs) -> anyhow::Result<()> {
-    let merged = shard::merge_dirs(&a.dirs, &a.out)?;
+    let merged = shard::merge_dirs(&a.dirs, &a.out, convchain::study::STUDIES)?;
     if !a.quiet && merged.kind == montecarlo::KIND {
         let summary = montecarlo::summarize(&merged)?;
         write!(std::io::stdout().lock(), "{}", table(&summary, &a.out))?;

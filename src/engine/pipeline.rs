@@ -18,6 +18,7 @@ use crate::engine::decimate::{Decimator, PASSBAND_FRACTION};
 use crate::engine::probe::{ExactProbe, GridHistory};
 use crate::engine::stream::{AnalogRecord, CodeEvent, CodeRecord, Timebase};
 use crate::error::{Error, Result};
+use crate::measure::chain::{AdcRecord, GridRecord, RunRecords};
 use crate::scenario::{Scenario, Waveform};
 use crate::stages::AnalogStage;
 use crate::stages::kind::{BuildContext, Role, Runtime, Upstream};
@@ -320,8 +321,49 @@ pub struct RunOutput {
     pub capture_dac_events: Vec<CodeEvent>,
     pub codes_clipped: u64,
     pub bits_flipped: u64,
-    /// The built chain, for analytic responses and the latency budget.
+    /// The latency budget from each stage's own delay: phase delays at the fundamental, or group delays at a
+    /// tenth of the output band for broadband sources.
+    pub budget: Vec<BudgetLine>,
+    /// Gain of the analog stages before the converter at the fundamental (1 without one).
+    pub pre_gain: f64,
+    /// The built chain (the source, and the DAC's levels for plots).
     pub chain: Chain,
+}
+
+impl RunOutput {
+    /// The run as the meters read it ([`crate::measure::chain::measure_run`]).
+    pub fn records(&self) -> RunRecords<'_> {
+        RunRecords {
+            analysis: &self.scenario.analysis,
+            waveform: &self.scenario.source.waveform,
+            frequency_hz: self.plan.frequency_hz,
+            adc: match (&self.plan.adc, &self.adc_codes) {
+                (Some(p), Some(codes)) => Some(AdcRecord {
+                    sample_rate_hz: p.sample_rate_hz,
+                    conversion_time_s: p.conversion_time_s,
+                    bits: p.bits,
+                    range_v: p.range_v,
+                    codes,
+                }),
+                _ => None,
+            },
+            codes_clipped: self.codes_clipped,
+            bits_flipped: self.bits_flipped,
+            out_rate_hz: self.plan.out_rate_hz,
+            out_band_hz: self.plan.out_band_hz,
+            source_record: &self.source_record.volts,
+            output_record: &self.output_record.volts,
+            capture: GridRecord {
+                rate_hz: self.capture.timebase.rate_hz,
+                t0_s: self.capture.timebase.time_s(self.capture.n0),
+                source: self.capture.source(),
+                output: self.capture.output(),
+            },
+            budget: &self.budget,
+            pre_gain: self.pre_gain,
+            source: &self.chain.source,
+        }
+    }
 }
 
 /// The built stages.
@@ -824,6 +866,21 @@ fn run_with(
             .collect(),
         has_source: !skip_source,
     };
+    // What the chain's models say about themselves, as data for the meters.
+    let budget = chain.budget(
+        plan.frequency_hz,
+        plan.out_band_hz.min(tb.rate_hz / 4.0) / 10.0,
+    );
+    let pre_gain = plan
+        .frequency_hz
+        .map(|f| {
+            chain
+                .pre
+                .iter()
+                .map(|(_, s)| s.response(f).map(|h| h.norm()).unwrap_or(1.0))
+                .product::<f64>()
+        })
+        .unwrap_or(1.0);
     Ok(RunOutput {
         scenario: sc,
         plan,
@@ -835,6 +892,8 @@ fn run_with(
         capture_dac_events,
         codes_clipped,
         bits_flipped,
+        budget,
+        pre_gain,
         chain,
     })
 }

@@ -9,7 +9,7 @@ use crate::error::{Error, Result};
 use crate::measure::static_test::{self, StaticResult};
 use crate::scenario::Scenario;
 use crate::stages::Probe;
-use crate::stages::kind::{Runtime, Upstream};
+use crate::stages::kind::{Role, Runtime, Upstream};
 use crate::stages::roles::{Quantizer, Reconstructor};
 
 /// Static results of the ADC.
@@ -55,65 +55,73 @@ impl<F: Fn(f64) -> f64> Probe for FnProbe<F> {
     }
 }
 
-/// A fresh quantizer of the scenario (with its hold, level errors only), or `None` when it has none.
-type QuantizerMaker<'a> = Box<dyn Fn() -> Result<Box<dyn Quantizer>> + 'a>;
+/// The scenario's converters as the bench sees them: where its quantizer sits (with what each stage receives
+/// from the ones before it), and its reconstructor with its label.
+struct Bench<'a> {
+    sc: &'a Scenario,
+    quantizer_at: Option<usize>,
+    upstream: Vec<Upstream>,
+    reconstructor: Option<(String, Box<dyn Reconstructor>)>,
+}
 
-/// The scenario's converters built for the bench: a maker of fresh quantizers (each test starts from the
-/// same draws), and the reconstructor with its label.
-fn converters(
-    sc: &Scenario,
-) -> Result<(
-    Option<QuantizerMaker<'_>>,
-    Option<(String, Box<dyn Reconstructor>)>,
-)> {
-    let seed = sc.simulation.seed;
-    let mut quantizer_at = None;
-    let mut reconstructor = None;
-    let mut up = Upstream::default();
-    let mut ups = Vec::with_capacity(sc.stages.len());
-    for (i, st) in sc.stages.iter().enumerate() {
-        ups.push(up);
-        match st.kind.role() {
-            crate::stages::kind::Role::Quantizer => quantizer_at = Some(i),
-            crate::stages::kind::Role::Reconstructor => {
-                let mut ctx = build_context(seed, i as u64 + 1, &st.label, None, up);
-                if let Runtime::Reconstructor(r) = st.kind.build(&mut ctx)? {
-                    reconstructor = Some((st.label.clone(), r));
+impl<'a> Bench<'a> {
+    fn new(sc: &'a Scenario) -> Result<Bench<'a>> {
+        let mut bench = Bench {
+            sc,
+            quantizer_at: None,
+            upstream: Vec::with_capacity(sc.stages.len()),
+            reconstructor: None,
+        };
+        let mut up = Upstream::default();
+        for (i, st) in sc.stages.iter().enumerate() {
+            bench.upstream.push(up);
+            match st.kind.role() {
+                Role::Quantizer => bench.quantizer_at = Some(i),
+                Role::Reconstructor => {
+                    let mut ctx =
+                        build_context(sc.simulation.seed, i as u64 + 1, &st.label, None, up);
+                    if let Runtime::Reconstructor(r) = st.kind.build(&mut ctx)? {
+                        bench.reconstructor = Some((st.label.clone(), r));
+                    }
                 }
+                _ => {}
             }
-            _ => {}
+            st.kind.clone().resolve(&mut up);
         }
-        st.kind.clone().resolve(&mut up);
+        Ok(bench)
     }
-    let maker = quantizer_at.map(|qi| -> QuantizerMaker<'_> {
-        let ups = ups.clone();
-        Box::new(move || {
-            // The hold (if any) sits just before the quantizer and hands itself over through the context.
-            let first = match qi.checked_sub(1) {
-                Some(h) if sc.stages[h].kind.role() == crate::stages::kind::Role::Hold => h,
-                _ => qi,
-            };
-            let mut pending = None;
-            for i in first..=qi {
-                let st = &sc.stages[i];
-                let mut ctx = build_context(seed, i as u64 + 1, &st.label, None, ups[i]);
-                ctx.pending_hold = pending.take();
-                match st.kind.build(&mut ctx)? {
-                    Runtime::Quantizer(q) => return Ok(q),
-                    _ => pending = ctx.pending_hold.take(),
-                }
+
+    /// A fresh quantizer (each test starts from the same draws), with the hold before it if there is one (the
+    /// hold hands itself over through the build context; a bench keeps its level errors, not its timing).
+    fn quantizer(&self, at: usize) -> Result<Box<dyn Quantizer>> {
+        let first = match at.checked_sub(1) {
+            Some(h) if self.sc.stages[h].kind.role() == Role::Hold => h,
+            _ => at,
+        };
+        let mut pending = None;
+        for (i, st) in self.sc.stages.iter().enumerate().take(at + 1).skip(first) {
+            let mut ctx = build_context(
+                self.sc.simulation.seed,
+                i as u64 + 1,
+                &st.label,
+                None,
+                self.upstream[i],
+            );
+            ctx.pending_hold = pending.take();
+            match st.kind.build(&mut ctx)? {
+                Runtime::Quantizer(q) => return Ok(q),
+                _ => pending = ctx.pending_hold.take(),
             }
-            Err(Error::Run("the quantizer could not be built".into()))
-        })
-    });
-    Ok((maker, reconstructor))
+        }
+        Err(Error::Run("the quantizer could not be built".into()))
+    }
 }
 
 /// Static tests of the scenario's ADC and DAC, drawn with the same seeds as a run.
 pub fn static_tests(sc: &Scenario) -> Result<Static> {
-    let (make_quantizer, reconstructor) = converters(sc)?;
+    let bench = Bench::new(sc)?;
     let mut dac_res = None;
-    if let Some((label, dac)) = &reconstructor {
+    if let Some((label, dac)) = &bench.reconstructor {
         let bits = dac.bits();
         if bits < 2 {
             return Err(Error::BadInput(format!(
@@ -132,8 +140,8 @@ pub fn static_tests(sc: &Scenario) -> Result<Static> {
             levels_v: absolute.iter().map(|v| v - zero).collect(),
         });
     }
-    let adc_res = match &make_quantizer {
-        Some(make) => Some(adc_static(sc, make)?),
+    let adc_res = match bench.quantizer_at {
+        Some(at) => Some(adc_static(sc, || bench.quantizer(at))?),
         None => None,
     };
     if adc_res.is_none() && dac_res.is_none() {
@@ -148,7 +156,7 @@ pub fn static_tests(sc: &Scenario) -> Result<Static> {
     })
 }
 
-fn adc_static(sc: &Scenario, make: &QuantizerMaker<'_>) -> Result<AdcStatic> {
+fn adc_static(sc: &Scenario, make: impl Fn() -> Result<Box<dyn Quantizer>>) -> Result<AdcStatic> {
     let probe_adc = make()?;
     let bits = probe_adc.bits();
     if bits < 2 {

@@ -3,13 +3,58 @@
 
 use serde::Serialize;
 
-use crate::engine::pipeline::RunOutput;
+use crate::engine::stream::CodeRecord;
 use crate::error::Result;
 use crate::measure::latency::{self, BudgetLine};
 use crate::measure::metrics::{self, MetricsConfig, ToneMetrics};
 use crate::measure::spectrum::{Spectrum, SpectrumAnalyzer};
 use crate::measure::{fidelity, sinefit};
-use crate::scenario::Waveform;
+use crate::scenario::{Analysis, Waveform};
+use crate::stages::source::SourceGen;
+
+/// A finished run as the meters read it: the records, the figures of the run's plan, and what the chain's
+/// models state about themselves (the latency budget, the gain before the converter) as data.
+pub struct RunRecords<'a> {
+    pub analysis: &'a Analysis,
+    /// The source's waveform as run (a sine moved to its coherent frequency).
+    pub waveform: &'a Waveform,
+    /// The fundamental of single-tone periodic sources (Hz).
+    pub frequency_hz: Option<f64>,
+    pub adc: Option<AdcRecord<'a>>,
+    pub codes_clipped: u64,
+    pub bits_flipped: u64,
+    /// Rate and band of the output analysis record (Hz).
+    pub out_rate_hz: f64,
+    pub out_band_hz: f64,
+    /// Band-limited, decimated source and output over the output analysis record (same instants, V).
+    pub source_record: &'a [f64],
+    pub output_record: &'a [f64],
+    pub capture: GridRecord<'a>,
+    /// Each stage's own delay at the fundamental (or group delay for broadband sources).
+    pub budget: &'a [BudgetLine],
+    /// Gain of the analog stages before the converter at the fundamental (V/V).
+    pub pre_gain: f64,
+    /// The source, evaluated exactly at delayed instants when it is closed-form.
+    pub source: &'a SourceGen,
+}
+
+/// The ADC's record with its converter's figures.
+pub struct AdcRecord<'a> {
+    pub sample_rate_hz: f64,
+    pub conversion_time_s: f64,
+    pub bits: u32,
+    pub range_v: (f64, f64),
+    pub codes: &'a CodeRecord,
+}
+
+/// The full-rate grid capture: the source (when captured) and the output.
+pub struct GridRecord<'a> {
+    pub rate_hz: f64,
+    /// Time of the first sample (s).
+    pub t0_s: f64,
+    pub source: Option<&'a [f64]>,
+    pub output: &'a [f64],
+}
 
 /// Metrics of the ADC's code record.
 #[derive(Debug, Clone, Serialize)]
@@ -109,35 +154,26 @@ fn finite(x: f64) -> Option<f64> {
 }
 
 /// Measure a finished run.
-pub fn measure_run(run: &RunOutput) -> Result<ChainMetrics> {
-    let sc = &run.scenario;
-    let plan = &run.plan;
-    let harmonics = sc.analysis.harmonics;
-    let f0 = plan.frequency_hz;
+pub fn measure_run(run: &RunRecords<'_>) -> Result<ChainMetrics> {
+    let harmonics = run.analysis.harmonics;
+    let f0 = run.frequency_hz;
     let sine_like = f0.is_some();
 
     // The amplitude reaching the converter (source amplitude through the analog stages before it).
-    let src_amp = match &sc.source.waveform {
+    let src_amp = match run.waveform {
         Waveform::Sine { amplitude_v, .. }
         | Waveform::Square { amplitude_v, .. }
         | Waveform::Triangle { amplitude_v, .. }
         | Waveform::Sawtooth { amplitude_v, .. } => Some(*amplitude_v),
         _ => None,
     };
-    let pre_gain = f0
-        .map(|f| {
-            run.chain
-                .pre
-                .iter()
-                .map(|(_, s)| s.response(f).map(|h| h.norm()).unwrap_or(1.0))
-                .product::<f64>()
-        })
-        .unwrap_or(1.0);
+    let pre_gain = run.pre_gain;
 
     // ---- ADC record
     let mut adc_detail = None;
-    let adc = match (&plan.adc, &run.adc_codes) {
-        (Some(p), Some(rec)) => {
+    let adc = match &run.adc {
+        Some(p) => {
+            let rec = p.codes;
             let q = (p.range_v.1 - p.range_v.0) / f64::powi(2.0, p.bits as i32);
             let volts: Vec<f64> = rec
                 .codes
@@ -145,7 +181,7 @@ pub fn measure_run(run: &RunOutput) -> Result<ChainMetrics> {
                 .map(|c| p.range_v.0 + (c.code as f64 + 0.5) * q)
                 .collect();
             let fs_peak = (p.range_v.1 - p.range_v.0) / 2.0;
-            let mut an = SpectrumAnalyzer::new(volts.len(), sc.analysis.window)?;
+            let mut an = SpectrumAnalyzer::new(volts.len(), run.analysis.window)?;
             let spec = an.power_spectrum(&volts, p.sample_rate_hz)?;
             let tm = if sine_like {
                 Some(metrics::tone_metrics(
@@ -192,15 +228,16 @@ pub fn measure_run(run: &RunOutput) -> Result<ChainMetrics> {
     };
 
     // ---- analog output (band-limited, decimated record)
-    let out = &run.output_record.volts;
-    let src = &run.source_record.volts;
-    let rate = plan.out_rate_hz;
-    let mut an = SpectrumAnalyzer::new(out.len(), sc.analysis.window)?;
+    let out = run.output_record;
+    let src = run.source_record;
+    let rate = run.out_rate_hz;
+    let mut an = SpectrumAnalyzer::new(out.len(), run.analysis.window)?;
     let src_tm: Option<ToneMetrics>;
     let out_tm: Option<ToneMetrics>;
     let spec_out = an.power_spectrum(out, rate)?;
-    let mut out_full_scale = plan
+    let mut out_full_scale = run
         .adc
+        .as_ref()
         .map(|a| (a.range_v.1 - a.range_v.0) / 2.0)
         .unwrap_or_else(|| src_amp.unwrap_or(1.0).abs().max(1e-30));
     if sine_like {
@@ -209,22 +246,23 @@ pub fn measure_run(run: &RunOutput) -> Result<ChainMetrics> {
             &spec_src,
             &MetricsConfig {
                 harmonics,
-                band_hz: Some(plan.out_band_hz),
+                band_hz: Some(run.out_band_hz),
                 full_scale_peak_v: src_amp.unwrap_or(1.0).abs().max(1e-30),
                 fundamental_hz: f0,
             },
         )?);
         // Input-referred full scale: the output amplitude that a full-scale signal at the ADC would give.
         let a_in = src_amp.unwrap_or(1.0).abs() * pre_gain;
-        let fs_in = plan
+        let fs_in = run
             .adc
+            .as_ref()
             .map(|a| (a.range_v.1 - a.range_v.0) / 2.0)
             .unwrap_or(a_in);
         let first = metrics::tone_metrics(
             &spec_out,
             &MetricsConfig {
                 harmonics,
-                band_hz: Some(plan.out_band_hz),
+                band_hz: Some(run.out_band_hz),
                 full_scale_peak_v: 1.0,
                 fundamental_hz: f0,
             },
@@ -240,7 +278,7 @@ pub fn measure_run(run: &RunOutput) -> Result<ChainMetrics> {
             &spec_out,
             &MetricsConfig {
                 harmonics,
-                band_hz: Some(plan.out_band_hz),
+                band_hz: Some(run.out_band_hz),
                 full_scale_peak_v: full_scale.max(1e-30),
                 fundamental_hz: f0,
             },
@@ -258,11 +296,10 @@ pub fn measure_run(run: &RunOutput) -> Result<ChainMetrics> {
 
     // ---- latency on the band-limited analysis records, fidelity on the full-bandwidth grid capture
     let cap = &run.capture;
-    let grid_rate = cap.timebase.rate_hz;
-    let broadband_hz = plan.out_band_hz.min(grid_rate / 4.0) / 10.0;
-    let budget = run.chain.budget(f0, broadband_hz);
+    let grid_rate = cap.rate_hz;
+    let budget = run.budget.to_vec();
     let budget_s: f64 = budget.iter().map(|b| b.seconds).sum();
-    let capture_s = cap.output().len() as f64 / grid_rate;
+    let capture_s = cap.output.len() as f64 / grid_rate;
     let period_s = f0.map(|f| 1.0 / f);
     // The delay of what the chain carries: the source and output records hold the analysis band at the same
     // instants, free of the images and steps above it, in a few thousand samples rather than the capture's
@@ -273,18 +310,18 @@ pub fn measure_run(run: &RunOutput) -> Result<ChainMetrics> {
     let phase_delay_s = f0
         .map(|f| latency::phase_delay_s(src, out, rate, f, measured_s))
         .and_then(finite);
-    let group_delay_s = match (&sc.source.waveform, cap.source()) {
+    let group_delay_s = match (run.waveform, cap.source) {
         (Waveform::Multitone { tones }, Some(cap_src)) => {
             let f: Vec<f64> = tones.iter().map(|t| t.frequency_hz).collect();
-            latency::group_delay_s(cap_src, cap.output(), grid_rate, &f)
+            latency::group_delay_s(cap_src, cap.output, grid_rate, &f)
         }
         (w @ Waveform::Chirp { .. }, Some(cap_src)) => {
             match latency::ChirpSweep::from_waveform(w) {
                 Some(sweep) => latency::chirp_group_delay_s(
                     cap_src,
-                    cap.output(),
+                    cap.output,
                     grid_rate,
-                    cap.timebase.time_s(cap.n0),
+                    cap.t0_s,
                     &sweep,
                     CHIRP_GROUP_DELAY_POINTS,
                 ),
@@ -295,15 +332,15 @@ pub fn measure_run(run: &RunOutput) -> Result<ChainMetrics> {
     };
     // The alignment starts at the measured delay. A closed-form source is evaluated exactly at the delayed
     // instants; a sampled one (noise, WAV) is interpolated from its capture.
-    let source = &run.chain.source;
+    let source = run.source;
     let delay_ok = measured_s.is_finite() && measured_s.abs() < capture_s / 4.0;
-    let fid = match cap.source() {
+    let fid = match cap.source {
         Some(cap_src) if !delay_ok => {
             let max_delay_s = (4.0 * budget_s.abs() + 20.0 / grid_rate).min(capture_s / 4.0);
-            fidelity::fidelity(cap_src, cap.output(), grid_rate, max_delay_s)
+            fidelity::fidelity(cap_src, cap.output, grid_rate, max_delay_s)
         }
         Some(cap_src) if !source.is_exact() => {
-            fidelity::fidelity_at(cap_src, cap.output(), grid_rate, measured_s)
+            fidelity::fidelity_at(cap_src, cap.output, grid_rate, measured_s)
         }
         // A closed-form source is evaluated exactly at the delayed instants (at the budget's delay when the
         // correlation found none).
@@ -311,15 +348,16 @@ pub fn measure_run(run: &RunOutput) -> Result<ChainMetrics> {
             |t0, dt, y| {
                 source.fill_at(t0, dt, y);
             },
-            cap.output(),
-            cap.timebase.time_s(cap.n0),
+            cap.output,
+            cap.t0_s,
             grid_rate,
             if delay_ok { measured_s } else { budget_s },
         ),
     };
     let difference_s = measured_s - budget_s;
-    let sample_period = plan
+    let sample_period = run
         .adc
+        .as_ref()
         .map(|a| 1.0 / a.sample_rate_hz)
         .unwrap_or(1.0 / grid_rate);
     let flagged =
@@ -339,7 +377,7 @@ pub fn measure_run(run: &RunOutput) -> Result<ChainMetrics> {
         adc,
         output: OutputMetrics {
             analysis_rate_hz: rate,
-            band_hz: plan.out_band_hz,
+            band_hz: run.out_band_hz,
             record_length: out.len(),
             fundamental_hz: f0,
             amplitude_v: out_tm.as_ref().map(|t| t.fundamental_amplitude_v),

@@ -1539,12 +1539,12 @@ clock = "2 MHz"
             (
                 format!("{HEAD}{sh}{flt}{ADC}{DAC}"),
                 "stage.2.kind",
-                "between sample_hold and sar_adc",
+                "between a hold and the ADC it feeds",
             ),
             (
                 format!("{HEAD}{sh}"),
                 "stage.1.kind",
-                "directly before a sar_adc",
+                "sample_hold must come directly before an ADC",
             ),
             (
                 format!("{HEAD}{ADC}{flt}{DAC}"),
@@ -1554,37 +1554,37 @@ clock = "2 MHz"
             (
                 format!("{HEAD}{ADC}"),
                 "stage.1.kind",
-                "needs a dac after it",
+                "sar_adc needs a DAC after it",
             ),
             (
                 format!("{HEAD}{ADC}{link}"),
                 "stage.1.kind",
-                "needs a dac after it",
+                "sar_adc needs a DAC after it",
             ),
             (
                 format!("{HEAD}{DAC}"),
                 "stage.1.kind",
-                "put a sar_adc before it",
+                "a dac needs codes: put an ADC",
             ),
             (
                 format!("{HEAD}{link}{ADC}{DAC}"),
                 "stage.1.kind",
-                "between the sar_adc and the dac",
+                "a link carries codes: it must sit between the ADC and the DAC",
             ),
             (
                 format!("{HEAD}{ADC}{DAC}{ADC}{DAC}"),
                 "stage.3.kind",
-                "only one sar_adc",
+                "only one ADC is allowed in a chain (this sar_adc is a second)",
             ),
             (
                 format!("{HEAD}{ADC}{DAC}{DAC}"),
                 "stage.3.kind",
-                "only one dac",
+                "only one DAC is allowed in a chain (this dac is a second)",
             ),
             (
                 format!("{HEAD}{ADC}{DAC}{sh}"),
                 "stage.3.kind",
-                "directly before a sar_adc",
+                "sample_hold must come directly before an ADC",
             ),
         ];
         for (text, path, msg) in cases {

@@ -31,6 +31,9 @@ pub struct AmplifierCfg {
 impl KindSpec for AmplifierCfg {
     const NAME: &'static str = "amplifier";
     const ROLE: Role = Role::Analog;
+    const EXAMPLE: &'static str = r#"gain = 2
+slew_rate = "5 V/us"
+bandwidth = "200 kHz""#;
     const PARAMS: &'static [Param] = &[
         Param::spread("gain", Dimension::Gain),
         Param::spread("offset", Dimension::Voltage),

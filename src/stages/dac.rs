@@ -64,6 +64,10 @@ pub struct DacCfg {
 impl KindSpec for DacCfg {
     const NAME: &'static str = "dac";
     const ROLE: Role = Role::Reconstructor;
+    const EXAMPLE: &'static str = r#"ladder = "r2r"
+tolerance = "0.1%"
+slew_rate = "10 V/us"
+settling = "1 us""#;
     const PARAMS: &'static [Param] = {
         use Dimension as D;
         &[

@@ -64,6 +64,10 @@ impl Serialize for FilterCfg {
 impl KindSpec for FilterCfg {
     const NAME: &'static str = "filter";
     const ROLE: Role = Role::Analog;
+    const EXAMPLE: &'static str = r#"response = "lowpass"
+family = "butterworth"
+order = 2
+cutoff = "10 kHz""#;
     const PARAMS: &'static [Param] = &[
         Param::fixed("response", ParamKind::Choice(&["lowpass", "highpass"])),
         Param::fixed(

@@ -200,6 +200,9 @@ pub trait KindSpec: Sized + Clone + std::fmt::Debug + PartialEq + Serialize {
     const ROLE: Role;
     /// Every key the kind reads (besides `kind` and `name`).
     const PARAMS: &'static [Param];
+    /// The body of a typical `[[stage]]` table of this kind, with some non-idealities (for the conformance kit
+    /// and documentation; it must read in a chain around a 1 kHz, 1 V sine with a +-2.5 V converter range).
+    const EXAMPLE: &'static str;
 
     /// Read the stage's table. Keys not read are reported as unknown by the caller.
     fn read(

@@ -44,6 +44,9 @@ pub struct LinkCfg {
 impl KindSpec for LinkCfg {
     const NAME: &'static str = "link";
     const ROLE: Role = Role::Code;
+    const EXAMPLE: &'static str = r#"delay = "100 us"
+frame = 4
+bit_error_rate = "1 ppm""#;
     const PARAMS: &'static [Param] = &[
         Param::spread("delay", Dimension::Time),
         Param::fixed("frame", ParamKind::Integer),

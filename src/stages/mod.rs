@@ -82,20 +82,27 @@ pub trait Probe {
     fn value_at(&self, t_s: f64) -> f64;
 }
 
-pub mod amplifier;
-pub mod dac;
+#[cfg(test)]
+pub mod conformance;
 pub mod filter;
-pub mod filter_kind;
 pub mod kind;
-pub mod link;
+#[macro_use]
 pub mod registry;
 pub mod roles;
-pub mod sample_hold;
-pub mod sar_adc;
 pub mod slew;
 pub mod source;
 
-pub use registry::StageKind;
+// The stage kinds, each in its own file (`module => Variant(ConfigType)`), listed once. The list declares the
+// modules and generates `StageKind`, `KIND_NAMES`, `KIND_PARAMS`, `KIND_EXAMPLES` and the dispatch
+// (`registry.rs`).
+registry::stage_kinds! {
+    sample_hold => SampleHold(SampleHoldCfg),
+    sar_adc => SarAdc(SarAdcCfg),
+    link => Link(LinkCfg),
+    dac => Dac(DacCfg),
+    filter_kind => Filter(FilterCfg),
+    amplifier => Amplifier(AmplifierCfg),
+}
 
 /// A probe that evaluates a function of time, for the converter stages' unit tests.
 #[cfg(test)]

@@ -1,16 +1,20 @@
-//! The registry: every stage kind, listed once. The list generates the closed [`StageKind`] enum, the kind
-//! names, parameter look-up and one exhaustive dispatch per [`KindSpec`] method. Adding a kind is its own file
-//! and one line here.
+//! The registry: the macro that turns the one list of stage kinds (in `stages/mod.rs`) into each kind's module,
+//! the closed [`StageKind`] enum, the kind names, parameter look-up and one exhaustive dispatch per
+//! [`KindSpec`] method, and the look-ups built on them. Adding a kind is its own file and one line in that list.
+//!
+//! [`KindSpec`]: crate::stages::kind::KindSpec
 
-use crate::error::Result;
-use crate::format::reader::{ScenarioError, TableReader};
-use crate::stages::kind::{
-    Ablation, BuildContext, KindSpec, Param, QuantizerTiming, Rates, ReadContext, Role, Runtime,
-    Upstream,
-};
+use crate::stages::kind::Param;
+pub use crate::stages::{KIND_EXAMPLES, KIND_NAMES, KIND_PARAMS, StageKind};
 
+/// `module => Variant(ConfigType)` for each kind: declares `pub mod module;` and generates the registry from the
+/// list.
 macro_rules! stage_kinds {
-    ($($variant:ident($($path:ident)::+)),+ $(,)?) => {
+    ($($module:ident => $variant:ident($cfg:ident)),+ $(,)?) => {
+        $(pub mod $module;)+
+        $crate::stages::registry::stage_kinds!(@types $($variant($module::$cfg)),+);
+    };
+    (@types $($variant:ident($($path:ident)::+)),+) => {
         /// A stage's resolved configuration, by kind.
         #[derive(Debug, Clone, PartialEq)]
         pub enum StageKind {
@@ -18,23 +22,30 @@ macro_rules! stage_kinds {
         }
 
         /// Every kind's name, in registry order.
-        pub const KIND_NAMES: &[&str] = &[$(<$crate::stages::$($path)::+ as KindSpec>::NAME,)+];
+        pub const KIND_NAMES: &[&str] = &[$(<$crate::stages::$($path)::+ as $crate::stages::kind::KindSpec>::NAME,)+];
 
         /// Every kind's name with its parameters, in registry order.
-        pub const KIND_PARAMS: &[(&str, &[Param])] = &[$((
-            <$crate::stages::$($path)::+ as KindSpec>::NAME,
-            <$crate::stages::$($path)::+ as KindSpec>::PARAMS,
+        pub const KIND_PARAMS: &[(&str, &[$crate::stages::kind::Param])] = &[$((
+            <$crate::stages::$($path)::+ as $crate::stages::kind::KindSpec>::NAME,
+            <$crate::stages::$($path)::+ as $crate::stages::kind::KindSpec>::PARAMS,
+        ),)+];
+
+        /// Every kind's name with its example table body ([`$crate::stages::kind::KindSpec::EXAMPLE`]), in registry order.
+        pub const KIND_EXAMPLES: &[(&str, $crate::stages::kind::Role, &str)] = &[$((
+            <$crate::stages::$($path)::+ as $crate::stages::kind::KindSpec>::NAME,
+            <$crate::stages::$($path)::+ as $crate::stages::kind::KindSpec>::ROLE,
+            <$crate::stages::$($path)::+ as $crate::stages::kind::KindSpec>::EXAMPLE,
         ),)+];
 
         impl StageKind {
             /// Read a stage table of kind `name`; `None` for a name no kind has.
             pub fn read(
                 name: &str,
-                r: &mut TableReader<'_, '_>,
-                ctx: &ReadContext,
-            ) -> Option<std::result::Result<StageKind, ScenarioError>> {
-                $(if name == <$crate::stages::$($path)::+ as KindSpec>::NAME {
-                    return Some(<$crate::stages::$($path)::+ as KindSpec>::read(r, ctx).map(StageKind::$variant));
+                r: &mut $crate::format::reader::TableReader<'_, '_>,
+                ctx: &$crate::stages::kind::ReadContext,
+            ) -> Option<std::result::Result<StageKind, $crate::format::reader::ScenarioError>> {
+                $(if name == <$crate::stages::$($path)::+ as $crate::stages::kind::KindSpec>::NAME {
+                    return Some(<$crate::stages::$($path)::+ as $crate::stages::kind::KindSpec>::read(r, ctx).map(StageKind::$variant));
                 })+
                 None
             }
@@ -42,87 +53,80 @@ macro_rules! stage_kinds {
             /// The kind as written in a scenario file.
             pub fn kind_name(&self) -> &'static str {
                 match self {
-                    $(StageKind::$variant(_) => <$crate::stages::$($path)::+ as KindSpec>::NAME,)+
+                    $(StageKind::$variant(_) => <$crate::stages::$($path)::+ as $crate::stages::kind::KindSpec>::NAME,)+
                 }
             }
 
-            pub fn role(&self) -> Role {
+            pub fn role(&self) -> $crate::stages::kind::Role {
                 match self {
-                    $(StageKind::$variant(_) => <$crate::stages::$($path)::+ as KindSpec>::ROLE,)+
+                    $(StageKind::$variant(_) => <$crate::stages::$($path)::+ as $crate::stages::kind::KindSpec>::ROLE,)+
                 }
             }
 
-            pub fn params(&self) -> &'static [Param] {
+            pub fn params(&self) -> &'static [$crate::stages::kind::Param] {
                 match self {
-                    $(StageKind::$variant(_) => <$crate::stages::$($path)::+ as KindSpec>::PARAMS,)+
+                    $(StageKind::$variant(_) => <$crate::stages::$($path)::+ as $crate::stages::kind::KindSpec>::PARAMS,)+
                 }
             }
 
-            pub fn resolve(&mut self, up: &mut Upstream) {
+            pub fn resolve(&mut self, up: &mut $crate::stages::kind::Upstream) {
                 match self {
-                    $(StageKind::$variant(c) => c.resolve(up),)+
+                    $(StageKind::$variant(c) => <$crate::stages::$($path)::+ as $crate::stages::kind::KindSpec>::resolve(c, up),)+
                 }
             }
 
-            pub fn ablations(&self) -> Vec<Ablation> {
+            pub fn ablations(&self) -> Vec<$crate::stages::kind::Ablation> {
                 match self {
-                    $(StageKind::$variant(c) => c.ablations(),)+
+                    $(StageKind::$variant(c) => <$crate::stages::$($path)::+ as $crate::stages::kind::KindSpec>::ablations(c),)+
                 }
             }
 
-            pub fn rates(&self) -> Rates {
+            pub fn rates(&self) -> $crate::stages::kind::Rates {
                 match self {
-                    $(StageKind::$variant(c) => c.rates(),)+
+                    $(StageKind::$variant(c) => <$crate::stages::$($path)::+ as $crate::stages::kind::KindSpec>::rates(c),)+
                 }
             }
 
-            pub fn passband_gain(&self, up: &Upstream) -> f64 {
+            pub fn passband_gain(&self, up: &$crate::stages::kind::Upstream) -> f64 {
                 match self {
-                    $(StageKind::$variant(c) => c.passband_gain(up),)+
+                    $(StageKind::$variant(c) => <$crate::stages::$($path)::+ as $crate::stages::kind::KindSpec>::passband_gain(c, up),)+
                 }
             }
 
-            pub fn quantizer_timing(&self) -> Option<QuantizerTiming> {
+            pub fn quantizer_timing(&self) -> Option<$crate::stages::kind::QuantizerTiming> {
                 match self {
-                    $(StageKind::$variant(c) => c.quantizer_timing(),)+
+                    $(StageKind::$variant(c) => <$crate::stages::$($path)::+ as $crate::stages::kind::KindSpec>::quantizer_timing(c),)+
                 }
             }
 
             pub fn transport_s(&self, sample_rate_hz: f64) -> f64 {
                 match self {
-                    $(StageKind::$variant(c) => c.transport_s(sample_rate_hz),)+
+                    $(StageKind::$variant(c) => <$crate::stages::$($path)::+ as $crate::stages::kind::KindSpec>::transport_s(c, sample_rate_hz),)+
                 }
             }
 
             pub fn has_static_levels(&self) -> bool {
                 match self {
-                    $(StageKind::$variant(c) => c.has_static_levels(),)+
+                    $(StageKind::$variant(c) => <$crate::stages::$($path)::+ as $crate::stages::kind::KindSpec>::has_static_levels(c),)+
                 }
             }
 
             pub fn echo(&self) -> serde_json::Value {
                 match self {
-                    $(StageKind::$variant(c) => c.echo(),)+
+                    $(StageKind::$variant(c) => <$crate::stages::$($path)::+ as $crate::stages::kind::KindSpec>::echo(c),)+
                 }
             }
 
-            pub fn build(&self, ctx: &mut BuildContext) -> Result<Runtime> {
+            pub fn build(&self, ctx: &mut $crate::stages::kind::BuildContext) -> $crate::error::Result<$crate::stages::kind::Runtime> {
                 match self {
-                    $(StageKind::$variant(c) => c.build(ctx),)+
+                    $(StageKind::$variant(c) => <$crate::stages::$($path)::+ as $crate::stages::kind::KindSpec>::build(c, ctx),)+
                 }
             }
         }
     };
 }
 
-stage_kinds! {
-    SampleHold(sample_hold::SampleHoldCfg),
-    SarAdc(sar_adc::SarAdcCfg),
-    Link(link::LinkCfg),
-    Dac(dac::DacCfg),
-    Filter(filter_kind::FilterCfg),
-    Amplifier(amplifier::AmplifierCfg),
-}
+pub(crate) use stage_kinds;
 
 /// The parameters of the kind named `name`.
 pub fn params_of(name: &str) -> Option<&'static [Param]> {

@@ -43,6 +43,10 @@ pub struct SampleHoldCfg {
 impl KindSpec for SampleHoldCfg {
     const NAME: &'static str = "sample_hold";
     const ROLE: Role = Role::Hold;
+    const EXAMPLE: &'static str = r#"aperture_delay = "20 ns"
+aperture_jitter = "1 ns"
+droop = "50 V/s"
+acquisition = "100 ns""#;
     const PARAMS: &'static [Param] = &[
         Param::spread("acquisition", Dimension::Time),
         Param::spread("aperture_delay", Dimension::Time),

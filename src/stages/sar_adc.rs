@@ -99,6 +99,11 @@ pub const MAX_BITS: i128 = 24;
 impl KindSpec for SarAdcCfg {
     const NAME: &'static str = "sar_adc";
     const ROLE: Role = Role::Quantizer;
+    const EXAMPLE: &'static str = r#"bits = 10
+range = ["-2.5 V", "2.5 V"]
+sample_rate = "48 kHz"
+conversion_time = "11 us"
+comparator_noise = "0.5 mV""#;
     const PARAMS: &'static [Param] = {
         use Dimension as D;
         &[

@@ -5,3 +5,6 @@ pub mod limit;
 pub mod montecarlo;
 pub mod shard;
 pub mod sweep;
+
+/// Every kind of study that writes row files, for `merge`.
+pub const STUDIES: &[shard::StudyKind] = &[sweep::STUDY, montecarlo::STUDY];

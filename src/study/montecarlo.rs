@@ -22,7 +22,7 @@ use serde::Serialize;
 use serde_json::{Value, json};
 
 use super::shard::{
-    ROWS_FILE, ROWS_FORMAT, RowSet, Shard, fingerprint, interrupted_note, run_in_order,
+    ROWS_FILE, ROWS_FORMAT, RowSet, Shard, StudyKind, fingerprint, interrupted_note, run_in_order,
 };
 use crate::engine::pipeline;
 use crate::engine::static_bench::{Static, static_tests};
@@ -35,6 +35,15 @@ use crate::scenario::{Scenario, Spread, SpreadLaw};
 
 /// `kind` of a Monte-Carlo [`RowSet`].
 pub const KIND: &str = "montecarlo";
+
+/// The Monte-Carlo study as a study of row files (for shards and `merge`).
+pub const STUDY: StudyKind = StudyKind {
+    kind: KIND,
+    item: "run",
+    items: "runs",
+    shard_options: "--runs and --seed",
+    write: |o, s| write_outputs(o, s).map(|_| ()),
+};
 
 /// How each run's seed is made (written into the study header).
 pub const SEED_RULE: &str =
@@ -369,7 +378,7 @@ fn one_run(p: &Prepared<'_>, index: u64) -> Vec<Value> {
         let sc = p.text.with(&overrides)?;
         let chain = if p.dynamic {
             let run = pipeline::run_lean(&sc)?;
-            let m = measure_run(&run)?;
+            let m = measure_run(&run.records())?;
             run.recycle();
             Some(m)
         } else {
@@ -430,7 +439,7 @@ pub fn run_rows(text: &ScenarioText, opts: &McOptions, cancel: &AtomicBool) -> R
         b.finish_and_clear();
     }
     let interrupted =
-        (rows.len() < indices.len()).then(|| interrupted_note(KIND, rows.len(), indices.len()));
+        (rows.len() < indices.len()).then(|| interrupted_note(&STUDY, rows.len(), indices.len()));
     Ok(RowSet {
         format: ROWS_FORMAT.into(),
         kind: KIND.into(),

@@ -28,19 +28,32 @@ pub const ROWS_FILE: &str = "rows.json";
 /// Value of [`RowSet::format`] for this version of the file.
 pub const ROWS_FORMAT: &str = "convchain-rows/1";
 
-/// The words for the items of a study of kind `kind`, singular and plural: a sweep's items are points, every
-/// other study's are runs.
-pub fn item_words(kind: &str) -> (&'static str, &'static str) {
-    if kind == super::sweep::KIND {
-        ("point", "points")
-    } else {
-        ("run", "runs")
+/// What a kind of study tells the row-file machinery about itself. Each study registers one (see
+/// [`crate::study::STUDIES`]); this module knows none of them by name.
+#[derive(Clone, Copy)]
+pub struct StudyKind {
+    /// [`RowSet::kind`] of its rows.
+    pub kind: &'static str,
+    /// The words for its items, singular and plural (a sweep's points, a Monte-Carlo study's runs).
+    pub item: &'static str,
+    pub items: &'static str,
+    /// The options that must be the same on every shard, for messages.
+    pub shard_options: &'static str,
+    /// Write the study's outputs from its (merged) rows.
+    pub write: fn(&OutputDir, &RowSet) -> Result<()>,
+}
+
+impl std::fmt::Debug for StudyKind {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("StudyKind")
+            .field("kind", &self.kind)
+            .finish()
     }
 }
 
-/// The note of a study of kind `kind` cut short: `interrupted after M of N runs` (`points` for a sweep).
-pub fn interrupted_note(kind: &str, done: usize, of: usize) -> String {
-    format!("interrupted after {done} of {of} {}", item_words(kind).1)
+/// The note of a study cut short: `interrupted after M of N runs` (`points` for a sweep).
+pub fn interrupted_note(study: &StudyKind, done: usize, of: usize) -> String {
+    format!("interrupted after {done} of {of} {}", study.items)
 }
 
 /// Run `work(j)` for every `j` in `0..n` on the threads of `pool`, each thread taking the next `j` in increasing
@@ -239,16 +252,26 @@ fn short(v: Option<&Value>) -> String {
     }
 }
 
+/// The registered study of kind `kind`.
+fn study_of<'a>(kind: &str, studies: &'a [StudyKind]) -> Result<&'a StudyKind> {
+    studies.iter().find(|s| s.kind == kind).ok_or_else(|| {
+        Error::BadInput(format!(
+            "merge: this convchain cannot write `{kind}` studies"
+        ))
+    })
+}
+
 /// Join the row sets of shards (each tagged with the folder it came from) into the whole study: same format,
 /// kind, study header and columns; every index `0..runs` exactly once. Errors are [`Error::BadInput`] naming
 /// the folders and the runs at fault.
-pub fn merge(sets: Vec<(PathBuf, RowSet)>) -> Result<RowSet> {
+pub fn merge(sets: Vec<(PathBuf, RowSet)>, studies: &[StudyKind]) -> Result<RowSet> {
     let Some((first_dir, first)) = sets.first() else {
         return Err(Error::BadInput(
             "merge: give at least one folder to merge".into(),
         ));
     };
-    let (one, many) = item_words(&first.kind);
+    let study = study_of(&first.kind, studies)?;
+    let (one, many) = (study.item, study.items);
     for (dir, s) in &sets[1..] {
         if s.kind != first.kind {
             return Err(Error::BadInput(format!(
@@ -271,11 +294,7 @@ pub fn merge(sets: Vec<(PathBuf, RowSet)>) -> Result<RowSet> {
                     )
                 })
                 .collect();
-            let options = if first.kind == super::sweep::KIND {
-                "--vary, --points and --log"
-            } else {
-                "--runs and --seed"
-            };
+            let options = study.shard_options;
             return Err(Error::BadInput(format!(
                 "merge: {} and {} are not shards of the same study ({}); run every shard from the same \
                  scenario file with the same options ({options})",
@@ -358,22 +377,14 @@ pub fn merge(sets: Vec<(PathBuf, RowSet)>) -> Result<RowSet> {
 
 /// Read the shard folders, merge them and write the study's outputs into `out` (a new or convchain-made
 /// folder) with the writer of the study's kind. Returns the merged rows.
-pub fn merge_dirs(dirs: &[PathBuf], out: &Path) -> Result<RowSet> {
+pub fn merge_dirs(dirs: &[PathBuf], out: &Path, studies: &[StudyKind]) -> Result<RowSet> {
     let mut sets = Vec::with_capacity(dirs.len());
     for d in dirs {
         sets.push((d.clone(), RowSet::read_dir(d)?));
     }
-    let merged = merge(sets)?;
+    let merged = merge(sets, studies)?;
     OutputDir::check(out)?;
-    let writer: fn(&OutputDir, &RowSet) -> Result<()> = match merged.kind.as_str() {
-        "montecarlo" => |o, s| super::montecarlo::write_outputs(o, s).map(|_| ()),
-        "sweep" => |o, s| super::sweep::write_outputs(o, s).map(|_| ()),
-        other => {
-            return Err(Error::BadInput(format!(
-                "merge: this convchain cannot write `{other}` studies"
-            )));
-        }
-    };
+    let writer = study_of(&merged.kind, studies)?.write;
     let o = OutputDir::create(out)?;
     if let Err(e) = writer(&o, &merged) {
         o.abandon();
@@ -396,6 +407,31 @@ pub fn fingerprint(bytes: &[u8]) -> String {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// Two study kinds of the tests' own, shaped as the sweep and Monte-Carlo studies register theirs.
+    const TEST_STUDIES: &[StudyKind] = &[
+        StudyKind {
+            kind: "sweep",
+            item: "point",
+            items: "points",
+            shard_options: "--vary",
+            write: |_, _| Ok(()),
+        },
+        StudyKind {
+            kind: "montecarlo",
+            item: "run",
+            items: "runs",
+            shard_options: "--runs",
+            write: |_, _| Ok(()),
+        },
+        StudyKind {
+            kind: "test",
+            item: "run",
+            items: "runs",
+            shard_options: "--runs",
+            write: |_, _| Ok(()),
+        },
+    ];
     use serde_json::json;
 
     fn set(shard: Shard, runs: u64) -> RowSet {
@@ -451,7 +487,7 @@ mod tests {
                 )
             })
             .collect();
-        let m = merge(parts).unwrap();
+        let m = merge(parts, TEST_STUDIES).unwrap();
         assert_eq!(m, whole);
         assert_eq!(m.to_json().unwrap(), whole.to_json().unwrap());
     }
@@ -459,18 +495,24 @@ mod tests {
     #[test]
     fn merging_refuses_gaps_overlaps_and_foreign_studies() {
         let s = |k| (PathBuf::from(format!("s{k}")), set(Shard { k, n: 3 }, 10));
-        let e = merge(vec![s(1), s(2)]).unwrap_err().to_string();
+        let e = merge(vec![s(1), s(2)], TEST_STUDIES)
+            .unwrap_err()
+            .to_string();
         assert!(
             e.contains("3 of 10 runs are in no folder") && e.contains("runs 2, 5, 8"),
             "{e}"
         );
-        let e = merge(vec![s(1), s(2), s(3), s(2)]).unwrap_err().to_string();
+        let e = merge(vec![s(1), s(2), s(3), s(2)], TEST_STUDIES)
+            .unwrap_err()
+            .to_string();
         assert!(e.contains("run 1 is in both s2 and s2"), "{e}");
         let mut other = s(3);
         other.1.study = json!({"runs": 10, "seed": 2});
-        let e = merge(vec![s(1), s(2), other]).unwrap_err().to_string();
+        let e = merge(vec![s(1), s(2), other], TEST_STUDIES)
+            .unwrap_err()
+            .to_string();
         assert!(e.contains("seed: 1 against 2"), "{e}");
-        assert!(merge(vec![]).unwrap_err().is_bad_input());
+        assert!(merge(vec![], TEST_STUDIES).unwrap_err().is_bad_input());
     }
 
     #[test]
@@ -481,23 +523,28 @@ mod tests {
             (PathBuf::from(format!("s{k}")), set)
         };
         for (kind, one, many) in [("sweep", "point", "points"), ("montecarlo", "run", "runs")] {
-            let e = merge(vec![s(kind, 1), s(kind, 2)]).unwrap_err().to_string();
+            let e = merge(vec![s(kind, 1), s(kind, 2)], TEST_STUDIES)
+                .unwrap_err()
+                .to_string();
             assert!(
                 e.contains(&format!("3 of 10 {many} are in no folder ({many} 2, 5, 8)")),
                 "{e}"
             );
-            let e = merge(vec![s(kind, 1), s(kind, 2), s(kind, 3), s(kind, 2)])
-                .unwrap_err()
-                .to_string();
+            let e = merge(
+                vec![s(kind, 1), s(kind, 2), s(kind, 3), s(kind, 2)],
+                TEST_STUDIES,
+            )
+            .unwrap_err()
+            .to_string();
             assert!(e.contains(&format!("{one} 1 is in both s2 and s2")), "{e}");
             let mut short = s(kind, 3);
             short.1.rows[0].pop();
-            let e = merge(vec![s(kind, 1), s(kind, 2), short])
+            let e = merge(vec![s(kind, 1), s(kind, 2), short], TEST_STUDIES)
                 .unwrap_err()
                 .to_string();
             assert!(e.contains(&format!("s3: {one} 2 has 1 cells")), "{e}");
             assert_eq!(
-                interrupted_note(kind, 4, 10),
+                interrupted_note(study_of(kind, TEST_STUDIES).unwrap(), 4, 10),
                 format!("interrupted after 4 of 10 {many}")
             );
         }

@@ -20,7 +20,7 @@ use serde::Serialize;
 use serde_json::{Value, json};
 
 use super::shard::{
-    ROWS_FILE, ROWS_FORMAT, RowSet, Shard, fingerprint, interrupted_note, run_in_order,
+    ROWS_FILE, ROWS_FORMAT, RowSet, Shard, StudyKind, fingerprint, interrupted_note, run_in_order,
 };
 use crate::engine::pipeline::{self, Plan};
 use crate::error::{Error, Result};
@@ -33,6 +33,15 @@ use crate::scenario::overrides::{ScenarioText, is_integer_key};
 
 /// `kind` of a sweep's [`RowSet`].
 pub const KIND: &str = "sweep";
+
+/// The sweep as a study of row files (for shards and `merge`).
+pub const STUDY: StudyKind = StudyKind {
+    kind: KIND,
+    item: "point",
+    items: "points",
+    shard_options: "--vary, --points and --log",
+    write: |o, s| write_outputs(o, s).map(|_| ()),
+};
 
 /// One varied key: `KEY=FROM..TO` on the command line.
 #[derive(Debug, Clone, PartialEq, Serialize)]
@@ -298,7 +307,7 @@ pub struct SweepOptions {
 /// Simulate and measure one checked scenario: (requested frequency, used frequency, metrics).
 pub fn simulate(sc: &Scenario) -> Result<(Option<f64>, Option<f64>, ChainMetrics)> {
     let run = pipeline::run_lean(sc)?;
-    let m = measure_run(&run)?;
+    let m = measure_run(&run.records())?;
     let freqs = (run.plan.requested_frequency_hz, run.plan.frequency_hz);
     run.recycle();
     Ok((freqs.0, freqs.1, m))
@@ -419,7 +428,7 @@ pub fn run_sweep_until(
         b.finish_and_clear();
     }
     let interrupted =
-        (rows.len() < mine.len()).then(|| interrupted_note(KIND, rows.len(), mine.len()));
+        (rows.len() < mine.len()).then(|| interrupted_note(&STUDY, rows.len(), mine.len()));
     Ok(SweepResult {
         scenario: name,
         scenario_hash: fingerprint(text.text.as_bytes()),
@@ -924,11 +933,11 @@ mod tests {
         };
         for sc in [&sine, &multi, &sine, &multi] {
             let full = pipeline::run(sc, None, &mut |_| {}).unwrap();
-            let want = metric_values(&measure_run(&full).unwrap());
-            let want_gd = measure_run(&full).unwrap().latency.group_delay_s;
+            let want = metric_values(&measure_run(&full.records()).unwrap());
+            let want_gd = measure_run(&full.records()).unwrap().latency.group_delay_s;
             let lean = pipeline::run_lean(sc).unwrap();
             assert_eq!(lean.capture.source().is_some(), sc == &multi);
-            let m = measure_run(&lean).unwrap();
+            let m = measure_run(&lean.records()).unwrap();
             lean.recycle();
             let got = metric_values(&m);
             for (i, (a, b)) in want.iter().zip(&got).enumerate() {
@@ -1042,7 +1051,7 @@ mod tests {
     fn an_interrupted_sweep_keeps_its_note_through_its_rows_and_files() {
         let mut r = synthetic(Shard::WHOLE);
         r.rows.truncate(4);
-        r.interrupted = Some(interrupted_note(KIND, 4, 9));
+        r.interrupted = Some(interrupted_note(&STUDY, 4, 9));
         let set = r.to_rows();
         assert_eq!(
             set.interrupted.as_deref(),
@@ -1060,7 +1069,7 @@ mod tests {
                 .is_none()
         );
         // An interrupted whole sweep does not merge as the whole study, and says why.
-        let e = crate::study::shard::merge(vec![("a".into(), set)])
+        let e = crate::study::shard::merge(vec![("a".into(), set)], crate::study::STUDIES)
             .unwrap_err()
             .to_string();
         assert!(
@@ -1159,7 +1168,7 @@ mod tests {
                 (std::path::PathBuf::from(format!("s{k}")), s)
             })
             .collect();
-        let merged = crate::study::shard::merge(parts).unwrap();
+        let merged = crate::study::shard::merge(parts, crate::study::STUDIES).unwrap();
         assert_eq!(merged, whole.to_rows());
         let back = SweepResult::from_rows(&merged).unwrap();
         assert_eq!(back.to_csv().unwrap(), whole.to_csv().unwrap());

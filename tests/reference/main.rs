@@ -10,7 +10,7 @@ fn run(text: &str) -> (RunOutput, ChainMetrics) {
     let sc = convchain::scenario::parse_str(text, "reference.toml", Path::new("."))
         .expect("scenario parses");
     let r = pipeline::run(&sc, None, &mut |_| {}).expect("runs");
-    let m = measure_run(&r).expect("measures");
+    let m = measure_run(&r.records()).expect("measures");
     (r, m)
 }
 

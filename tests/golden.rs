@@ -1,0 +1,141 @@
+//! The outputs of every demo scenario, held byte for byte: report.json and waveforms.csv of `run`, sweep.csv of a
+//! small frequency sweep, and the files of `static`, `limit` and `montecarlo` on one demo each. A change meant
+//! to restructure the code must leave these hashes alone; a change meant to alter results updates the table in
+//! the same commit and says why. Print the current table with
+//! `CONVCHAIN_GOLDEN_PRINT=1 cargo test --release --test golden -- --nocapture`.
+//!
+//! The hashes are FNV-1a 64 of the files' bytes (the fingerprint the rows files use, `study::shard`).
+
+mod common;
+
+use std::path::Path;
+
+use common::{ok, repo, run_in};
+
+/// (output, FNV-1a 64 of its bytes), recorded before the stage kinds were moved into the registry.
+const GOLDEN: &[(&str, u64)] = &[
+    ("four-bit-listen-dithered/report.json", 0xeefbf5bac08407f7),
+    ("four-bit-listen-dithered/waveforms.csv", 0xf0bfbcb746fb9709),
+    ("four-bit-listen/report.json", 0x2455e0220dd18a6a),
+    ("four-bit-listen/waveforms.csv", 0xdb188952c60b7d87),
+    ("radio-stl/report.json", 0x8055fc4d074220b3),
+    ("radio-stl/waveforms.csv", 0x9e3ffd4f454d9d95),
+    ("radio-stl/sweep.csv", 0x8ab45fd106d08bb1),
+    ("river-gauge/report.json", 0xab69604ff90770f7),
+    ("river-gauge/waveforms.csv", 0x9c7d1552c162e027),
+    ("river-gauge/sweep.csv", 0x37fabc69188111f8),
+    ("studio-interface/report.json", 0x61febee99a93a5ab),
+    ("studio-interface/waveforms.csv", 0x18729c82c2565e12),
+    ("studio-interface/sweep.csv", 0x3f6556080f54d76b),
+    ("default/report.json", 0x40205b8e3489db9a),
+    ("default/waveforms.csv", 0x18729c82c2565e12),
+    ("static.json", 0x99caea15fb4c1ba7),
+    ("limit.json", 0xd1ee84c3a1965c79),
+    ("montecarlo.csv", 0x8def722a0ea6497b),
+];
+
+fn fnv1a64(bytes: &[u8]) -> u64 {
+    let mut h: u64 = 0xcbf2_9ce4_8422_2325;
+    for b in bytes {
+        h ^= u64::from(*b);
+        h = h.wrapping_mul(0x0000_0100_0000_01b3);
+    }
+    h
+}
+
+fn hash_of(path: &Path) -> u64 {
+    fnv1a64(&std::fs::read(path).unwrap_or_else(|e| panic!("{}: {e}", path.display())))
+}
+
+#[test]
+fn every_demo_output_is_byte_identical_to_the_recorded_one() {
+    let tmp = tempfile::tempdir().unwrap();
+    let out = tmp.path();
+    let root = repo("");
+    let mut got: Vec<(String, u64)> = Vec::new();
+    let quiet = ["-q", "--no-wav", "--no-plots"];
+
+    // The listening demos read generated audio beside their scenario folder: lay both out in the temporary
+    // folder, so the scenario's path (and so report.json's `origin`) reads as in the checkout.
+    std::fs::create_dir(out.join("scenarios")).unwrap();
+    ok(&run_in(out, &["audio", "chord", "--out", "listen"]));
+    for name in ["four-bit-listen-dithered", "four-bit-listen"] {
+        let rel = format!("scenarios/{name}.toml");
+        std::fs::copy(root.join(&rel), out.join(&rel)).unwrap();
+        let dir = out.join(name);
+        let mut args = vec!["run", rel.as_str(), "--out", dir.to_str().unwrap()];
+        args.extend(quiet);
+        ok(&run_in(out, &args));
+        for f in ["report.json", "waveforms.csv"] {
+            got.push((format!("{name}/{f}"), hash_of(&dir.join(f))));
+        }
+    }
+    for name in ["radio-stl", "river-gauge", "studio-interface"] {
+        let rel = format!("scenarios/{name}.toml");
+        let dir = out.join(name);
+        let mut args = vec!["run", rel.as_str(), "--out", dir.to_str().unwrap()];
+        args.extend(quiet);
+        ok(&run_in(&root, &args));
+        for f in ["report.json", "waveforms.csv"] {
+            got.push((format!("{name}/{f}"), hash_of(&dir.join(f))));
+        }
+        let sweep = out.join(format!("{name}-sweep"));
+        ok(&run_in(
+            &root,
+            &[
+                "sweep",
+                rel.as_str(),
+                "--vary",
+                "source.frequency=200 Hz..5 kHz",
+                "--points",
+                "4",
+                "--log",
+                "-q",
+                "--out",
+                sweep.to_str().unwrap(),
+            ],
+        ));
+        got.push((
+            format!("{name}/sweep.csv"),
+            hash_of(&sweep.join("sweep.csv")),
+        ));
+    }
+    let dir = out.join("default");
+    let mut args = vec!["run", "--out", dir.to_str().unwrap()];
+    args.extend(quiet);
+    ok(&run_in(&root, &args));
+    for f in ["report.json", "waveforms.csv"] {
+        got.push((format!("default/{f}"), hash_of(&dir.join(f))));
+    }
+    for (cmd, scenario, file, extra) in [
+        ("static", "scenarios/radio-stl.toml", "static.json", vec![]),
+        ("limit", "scenarios/river-gauge.toml", "limit.json", vec![]),
+        (
+            "montecarlo",
+            "scenarios/river-gauge.toml",
+            "montecarlo.csv",
+            vec!["--runs", "6"],
+        ),
+    ] {
+        let dir = out.join(cmd);
+        let mut args = vec![cmd, scenario, "--out", dir.to_str().unwrap(), "-q"];
+        args.extend(extra);
+        ok(&run_in(&root, &args));
+        got.push((file.to_string(), hash_of(&dir.join(file))));
+    }
+
+    if std::env::var_os("CONVCHAIN_GOLDEN_PRINT").is_some() {
+        for (k, h) in &got {
+            println!("    (\"{k}\", 0x{h:016x}),");
+        }
+    }
+    let differ: Vec<String> = GOLDEN
+        .iter()
+        .filter_map(|(k, want)| {
+            let have = got.iter().find(|(g, _)| g == k).map(|(_, h)| *h);
+            (have != Some(*want)).then(|| format!("{k}: recorded 0x{want:016x}, now {have:x?}"))
+        })
+        .collect();
+    assert!(differ.is_empty(), "outputs changed:\n{}", differ.join("\n"));
+    assert_eq!(got.len(), GOLDEN.len(), "every output is checked");
+}
