@@ -102,6 +102,7 @@ registry::stage_kinds! {
     dac => Dac(DacCfg),
     filter_kind => Filter(FilterCfg),
     amplifier => Amplifier(AmplifierCfg),
+    clip => Clip(ClipCfg),
 }
 
 /// A probe that evaluates a function of time, for the converter stages' unit tests.
