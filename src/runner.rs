@@ -2,7 +2,8 @@
 
 use std::path::Path;
 
-use crate::engine::pipeline::{self, Plan};
+use crate::engine::pipeline;
+use crate::engine::plan::Plan;
 use crate::engine::static_bench::{StaticReport, static_tests};
 use crate::error::{Error, Result};
 use crate::measure::chain::measure_run;

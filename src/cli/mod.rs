@@ -208,7 +208,7 @@ fn run(args: Args) -> anyhow::Result<()> {
         Command::Check { scenario } => {
             let sc = scenario::load(&scenario)?;
             print_warnings(&sc, false);
-            let (plan, _) = convchain::engine::pipeline::Plan::new(&sc)?;
+            let (plan, _) = convchain::engine::plan::Plan::new(&sc)?;
             let mut o = stdout.lock();
             writeln!(
                 o,

@@ -2,6 +2,7 @@
 
 pub mod decimate;
 pub mod pipeline;
+pub mod plan;
 pub mod probe;
 pub mod static_bench;
 pub mod stream;

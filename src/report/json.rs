@@ -3,7 +3,7 @@
 use serde::Serialize;
 use serde_json::{Value, json};
 
-use crate::engine::pipeline::Plan;
+use crate::engine::plan::Plan;
 use crate::measure::chain::{AdcMetrics, ChainMetrics, LatencyMetrics, OutputMetrics};
 use crate::scenario::{ChirpLaw, Scenario, Waveform, WindowKind};
 

@@ -264,5 +264,8 @@ impl Spread {
 
 pub mod keys;
 pub mod overrides;
+mod source_table;
+mod spread;
+mod stage_list;
 
 pub mod validate;

@@ -24,7 +24,7 @@ use std::path::Path;
 use rayon::prelude::*;
 use serde::Serialize;
 
-use crate::engine::pipeline::Plan;
+use crate::engine::plan::Plan;
 use crate::error::{Error, Result};
 use crate::format::units::format_si;
 use crate::report::OutputDir;

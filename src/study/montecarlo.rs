@@ -264,7 +264,7 @@ fn prepare<'a>(text: &'a ScenarioText, opts: &McOptions) -> Result<Prepared<'a>>
             opts.runs
         )));
     }
-    pipeline::Plan::new(&sc)?;
+    crate::engine::plan::Plan::new(&sc)?;
     let statics = opts.static_tests && has_converter(&sc);
     if !opts.dynamic && !statics {
         return Err(Error::BadInput(format!(

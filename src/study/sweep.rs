@@ -22,7 +22,8 @@ use serde_json::{Value, json};
 use super::shard::{
     ROWS_FILE, ROWS_FORMAT, RowSet, Shard, StudyKind, fingerprint, interrupted_note, run_in_order,
 };
-use crate::engine::pipeline::{self, Plan};
+use crate::engine::pipeline;
+use crate::engine::plan::Plan;
 use crate::error::{Error, Result};
 use crate::format::units::{Dimension, parse_quantity};
 use crate::measure::chain::{ChainMetrics, measure_run};

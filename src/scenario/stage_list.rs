@@ -1,0 +1,212 @@
+//! The `[[stage]]` list: each table read by its kind, the chain's role grammar checked, and cross-stage defaults
+//! resolved.
+
+use super::*;
+use crate::format::reader::{
+    At, Node, ScenarioError, SourceMap, Span, Table, TableReader, Value, unknown_choice,
+};
+use crate::stages::kind::{ReadContext, Role, Upstream};
+use crate::stages::registry::KIND_NAMES;
+
+/// A stage as read, before cross-stage defaults are filled in.
+struct ReadStage {
+    label: String,
+    kind_span: Span,
+    kind: StageKind,
+}
+
+pub(super) fn stages(
+    map: &SourceMap<'_>,
+    nodes: &At<&[Node]>,
+    sim: &Simulation,
+) -> Result<Vec<Stage>, ScenarioError> {
+    let mut read = Vec::with_capacity(nodes.value.len());
+    for (i, node) in nodes.value.iter().enumerate() {
+        let path = format!("stage.{}", i + 1);
+        let Value::Table(t) = &node.value else {
+            return Err(map
+                .error(
+                    &node.span,
+                    &path,
+                    format!("expected a table, found {}", node.value.type_name()),
+                )
+                .with_hint("write each stage as a [[stage]] section"));
+        };
+        read.push(stage(map, t, path, i + 1, sim)?);
+    }
+    check_order(map, &read)?;
+    Ok(resolve(read))
+}
+
+fn stage(
+    map: &SourceMap<'_>,
+    t: &Table,
+    path: String,
+    index: usize,
+    sim: &Simulation,
+) -> Result<ReadStage, ScenarioError> {
+    let mut r = TableReader::new(map, t, path);
+    let label = r.string("name")?;
+    let kind_at = r.string("kind")?.ok_or_else(|| {
+        r.missing("kind", "\"filter\"")
+            .with_hint(format!("add `kind = ...`, one of {}", quoted(KIND_NAMES)))
+    })?;
+    let kind_name = kind_at.value;
+    let ctx = ReadContext {
+        analog_rate_hz: sim.analog_rate_hz,
+    };
+    let Some(kind) = StageKind::read(kind_name, &mut r, &ctx) else {
+        return Err(unknown_choice(
+            map,
+            &kind_at.span,
+            &r.path_of("kind"),
+            "stage kind",
+            kind_name,
+            KIND_NAMES,
+        ));
+    };
+    let kind = kind?;
+    r.finish(&[], &format!("a {kind_name} stage"))?;
+    let label = match label {
+        Some(l) if !l.value.trim().is_empty() => l.value.to_string(),
+        _ => format!("stage.{index} {kind_name}"),
+    };
+    Ok(ReadStage {
+        label,
+        kind_span: kind_at.span,
+        kind,
+    })
+}
+
+fn quoted(names: &[&str]) -> String {
+    names
+        .iter()
+        .map(|n| format!("\"{n}\""))
+        .collect::<Vec<_>>()
+        .join(", ")
+}
+
+/// Where a stage sits in the role grammar `analog* [hold? quantizer code* reconstructor] analog*`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum Place {
+    /// Before the converter group (or an analog-only chain).
+    Before,
+    /// Just after a hold; only a quantizer may follow.
+    AfterHold,
+    /// After the quantizer or a code stage: codes are digital; only code stages or a reconstructor may follow.
+    Digital,
+    /// After the reconstructor.
+    After,
+}
+
+/// The chain's grammar in words, for messages.
+const GRAMMAR: &str = "a chain reads: analog stages, then one converter group [hold] ADC [links] DAC, then analog \
+                       stages";
+
+fn check_order(map: &SourceMap<'_>, stages: &[ReadStage]) -> Result<(), ScenarioError> {
+    let mut place = Place::Before;
+    let mut quantizer_index = None;
+    for (i, s) in stages.iter().enumerate() {
+        let path = format!("stage.{}.kind", i + 1);
+        let err = |msg: String, hint: &str| {
+            map.error(&s.kind_span, &path, msg)
+                .with_hint(hint.to_string())
+        };
+        let kind = s.kind.kind_name();
+        place = match (s.kind.role(), place) {
+            (Role::Analog, Place::Before | Place::After) => place,
+            (Role::Analog, Place::AfterHold) => {
+                return Err(err(
+                    format!("a {kind} cannot sit between a hold and the ADC it feeds"),
+                    "the hold must come directly before the ADC; move the analog stage before the hold",
+                ));
+            }
+            (Role::Analog, Place::Digital) => {
+                return Err(err(
+                    format!(
+                        "a {kind} cannot sit between the ADC and the DAC: the signal there is digital codes"
+                    ),
+                    "move it before the ADC (e.g. an anti-alias filter) or after the DAC (e.g. a reconstruction filter)",
+                ));
+            }
+            (Role::Hold, Place::Before) => Place::AfterHold,
+            (Role::Hold, _) => {
+                return Err(err(
+                    format!("a {kind} must come directly before an ADC"),
+                    GRAMMAR,
+                ));
+            }
+            (Role::Quantizer, Place::Before | Place::AfterHold) => {
+                quantizer_index = Some(i);
+                Place::Digital
+            }
+            (Role::Quantizer, _) => {
+                return Err(err(
+                    format!("only one ADC is allowed in a chain (this {kind} is a second)"),
+                    GRAMMAR,
+                ));
+            }
+            (Role::Code, Place::Digital) => Place::Digital,
+            (Role::Code, _) => {
+                return Err(err(
+                    format!("a {kind} carries codes: it must sit between the ADC and the DAC"),
+                    "move it after the ADC and before the DAC",
+                ));
+            }
+            (Role::Reconstructor, Place::Digital) => Place::After,
+            (Role::Reconstructor, Place::After) => {
+                return Err(err(
+                    format!("only one DAC is allowed in a chain (this {kind} is a second)"),
+                    GRAMMAR,
+                ));
+            }
+            (Role::Reconstructor, _) => {
+                return Err(err(
+                    format!("a {kind} needs codes: put an ADC (e.g. a sar_adc) before it"),
+                    GRAMMAR,
+                ));
+            }
+        };
+    }
+    match place {
+        Place::AfterHold => {
+            let s = stages.last().map_or(0..0, |s| s.kind_span.clone());
+            let kind = stages.last().map_or("hold", |s| s.kind.kind_name());
+            Err(map
+                .error(
+                    &s,
+                    &format!("stage.{}.kind", stages.len()),
+                    format!("a {kind} must come directly before an ADC"),
+                )
+                .with_hint("add an ADC stage (e.g. kind = \"sar_adc\") after it, or remove it"))
+        }
+        Place::Digital => {
+            let i = quantizer_index.unwrap_or(0);
+            let s = stages.get(i).map_or(0..0, |s| s.kind_span.clone());
+            let kind = stages.get(i).map_or("ADC", |s| s.kind.kind_name());
+            Err(map
+                .error(
+                    &s,
+                    &format!("stage.{}.kind", i + 1),
+                    format!("a {kind} needs a DAC after it (links may sit between)"),
+                )
+                .with_hint("add a [[stage]] with kind = \"dac\" after the ADC (and any links)"))
+        }
+        Place::Before | Place::After => Ok(()),
+    }
+}
+
+/// Fill in cross-stage defaults, each kind from what the stages before it resolved to (a link's and a DAC's
+/// width, a DAC's range). Assumes the order has been checked.
+fn resolve(read: Vec<ReadStage>) -> Vec<Stage> {
+    let mut up = Upstream::default();
+    read.into_iter()
+        .map(|mut s| {
+            s.kind.resolve(&mut up);
+            Stage {
+                label: s.label,
+                kind: s.kind,
+            }
+        })
+        .collect()
+}
