@@ -19,8 +19,6 @@
 //! one at a time (edits of the scenario text, [`Edit`]); the mechanism is the one whose removal takes away the
 //! most of the metric's fall from `from` to the criterion's frequency.
 
-use std::path::Path;
-
 use rayon::prelude::*;
 use serde::Serialize;
 
@@ -312,6 +310,105 @@ fn metric(c: Criterion, p: &LimitPoint) -> Option<f64> {
 /// Find the limits of a scenario with a sine source.
 pub fn find_limits(text: &ScenarioText, opts: &LimitOptions) -> Result<LimitReport> {
     let base = text.scenario()?;
+    check_options(&base, opts)?;
+    let (plan, _) = Plan::new(&base)?;
+    let mut notes = Vec::new();
+    let (from_hz, to_hz) = frequency_range(&base, &plan, opts, &mut notes)?;
+    let coherent = base.analysis.coherent;
+    let fine_cycles = if coherent {
+        opts.min_cycles.max(100.0)
+    } else {
+        opts.min_cycles
+    };
+    let mut runner = Runner {
+        text,
+        base: &base,
+        max_grid_steps: opts.max_grid_steps,
+        use_output_enob: true,
+    };
+    let pool = thread_pool(opts.threads)?;
+    let (first, coarse) = coarse_sweep(&mut runner, &pool, from_hz, to_hz, opts)?;
+    let enob_source = if runner.use_output_enob {
+        "output"
+    } else {
+        "adc"
+    };
+    coarse_notes(&coarse, opts, fine_cycles, coherent, &mut notes);
+
+    // ---- thresholds, first crossings and the diagnosis at each
+    // Without a converter there are no bits to lose: the output "ENOB" would only measure rounding noise.
+    let has_adc = base
+        .stages
+        .iter()
+        .any(|st| st.kind.role() == Role::Quantizer);
+    let thresholds = [
+        (
+            Criterion::Accuracy,
+            first
+                .enob_bits
+                .filter(|_| has_adc)
+                .map(|e| e - opts.enob_drop_bits),
+        ),
+        (
+            Criterion::Level,
+            first.gain_db.map(|g| g - opts.gain_drop_db),
+        ),
+        (Criterion::Shape, Some(opts.fidelity_min_db)),
+    ];
+    let cands = candidates(&base);
+    let search = Search {
+        runner: &runner,
+        coarse: &coarse,
+        first: &first,
+        cands: &cands,
+        fine_cycles,
+        tolerance: opts.tolerance,
+        to_hz,
+    };
+    let mut criteria: Vec<CriterionResult> = pool.install(|| {
+        thresholds
+            .par_iter()
+            .map(|&(c, thr)| match thr {
+                Some(thr) => search.criterion(c, thr),
+                None => CriterionResult::unmet(
+                    c,
+                    None,
+                    if c == Criterion::Accuracy && !has_adc {
+                        "not applicable: the chain has no converter".to_string()
+                    } else {
+                        format!("no {} metric at the low end", c.name())
+                    },
+                ),
+            })
+            .collect()
+    });
+    criteria.push(aliasing(&base, &plan));
+    let head = criteria
+        .iter()
+        .filter(|r| r.frequency_hz.is_some())
+        .min_by(|a, b| a.frequency_hz.unwrap().total_cmp(&b.frequency_hz.unwrap()));
+    let limit = Limit {
+        frequency_hz: head.and_then(|h| h.frequency_hz),
+        criterion: head.map(|h| h.criterion),
+        mechanism: head.and_then(|h| h.mechanism.clone()),
+        criteria: criteria.clone(),
+    };
+    Ok(LimitReport {
+        scenario: base.name.clone(),
+        from_hz,
+        to_hz,
+        enob_drop_bits: opts.enob_drop_bits,
+        gain_drop_db: opts.gain_drop_db,
+        fidelity_min_db: opts.fidelity_min_db,
+        enob_source: enob_source.into(),
+        limit,
+        coarse,
+        notes,
+    })
+}
+
+/// The options and the source the limit finder needs.
+fn check_options(base: &Scenario, opts: &LimitOptions) -> Result<()> {
     if !matches!(base.source.waveform, Waveform::Sine { .. }) {
         return Err(Error::BadInput(format!(
             "{}: the limit finder varies source.frequency and needs a sine source (waveform = \"sine\")",
@@ -331,13 +428,20 @@ pub fn find_limits(text: &ScenarioText, opts: &LimitOptions) -> Result<LimitRepo
     if !opts.fidelity_min_db.is_finite() {
         return Err(Error::BadInput("--fidelity-min must be a number".into()));
     }
-    let (plan, _) = Plan::new(&base)?;
-    let mut notes = Vec::new();
+    Ok(())
+}
+
+/// The frequency range searched: from a fiftieth of the lowest rate of interest (above any high-pass corner), up
+/// to what the meters can measure.
+fn frequency_range(
+    base: &Scenario,
+    plan: &Plan,
+    opts: &LimitOptions,
+    notes: &mut Vec<String>,
+) -> Result<(f64, f64)> {
     let adc_fs = plan.adc.map(|a| a.sample_rate_hz);
     let analog = base.simulation.analog_rate_hz;
-
-    // ---- range
-    let (rates, hp) = rates_of_interest(&base);
+    let (rates, hp) = rates_of_interest(base);
     let from_hz = match opts.from_hz {
         Some(f) => f,
         None => {
@@ -387,22 +491,18 @@ pub fn find_limits(text: &ScenarioText, opts: &LimitOptions) -> Result<LimitRepo
             format_si(to_hz, "Hz")
         )));
     }
+    Ok((from_hz, to_hz))
+}
 
-    let coherent = base.analysis.coherent;
-    let fine_cycles = if coherent {
-        opts.min_cycles.max(100.0)
-    } else {
-        opts.min_cycles
-    };
-    let mut runner = Runner {
-        text,
-        base: &base,
-        max_grid_steps: opts.max_grid_steps,
-        use_output_enob: true,
-    };
-    let pool = thread_pool(opts.threads)?;
-
-    // ---- coarse sweep
+/// The coarse log sweep over the range: the low end's point (which also decides whether the output's or the
+/// ADC's ENOB is followed) and every point in order, the low end first.
+fn coarse_sweep(
+    runner: &mut Runner<'_>,
+    pool: &rayon::ThreadPool,
+    from_hz: f64,
+    to_hz: f64,
+    opts: &LimitOptions,
+) -> Result<(LimitPoint, Vec<LimitPoint>)> {
     let n = opts.coarse_points.max(3);
     let freqs: Vec<f64> = (0..n)
         .map(|i| from_hz * (to_hz / from_hz).powf(i as f64 / (n - 1) as f64))
@@ -417,17 +517,13 @@ pub fn find_limits(text: &ScenarioText, opts: &LimitOptions) -> Result<LimitRepo
     if first.enob_bits.is_none() {
         runner.use_output_enob = false;
     }
-    let enob_source = if runner.use_output_enob {
-        "output"
-    } else {
-        "adc"
-    };
     let first = if runner.use_output_enob {
         first
     } else {
         runner.point(from_hz, opts.min_cycles, &[])
     };
     let bar = progress_bar(n, opts.progress, "coarse sweep");
+    let runner = &*runner;
     let mut coarse: Vec<LimitPoint> = pool.install(|| {
         freqs[1..]
             .par_iter()
@@ -444,6 +540,17 @@ pub fn find_limits(text: &ScenarioText, opts: &LimitOptions) -> Result<LimitRepo
         b.finish_and_clear();
     }
     coarse.insert(0, first.clone());
+    Ok((first, coarse))
+}
+
+/// What the coarse sweep tells the reader: points skipped, the run lengths, the grid-step bound.
+fn coarse_notes(
+    coarse: &[LimitPoint],
+    opts: &LimitOptions,
+    fine_cycles: f64,
+    coherent: bool,
+    notes: &mut Vec<String>,
+) {
     let failed: Vec<String> = coarse
         .iter()
         .filter_map(|p| {
@@ -459,10 +566,6 @@ pub fn find_limits(text: &ScenarioText, opts: &LimitOptions) -> Result<LimitRepo
             failed.join("; ")
         ));
     }
-    let short: Vec<&LimitPoint> = coarse
-        .iter()
-        .filter(|p| p.cycles + 1e-9 < opts.min_cycles)
-        .collect();
     notes.push(format!(
         "each run holds at least {} cycles in its analysis window ({} while bisecting{}): simulation.duration \
          lengthened to settle + max(the scenario's window, cycles/f), simulation.settle = max(the scenario's, \
@@ -476,217 +579,22 @@ pub fn find_limits(text: &ScenarioText, opts: &LimitOptions) -> Result<LimitRepo
         },
         opts.max_grid_steps
     ));
-    if let Some(p) = short.first() {
+    if let Some(p) = coarse.iter().find(|p| p.cycles + 1e-9 < opts.min_cycles) {
         notes.push(format!(
             "the grid-step bound left only {:.1} cycles at {} (and fewer below)",
             p.cycles,
             format_si(p.requested_hz, "Hz")
         ));
     }
+}
 
-    // ---- thresholds and first crossings
-    // Without a converter there are no bits to lose: the output "ENOB" would only measure rounding noise.
-    let has_adc = base
-        .stages
-        .iter()
-        .any(|st| st.kind.role() == Role::Quantizer);
-    let thresholds = [
-        (
-            Criterion::Accuracy,
-            first
-                .enob_bits
-                .filter(|_| has_adc)
-                .map(|e| e - opts.enob_drop_bits),
-        ),
-        (
-            Criterion::Level,
-            first.gain_db.map(|g| g - opts.gain_drop_db),
-        ),
-        (Criterion::Shape, Some(opts.fidelity_min_db)),
-    ];
-    let fails = |c: Criterion, thr: f64, p: &LimitPoint| metric(c, p).is_some_and(|v| v < thr);
-    let cands = candidates(&base);
-    let rows: Vec<CriterionResult> = pool.install(|| {
-        thresholds
-            .par_iter()
-            .map(|&(c, thr)| {
-                let Some(thr) = thr else {
-                    return CriterionResult {
-                        criterion: c,
-                        frequency_hz: None,
-                        bracket_hz: None,
-                        threshold: None,
-                        value: None,
-                        mechanism: None,
-                        mechanism_stage: None,
-                        ablation: Vec::new(),
-                        note: if c == Criterion::Accuracy && !has_adc {
-                            "not applicable: the chain has no converter".to_string()
-                        } else {
-                            format!("no {} metric at the low end", c.name())
-                        },
-                    };
-                };
-                let idx = coarse
-                    .iter()
-                    .position(|p| p.error.is_none() && fails(c, thr, p));
-                let Some(idx) = idx else {
-                    return CriterionResult {
-                        criterion: c,
-                        frequency_hz: None,
-                        bracket_hz: None,
-                        threshold: Some(thr),
-                        value: None,
-                        mechanism: None,
-                        mechanism_stage: None,
-                        ablation: Vec::new(),
-                        note: format!("not reached below {}", format_si(to_hz, "Hz")),
-                    };
-                };
-                let mut note = String::new();
-                let (mut lo, mut hi) = if idx == 0 {
-                    note = format!(
-                        "already met at the low end ({})",
-                        format_si(coarse[0].frequency_hz, "Hz")
-                    );
-                    (None, coarse[0].clone())
-                } else {
-                    let lo = coarse[..idx]
-                        .iter()
-                        .rev()
-                        .find(|p| p.error.is_none())
-                        .cloned();
-                    (lo, runner.point(coarse[idx].requested_hz, fine_cycles, &[]))
-                };
-                // The fine run at the coarse failing frequency may pass; then walk up the coarse grid.
-                if lo.is_some() && !fails(c, thr, &hi) {
-                    let mut j = idx;
-                    let mut found = false;
-                    while j + 1 < coarse.len() {
-                        j += 1;
-                        let p = runner.point(coarse[j].requested_hz, fine_cycles, &[]);
-                        if fails(c, thr, &p) {
-                            lo = Some(coarse[j - 1].clone());
-                            hi = p;
-                            found = true;
-                            break;
-                        }
-                    }
-                    if !found {
-                        return CriterionResult {
-                            criterion: c,
-                            frequency_hz: None,
-                            bracket_hz: None,
-                            threshold: Some(thr),
-                            value: None,
-                            mechanism: None,
-                            mechanism_stage: None,
-                            ablation: Vec::new(),
-                            note: format!(
-                                "not reached below {} (a coarse crossing did not repeat with longer runs)",
-                                format_si(to_hz, "Hz")
-                            ),
-                        };
-                    }
-                }
-                if let Some(mut l) = lo {
-                    while hi.requested_hz / l.requested_hz > 1.0 + opts.tolerance {
-                        let mid = (hi.requested_hz * l.requested_hz).sqrt();
-                        let p = runner.point(mid, fine_cycles, &[]);
-                        if p.error.is_some() {
-                            note = format!(
-                                "bisection stopped: the run at {} failed",
-                                format_si(mid, "Hz")
-                            );
-                            break;
-                        }
-                        if fails(c, thr, &p) {
-                            hi = p;
-                        } else {
-                            l = p;
-                        }
-                    }
-                    lo = Some(l);
-                }
-                let bracket = lo.as_ref().map(|l| (l.frequency_hz, hi.frequency_hz));
-                // ---- diagnosis at the criterion's frequency
-                let base_value = metric(c, &hi);
-                let reference = metric(c, &first);
-                let ablation: Vec<Ablation> = cands
-                    .iter()
-                    .map(|cand| {
-                        let p = runner.point(hi.requested_hz, fine_cycles, &cand.edits);
-                        let recovery = match (metric(c, &p), base_value, reference) {
-                            (Some(a), Some(b), Some(r)) => Some(a.min(r.max(b)) - b),
-                            _ => None,
-                        };
-                        Ablation {
-                            change: cand.change.clone(),
-                            mechanism: cand.mechanism.clone(),
-                            enob_bits: p.enob_bits,
-                            gain_db: p.gain_db,
-                            fidelity_db: p.fidelity_db,
-                            recovery,
-                            error: p.error,
-                        }
-                    })
-                    .collect();
-                let significant = match c {
-                    Criterion::Accuracy => 0.1,
-                    Criterion::Level => 0.1,
-                    _ => 0.5,
-                };
-                // The best recovery; among changes within `significant` of it, a single-parameter change is
-                // preferred to the compound sample-rate change (which also shortens the conversion).
-                let top = ablation
-                    .iter()
-                    .filter_map(|a| a.recovery)
-                    .fold(f64::NEG_INFINITY, f64::max);
-                let best = ablation
-                    .iter()
-                    .enumerate()
-                    .filter_map(|(i, a)| a.recovery.map(|r| (i, r)))
-                    .filter(|(_, r)| *r > significant && *r >= top - significant)
-                    .max_by(|(i, a), (j, b)| {
-                        // Raising a converter's sample rate changes its conversion too: on a tie, a single
-                        // mechanism is the better answer.
-                        let compound = |k: usize| cands[k].mechanism.ends_with(".sample_rate");
-                        compound(*j).cmp(&compound(*i)).then(a.total_cmp(b))
-                    });
-                let (mechanism, mechanism_stage) = match best {
-                    Some((i, _)) => (
-                        Some(cands[i].mechanism.clone()),
-                        Some(cands[i].stage.clone()),
-                    ),
-                    None => {
-                        if !note.is_empty() {
-                            note.push_str("; ");
-                        }
-                        note.push_str("no single ablation recovers the metric");
-                        (None, None)
-                    }
-                };
-                CriterionResult {
-                    criterion: c,
-                    frequency_hz: Some(hi.frequency_hz),
-                    bracket_hz: bracket,
-                    threshold: Some(thr),
-                    value: base_value,
-                    mechanism,
-                    mechanism_stage,
-                    ablation,
-                    note,
-                }
-            })
-            .collect()
-    });
-    let mut criteria = rows;
-    // ---- aliasing: computed
+/// The aliasing criterion: computed, the quantizer's Nyquist frequency.
+fn aliasing(base: &Scenario, plan: &Plan) -> CriterionResult {
     let quantizer = base
         .stages
         .iter()
         .find(|s| s.kind.role() == Role::Quantizer);
-    criteria.push(match plan.adc {
+    match plan.adc {
         Some(a) => CriterionResult {
             criterion: Criterion::Aliasing,
             frequency_hz: Some(a.sample_rate_hz / 2.0),
@@ -698,152 +606,19 @@ pub fn find_limits(text: &ScenarioText, opts: &LimitOptions) -> Result<LimitRepo
             ablation: Vec::new(),
             note: "computed: sample_rate / 2".into(),
         },
-        None => CriterionResult {
-            criterion: Criterion::Aliasing,
-            frequency_hz: None,
-            bracket_hz: None,
-            threshold: None,
-            value: None,
-            mechanism: None,
-            mechanism_stage: None,
-            ablation: Vec::new(),
-            note: "the chain has no converter".into(),
-        },
-    });
-    let head = criteria
-        .iter()
-        .filter(|r| r.frequency_hz.is_some())
-        .min_by(|a, b| a.frequency_hz.unwrap().total_cmp(&b.frequency_hz.unwrap()));
-    let limit = Limit {
-        frequency_hz: head.and_then(|h| h.frequency_hz),
-        criterion: head.map(|h| h.criterion),
-        mechanism: head.and_then(|h| h.mechanism.clone()),
-        criteria: criteria.clone(),
-    };
-    Ok(LimitReport {
-        scenario: base.name.clone(),
-        from_hz,
-        to_hz,
-        enob_drop_bits: opts.enob_drop_bits,
-        gain_drop_db: opts.gain_drop_db,
-        fidelity_min_db: opts.fidelity_min_db,
-        enob_source: enob_source.into(),
-        limit,
-        coarse,
-        notes,
-    })
+        None => CriterionResult::unmet(
+            Criterion::Aliasing,
+            None,
+            "the chain has no converter".into(),
+        ),
+    }
 }
 
-fn opt(v: Option<f64>, unit: &str) -> String {
-    v.map_or("-".into(), |x| format_si(x, unit))
-}
+mod output;
+mod search;
 
-/// A readable table of the limits.
-pub fn table(r: &LimitReport) -> String {
-    use std::fmt::Write;
-    let mut s = String::new();
-    let _ = writeln!(
-        s,
-        "{}: limits from {} to {} (ENOB of the {}; drop {} bit, gain drop {} dB, fidelity under {} dB)",
-        r.scenario,
-        format_si(r.from_hz, "Hz"),
-        format_si(r.to_hz, "Hz"),
-        r.enob_source,
-        r.enob_drop_bits,
-        r.gain_drop_db,
-        r.fidelity_min_db
-    );
-    let _ = writeln!(
-        s,
-        "  {:<10} {:>12}  {:<28} note",
-        "criterion", "frequency", "mechanism"
-    );
-    for c in &r.limit.criteria {
-        let mech = match (&c.mechanism, &c.mechanism_stage) {
-            (Some(m), Some(st)) if !st.is_empty() => format!("{m} ({st})"),
-            (Some(m), _) => m.clone(),
-            _ => "-".into(),
-        };
-        let _ = writeln!(
-            s,
-            "  {:<10} {:>12}  {:<28} {}",
-            c.criterion.name(),
-            opt(c.frequency_hz, "Hz"),
-            mech,
-            c.note
-        );
-    }
-    match (r.limit.frequency_hz, r.limit.criterion) {
-        (Some(f), Some(c)) => {
-            let _ = writeln!(
-                s,
-                "limit: {} ({}{})",
-                format_si(f, "Hz"),
-                c.name(),
-                r.limit
-                    .mechanism
-                    .as_ref()
-                    .map(|m| format!(", {m}"))
-                    .unwrap_or_default()
-            );
-        }
-        _ => {
-            let _ = writeln!(s, "limit: not reached below {}", format_si(r.to_hz, "Hz"));
-        }
-    }
-    for n in &r.notes {
-        let _ = writeln!(s, "note: {n}");
-    }
-    s
-}
-
-/// Write `limit.json` and the plot of the coarse sweep (`limit.png`, `limit.svg`) atomically into `dir`.
-pub fn write_limit(r: &LimitReport, dir: &Path) -> Result<()> {
-    let out = OutputDir::create(dir)?;
-    let res = (|| -> Result<()> {
-        let json = serde_json::to_vec_pretty(r).map_err(|e| Error::Run(e.to_string()))?;
-        out.write("limit.json", &json)?;
-        let ok: Vec<&LimitPoint> = r.coarse.iter().filter(|p| p.error.is_none()).collect();
-        let col = |f: fn(&LimitPoint) -> Option<f64>| -> (Vec<f64>, Vec<f64>) {
-            ok.iter()
-                .filter_map(|p| f(p).map(|y| (p.frequency_hz, y)))
-                .unzip()
-        };
-        let enob = col(|p| p.enob_bits);
-        let gain = col(|p| p.gain_db);
-        let fid = col(|p| p.fidelity_db);
-        let enob_name = format!("ENOB of the {} (bits)", r.enob_source);
-        let markers: Vec<(f64, String)> = r
-            .limit
-            .criteria
-            .iter()
-            .filter_map(|c| c.frequency_hz.map(|f| (f, c.criterion.name().to_string())))
-            .filter(|(f, _)| *f >= r.from_hz * 0.5 && *f <= r.to_hz * 2.0)
-            .collect();
-        let p = Plot::Xy(XyPlot {
-            title: format!("{}: ENOB, gain and fidelity against frequency", r.scenario),
-            x_label: "input frequency (Hz)".into(),
-            y_label: "bits / dB".into(),
-            series: vec![
-                (enob_name.as_str(), &enob.0, &enob.1),
-                ("gain (dB)", &gain.0, &gain.1),
-                ("fidelity (dB)", &fid.0, &fid.1),
-            ],
-            log_x: true,
-            markers,
-        });
-        let (png, _) = plot::render_png(&p, 1000, 620)?;
-        out.write("limit.png", &png)?;
-        let (svg, _) = plot::render_svg(&p)?;
-        out.write("limit.svg", svg.as_bytes())?;
-        Ok(())
-    })();
-    if let Err(e) = res {
-        out.abandon();
-        return Err(e);
-    }
-    Ok(())
-}
+pub use output::{table, write_limit};
+use search::Search;
 
 #[cfg(test)]
 mod tests {
