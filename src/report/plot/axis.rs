@@ -6,8 +6,9 @@ use plotters::style::text_anchor::{HPos, VPos};
 
 use crate::Error;
 
+use super::axis_title;
 use super::painter::{FRAME, GRID, Key, Painter, TEXT};
-use super::{axis_title, si_prefix_for_value, unit_takes_prefix};
+use crate::scenario::units::{si_prefix_for_value, unit_takes_prefix};
 
 /// One axis: data range, mapping and ticks.
 #[derive(Debug, Clone)]

@@ -30,7 +30,7 @@ mod xy;
 use plotters::backend::{BitMapBackend, DrawingBackend, SVGBackend};
 
 use crate::Error;
-use crate::scenario::units;
+use crate::scenario::units::{self, SiPrefix, SiStyle, si_prefix_for_span, unit_takes_prefix};
 
 use budget::draw_budget;
 use painter::{Painter, draw_err, ensure_font};
@@ -246,57 +246,8 @@ pub fn render(
 }
 
 // ---------------------------------------------------------------------------------------------------------
-// SI prefixes
+// SI labels (the formatter itself is scenario::units::format_si_as)
 // ---------------------------------------------------------------------------------------------------------
-
-/// An SI prefix: its symbol and its power of ten (chosen by [`units::si_prefix`]).
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub struct SiPrefix {
-    /// "µ", "m", "", "k", ...
-    pub symbol: &'static str,
-    /// Power of ten of the prefix (-6 for µ).
-    pub exponent: i32,
-}
-
-impl SiPrefix {
-    /// No prefix.
-    pub const NONE: SiPrefix = SiPrefix {
-        symbol: "",
-        exponent: 0,
-    };
-
-    /// Multiply a value in the base unit by this to express it with the prefix (1e3 for "m").
-    pub fn scale(self) -> f64 {
-        10f64.powi(-self.exponent)
-    }
-}
-
-/// The prefix whose range holds `magnitude` (1 <= magnitude / 10^exponent < 1000), from p to G as
-/// [`units::si_prefix`] picks it (micro written µ); no prefix for zero or non-finite input.
-pub fn si_prefix_for_value(magnitude: f64) -> SiPrefix {
-    // A nudge of 1e-9 decades keeps exact powers of ten that rounding left just below themselves (a span
-    // of 1e-3 computed as 0.000999...) in their own decade.
-    let m = magnitude.abs() * 10f64.powf(1e-9);
-    SiPrefix {
-        symbol: units::si_prefix(m, "µ").1,
-        exponent: units::si_prefix_exponent(m),
-    }
-}
-
-/// The prefix for an axis spanning `span` base units: the span then reads between 1 and 1000
-/// (2 ms span -> "m", 500 µs span -> "µ", 20 kHz span -> "k").
-pub fn si_prefix_for_span(span: f64) -> SiPrefix {
-    si_prefix_for_value(span)
-}
-
-/// Whether a unit takes SI prefixes (s, Hz, V, A, W, F, H, Ω, V/s, ...) or not (dB, dBFS, LSB, %, none).
-pub fn unit_takes_prefix(unit: &str) -> bool {
-    let base = unit.split('/').next().unwrap_or("");
-    matches!(
-        base,
-        "s" | "Hz" | "V" | "A" | "W" | "F" | "H" | "Ω" | "ohm" | "S" | "C" | "J" | "m" | "g"
-    )
-}
 
 /// Axis title with the prefix chosen from the axis span: `axis_title("time", "s", 2e-3)` gives
 /// ("time (ms)", milli). Units that take no prefix are written as given; an empty unit gives the bare
@@ -313,22 +264,10 @@ pub fn axis_title(quantity: &str, unit: &str, span: f64) -> (String, SiPrefix) {
 }
 
 /// A value with a prefixed unit and `significant` significant digits: `format_si(12.34e-6, "s", 3)` gives
-/// "12.3 µs". Units that take no prefix are written as given.
+/// "12.3 µs". Units that take no prefix are written as given. The plots' style of the one SI formatter
+/// ([`units::format_si_as`] with [`SiStyle::Significant`]).
 pub fn format_si(value: f64, unit: &str, significant: usize) -> String {
-    let prefix = if unit_takes_prefix(unit) {
-        si_prefix_for_value(value)
-    } else {
-        SiPrefix::NONE
-    };
-    let scaled = value * prefix.scale();
-    let digits = significant.max(1) as i32;
-    let decimals = if scaled == 0.0 || !scaled.is_finite() {
-        0
-    } else {
-        (digits - 1 - (scaled.abs().log10() + 1e-9).floor() as i32).max(0) as usize
-    };
-    let sep = if unit.is_empty() { "" } else { " " };
-    format!("{scaled:.decimals$}{sep}{}{unit}", prefix.symbol)
+    units::format_si_as(value, unit, SiStyle::Significant(significant))
 }
 
 /// Split "input frequency (Hz)" into ("input frequency", "Hz"); no trailing parentheses gives no unit.

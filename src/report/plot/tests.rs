@@ -207,43 +207,6 @@ fn xy<'a>(d: &'a (Vec<f64>, Vec<f64>, Vec<f64>)) -> Plot<'a> {
 // ---- SI formatter ----
 
 #[test]
-fn si_prefix_follows_the_axis_span() {
-    // Prefix powers are those of the SI (BIPM SI Brochure, 9th ed., table of SI prefixes; from memory);
-    // choosing the prefix so the span reads 1..1000 is common practice, no source.
-    assert_eq!(si_prefix_for_span(2e-3).symbol, "m");
-    assert_eq!(si_prefix_for_span(1e-3).symbol, "m");
-    assert_eq!(si_prefix_for_span(999e-6).symbol, "µ");
-    assert_eq!(si_prefix_for_span(500e-6).symbol, "µ");
-    assert_eq!(si_prefix_for_span(20e3).symbol, "k");
-    assert_eq!(si_prefix_for_span(0.2).symbol, "m");
-    assert_eq!(si_prefix_for_span(3.3).symbol, "");
-    assert_eq!(si_prefix_for_span(2.5e6).symbol, "M");
-    assert_eq!(si_prefix_for_span(40e-9).symbol, "n");
-    assert_eq!(si_prefix_for_span(0.0), SiPrefix::NONE);
-    assert_eq!(si_prefix_for_span(f64::NAN), SiPrefix::NONE);
-}
-
-#[test]
-fn plot_prefixes_are_those_of_the_scenario_units() {
-    // Away from the decade edges the plot's prefix is exactly units::si_prefix's, from p to G.
-    for e in -13..11 {
-        for m in [1.5, 4.0, 30.0, 700.0] {
-            let v = m * 10f64.powi(e);
-            let p = si_prefix_for_value(v);
-            let (factor, symbol) = units::si_prefix(v, "µ");
-            assert_eq!(p.symbol, symbol, "{v}");
-            assert_eq!(10f64.powi(p.exponent), factor, "{v}");
-        }
-    }
-    // Out of range: clamped to p and G.
-    assert_eq!(si_prefix_for_value(3e-15).symbol, "p");
-    assert_eq!(si_prefix_for_value(3e13).symbol, "G");
-    // A span that rounding left just below a power of ten keeps that decade's prefix.
-    let one = 1.0 - f64::EPSILON / 2.0;
-    assert_eq!(si_prefix_for_span(one), SiPrefix::NONE);
-}
-
-#[test]
 fn axis_titles_carry_the_prefixed_unit() {
     assert_eq!(axis_title("time", "s", 2e-3).0, "time (ms)");
     assert_eq!(axis_title("time", "s", 300e-6).0, "time (µs)");
@@ -253,15 +216,6 @@ fn axis_titles_carry_the_prefixed_unit() {
     assert_eq!(axis_title("code", "", 4095.0).0, "code");
     let (_, p) = axis_title("time", "s", 2e-3);
     assert!((1.5e-3 * p.scale() - 1.5).abs() < 1e-12);
-}
-
-#[test]
-fn values_are_written_with_prefix_and_significant_digits() {
-    assert_eq!(format_si(12.34e-6, "s", 3), "12.3 µs");
-    assert_eq!(format_si(1e3, "Hz", 4), "1.000 kHz");
-    assert_eq!(format_si(-2.5e-3, "V", 2), "-2.5 mV");
-    assert_eq!(format_si(72.14, "dB", 3), "72.1 dB");
-    assert_eq!(format_si(0.0, "s", 3), "0 s");
 }
 
 #[test]
