@@ -3,6 +3,3 @@
 pub mod decimate;
 pub mod pipeline;
 pub mod probe;
-pub mod stream;
-
-pub use stream::{AnalogRecord, CodeEvent, CodeRecord, Timebase};

@@ -16,10 +16,10 @@ use rand_chacha::ChaCha8Rng;
 
 use crate::engine::decimate::{Decimator, PASSBAND_FRACTION};
 use crate::engine::probe::{ExactProbe, GridHistory};
-use crate::engine::stream::{AnalogRecord, CodeEvent, CodeRecord, Timebase};
 use crate::error::{Error, Result};
 use crate::measure::latency::BudgetLine;
 use crate::scenario::{Scenario, StageKind, Waveform};
+use crate::signal::stream::{AnalogRecord, CodeEvent, CodeRecord, Timebase};
 use crate::stages::AnalogStage;
 use crate::stages::amplifier::Amplifier;
 use crate::stages::dac::Dac;

@@ -6,8 +6,8 @@
 
 use num_complex::Complex64;
 
-use crate::engine::stream::Timebase;
 use crate::scenario::AmplifierCfg;
+use crate::signal::stream::Timebase;
 use crate::stages::AnalogStage;
 use crate::stages::slew::OutputAmp;
 

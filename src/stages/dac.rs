@@ -10,8 +10,8 @@ use rand::RngExt;
 use rand_chacha::ChaCha8Rng;
 use rand_distr::{Distribution, StandardNormal};
 
-use crate::engine::stream::{CodeEvent, Timebase};
 use crate::scenario::{DacCfg, Ladder, ToleranceDistribution};
+use crate::signal::stream::{CodeEvent, Timebase};
 use crate::stages::slew::OutputAmp;
 
 /// Smallest relative resistor value a draw may give (guards against a Gaussian draw at an absurd

@@ -14,8 +14,8 @@
 use rand::RngExt;
 use rand_chacha::ChaCha8Rng;
 
-use crate::engine::stream::CodeEvent;
 use crate::scenario::LinkCfg;
+use crate::signal::stream::CodeEvent;
 
 /// A digital link with delay, framing, bit errors and width conversion.
 #[derive(Debug, Clone)]

@@ -18,8 +18,8 @@
 use rand_chacha::ChaCha8Rng;
 use rand_distr::{Distribution, StandardNormal};
 
-use crate::engine::stream::CodeEvent;
 use crate::scenario::{AdcInput, DitherKind, SarAdcCfg};
+use crate::signal::stream::CodeEvent;
 use crate::stages::Probe;
 use crate::stages::sample_hold::SampleHold;
 

@@ -73,8 +73,8 @@ use std::f64::consts::PI;
 use num_complex::Complex64;
 
 use super::AnalogStage;
-use crate::engine::stream::Timebase;
 use crate::scenario::{FilterCfg, FilterFamily, FilterResponse};
+use crate::signal::stream::Timebase;
 
 use block::{BLOCK_LEN, BlockForm, MAX_STATES};
 use design::lowpass_prototype;

@@ -1,0 +1,6 @@
+//! Signal types and helpers that stages, the engine and the meters share: the stream types (a uniform time
+//! grid, analog records, code events and records) and the interleaved rotation used by sine sources and
+//! one-tone fits. Nothing here depends on another module of the crate.
+
+pub(crate) mod rotation;
+pub mod stream;
