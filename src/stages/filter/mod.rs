@@ -39,8 +39,8 @@
 //!   cutoffs near rate/2.5 (the highpass correction is then cut to fewer taps when it would boost rate/2 more
 //!   than 2.5x);
 //! - for cutoffs above rate/20 the errors grow (measured worst at rate/15: 0.18 dB and 2 % group delay; at
-//!   rate/10: 0.23 dB and 7 %; both for highpasses, whose correction is then cut short); near rate/2.5 the filter stays stable with exact DC gain (lowpass) or exact zeros at DC
-//!   (highpass);
+//!   rate/10: 0.23 dB and 7 %; both for highpasses, whose correction is then cut short); near rate/2.5 the
+//!   filter stays stable with exact DC gain (lowpass) or exact zeros at DC (highpass);
 //! - DC accuracy of the f64 recursion: measured 5.3e-11 relative at cutoff rate/2000, 1.2e-8 at rate/20000
 //!   (order 8 Chebyshev), from rounding with poles close to z = 1.
 //!
@@ -59,6 +59,12 @@
 //! one for lowpasses (about 1e-15 against 1e-13..3e-12). The block state carries over exactly between calls
 //! that end with a whole block, so the output does not depend on how whole blocks are grouped into calls;
 //! calls that are not multiples of the block length shift the blocks and change only the rounding.
+//!
+//! # Files
+//! This file holds `Filter` and its `AnalogStage` implementation; `design.rs` the analog prototypes;
+//! `realise.rs` the sections, the FIR section and their coefficients (pole mapping, moment matching);
+//! `block.rs` the block state-space form of the block path; `tests.rs` and `oracle_tests.rs` the unit tests
+//! (the scipy reference values are read from `tests/reference/filters_analog.csv`).
 
 mod block;
 mod design;
