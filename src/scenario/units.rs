@@ -574,7 +574,7 @@ mod tests {
 
     #[test]
     fn plot_prefixes_are_those_of_si_prefix() {
-        // Away from the decade edges the prefix for plots is exactly units::si_prefix's, from p to G.
+        // Away from the decade edges the prefix for plots is exactly si_prefix's, from p to G.
         for e in -13..11 {
             for m in [1.5, 4.0, 30.0, 700.0] {
                 let v = m * 10f64.powi(e);
