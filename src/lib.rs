@@ -3,6 +3,8 @@
 //!
 //! The library is organised by concern:
 //! - [`scenario`]: the TOML scenario format, SI-unit parsing and validation into a checked [`scenario::Scenario`];
+//! - [`signal`]: stream types (time grid, analog and code records) and signal helpers shared by stages, engine
+//!   and meters;
 //! - [`stages`]: one file per stage kind (sources, filters, sample-and-hold, SAR ADC, link, DAC, amplifier);
 //! - [`engine`]: the streaming pipeline that runs a scenario on a uniform analog grid, in blocks;
 //! - [`measure`]: spectra, dynamic metrics, sine fits, latency, static tests;
@@ -25,6 +27,7 @@ pub mod measure;
 pub mod report;
 pub mod runner;
 pub mod scenario;
+pub mod signal;
 pub mod stages;
 pub mod study;
 

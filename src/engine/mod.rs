@@ -5,6 +5,3 @@ pub mod pipeline;
 pub mod plan;
 pub mod probe;
 pub mod static_bench;
-pub mod stream;
-
-pub use stream::{AnalogRecord, CodeEvent, CodeRecord, Timebase};

@@ -3,9 +3,9 @@
 
 use crate::engine::decimate::PASSBAND_FRACTION;
 use crate::engine::pipeline::si;
-use crate::engine::stream::Timebase;
 use crate::error::{Error, Result};
 use crate::scenario::{Scenario, Waveform};
+use crate::signal::stream::Timebase;
 use crate::stages::kind::Role;
 
 /// Grid samples per block.

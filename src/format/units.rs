@@ -4,6 +4,10 @@
 //! optional SI prefix (`p n u µ m k M G`) and an optional unit. Units are case-sensitive: `"1 ms"` is a
 //! millisecond, `"1 Ms"` a megasecond, `"1 mHz"` a millihertz. A unit that is given must match the
 //! dimension the key expects.
+//!
+//! Values are written back with SI prefixes by the crate's one SI formatter, [`format_si_as`], in the style of
+//! messages ([`format_si`], parses back), tables ([`format_si_table`]) or plot labels
+//! (`report::plot::format_si`).
 
 /// The dimension a key expects; decides which units are accepted and what a bare number means.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -344,30 +348,119 @@ pub fn si_prefix_exponent(value: f64) -> i32 {
     si_prefix(value, "").0.log10().round() as i32
 }
 
-/// Format a value with an SI prefix and 4 significant digits, e.g. `format_si(83_333.3, "Hz")` = `"83.33 kHz"`.
-/// Micro is written `u`, so the text parses back.
-pub fn format_si(value: f64, unit: &str) -> String {
-    if !value.is_finite() {
-        return format!("{value} {unit}");
-    }
-    let (factor, prefix) = si_prefix(value, "u");
-    let scaled = value / factor;
-    // Keep about 4 significant digits, drop trailing zeros.
-    let int_digits = scaled.abs().max(1.0).log10().floor() as usize + 1;
-    let decimals = 4usize.saturating_sub(int_digits);
-    let mut s = format!("{:.*}", decimals, scaled);
-    if s.contains('.') {
-        s = s.trim_end_matches('0').trim_end_matches('.').to_string();
-    }
-    format!("{s} {prefix}{unit}")
+/// An SI prefix: its symbol and its power of ten (chosen by [`si_prefix`]).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct SiPrefix {
+    /// "µ", "m", "", "k", ...
+    pub symbol: &'static str,
+    /// Power of ten of the prefix (-6 for µ).
+    pub exponent: i32,
 }
 
-/// Format a value for tables: SI prefix (micro as `µ`) and up to 4 decimals, e.g. `"67.2309 µs"`.
+impl SiPrefix {
+    /// No prefix.
+    pub const NONE: SiPrefix = SiPrefix {
+        symbol: "",
+        exponent: 0,
+    };
+
+    /// Multiply a value in the base unit by this to express it with the prefix (1e3 for "m").
+    pub fn scale(self) -> f64 {
+        10f64.powi(-self.exponent)
+    }
+}
+
+/// The prefix whose range holds `magnitude` (1 <= magnitude / 10^exponent < 1000), from p to G as
+/// [`si_prefix`] picks it (micro written µ); no prefix for zero or non-finite input.
+pub fn si_prefix_for_value(magnitude: f64) -> SiPrefix {
+    // A nudge of 1e-9 decades keeps exact powers of ten that rounding left just below themselves (a span
+    // of 1e-3 computed as 0.000999...) in their own decade.
+    let m = magnitude.abs() * 10f64.powf(1e-9);
+    SiPrefix {
+        symbol: si_prefix(m, "µ").1,
+        exponent: si_prefix_exponent(m),
+    }
+}
+
+/// The prefix for an axis spanning `span` base units: the span then reads between 1 and 1000
+/// (2 ms span -> "m", 500 µs span -> "µ", 20 kHz span -> "k").
+pub fn si_prefix_for_span(span: f64) -> SiPrefix {
+    si_prefix_for_value(span)
+}
+
+/// Whether a unit takes SI prefixes (s, Hz, V, A, W, F, H, Ω, V/s, ...) or not (dB, dBFS, LSB, %, none).
+pub fn unit_takes_prefix(unit: &str) -> bool {
+    let base = unit.split('/').next().unwrap_or("");
+    matches!(
+        base,
+        "s" | "Hz" | "V" | "A" | "W" | "F" | "H" | "Ω" | "ohm" | "S" | "C" | "J" | "m" | "g"
+    )
+}
+
+/// How [`format_si_as`] writes a value.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum SiStyle {
+    /// About 4 significant digits, trailing zeros dropped, micro written `u` so the text parses back
+    /// (messages): `"83.33 kHz"`, `"12 us"`.
+    Parseable,
+    /// Up to 4 decimals, trailing zeros dropped, micro written `µ` (tables): `"67.2309 µs"`.
+    Table,
+    /// Exactly this many significant digits (at least 1), micro written `µ`; units that take no prefix
+    /// (dB, LSB, %) are written unprefixed (plot labels): `"12.3 µs"`, `"72.1 dB"`.
+    Significant(usize),
+}
+
+/// The crate's one SI formatter: `value` in base units with an SI prefix on `unit`, written in `style`.
+pub fn format_si_as(value: f64, unit: &str, style: SiStyle) -> String {
+    match style {
+        SiStyle::Parseable => {
+            if !value.is_finite() {
+                return format!("{value} {unit}");
+            }
+            let (factor, prefix) = si_prefix(value, "u");
+            let scaled = value / factor;
+            // Keep about 4 significant digits, drop trailing zeros.
+            let int_digits = scaled.abs().max(1.0).log10().floor() as usize + 1;
+            let decimals = 4usize.saturating_sub(int_digits);
+            let mut s = format!("{:.*}", decimals, scaled);
+            if s.contains('.') {
+                s = s.trim_end_matches('0').trim_end_matches('.').to_string();
+            }
+            format!("{s} {prefix}{unit}")
+        }
+        SiStyle::Table => {
+            let (factor, prefix) = si_prefix(value, "µ");
+            let s = format!("{:.4}", value / factor);
+            let s = s.trim_end_matches('0').trim_end_matches('.');
+            format!("{s} {prefix}{unit}")
+        }
+        SiStyle::Significant(significant) => {
+            let prefix = if unit_takes_prefix(unit) {
+                si_prefix_for_value(value)
+            } else {
+                SiPrefix::NONE
+            };
+            let scaled = value * prefix.scale();
+            let digits = significant.max(1) as i32;
+            let decimals = if scaled == 0.0 || !scaled.is_finite() {
+                0
+            } else {
+                (digits - 1 - (scaled.abs().log10() + 1e-9).floor() as i32).max(0) as usize
+            };
+            let sep = if unit.is_empty() { "" } else { " " };
+            format!("{scaled:.decimals$}{sep}{}{unit}", prefix.symbol)
+        }
+    }
+}
+
+/// [`format_si_as`] in [`SiStyle::Parseable`]: e.g. `format_si(83_333.3, "Hz")` = `"83.33 kHz"`.
+pub fn format_si(value: f64, unit: &str) -> String {
+    format_si_as(value, unit, SiStyle::Parseable)
+}
+
+/// [`format_si_as`] in [`SiStyle::Table`]: e.g. `"67.2309 µs"`.
 pub fn format_si_table(value: f64, unit: &str) -> String {
-    let (factor, prefix) = si_prefix(value, "µ");
-    let s = format!("{:.4}", value / factor);
-    let s = s.trim_end_matches('0').trim_end_matches('.');
-    format!("{s} {prefix}{unit}")
+    format_si_as(value, unit, SiStyle::Table)
 }
 
 #[cfg(test)]
@@ -460,6 +553,64 @@ mod tests {
         assert_eq!(format_si(12e-6, "s"), "12 us");
         assert_eq!(format_si(0.0, "V"), "0 V");
         assert_eq!(format_si(-2.5, "V"), "-2.5 V");
+    }
+
+    #[test]
+    fn si_prefix_follows_the_axis_span() {
+        // Prefix powers are those of the SI (BIPM SI Brochure, 9th ed., table of SI prefixes; from memory);
+        // choosing the prefix so the span reads 1..1000 is common practice, no source.
+        assert_eq!(si_prefix_for_span(2e-3).symbol, "m");
+        assert_eq!(si_prefix_for_span(1e-3).symbol, "m");
+        assert_eq!(si_prefix_for_span(999e-6).symbol, "µ");
+        assert_eq!(si_prefix_for_span(500e-6).symbol, "µ");
+        assert_eq!(si_prefix_for_span(20e3).symbol, "k");
+        assert_eq!(si_prefix_for_span(0.2).symbol, "m");
+        assert_eq!(si_prefix_for_span(3.3).symbol, "");
+        assert_eq!(si_prefix_for_span(2.5e6).symbol, "M");
+        assert_eq!(si_prefix_for_span(40e-9).symbol, "n");
+        assert_eq!(si_prefix_for_span(0.0), SiPrefix::NONE);
+        assert_eq!(si_prefix_for_span(f64::NAN), SiPrefix::NONE);
+    }
+
+    #[test]
+    fn plot_prefixes_are_those_of_si_prefix() {
+        // Away from the decade edges the prefix for plots is exactly si_prefix's, from p to G.
+        for e in -13..11 {
+            for m in [1.5, 4.0, 30.0, 700.0] {
+                let v = m * 10f64.powi(e);
+                let p = si_prefix_for_value(v);
+                let (factor, symbol) = si_prefix(v, "µ");
+                assert_eq!(p.symbol, symbol, "{v}");
+                assert_eq!(10f64.powi(p.exponent), factor, "{v}");
+            }
+        }
+        // Out of range: clamped to p and G.
+        assert_eq!(si_prefix_for_value(3e-15).symbol, "p");
+        assert_eq!(si_prefix_for_value(3e13).symbol, "G");
+        // A span that rounding left just below a power of ten keeps that decade's prefix.
+        let one = 1.0 - f64::EPSILON / 2.0;
+        assert_eq!(si_prefix_for_span(one), SiPrefix::NONE);
+    }
+
+    #[test]
+    fn values_are_written_with_prefix_and_significant_digits() {
+        assert_eq!(
+            format_si_as(12.34e-6, "s", SiStyle::Significant(3)),
+            "12.3 µs"
+        );
+        assert_eq!(
+            format_si_as(1e3, "Hz", SiStyle::Significant(4)),
+            "1.000 kHz"
+        );
+        assert_eq!(
+            format_si_as(-2.5e-3, "V", SiStyle::Significant(2)),
+            "-2.5 mV"
+        );
+        assert_eq!(
+            format_si_as(72.14, "dB", SiStyle::Significant(3)),
+            "72.1 dB"
+        );
+        assert_eq!(format_si_as(0.0, "s", SiStyle::Significant(3)), "0 s");
     }
 
     #[test]

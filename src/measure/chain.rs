@@ -3,13 +3,13 @@
 
 use serde::Serialize;
 
-use crate::engine::stream::CodeRecord;
 use crate::error::Result;
 use crate::measure::latency::{self, BudgetLine};
 use crate::measure::metrics::{self, MetricsConfig, ToneMetrics};
 use crate::measure::spectrum::{Spectrum, SpectrumAnalyzer};
 use crate::measure::{fidelity, sinefit};
 use crate::scenario::{Analysis, Waveform};
+use crate::signal::stream::CodeRecord;
 use crate::stages::source::SourceGen;
 
 /// A finished run as the meters read it: the records, the figures of the run's plan, and what the chain's

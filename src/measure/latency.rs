@@ -8,9 +8,9 @@ use std::f64::consts::{PI, TAU};
 use super::spectrum::{plan_forward, plan_inverse};
 use num_complex::Complex64;
 
-use super::rotation::Quad;
 use super::sinefit::{fit_multitone, fit3};
 use crate::scenario::{ChirpLaw, Waveform};
+use crate::signal::rotation::Quad;
 use crate::stages::source::chirp_cycles;
 
 pub use crate::stages::roles::BudgetLine;

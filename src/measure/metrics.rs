@@ -1,5 +1,5 @@
 //! Dynamic metrics of a single-tone record from its power spectrum: SNR, SINAD, THD, SFDR, ENOB and the noise
-//! floor (IEEE Std 1241 definitions; the field notes in FIELD.md summarise them).
+//! floor (IEEE Std 1241 definitions).
 //!
 //! How the spectrum is read (L = the window's main-lobe half-width, ENBW its equivalent noise bandwidth):
 //! - Bin powers are summed, never amplitudes. A tone's power is the sum of the bins of its lobe (peak bin +- L)
@@ -532,7 +532,7 @@ mod tests {
 
     #[test]
     fn enob_adds_the_full_scale_correction_below_full_scale() {
-        // ENOB = (SINAD - 1.76 + 20 log10(A_fs/A)) / 6.02 (FIELD.md; IEEE Std 1241 ENOB is referred to full
+        // ENOB = (SINAD - 1.76 + 20 log10(A_fs/A)) / 6.02 (IEEE Std 1241: ENOB is referred to full
         // scale). A 12-bit quantizer driven at half scale loses 6.02 dB of SINAD but keeps its ENOB near 12:
         // Bennett's q^2/12 does not depend on the amplitude (W. R. Bennett, BSTJ 1948).
         let n = 1 << 15;
@@ -656,7 +656,7 @@ mod tests {
 
     #[test]
     fn quarter_rate_tone_flags_harmonics_on_dc_and_on_the_fundamental() {
-        // Folding |((k f + fs/2) mod fs) - fs/2| (FIELD.md; IEEE Std 1241): at f = fs/4 the 2nd harmonic lands on
+        // Folding |((k f + fs/2) mod fs) - fs/2| (IEEE Std 1241): at f = fs/4 the 2nd harmonic lands on
         // fs/2, the 3rd and 5th on the fundamental, the 4th on DC and the 6th on the 2nd's place.
         // Oracles: mean squares of the sampled components, computed directly.
         let n = 4096;
@@ -814,7 +814,8 @@ mod tests {
 
     #[test]
     fn fold_frequency_matches_the_definition() {
-        // |((f + fs/2) mod fs) - fs/2| (FIELD.md), checked on hand-worked values.
+        // |((f + fs/2) mod fs) - fs/2| (aliasing of a sampled tone, common practice, no source), checked on
+        // hand-worked values.
         assert!((fold_frequency_hz(0.3, 1.0) - 0.3).abs() < 1e-15);
         assert!((fold_frequency_hz(0.6, 1.0) - 0.4).abs() < 1e-15);
         assert!((fold_frequency_hz(0.9, 1.0) - 0.1).abs() < 1e-15);

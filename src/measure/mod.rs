@@ -6,7 +6,6 @@ pub mod coherent;
 pub mod fidelity;
 pub mod latency;
 pub mod metrics;
-pub(crate) mod rotation;
 pub mod sinefit;
 pub mod spectrum;
 pub mod static_test;

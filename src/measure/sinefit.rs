@@ -13,7 +13,7 @@
 
 use std::f64::consts::TAU;
 
-use super::rotation::Quad;
+use crate::signal::rotation::Quad;
 
 /// Samples between exact recomputations of the rotation recurrence (bounds its rounding drift to ~1e-13).
 const RESET_EVERY: usize = 1024;

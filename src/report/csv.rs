@@ -4,9 +4,9 @@ use std::fs::File;
 use std::io::{BufWriter, Write};
 use std::path::PathBuf;
 
-use crate::engine::Timebase;
 use crate::engine::pipeline::WaveformSink;
 use crate::error::{Error, Result};
+use crate::signal::stream::Timebase;
 
 /// Default cap on rows.
 pub const MAX_ROWS: u64 = 1_000_000;

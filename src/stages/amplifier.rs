@@ -8,7 +8,7 @@ use num_complex::Complex64;
 
 use serde::Serialize;
 
-use crate::engine::stream::Timebase;
+use crate::signal::stream::Timebase;
 use crate::error::{Error, Result};
 use crate::format::reader::{ScenarioError, TableReader};
 use crate::format::units::Dimension;

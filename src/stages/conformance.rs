@@ -16,9 +16,9 @@ use rand::{RngExt, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 
 use crate::engine::pipeline::{build_context, run_lean};
-use crate::engine::stream::{CodeEvent, Timebase};
 use crate::measure::chain::measure_run;
 use crate::scenario::overrides::{Edit, ScenarioText};
+use crate::signal::stream::{CodeEvent, Timebase};
 use crate::stages::kind::{KeyEdit, Role, Runtime, Upstream};
 use crate::stages::registry::{KIND_EXAMPLES, KIND_PARAMS};
 

@@ -12,7 +12,7 @@ use rand_distr::{Distribution, StandardNormal};
 
 use serde::Serialize;
 
-use crate::engine::stream::{CodeEvent, Timebase};
+use crate::signal::stream::{CodeEvent, Timebase};
 use crate::error::Result;
 use crate::format::reader::{ScenarioError, TableReader};
 use crate::format::units::Dimension;

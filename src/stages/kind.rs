@@ -10,10 +10,10 @@
 use rand_chacha::ChaCha8Rng;
 use serde::Serialize;
 
-use crate::engine::stream::Timebase;
 use crate::error::Result;
 use crate::format::reader::{ScenarioError, TableReader};
 use crate::format::units::Dimension;
+use crate::signal::stream::Timebase;
 use crate::stages::AnalogStage;
 use crate::stages::roles::{CodeStage, Hold, Quantizer, Reconstructor};
 

@@ -16,7 +16,7 @@ use rand_chacha::ChaCha8Rng;
 
 use serde::Serialize;
 
-use crate::engine::stream::CodeEvent;
+use crate::signal::stream::CodeEvent;
 use crate::error::Result;
 use crate::format::reader::{ScenarioError, TableReader};
 use crate::format::units::Dimension;

@@ -84,7 +84,6 @@ pub trait Probe {
 
 #[cfg(test)]
 pub mod conformance;
-pub mod filter;
 pub mod kind;
 #[macro_use]
 pub mod registry;
@@ -100,7 +99,7 @@ registry::stage_kinds! {
     sar_adc => SarAdc(SarAdcCfg),
     link => Link(LinkCfg),
     dac => Dac(DacCfg),
-    filter_kind => Filter(FilterCfg),
+    filter => Filter(FilterCfg),
     amplifier => Amplifier(AmplifierCfg),
     clip => Clip(ClipCfg),
 }

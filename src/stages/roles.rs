@@ -3,7 +3,7 @@
 
 use serde::Serialize;
 
-use crate::engine::stream::{CodeEvent, Timebase};
+use crate::signal::stream::{CodeEvent, Timebase};
 use crate::stages::Probe;
 
 /// One line of the latency budget: a stage (or a part of one) and the delay it contributes.

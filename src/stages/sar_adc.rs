@@ -20,7 +20,7 @@ use rand_distr::{Distribution, StandardNormal};
 
 use serde::Serialize;
 
-use crate::engine::stream::CodeEvent;
+use crate::signal::stream::CodeEvent;
 use crate::error::Result;
 use crate::format::reader::{ScenarioError, TableReader};
 use crate::format::units::{Dimension, format_si};

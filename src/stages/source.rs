@@ -23,9 +23,9 @@ use rubato::{
     Async, Fft, FixedAsync, FixedSync, Resampler, SincInterpolationParameters, WindowFunction,
 };
 
-use crate::engine::stream::Timebase;
-use crate::measure::rotation::Quad;
-use crate::scenario::{ChirpLaw, Source, Waveform};
+use crate::signal::rotation::Quad;
+use crate::signal::stream::Timebase;
+use crate::signal::waveform::{ChirpLaw, Source, Waveform};
 
 /// Order of the Butterworth low-pass that band-limits noise (three biquads).
 const NOISE_FILTER_ORDER: usize = 6;

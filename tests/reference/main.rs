@@ -57,8 +57,9 @@ harmonics = 9
 fn ideal_converter_snr_follows_bennett_for_4_to_16_bits() {
     // W. R. Bennett, "Spectra of quantized signals", BSTJ 27 (1948): SNR = 6.02 N + 1.76 dB for a full-scale sine.
     // The sine here peaks at 0.999 of full scale, so 20 log10(0.999) = -0.009 dB is allowed for. At 4 and 5 bits a
-    // mid-rise quantizer of a full-scale sine sits about 0.25 dB under the formula (the error is not yet white;
-    // see FIELD.md), so those get 0.35 dB; from 6 bits on, 0.2 dB.
+    // mid-rise quantizer of a full-scale sine sits about 0.25 dB under the formula (the error is not yet white, so
+    // Bennett's white-noise model is only approximate; measured here, no source), so those get 0.35 dB; from 6 bits
+    // on, 0.2 dB.
     for bits in 4..=16u32 {
         let (_, m) = run(&chain(bits, 100e3, 1.37e3, 0.999, "", 40e-3));
         let a = m.adc.expect("adc metrics");

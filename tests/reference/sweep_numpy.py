@@ -55,7 +55,7 @@ Usage:  python3 tests/reference/sweep_numpy.py [F_HZ]          every metric at o
         SWEEP_TOL=0 python3 tests/reference/sweep_numpy.py --check SWEEP.CSV 0,109,199
                                                  numpy vs convchain for rows of a convchain sweep.csv
 
-Agreement with convchain (main at eb40c64, /work/main/target/release/convchain), ideal ladder (SWEEP_TOL=0
+Agreement with convchain (main at eb40c64, target/release/convchain), ideal ladder (SWEEP_TOL=0
 here, tolerance = "0%" in a copy of the 20 ms scenario), `--check` on rows 0, 109, 199 of the 200-point sweep
 (945.49 Hz, 5061.18 Hz, 19076.75 Hz; numpy - convchain):
   ADC SNR, SINAD, THD, SFDR, noise floor: < 2e-11 dB; ADC ENOB, sine-fit ENOB: < 1e-11 bit;

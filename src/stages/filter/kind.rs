@@ -1,12 +1,12 @@
 //! The `filter` stage kind: its configuration, how its table is read, and what it says about itself. The
-//! runtime model (design and realisation on the grid) is [`crate::stages::filter::Filter`].
+//! runtime model (design and realisation on the grid) is [`super::Filter`].
 
 use serde::Serialize;
 
 use crate::error::{Error, Result};
 use crate::format::reader::{ScenarioError, TableReader};
 use crate::format::units::{Dimension, format_si};
-use crate::stages::filter::Filter;
+use super::Filter;
 use crate::stages::kind::{
     Ablation, BuildContext, KeyEdit, KindSpec, Param, ParamKind, Rates, ReadContext, Role, Runtime,
 };

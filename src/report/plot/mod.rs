@@ -1,0 +1,306 @@
+//! Pictures of a run for an engineer: waveforms, spectra, static transfer with DNL/INL, latency budget and
+//! generic x-y sweeps, rendered to SVG (text, for inline HTML) or PNG (encoded bytes; the caller writes files).
+//!
+//! Style: white background, one colour-blind-safe palette (the Okabe-Ito colours), a thin grid and axes
+//! labelled with SI prefixes chosen from the axis span ("time (ms)", "frequency (kHz)", "voltage (mV)").
+//! Text is drawn with a font compiled into the binary (Noto Sans), so no system font library is used.
+//!
+//! Axes, ticks and annotations are drawn here directly on a plotters backend, so that the SVG contains
+//! exactly one `<polyline>` per line series (data traces, staircases) and nothing else as a polyline:
+//! grid lines, arrows and legend keys are `<line>`, bars are filled `<rect>`, markers `<circle>`/`<polygon>`.
+//!
+//! Long traces are reduced for drawing per pixel column (minimum and maximum for waveforms, maximum for
+//! spectra), so no spike is lost and a trace of a million points draws in a few milliseconds.
+//!
+//! Files: this one holds the public data types, the SI labels and `render`; `painter.rs` the palette, font
+//! and drawing primitives; `axis.rs` axes, ticks and the frame; `reduce.rs` the per-column reduction; one file
+//! per figure (`waveform.rs`, `spectrum.rs`, `static_transfer.rs`, `budget.rs`, `xy.rs`).
+
+mod axis;
+mod budget;
+mod painter;
+mod reduce;
+mod spectrum;
+mod static_transfer;
+#[cfg(test)]
+mod tests;
+mod waveform;
+mod xy;
+
+use plotters::backend::{BitMapBackend, DrawingBackend, SVGBackend};
+
+use crate::Error;
+use crate::format::units::{self, SiPrefix, SiStyle, si_prefix_for_span, unit_takes_prefix};
+
+use budget::draw_budget;
+use painter::{Painter, draw_err, ensure_font};
+use spectrum::draw_spectrum;
+use static_transfer::draw_static;
+use waveform::draw_waveform;
+use xy::draw_xy;
+
+// ---------------------------------------------------------------------------------------------------------
+// Public data types
+// ---------------------------------------------------------------------------------------------------------
+
+/// Output format of a rendered plot.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum PlotFormat {
+    /// Encoded PNG bytes.
+    Png,
+    /// SVG document text (UTF-8).
+    Svg,
+}
+
+impl PlotFormat {
+    /// File name extension without the dot ("png", "svg").
+    pub fn extension(self) -> &'static str {
+        match self {
+            PlotFormat::Png => "png",
+            PlotFormat::Svg => "svg",
+        }
+    }
+}
+
+/// Input against output over a time window.
+#[derive(Debug, Clone)]
+pub struct WaveformPlot<'a> {
+    /// Title drawn above the plot.
+    pub title: String,
+    /// Time of the first sample of every trace, s.
+    pub t0_s: f64,
+    /// Spacing of the uniform grid shared by all traces, s (> 0).
+    pub dt_s: f64,
+    /// Named traces in volts on the grid: first = input (source), last = output, others = intermediate
+    /// stages (drawn thin).
+    pub traces: Vec<(&'a str, &'a [f64])>,
+    /// ADC sampling instants inside the window, s (drawn as small circles on the input trace).
+    pub sample_instants_s: &'a [f64],
+    /// The value each sample was converted to (volts of the code), drawn as crosses; same length as
+    /// `sample_instants_s`.
+    pub sample_values_v: &'a [f64],
+    /// DAC zero-order-hold levels: (update instants in s, levels in V), drawn as a step line.
+    pub staircase: Option<(&'a [f64], &'a [f64])>,
+    /// Measured input-to-output delay, s: shown as a note and as an arrow between a rising crossing of the
+    /// input and the same level one delay later.
+    pub measured_delay_s: Option<f64>,
+    /// Time window shown, s (start < end).
+    pub window_s: (f64, f64),
+}
+
+/// Spectrum in dBFS.
+#[derive(Debug, Clone)]
+pub struct SpectrumPlot<'a> {
+    /// Title drawn above the plot.
+    pub title: String,
+    /// Bin spacing, Hz (> 0); bin k is at k * bin_hz.
+    pub bin_hz: f64,
+    /// Level of each bin, dBFS (non-finite values are drawn at the bottom of the axis).
+    pub level_dbfs: &'a [f64],
+    /// Fundamental frequency to mark, Hz.
+    pub fundamental_hz: Option<f64>,
+    /// Harmonics to mark: (order, where it lands in Hz, folded?). Folded ones are labelled "3f (folded)".
+    pub harmonics: Vec<(u32, f64, bool)>,
+    /// Zero-order-hold images to mark, Hz.
+    pub images_hz: Vec<f64>,
+    /// Upper edge of the analysis band, Hz (shaded).
+    pub band_hz: Option<f64>,
+    /// Headline metrics written in a box ("SINAD 72.1 dB", ...).
+    pub notes: Vec<String>,
+    /// Logarithmic frequency axis (bin 0 is then not drawn).
+    pub log_frequency: bool,
+}
+
+/// Static transfer with DNL and INL panels (empty slices leave their panel out).
+#[derive(Debug, Clone)]
+pub struct StaticPlot<'a> {
+    /// Title drawn above the panels.
+    pub title: String,
+    /// Level or transition voltage per code, V.
+    pub transfer_v: &'a [f64],
+    /// Differential non-linearity per code, LSB.
+    pub dnl_lsb: &'a [f64],
+    /// Integral non-linearity per code, LSB.
+    pub inl_lsb: &'a [f64],
+}
+
+/// Latency budget: one horizontal bar per stage (laid end to end), plus the budget total and the measured
+/// total as two further bars.
+#[derive(Debug, Clone)]
+pub struct BudgetPlot<'a> {
+    /// Title drawn above the plot.
+    pub title: String,
+    /// (stage name, latency in s) in chain order.
+    pub lines: &'a [(String, f64)],
+    /// Measured end-to-end latency, s.
+    pub measured_s: f64,
+}
+
+/// A generic x-y chart (sweeps): several named series.
+#[derive(Debug, Clone)]
+pub struct XyPlot<'a> {
+    /// Title drawn above the plot.
+    pub title: String,
+    /// X axis label; a trailing unit in parentheses, e.g. "input frequency (Hz)", gets an SI prefix.
+    pub x_label: String,
+    /// Y axis label, same convention as `x_label`.
+    pub y_label: String,
+    /// (name, x values, y values); x and y of a series have the same length.
+    pub series: Vec<(&'a str, &'a [f64], &'a [f64])>,
+    /// Logarithmic x axis (points with x <= 0 are skipped).
+    pub log_x: bool,
+    /// Vertical lines with labels, at x values in the x unit.
+    pub markers: Vec<(f64, String)>,
+}
+
+/// One plot of any kind.
+#[derive(Debug, Clone)]
+pub enum Plot<'a> {
+    /// Input against output over a time window.
+    Waveform(WaveformPlot<'a>),
+    /// Spectrum in dBFS.
+    Spectrum(SpectrumPlot<'a>),
+    /// Static transfer with DNL and INL.
+    Static(StaticPlot<'a>),
+    /// Latency budget bars.
+    Budget(BudgetPlot<'a>),
+    /// Generic x-y chart.
+    Xy(XyPlot<'a>),
+}
+
+/// What was drawn, so tests and callers can check a plot without looking at pixels.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct PlotSummary {
+    /// Data series drawn: one per line (each is one `<polyline>` in SVG), or one per bar in a budget plot
+    /// (each is one filled `<rect>` in a palette colour).
+    pub series: usize,
+    /// Point markers and annotation marks drawn (sample circles and crosses, spectral marks, delay arrow,
+    /// vertical marker lines).
+    pub markers: usize,
+    /// Texts drawn apart from numeric tick labels and bar values: title, axis titles, legend names,
+    /// budget row names, notes and annotations.
+    pub labels: Vec<String>,
+}
+
+/// Size of an SVG rendering, pixels.
+pub const SVG_SIZE: (u32, u32) = (1000, 620);
+
+/// Render a plot as an SVG document of [`SVG_SIZE`].
+pub fn render_svg(plot: &Plot) -> Result<(String, PlotSummary), Error> {
+    ensure_font()?;
+    let mut text = String::new();
+    let summary = {
+        let mut backend = SVGBackend::with_string(&mut text, SVG_SIZE);
+        let summary = draw_plot(&mut backend, plot, false)?;
+        backend.present().map_err(draw_err)?;
+        summary
+    };
+    Ok((text, summary))
+}
+
+/// Render a plot as encoded PNG bytes of `width` x `height` pixels (each at least 200 x 150).
+pub fn render_png(plot: &Plot, width: u32, height: u32) -> Result<(Vec<u8>, PlotSummary), Error> {
+    if !(200..=16384).contains(&width) || !(150..=16384).contains(&height) {
+        return Err(Error::BadInput(format!(
+            "plot size {width} x {height} pixels is out of range: give between 200 x 150 and 16384 x 16384"
+        )));
+    }
+    ensure_font()?;
+    let mut rgb = vec![255u8; width as usize * height as usize * 3];
+    let summary = {
+        let mut backend = BitMapBackend::with_buffer(&mut rgb, (width, height));
+        let summary = draw_plot(&mut backend, plot, true)?;
+        backend.present().map_err(draw_err)?;
+        summary
+    };
+    let mut png_bytes = Vec::new();
+    {
+        let mut encoder = png::Encoder::new(&mut png_bytes, width, height);
+        encoder.set_color(png::ColorType::Rgb);
+        encoder.set_depth(png::BitDepth::Eight);
+        let mut writer = encoder
+            .write_header()
+            .map_err(|e| Error::Run(format!("plot: PNG encoding failed: {e}")))?;
+        writer
+            .write_image_data(&rgb)
+            .map_err(|e| Error::Run(format!("plot: PNG encoding failed: {e}")))?;
+        writer
+            .finish()
+            .map_err(|e| Error::Run(format!("plot: PNG encoding failed: {e}")))?;
+    }
+    Ok((png_bytes, summary))
+}
+
+/// Render in the given format: PNG bytes of `width` x `height`, or SVG text bytes (of [`SVG_SIZE`]; the
+/// size arguments are then unused).
+pub fn render(
+    plot: &Plot,
+    format: PlotFormat,
+    width: u32,
+    height: u32,
+) -> Result<(Vec<u8>, PlotSummary), Error> {
+    match format {
+        PlotFormat::Png => render_png(plot, width, height),
+        PlotFormat::Svg => render_svg(plot).map(|(s, m)| (s.into_bytes(), m)),
+    }
+}
+
+// ---------------------------------------------------------------------------------------------------------
+// SI labels (the formatter itself is format::units::format_si_as)
+// ---------------------------------------------------------------------------------------------------------
+
+/// Axis title with the prefix chosen from the axis span: `axis_title("time", "s", 2e-3)` gives
+/// ("time (ms)", milli). Units that take no prefix are written as given; an empty unit gives the bare
+/// quantity.
+pub fn axis_title(quantity: &str, unit: &str, span: f64) -> (String, SiPrefix) {
+    if unit.is_empty() {
+        return (quantity.to_string(), SiPrefix::NONE);
+    }
+    if !unit_takes_prefix(unit) {
+        return (format!("{quantity} ({unit})"), SiPrefix::NONE);
+    }
+    let prefix = si_prefix_for_span(span);
+    (format!("{quantity} ({}{unit})", prefix.symbol), prefix)
+}
+
+/// A value with a prefixed unit and `significant` significant digits: `format_si(12.34e-6, "s", 3)` gives
+/// "12.3 µs". Units that take no prefix are written as given. The plots' style of the one SI formatter
+/// ([`units::format_si_as`] with [`SiStyle::Significant`]).
+pub fn format_si(value: f64, unit: &str, significant: usize) -> String {
+    units::format_si_as(value, unit, SiStyle::Significant(significant))
+}
+
+/// Split "input frequency (Hz)" into ("input frequency", "Hz"); no trailing parentheses gives no unit.
+pub(super) fn split_label_unit(label: &str) -> (&str, &str) {
+    let trimmed = label.trim_end();
+    if trimmed.ends_with(')')
+        && let Some(open) = trimmed.rfind('(')
+    {
+        return (
+            trimmed[..open].trim_end(),
+            &trimmed[open + 1..trimmed.len() - 1],
+        );
+    }
+    (trimmed, "")
+}
+
+// ---------------------------------------------------------------------------------------------------------
+// Dispatch
+// ---------------------------------------------------------------------------------------------------------
+
+fn draw_plot<DB: DrawingBackend>(
+    db: &mut DB,
+    plot: &Plot,
+    raster_text: bool,
+) -> Result<PlotSummary, Error> {
+    let mut p = Painter::new(db, raster_text);
+    p.background()?;
+    match plot {
+        Plot::Waveform(w) => draw_waveform(&mut p, w)?,
+        Plot::Spectrum(s) => draw_spectrum(&mut p, s)?,
+        Plot::Static(s) => draw_static(&mut p, s)?,
+        Plot::Budget(b) => draw_budget(&mut p, b)?,
+        Plot::Xy(x) => draw_xy(&mut p, x)?,
+    }
+    Ok(p.summary)
+}
