@@ -8,6 +8,7 @@ use toml::{Table, Value};
 
 use crate::error::{Error, Result};
 use crate::scenario::{Scenario, parse_str};
+use crate::stages::kind::KeyEdit;
 
 pub use crate::scenario::keys::is_integer_key;
 
@@ -24,6 +25,19 @@ pub enum Edit {
     Remove(String),
     /// Remove a whole `[[stage]]` by its number from 1.
     RemoveStage(usize),
+}
+
+impl Edit {
+    /// A stage kind's own edit ([`KeyEdit`], relative to its table) made a path edit of stage `n` (from 1).
+    pub fn of_stage(n: usize, e: &KeyEdit) -> Edit {
+        let key = |k: &str| format!("stage.{n}.{k}");
+        match e {
+            KeyEdit::Set(k, v) => Edit::Set(key(k), *v),
+            KeyEdit::SetStr(k, v) => Edit::SetStr(key(k), v.to_string()),
+            KeyEdit::Remove(k) => Edit::Remove(key(k)),
+            KeyEdit::RemoveStage => Edit::RemoveStage(n),
+        }
+    }
 }
 
 impl std::fmt::Display for Edit {

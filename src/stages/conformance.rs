@@ -19,7 +19,7 @@ use crate::engine::pipeline::{build_context, run_lean};
 use crate::measure::chain::measure_run;
 use crate::scenario::overrides::{Edit, ScenarioText};
 use crate::signal::stream::{CodeEvent, Timebase};
-use crate::stages::kind::{KeyEdit, Role, Runtime, Upstream};
+use crate::stages::kind::{Role, Runtime, Upstream};
 use crate::stages::registry::{KIND_EXAMPLES, KIND_PARAMS};
 
 /// The README, whose table of stage kinds documents every parameter.
@@ -197,17 +197,7 @@ pub fn check(name: &str) {
 
     // Every ablation re-reads and runs.
     for ab in kind.ablations() {
-        let key = |k: &str| format!("stage.{index}.{k}");
-        let edits: Vec<Edit> = ab
-            .edits
-            .iter()
-            .map(|e| match e {
-                KeyEdit::Set(k, v) => Edit::Set(key(k), *v),
-                KeyEdit::SetStr(k, v) => Edit::SetStr(key(k), v.to_string()),
-                KeyEdit::Remove(k) => Edit::Remove(key(k)),
-                KeyEdit::RemoveStage => Edit::RemoveStage(index),
-            })
-            .collect();
+        let edits: Vec<Edit> = ab.edits.iter().map(|e| Edit::of_stage(index, e)).collect();
         let changed = st.with_edits(&edits).unwrap_or_else(|e| {
             panic!("{name}: ablation `{}` does not re-read: {e}", ab.mechanism)
         });

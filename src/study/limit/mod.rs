@@ -29,7 +29,7 @@ use crate::report::OutputDir;
 use crate::report::plot::{self, Plot, XyPlot};
 use crate::scenario::overrides::{Edit, ScenarioText};
 use crate::scenario::{Scenario, Waveform};
-use crate::stages::kind::{KeyEdit, Role};
+use crate::stages::kind::Role;
 use crate::study::sweep::{progress_bar, simulate, thread_pool};
 
 /// Settings of the limit finder.
@@ -189,18 +189,8 @@ pub fn candidates(sc: &Scenario) -> Vec<Candidate> {
     let mut out = Vec::new();
     for (i, st) in sc.stages.iter().enumerate() {
         let n = i + 1;
-        let key = |k: &str| format!("stage.{n}.{k}");
         for ab in st.kind.ablations() {
-            let edits = ab
-                .edits
-                .iter()
-                .map(|e| match e {
-                    KeyEdit::Set(k, v) => Edit::Set(key(k), *v),
-                    KeyEdit::SetStr(k, v) => Edit::SetStr(key(k), v.to_string()),
-                    KeyEdit::Remove(k) => Edit::Remove(key(k)),
-                    KeyEdit::RemoveStage => Edit::RemoveStage(n),
-                })
-                .collect();
+            let edits = ab.edits.iter().map(|e| Edit::of_stage(n, e)).collect();
             out.push(Candidate {
                 mechanism: ab.mechanism,
                 stage: st.label.clone(),
