@@ -26,6 +26,7 @@ pub mod runner;
 pub mod scenario;
 pub mod stages;
 pub mod study;
+pub mod text;
 
 pub use error::Error;
 pub use runner::{RunOptions, run_to_dir, static_to_dir};

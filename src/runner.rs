@@ -62,11 +62,8 @@ pub fn run_to_dir(sc: &Scenario, dir: &Path, opts: &RunOptions) -> Result<Report
 
 fn run_inner(sc: &Scenario, out: &OutputDir, opts: &RunOptions) -> Result<Report> {
     let (plan, _) = Plan::new(sc)?;
-    let mut csv = CsvSink::create(
-        out.temp_path("waveforms.csv"),
-        plan.n_total,
-        opts.full_waveforms,
-    )?;
+    let (file, tmp) = out.create_temp("waveforms.csv")?;
+    let mut csv = CsvSink::from_file(file, tmp, plan.n_total, opts.full_waveforms);
     let show = opts.progress && std::io::IsTerminal::is_terminal(&std::io::stderr());
     let bar = show.then(|| {
         let b = indicatif::ProgressBar::new(1000);
