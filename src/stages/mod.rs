@@ -88,6 +88,7 @@ pub mod sample_hold;
 pub mod sar_adc;
 pub mod slew;
 pub mod source;
+pub mod wav_file;
 
 /// A probe that evaluates a function of time, for the converter stages' unit tests.
 #[cfg(test)]

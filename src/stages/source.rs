@@ -568,19 +568,6 @@ struct WavStream {
     scratch: Vec<f64>,
 }
 
-fn wav_error(path: &Path, e: hound::Error) -> crate::Error {
-    match e {
-        hound::Error::IoError(source) => crate::Error::Read {
-            path: path.to_path_buf(),
-            source,
-        },
-        other => crate::Error::BadInput(format!(
-            "{}: not a readable WAV file ({other})",
-            path.display()
-        )),
-    }
-}
-
 impl GridStream for WavStream {
     fn next_n(&self) -> u64 {
         self.next_n
@@ -604,54 +591,15 @@ impl WavStream {
         repeat: bool,
         rate_hz: f64,
     ) -> Result<WavStream, crate::Error> {
-        let mut reader = hound::WavReader::open(path).map_err(|e| wav_error(path, e))?;
-        let spec = reader.spec();
-        let channels = spec.channels as usize;
-        if channel >= channels {
-            return Err(crate::Error::BadInput(format!(
-                "{}: channel {channel} requested but the file has {channels} channel(s) (channels count from 0)",
-                path.display()
-            )));
-        }
-        let mut data = Vec::with_capacity(reader.duration() as usize);
-        match (spec.sample_format, spec.bits_per_sample) {
-            (hound::SampleFormat::Float, 32) => {
-                for (i, s) in reader.samples::<f32>().enumerate() {
-                    let s = s.map_err(|e| wav_error(path, e))?;
-                    if i % channels == channel {
-                        data.push(s as f64);
-                    }
-                }
-            }
-            (hound::SampleFormat::Int, bits @ 1..=32) => {
-                let scale = 1.0 / f64::powi(2.0, bits as i32 - 1);
-                for (i, s) in reader.samples::<i32>().enumerate() {
-                    let s = s.map_err(|e| wav_error(path, e))?;
-                    if i % channels == channel {
-                        data.push(s as f64 * scale);
-                    }
-                }
-            }
-            (fmt, bits) => {
-                return Err(crate::Error::BadInput(format!(
-                    "{}: unsupported WAV sample format ({bits}-bit {fmt:?}); use 8/16/24/32-bit integer or 32-bit float",
-                    path.display()
-                )));
-            }
-        }
-        if data.is_empty() {
-            return Err(crate::Error::BadInput(format!(
-                "{}: the WAV file has no samples",
-                path.display()
-            )));
-        }
-        let file_rate = spec.sample_rate as f64;
+        let wav = super::wav_file::read_channel(path, channel)?;
+        let data = wav.data;
+        let file_rate = f64::from(wav.rate_hz);
         let end_n = if repeat {
             None
         } else {
             Some((data.len() as f64 * rate_hz / file_rate).ceil() as u64)
         };
-        let resampler = make_resampler(spec.sample_rate, rate_hz)
+        let resampler = make_resampler(wav.rate_hz, rate_hz)
             .map_err(|e| crate::Error::BadInput(format!("{}: {e}", path.display())))?;
         let (in_cap, out_cap, discard) = match &resampler {
             Some(r) => (
