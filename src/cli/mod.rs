@@ -234,14 +234,13 @@ fn run(args: Args) -> anyhow::Result<()> {
                 path: dir.clone(),
                 source: e,
             })?;
-            let tmp = path.with_extension("toml.tmp");
-            std::fs::write(&tmp, scenario::STARTER).map_err(|e| Error::Write {
-                path: tmp.clone(),
-                source: e,
-            })?;
-            std::fs::rename(&tmp, &path).map_err(|e| Error::Write {
-                path: path.clone(),
-                source: e,
+            convchain::report::outdir::write_new_file(&path, |tmp| {
+                let mut f = convchain::report::outdir::create_new_file(tmp)?;
+                f.write_all(scenario::STARTER.as_bytes())
+                    .map_err(|e| Error::Write {
+                        path: tmp.to_path_buf(),
+                        source: e,
+                    })
             })?;
             writeln!(stdout.lock(), "wrote {}", path.display())?;
         }
@@ -284,6 +283,7 @@ fn run(args: Args) -> anyhow::Result<()> {
                     listen_gain,
                 }),
             };
+            interrupt::install_stop_handler("run");
             let report = convchain::run_to_dir(&sc, &dir, &opts)?;
             let mut o = stdout.lock();
             if json {
@@ -327,18 +327,15 @@ fn run(args: Args) -> anyhow::Result<()> {
                 path: dir.clone(),
                 source: e,
             })?;
-            let tmp = dir.join(format!(".{name}.tmp"));
-            demo_audio::write_file(
-                &tmp,
-                &samples,
-                rate,
-                bits,
-                bits == 32,
-                if stereo { 2 } else { 1 },
-            )?;
-            std::fs::rename(&tmp, &path).map_err(|e| Error::Write {
-                path: path.clone(),
-                source: e,
+            convchain::report::outdir::write_new_file(&path, |tmp| {
+                demo_audio::write_file(
+                    tmp,
+                    &samples,
+                    rate,
+                    bits,
+                    bits == 32,
+                    if stereo { 2 } else { 1 },
+                )
             })?;
             writeln!(stdout.lock(), "wrote {}", path.display())?;
         }
@@ -352,6 +349,7 @@ fn run(args: Args) -> anyhow::Result<()> {
             print_warnings(&sc, quiet);
             let dir = out_dir(out, &sc);
             OutputDir::check(&dir)?;
+            interrupt::install_stop_handler("static");
             let report = convchain::static_to_dir(&sc, &dir)?;
             let mut o = stdout.lock();
             if json {

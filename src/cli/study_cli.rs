@@ -174,6 +174,7 @@ pub fn limit(a: LimitArgs) -> anyhow::Result<()> {
         progress: !a.quiet && !a.json,
         ..Default::default()
     };
+    interrupt::install_stop_handler("limit");
     let report = limit::find_limits(&text, &opts)?;
     limit::write_limit(&report, &dir)?;
     let mut o = std::io::stdout().lock();
