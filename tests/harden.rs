@@ -1,0 +1,453 @@
+//! Hardening: output folders shared by two processes or holding links, hostile WAV files, Ctrl-C for every
+//! command that writes a folder, and the option checks. Each test builds its failing input itself and runs the
+//! built binary like a user would.
+
+mod common;
+
+use std::fs;
+use std::path::{Path, PathBuf};
+use std::process::{Output, Stdio};
+use std::time::{Duration, Instant};
+
+use common::{bin, interrupt_after, ok, read, run, stderr};
+
+/// A chain that runs in about a second: long enough for a second process to start while the first writes.
+const SLOW_CHAIN: &str = r#"
+name = "slow-chain"
+[simulation]
+analog_rate = "10 MHz"
+duration = "200 ms"
+settle = "5 ms"
+seed = 3
+[source]
+waveform = "sine"
+frequency = "1 kHz"
+amplitude = "2 V"
+offset = "2.5 V"
+[[stage]]
+kind = "sar_adc"
+bits = 12
+range = ["0 V", "5 V"]
+sample_rate = "100 kHz"
+conversion_time = "8 us"
+[[stage]]
+kind = "dac"
+range = ["0 V", "5 V"]
+"#;
+
+/// A chain that runs in a few tens of milliseconds.
+const QUICK_CHAIN: &str = r#"
+name = "quick-chain"
+[simulation]
+analog_rate = "1 MHz"
+duration = "12 ms"
+settle = "2 ms"
+seed = 3
+[source]
+waveform = "sine"
+frequency = "1 kHz"
+amplitude = "2 V"
+offset = "2.5 V"
+[[stage]]
+kind = "sar_adc"
+bits = 10
+range = ["0 V", "5 V"]
+sample_rate = "50 kHz"
+conversion_time = "12 us"
+[[stage]]
+kind = "dac"
+range = ["0 V", "5 V"]
+"#;
+
+fn scenario(dir: &Path, name: &str, text: &str) -> PathBuf {
+    let p = dir.join(name);
+    fs::write(&p, text).unwrap();
+    p
+}
+
+fn s(p: &Path) -> &str {
+    p.to_str().unwrap()
+}
+
+/// Names in `dir`, sorted.
+fn names(dir: &Path) -> Vec<String> {
+    let mut v: Vec<String> = fs::read_dir(dir)
+        .unwrap()
+        .map(|e| e.unwrap().file_name().to_string_lossy().to_string())
+        .collect();
+    v.sort();
+    v
+}
+
+fn no_temporaries(dir: &Path) {
+    for n in names(dir) {
+        assert!(!n.ends_with(".tmp"), "{} left {n}", dir.display());
+    }
+}
+
+fn no_panic(o: &Output) {
+    let e = stderr(o);
+    assert!(!e.contains("panicked"), "{e}");
+    assert_ne!(o.status.code(), Some(101), "{e}");
+}
+
+/// Exit code 2 (bad input), no panic, and standard error containing every one of `parts`.
+fn refused(o: &Output, parts: &[&str]) {
+    no_panic(o);
+    let e = stderr(o);
+    assert_eq!(o.status.code(), Some(2), "{e}");
+    for p in parts {
+        assert!(e.contains(p), "stderr lacks {p:?}: {e}");
+    }
+}
+
+// ---------------------------------------------------------------------------------------------------------
+// Item 1: two processes into one folder.
+
+#[test]
+fn a_second_run_into_a_busy_folder_is_refused_and_the_first_writes_what_a_lone_run_writes() {
+    let d = tempfile::tempdir().unwrap();
+    let sc = scenario(d.path(), "slow.toml", SLOW_CHAIN);
+    let lone = d.path().join("lone");
+    ok(&run(&[
+        "run",
+        s(&sc),
+        "--quiet",
+        "--no-plots",
+        "--out",
+        s(&lone),
+    ]));
+
+    let shared = d.path().join("shared");
+    let mut first = bin()
+        .args(["run", s(&sc), "--quiet", "--no-plots", "--out", s(&shared)])
+        .stdout(Stdio::null())
+        .stderr(Stdio::piped())
+        .spawn()
+        .unwrap();
+    // Wait until the first run holds the folder (its waveform temporary exists).
+    let t0 = Instant::now();
+    while !shared.exists() || !names(&shared).iter().any(|n| n.ends_with(".tmp")) {
+        assert!(
+            t0.elapsed() < Duration::from_secs(60),
+            "first run never started writing"
+        );
+        assert!(
+            first.try_wait().unwrap().is_none(),
+            "first run ended before the second started"
+        );
+        std::thread::sleep(Duration::from_millis(5));
+    }
+    let second = run(&["run", s(&sc), "--quiet", "--no-plots", "--out", s(&shared)]);
+    refused(
+        &second,
+        &["another convchain process is writing into this folder"],
+    );
+    let first = first.wait_with_output().unwrap();
+    ok(&first);
+    assert_eq!(names(&shared), names(&lone));
+    for f in names(&lone) {
+        assert!(
+            read(&shared, &f) == read(&lone, &f),
+            "{f} differs from a lone run's"
+        );
+    }
+    // The folder is still ours: the next run is accepted.
+    ok(&run(&[
+        "run",
+        s(&sc),
+        "--quiet",
+        "--no-plots",
+        "--out",
+        s(&shared),
+    ]));
+}
+
+#[test]
+fn an_interrupted_run_removes_only_its_own_temporaries() {
+    let d = tempfile::tempdir().unwrap();
+    let sc = scenario(d.path(), "q.toml", QUICK_CHAIN);
+    let out = d.path().join("o");
+    ok(&run(&[
+        "run",
+        s(&sc),
+        "--quiet",
+        "--no-plots",
+        "--no-wav",
+        "--out",
+        s(&out),
+    ]));
+    let report = read(&out, "report.json");
+    // A file named like a temporary of some other process is not ours to delete.
+    fs::write(out.join(".report.json.tmp"), "someone else's").unwrap();
+    let long = SLOW_CHAIN.replace("200 ms", "20 s");
+    let sc = scenario(d.path(), "long.toml", &long);
+    let (status, err) = interrupt_after(
+        bin()
+            .args(["run", s(&sc), "--quiet", "--full", "--out"])
+            .arg(&out),
+        Duration::from_millis(1500),
+    );
+    assert_eq!(status.code(), Some(130), "{err}");
+    assert_eq!(
+        fs::read_to_string(out.join(".report.json.tmp")).unwrap(),
+        "someone else's"
+    );
+    assert!(out.join(".convchain-output").exists());
+    assert!(
+        read(&out, "report.json") == report,
+        "the earlier run's report changed"
+    );
+    let tmps: Vec<_> = names(&out)
+        .into_iter()
+        .filter(|n| n.ends_with(".tmp"))
+        .collect();
+    assert_eq!(tmps, vec![".report.json.tmp".to_string()]);
+}
+
+// ---------------------------------------------------------------------------------------------------------
+// Item 2: symbolic links in an output folder.
+
+#[test]
+fn a_link_planted_in_the_output_folder_is_refused_and_its_target_untouched() {
+    let d = tempfile::tempdir().unwrap();
+    let sc = scenario(d.path(), "q.toml", QUICK_CHAIN);
+    let out = d.path().join("o");
+    ok(&run(&[
+        "run",
+        s(&sc),
+        "--quiet",
+        "--no-plots",
+        "--no-wav",
+        "--out",
+        s(&out),
+    ]));
+    let victim = d.path().join("victim.txt");
+    fs::write(&victim, "keep me").unwrap();
+    for planted in [".report.json.tmp", "report.json", "waveforms.csv"] {
+        let link = out.join(planted);
+        let _ = fs::remove_file(&link);
+        std::os::unix::fs::symlink(&victim, &link).unwrap();
+        let before = names(d.path());
+        let o = run(&[
+            "run",
+            s(&sc),
+            "--quiet",
+            "--no-plots",
+            "--no-wav",
+            "--out",
+            s(&out),
+        ]);
+        refused(&o, &["symbolic link", planted]);
+        assert_eq!(fs::read_to_string(&victim).unwrap(), "keep me", "{planted}");
+        assert_eq!(
+            names(d.path()),
+            before,
+            "a file appeared outside the folder"
+        );
+        assert!(
+            fs::symlink_metadata(&link)
+                .unwrap()
+                .file_type()
+                .is_symlink()
+        );
+        fs::remove_file(&link).unwrap();
+    }
+    ok(&run(&[
+        "run",
+        s(&sc),
+        "--quiet",
+        "--no-plots",
+        "--no-wav",
+        "--out",
+        s(&out),
+    ]));
+}
+
+// ---------------------------------------------------------------------------------------------------------
+// Item 3: hostile WAV files, in `check` as in `run`.
+
+/// A mono WAV: RIFF header, a 16-byte fmt chunk (`tag` 1 = integer PCM, 3 = float), a data chunk declaring
+/// `declared` bytes followed by `data`.
+fn wav_bytes(tag: u16, bits: u16, rate: u32, declared: u32, data: &[u8]) -> Vec<u8> {
+    let mut b = Vec::new();
+    b.extend_from_slice(b"RIFF");
+    b.extend_from_slice(&(36 + data.len() as u32).to_le_bytes());
+    b.extend_from_slice(b"WAVEfmt ");
+    b.extend_from_slice(&16u32.to_le_bytes());
+    b.extend_from_slice(&tag.to_le_bytes());
+    b.extend_from_slice(&1u16.to_le_bytes());
+    b.extend_from_slice(&rate.to_le_bytes());
+    b.extend_from_slice(&rate.wrapping_mul(u32::from(bits / 8)).to_le_bytes());
+    b.extend_from_slice(&(bits / 8).to_le_bytes());
+    b.extend_from_slice(&bits.to_le_bytes());
+    b.extend_from_slice(b"data");
+    b.extend_from_slice(&declared.to_le_bytes());
+    b.extend_from_slice(data);
+    b
+}
+
+fn float_samples(n: usize, bad_at: Option<(usize, f32)>) -> Vec<u8> {
+    (0..n)
+        .map(|i| match bad_at {
+            Some((j, v)) if i == j => v,
+            _ => 0.5 * (i as f32 * 0.1).sin(),
+        })
+        .flat_map(|x| x.to_le_bytes())
+        .collect()
+}
+
+fn wav_scenario(dir: &Path, wav: &str) -> PathBuf {
+    scenario(
+        dir,
+        "wav.toml",
+        &format!(
+            r#"name = "wav-source"
+[simulation]
+analog_rate = "1 MHz"
+duration = "5 ms"
+settle = "1 ms"
+[source]
+waveform = "wav"
+file = "{wav}"
+repeat = true
+offset = "2.5 V"
+full_scale = "2 V"
+[[stage]]
+kind = "sar_adc"
+bits = 10
+range = ["0 V", "5 V"]
+sample_rate = "50 kHz"
+conversion_time = "12 us"
+[[stage]]
+kind = "dac"
+range = ["0 V", "5 V"]
+[analysis]
+band = "20 kHz"
+"#
+        ),
+    )
+}
+
+/// `check` and `run` both refuse the scenario with exit code 2, a location in the scenario and `why`.
+fn both_refuse(dir: &Path, sc: &Path, why: &str) {
+    let o = run(&["check", s(sc)]);
+    refused(&o, &[&format!("{}:8:8", sc.display()), "source.file", why]);
+    let out = dir.join("out");
+    let o = run(&["run", s(sc), "--quiet", "--out", s(&out)]);
+    refused(&o, &[&format!("{}:8:8", sc.display()), why]);
+    assert!(!out.exists(), "a refused run made its folder");
+}
+
+#[test]
+fn a_float_wav_holding_nan_or_infinity_is_refused_with_the_sample_index() {
+    let d = tempfile::tempdir().unwrap();
+    let sc = wav_scenario(d.path(), "bad.wav");
+    let data = float_samples(4800, Some((1234, f32::NAN)));
+    fs::write(
+        d.path().join("bad.wav"),
+        wav_bytes(3, 32, 48_000, 4 * 4800, &data),
+    )
+    .unwrap();
+    both_refuse(d.path(), &sc, "sample 1234 (frame 1234, channel 0) is NaN");
+    let data = float_samples(4800, Some((7, f32::NEG_INFINITY)));
+    fs::write(
+        d.path().join("bad.wav"),
+        wav_bytes(3, 32, 48_000, 4 * 4800, &data),
+    )
+    .unwrap();
+    both_refuse(d.path(), &sc, "sample 7 (frame 7, channel 0) is -inf");
+}
+
+#[test]
+fn a_wav_with_a_zero_rate_or_an_oversized_or_empty_data_chunk_is_refused() {
+    let d = tempfile::tempdir().unwrap();
+    let sc = wav_scenario(d.path(), "bad.wav");
+    let data = float_samples(480, None);
+    fs::write(
+        d.path().join("bad.wav"),
+        wav_bytes(3, 32, 0, 4 * 480, &data),
+    )
+    .unwrap();
+    both_refuse(d.path(), &sc, "sample rate of 0 Hz");
+    fs::write(
+        d.path().join("bad.wav"),
+        wav_bytes(3, 32, 48_000, 0xFFFF_FFF0, &data),
+    )
+    .unwrap();
+    both_refuse(d.path(), &sc, "declares 4294967280 bytes");
+    fs::write(d.path().join("bad.wav"), wav_bytes(1, 16, 48_000, 0, &[])).unwrap();
+    both_refuse(d.path(), &sc, "no samples");
+}
+
+#[test]
+fn a_fifo_given_as_the_wav_file_is_refused_without_blocking() {
+    let d = tempfile::tempdir().unwrap();
+    let sc = wav_scenario(d.path(), "pipe.wav");
+    let st = std::process::Command::new("mkfifo")
+        .arg(d.path().join("pipe.wav"))
+        .status()
+        .unwrap();
+    assert!(st.success());
+    // A blocked reader would never return: run `check` with a deadline.
+    let mut child = bin()
+        .args(["check", s(&sc)])
+        .stdout(Stdio::null())
+        .stderr(Stdio::piped())
+        .spawn()
+        .unwrap();
+    let t0 = Instant::now();
+    while child.try_wait().unwrap().is_none() {
+        if t0.elapsed() > Duration::from_secs(20) {
+            let _ = child.kill();
+            panic!("check blocked on a FIFO");
+        }
+        std::thread::sleep(Duration::from_millis(20));
+    }
+    let o = child.wait_with_output().unwrap();
+    refused(&o, &["not a regular file"]);
+}
+
+// ---------------------------------------------------------------------------------------------------------
+// Item 7: Ctrl-C stops run, static and limit cleanly.
+
+fn interrupted_cleanly(args: &[&str], out: &Path, after: Duration) {
+    let (status, err) = interrupt_after(bin().args(args).arg("--out").arg(out), after);
+    assert_eq!(status.code(), Some(130), "{err}");
+    assert!(err.contains("interrupt"), "{err}");
+    assert!(!err.contains("panicked"), "{err}");
+    if out.exists() {
+        no_temporaries(out);
+    }
+}
+
+#[test]
+fn ctrl_c_stops_a_run_removes_its_temporaries_and_exits_130() {
+    let d = tempfile::tempdir().unwrap();
+    let long = SLOW_CHAIN.replace("200 ms", "20 s");
+    let sc = scenario(d.path(), "long.toml", &long);
+    let out = d.path().join("o");
+    interrupted_cleanly(
+        &["run", s(&sc), "--quiet", "--full"],
+        &out,
+        Duration::from_millis(1500),
+    );
+    // The run made the folder and finished nothing in it: it is gone.
+    assert!(!out.exists(), "{:?}", names(&out));
+}
+
+#[test]
+fn ctrl_c_stops_static_and_limit_with_exit_130() {
+    let d = tempfile::tempdir().unwrap();
+    let sc = common::repo("scenarios/studio-interface.toml");
+    interrupted_cleanly(
+        &["static", s(&sc), "--quiet"],
+        &d.path().join("s"),
+        Duration::from_millis(300),
+    );
+    interrupted_cleanly(
+        &["limit", s(&sc), "--quiet", "--threads", "1"],
+        &d.path().join("l"),
+        Duration::from_millis(300),
+    );
+}
