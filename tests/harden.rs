@@ -451,3 +451,188 @@ fn ctrl_c_stops_static_and_limit_with_exit_130() {
         Duration::from_millis(300),
     );
 }
+
+// ---------------------------------------------------------------------------------------------------------
+// Item 6: options.
+
+#[test]
+fn sweep_options_with_three_dots_fractional_whole_numbers_or_a_repeated_key_are_refused() {
+    let d = tempfile::tempdir().unwrap();
+    let sc = scenario(d.path(), "q.toml", QUICK_CHAIN);
+    let out = d.path().join("o");
+    let sweep = |vary: &[&str]| {
+        let mut args = vec![
+            "sweep",
+            s(&sc),
+            "--quiet",
+            "--points",
+            "2",
+            "--out",
+            s(&out),
+        ];
+        for v in vary {
+            args.extend(["--vary", v]);
+        }
+        run(&args)
+    };
+    refused(
+        &sweep(&["source.frequency=1 kHz...2 kHz"]),
+        &["more than two dots"],
+    );
+    refused(
+        &sweep(&["stage.1.bits=4.5..8.5"]),
+        &["FROM = 4.5", "`bits` takes whole numbers"],
+    );
+    refused(
+        &sweep(&[
+            "source.frequency=1 kHz..2 kHz",
+            "source.frequency=3 kHz..4 kHz",
+        ]),
+        &["source.frequency: this key is given twice"],
+    );
+    // Echoed input is cut to a sane length.
+    let long = format!("source.frequency=1 kHz.{}", "x".repeat(20_000));
+    let o = sweep(&[&long]);
+    refused(&o, &["(20023 characters)"]);
+    assert!(
+        stderr(&o).len() < 600,
+        "{} bytes of message",
+        stderr(&o).len()
+    );
+    assert!(!out.exists());
+}
+
+#[test]
+fn run_options_out_of_range_are_refused_one_option_per_message() {
+    let d = tempfile::tempdir().unwrap();
+    let sc = scenario(d.path(), "q.toml", QUICK_CHAIN);
+    let out = d.path().join("o");
+    let run_with = |extra: &[&str]| {
+        let mut args = vec!["run", s(&sc), "--quiet", "--out", s(&out)];
+        args.extend(extra);
+        run(&args)
+    };
+    // The run lasts 12 ms: a window at 1 s would draw nothing of it.
+    refused(
+        &run_with(&["--window", "1 s..2 s"]),
+        &["--window", "must lie within the run, 0 s..0.012 s"],
+    );
+    refused(
+        &run_with(&["--window", "1 ms...2 ms"]),
+        &["more than two dots"],
+    );
+    let o = run_with(&["--wav-rate", "1000000000"]);
+    refused(&o, &["--wav-rate 1000000000", "8000..=384000 Hz"]);
+    assert!(!stderr(&o).contains("--listen-gain"), "{}", stderr(&o));
+    let o = run_with(&["--listen-gain=-1"]);
+    refused(&o, &["--listen-gain -1"]);
+    assert!(!stderr(&o).contains("--wav-rate"), "{}", stderr(&o));
+    assert!(!out.exists());
+}
+
+/// The quick chain with a filter whose cutoff is drawn with a huge spread: about half the draws are negative
+/// and fail the scenario's checks.
+fn spread_chain(sigma: &str) -> String {
+    format!(
+        "{QUICK_CHAIN}[[stage]]\nkind = \"filter\"\nfamily = \"bessel\"\norder = 2\ncutoff = \"8 kHz\"\n\
+         [spread]\n\"stage.3.cutoff\" = \"{sigma}\"\n"
+    )
+}
+
+#[test]
+fn merge_refuses_rows_that_disagree_with_their_header_or_cells_of_the_wrong_type() {
+    let d = tempfile::tempdir().unwrap();
+    let sc = scenario(d.path(), "mc.toml", &spread_chain("5%"));
+    let a = d.path().join("a");
+    ok(&run(&[
+        "montecarlo",
+        s(&sc),
+        "--runs",
+        "4",
+        "--no-static",
+        "--quiet",
+        "--out",
+        s(&a),
+    ]));
+    let rows_path = a.join("rows.json");
+    let good: serde_json::Value = common::json(&rows_path);
+    let out = d.path().join("merged");
+    let try_merge = |v: &serde_json::Value| {
+        fs::write(&rows_path, serde_json::to_vec_pretty(v).unwrap()).unwrap();
+        run(&["merge", s(&a), "--quiet", "--out", s(&out)])
+    };
+    ok(&try_merge(&good));
+    fs::remove_dir_all(&out).unwrap();
+    // A metric cell holding a string.
+    let mut v = good.clone();
+    let col = v["columns"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .position(|c| c == "output.enob_bits")
+        .unwrap();
+    v["rows"][1][col] = serde_json::json!("eleven");
+    refused(
+        &try_merge(&v),
+        &[
+            "row 1, column `output.enob_bits`",
+            "is not a number or null",
+        ],
+    );
+    // A complete (not interrupted) shard missing a row.
+    let mut v = good.clone();
+    v["rows"].as_array_mut().unwrap().remove(2);
+    refused(&try_merge(&v), &["holds 3 rows for its 4"]);
+    // A row whose index does not belong to the shard the header names.
+    let mut v = good.clone();
+    v["shard"] = serde_json::json!({"k": 1, "n": 2});
+    refused(
+        &try_merge(&v),
+        &["index 1, which is not a run of shard 1/2"],
+    );
+    let mut v = good.clone();
+    v["shard"] = serde_json::json!({"k": 0, "n": 2});
+    refused(&try_merge(&v), &["not K/N with 1 <= K <= N"]);
+    assert!(!out.exists());
+}
+
+#[test]
+fn a_monte_carlo_study_whose_runs_all_failed_exits_1() {
+    let d = tempfile::tempdir().unwrap();
+    // sigma 150 % of the cutoff: a draw is negative (and fails) with probability P(z < -1/1.5) = 0.25.
+    let sc = scenario(d.path(), "mc.toml", &spread_chain("150%"));
+    let (mut all_failed, mut some_passed) = (0, 0);
+    for seed in 1..=12 {
+        let out = d.path().join(format!("s{seed}"));
+        let o = run(&[
+            "montecarlo",
+            s(&sc),
+            "--runs",
+            "1",
+            "--no-static",
+            "--quiet",
+            "--seed",
+            &seed.to_string(),
+            "--out",
+            s(&out),
+        ]);
+        no_panic(&o);
+        let j = common::json(&out.join("montecarlo.json"));
+        if j["runs_failed"] == j["runs_done"] {
+            all_failed += 1;
+            assert_eq!(o.status.code(), Some(1), "seed {seed}: {}", stderr(&o));
+            assert!(
+                stderr(&o).contains("every run failed (1 of 1)"),
+                "{}",
+                stderr(&o)
+            );
+        } else {
+            some_passed += 1;
+            ok(&o);
+        }
+    }
+    assert!(
+        all_failed > 0 && some_passed > 0,
+        "{all_failed} {some_passed}"
+    );
+}

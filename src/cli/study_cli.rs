@@ -96,6 +96,7 @@ pub fn sweep(a: SweepArgs) -> anyhow::Result<()> {
         .iter()
         .map(|v| sweep::parse_vary(v))
         .collect::<Result<Vec<_>, _>>()?;
+    sweep::check_distinct(&vary)?;
     let shard = match &a.shard {
         Some(s) => Shard::parse(s)?,
         None => Shard::WHOLE,
