@@ -636,3 +636,105 @@ fn a_monte_carlo_study_whose_runs_all_failed_exits_1() {
         "{all_failed} {some_passed}"
     );
 }
+
+// ---------------------------------------------------------------------------------------------------------
+// Items 4 and 5: what `run` refuses (or takes minutes over), `check` refuses too, located.
+
+/// `check` and `run` both exit 2 with the message located at `at` (file:line:column) and naming `key`.
+fn check_and_run_refuse(dir: &Path, name: &str, text: &str, at: (usize, usize), parts: &[&str]) {
+    let sc = scenario(dir, name, text);
+    let loc = format!("{}:{}:{}", sc.display(), at.0, at.1);
+    let mut want = vec![loc.as_str()];
+    want.extend(parts);
+    refused(&run(&["check", s(&sc)]), &want);
+    let out = dir.join(format!("{name}-out"));
+    refused(&run(&["run", s(&sc), "--quiet", "--out", s(&out)]), &want);
+    assert!(!out.exists());
+}
+
+#[test]
+fn a_band_below_the_tone_is_refused_by_check_and_run_at_the_band() {
+    let d = tempfile::tempdir().unwrap();
+    // Line 23 (the chain starts with an empty line), the value after `band = `.
+    let text = format!("{QUICK_CHAIN}[analysis]\nband = \"100 Hz\"\n");
+    check_and_run_refuse(
+        d.path(),
+        "band.toml",
+        &text,
+        (23, 8),
+        &[
+            "analysis.band",
+            "does not contain the source's fundamental (1 kHz)",
+        ],
+    );
+    // A tone at the band's edge (here the ADC's Nyquist frequency, 25 kHz).
+    let text = format!(
+        "{}[analysis]\nband = \"25 kHz\"\n",
+        QUICK_CHAIN.replace("1 kHz", "25 kHz")
+    );
+    check_and_run_refuse(d.path(), "nyq.toml", &text, (23, 8), &["analysis.band"]);
+}
+
+#[test]
+fn a_link_delay_that_eats_the_analysis_window_is_named() {
+    let d = tempfile::tempdir().unwrap();
+    // 10 ms of window at 50 kSPS hold 498 usable conversions; a 9.9 ms link delay and a one-sample frame leave 2 of them.
+    let text = QUICK_CHAIN.replace(
+        "[[stage]]\nkind = \"dac\"",
+        "[[stage]]\nkind = \"link\"\ndelay = \"9.9 ms\"\n[[stage]]\nkind = \"dac\"",
+    );
+    check_and_run_refuse(
+        d.path(),
+        "link.toml",
+        &text,
+        (21, 9),
+        &["stage.2.delay", "leave 2 of the 498 conversions"],
+    );
+    // The same delay in a longer run is fine.
+    let sc = scenario(d.path(), "ok.toml", &text.replace("12 ms", "40 ms"));
+    ok(&run(&["check", s(&sc)]));
+}
+
+#[test]
+fn a_chirp_faster_than_the_grid_is_refused_and_a_fast_one_runs_quickly() {
+    let d = tempfile::tempdir().unwrap();
+    let chirp = |sweep: &str| {
+        QUICK_CHAIN.replace(
+            "waveform = \"sine\"\nfrequency = \"1 kHz\"",
+            &format!(
+                "waveform = \"chirp\"\nstart = \"100 Hz\"\nstop = \"10 kHz\"\nsweep_time = \"{sweep}\""
+            ),
+        )
+    };
+    check_and_run_refuse(
+        d.path(),
+        "chirp.toml",
+        &chirp("1 ns"),
+        (12, 14),
+        &["source.sweep_time", "needs at least 16"],
+    );
+    // 20 grid steps per sweep: 500 sweeps in the run. It must finish in seconds, not minutes.
+    let sc = scenario(d.path(), "fast.toml", &chirp("20 us"));
+    let t0 = Instant::now();
+    let o = run(&[
+        "run",
+        s(&sc),
+        "--quiet",
+        "--no-plots",
+        "--no-wav",
+        "--out",
+        s(&d.path().join("f")),
+    ]);
+    no_panic(&o);
+    assert!(t0.elapsed() < Duration::from_secs(60), "{:?}", t0.elapsed());
+}
+
+#[test]
+fn a_wav_far_slower_than_the_grid_is_refused_at_the_file() {
+    let d = tempfile::tempdir().unwrap();
+    let sc = wav_scenario(d.path(), "slow.wav");
+    // 100 samples at 1 Hz on a 1 MHz grid: a million grid steps per file sample.
+    let data = float_samples(100, None);
+    fs::write(d.path().join("slow.wav"), wav_bytes(3, 32, 1, 400, &data)).unwrap();
+    both_refuse(d.path(), &sc, "1000000 times below the analog rate");
+}

@@ -16,7 +16,9 @@ pub const STARTER: &str = include_str!("starter.toml");
 pub fn parse_str(text: &str, origin: &str, base_dir: &Path) -> Result<Scenario, ScenarioError> {
     let map = reader::SourceMap::new(origin, text);
     let root = reader::parse_document(&map)?;
-    validate::build(&map, &root, base_dir)
+    let sc = validate::build(&map, &root, base_dir)?;
+    sanity::check(&map, &root, &sc)?;
+    Ok(sc)
 }
 
 /// Read a scenario file and parse it. An unreadable file gives [`crate::Error::Read`], a bad scenario
@@ -446,5 +448,6 @@ impl Spread {
 
 pub mod overrides;
 pub mod reader;
+pub mod sanity;
 pub mod units;
 pub mod validate;
