@@ -84,9 +84,28 @@ fn run_inner(sc: &Scenario, out: &OutputDir, opts: &RunOptions) -> Result<Report
     if let Some(b) = bar {
         b.finish_and_clear();
     }
+    // The phases after the simulation: a spinner naming each while it works.
+    let spinner = show.then(|| {
+        let b = indicatif::ProgressBar::new_spinner();
+        b.set_style(
+            indicatif::ProgressStyle::with_template("  {spinner} {msg}  {elapsed}")
+                .unwrap_or_else(|_| indicatif::ProgressStyle::default_spinner()),
+        );
+        b.enable_steady_tick(std::time::Duration::from_millis(100));
+        b
+    });
+    let phase = |name: &'static str| {
+        if let Some(b) = &spinner {
+            b.set_message(name);
+            b.tick();
+        }
+    };
+    phase("writing the waveforms");
     csv.finish()?;
+    phase("measuring");
     let metrics = measure_run(&run)?;
     let figs = if opts.figures {
+        phase("drawing the plots");
         figures::run_figures(&run, &metrics, opts.window_s)?
     } else {
         Vec::new()
@@ -95,6 +114,7 @@ fn run_inner(sc: &Scenario, out: &OutputDir, opts: &RunOptions) -> Result<Report
     let mut report = Report::new(&run.scenario, &run.plan, metrics);
     let mut wav_files = None;
     if let Some(w) = &opts.wav {
+        phase("making the listening files");
         // Gain-matched: the fitted gain when it is near the chain's nominal gain; otherwise (a signal lost in
         // the chain, which a least-squares fit would answer with a gain near zero and a silent error file) the
         // nominal gain, so the error file says what was lost.
@@ -136,6 +156,7 @@ fn run_inner(sc: &Scenario, out: &OutputDir, opts: &RunOptions) -> Result<Report
                 .push(format!("listening files not written: {e}")),
         }
     }
+    phase("writing the files");
     let json = serde_json::to_vec_pretty(&report).map_err(|e| Error::Run(e.to_string()))?;
     out.commit("waveforms.csv")?;
     for f in &figs {
@@ -152,6 +173,9 @@ fn run_inner(sc: &Scenario, out: &OutputDir, opts: &RunOptions) -> Result<Report
         out.write("report.html", document::html(&report, &figs).as_bytes())?;
     }
     out.write("report.json", &json)?;
+    if let Some(b) = spinner {
+        b.finish_and_clear();
+    }
     Ok(report)
 }
 

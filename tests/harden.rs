@@ -738,3 +738,35 @@ fn a_wav_far_slower_than_the_grid_is_refused_at_the_file() {
     fs::write(d.path().join("slow.wav"), wav_bytes(3, 32, 1, 400, &data)).unwrap();
     both_refuse(d.path(), &sc, "1000000 times below the analog rate");
 }
+
+// ---------------------------------------------------------------------------------------------------------
+// Item 10: progress covers every long phase of `run`.
+
+#[test]
+fn run_progress_names_every_phase_on_a_terminal() {
+    let d = tempfile::tempdir().unwrap();
+    let sc = scenario(d.path(), "slow.toml", SLOW_CHAIN);
+    let out = d.path().join("o");
+    // `script` gives the run a terminal (progress is drawn only on one) and records what it shows.
+    let cmd = format!(
+        "{} run {} --out {}",
+        env!("CARGO_BIN_EXE_convchain"),
+        s(&sc),
+        s(&out)
+    );
+    let o = std::process::Command::new("script")
+        .args(["-qec", &cmd, "/dev/null"])
+        .output()
+        .expect("script runs");
+    ok(&o);
+    let shown = String::from_utf8_lossy(&o.stdout);
+    for phase in [
+        "simulating",
+        "measuring",
+        "drawing the plots",
+        "making the listening files",
+        "writing the files",
+    ] {
+        assert!(shown.contains(phase), "no {phase:?} in {shown}");
+    }
+}
