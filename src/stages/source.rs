@@ -123,6 +123,12 @@ impl SourceGen {
     /// shifted by a fraction of a step) and return true; noise and WAV sources leave `out` alone and return
     /// false. A sine uses a rotation recurrence restarted exactly every 1024 samples.
     pub fn fill_at(&self, t0_s: f64, dt_s: f64, out: &mut [f64]) -> bool {
+        self.fill_at_from(t0_s, dt_s, 0, out)
+    }
+
+    /// As [`fill_at`](Self::fill_at) for the instants `t0_s + (j0 + j) dt_s`: the tail, from index `j0`, of
+    /// what `fill_at` would write. With `j0` a multiple of [`FILL_AT_ALIGN`] the values are the same bits.
+    pub fn fill_at_from(&self, t0_s: f64, dt_s: f64, j0: usize, out: &mut [f64]) -> bool {
         let offset = self.offset_v;
         match &self.kind {
             Kind::Exact(Waveform::Sine {
@@ -135,13 +141,16 @@ impl SourceGen {
                     offset,
                     *amplitude_v,
                     2.0 * PI * *frequency_hz * dt_s,
-                    |j| 2.0 * PI * cycles_frac(*frequency_hz, t0_s + j as f64 * dt_s) + *phase_rad,
+                    |j| {
+                        2.0 * PI * cycles_frac(*frequency_hz, t0_s + (j0 + j) as f64 * dt_s)
+                            + *phase_rad
+                    },
                 );
                 true
             }
             Kind::Exact(w) => {
                 for (j, y) in out.iter_mut().enumerate() {
-                    *y = offset + exact_excursion(w, t0_s + j as f64 * dt_s);
+                    *y = offset + exact_excursion(w, t0_s + (j0 + j) as f64 * dt_s);
                 }
                 true
             }
@@ -202,6 +211,10 @@ impl SourceGen {
 
 /// Samples between exact restarts of [`fill_sine`]'s recurrences.
 const RESTART: usize = 1024;
+
+/// [`SourceGen::fill_at_from`] gives the same bits as [`SourceGen::fill_at`] when it starts at a multiple of
+/// this.
+pub const FILL_AT_ALIGN: usize = RESTART;
 
 /// `out[j] = offset + amp sin(phase_at(j))` for a phase advancing by `w_rad` per sample, by four interleaved
 /// rotations ([`Quad`]) restarted exactly from `phase_at` every [`RESTART`] samples.
