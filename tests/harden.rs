@@ -770,3 +770,88 @@ fn run_progress_names_every_phase_on_a_terminal() {
         assert!(shown.contains(phase), "no {phase:?} in {shown}");
     }
 }
+
+// ---------------------------------------------------------------------------------------------------------
+// Item 8: memory does not grow with simulated time.
+
+/// Run the binary and return its peak resident memory (kB), read from /proc while it runs.
+fn peak_rss_kb(args: &[&str]) -> u64 {
+    let mut child = bin()
+        .args(args)
+        .stdout(Stdio::null())
+        .stderr(Stdio::null())
+        .spawn()
+        .unwrap();
+    let status = format!("/proc/{}/status", child.id());
+    let mut peak = 0;
+    loop {
+        if let Ok(text) = fs::read_to_string(&status)
+            && let Some(line) = text.lines().find(|l| l.starts_with("VmHWM:"))
+        {
+            let kb: u64 = line.split_whitespace().nth(1).unwrap().parse().unwrap();
+            peak = peak.max(kb);
+        }
+        if let Some(st) = child.try_wait().unwrap() {
+            assert!(st.success(), "{args:?}");
+            break;
+        }
+        std::thread::sleep(Duration::from_millis(2));
+    }
+    peak
+}
+
+#[test]
+fn peak_memory_does_not_grow_with_simulated_time() {
+    let d = tempfile::tempdir().unwrap();
+    // A slow chain: 40 kHz grid, 1 kSPS converter, so long simulated times cost little CPU. Its output record
+    // is capped at 2^20 samples (about 260 s of signal); 300 s fit in it, 2400 s are eight times longer.
+    let chain = |duration: &str| {
+        format!(
+            r#"name = "long"
+[simulation]
+analog_rate = "40 kHz"
+duration = "{duration}"
+settle = "1 s"
+[source]
+waveform = "sine"
+frequency = "10 Hz"
+amplitude = "2 V"
+offset = "2.5 V"
+[[stage]]
+kind = "sar_adc"
+bits = 10
+range = ["0 V", "5 V"]
+sample_rate = "1 kHz"
+conversion_time = "100 us"
+[[stage]]
+kind = "dac"
+range = ["0 V", "5 V"]
+"#
+        )
+    };
+    let mut peaks = Vec::new();
+    for dur in ["300 s", "2400 s"] {
+        let sc = scenario(d.path(), "long.toml", &chain(dur));
+        let out = d.path().join(dur.replace(' ', ""));
+        peaks.push(peak_rss_kb(&[
+            "run",
+            s(&sc),
+            "--quiet",
+            "--no-plots",
+            "--no-wav",
+            "--out",
+            s(&out),
+        ]));
+    }
+    eprintln!(
+        "peak resident memory: {} kB at 300 s, {} kB at 2400 s",
+        peaks[0], peaks[1]
+    );
+    // Growing records would hold (2400 - 300) s x 4 kHz x 2 streams x 8 bytes = 134 MB more.
+    assert!(
+        peaks[1] < peaks[0] + 40_000,
+        "peak {} kB at 300 s, {} kB at 2400 s",
+        peaks[0],
+        peaks[1]
+    );
+}

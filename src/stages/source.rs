@@ -891,6 +891,30 @@ mod tests {
     }
 
     #[test]
+    fn fill_at_from_an_aligned_index_gives_the_tail_of_fill_at_bit_for_bit() {
+        let sine = Waveform::Sine {
+            frequency_hz: 1234.5,
+            amplitude_v: 2.0,
+            phase_rad: 0.3,
+        };
+        let tri = Waveform::Triangle {
+            frequency_hz: 321.0,
+            amplitude_v: 1.0,
+        };
+        for w in [sine, tri] {
+            let g = gen_for(w, 0.25, 1.0e6, 0);
+            let (t0, dt) = (0.012_345_678_9, 0.37e-6);
+            let mut whole = vec![0.0; 9000];
+            assert!(g.fill_at(t0, dt, &mut whole));
+            for j0 in [0, FILL_AT_ALIGN, 5 * FILL_AT_ALIGN] {
+                let mut tail = vec![0.0; 9000 - j0];
+                assert!(g.fill_at_from(t0, dt, j0, &mut tail));
+                assert!(tail == whole[j0..], "j0 {j0}");
+            }
+        }
+    }
+
+    #[test]
     fn fill_at_matches_value_at_off_the_grid() {
         let sine = Waveform::Sine {
             frequency_hz: 1234.5,
