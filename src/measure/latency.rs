@@ -433,7 +433,6 @@ const MAX_SWEEPS_AVERAGED: u64 = 4096;
 /// linear law); and with the sweep's phase as the time reference, the frequency assigned is the output's
 /// averaged over `W`, so the group delay must be smooth on the scale of the frequency swept in `W`. Empty when
 /// the chirp does not move (`start_hz == stop_hz`), the sweep or rate is not positive, or `points` is 0.
-
 pub fn chirp_group_delay_s(
     input: &[f64],
     output: &[f64],
