@@ -1,4 +1,21 @@
-//! Small helpers for messages.
+//! Small helpers for messages and for reading the text files a user gives.
+
+use std::io::Read;
+use std::path::Path;
+
+use crate::Error;
+
+/// Read the text file `path` given by the user (a scenario, a rows file): only a regular file is read, so a
+/// FIFO or a device is refused at once instead of blocking (see [`crate::stages::wav_file::open_regular`]).
+pub fn read_user_text(path: &Path, what: &str) -> Result<String, Error> {
+    let (mut f, len) = crate::stages::wav_file::open_regular(path, what)?;
+    let mut s = String::with_capacity(len.min(1 << 24) as usize);
+    f.read_to_string(&mut s).map_err(|source| Error::Read {
+        path: path.to_path_buf(),
+        source,
+    })?;
+    Ok(s)
+}
 
 /// Longest piece of user input echoed back in a message, in characters.
 pub const ECHO_MAX_CHARS: usize = 60;

@@ -855,3 +855,55 @@ range = ["0 V", "5 V"]
         peaks[1]
     );
 }
+
+#[test]
+fn a_fifo_given_as_the_scenario_or_the_rows_file_is_refused_without_blocking() {
+    let d = tempfile::tempdir().unwrap();
+    let fifo = d.path().join("pipe.toml");
+    assert!(
+        std::process::Command::new("mkfifo")
+            .arg(&fifo)
+            .status()
+            .unwrap()
+            .success()
+    );
+    let shard = d.path().join("shard");
+    fs::create_dir(&shard).unwrap();
+    assert!(
+        std::process::Command::new("mkfifo")
+            .arg(shard.join("rows.json"))
+            .status()
+            .unwrap()
+            .success()
+    );
+    let merged = d.path().join("merged");
+    for args in [
+        vec!["check", s(&fifo)],
+        vec!["run", s(&fifo), "--quiet"],
+        vec![
+            "sweep",
+            s(&fifo),
+            "--vary",
+            "source.frequency=1 kHz..2 kHz",
+            "--quiet",
+        ],
+        vec!["merge", s(&shard), "--quiet", "--out", s(&merged)],
+    ] {
+        let mut child = bin()
+            .current_dir(d.path())
+            .args(&args)
+            .stdout(Stdio::null())
+            .stderr(Stdio::piped())
+            .spawn()
+            .unwrap();
+        let t0 = Instant::now();
+        while child.try_wait().unwrap().is_none() {
+            if t0.elapsed() > Duration::from_secs(20) {
+                let _ = child.kill();
+                panic!("{args:?} blocked on a FIFO");
+            }
+            std::thread::sleep(Duration::from_millis(20));
+        }
+        refused(&child.wait_with_output().unwrap(), &["not a regular file"]);
+    }
+}

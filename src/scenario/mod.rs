@@ -24,10 +24,7 @@ pub fn parse_str(text: &str, origin: &str, base_dir: &Path) -> Result<Scenario, 
 /// Read a scenario file and parse it. An unreadable file gives [`crate::Error::Read`], a bad scenario
 /// [`crate::Error::BadInput`] with the located message.
 pub fn load(path: &Path) -> Result<Scenario, crate::Error> {
-    let text = std::fs::read_to_string(path).map_err(|source| crate::Error::Read {
-        path: path.to_path_buf(),
-        source,
-    })?;
+    let text = crate::text::read_user_text(path, "a scenario file (TOML)")?;
     let base_dir = match path.parent() {
         Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
         _ => PathBuf::from("."),

@@ -56,8 +56,9 @@ pub fn describe(e: &Error) -> String {
 }
 
 /// Open `path` for reading when it is a regular file; a FIFO, socket, device or folder is refused without
-/// blocking (the file is opened non-blocking, then checked on the open handle).
-pub fn open_regular(path: &Path) -> Result<(File, u64), Error> {
+/// blocking (the file is opened non-blocking, then checked on the open handle). `what` names the file expected
+/// in the message ("a WAV file").
+pub fn open_regular(path: &Path, what: &str) -> Result<(File, u64), Error> {
     let f = OpenOptions::new()
         .read(true)
         .custom_flags(libc::O_NONBLOCK | libc::O_CLOEXEC)
@@ -73,14 +74,16 @@ pub fn open_regular(path: &Path) -> Result<(File, u64), Error> {
     if !meta.is_file() {
         return Err(bad(
             path,
-            "not a regular file (a folder, FIFO, socket or device); give the path of a WAV file",
+            format!(
+                "not a regular file (a folder, FIFO, socket or device); give the path of {what}"
+            ),
         ));
     }
     Ok((f, meta.len()))
 }
 
 fn reader(path: &Path) -> Result<(hound::WavReader<BufReader<File>>, WavHeader), Error> {
-    let (f, file_len) = open_regular(path)?;
+    let (f, file_len) = open_regular(path, "a WAV file")?;
     let r = hound::WavReader::new(BufReader::new(f)).map_err(|e| hound_error(path, e))?;
     let spec = r.spec();
     if spec.channels == 0 {

@@ -186,10 +186,7 @@ impl RowSet {
     /// Read `rows.json` from a study folder.
     pub fn read_dir(dir: &Path) -> Result<RowSet> {
         let path = dir.join(ROWS_FILE);
-        let text = std::fs::read_to_string(&path).map_err(|source| Error::Read {
-            path: path.clone(),
-            source,
-        })?;
+        let text = crate::text::read_user_text(&path, "a rows file written by convchain")?;
         let set: RowSet = serde_json::from_str(&text).map_err(|e| {
             Error::BadInput(format!(
                 "{}: not a convchain rows file ({e}); give folders written by `convchain montecarlo` or \
