@@ -30,6 +30,7 @@ pub mod scenario;
 pub mod signal;
 pub mod stages;
 pub mod study;
+pub mod text;
 
 pub use error::Error;
 pub use runner::{RunOptions, run_to_dir, static_to_dir};

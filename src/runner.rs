@@ -59,11 +59,8 @@ pub fn run_to_dir(sc: &Scenario, dir: &Path, opts: &RunOptions) -> Result<Report
 
 fn run_inner(sc: &Scenario, out: &OutputDir, opts: &RunOptions) -> Result<Report> {
     let (plan, _) = Plan::new(sc)?;
-    let mut csv = CsvSink::create(
-        out.temp_path("waveforms.csv"),
-        plan.n_total,
-        opts.full_waveforms,
-    )?;
+    let (file, tmp) = out.create_temp("waveforms.csv")?;
+    let mut csv = CsvSink::from_file(file, tmp, plan.n_total, opts.full_waveforms);
     let show = opts.progress && std::io::IsTerminal::is_terminal(&std::io::stderr());
     let bar = show.then(|| {
         let b = indicatif::ProgressBar::new(1000);
@@ -84,9 +81,28 @@ fn run_inner(sc: &Scenario, out: &OutputDir, opts: &RunOptions) -> Result<Report
     if let Some(b) = bar {
         b.finish_and_clear();
     }
+    // The phases after the simulation: a spinner naming each while it works.
+    let spinner = show.then(|| {
+        let b = indicatif::ProgressBar::new_spinner();
+        b.set_style(
+            indicatif::ProgressStyle::with_template("  {spinner} {msg}  {elapsed}")
+                .unwrap_or_else(|_| indicatif::ProgressStyle::default_spinner()),
+        );
+        b.enable_steady_tick(std::time::Duration::from_millis(100));
+        b
+    });
+    let phase = |name: &'static str| {
+        if let Some(b) = &spinner {
+            b.set_message(name);
+            b.tick();
+        }
+    };
+    phase("writing the waveforms");
     csv.finish()?;
+    phase("measuring");
     let metrics = measure_run(&run.records())?;
     let figs = if opts.figures {
+        phase("drawing the plots");
         figures::run_figures(&run, &metrics, opts.window_s)?
     } else {
         Vec::new()
@@ -95,6 +111,7 @@ fn run_inner(sc: &Scenario, out: &OutputDir, opts: &RunOptions) -> Result<Report
     let mut report = Report::new(&run.scenario, &run.plan, metrics);
     let mut wav_files = None;
     if let Some(w) = &opts.wav {
+        phase("making the listening files");
         // Gain-matched: the fitted gain when it is near the chain's nominal gain; otherwise (a signal lost in
         // the chain, which a least-squares fit would answer with a gain near zero and a silent error file) the
         // nominal gain, so the error file says what was lost.
@@ -136,6 +153,7 @@ fn run_inner(sc: &Scenario, out: &OutputDir, opts: &RunOptions) -> Result<Report
                 .push(format!("listening files not written: {e}")),
         }
     }
+    phase("writing the files");
     let json = serde_json::to_vec_pretty(&report).map_err(|e| Error::Run(e.to_string()))?;
     out.commit("waveforms.csv")?;
     for f in &figs {
@@ -152,6 +170,9 @@ fn run_inner(sc: &Scenario, out: &OutputDir, opts: &RunOptions) -> Result<Report
         out.write("report.html", document::html(&report, &figs).as_bytes())?;
     }
     out.write("report.json", &json)?;
+    if let Some(b) = spinner {
+        b.finish_and_clear();
+    }
     Ok(report)
 }
 

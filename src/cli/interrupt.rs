@@ -1,6 +1,8 @@
-//! Ctrl-C for studies (`convchain montecarlo`, `convchain sweep`): the first interrupt sets a flag the study's
+//! Ctrl-C. For studies (`convchain montecarlo`, `convchain sweep`): the first interrupt sets a flag the study's
 //! run loop reads before starting each item ([`convchain::study::shard::run_in_order`]), so the finished rows
-//! are written; a second one stops the process at once.
+//! are written; a second one stops the process at once. For the other commands that write a folder (`run`,
+//! `static`, `limit`): the first interrupt stops at once. Either way the temporary files not yet renamed into
+//! place are removed first ([`convchain::report::outdir::interrupt_cleanup`]) and the exit code is 130.
 
 use std::sync::atomic::{AtomicBool, Ordering};
 
@@ -27,6 +29,7 @@ pub static CANCEL: AtomicBool = AtomicBool::new(false);
 pub fn install_handler(items: &'static str) {
     let _ = ctrlc::set_handler(move || {
         if CANCEL.swap(true, Ordering::SeqCst) {
+            convchain::report::outdir::interrupt_cleanup();
             eprintln!("\nsecond interrupt: stopping now, nothing more is written");
             std::process::exit(i32::from(INTERRUPTED_EXIT));
         }
@@ -34,5 +37,16 @@ pub fn install_handler(items: &'static str) {
             "\ninterrupt: no new {items} start; the {items} in progress finish and the finished rows are \
              written (Ctrl-C again stops at once)"
         );
+    });
+}
+
+/// Install the handler of Ctrl-C for a command that writes one folder at its end (`run`, `static`, `limit`):
+/// it removes this process's temporary files (and a folder it created that holds nothing yet), says so, and
+/// exits with code 130. Files already renamed into place stay: each is complete.
+pub fn install_stop_handler(command: &'static str) {
+    let _ = ctrlc::set_handler(move || {
+        convchain::report::outdir::interrupt_cleanup();
+        eprintln!("\ninterrupt: {command} stopped; its temporary files were removed");
+        std::process::exit(i32::from(INTERRUPTED_EXIT));
     });
 }

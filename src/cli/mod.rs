@@ -127,15 +127,27 @@ enum AudioKind {
     Formant,
 }
 
+/// Lowest and highest sample rate of the listening files (Hz): 8 kHz is the telephone band's rate, 384 kHz
+/// the highest rate common audio interfaces offer (common practice, no source); beyond it files grow with no
+/// gain for listening.
+const WAV_RATE_MIN_HZ: u32 = 8000;
+const WAV_RATE_MAX_HZ: u32 = 384_000;
+/// Largest gain for error.wav (+80 dB); it is lowered automatically anyway when it would clip.
+const LISTEN_GAIN_MAX: f64 = 1e4;
+
 /// Parse `START..END` with time units.
 fn parse_window(text: &str) -> Result<(f64, f64), Error> {
     use convchain::format::units::{Dimension, parse_quantity};
     let bad = |why: String| {
         Error::BadInput(format!(
-            "--window {text}: {why}; write it as START..END with times, e.g. \"10 ms..12 ms\""
+            "--window \"{}\": {why}; write it as START..END with times, e.g. \"10 ms..12 ms\"",
+            convchain::text::clip(text)
         ))
     };
     let (a, b) = text.split_once("..").ok_or_else(|| bad("no `..`".into()))?;
+    if b.starts_with('.') || b.contains("..") {
+        return Err(bad("more than two dots between START and END".into()));
+    }
     let a = parse_quantity(a.trim(), Dimension::Time).map_err(|e| bad(e.message))?;
     let b = parse_quantity(b.trim(), Dimension::Time).map_err(|e| bad(e.message))?;
     if b <= a {
@@ -234,14 +246,13 @@ fn run(args: Args) -> anyhow::Result<()> {
                 path: dir.clone(),
                 source: e,
             })?;
-            let tmp = path.with_extension("toml.tmp");
-            std::fs::write(&tmp, scenario::STARTER).map_err(|e| Error::Write {
-                path: tmp.clone(),
-                source: e,
-            })?;
-            std::fs::rename(&tmp, &path).map_err(|e| Error::Write {
-                path: path.clone(),
-                source: e,
+            convchain::report::outdir::write_new_file(&path, |tmp| {
+                let mut f = convchain::report::outdir::create_new_file(tmp)?;
+                f.write_all(scenario::STARTER.as_bytes())
+                    .map_err(|e| Error::Write {
+                        path: tmp.to_path_buf(),
+                        source: e,
+                    })
             })?;
             writeln!(stdout.lock(), "wrote {}", path.display())?;
         }
@@ -259,15 +270,32 @@ fn run(args: Args) -> anyhow::Result<()> {
             no_plots,
         } => {
             let window_s = window.as_deref().map(parse_window).transpose()?;
-            if wav_rate < 8000 || !(listen_gain.is_finite() && listen_gain > 0.0) {
-                return Err(Error::BadInput(
-                    "--wav-rate must be at least 8000 Hz and --listen-gain a positive number"
-                        .into(),
-                )
+            if !(WAV_RATE_MIN_HZ..=WAV_RATE_MAX_HZ).contains(&wav_rate) {
+                return Err(Error::BadInput(format!(
+                    "--wav-rate {wav_rate}: the listening files' rate must lie in \
+                     {WAV_RATE_MIN_HZ}..={WAV_RATE_MAX_HZ} Hz (48000 is the default)"
+                ))
+                .into());
+            }
+            if !(listen_gain.is_finite() && listen_gain > 0.0 && listen_gain <= LISTEN_GAIN_MAX) {
+                return Err(Error::BadInput(format!(
+                    "--listen-gain {listen_gain}: give a positive number up to {LISTEN_GAIN_MAX} \
+                     (the gain applied to error.wav)"
+                ))
                 .into());
             }
             let sc = load(scenario.as_deref())?;
             print_warnings(&sc, quiet);
+            if let Some((w0, w1)) = window_s {
+                let end = sc.simulation.duration_s;
+                if w0 < 0.0 || w1 > end {
+                    return Err(Error::BadInput(format!(
+                        "--window {w0} s..{w1} s: the window must lie within the run, 0 s..{end} s \
+                         (simulation.duration); choose START and END inside it"
+                    ))
+                    .into());
+                }
+            }
             let dir = out_dir(out, &sc);
             OutputDir::check(&dir)?;
             let opts = convchain::RunOptions {
@@ -284,6 +312,7 @@ fn run(args: Args) -> anyhow::Result<()> {
                     listen_gain,
                 }),
             };
+            interrupt::install_stop_handler("run");
             let report = convchain::run_to_dir(&sc, &dir, &opts)?;
             let mut o = stdout.lock();
             if json {
@@ -327,18 +356,15 @@ fn run(args: Args) -> anyhow::Result<()> {
                 path: dir.clone(),
                 source: e,
             })?;
-            let tmp = dir.join(format!(".{name}.tmp"));
-            demo_audio::write_file(
-                &tmp,
-                &samples,
-                rate,
-                bits,
-                bits == 32,
-                if stereo { 2 } else { 1 },
-            )?;
-            std::fs::rename(&tmp, &path).map_err(|e| Error::Write {
-                path: path.clone(),
-                source: e,
+            convchain::report::outdir::write_new_file(&path, |tmp| {
+                demo_audio::write_file(
+                    tmp,
+                    &samples,
+                    rate,
+                    bits,
+                    bits == 32,
+                    if stereo { 2 } else { 1 },
+                )
             })?;
             writeln!(stdout.lock(), "wrote {}", path.display())?;
         }
@@ -352,6 +378,7 @@ fn run(args: Args) -> anyhow::Result<()> {
             print_warnings(&sc, quiet);
             let dir = out_dir(out, &sc);
             OutputDir::check(&dir)?;
+            interrupt::install_stop_handler("static");
             let report = convchain::static_to_dir(&sc, &dir)?;
             let mut o = stdout.lock();
             if json {

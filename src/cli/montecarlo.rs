@@ -7,6 +7,7 @@ use std::time::Instant;
 
 use clap::Args;
 
+use convchain::Error;
 use convchain::report::plot::format_si;
 use convchain::scenario::overrides::ScenarioText;
 use convchain::study::montecarlo::{self, McOptions, Requirement, Summary};
@@ -196,6 +197,20 @@ pub fn run(a: McArgs) -> anyhow::Result<()> {
     if let Some(note) = &summary.interrupted {
         return Err(Interrupted(format!(
             "{note}; wrote the finished rows to {} (exit code {INTERRUPTED_EXIT})",
+            dir.display()
+        ))
+        .into());
+    }
+    if summary.runs_done > 0 && summary.runs_failed == summary.runs_done {
+        let first = summary
+            .failures
+            .first()
+            .map(|f| format!("; the first: {}", f.error))
+            .unwrap_or_default();
+        return Err(Error::Run(format!(
+            "every run failed ({} of {}){first} (the rows are in {})",
+            summary.runs_failed,
+            summary.runs_done,
             dir.display()
         ))
         .into());

@@ -96,6 +96,7 @@ pub fn sweep(a: SweepArgs) -> anyhow::Result<()> {
         .iter()
         .map(|v| sweep::parse_vary(v))
         .collect::<Result<Vec<_>, _>>()?;
+    sweep::check_distinct(&vary)?;
     let shard = match &a.shard {
         Some(s) => Shard::parse(s)?,
         None => Shard::WHOLE,
@@ -174,6 +175,7 @@ pub fn limit(a: LimitArgs) -> anyhow::Result<()> {
         progress: !a.quiet && !a.json,
         ..Default::default()
     };
+    interrupt::install_stop_handler("limit");
     let report = limit::find_limits(&text, &opts)?;
     limit::write_limit(&report, &dir)?;
     let mut o = std::io::stdout().lock();

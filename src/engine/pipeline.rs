@@ -394,8 +394,13 @@ fn run_with(
     let mut dec_src = Decimator::new(plan.out_factor);
     let mut dec_out = Decimator::new(plan.out_factor);
     let dec_len = (plan.n_total - plan.n_settle) as usize / plan.out_factor + 16;
-    let mut src_dec: Vec<f64> = take_buffer(if exact_source { 0 } else { dec_len });
-    let mut out_dec: Vec<f64> = take_buffer(dec_len);
+    // The decimated streams keep at most 2 x `dec_keep` samples: older ones are dropped (`dec_dropped` so far),
+    // so memory stays flat however long the run (the record is the last `out_record_len` samples).
+    let dec_keep = plan.out_record_len + BLOCK;
+    let dec_cap = dec_len.min(2 * dec_keep + BLOCK);
+    let mut dec_dropped = 0usize;
+    let mut src_dec: Vec<f64> = take_buffer(if exact_source { 0 } else { dec_cap });
+    let mut out_dec: Vec<f64> = take_buffer(dec_cap);
     // The captured columns: every stream, or (lean) the source and the output; a lean run leaves out a
     // closed-form source that feeds the converter directly (the meters evaluate it exactly; only the group
     // delay of a multitone or chirp reads its grid samples), and then does not generate it on the grid at all.
@@ -555,6 +560,14 @@ fn run_with(
                     dec_src.push(&cols[0][from..], &mut src_dec);
                 }
                 dec_out.push(&out_col[from..], &mut out_dec);
+                if out_dec.len() >= 2 * dec_keep {
+                    let drop = out_dec.len() - dec_keep;
+                    out_dec.drain(..drop);
+                    if !exact_source {
+                        src_dec.drain(..drop);
+                    }
+                    dec_dropped += drop;
+                }
             }
             if end > plan.capture_n0 {
                 let from = plan.capture_n0.saturating_sub(n0) as usize;
@@ -575,28 +588,36 @@ fn run_with(
         std::mem::swap(&mut front_cur, &mut front_prev);
     }
     dec_out.flush(&mut out_dec);
-    if exact_source {
-        src_dec.resize(out_dec.len(), 0.0);
-        chain.source.fill_at(
+    // Counts below are of the whole decimated streams since settle; the vectors hold them from `dec_dropped`.
+    let exact_from = if exact_source {
+        // Evaluate the source from a multiple of FILL_AT_ALIGN at or before the part kept, so the values are
+        // the bits a fill from settle would give.
+        let from = dec_dropped - dec_dropped % crate::stages::source::FILL_AT_ALIGN;
+        src_dec.clear();
+        src_dec.resize(dec_dropped + out_dec.len() - from, 0.0);
+        chain.source.fill_at_from(
             tb.time_s(plan.n_settle),
             plan.out_factor as f64 * tb.dt_s(),
+            from,
             &mut src_dec,
         );
+        from
     } else {
         dec_src.flush(&mut src_dec);
-    }
+        dec_dropped
+    };
 
     // End-aligned output record (n_settle is a multiple of the decimation factor, so the record sits on the
     // output analysis grid).
-    let n_dec = src_dec.len().min(out_dec.len());
+    let n_dec = (exact_from + src_dec.len()).min(dec_dropped + out_dec.len());
     let want = plan.out_record_len.min(n_dec);
     let start = n_dec - want;
     let rec_n0_dec = plan.n_settle / plan.out_factor as u64 + start as u64;
     let out_tb = Timebase::new(plan.out_rate_hz);
     // Trim in place (no second copy of the records at the peak of memory use).
-    for v in [&mut src_dec, &mut out_dec] {
-        v.truncate(start + want);
-        v.drain(..start);
+    for (v, held_from) in [(&mut src_dec, exact_from), (&mut out_dec, dec_dropped)] {
+        v.truncate(start + want - held_from);
+        v.drain(..start - held_from);
         if !lean {
             v.shrink_to_fit();
         }

@@ -40,17 +40,23 @@ impl CsvSink {
             path: path.clone(),
             source: e,
         })?;
+        Ok(Self::from_file(f, path, n_total, full))
+    }
+
+    /// As [`CsvSink::create`], into a file already open (an output folder's temporary, see
+    /// [`crate::report::OutputDir::create_temp`]).
+    pub fn from_file(f: File, path: PathBuf, n_total: u64, full: bool) -> CsvSink {
         let every = if full {
             1
         } else {
             n_total.div_ceil(MAX_ROWS).max(1)
         };
-        Ok(CsvSink {
+        CsvSink {
             path,
             out: BufWriter::with_capacity(1 << 20, f),
             every,
             line: String::with_capacity(256),
-        })
+        }
     }
 
     /// Flush and close; the caller renames the file into place.

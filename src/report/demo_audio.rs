@@ -4,7 +4,6 @@
 //! Samples are in digital full-scale units: +-1.0 is full scale.
 
 use std::f64::consts::PI;
-use std::fs::File;
 use std::io::BufWriter;
 use std::path::Path;
 
@@ -170,10 +169,7 @@ pub fn write_file(
         },
         other => Error::Run(format!("cannot write {}: {other}", path.display())),
     };
-    let file = File::create(path).map_err(|source| Error::Write {
-        path: path.to_path_buf(),
-        source,
-    })?;
+    let file = crate::report::outdir::create_new_file(path)?;
     let mut writer = hound::WavWriter::new(BufWriter::new(file), spec).map_err(write_err)?;
     let full = 2f64.powi(i32::from(bits) - 1);
     for &v in samples {

@@ -16,16 +16,15 @@ pub const STARTER: &str = include_str!("starter.toml");
 pub fn parse_str(text: &str, origin: &str, base_dir: &Path) -> Result<Scenario, ScenarioError> {
     let map = crate::format::reader::SourceMap::new(origin, text);
     let root = crate::format::reader::parse_document(&map)?;
-    validate::build(&map, &root, base_dir)
+    let sc = validate::build(&map, &root, base_dir)?;
+    sanity::check(&map, &root, &sc)?;
+    Ok(sc)
 }
 
 /// Read a scenario file and parse it. An unreadable file gives [`crate::Error::Read`], a bad scenario
 /// [`crate::Error::BadInput`] with the located message.
 pub fn load(path: &Path) -> Result<Scenario, crate::Error> {
-    let text = std::fs::read_to_string(path).map_err(|source| crate::Error::Read {
-        path: path.to_path_buf(),
-        source,
-    })?;
+    let text = crate::text::read_user_text(path, "a scenario file (TOML)")?;
     let base_dir = match path.parent() {
         Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
         _ => PathBuf::from("."),
@@ -155,8 +154,8 @@ impl Spread {
 
 pub mod keys;
 pub mod overrides;
+pub mod sanity;
 mod source_table;
 mod spread;
 mod stage_list;
-
 pub mod validate;

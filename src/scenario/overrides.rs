@@ -63,10 +63,7 @@ pub struct ScenarioText {
 impl ScenarioText {
     /// Read a scenario file (checked once as it is).
     pub fn load(path: &Path) -> Result<ScenarioText> {
-        let text = std::fs::read_to_string(path).map_err(|source| Error::Read {
-            path: path.to_path_buf(),
-            source,
-        })?;
+        let text = crate::text::read_user_text(path, "a scenario file (TOML)")?;
         let base_dir = match path.parent() {
             Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
             _ => std::path::PathBuf::from("."),

@@ -231,18 +231,15 @@ fn wav(r: &mut TableReader<'_, '_>, base_dir: &Path) -> Result<Waveform, Scenari
     } else {
         base_dir.join(&given)
     };
-    let reader = hound::WavReader::open(&path).map_err(|e| {
-        r.error(
-            &file.span,
-            "file",
-            format!("cannot read WAV file {}: {e}", path.display()),
-        )
-        .with_hint(format!(
-            "relative paths are taken from the scenario's folder ({})",
-            base_dir.display()
-        ))
-    })?;
-    let channels = reader.spec().channels;
+    let channels = crate::stages::wav_file::read_channel(&path, 0)
+        .map_err(|e| {
+            r.error(&file.span, "file", crate::stages::wav_file::describe(&e))
+                .with_hint(format!(
+                    "relative paths are taken from the scenario's folder ({})",
+                    base_dir.display()
+                ))
+        })?
+        .channels;
     let channel_index = channel.as_ref().map_or(0, |c| c.value as usize);
     if let Some(c) = &channel
         && c.value >= i128::from(channels)

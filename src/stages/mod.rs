@@ -90,6 +90,7 @@ pub mod registry;
 pub mod roles;
 pub mod slew;
 pub mod source;
+pub mod wav_file;
 
 // The stage kinds, each in its own file (`module => Variant(ConfigType)`), listed once. The list declares the
 // modules and generates `StageKind`, `KIND_NAMES`, `KIND_PARAMS`, `KIND_EXAMPLES` and the dispatch

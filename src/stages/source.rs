@@ -123,6 +123,12 @@ impl SourceGen {
     /// shifted by a fraction of a step) and return true; noise and WAV sources leave `out` alone and return
     /// false. A sine uses a rotation recurrence restarted exactly every 1024 samples.
     pub fn fill_at(&self, t0_s: f64, dt_s: f64, out: &mut [f64]) -> bool {
+        self.fill_at_from(t0_s, dt_s, 0, out)
+    }
+
+    /// As [`fill_at`](Self::fill_at) for the instants `t0_s + (j0 + j) dt_s`: the tail, from index `j0`, of
+    /// what `fill_at` would write. With `j0` a multiple of [`FILL_AT_ALIGN`] the values are the same bits.
+    pub fn fill_at_from(&self, t0_s: f64, dt_s: f64, j0: usize, out: &mut [f64]) -> bool {
         let offset = self.offset_v;
         match &self.kind {
             Kind::Exact(Waveform::Sine {
@@ -135,13 +141,16 @@ impl SourceGen {
                     offset,
                     *amplitude_v,
                     2.0 * PI * *frequency_hz * dt_s,
-                    |j| 2.0 * PI * cycles_frac(*frequency_hz, t0_s + j as f64 * dt_s) + *phase_rad,
+                    |j| {
+                        2.0 * PI * cycles_frac(*frequency_hz, t0_s + (j0 + j) as f64 * dt_s)
+                            + *phase_rad
+                    },
                 );
                 true
             }
             Kind::Exact(w) => {
                 for (j, y) in out.iter_mut().enumerate() {
-                    *y = offset + exact_excursion(w, t0_s + j as f64 * dt_s);
+                    *y = offset + exact_excursion(w, t0_s + (j0 + j) as f64 * dt_s);
                 }
                 true
             }
@@ -202,6 +211,10 @@ impl SourceGen {
 
 /// Samples between exact restarts of [`fill_sine`]'s recurrences.
 const RESTART: usize = 1024;
+
+/// [`SourceGen::fill_at_from`] gives the same bits as [`SourceGen::fill_at`] when it starts at a multiple of
+/// this.
+pub const FILL_AT_ALIGN: usize = RESTART;
 
 /// `out[j] = offset + amp sin(phase_at(j))` for a phase advancing by `w_rad` per sample, by four interleaved
 /// rotations ([`Quad`]) restarted exactly from `phase_at` every [`RESTART`] samples.
@@ -568,19 +581,6 @@ struct WavStream {
     scratch: Vec<f64>,
 }
 
-fn wav_error(path: &Path, e: hound::Error) -> crate::Error {
-    match e {
-        hound::Error::IoError(source) => crate::Error::Read {
-            path: path.to_path_buf(),
-            source,
-        },
-        other => crate::Error::BadInput(format!(
-            "{}: not a readable WAV file ({other})",
-            path.display()
-        )),
-    }
-}
-
 impl GridStream for WavStream {
     fn next_n(&self) -> u64 {
         self.next_n
@@ -604,54 +604,15 @@ impl WavStream {
         repeat: bool,
         rate_hz: f64,
     ) -> Result<WavStream, crate::Error> {
-        let mut reader = hound::WavReader::open(path).map_err(|e| wav_error(path, e))?;
-        let spec = reader.spec();
-        let channels = spec.channels as usize;
-        if channel >= channels {
-            return Err(crate::Error::BadInput(format!(
-                "{}: channel {channel} requested but the file has {channels} channel(s) (channels count from 0)",
-                path.display()
-            )));
-        }
-        let mut data = Vec::with_capacity(reader.duration() as usize);
-        match (spec.sample_format, spec.bits_per_sample) {
-            (hound::SampleFormat::Float, 32) => {
-                for (i, s) in reader.samples::<f32>().enumerate() {
-                    let s = s.map_err(|e| wav_error(path, e))?;
-                    if i % channels == channel {
-                        data.push(s as f64);
-                    }
-                }
-            }
-            (hound::SampleFormat::Int, bits @ 1..=32) => {
-                let scale = 1.0 / f64::powi(2.0, bits as i32 - 1);
-                for (i, s) in reader.samples::<i32>().enumerate() {
-                    let s = s.map_err(|e| wav_error(path, e))?;
-                    if i % channels == channel {
-                        data.push(s as f64 * scale);
-                    }
-                }
-            }
-            (fmt, bits) => {
-                return Err(crate::Error::BadInput(format!(
-                    "{}: unsupported WAV sample format ({bits}-bit {fmt:?}); use 8/16/24/32-bit integer or 32-bit float",
-                    path.display()
-                )));
-            }
-        }
-        if data.is_empty() {
-            return Err(crate::Error::BadInput(format!(
-                "{}: the WAV file has no samples",
-                path.display()
-            )));
-        }
-        let file_rate = spec.sample_rate as f64;
+        let wav = super::wav_file::read_channel(path, channel)?;
+        let data = wav.data;
+        let file_rate = f64::from(wav.rate_hz);
         let end_n = if repeat {
             None
         } else {
             Some((data.len() as f64 * rate_hz / file_rate).ceil() as u64)
         };
-        let resampler = make_resampler(spec.sample_rate, rate_hz)
+        let resampler = make_resampler(wav.rate_hz, rate_hz)
             .map_err(|e| crate::Error::BadInput(format!("{}: {e}", path.display())))?;
         let (in_cap, out_cap, discard) = match &resampler {
             Some(r) => (
@@ -926,6 +887,30 @@ mod tests {
             // value_at's own instant n / rate is rounded to about 1e-16 s: 2 pi f A x 1e-16 s = 2.4e-11 V.
             let want = g.value_at((n0 + i as u64) as f64 / 10.0e6);
             assert!((v - want).abs() < 1e-10, "i {i}: {v} vs {want}");
+        }
+    }
+
+    #[test]
+    fn fill_at_from_an_aligned_index_gives_the_tail_of_fill_at_bit_for_bit() {
+        let sine = Waveform::Sine {
+            frequency_hz: 1234.5,
+            amplitude_v: 2.0,
+            phase_rad: 0.3,
+        };
+        let tri = Waveform::Triangle {
+            frequency_hz: 321.0,
+            amplitude_v: 1.0,
+        };
+        for w in [sine, tri] {
+            let g = gen_for(w, 0.25, 1.0e6, 0);
+            let (t0, dt) = (0.012_345_678_9, 0.37e-6);
+            let mut whole = vec![0.0; 9000];
+            assert!(g.fill_at(t0, dt, &mut whole));
+            for j0 in [0, FILL_AT_ALIGN, 5 * FILL_AT_ALIGN] {
+                let mut tail = vec![0.0; 9000 - j0];
+                assert!(g.fill_at_from(t0, dt, j0, &mut tail));
+                assert!(tail == whole[j0..], "j0 {j0}");
+            }
         }
     }
 

@@ -199,10 +199,7 @@ impl RowSet {
     /// Read `rows.json` from a study folder.
     pub fn read_dir(dir: &Path) -> Result<RowSet> {
         let path = dir.join(ROWS_FILE);
-        let text = std::fs::read_to_string(&path).map_err(|source| Error::Read {
-            path: path.clone(),
-            source,
-        })?;
+        let text = crate::text::read_user_text(&path, "a rows file written by convchain")?;
         let set: RowSet = serde_json::from_str(&text).map_err(|e| {
             Error::BadInput(format!(
                 "{}: not a convchain rows file ({e}); give folders written by `convchain montecarlo` or \
@@ -223,7 +220,81 @@ impl RowSet {
                 path.display()
             )));
         }
+        set.check_rows(&path)?;
         Ok(set)
+    }
+
+    /// Check that the rows agree with the header: the shard is `K/N` with 1 <= K <= N; every row has one cell
+    /// per column, an index below `study.runs` that belongs to the shard, indices rising; cells of the right
+    /// type (`index` and `seed` whole numbers, `error` a string or null, every other cell a number or null);
+    /// and, unless the set says it was interrupted, exactly the shard's rows.
+    fn check_rows(&self, path: &Path) -> Result<()> {
+        let bad = |why: String| {
+            Error::BadInput(format!(
+                "{}: {why}; the file was changed or damaged since convchain wrote it (re-run that shard)",
+                path.display()
+            ))
+        };
+        let runs = self.total_runs().unwrap_or(0);
+        if self.shard.k == 0 || self.shard.k > self.shard.n {
+            return Err(bad(format!(
+                "the header's shard {}/{} is not K/N with 1 <= K <= N",
+                self.shard.k, self.shard.n
+            )));
+        }
+        let mut last: Option<u64> = None;
+        for (r, row) in self.rows.iter().enumerate() {
+            if row.len() != self.columns.len() {
+                return Err(bad(format!(
+                    "row {r} has {} cells for the header's {} columns",
+                    row.len(),
+                    self.columns.len()
+                )));
+            }
+            for (cell, col) in row.iter().zip(&self.columns) {
+                let fits = match col.as_str() {
+                    "index" | "seed" => cell.is_u64(),
+                    "error" => cell.is_string() || cell.is_null(),
+                    _ => cell.is_number() || cell.is_null(),
+                };
+                if !fits {
+                    return Err(bad(format!(
+                        "row {r}, column `{}`: {} is not {}",
+                        crate::text::clip(col),
+                        short(Some(cell)),
+                        match col.as_str() {
+                            "index" | "seed" => "a whole number",
+                            "error" => "a string or null",
+                            _ => "a number or null",
+                        }
+                    )));
+                }
+            }
+            let i = Self::index_of(row).unwrap_or(u64::MAX);
+            if i >= runs || !self.shard.contains(i) {
+                return Err(bad(format!(
+                    "row {r} has index {i}, which is not a run of shard {} of a study of {runs}",
+                    self.shard
+                )));
+            }
+            if last.is_some_and(|l| i <= l) {
+                return Err(bad(format!(
+                    "row {r}: the indices do not rise ({i} after {})",
+                    last.unwrap_or(0)
+                )));
+            }
+            last = Some(i);
+        }
+        let expected = self.shard.count(runs);
+        if self.interrupted.is_none() && self.rows.len() as u64 != expected {
+            return Err(bad(format!(
+                "the header says shard {} of {runs} (complete, not interrupted) but the file holds {} rows \
+                 for its {expected}",
+                self.shard,
+                self.rows.len()
+            )));
+        }
+        Ok(())
     }
 }
 

@@ -82,8 +82,9 @@ fn parse_value(key: &str, text: &str) -> std::result::Result<f64, String> {
 pub fn parse_vary(spec: &str) -> Result<Vary> {
     let bad = |why: String| {
         Error::BadInput(format!(
-            "--vary {spec:?}: {why}; write KEY=FROM..TO, e.g. --vary \"source.frequency=1 kHz..20 kHz\" or \
-             --vary stage.3.slew_rate=1e6..2e7"
+            "--vary \"{}\": {why}; write KEY=FROM..TO, e.g. --vary \"source.frequency=1 kHz..20 kHz\" or \
+             --vary stage.3.slew_rate=1e6..2e7",
+            crate::text::clip(spec)
         ))
     };
     let (key, range) = spec
@@ -99,13 +100,44 @@ pub fn parse_vary(spec: &str) -> Result<Vary> {
     let (from, to) = range
         .split_once("..")
         .ok_or_else(|| bad("no `..` between FROM and TO".into()))?;
+    // "1 kHz...2 kHz" would otherwise read TO as ".2 kHz".
+    if to.starts_with('.') || to.contains("..") {
+        return Err(bad(
+            "more than two dots between FROM and TO; separate them with exactly `..`".into(),
+        ));
+    }
+    let key_name = key.rsplit('.').next().unwrap_or(key);
     let from = parse_value(key, from).map_err(|m| bad(format!("FROM: {m}")))?;
     let to = parse_value(key, to).map_err(|m| bad(format!("TO: {m}")))?;
+    if is_integer_key(key_name) {
+        for (which, v) in [("FROM", from), ("TO", to)] {
+            if v.fract() != 0.0 {
+                return Err(bad(format!(
+                    "{which} = {v}, but `{key_name}` takes whole numbers; give whole FROM and TO"
+                )));
+            }
+        }
+    }
     Ok(Vary {
         key: key.to_string(),
         from,
         to,
     })
+}
+
+/// Refuse a key given twice among the `--vary` options (the grid would hold each point several times, with
+/// the last value winning).
+pub fn check_distinct(vary: &[Vary]) -> Result<()> {
+    for (i, v) in vary.iter().enumerate() {
+        if vary[..i].iter().any(|w| w.key == v.key) {
+            return Err(Error::BadInput(format!(
+                "--vary {}: this key is given twice; give each key once (several --vary make a grid of \
+                 different keys)",
+                crate::text::clip(&v.key)
+            )));
+        }
+    }
+    Ok(())
 }
 
 /// What to sweep.
