@@ -11,7 +11,7 @@ use num_complex::Complex64;
 use super::sinefit::{fit_multitone, fit3};
 use crate::scenario::{ChirpLaw, Waveform};
 use crate::signal::rotation::Quad;
-use crate::stages::source::chirp_cycles;
+use crate::signal::waveform::chirp_cycles;
 
 pub use crate::stages::roles::BudgetLine;
 

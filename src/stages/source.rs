@@ -25,7 +25,7 @@ use rubato::{
 
 use crate::signal::rotation::Quad;
 use crate::signal::stream::Timebase;
-use crate::signal::waveform::{ChirpLaw, Source, Waveform};
+use crate::signal::waveform::{Source, Waveform, chirp_cycles};
 
 /// Order of the Butterworth low-pass that band-limits noise (three biquads).
 const NOISE_FILTER_ORDER: usize = 6;
@@ -306,27 +306,6 @@ fn exact_excursion(w: &Waveform, t_s: f64) -> f64 {
             }
         }
         Waveform::Dc | Waveform::Noise { .. } | Waveform::Wav { .. } => 0.0,
-    }
-}
-
-/// Phase of a chirp in cycles at `t_s` (the sweep restarts, with phase 0, every `sweep_s`).
-///
-/// Linear law: f(tau) = f0 + (f1 - f0) tau / T, cycles = f0 tau + (f1 - f0) tau^2 / (2 T).
-/// Logarithmic law: f(tau) = f0 k^(tau/T), k = f1/f0, cycles = f0 T / ln k (k^(tau/T) - 1). The logarithmic
-/// law needs f0, f1 > 0; otherwise (or when f0 = f1) the linear law is used.
-pub(crate) fn chirp_cycles(f0: f64, f1: f64, sweep_s: f64, law: ChirpLaw, t_s: f64) -> f64 {
-    let mut tau = t_s - (t_s / sweep_s).floor() * sweep_s;
-    if tau >= sweep_s {
-        tau -= sweep_s;
-    }
-    let tau = tau.max(0.0);
-    let log_ok = f0 > 0.0 && f1 > 0.0 && f0 != f1;
-    match law {
-        ChirpLaw::Logarithmic if log_ok => {
-            let ln_k = (f1 / f0).ln();
-            f0 * sweep_s / ln_k * (ln_k * tau / sweep_s).exp_m1()
-        }
-        _ => f0 * tau + (f1 - f0) * tau * tau / (2.0 * sweep_s),
     }
 }
 
@@ -780,6 +759,7 @@ fn gcd(mut a: usize, mut b: usize) -> usize {
 mod tests {
     use super::*;
     use crate::scenario::Tone;
+    use crate::signal::waveform::ChirpLaw;
 
     fn gen_for(w: Waveform, offset_v: f64, rate_hz: f64, seed: u64) -> SourceGen {
         SourceGen::new(
