@@ -30,7 +30,7 @@ const GOLDEN: &[(&str, u64)] = &[
     ("studio-interface/sweep.csv", 0x7dcf3a3402c6cb9b),
     ("default/report.json", 0x768eac7c66f6a4fe),
     ("default/waveforms.csv", 0x1c1ac66f4f6967e5),
-    ("static.json", 0x53ac92228e047744),
+    ("static.json", 0x7a01d9a97d69c6a8),
     ("limit.json", 0x3a37b5bed31a64db),
     ("montecarlo.csv", 0x2e54f4c969a73ea4),
 ];
