@@ -241,6 +241,49 @@ fn static_measures_the_adc_and_the_dac() {
 }
 
 #[test]
+fn static_headline_reads_a_comparator_offset_with_ieee_1241_sign() {
+    // 6 bits over 0..5 V: q = 78.125 mV, so a +100 mV comparator offset (the converter reads its input 100 mV
+    // high) is +1.28 LSB with IEEE Std 1241's sign (offset = ideal transition less the actual one). The headline
+    // is the code-density test with the bench's known sine (IEEE Std 1241 histogram test with a known input);
+    // the slow ramp must agree. Tolerance 0.05 LSB: common practice, no source.
+    let d = tempfile::tempdir().unwrap();
+    let six = IDEAL_CHAIN.replace("bits = 12", "bits = 6");
+    for (name, offset, want) in [
+        ("plain", "", 0.0),
+        ("offset", "comparator_offset = \"100 mV\"\n", 1.28),
+    ] {
+        let text = six
+            .replace(
+                "conversion_time = \"8 us\"\n",
+                &format!("conversion_time = \"8 us\"\n{offset}"),
+            )
+            .replace("name = \"ideal\"", &format!("name = \"{name}\""));
+        fs::write(d.path().join(format!("{name}.toml")), text).unwrap();
+        let o = run_in(d.path(), &["static", &format!("{name}.toml"), "--quiet"]);
+        ok(&o);
+        let r = json(&d.path().join(format!("out/{name}/static.json")));
+        let adc = &r["static"]["adc"];
+        let headline = adc["offset_lsb"].as_f64().unwrap();
+        let ramp = adc["ramp"]["offset_lsb"].as_f64().unwrap();
+        assert!(
+            (headline - want).abs() < 0.05,
+            "{name}: headline offset {headline} LSB, want {want}"
+        );
+        assert!(
+            (ramp - want).abs() < 0.05,
+            "{name}: ramp offset {ramp} LSB, want {want}"
+        );
+        // An offset alone leaves the span: gain error about 0 in both tests.
+        for g in [
+            adc["gain_error_lsb"].as_f64().unwrap(),
+            adc["ramp"]["gain_error_lsb"].as_f64().unwrap(),
+        ] {
+            assert!(g.abs() < 0.1, "{name}: gain error {g} LSB");
+        }
+    }
+}
+
+#[test]
 fn a_run_too_big_for_memory_is_refused_with_advice() {
     let d = tempfile::tempdir().unwrap();
     let text = IDEAL_CHAIN.replace("duration = \"30 ms\"", "duration = \"2000 s\"");
@@ -259,7 +302,10 @@ fn a_run_too_big_for_memory_is_refused_with_advice() {
 fn a_live_input_converter_budget_matches_the_measured_delay() {
     // No outside source: the budget's own model of a converter without a hold (the code follows the input at
     // the finer bit trials) against the measured delay of the same chain. The river-gauge demo: 8 bits, 50 us per
-    // trial, a framed link and an RC filter; the budget must land within 2 % of the conversion time.
+    // trial, a framed link and an RC filter; the budget must land within 3 % of the conversion time. The model
+    // weights the trials as if thresholds were crossed evenly; a sine crosses some faster than others, so the
+    // measured delay depends on where the sine's mean sits in the threshold tree: shifting the offset by quarter
+    // LSBs moved measured - budget between -12.1 us and +3.5 us (450 us conversion) with either transfer.
     let d = tempfile::tempdir().unwrap();
     let sc = repo("scenarios/river-gauge.toml");
     let o = run_in(
@@ -277,6 +323,6 @@ fn a_live_input_converter_budget_matches_the_measured_delay() {
     ok(&o);
     let r: serde_json::Value = serde_json::from_slice(&o.stdout).unwrap();
     let diff = r["latency"]["difference_s"].as_f64().unwrap();
-    assert!(diff.abs() < 0.02 * 450e-6, "measured - budget = {diff:e} s");
+    assert!(diff.abs() < 0.03 * 450e-6, "measured - budget = {diff:e} s");
     assert_eq!(r["latency"]["flagged"], false);
 }

@@ -221,9 +221,10 @@ fn tpdf_dither_makes_the_error_power_independent_of_the_signal() {
     // q^2/12 + 2 q^2/12 = 3 q^2/12 whatever the signal (+4.77 dB); undithered, a signal below half an LSB is
     // simply lost and the error is the signal itself.
     let q = 2.0 / 16.0;
-    // The quiet signal sits in the middle of a code (offset q/2 from the transition at 0 V) with a peak of a
-    // tenth of an LSB, so without dither it never crosses a transition.
-    let (quiet_a, mid) = (0.1 * q, 0.5 * q);
+    // The quiet signal sits in the middle of a code (0 V: the centre of a code under IEEE Std 1241's ideal
+    // transfer, its transitions at +-q/2) with a peak of a tenth of an LSB, so without dither it never crosses a
+    // transition.
+    let (quiet_a, mid) = (0.1 * q, 0.0);
     let tpdf = "dither = \"tpdf\"\ndither_lsb = 2";
     let quiet = error_rms_v(4, quiet_a, mid, tpdf);
     let loud = error_rms_v(4, 0.9, 0.0, tpdf);

@@ -15,9 +15,13 @@ use crate::stages::roles::{Quantizer, Reconstructor};
 /// Static results of the ADC.
 #[derive(Debug, Clone, Serialize)]
 pub struct AdcStatic {
-    /// The code-density (histogram) test with a sine (IEEE Std 1241); its fields sit directly under `static.adc`.
+    /// The code-density (histogram) test with the bench's own sine of known amplitude and offset (IEEE Std
+    /// 1241); its fields sit directly under `static.adc`.
     #[serde(flatten)]
     pub code_density: StaticResult,
+    /// The code-density sine's known amplitude and offset (V).
+    pub code_density_amplitude_v: f64,
+    pub code_density_offset_v: f64,
     pub ramp: StaticResult,
     /// Samples used by each test.
     pub code_density_samples: usize,
@@ -169,6 +173,9 @@ fn adc_static(sc: &Scenario, make: impl Fn() -> Result<Box<dyn Quantizer>>) -> R
     let n_codes = 1usize << bits;
     let q = (hi - lo) / n_codes as f64;
     let fs = probe_adc.sample_rate_hz();
+    // The ideal transfer's origin: ideal transitions at origin + k q (IEEE Std 1241's centred transfer has its
+    // first at low + q/2, a truncating one at low + q).
+    let origin = lo + (probe_adc.ideal_first_transition_lsb() - 1.0) * q;
     // Slow ramp: 16 samples per LSB (capped), from 2 LSB below to 2 LSB above the range.
     let ramp_n = (n_codes * 16).clamp(4096, 1 << 22);
     let v0 = lo - 2.0 * q;
@@ -184,9 +191,12 @@ fn adc_static(sc: &Scenario, make: impl Fn() -> Result<Box<dyn Quantizer>>) -> R
         ramp_v.push(v0 + slope * adc.sample_time_s(k));
         codes.push(ev.code);
     }
-    let ramp = static_test::adc_ramp(&ramp_v, &codes, bits, lo, q);
-    // Code density: a sine overdriven by 2 % around mid-range, coherent with the record, no faster than the
-    // converter allows for a static test; the record then grows to hold at least 8 cycles.
+    let ramp = static_test::adc_ramp(&ramp_v, &codes, bits, origin, q);
+    // Code density: a sine around mid-range, coherent with the record, no faster than the converter allows for a
+    // static test; the record then grows to hold at least 8 cycles. It overdrives the range by 2 % or 2 LSB,
+    // whichever is more, and by twice as much again (up to six times) while an end code is never hit: both end
+    // transitions must lie inside the sine's swing, or they cannot be measured (an offset of more than the
+    // overdrive would otherwise hide).
     let f_want = (fs / 97.3).min(probe_adc.static_sine_limit_hz());
     let cd_n = (n_codes * 64)
         .max((8.0 * fs / f_want).ceil() as usize)
@@ -195,18 +205,34 @@ fn adc_static(sc: &Scenario, make: impl Fn() -> Result<Box<dyn Quantizer>>) -> R
         .map(|(f, _)| f)
         .unwrap_or(f_want);
     let c = 0.5 * (lo + hi);
-    let a = 0.5 * (hi - lo) * 1.02;
+    let half = 0.5 * (hi - lo);
+    let mut over = (0.02 * half).max(2.0 * q);
     let w = 2.0 * std::f64::consts::PI * f;
-    let probe = FnProbe(|t: f64| c + a * (w * t).sin());
-    let mut adc = make()?;
     let mut hist = vec![0u64; n_codes];
-    for k in 0..cd_n as u64 {
-        let ev = adc.convert(k, &probe);
-        hist[ev.code as usize] += 1;
+    let mut a;
+    let mut tries = 0;
+    loop {
+        a = half + over;
+        let probe = FnProbe(|t: f64| c + a * (w * t).sin());
+        let mut adc = make()?;
+        hist.iter_mut().for_each(|h| *h = 0);
+        for k in 0..cd_n as u64 {
+            let ev = adc.convert(k, &probe);
+            hist[ev.code as usize] += 1;
+        }
+        tries += 1;
+        if (hist[0] > 0 && hist[n_codes - 1] > 0) || tries == 6 {
+            break;
+        }
+        over *= 2.0;
     }
-    let code_density = static_test::adc_code_density(&hist, None, None, lo, q);
+    // The bench made the sine, so its amplitude and offset are known (IEEE Std 1241's code-density test with a
+    // known input): offset and gain errors are measured, not fitted away by the end bins.
+    let code_density = static_test::adc_code_density(&hist, Some(a), Some(c), origin, q);
     Ok(AdcStatic {
         code_density,
+        code_density_amplitude_v: a,
+        code_density_offset_v: c,
         ramp,
         code_density_samples: cd_n,
         ramp_samples: ramp_n,

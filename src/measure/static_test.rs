@@ -3,17 +3,21 @@
 //! slow ramp) and for a DAC from its settled output at every code.
 //!
 //! Conventions (all vectors have one entry per code, `M = 2^N` entries):
-//! - ADC: transition `T_k` (k = 1..M-1) is the input level between codes k-1 and k. The ideal converter has
-//!   `T_k = low_v + k q`, i.e. code k ideally covers `[low_v + k q, low_v + (k+1) q)` (a floor quantizer; for a
-//!   rounding quantizer pass `low_v` half an LSB below its lowest reconstruction level).
+//! - ADC: transition `T_k` (k = 1..M-1) is the input level between codes k-1 and k. The functions take the
+//!   ideal transfer's origin `origin_v`, with ideal transitions `T_k = origin_v + k q`: for IEEE Std 1241's
+//!   centred transfer (code k centred on `low + k q`, `T_k = low + (k - 1/2) q`) pass the range's low end less
+//!   half an LSB; for a truncating converter (`T_k = low + k q`), the low end itself.
 //! - Code widths are compared with the average width `q_avg = (T_{M-1} - T_1) / (M - 2)` (gain removed, as the
 //!   end-point line does): `dnl_lsb[k] = (T_{k+1} - T_k) / q_avg - 1` for k = 1..M-2; the end codes 0 and M-1
 //!   are open-ended and their entries are 0.
 //! - `inl_endpoint_lsb[k] = (T_k - (T_1 + (k - 1) q_avg)) / q_avg` (the line through the first and last
 //!   transitions; equal to the running sum of DNL); `inl_bestfit_lsb[k]` is the same against the least-squares
 //!   line through all transitions, in units of that line's slope. Entry 0 (code 0 has no lower transition) is 0.
-//! - `offset_lsb`: error of the first transition, `(T_1 - (low_v + q)) / q`. `gain_error_lsb`: error of the
-//!   span between the first and last transitions, `((T_{M-1} - T_1) - (M - 2) q) / q`. Both in ideal LSB q.
+//! - ADC `offset_lsb`, with IEEE Std 1241's sign (the input-referred offset the converter adds: positive when
+//!   the transitions sit low, so the codes read high): `((origin_v + q) - T_1) / q`. `gain_error_lsb`, with the
+//!   same sign (positive when the codes climb faster than ideal, i.e. the end-point gain G = ideal span /
+//!   actual span exceeds 1): `((M - 2) q - (T_{M-1} - T_1)) / q`. Both in ideal LSB q, terminal-based (first and
+//!   last transitions).
 //! - DAC: `V_k` the settled output at code k. `q_meas = (V_{M-1} - V_0) / (M - 1)`; `dnl_lsb[k] = (V_k -
 //!   V_{k-1}) / q_meas - 1` for k = 1..M-1 (entry 0 is 0); INL end-point against the line through `V_0` and
 //!   `V_{M-1}`, best-fit against the least-squares line, both in units of their slope.
@@ -21,8 +25,8 @@
 /// Result of a static test.
 #[derive(Debug, Clone, PartialEq, serde::Serialize)]
 pub struct StaticResult {
-    /// Offset error (LSB, ideal q): ADC, first transition against its ideal; DAC, zero-code output against its
-    /// ideal.
+    /// Offset error (LSB, ideal q), positive when the converter reads or gives more than ideal: ADC, ideal first
+    /// transition less the actual one (IEEE Std 1241's sign); DAC, zero-code output less its ideal.
     pub offset_lsb: f64,
     /// Gain error (LSB, ideal q): error of the span between the end points (see the module notes).
     pub gain_error_lsb: f64,
@@ -61,12 +65,12 @@ fn max_abs(v: &[f64]) -> f64 {
 }
 
 /// ADC static figures from its transition levels `T_1..T_{M-1}` (V; `transitions_v[k - 1] = T_k`, so
-/// `M = transitions_v.len() + 1` codes), the ideal bottom of the range `low_v` and ideal LSB `lsb_v`
-/// (see the module notes for every definition). Needs at least 3 transitions.
+/// `M = transitions_v.len() + 1` codes), the ideal transfer's origin `origin_v` (ideal `T_k = origin_v + k q`)
+/// and ideal LSB `lsb_v` (see the module notes for every definition). Needs at least 3 transitions.
 ///
 /// # Panics
 /// If fewer than 3 transitions are given.
-pub fn adc_from_transitions(transitions_v: &[f64], low_v: f64, lsb_v: f64) -> StaticResult {
+pub fn adc_from_transitions(transitions_v: &[f64], origin_v: f64, lsb_v: f64) -> StaticResult {
     let nt = transitions_v.len();
     assert!(nt >= 3, "a static test needs at least 3 transitions");
     let m = nt + 1;
@@ -96,8 +100,8 @@ pub fn adc_from_transitions(transitions_v: &[f64], low_v: f64, lsb_v: f64) -> St
         *v = (t(k) - (alpha + beta * k as f64)) / beta;
     }
     StaticResult {
-        offset_lsb: (t(1) - (low_v + lsb_v)) / lsb_v,
-        gain_error_lsb: (span - (m - 2) as f64 * lsb_v) / lsb_v,
+        offset_lsb: ((origin_v + lsb_v) - t(1)) / lsb_v,
+        gain_error_lsb: ((m - 2) as f64 * lsb_v - span) / lsb_v,
         dnl_max_lsb: max_abs(&dnl),
         inl_max_lsb: max_abs(&inl_bf),
         dnl_lsb: dnl,
@@ -114,10 +118,11 @@ pub fn adc_from_transitions(transitions_v: &[f64], low_v: f64, lsb_v: f64) -> St
 /// `S` the total count and `CH_j` the cumulative count of codes 0..=j, the sine's distribution function gives
 /// `T_k = C - A cos(pi CH_{k-1} / S)`.
 ///
-/// A and C: when given, used as is. When neither is given they are taken from the end bins by placing the first
-/// and last transitions at their ideal levels (`low_v + q` and `low_v + (M-1) q`): then offset and gain errors
-/// are 0 by construction and only DNL/INL are measured. When only one is given, the other comes from the same
-/// end-bin relations, averaged over both ends.
+/// A and C: when given (the test's own, known input: IEEE Std 1241's code-density test with a known sine), used as
+/// is, and offset and gain errors are measured. When neither is given they are taken from the end bins by placing
+/// the first and last transitions at their ideal levels (`origin_v + q` and `origin_v + (M-1) q`): then offset
+/// and gain errors are 0 by construction and only DNL/INL are measured. When only one is given, the other comes
+/// from the same end-bin relations, averaged over both ends.
 ///
 /// # Panics
 /// If the histogram has fewer than 4 codes.
@@ -125,7 +130,7 @@ pub fn adc_code_density(
     histogram: &[u64],
     amplitude_v: Option<f64>,
     offset_v: Option<f64>,
-    low_v: f64,
+    origin_v: f64,
     lsb_v: f64,
 ) -> StaticResult {
     let m = histogram.len();
@@ -135,8 +140,8 @@ pub fn adc_code_density(
     // End-bin relations: T_1 = C - A c0, T_{M-1} = C + A c1.
     let c0 = (std::f64::consts::PI * histogram[0] as f64 / s).cos();
     let c1 = (std::f64::consts::PI * histogram[m - 1] as f64 / s).cos();
-    let t1_ideal = low_v + lsb_v;
-    let tl_ideal = low_v + (m - 1) as f64 * lsb_v;
+    let t1_ideal = origin_v + lsb_v;
+    let tl_ideal = origin_v + (m - 1) as f64 * lsb_v;
     let (a, c) = match (amplitude_v, offset_v) {
         (Some(a), Some(c)) => (a, c),
         (None, None) => {
@@ -154,7 +159,7 @@ pub fn adc_code_density(
             c - a * (std::f64::consts::PI * cum as f64 / s).cos()
         })
         .collect();
-    adc_from_transitions(&transitions, low_v, lsb_v)
+    adc_from_transitions(&transitions, origin_v, lsb_v)
 }
 
 /// Ramp test: `ramp_v[i]` is the known input at sample i (a slow linear ramp, rising or falling) and `codes[i]`
@@ -166,7 +171,13 @@ pub fn adc_code_density(
 ///
 /// # Panics
 /// If the lengths differ, `bits` is not in 2..=24, or fewer than 2 samples are given.
-pub fn adc_ramp(ramp_v: &[f64], codes: &[u32], bits: u32, low_v: f64, lsb_v: f64) -> StaticResult {
+pub fn adc_ramp(
+    ramp_v: &[f64],
+    codes: &[u32],
+    bits: u32,
+    origin_v: f64,
+    lsb_v: f64,
+) -> StaticResult {
     assert_eq!(ramp_v.len(), codes.len(), "one code per ramp sample");
     assert!((2..=24).contains(&bits), "bits must be 2..=24");
     let len = ramp_v.len();
@@ -198,7 +209,7 @@ pub fn adc_ramp(ramp_v: &[f64], codes: &[u32], bits: u32, low_v: f64, lsb_v: f64
             }
         })
         .collect();
-    adc_from_transitions(&transitions, low_v, lsb_v)
+    adc_from_transitions(&transitions, origin_v, lsb_v)
 }
 
 /// DAC static figures from the settled output at every code, `levels_v[k]` = output (V) at code k (M = length,
@@ -315,15 +326,17 @@ mod tests {
 
     #[test]
     fn offset_and_gain_errors_are_read_from_the_end_transitions() {
-        // Every transition shifted by +0.25 q and the span stretched by 2 %: offset 0.25 LSB, gain error
-        // 0.02 * (M - 2) LSB, and no DNL (the average width absorbs the gain).
+        // Every transition shifted by +0.25 q and the span stretched by 2 %: the converter reads 0.25 LSB low and
+        // climbs slower than ideal, so with IEEE Std 1241's sign (offset = ideal T_1 - T_1; gain G = ideal span /
+        // actual span) offset -0.25 LSB, gain error -0.02 * (M - 2) LSB, and no DNL (the average width absorbs
+        // the gain).
         let q = 1.0;
         let t: Vec<f64> = (1..32)
             .map(|k| 0.25 + 1.0 + (k - 1) as f64 * 1.02)
             .collect();
         let r = adc_from_transitions(&t, 0.0, q);
         assert!(
-            (r.offset_lsb - 0.25).abs() < 1e-12 && (r.gain_error_lsb - 0.02 * 30.0).abs() < 1e-9
+            (r.offset_lsb + 0.25).abs() < 1e-12 && (r.gain_error_lsb + 0.02 * 30.0).abs() < 1e-9
         );
         assert!(all_zero(&r.dnl_lsb, 1e-12) && all_zero(&r.inl_bestfit_lsb, 1e-12));
     }

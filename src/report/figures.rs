@@ -84,7 +84,9 @@ pub fn run_figures(
             .filter(|e| e.t_sample_s >= t0 && e.t_sample_s <= t1)
         {
             s_t.push(e.t_sample_s);
-            s_v.push(a.range_v.0 + (e.code as f64 + 0.5) * q);
+            // The converted value of code k is the level the ideal DAC gives for it, low + k q: the centre of
+            // the code under IEEE Std 1241's ideal transfer.
+            s_v.push(a.range_v.0 + e.code as f64 * q);
         }
         // The staircase starts with the level in force at the window's left edge.
         let first = run

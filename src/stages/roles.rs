@@ -47,6 +47,9 @@ pub trait Quantizer: Send {
     fn range_v(&self) -> (f64, f64);
     /// Rate at which conversions start (Hz).
     fn sample_rate_hz(&self) -> f64;
+    /// Where the ideal transfer's first transition sits above the range's low end (LSB): 1/2 for IEEE Std
+    /// 1241's centred transfer, 1 for a truncating one. Static tests measure offsets against it.
+    fn ideal_first_transition_lsb(&self) -> f64;
     /// The highest sine frequency a static code-density test may use (Hz): a converter that sees its input
     /// move during a conversion needs a slower one. Infinite when any will do.
     fn static_sine_limit_hz(&self) -> f64 {

@@ -6,8 +6,12 @@
 //! The code is available at t_k + conversion_time.
 //!
 //! Internally the comparison is done in LSB units, u = (v - low)/q with q = (high - low)/2^bits, against the
-//! DAC level in LSB units (the sum of the trial weights). With nominal weights 2^(bits-1-i) the result is
-//! exactly `floor(u)` clipped to 0..2^bits - 1, i.e. [`SarAdc::ideal_code`].
+//! trial level of the internal DAC in LSB units: the sum of the trial weights, less half an LSB for the
+//! centred transfer (`transfer = "centred"`, the default: the internal DAC's levels are offset by half an LSB)
+//! or as is for the truncating one. With nominal weights 2^(bits-1-i) the centred result is code k for
+//! u in [k - 1/2, k + 1/2), clipped to 0..2^bits - 1: the ideal transfer of IEEE Std 1241 (code k centred on
+//! low + k q, its transitions half an LSB either side), and the truncating result is `floor(u)` clipped; both
+//! are [`SarAdc::ideal_code`].
 //!
 //! Capacitor mismatch follows a charge-redistribution array: bit i is made of 2^(bits-1-i) unit capacitors
 //! and one more unit capacitor terminates the array (2^bits units in all). Each unit has a relative sigma
@@ -53,6 +57,28 @@ pub enum DitherKind {
     Tpdf,
 }
 
+/// Where the ideal transfer puts its transitions.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Transfer {
+    /// IEEE Std 1241's ideal transfer: code k covers low + (k - 1/2) q .. low + (k + 1/2) q, so the ideal DAC's
+    /// level for k (low + k q) sits in the middle of the code.
+    Centred,
+    /// A plain truncating comparator chain: code k covers low + k q .. low + (k + 1) q (a -1/2 LSB offset
+    /// against the centred transfer).
+    Truncating,
+}
+
+impl Transfer {
+    /// How far below the sum of the trial weights the internal DAC's trial level sits (LSB).
+    pub fn trial_shift_lsb(self) -> f64 {
+        match self {
+            Transfer::Centred => 0.5,
+            Transfer::Truncating => 0.0,
+        }
+    }
+}
+
 /// `kind = "sar_adc"`
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
 pub struct SarAdcCfg {
@@ -76,6 +102,8 @@ pub struct SarAdcCfg {
     pub dither: DitherKind,
     /// Dither size, LSB peak-to-peak.
     pub dither_lsb: f64,
+    /// Centred (IEEE Std 1241 ideal transfer, the default) or truncating.
+    pub transfer: Transfer,
     /// The scenario gave `clock` (rather than `conversion_time`): an ablation that speeds the converter up
     /// edits the key that was written.
     #[serde(skip)]
@@ -119,6 +147,7 @@ comparator_noise = "0.5 mV""#;
             Param::spread("capacitor_mismatch", D::Ratio),
             Param::fixed("dither", ParamKind::Choice(&["none", "rpdf", "tpdf"])),
             Param::spread("dither_lsb", D::Ratio),
+            Param::fixed("transfer", ParamKind::Choice(&["centred", "truncating"])),
         ]
     };
 
@@ -340,6 +369,15 @@ fn read_sar(r: &mut TableReader<'_, '_>) -> std::result::Result<SarAdcCfg, Scena
         (None, DitherKind::Rpdf) => 1.0,
         (None, DitherKind::Tpdf) => 2.0,
     };
+    let transfer = r
+        .choice(
+            "transfer",
+            &[
+                ("centred", Transfer::Centred),
+                ("truncating", Transfer::Truncating),
+            ],
+        )?
+        .map_or(Transfer::Centred, |q| q.value);
     Ok(SarAdcCfg {
         bits,
         range_v,
@@ -353,6 +391,7 @@ fn read_sar(r: &mut TableReader<'_, '_>) -> std::result::Result<SarAdcCfg, Scena
         capacitor_mismatch,
         dither,
         dither_lsb,
+        transfer,
         clock_given: clock.is_some(),
     })
 }
@@ -454,6 +493,7 @@ impl SarAdc {
             AdcInput::Live => None,
         };
         let offset = self.cfg.comparator_offset_v;
+        let shift = self.cfg.transfer.trial_shift_lsb();
         let noise_sigma = self.cfg.comparator_noise_v;
         let mut code: u64 = 0;
         let mut level = 0.0;
@@ -472,7 +512,7 @@ impl SarAdc {
             let u = (v + offset + noise - low) / q + dither;
             for (i, w) in self.weights_lsb.iter().enumerate() {
                 let trial = level + w;
-                let keep = u >= trial;
+                let keep = u >= trial - shift;
                 level = if keep { trial } else { level };
                 code |= u64::from(keep) << (n as usize - 1 - i);
             }
@@ -504,7 +544,7 @@ impl SarAdc {
             };
             let u = (v + offset + noise - low) / q + dither;
             let trial = level + self.weights_lsb[i];
-            if u >= trial {
+            if u >= trial - shift {
                 level = trial;
                 code |= 1u64 << (n as usize - 1 - i);
             }
@@ -526,11 +566,17 @@ impl SarAdc {
         self.clipped
     }
 
-    /// Ideal transfer: `floor((v - low)/q)` clipped to 0..2^bits - 1 (the naive oracle for tests and static
-    /// tests).
+    /// Ideal transfer (the naive oracle for tests and static tests), with u = (v - low)/q: centred, code k for
+    /// u in [k - 1/2, k + 1/2) (IEEE Std 1241); truncating, `floor(u)`; both clipped to 0..2^bits - 1. The
+    /// half is added after the floor (`u - floor(u)` is exact), so the oracle rounds nowhere the SAR does not.
     pub fn ideal_code(cfg: &SarAdcCfg, v: f64) -> u32 {
         let full = f64::powi(2.0, cfg.bits as i32);
-        let x = ((v - cfg.range_v.0) / cfg.lsb_v()).floor();
+        let u = (v - cfg.range_v.0) / cfg.lsb_v();
+        let k = u.floor();
+        let x = match cfg.transfer {
+            Transfer::Centred if u - k >= 0.5 => k + 1.0,
+            _ => k,
+        };
         if x >= full {
             (full - 1.0) as u32
         } else if x >= 0.0 {
@@ -546,7 +592,8 @@ impl SarAdc {
     /// Computed exactly from the trial weights: code c results for inputs u (LSB units) with
     /// DAC(c) <= u < min over the 0-bits i of c of (DAC(bits of c above i) + w_i), which may be empty (a
     /// missing code). The output code never decreases as the input rises, so the transition into k is the
-    /// DAC level of the first non-empty code at or above k. Allocates 2^bits - 1 values: meant for static
+    /// DAC level of the first non-empty code at or above k, less the trial shift of the centred transfer (half
+    /// an LSB, the same for every trial, so the empty codes do not change). Allocates 2^bits - 1 values: meant for static
     /// tests of converters up to about 24 bits.
     pub fn transition_levels_v(&self) -> Vec<f64> {
         let n = self.cfg.bits as usize;
@@ -589,7 +636,8 @@ impl SarAdc {
         let low = self.cfg.range_v.0;
         let q = self.cfg.lsb_v();
         let off = self.cfg.comparator_offset_v;
-        t_lsb.iter().map(|t| low + t * q - off).collect()
+        let shift = self.cfg.transfer.trial_shift_lsb();
+        t_lsb.iter().map(|t| low + (t - shift) * q - off).collect()
     }
 }
 
@@ -628,6 +676,9 @@ impl Quantizer for SarQuantizer {
     }
     fn sample_rate_hz(&self) -> f64 {
         self.adc.cfg.effective_sample_rate_hz()
+    }
+    fn ideal_first_transition_lsb(&self) -> f64 {
+        1.0 - self.adc.cfg.transfer.trial_shift_lsb()
     }
     /// Without a hold the input moves during the bit trials: a static test's sine must move under a
     /// twentieth of an LSB during a conversion (a full-scale sine moves at most 2 pi f A t_conv).
@@ -694,6 +745,7 @@ mod tests {
             capacitor_mismatch: 0.0,
             dither: DitherKind::None,
             dither_lsb: 0.0,
+            transfer: Transfer::Centred,
             clock_given: true,
         }
     }
@@ -710,10 +762,15 @@ mod tests {
 
     #[test]
     fn ideal_sar_equals_the_naive_quantizer_for_every_width() {
-        // Oracle: the naive quantizer floor((v - low)/q), clipped (definition of the ideal converter).
+        // Oracle: the naive quantizer, clipped: centred, code k for (v - low)/q in [k - 1/2, k + 1/2) (IEEE Std
+        // 1241's ideal transfer); truncating, floor((v - low)/q).
         let mut rng = ChaCha8Rng::seed_from_u64(5);
-        for bits in 1..=24 {
-            let c = cfg(bits);
+        for (bits, transfer) in (1..=24)
+            .map(|b| (b, Transfer::Centred))
+            .chain([4, 12, 24].map(|b| (b, Transfer::Truncating)))
+        {
+            let mut c = cfg(bits);
+            c.transfer = transfer;
             let mut a = adc(&c, 1);
             let span = c.range_v.1 - c.range_v.0;
             let q = c.lsb_v();
@@ -722,7 +779,7 @@ mod tests {
                 let v = if j % 10 == 0 {
                     // Exactly on a transition of the ideal transfer.
                     let k = rng.random_range(0..(1u64 << bits));
-                    c.range_v.0 + k as f64 * q
+                    c.range_v.0 + (k as f64 - transfer.trial_shift_lsb()) * q
                 } else {
                     c.range_v.0 - 0.05 * span + 1.1 * span * rng.random::<f64>()
                 };
@@ -730,7 +787,7 @@ mod tests {
                     outside += 1;
                 }
                 let got = code_of(&mut a, v);
-                assert_eq!(got, SarAdc::ideal_code(&c, v), "bits {bits}, v {v}");
+                assert_eq!(got, SarAdc::ideal_code(&c, v), "{transfer:?}, bits {bits}, v {v}");
             }
             assert_eq!(a.codes_clipped(), outside, "bits {bits}");
             assert!(outside > 0);
@@ -738,14 +795,101 @@ mod tests {
     }
 
     #[test]
-    fn ideal_transition_levels_are_low_plus_k_lsb() {
-        let c = cfg(10);
-        let t = adc(&c, 0).transition_levels_v();
-        assert_eq!(t.len(), 1023);
-        for (i, v) in t.iter().enumerate() {
-            let want = c.range_v.0 + (i + 1) as f64 * c.lsb_v();
-            assert!((v - want).abs() < 1e-12);
+    fn ideal_transition_levels_sit_half_an_lsb_below_each_code() {
+        // IEEE Std 1241 ideal transfer: T_k = low + (k - 1/2) q; the truncating option has T_k = low + k q.
+        for (transfer, half) in [(Transfer::Centred, 0.5), (Transfer::Truncating, 0.0)] {
+            let mut c = cfg(10);
+            c.transfer = transfer;
+            let mut a = adc(&c, 0);
+            let t = a.transition_levels_v();
+            assert_eq!(t.len(), 1023);
+            let q = c.lsb_v();
+            for (i, v) in t.iter().enumerate() {
+                let k = (i + 1) as f64;
+                let want = c.range_v.0 + (k - half) * q;
+                assert!((v - want).abs() < 1e-12, "{transfer:?}: T_{k} = {v}, want {want}");
+                // The converter itself agrees on either side.
+                assert_eq!(code_of(&mut a, want - 1e-6 * q) as usize, i);
+                assert_eq!(code_of(&mut a, want + 1e-6 * q) as usize, i + 1);
+            }
         }
+    }
+
+    #[test]
+    fn the_oracle_and_the_sar_agree_on_random_inputs_with_offset_and_levels() {
+        // The centred oracle against the SAR with a comparator offset: the SAR's code for v is the oracle's for
+        // v + offset (the comparator sees v + offset), and transition_levels_v brackets it.
+        let mut c = cfg(8);
+        c.comparator_offset_v = 0.37 * c.lsb_v();
+        let mut a = adc(&c, 2);
+        let t = a.transition_levels_v();
+        let mut rng = ChaCha8Rng::seed_from_u64(21);
+        let span = c.range_v.1 - c.range_v.0;
+        for _ in 0..20_000 {
+            let v = c.range_v.0 - 0.03 * span + 1.06 * span * rng.random::<f64>();
+            let got = code_of(&mut a, v);
+            let mut shifted = c;
+            shifted.comparator_offset_v = 0.0;
+            let near = t.iter().any(|x| (x - v).abs() < 1e-9);
+            if !near {
+                assert_eq!(got, SarAdc::ideal_code(&shifted, v + c.comparator_offset_v), "v {v}");
+                assert_eq!(got as usize, t.partition_point(|x| *x <= v), "v {v}");
+            }
+        }
+    }
+
+    #[test]
+    fn an_ideal_adc_dac_pair_returns_the_input_within_half_an_lsb_without_bias() {
+        // IEEE Std 1241 ideal transfer: code k stands for low + k q, and its inputs lie within half an LSB of
+        // it; the ideal DAC (IEEE Std 1658) gives low + k q for code k. 8 bits, 0..5 V: q = 19.53125 mV.
+        use crate::stages::dac::{Dac, DacCfg, Ladder, ToleranceDistribution};
+        use crate::stages::slew::OutputAmpCfg;
+        let mut c = cfg(8);
+        c.range_v = (0.0, 5.0);
+        let dcfg = DacCfg {
+            bits: 8,
+            range_v: (0.0, 5.0),
+            range_given: true,
+            ladder: Ladder::Ideal,
+            tolerance: 0.0,
+            tolerance_distribution: ToleranceDistribution::Uniform,
+            offset_v: 0.0,
+            gain_error: 0.0,
+            output: OutputAmpCfg::default(),
+        };
+        let dac = Dac::new(&dcfg, &mut ChaCha8Rng::seed_from_u64(0));
+        let mut a = adc(&c, 0);
+        let q = c.lsb_v();
+        // 2.51 V is 128.512 LSB: code 129, 2.51953 V out (the truncating comparator gave 128, 2.5 V).
+        let code = code_of(&mut a, 2.51);
+        assert_eq!(code, 129);
+        let out = dac.level_v(code);
+        assert!((out - 2.51).abs() <= 0.5 * q, "2.51 V -> {out} V");
+        // A slow ramp over whole codes (1 to 254, 1000 points per code, midpoints of the sub-intervals): the
+        // error's mean is zero and its extremes are +-1/2 LSB.
+        let per_code = 1000;
+        let (lo_code, hi_code) = (1, 254);
+        let n = (hi_code - lo_code) * per_code;
+        let (mut sum, mut worst) = (0.0, 0.0f64);
+        for j in 0..n {
+            let v = (lo_code as f64 + (j as f64 + 0.5) / per_code as f64) * q;
+            let e = dac.level_v(code_of(&mut a, v)) - v;
+            sum += e;
+            worst = worst.max(e.abs());
+        }
+        let mean = sum / n as f64;
+        assert!(mean.abs() < 1e-6 * q, "mean error {} LSB", mean / q);
+        assert!(worst <= 0.5 * q + 1e-12 && worst > 0.49 * q, "worst {} LSB", worst / q);
+        // The truncating option keeps its -1/2 LSB mean error.
+        c.transfer = Transfer::Truncating;
+        let mut t = adc(&c, 0);
+        let sum_t: f64 = (0..n)
+            .map(|j| {
+                let v = (lo_code as f64 + (j as f64 + 0.5) / per_code as f64) * q;
+                dac.level_v(code_of(&mut t, v)) - v
+            })
+            .sum();
+        assert!((sum_t / n as f64 / q + 0.5).abs() < 1e-6);
     }
 
     #[test]
@@ -924,7 +1068,8 @@ mod tests {
 
     #[test]
     fn dither_makes_the_mean_code_follow_the_input() {
-        // With RPDF dither of 1 LSB, or TPDF of 2 LSB peak-to-peak, E[floor(x + d)] = x - 1/2 for every x, and
+        // With RPDF dither of 1 LSB, or TPDF of 2 LSB peak-to-peak, E[floor(x + d)] = x - 1/2 for every x (so the
+        // centred transfer, floor(x + 1/2 + d), has mean code x), and
         // with TPDF the error variance is 1/4 LSB^2 independent of x (from memory: R. A. Wannamaker, S. P.
         // Lipshitz, J. Vanderkooy, J. N. Wright, "A theory of nonsubtractive dither", IEEE Trans. Signal
         // Processing, 2000).
@@ -947,7 +1092,7 @@ mod tests {
                 let mean = s / n as f64;
                 let var = s2 / n as f64 - mean * mean;
                 // The mean over 4e4 draws is within 0.005 LSB (4 sigma).
-                assert!((mean + 0.5).abs() < 0.01, "{kind:?} at {x}: mean {mean}");
+                assert!(mean.abs() < 0.01, "{kind:?} at {x}: mean {mean}");
                 if kind == DitherKind::Tpdf {
                     assert!((var / 0.25 - 1.0).abs() < 0.04, "TPDF at {x}: var {var}");
                 }
@@ -992,7 +1137,8 @@ mod tests {
             let u = (v + c.comparator_offset_v - c.range_v.0) / c.lsb_v() + dither;
             let (mut code, mut level) = (0u32, 0.0);
             for (i, w) in twin.weights_lsb.iter().enumerate() {
-                if u >= level + w {
+                // The centred transfer's trial level: the weights' sum less half an LSB.
+                if u >= level + w - 0.5 {
                     level += w;
                     code |= 1 << (11 - i);
                 }
