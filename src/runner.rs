@@ -183,7 +183,7 @@ pub fn nominal_gain(sc: &Scenario) -> f64 {
     let mut g = 1.0;
     for st in &sc.stages {
         g *= st.kind.passband_gain(&up);
-        st.kind.clone().resolve(&mut up);
+        st.kind.pass_on(&mut up);
     }
     g
 }

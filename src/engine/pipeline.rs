@@ -192,7 +192,7 @@ impl Chain {
             ctx.pending_hold = pending_hold.take();
             let runtime = stage.kind.build(&mut ctx)?;
             pending_hold = ctx.pending_hold.take();
-            stage.kind.clone().resolve(&mut up);
+            stage.kind.pass_on(&mut up);
             match runtime {
                 Runtime::Analog(a) => {
                     if converter.is_some() {

@@ -90,7 +90,7 @@ impl<'a> Bench<'a> {
                 }
                 _ => {}
             }
-            st.kind.clone().resolve(&mut up);
+            st.kind.pass_on(&mut up);
         }
         Ok(bench)
     }

@@ -107,7 +107,7 @@ pub fn check(name: &str) {
     let tb = Timebase::new(sc.simulation.analog_rate_hz);
     let mut up = Upstream::default();
     for s in &sc.stages[..index - 1] {
-        s.kind.clone().resolve(&mut up);
+        s.kind.pass_on(&mut up);
     }
     let build = || {
         let mut ctx = build_context(3, index as u64, "x", Some(tb), up);

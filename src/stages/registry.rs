@@ -75,6 +75,12 @@ macro_rules! stage_kinds {
                 }
             }
 
+            /// Tell `up` what this (resolved) stage hands to the stages after it, as [`resolve`](Self::resolve)
+            /// does, without changing the stage.
+            pub fn pass_on(&self, up: &mut $crate::stages::kind::Upstream) {
+                self.clone().resolve(up);
+            }
+
             pub fn ablations(&self) -> Vec<$crate::stages::kind::Ablation> {
                 match self {
                     $(StageKind::$variant(c) => <$crate::stages::$($path)::+ as $crate::stages::kind::KindSpec>::ablations(c),)+
