@@ -4,6 +4,7 @@
 use crate::engine::decimate::PASSBAND_FRACTION;
 use crate::engine::pipeline::si;
 use crate::error::{Error, Result};
+use crate::measure::coherent::{Placement, is_smooth, place_tone};
 use crate::scenario::{Scenario, Waveform};
 use crate::signal::stream::Timebase;
 use crate::stages::kind::Role;
@@ -33,6 +34,10 @@ pub struct Plan {
     pub frequency_hz: Option<f64>,
     /// Whole cycles of the source in the analysis record, when moved for coherence.
     pub coherent_cycles: Option<u64>,
+    /// How the test tone and the record were fitted to each other.
+    pub tone: TonePlacement,
+    /// The scenario's own duration, when the run was lengthened to place the tone coherently.
+    pub lengthened_from_s: Option<f64>,
     /// Decimation from the grid to the output analysis stream.
     pub out_factor: usize,
     pub out_rate_hz: f64,
@@ -45,6 +50,32 @@ pub struct Plan {
     pub capture_len: usize,
     pub memory_estimate_bytes: u64,
 }
+
+/// How a sine source and the analysis record were fitted to each other.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum TonePlacement {
+    /// Not a sine source, or `analysis.coherent = false`: the tone is analysed as asked, with the window.
+    AsAsked,
+    /// Moved to a whole, odd number of cycles coprime with the record length, by at most
+    /// [`PLACEMENT_TOLERANCE`](crate::measure::coherent::PLACEMENT_TOLERANCE) (see [`place_tone`](crate::measure::coherent::place_tone)).
+    Coherent,
+    /// Coherence was asked for but no record within the run holds the tone to within the tolerance (too few
+    /// cycles even after lengthening, or the tone at or above half the record's rate): analysed as asked,
+    /// non-coherently, with the window.
+    NonCoherent,
+}
+
+/// Room for the analysis record: its rate, the longest record the run allows, and whether that length was cut
+/// to [`RECORD_MAX`] (then lengthening the run does not lengthen the record).
+struct RecordRoom {
+    rate_hz: f64,
+    n_max: usize,
+    capped: bool,
+}
+
+/// A run is lengthened for coherent placement only up to this many grid steps (or its own length if larger):
+/// about half a second of engine time.
+const LENGTHEN_MAX_STEPS: f64 = 5e7;
 
 /// The converter's part of the plan.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -59,9 +90,42 @@ pub struct AdcPlan {
 }
 
 impl Plan {
-    /// Work out rates and records for a scenario. Returns the scenario as it will run (a sine source moved to the
-    /// coherent frequency when asked).
+    /// Work out rates and records for a scenario. Returns the scenario as it will run: a sine source moved to the
+    /// coherent frequency when asked, and the duration lengthened when the record is too short to hold the tone
+    /// coherently within [`PLACEMENT_TOLERANCE`](crate::measure::coherent::PLACEMENT_TOLERANCE) (bounded by [`LENGTHEN_MAX_STEPS`]; otherwise the tone is
+    /// analysed non-coherently, see [`TonePlacement`]).
     pub fn new(scenario: &Scenario) -> Result<(Plan, Scenario)> {
+        let (plan, sc, room) = Plan::build(scenario)?;
+        if plan.tone != TonePlacement::NonCoherent || room.capped {
+            return Ok((plan, sc));
+        }
+        let Some(f_hz) = scenario.source.waveform.fundamental_hz() else {
+            return Ok((plan, sc));
+        };
+        let sim = &scenario.simulation;
+        let max_steps = LENGTHEN_MAX_STEPS.max(plan.n_total as f64);
+        let mut n = room.n_max;
+        loop {
+            n = (n + n / 4).max(n + 1);
+            let extra_s = (n - room.n_max) as f64 / room.rate_hz;
+            if (sim.duration_s + extra_s) * sim.analog_rate_hz > max_steps {
+                return Ok((plan, sc));
+            }
+            if place_tone(f_hz, room.rate_hz, n, 16, min_cycles(scenario)).is_some() {
+                let mut longer = scenario.clone();
+                // One record sample more than needed, so rounding to the grid cannot cut the record short.
+                longer.simulation.duration_s = sim.duration_s + extra_s + 1.0 / room.rate_hz;
+                let (mut p2, sc2, _) = Plan::build(&longer)?;
+                if p2.tone == TonePlacement::Coherent {
+                    p2.lengthened_from_s = Some(sim.duration_s);
+                    return Ok((p2, sc2));
+                }
+                return Ok((plan, sc));
+            }
+        }
+    }
+
+    fn build(scenario: &Scenario) -> Result<(Plan, Scenario, RecordRoom)> {
         let mut sc = scenario.clone();
         let sim = &sc.simulation;
         let timebase = Timebase::new(sim.analog_rate_hz);
@@ -81,7 +145,27 @@ impl Plan {
         }
         let band = sc.analysis.band_hz;
         let f_src = sc.source.waveform.highest_frequency_hz();
+        // The tone to place coherently, when asked.
+        let tone_hz = match &sc.source.waveform {
+            Waveform::Sine { frequency_hz, .. } if sc.analysis.coherent => Some(*frequency_hz),
+            _ => None,
+        };
+        let min_cycles = min_cycles(&sc);
+        // The record length for a room of `n_max` samples at `fs`: placed with the tone, or the longest smooth
+        // length (fast FFTs) when there is no tone to place or it cannot be placed.
+        let record = |n_max: usize, fs: f64| -> (usize, Option<Placement>) {
+            match tone_hz.and_then(|f| place_tone(f, fs, n_max, 16, min_cycles)) {
+                Some(p) => (p.record_len, Some(p)),
+                None => (smooth_at_most(n_max), None),
+            }
+        };
 
+        let mut room = RecordRoom {
+            rate_hz: 1.0,
+            n_max: 0,
+            capped: false,
+        };
+        let mut placement = None;
         let (adc, out_factor, ratio_integer) = match adc_cfg {
             Some(a) => {
                 let fs = a.sample_rate_hz;
@@ -100,12 +184,17 @@ impl Plan {
                 // Records longer than RECORD_MAX output samples add nothing to the meters but memory: keep the
                 // last part of the window.
                 let per_code = sim.analog_rate_hz / factor as f64 / fs;
-                // A length with only small prime factors keeps every FFT of the record fast (no chirp-z
-                // fallback for a large prime factor); it gives up at most a few per cent of the window.
-                let m_keep =
-                    smooth_at_most(m.min((RECORD_MAX as f64 / per_code).floor()) as usize) as f64;
-                let k0 = (sim.settle_s * fs).ceil() as u64 + (m - m_keep) as u64;
-                let m = m_keep;
+                let cap = (RECORD_MAX as f64 / per_code).floor();
+                let n_max = m.min(cap) as usize;
+                room = RecordRoom {
+                    rate_hz: fs,
+                    n_max,
+                    capped: cap < m,
+                };
+                let (m_keep, placed) = record(n_max, fs);
+                placement = placed;
+                let k0 = (sim.settle_s * fs).ceil() as u64 + (m as usize - m_keep) as u64;
+                let m = m_keep as f64;
                 (
                     Some(AdcPlan {
                         sample_rate_hz: fs,
@@ -137,7 +226,17 @@ impl Plan {
                 a.record_len * (out_rate_hz / a.sample_rate_hz).round() as usize
             }
             Some(a) => (a.record_len as f64 / a.sample_rate_hz * out_rate_hz).floor() as usize,
-            None => smooth_at_most(((window_s * out_rate_hz).floor() as usize).min(RECORD_MAX)),
+            None => {
+                let room_n = (window_s * out_rate_hz).floor().max(0.0) as usize;
+                room = RecordRoom {
+                    rate_hz: out_rate_hz,
+                    n_max: room_n.min(RECORD_MAX),
+                    capped: room_n > RECORD_MAX,
+                };
+                let (n, placed) = record(room.n_max, out_rate_hz);
+                placement = placed;
+                n
+            }
         };
         if out_record_len < 16 {
             return Err(Error::BadInput(format!(
@@ -152,17 +251,17 @@ impl Plan {
         // Coherent sampling: move a sine to J cycles in the record (J odd, coprime with the record length).
         let requested_frequency_hz = sc.source.waveform.fundamental_hz();
         let mut coherent_cycles = None;
-        if sc.analysis.coherent
-            && let Waveform::Sine { frequency_hz, .. } = &mut sc.source.waveform
+        let mut tone = TonePlacement::AsAsked;
+        if let Waveform::Sine { frequency_hz, .. } = &mut sc.source.waveform
+            && tone_hz.is_some()
         {
-            let (fs, n) = match &adc {
-                Some(a) => (a.sample_rate_hz, a.record_len),
-                None => (out_rate_hz, out_record_len),
-            };
-            if let Some((f, j)) = crate::measure::coherent::coherent_frequency(*frequency_hz, fs, n)
-            {
-                *frequency_hz = f;
-                coherent_cycles = Some(j);
+            match placement {
+                Some(p) => {
+                    *frequency_hz = p.frequency_hz;
+                    coherent_cycles = Some(p.cycles);
+                    tone = TonePlacement::Coherent;
+                }
+                None => tone = TonePlacement::NonCoherent,
             }
         }
         let frequency_hz = sc.source.waveform.fundamental_hz();
@@ -199,6 +298,8 @@ impl Plan {
             requested_frequency_hz,
             frequency_hz,
             coherent_cycles,
+            tone,
+            lengthened_from_s: None,
             out_factor,
             out_rate_hz,
             out_record_len,
@@ -207,21 +308,19 @@ impl Plan {
             capture_len,
             memory_estimate_bytes,
         };
-        Ok((plan, sc))
+        Ok((plan, sc, room))
     }
+}
+
+/// Fewest whole cycles a coherent tone may have: more than the analysis window's DC lobe (its main-lobe half-width
+/// in bins), so the meters can tell the tone from DC (`src/measure/metrics.rs`).
+fn min_cycles(sc: &Scenario) -> u64 {
+    crate::measure::window::lobe_half_width_bins(sc.analysis.window) as u64 + 1
 }
 
 /// The largest length `<= n` whose prime factors are all 2, 3, 5 or 7 (`n` itself when `n < 1`).
 pub fn smooth_at_most(n: usize) -> usize {
-    let smooth = |mut m: usize| {
-        for p in [2, 3, 5, 7] {
-            while m.is_multiple_of(p) {
-                m /= p;
-            }
-        }
-        m == 1
-    };
-    (1..=n).rev().find(|&m| smooth(m)).unwrap_or(n)
+    (1..=n).rev().find(|&m| is_smooth(m)).unwrap_or(n)
 }
 
 /// Pick the decimation factor for the output analysis stream of a chain with a converter: the output rate is

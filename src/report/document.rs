@@ -86,15 +86,8 @@ pub fn markdown(r: &Report, figures: &[Figure]) -> String {
         "Scenario: `{}`, seed {}.\n",
         r.scenario.origin, r.scenario.seed
     );
-    if let (Some(req), Some(used)) = (r.run.requested_frequency_hz, r.run.frequency_hz)
-        && req != used
-    {
-        let _ = writeln!(
-            s,
-            "The source was moved from {} to {} for coherent sampling.\n",
-            si(req, "Hz"),
-            si(used, "Hz")
-        );
+    for note in r.tone_notes() {
+        let _ = writeln!(s, "{}{}.\n", note[..1].to_uppercase(), &note[1..]);
     }
     let _ = writeln!(
         s,

@@ -3,9 +3,10 @@
 use serde::Serialize;
 use serde_json::{Value, json};
 
-use crate::engine::plan::Plan;
+use crate::engine::pipeline::si;
+use crate::engine::plan::{Plan, TonePlacement};
 use crate::measure::chain::{AdcMetrics, ChainMetrics, LatencyMetrics, OutputMetrics};
-use crate::scenario::{ChirpLaw, Scenario, Waveform, WindowKind};
+use crate::scenario::{ChirpLaw, Scenario, Waveform};
 
 /// The whole report of a run. Field names are part of the interface: later tools rely on them.
 #[derive(Debug, Clone, Serialize)]
@@ -59,6 +60,12 @@ pub struct RunInfo {
     pub requested_frequency_hz: Option<f64>,
     pub frequency_hz: Option<f64>,
     pub coherent_cycles: Option<u64>,
+    /// `coherent` (moved by at most 0.1 %), `as_asked` (not a sine, or coherence off) or `non_coherent`
+    /// (coherence asked for but impossible within the run: analysed with the window).
+    pub tone_placement: &'static str,
+    /// The scenario's own duration when the run was lengthened to hold the tone coherently.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub lengthened_from_s: Option<f64>,
     pub output_analysis_rate_hz: f64,
     pub capture_start_s: f64,
     pub capture_length: usize,
@@ -85,12 +92,57 @@ impl Report {
                 requested_frequency_hz: plan.requested_frequency_hz,
                 frequency_hz: plan.frequency_hz,
                 coherent_cycles: plan.coherent_cycles,
+                tone_placement: match plan.tone {
+                    TonePlacement::AsAsked => "as_asked",
+                    TonePlacement::Coherent => "coherent",
+                    TonePlacement::NonCoherent => "non_coherent",
+                },
+                lengthened_from_s: plan.lengthened_from_s,
                 output_analysis_rate_hz: plan.out_rate_hz,
                 capture_start_s: plan.timebase.time_s(plan.capture_n0),
                 capture_length: plan.capture_len,
             },
             listening: None,
         }
+    }
+}
+
+impl Report {
+    /// Lines that say how the test tone was placed and the run's length changed for it (terminal and reports).
+    pub fn tone_notes(&self) -> Vec<String> {
+        use crate::format::units::{SiStyle, format_si_as};
+        let r = &self.run;
+        let mut v = Vec::new();
+        let (Some(req), Some(used)) = (r.requested_frequency_hz, r.frequency_hz) else {
+            return v;
+        };
+        match r.tone_placement {
+            "coherent" if req != used => v.push(format!(
+                "source at {} (asked {}, {:+.3} %): {} whole cycles in the record, for coherent sampling",
+                format_si_as(used, "Hz", SiStyle::Significant(7)),
+                si(req, "Hz"),
+                100.0 * (used - req) / req,
+                r.coherent_cycles.unwrap_or(0)
+            )),
+            "non_coherent" => v.push(format!(
+                "source at {} analysed non-coherently with the {} window: no record in this run holds it \
+                 coherently within 0.1 % (lengthen simulation.duration for a coherent record)",
+                si(req, "Hz"),
+                self.chain["analysis"]["window"].as_str().unwrap_or("analysis")
+            )),
+            _ => {}
+        }
+        if let Some(from) = r.lengthened_from_s {
+            let to = self.chain["simulation"]["duration_s"]
+                .as_f64()
+                .unwrap_or(from);
+            v.push(format!(
+                "run lengthened from {} to {} so that the record holds the tone coherently",
+                si(from, "s"),
+                si(to, "s")
+            ));
+        }
+        v
     }
 }
 
@@ -173,8 +225,7 @@ pub fn chain_json(sc: &Scenario) -> Value {
         "stages": stages,
         "analysis": {
             "band_hz": a.band_hz,
-            "window": match a.window { WindowKind::Rectangular => "rectangular", WindowKind::Hann => "hann",
-                WindowKind::Hamming => "hamming", WindowKind::BlackmanHarris => "blackman-harris", WindowKind::FlatTop => "flat-top" },
+            "window": a.window.name(),
             "coherent": a.coherent,
             "harmonics": a.harmonics,
         },

@@ -19,16 +19,8 @@ fn bits(x: Option<f64>) -> String {
 pub fn summary(r: &Report) -> String {
     let mut s = String::new();
     let _ = writeln!(s, "{}  ({})", r.scenario.name, r.scenario.origin);
-    if let (Some(req), Some(used)) = (r.run.requested_frequency_hz, r.run.frequency_hz)
-        && (req - used).abs() > 0.0
-    {
-        let _ = writeln!(
-            s,
-            "  source moved from {} to {} for coherent sampling ({} cycles)",
-            si(req, "Hz"),
-            si(used, "Hz"),
-            r.run.coherent_cycles.unwrap_or(0)
-        );
+    for note in r.tone_notes() {
+        let _ = writeln!(s, "  {note}");
     }
     let _ = writeln!(s);
     let _ = writeln!(s, "  {:<14}{:>14}{:>14}", "", "ADC codes", "analog output");

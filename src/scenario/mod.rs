@@ -104,6 +104,17 @@ impl WindowKind {
         WindowKind::BlackmanHarris,
         WindowKind::FlatTop,
     ];
+
+    /// The name a scenario uses for the window.
+    pub fn name(self) -> &'static str {
+        match self {
+            WindowKind::Rectangular => "rectangular",
+            WindowKind::Hann => "hann",
+            WindowKind::Hamming => "hamming",
+            WindowKind::BlackmanHarris => "blackman-harris",
+            WindowKind::FlatTop => "flat-top",
+        }
+    }
 }
 
 /// `[analysis]`
