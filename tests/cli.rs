@@ -4,7 +4,7 @@ mod common;
 
 use std::fs;
 
-use common::{json, ok, repo, run_in, stderr};
+use common::{json, ok, repo, run_in, stderr, stdout};
 
 #[test]
 fn run_with_no_scenario_writes_the_report_and_the_waveforms() {
@@ -325,4 +325,57 @@ fn a_live_input_converter_budget_matches_the_measured_delay() {
     let diff = r["latency"]["difference_s"].as_f64().unwrap();
     assert!(diff.abs() < 0.03 * 450e-6, "measured - budget = {diff:e} s");
     assert_eq!(r["latency"]["flagged"], false);
+}
+
+/// An 8-bit converter at 20 kHz and a DAC with no reconstruction filter: the hold's images reach the output.
+const UNFILTERED: &str = r#"
+name = "unfiltered"
+[simulation]
+analog_rate = "2 MHz"
+duration = "60 ms"
+settle = "5 ms"
+seed = 3
+[source]
+waveform = "sine"
+frequency = "1 kHz"
+amplitude = "2 V"
+offset = "2.5 V"
+[[stage]]
+kind = "sar_adc"
+bits = 8
+range = ["0 V", "5 V"]
+sample_rate = "20 kHz"
+conversion_time = "20 us"
+[[stage]]
+kind = "dac"
+"#;
+
+#[test]
+fn output_figures_default_to_the_converters_nyquist_band_and_the_wideband_ones_are_reported_beside()
+{
+    // Without analysis.band the output metrics use the converter's Nyquist band (our default; IEEE Std 1241
+    // measures a converter's SINAD up to fs/2); the zero-order hold's images above it appear only in the
+    // wideband figures.
+    let d = tempfile::tempdir().unwrap();
+    fs::write(d.path().join("u.toml"), UNFILTERED).unwrap();
+    let o = run_in(d.path(), &["run", "u.toml", "--no-plots", "--no-wav"]);
+    ok(&o);
+    let j = json(&d.path().join("out/unfiltered/report.json"));
+    assert_eq!(j["output"]["band_hz"].as_f64().unwrap(), 10e3);
+    assert_eq!(j["run"]["output_band_rule"], "converter_nyquist");
+    let wide = &j["output"]["wideband"];
+    assert!(wide["band_hz"].as_f64().unwrap() > 10e3, "{wide}");
+    let (sinad, sinad_wide) = (
+        j["output"]["sinad_db"].as_f64().unwrap(),
+        wide["sinad_db"].as_f64().unwrap(),
+    );
+    // An 8-bit converter: about 49.9 dB in its Nyquist band (Bennett); the images of an unfiltered hold carry
+    // far more power than the quantization noise, so the wideband SINAD is much lower.
+    assert!((sinad - 49.9).abs() < 1.5, "{sinad}");
+    assert!(sinad_wide < sinad - 10.0, "{sinad_wide} vs {sinad}");
+    let out = stdout(&o);
+    assert!(
+        out.contains("output figures over 0 .. 10 kHz (the converter's Nyquist band); over 0 .. "),
+        "{out}"
+    );
 }

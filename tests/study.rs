@@ -402,6 +402,61 @@ fn an_adc_without_a_hold_loses_accuracy_far_below_nyquist_and_the_live_input_is_
 }
 
 #[test]
+fn limit_prints_its_reference_values_and_every_ablation_with_ties_named() {
+    let d = tempfile::tempdir().unwrap();
+    fs::write(d.path().join("live.toml"), LIVE_ADC).unwrap();
+    let o = run_in(
+        d.path(),
+        &["limit", "live.toml", "--from", "1 Hz", "--to", "1 kHz"],
+    );
+    ok(&o);
+    let out = stdout(&o);
+    let j = json(&d.path().join("out/live-adc-limit/limit.json"));
+    let first = &j["coarse"][0];
+    // The low end, as run (a coherent tone moves by at most 0.1 %).
+    assert!(
+        out.contains(&format!(
+            ": ENOB {:.2} bits, gain {:.2} dB",
+            first["enob_bits"].as_f64().unwrap(),
+            first["gain_db"].as_f64().unwrap()
+        )) && out.contains("  reference at 999.9 mHz"),
+        "{out}"
+    );
+    // The criteria table has a value and a threshold column; the accuracy row shows both.
+    let acc = criterion(&j, "accuracy");
+    let row = out
+        .lines()
+        .find(|l| l.trim_start().starts_with("accuracy "))
+        .unwrap();
+    assert!(
+        row.contains(&format!("{:.2} bits", acc["threshold"].as_f64().unwrap())),
+        "{row}"
+    );
+    // Every ablation of every diagnosed criterion is on the terminal, the chosen one and any tie marked.
+    for c in j["limit"]["criteria"].as_array().unwrap() {
+        let ties: Vec<&str> = c["ties"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|t| t.as_str().unwrap())
+            .collect();
+        for a in c["ablation"].as_array().unwrap() {
+            let line = out
+                .lines()
+                .find(|l| l.trim_start().starts_with(a["change"].as_str().unwrap()))
+                .unwrap_or_else(|| panic!("no line for {a} in\n{out}"));
+            let m = a["mechanism"].as_str().unwrap();
+            if c["mechanism"].as_str() == Some(m) {
+                assert!(line.ends_with("chosen"), "{line}");
+            } else if ties.contains(&m) {
+                assert!(line.contains("tie"), "{line}");
+            }
+        }
+    }
+    assert!(out.contains("accuracy at "), "{out}");
+}
+
+#[test]
 fn limit_needs_a_sine_source() {
     let d = tempfile::tempdir().unwrap();
     fs::write(

@@ -114,6 +114,7 @@ impl RunOutput {
             bits_flipped: self.bits_flipped,
             out_rate_hz: self.plan.out_rate_hz,
             out_band_hz: self.plan.out_band_hz,
+            out_wide_band_hz: self.plan.out_wide_band_hz,
             source_record: &self.source_record.volts,
             output_record: &self.output_record.volts,
             capture: GridRecord {

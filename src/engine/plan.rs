@@ -43,8 +43,13 @@ pub struct Plan {
     pub out_rate_hz: f64,
     /// Samples of the output analysis record (end-aligned in the run).
     pub out_record_len: usize,
-    /// Highest frequency the output meters use: the analysis band, capped by the decimator's flat passband.
+    /// Highest frequency the output meters use: `analysis.band` when written, else the converter's Nyquist
+    /// frequency (a chain with a converter) or the output record's flat passband; never above that passband.
     pub out_band_hz: f64,
+    /// Where `out_band_hz` comes from.
+    pub out_band_rule: BandRule,
+    /// The output record's flat passband (Hz): the widest band the output meters can use (the wideband figures).
+    pub out_wide_band_hz: f64,
     /// Grid capture: first index and length.
     pub capture_n0: u64,
     pub capture_len: usize,
@@ -63,6 +68,29 @@ pub enum TonePlacement {
     /// cycles even after lengthening, or the tone at or above half the record's rate): analysed as asked,
     /// non-coherently, with the window.
     NonCoherent,
+}
+
+/// Where the output metrics' band comes from.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum BandRule {
+    /// `analysis.band` as written.
+    Written,
+    /// The converter's Nyquist frequency (the default for a chain with a converter): the output metrics then
+    /// count what the converter can carry, not the hold's images above it.
+    ConverterNyquist,
+    /// The output record's flat passband (the default without a converter, or when the band asked for is wider).
+    RecordPassband,
+}
+
+impl BandRule {
+    /// The name report.json uses.
+    pub fn key(self) -> &'static str {
+        match self {
+            BandRule::Written => "written",
+            BandRule::ConverterNyquist => "converter_nyquist",
+            BandRule::RecordPassband => "record_passband",
+        }
+    }
 }
 
 /// Room for the analysis record: its rate, the longest record the run allows, and whether that length was cut
@@ -244,9 +272,17 @@ impl Plan {
                 sc.origin
             )));
         }
-        let out_band_hz = band
-            .unwrap_or(f64::INFINITY)
-            .min(PASSBAND_FRACTION * out_rate_hz);
+        let out_wide_band_hz = PASSBAND_FRACTION * out_rate_hz;
+        let (asked_band_hz, rule) = match (band, &adc) {
+            (Some(b), _) => (b, BandRule::Written),
+            (None, Some(a)) => (a.sample_rate_hz / 2.0, BandRule::ConverterNyquist),
+            (None, None) => (f64::INFINITY, BandRule::RecordPassband),
+        };
+        let (out_band_hz, out_band_rule) = if asked_band_hz <= out_wide_band_hz {
+            (asked_band_hz, rule)
+        } else {
+            (out_wide_band_hz, BandRule::RecordPassband)
+        };
 
         // Coherent sampling: move a sine to J cycles in the record (J odd, coprime with the record length).
         let requested_frequency_hz = sc.source.waveform.fundamental_hz();
@@ -304,6 +340,8 @@ impl Plan {
             out_rate_hz,
             out_record_len,
             out_band_hz,
+            out_band_rule,
+            out_wide_band_hz,
             capture_n0,
             capture_len,
             memory_estimate_bytes,

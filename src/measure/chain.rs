@@ -26,6 +26,9 @@ pub struct RunRecords<'a> {
     /// Rate and band of the output analysis record (Hz).
     pub out_rate_hz: f64,
     pub out_band_hz: f64,
+    /// The output record's flat passband: the wideband figures are taken over it when it is wider than
+    /// `out_band_hz`.
+    pub out_wide_band_hz: f64,
     /// Band-limited, decimated source and output over the output analysis record (same instants, V).
     pub source_record: &'a [f64],
     pub output_record: &'a [f64],
@@ -95,9 +98,24 @@ pub struct OutputMetrics {
     pub sfdr_dbc: Option<f64>,
     /// Output fundamental over source fundamental.
     pub gain_db: Option<f64>,
+    /// The same tone figures over the output record's whole flat passband, when it is wider than `band_hz`
+    /// (images and out-of-band noise count there).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub wideband: Option<WidebandMetrics>,
     /// Full-bandwidth signal-to-error ratio after the best delay, gain and offset alignment (dB).
     pub fidelity_db: f64,
     pub bits_flipped: u64,
+}
+
+/// Tone figures of the analog output over a wider band than the headline's.
+#[derive(Debug, Clone, Serialize)]
+pub struct WidebandMetrics {
+    pub band_hz: f64,
+    pub snr_db: Option<f64>,
+    pub sinad_db: Option<f64>,
+    pub enob_bits: Option<f64>,
+    pub thd_db: Option<f64>,
+    pub sfdr_dbc: Option<f64>,
 }
 
 /// Delay through the chain.
@@ -234,6 +252,7 @@ pub fn measure_run(run: &RunRecords<'_>) -> Result<ChainMetrics> {
     let mut an = SpectrumAnalyzer::new(out.len(), run.analysis.window)?;
     let src_tm: Option<ToneMetrics>;
     let out_tm: Option<ToneMetrics>;
+    let mut wideband = None;
     let spec_out = an.power_spectrum(out, rate)?;
     let mut out_full_scale = run
         .adc
@@ -274,15 +293,29 @@ pub fn measure_run(run: &RunRecords<'_>) -> Result<ChainMetrics> {
             1.0
         };
         out_full_scale = full_scale.max(1e-30);
-        out_tm = Some(metrics::tone_metrics(
-            &spec_out,
-            &MetricsConfig {
-                harmonics,
-                band_hz: Some(run.out_band_hz),
-                full_scale_peak_v: full_scale.max(1e-30),
-                fundamental_hz: f0,
-            },
-        )?);
+        let at_band = |band_hz: f64| {
+            metrics::tone_metrics(
+                &spec_out,
+                &MetricsConfig {
+                    harmonics,
+                    band_hz: Some(band_hz),
+                    full_scale_peak_v: full_scale.max(1e-30),
+                    fundamental_hz: f0,
+                },
+            )
+        };
+        out_tm = Some(at_band(run.out_band_hz)?);
+        if run.out_wide_band_hz > run.out_band_hz * (1.0 + 1e-9) {
+            let w = at_band(run.out_wide_band_hz)?;
+            wideband = Some(WidebandMetrics {
+                band_hz: run.out_wide_band_hz,
+                snr_db: finite(w.snr_db),
+                sinad_db: finite(w.sinad_db),
+                enob_bits: finite(w.enob_bits),
+                thd_db: finite(w.thd_db),
+                sfdr_dbc: finite(w.sfdr_dbc),
+            });
+        }
     } else {
         src_tm = None;
         out_tm = None;
@@ -387,6 +420,7 @@ pub fn measure_run(run: &RunRecords<'_>) -> Result<ChainMetrics> {
             thd_db: out_tm.as_ref().and_then(|t| finite(t.thd_db)),
             sfdr_dbc: out_tm.as_ref().and_then(|t| finite(t.sfdr_dbc)),
             gain_db,
+            wideband,
             fidelity_db: fid.fidelity_db,
             bits_flipped: run.bits_flipped,
         },

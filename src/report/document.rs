@@ -87,7 +87,7 @@ pub fn markdown(r: &Report, figures: &[Figure]) -> String {
         r.scenario.origin, r.scenario.seed
     );
     for note in r.tone_notes() {
-        let _ = writeln!(s, "{}{}.\n", note[..1].to_uppercase(), &note[1..]);
+        let _ = writeln!(s, "{}.\n", capitalise(&note));
     }
     let _ = writeln!(
         s,
@@ -96,6 +96,7 @@ pub fn markdown(r: &Report, figures: &[Figure]) -> String {
     for (n, a, o) in metric_rows(r) {
         let _ = writeln!(s, "| {n} | {a} | {o} |");
     }
+    let _ = writeln!(s, "\n{}.", capitalise(&r.band_note()));
     let _ = writeln!(s, "\n## Latency\n\n| stage | delay |\n|---|---:|");
     for (n, v) in latency_rows(r) {
         let _ = writeln!(s, "| {n} | {v} |");
@@ -148,6 +149,9 @@ figcaption{{color:#444}}</style></head><body>\n",
         esc(&r.scenario.origin),
         r.scenario.seed
     );
+    for note in r.tone_notes() {
+        let _ = writeln!(s, "<p>{}.</p>", esc(&capitalise(&note)));
+    }
     let _ = writeln!(
         s,
         "<h2>Metrics</h2><table><tr><th></th><th>ADC codes</th><th>analog output</th></tr>"
@@ -162,7 +166,8 @@ figcaption{{color:#444}}</style></head><body>\n",
     }
     let _ = writeln!(
         s,
-        "</table><h2>Latency</h2><table><tr><th>stage</th><th>delay</th></tr>"
+        "</table><p>{}.</p><h2>Latency</h2><table><tr><th>stage</th><th>delay</th></tr>",
+        esc(&capitalise(&r.band_note()))
     );
     for (n, v) in latency_rows(r) {
         let _ = writeln!(
@@ -196,4 +201,12 @@ figcaption{{color:#444}}</style></head><body>\n",
     }
     s.push_str("</body></html>\n");
     s
+}
+
+/// The sentence with its first letter in upper case.
+fn capitalise(s: &str) -> String {
+    let mut c = s.chars();
+    c.next()
+        .map(|f| f.to_uppercase().collect::<String>() + c.as_str())
+        .unwrap_or_default()
 }

@@ -67,6 +67,9 @@ pub struct RunInfo {
     #[serde(skip_serializing_if = "Option::is_none")]
     pub lengthened_from_s: Option<f64>,
     pub output_analysis_rate_hz: f64,
+    /// Where the output metrics' band comes from: `written` (analysis.band), `converter_nyquist` or
+    /// `record_passband`.
+    pub output_band_rule: &'static str,
     pub capture_start_s: f64,
     pub capture_length: usize,
 }
@@ -99,6 +102,7 @@ impl Report {
                 },
                 lengthened_from_s: plan.lengthened_from_s,
                 output_analysis_rate_hz: plan.out_rate_hz,
+                output_band_rule: plan.out_band_rule.key(),
                 capture_start_s: plan.timebase.time_s(plan.capture_n0),
                 capture_length: plan.capture_len,
             },
@@ -108,6 +112,29 @@ impl Report {
 }
 
 impl Report {
+    /// The band the output figures use and where it comes from, with the wideband figures when there are any.
+    pub fn band_note(&self) -> String {
+        let o = &self.output;
+        let why = match self.run.output_band_rule {
+            "written" => "analysis.band",
+            "converter_nyquist" => "the converter's Nyquist band",
+            _ => "the output record's passband",
+        };
+        let mut s = format!("output figures over 0 .. {} ({why})", si(o.band_hz, "Hz"));
+        if let Some(w) = &o.wideband {
+            let f = |x: Option<f64>, unit: &str| {
+                x.map_or("-".to_string(), |v| format!("{v:.2} {unit}"))
+            };
+            s += &format!(
+                "; over 0 .. {}: SINAD {}, ENOB {}",
+                si(w.band_hz, "Hz"),
+                f(w.sinad_db, "dB"),
+                f(w.enob_bits, "bits")
+            );
+        }
+        s
+    }
+
     /// Lines that say how the test tone was placed and the run's length changed for it (terminal and reports).
     pub fn tone_notes(&self) -> Vec<String> {
         use crate::format::units::{SiStyle, format_si_as};

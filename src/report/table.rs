@@ -69,14 +69,14 @@ pub fn summary(r: &Report) -> String {
     if let Some(a) = a {
         let _ = writeln!(
             s,
-            "\n  ADC: {} bits at {}, conversion {}, {} codes clipped; output band {}",
+            "\n  ADC: {} bits at {}, conversion {}, {} codes clipped",
             a.bits,
             si(a.sample_rate_hz, "Hz"),
             si(a.conversion_time_s, "s"),
             a.codes_clipped,
-            si(o.band_hz, "Hz")
         );
     }
+    let _ = writeln!(s, "  {}", r.band_note());
     if o.bits_flipped > 0 {
         let _ = writeln!(s, "  link: {} bits flipped", o.bits_flipped);
     }

@@ -185,24 +185,23 @@ comparator_noise = "0.5 mV""#;
                 ));
             }
         }
-        // Sampling ten times faster, with the conversion shortened to fit, on the key that was written.
+        // Sampling ten times faster with the whole conversion ten times faster too (on the key that was written),
+        // so the conversion keeps its share of the period and the hold its time to acquire. (Shortening the
+        // conversion only to the new period left the hold no time to track: its output was meaningless.)
         let fs10 = 10.0 * self.effective_sample_rate_hz();
         let mut edits = vec![KeyEdit::Set("sample_rate", fs10)];
         if self.clock_given {
-            edits.push(KeyEdit::Set(
-                "clock",
-                self.clock_hz.max(f64::from(self.cycles) * fs10),
-            ));
+            edits.push(KeyEdit::Set("clock", 10.0 * self.clock_hz));
         } else {
             edits.push(KeyEdit::Set(
                 "conversion_time",
-                self.conversion_time_s.min(1.0 / fs10),
+                self.conversion_time_s / 10.0,
             ));
         }
         out.push(Ablation::new(
             mechanism::<Self>("sample_rate"),
             format!(
-                "sample_rate raised tenfold to {} (conversion shortened to fit)",
+                "sample_rate raised tenfold to {} (conversion ten times shorter)",
                 format_si(fs10, "Hz")
             ),
             edits,

@@ -144,6 +144,9 @@ pub struct CriterionResult {
     /// Label of the stage that mechanism belongs to.
     pub mechanism_stage: Option<String>,
     pub ablation: Vec<Ablation>,
+    /// Other mechanisms whose recovery is within the criterion's significance of the chosen one's: the
+    /// diagnosis cannot tell them apart.
+    pub ties: Vec<String>,
     pub note: String,
 }
 
@@ -445,7 +448,12 @@ fn frequency_range(
     };
     // The meters find the tone at the source frequency: the output's analysis band and the ADC's Nyquist
     // frequency bound what can be measured.
-    let mut ceiling = 0.95 * plan.out_band_hz;
+    // A band that is the converter's Nyquist band by default leaves the ceiling to the converter's rule below.
+    let mut ceiling = if plan.out_band_rule == crate::engine::plan::BandRule::ConverterNyquist {
+        f64::INFINITY
+    } else {
+        0.95 * plan.out_band_hz
+    };
     let mut why = format!(
         "95 % of the output analysis band ({})",
         format_si(plan.out_band_hz, "Hz")
@@ -563,7 +571,7 @@ fn coarse_notes(
         opts.min_cycles,
         fine_cycles,
         if coherent {
-            ", so that the coherent frequency moves by about 1 % at most"
+            ", for steadier figures near the limit; a coherent tone moves by at most 0.1 %"
         } else {
             ""
         },
@@ -594,6 +602,7 @@ fn aliasing(base: &Scenario, plan: &Plan) -> CriterionResult {
             mechanism: quantizer.map(|s| format!("{}.sample_rate", s.kind.kind_name())),
             mechanism_stage: quantizer.map(|s| s.label.clone()),
             ablation: Vec::new(),
+            ties: Vec::new(),
             note: "computed: sample_rate / 2".into(),
         },
         None => CriterionResult::unmet(

@@ -8,7 +8,8 @@ fn opt(v: Option<f64>, unit: &str) -> String {
     v.map_or("-".into(), |x| format_si(x, unit))
 }
 
-/// A readable table of the limits.
+/// A readable table of the limits: the reference values at the low end, one row per criterion, and for each
+/// criterion with a diagnosis what each ablation wins back, ties named.
 pub fn table(r: &LimitReport) -> String {
     use std::fmt::Write;
     let mut s = String::new();
@@ -23,31 +24,110 @@ pub fn table(r: &LimitReport) -> String {
         r.gain_drop_db,
         r.fidelity_min_db
     );
-    let _ = writeln!(
-        s,
-        "  {:<10} {:>12}  {:<28} note",
-        "criterion", "frequency", "mechanism"
-    );
-    for c in &r.limit.criteria {
-        let mech = match (&c.mechanism, &c.mechanism_stage) {
-            (Some(m), Some(st)) if !st.is_empty() => format!("{m} ({st})"),
-            (Some(m), _) => m.clone(),
-            _ => "-".into(),
-        };
+    if let Some(p) = r.coarse.first() {
         let _ = writeln!(
             s,
-            "  {:<10} {:>12}  {:<28} {}",
+            "  reference at {}: ENOB {}, gain {}, fidelity {}",
+            format_si(p.frequency_hz, "Hz"),
+            fixed(p.enob_bits, "bits"),
+            fixed(p.gain_db, "dB"),
+            fixed(p.fidelity_db, "dB")
+        );
+    }
+    let mech = |c: &CriterionResult| match (&c.mechanism, &c.mechanism_stage) {
+        (Some(m), Some(st)) if !st.is_empty() => format!("{m} ({st})"),
+        (Some(m), _) => m.clone(),
+        _ => "-".into(),
+    };
+    let unit = |c: Criterion| match c {
+        Criterion::Accuracy => "bits",
+        _ => "dB",
+    };
+    let rows: Vec<[String; 5]> = r
+        .limit
+        .criteria
+        .iter()
+        .map(|c| {
+            [
+                c.criterion.name().to_string(),
+                opt(c.frequency_hz, "Hz"),
+                fixed(c.value, unit(c.criterion)),
+                fixed(c.threshold, unit(c.criterion)),
+                mech(c),
+            ]
+        })
+        .collect();
+    let head = ["criterion", "frequency", "value", "threshold", "mechanism"];
+    let width = |k: usize| {
+        rows.iter()
+            .map(|r| r[k].chars().count())
+            .chain([head[k].len()])
+            .max()
+            .unwrap_or(0)
+    };
+    let w: Vec<usize> = (0..5).map(width).collect();
+    let line = |s: &mut String, c: [&str; 5], note: &str| {
+        let _ = writeln!(
+            s,
+            "  {:<w0$}  {:>w1$}  {:>w2$}  {:>w3$}  {:<w4$}  {note}",
+            c[0],
+            c[1],
+            c[2],
+            c[3],
+            c[4],
+            w0 = w[0],
+            w1 = w[1],
+            w2 = w[2],
+            w3 = w[3],
+            w4 = w[4]
+        );
+    };
+    line(&mut s, head, "note");
+    for (c, row) in r.limit.criteria.iter().zip(&rows) {
+        line(
+            &mut s,
+            [&row[0], &row[1], &row[2], &row[3], &row[4]],
+            &c.note,
+        );
+    }
+    for c in &r.limit.criteria {
+        if c.ablation.is_empty() {
+            continue;
+        }
+        let _ = writeln!(
+            s,
+            "\n  {} at {}: what each change wins back ({})",
             c.criterion.name(),
             opt(c.frequency_hz, "Hz"),
-            mech,
-            c.note
+            unit(c.criterion)
         );
+        let wc = c
+            .ablation
+            .iter()
+            .map(|a| a.change.chars().count())
+            .max()
+            .unwrap_or(0);
+        for a in &c.ablation {
+            let mark = if c.mechanism.as_deref() == Some(a.mechanism.as_str()) {
+                "chosen"
+            } else if c.ties.contains(&a.mechanism) {
+                "tie: cannot be told apart from the chosen one"
+            } else {
+                ""
+            };
+            let won = match (&a.error, a.recovery) {
+                (Some(_), _) => "failed".to_string(),
+                (None, Some(x)) => format!("{x:+.2}"),
+                (None, None) => "-".into(),
+            };
+            let _ = writeln!(s, "    {:<wc$}  {:>7}  {mark}", a.change, won);
+        }
     }
     match (r.limit.frequency_hz, r.limit.criterion) {
         (Some(f), Some(c)) => {
             let _ = writeln!(
                 s,
-                "limit: {} ({}{})",
+                "\nlimit: {} ({}{})",
                 format_si(f, "Hz"),
                 c.name(),
                 r.limit
@@ -58,13 +138,18 @@ pub fn table(r: &LimitReport) -> String {
             );
         }
         _ => {
-            let _ = writeln!(s, "limit: not reached below {}", format_si(r.to_hz, "Hz"));
+            let _ = writeln!(s, "\nlimit: not reached below {}", format_si(r.to_hz, "Hz"));
         }
     }
     for n in &r.notes {
         let _ = writeln!(s, "note: {n}");
     }
     s
+}
+
+/// A value with two decimals and its unit, or "-".
+fn fixed(v: Option<f64>, unit: &str) -> String {
+    v.map_or("-".into(), |x| format!("{x:.2} {unit}"))
 }
 
 /// Write `limit.json` and the plot of the coarse sweep (`limit.png`, `limit.svg`) atomically into `dir`.

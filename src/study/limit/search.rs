@@ -20,6 +20,7 @@ impl CriterionResult {
             mechanism: None,
             mechanism_stage: None,
             ablation: Vec::new(),
+            ties: Vec::new(),
             note,
         }
     }
@@ -117,7 +118,7 @@ impl Search<'_> {
             lo = Some(l);
         }
         let bracket = lo.as_ref().map(|l| (l.frequency_hz, hi.frequency_hz));
-        let (ablation, best) = self.diagnose(c, &hi);
+        let (ablation, best, ties) = self.diagnose(c, &hi);
         let (mechanism, mechanism_stage) = match best {
             Some(i) => (
                 Some(self.cands[i].mechanism.clone()),
@@ -140,13 +141,19 @@ impl Search<'_> {
             mechanism,
             mechanism_stage,
             ablation,
+            ties,
             note,
         }
     }
 
     /// Re-run the chain at the limit with one non-ideality removed at a time; the candidate that recovers the
     /// most (beyond what is significant for the criterion), if any.
-    fn diagnose(&self, c: Criterion, hi: &LimitPoint) -> (Vec<Ablation>, Option<usize>) {
+    /// Also the other mechanisms tied with it (within the criterion's significance).
+    fn diagnose(
+        &self,
+        c: Criterion,
+        hi: &LimitPoint,
+    ) -> (Vec<Ablation>, Option<usize>, Vec<String>) {
         let base_value = metric(c, hi);
         let reference = metric(c, self.first);
         let ablation: Vec<Ablation> = self
@@ -192,6 +199,19 @@ impl Search<'_> {
                 compound(*j).cmp(&compound(*i)).then(a.total_cmp(b))
             })
             .map(|(i, _)| i);
-        (ablation, best)
+        let ties = match best.and_then(|b| ablation[b].recovery.map(|r| (b, r))) {
+            Some((b, rb)) => ablation
+                .iter()
+                .enumerate()
+                .filter(|(i, a)| {
+                    *i != b
+                        && a.mechanism != ablation[b].mechanism
+                        && a.recovery.is_some_and(|r| (r - rb).abs() <= significant)
+                })
+                .map(|(_, a)| a.mechanism.clone())
+                .collect(),
+            None => Vec::new(),
+        };
+        (ablation, best, ties)
     }
 }
