@@ -4,7 +4,7 @@ use std::path::Path;
 
 use crate::engine::pipeline;
 use crate::engine::plan::Plan;
-use crate::engine::static_bench::{StaticReport, static_tests};
+use crate::engine::static_bench::{StaticReport, missing_code_causes, static_tests};
 use crate::error::{Error, Result};
 use crate::measure::chain::measure_run;
 use crate::report::OutputDir;
@@ -13,6 +13,7 @@ use crate::report::json::{ListeningInfo, Report};
 use crate::report::wav::{WavFormat, WavOptions, listening_set};
 use crate::report::{document, figures};
 use crate::scenario::Scenario;
+use crate::scenario::overrides::ScenarioText;
 use crate::stages::kind::Upstream;
 
 /// How to run.
@@ -189,8 +190,15 @@ pub fn nominal_gain(sc: &Scenario) -> f64 {
 }
 
 /// Run the static tests and write `static.json`.
-pub fn static_to_dir(sc: &Scenario, dir: &Path) -> Result<StaticReport> {
-    let stat = static_tests(sc)?;
+/// When the ADC misses codes, each non-ideality of its hold and converter is removed in turn and the ones that
+/// clear (or halve) the missing codes are named (`static.adc.missing_code_causes`).
+pub fn static_to_dir(text: &ScenarioText, dir: &Path) -> Result<StaticReport> {
+    let scenario = text.scenario()?;
+    let sc = &scenario;
+    let mut stat = static_tests(sc)?;
+    if let Some(adc) = &mut stat.adc {
+        adc.missing_code_causes = missing_code_causes(text, sc, adc.code_density.missing_codes)?;
+    }
     let report = StaticReport {
         scenario: sc.name.clone(),
         stat,

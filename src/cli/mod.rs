@@ -374,12 +374,14 @@ fn run(args: Args) -> anyhow::Result<()> {
             json,
             quiet,
         } => {
-            let sc = load(scenario.as_deref())?;
+            let text =
+                convchain::scenario::overrides::ScenarioText::load_or_default(scenario.as_deref())?;
+            let sc = text.scenario()?;
             print_warnings(&sc, quiet);
             let dir = out_dir(out, &sc);
             OutputDir::check(&dir)?;
             interrupt::install_stop_handler("static");
-            let report = convchain::static_to_dir(&sc, &dir)?;
+            let report = convchain::static_to_dir(&text, &dir)?;
             let mut o = stdout.lock();
             if json {
                 writeln!(o, "{}", serde_json::to_string_pretty(&report)?)?;

@@ -141,14 +141,7 @@ pub fn table(s: &Summary, dir: &Path) -> String {
 }
 
 pub fn run(a: McArgs) -> anyhow::Result<()> {
-    let text = match &a.scenario {
-        Some(p) => ScenarioText::load(p)?,
-        None => ScenarioText::new(
-            convchain::DEFAULT_SCENARIO.to_string(),
-            "<embedded default>".into(),
-            PathBuf::from("."),
-        )?,
-    };
+    let text = ScenarioText::load_or_default(a.scenario.as_deref())?;
     let sc = text.scenario()?;
     if !a.quiet {
         for w in &sc.warnings {

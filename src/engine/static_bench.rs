@@ -8,6 +8,7 @@ use crate::engine::pipeline::build_context;
 use crate::error::{Error, Result};
 use crate::measure::static_test::{self, StaticResult};
 use crate::scenario::Scenario;
+use crate::scenario::overrides::{Edit, ScenarioText};
 use crate::stages::Probe;
 use crate::stages::kind::{Role, Runtime, Upstream};
 use crate::stages::roles::{Quantizer, Reconstructor};
@@ -26,6 +27,61 @@ pub struct AdcStatic {
     /// Samples used by each test.
     pub code_density_samples: usize,
     pub ramp_samples: usize,
+    /// When codes are missing: the changes to the hold or the converter that clear them (or at least halve
+    /// their number), fewest missing codes first. Empty when no codes are missing or no single change helps.
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    pub missing_code_causes: Vec<MissingCodeCause>,
+}
+
+/// A non-ideality whose removal clears or halves the code-density test's missing codes.
+#[derive(Debug, Clone, Serialize)]
+pub struct MissingCodeCause {
+    /// As stage kind and parameter, e.g. `sample_hold.droop`.
+    pub mechanism: String,
+    /// The change made, e.g. "track-and-hold: droop = 0".
+    pub change: String,
+    /// Missing codes with the change.
+    pub missing_codes: u32,
+}
+
+/// Remove each non-ideality of the hold and the converter in turn (as the stage kinds list them,
+/// [`crate::stages::kind::KindSpec::ablations`]) and re-run the code-density test: the changes that clear the
+/// `missing` codes, or at least halve them, fewest first.
+pub fn missing_code_causes(
+    text: &ScenarioText,
+    sc: &Scenario,
+    missing: u32,
+) -> Result<Vec<MissingCodeCause>> {
+    if missing == 0 {
+        return Ok(Vec::new());
+    }
+    let mut tries = Vec::new();
+    for (i, st) in sc.stages.iter().enumerate() {
+        if matches!(st.kind.role(), Role::Hold | Role::Quantizer) {
+            for ab in st.kind.ablations() {
+                tries.push((i, st, ab));
+            }
+        }
+    }
+    // Each try is a whole code-density test: run them side by side.
+    use rayon::prelude::*;
+    let mut out: Vec<MissingCodeCause> = tries
+        .into_par_iter()
+        .filter_map(|(i, st, ab)| {
+            let edits: Vec<Edit> = ab.edits.iter().map(|e| Edit::of_stage(i + 1, e)).collect();
+            // A change the scenario cannot take (or a bench it cannot run) explains nothing.
+            let changed = text.with_edits(&edits).ok()?;
+            let a = static_tests(&changed).ok()?.adc?;
+            let m = a.code_density.missing_codes;
+            (2 * m <= missing).then(|| MissingCodeCause {
+                mechanism: ab.mechanism,
+                change: format!("{}: {}", st.label, ab.change),
+                missing_codes: m,
+            })
+        })
+        .collect();
+    out.sort_by_key(|c| c.missing_codes);
+    Ok(out)
 }
 
 /// Static results of the DAC.
@@ -236,5 +292,6 @@ fn adc_static(sc: &Scenario, make: impl Fn() -> Result<Box<dyn Quantizer>>) -> R
         ramp,
         code_density_samples: cd_n,
         ramp_samples: ramp_n,
+        missing_code_causes: Vec::new(),
     })
 }

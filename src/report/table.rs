@@ -144,5 +144,26 @@ pub fn static_summary(r: &StaticReport) -> String {
     if let Some(d) = &r.stat.dac {
         row("DAC (every code)", &d.result);
     }
+    if let Some(a) = &r.stat.adc
+        && a.code_density.missing_codes > 0
+    {
+        let _ = writeln!(
+            s,
+            "\n  why codes are missing (each change made alone, code-density test):"
+        );
+        if a.missing_code_causes.is_empty() {
+            let _ = writeln!(
+                s,
+                "    no single change to the hold or the converter clears or halves them"
+            );
+        }
+        for c in &a.missing_code_causes {
+            let _ = writeln!(
+                s,
+                "    {}: {} missing (instead of {})",
+                c.change, c.missing_codes, a.code_density.missing_codes
+            );
+        }
+    }
     s
 }

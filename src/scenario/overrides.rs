@@ -85,6 +85,18 @@ impl ScenarioText {
         })
     }
 
+    /// The scenario file at `path`, or the embedded default scenario when there is none.
+    pub fn load_or_default(path: Option<&Path>) -> Result<ScenarioText> {
+        match path {
+            Some(p) => Self::load(p),
+            None => Self::new(
+                crate::DEFAULT_SCENARIO.to_string(),
+                "<embedded default>".into(),
+                std::path::PathBuf::from("."),
+            ),
+        }
+    }
+
     /// The scenario as written.
     pub fn scenario(&self) -> Result<Scenario> {
         Ok(parse_str(&self.text, &self.origin, &self.base_dir)?)
