@@ -129,6 +129,8 @@ fn waveform(d: &WaveData) -> Plot<'_> {
         staircase: Some((&d.stair_t, &d.stair_l)),
         measured_delay_s: Some(50e-6),
         window_s: (0.0, 2e-3),
+        sampled_trace: 0,
+        aligned_output: None,
     })
 }
 
@@ -330,6 +332,8 @@ fn long_waveform_keeps_its_spike_in_the_drawing() {
         staircase: None,
         measured_delay_s: None,
         window_s: (0.0, 1.0),
+        sampled_trace: 0,
+        aligned_output: None,
     });
     let (svg, summary) = render_svg(&plot).unwrap();
     assert_eq!(summary.series, 1);
@@ -441,6 +445,7 @@ fn static_plot_renders_three_panels() {
     let plot = Plot::Static(StaticPlot {
         title: "static transfer".to_string(),
         transfer_v: &t,
+        transfer_label: "level".into(),
         dnl_lsb: &d,
         inl_lsb: &i,
     });
@@ -455,6 +460,7 @@ fn static_plot_renders_three_panels() {
     let plot = Plot::Static(StaticPlot {
         title: "static transfer".to_string(),
         transfer_v: &t,
+        transfer_label: "level".into(),
         dnl_lsb: &d,
         inl_lsb: &[],
     });
@@ -537,6 +543,8 @@ fn bad_inputs_are_refused() {
             staircase: None,
             measured_delay_s: None,
             window_s: window,
+            sampled_trace: 0,
+            aligned_output: None,
         })
     };
     assert!(render_svg(&mk(0.0, (0.0, 1.0), &[0.0])).is_err());
@@ -581,6 +589,8 @@ fn million_point_waveform_and_spectrum_render_quickly() {
         staircase: None,
         measured_delay_s: Some(1e-5),
         window_s: (0.0, 1.0),
+        sampled_trace: 0,
+        aligned_output: None,
     });
     let levels = spectrum_levels(n);
     let spec = spectrum(&levels, true);
@@ -621,6 +631,7 @@ fn gallery_is_written_for_a_visual_check() {
             Plot::Static(StaticPlot {
                 title: "static transfer".to_string(),
                 transfer_v: &t,
+                transfer_label: "level".into(),
                 dnl_lsb: &dn,
                 inl_lsb: &i,
             }),
