@@ -39,7 +39,7 @@ impl Axis {
         let (lo, hi) = widen(lo, hi);
         let step = nice_step((hi - lo) / target_ticks.max(2) as f64);
         let offset = if lo.abs().max(hi.abs()) > OFFSET_RATIO * (hi - lo) {
-            (lo / step).floor() * step
+            (lo / step + 1e-9).floor() * step
         } else {
             0.0
         };

@@ -32,16 +32,7 @@ pub(super) fn draw_spectrum<DB: DrawingBackend>(
     }
     let f_top = (n - 1) as f64 * s.bin_hz;
     let first_bin = if s.log_frequency { 1 } else { 0 };
-    let (lmin, lmax) = finite_range(&s.level_dbfs[first_bin..]).unwrap_or((-120.0, 0.0));
-    // Topped at 0 dBFS, the full scale; only a record over full scale lifts the top to show its peak.
-    let y_hi = if lmax <= 0.0 {
-        0.0
-    } else {
-        (lmax / 10.0).ceil() * 10.0
-    };
-    let y_lo = ((lmin / 10.0).floor() * 10.0)
-        .max(y_hi - 200.0)
-        .min(y_hi - 20.0);
+    let (y_lo, y_hi) = level_range(&s.level_dbfs[first_bin..]);
     let x = if s.log_frequency {
         Axis::logarithmic("frequency", "Hz", s.bin_hz, f_top)
     } else {
@@ -216,6 +207,21 @@ pub(super) fn draw_spectrum<DB: DrawingBackend>(
         }
     }
     Ok(())
+}
+
+/// The level axis' range, dBFS: topped at 0 dBFS, the full scale (only a record over full scale lifts the top
+/// to the next 10 dB so its peak shows), down to the lowest level (at most 200 dB, at least 20 dB below).
+pub(super) fn level_range(levels: &[f64]) -> (f64, f64) {
+    let (lmin, lmax) = finite_range(levels).unwrap_or((-120.0, 0.0));
+    let y_hi = if lmax <= 0.0 {
+        0.0
+    } else {
+        (lmax / 10.0).ceil() * 10.0
+    };
+    let y_lo = ((lmin / 10.0).floor() * 10.0)
+        .max(y_hi - 200.0)
+        .min(y_hi - 20.0);
+    (y_lo, y_hi)
 }
 
 /// Rows of the marks' labels under the frequency axis.

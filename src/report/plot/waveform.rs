@@ -179,7 +179,9 @@ pub(super) fn draw_waveform<DB: DrawingBackend>(
                 merge(finite_range(&al.input), finite_range(&al.output)).unwrap_or((-1.0, 1.0));
             let (alo, ahi) = padded(alo, ahi, 0.06);
             let (elo, ehi) = finite_range(&al.error).unwrap_or((-1.0, 1.0));
-            let m = elo.abs().max(ehi.abs());
+            // At least a millionth of the input's swing, so rounding noise is not blown up to fill the panel.
+            let (ilo, ihi) = finite_range(&al.input).unwrap_or((-1.0, 1.0));
+            let m = elo.abs().max(ehi.abs()).max(1e-6 * (ihi - ilo));
             let (elo, ehi) = padded(-m, m, 0.08);
             (
                 Some(Axis::linear("aligned", "V", alo, ahi, 4)),
@@ -375,7 +377,8 @@ pub(super) fn align(w: &WaveformPlot, aligned: &[f64]) -> Option<Aligned> {
         sab += (a - ma) * (b - mb);
         saa += (a - ma) * (a - ma);
     }
-    if !(saa > 0.0) {
+    // A still output (to rounding: under 0.1 nV rms about its mean) has nothing to fit.
+    if !(saa > 1e-20 * n * (1.0 + ma * ma)) {
         return None;
     }
     let gain = sab / saa;
