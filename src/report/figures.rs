@@ -401,11 +401,51 @@ pub fn static_figures(name: &str, st: &Static) -> Result<Vec<Figure>> {
             &Plot::Static(StaticPlot {
                 title: format!("{name}: DAC static"),
                 transfer_v: &d.levels_v,
-                transfer_label: "output - code 0 output".into(),
+                transfer_label: "output above code 0".into(),
                 dnl_lsb: &d.result.dnl_lsb,
                 inl_lsb: &d.result.inl_bestfit_lsb,
             }),
         )?);
     }
     Ok(figs)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn only_a_sine_gets_tone_figures_and_other_sources_say_what_the_spectrum_is() {
+        let sine = Waveform::Sine {
+            frequency_hz: 1e3,
+            amplitude_v: 1.0,
+            phase_rad: 0.0,
+        };
+        assert_eq!(source_kind(&sine), None);
+        let noise = Waveform::Noise {
+            rms_v: 0.1,
+            bandwidth_hz: None,
+        };
+        let said = source_kind(&noise).unwrap();
+        assert!(said.starts_with("noise source, 100 mV rms"), "{said}");
+        let chirp = Waveform::Chirp {
+            start_hz: 100.0,
+            stop_hz: 10e3,
+            sweep_s: 1.0,
+            law: crate::signal::waveform::ChirpLaw::Linear,
+            amplitude_v: 1.0,
+        };
+        let said = source_kind(&chirp).unwrap();
+        assert!(said.starts_with("chirp source 100 Hz to 10 kHz"), "{said}");
+        let square = Waveform::Square {
+            frequency_hz: 50.0,
+            amplitude_v: 1.0,
+            duty: 0.5,
+        };
+        assert!(
+            source_kind(&square)
+                .unwrap()
+                .contains("SINAD, ENOB and THD need a sine")
+        );
+    }
 }

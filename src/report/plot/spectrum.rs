@@ -209,10 +209,15 @@ pub(super) fn draw_spectrum<DB: DrawingBackend>(
     Ok(())
 }
 
-/// The level axis' range, dBFS: topped at 0 dBFS, the full scale (only a record over full scale lifts the top
-/// to the next 10 dB so its peak shows), down to the lowest level (at most 200 dB, at least 20 dB below).
+/// The level axis' range, dBFS: topped at 0 dBFS, the full scale (only a line over full scale lifts the top to
+/// the next 10 dB so its peak shows), down to the lowest level (at most 200 dB, at least 20 dB below).
 pub(super) fn level_range(levels: &[f64]) -> (f64, f64) {
-    let (lmin, lmax) = finite_range(levels).unwrap_or((-120.0, 0.0));
+    let (lmin, mut lmax) = finite_range(levels).unwrap_or((-120.0, 0.0));
+    // The DC lobe (the first three bins, as the meters leave it out) does not lift the top: a unipolar
+    // signal's mean may stand above a full-scale sine's peak. Its trace is then clipped at the top.
+    if levels.len() > 6 {
+        lmax = finite_range(&levels[3..]).map_or(lmax, |r| r.1);
+    }
     let y_hi = if lmax <= 0.0 {
         0.0
     } else {

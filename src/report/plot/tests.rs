@@ -576,6 +576,10 @@ fn spectrum_is_topped_at_full_scale() {
     let mut over = levels.clone();
     over[100] = 3.0;
     assert_eq!(super::spectrum::level_range(&over).1, 10.0);
+    // A mean above full scale (bin 0, a unipolar signal) does not.
+    let mut dc = levels.clone();
+    dc[0] = 2.0;
+    assert_eq!(super::spectrum::level_range(&dc).1, 0.0);
 }
 
 #[test]

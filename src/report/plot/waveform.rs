@@ -378,7 +378,7 @@ pub(super) fn align(w: &WaveformPlot, aligned: &[f64]) -> Option<Aligned> {
         saa += (a - ma) * (a - ma);
     }
     // A still output (to rounding: under 0.1 nV rms about its mean) has nothing to fit.
-    if !(saa > 1e-20 * n * (1.0 + ma * ma)) {
+    if saa.is_nan() || saa <= 1e-20 * n * (1.0 + ma * ma) {
         return None;
     }
     let gain = sab / saa;
