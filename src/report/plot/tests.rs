@@ -919,6 +919,16 @@ fn gallery_is_written_for_a_visual_check() {
             }),
         ),
         ("xy", xy(&xyd)),
+        (
+            "histogram",
+            Plot::Histogram(HistogramPlot {
+                title: "histogram".to_string(),
+                x_label: "measured latency (s)".to_string(),
+                edges: &[153.2e-3, 153.203e-3, 153.206e-3, 153.209e-3],
+                counts: &[2.0, 5.0, 1.0],
+                markers: vec![(153.204e-3, "median 153.204 ms".to_string())],
+            }),
+        ),
     ];
     for (name, plot) in &plots {
         let (png_bytes, _) = render_png(plot, 1200, 750).unwrap();

@@ -198,10 +198,20 @@ fn limit_panels<'a>(r: &LimitReport, cols: &'a LimitColumns) -> plot::PanelsPlot
             ]);
         }
     }
-    let headline = match (r.limit.frequency_hz, r.limit.criterion) {
+    let mut headline = match (r.limit.frequency_hz, r.limit.criterion) {
         (Some(f), Some(c)) => format!("limit {} ({})", format_si(f, "Hz"), c.name()),
         _ => format!("no limit below {}", format_si(r.to_hz, "Hz")),
     };
+    // The aliasing criterion has no metric to draw: its frequency is said in the title.
+    if let Some(f) = r
+        .limit
+        .criteria
+        .iter()
+        .find(|c| c.criterion == Criterion::Aliasing)
+        .and_then(|c| c.frequency_hz)
+    {
+        headline.push_str(&format!("; aliasing from {}", format_si(f, "Hz")));
+    }
     plot::PanelsPlot {
         title: format!("{}: {headline}", r.scenario),
         x_label: "input frequency (Hz)".into(),
