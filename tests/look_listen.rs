@@ -261,8 +261,9 @@ fn pictures_hold_every_stream_of_the_chain() {
     let m = convchain::measure::chain::measure_run(&run.records()).unwrap();
     let figs = convchain::report::figures::run_figures(&run, &m, None).unwrap();
     let wave = figs.iter().find(|f| f.name == "waveform").unwrap();
-    // source + DAC output, and the staircase.
-    assert_eq!(wave.summary.series, run.capture.columns.len() + 1);
+    // source + DAC output, and the staircase; below them the input, the output aligned by the measured delay,
+    // and the error.
+    assert_eq!(wave.summary.series, run.capture.columns.len() + 1 + 3);
     assert!(wave.summary.markers > 0, "sampling instants are marked");
     let spec = figs.iter().find(|f| f.name == "spectrum_output").unwrap();
     assert!(spec.summary.series >= 1);

@@ -1,12 +1,13 @@
 //! The pictures of a run and of the static tests, built from the engine's records and the meters' results.
 
-use crate::engine::pipeline::RunOutput;
+use crate::engine::pipeline::{RunOutput, si};
 use crate::engine::static_bench::Static;
 use crate::error::Result;
 use crate::measure::chain::{ChainMetrics, SpectrumDetail};
 use crate::report::plot::{
     BudgetPlot, Plot, PlotSummary, SpectrumPlot, StaticPlot, WaveformPlot, render_png, render_svg,
 };
+use crate::signal::waveform::Waveform;
 
 /// Pixel size of the PNG files.
 pub const PNG_SIZE: (u32, u32) = (1200, 750);
@@ -34,21 +35,64 @@ fn figure(name: &str, caption: String, plot: &Plot) -> Result<Figure> {
     })
 }
 
-/// The default waveform window: the last few cycles of the capture (at least three periods of the fundamental
-/// and eight conversion periods, at least 64 grid steps).
-pub fn default_window_s(run: &RunOutput) -> (f64, f64) {
+/// The default waveform window: a few cycles (at least three periods of the fundamental and eight conversion
+/// periods, 256 without a fundamental, at least 64 grid steps) where the signal is. Windows of that width, stepped back from the end of
+/// the capture by half a width, are scored by the source's peak-to-peak swing; the latest one that swings at
+/// least half as much as the liveliest is shown (the end of a steady sine, not a recording's silent tail). The
+/// window ends one measured delay before the capture does when the capture is long enough, so the output
+/// that belongs to it is captured too (the aligned panels of the waveform figure).
+pub fn default_window_s(run: &RunOutput, delay_s: Option<f64>) -> (f64, f64) {
     let cap = &run.capture;
     let dt = cap.timebase.dt_s();
     let start = cap.timebase.time_s(cap.n0);
-    let end = start + (cap.output().len().saturating_sub(1)) as f64 * dt;
+    let len = cap.output().len();
+    let end = start + (len.saturating_sub(1)) as f64 * dt;
     let mut width = 64.0 * dt;
     if let Some(f) = run.plan.frequency_hz {
         width = width.max(3.0 / f);
     }
     if let Some(a) = &run.plan.adc {
-        width = width.max(8.0 / a.sample_rate_hz);
+        // A source without a fundamental (a recording, noise, a chirp) gets 256 conversion periods: a few
+        // cycles of the lower audio tones at audio rates.
+        let periods = if run.plan.frequency_hz.is_some() {
+            8.0
+        } else {
+            256.0
+        };
+        width = width.max(periods / a.sample_rate_hz);
     }
-    ((end - width).max(start), end)
+    width = width.min(end - start);
+    let latest = match delay_s {
+        Some(d) if d.is_finite() && d > 0.0 && end - d - width >= start => end - d,
+        _ => end,
+    };
+    let signal = cap.source().unwrap_or(cap.output());
+    let steps = ((width / dt).round() as usize).max(2);
+    let last = (((latest - start) / dt).floor().max(0.0) as usize).min(len.saturating_sub(1));
+    // (window end index, peak-to-peak) from the latest backwards, at most 4096 windows.
+    let mut scored: Vec<(usize, f64)> = Vec::new();
+    let mut e = last;
+    while e + 1 >= steps && scored.len() < 4096 {
+        let seg = &signal[e + 1 - steps..=e];
+        let (lo, hi) = seg
+            .iter()
+            .filter(|v| v.is_finite())
+            .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| {
+                (a.min(v), b.max(v))
+            });
+        scored.push((e, if hi >= lo { hi - lo } else { 0.0 }));
+        if e < steps / 2 {
+            break;
+        }
+        e -= (steps / 2).max(1);
+    }
+    let best = scored.iter().map(|s| s.1).fold(0.0, f64::max);
+    let chosen = scored
+        .iter()
+        .find(|s| s.1 >= 0.5 * best)
+        .map_or(last, |s| s.0);
+    let w1 = start + chosen as f64 * dt;
+    ((w1 - width).max(start), w1)
 }
 
 /// Waveform, output spectrum, ADC spectrum and latency budget.
@@ -63,7 +107,7 @@ pub fn run_figures(
     // ---- waveform
     let cap = &run.capture;
     let tb = cap.timebase;
-    let (w0, w1) = window_s.unwrap_or_else(|| default_window_s(run));
+    let (w0, w1) = window_s.unwrap_or_else(|| default_window_s(run, Some(m.latency.measured_s)));
     let cap_t0 = tb.time_s(cap.n0);
     let len = cap.output().len();
     let i0 = (((w0 - cap_t0) * tb.rate_hz).floor().max(0.0) as usize).min(len.saturating_sub(2));
@@ -102,6 +146,23 @@ pub fn run_figures(
             st_v.push(conv.reconstructor.level_v(e.code));
         }
     }
+    // The output one measured delay later, on the window's grid (NaN past the capture's end).
+    let delay = m.latency.measured_s;
+    let out = cap.output();
+    let aligned: Vec<f64> = (i0..i1)
+        .map(|i| {
+            let u = i as f64 + delay * tb.rate_hz;
+            let k = u.floor();
+            if !(u.is_finite() && k >= 0.0 && (k as usize) + 1 < len) {
+                return f64::NAN;
+            }
+            let (k, frac) = (k as usize, u - k);
+            out[k] + frac * (out[k + 1] - out[k])
+        })
+        .collect();
+    let has_aligned = delay.is_finite() && aligned.iter().any(|v| v.is_finite());
+    // The ADC samples the output of the last analog stage before it (column 0 is the source).
+    let sampled_trace = run.chain.pre.len().min(traces.len().saturating_sub(1));
     let wave = Plot::Waveform(WaveformPlot {
         title: format!("{name}: input and output"),
         t0_s: t0,
@@ -112,43 +173,70 @@ pub fn run_figures(
         staircase: (!st_t.is_empty()).then_some((&st_t[..], &st_v[..])),
         measured_delay_s: Some(m.latency.measured_s),
         window_s: (t0, t1),
+        sampled_trace,
+        aligned_output: has_aligned.then_some(&aligned[..]),
     });
     figs.push(figure(
         "waveform",
-        "Input (source) against output, with the ADC's sampling instants and the DAC's zero-order hold".into(),
+        "Input (source) against output, with the ADC's samples on the signal it samples and the DAC's \
+         zero-order hold; below, the output shifted back by the measured delay over the input, and the error"
+            .into(),
         &wave,
     )?);
 
     // ---- spectra
     let fs_adc = run.plan.adc.map(|a| a.sample_rate_hz);
-    figs.push(spectrum_figure(
-        "spectrum_output",
-        format!("{name}: analog output spectrum"),
-        &m.detail.output,
-        run.plan.frequency_hz,
-        fs_adc,
-        Some(m.output.band_hz),
-        vec![
+    let source = source_kind(&run.scenario.source.waveform);
+    // The source frequency as the terminal and the report print it (after any move for coherence).
+    let f0 = run.plan.frequency_hz.or(m.output.fundamental_hz);
+    let output_notes = match &source {
+        None => vec![
+            fmt_f0(f0),
             fmt_opt("SINAD", m.output.sinad_db, "dB"),
             fmt_opt("ENOB", m.output.enob_bits, "bits"),
             fmt_opt("THD", m.output.thd_db, "dB"),
             fmt_opt("SFDR", m.output.sfdr_dbc, "dBc"),
+            format!("analysis band {}", si(m.output.band_hz, "Hz")),
         ],
+        Some(what) => vec![
+            what.clone(),
+            format!("analysis band {}", si(m.output.band_hz, "Hz")),
+        ],
+    };
+    let tones = source.is_none();
+    figs.push(spectrum_figure(
+        "spectrum_output",
+        format!("{name}: analog output spectrum"),
+        &m.detail.output,
+        tones.then_some(f0).flatten(),
+        fs_adc,
+        Some(m.output.band_hz),
+        output_notes,
     )?);
     if let (Some(d), Some(a)) = (&m.detail.adc, &m.adc) {
-        figs.push(spectrum_figure(
-            "spectrum_adc",
-            format!("{name}: ADC code spectrum"),
-            d,
-            run.plan.frequency_hz,
-            None,
-            None,
-            vec![
+        let f0 = run.plan.frequency_hz.or(a.fundamental_hz);
+        let notes = match &source {
+            None => vec![
+                fmt_f0(f0),
                 fmt_opt("SINAD", a.sinad_db, "dB"),
                 fmt_opt("ENOB", a.enob_bits, "bits"),
                 fmt_opt("THD", a.thd_db, "dB"),
                 fmt_opt("SFDR", a.sfdr_dbc, "dBc"),
+                format!("{} bits at {}", a.bits, si(a.sample_rate_hz, "Hz")),
             ],
+            Some(what) => vec![
+                what.clone(),
+                format!("{} bits at {}", a.bits, si(a.sample_rate_hz, "Hz")),
+            ],
+        };
+        figs.push(spectrum_figure(
+            "spectrum_adc",
+            format!("{name}: ADC code spectrum"),
+            d,
+            tones.then_some(f0).flatten(),
+            None,
+            None,
+            notes,
         )?);
     }
 
@@ -169,6 +257,55 @@ pub fn run_figures(
         }),
     )?);
     Ok(figs)
+}
+
+/// What the spectrum of a source other than a sine is, for the strip under the spectrum (sine metrics such as
+/// SINAD and ENOB describe a chain driven by one sine; for other sources the plot says what it shows instead).
+/// None for a sine.
+pub fn source_kind(w: &Waveform) -> Option<String> {
+    let periodic = |what: &str, f: f64| {
+        format!(
+            "{what} source at {}: its harmonics belong to the signal; SINAD, ENOB and THD need a sine",
+            si(f, "Hz")
+        )
+    };
+    match w {
+        Waveform::Sine { .. } => None,
+        Waveform::Square { frequency_hz, .. } => Some(periodic("square", *frequency_hz)),
+        Waveform::Triangle { frequency_hz, .. } => Some(periodic("triangle", *frequency_hz)),
+        Waveform::Sawtooth { frequency_hz, .. } => Some(periodic("sawtooth", *frequency_hz)),
+        Waveform::Multitone { tones } => Some(format!(
+            "multitone source ({} tones): the spectrum of the tones and what the chain adds",
+            tones.len()
+        )),
+        Waveform::Chirp {
+            start_hz, stop_hz, ..
+        } => Some(format!(
+            "chirp source {} to {}: the spectrum of the whole sweep, not of one tone",
+            si(*start_hz, "Hz"),
+            si(*stop_hz, "Hz")
+        )),
+        Waveform::Step { .. } => Some("step source: the spectrum of a step, not of a tone".into()),
+        Waveform::Dc => Some("constant source: what is left is the chain's own noise".into()),
+        Waveform::Noise { rms_v, .. } => Some(format!(
+            "noise source, {} rms: the chain's response to noise, not tone metrics",
+            si(*rms_v, "V")
+        )),
+        Waveform::Wav { path, .. } => Some(format!(
+            "WAV source {}: the spectrum of the recording, not tone metrics",
+            path.file_name()
+                .map(|n| n.to_string_lossy().into_owned())
+                .unwrap_or_default()
+        )),
+    }
+}
+
+/// The fundamental for the strip, written as the terminal and the report write it.
+fn fmt_f0(f0: Option<f64>) -> String {
+    match f0 {
+        Some(f) => format!("f0 {}", si(f, "Hz")),
+        None => "f0 -".to_string(),
+    }
 }
 
 fn fmt_opt(label: &str, v: Option<f64>, unit: &str) -> String {
@@ -192,6 +329,7 @@ fn spectrum_figure(
     let harmonics: Vec<(u32, f64, bool)> = d
         .tones
         .as_ref()
+        .filter(|_| f0.is_some())
         .map(|t| {
             t.harmonics
                 .iter()
@@ -213,12 +351,13 @@ fn spectrum_figure(
         }
     }
     let caption = if fs_images.is_some() {
-        "Output spectrum in dBFS (input-referred full scale): fundamental, harmonics (folded ones marked), \
-         zero-order-hold images and the analysis band"
+        "Output spectrum in dBFS (input-referred full scale): the fundamental (f0), harmonics by order (* \
+         folded) and zero-order-hold images (img) marked under the frequency axis, the analysis band shaded, \
+         the measured figures in the strip below"
             .to_string()
     } else {
-        "ADC code spectrum in dBFS: fundamental and harmonics (folded about the conversion rate's Nyquist \
-         frequency)"
+        "ADC code spectrum in dBFS: the fundamental (f0) and harmonics by order (* folded about the conversion \
+         rate's Nyquist frequency) marked under the frequency axis, the measured figures in the strip below"
             .to_string()
     };
     figure(
@@ -228,7 +367,7 @@ fn spectrum_figure(
             title,
             bin_hz: d.spectrum.bin_hz,
             level_dbfs: &level,
-            fundamental_hz: d.tones.as_ref().map(|t| t.fundamental_hz).or(f0),
+            fundamental_hz: f0.and(d.tones.as_ref().map(|t| t.fundamental_hz)).or(f0),
             harmonics,
             images_hz: images,
             band_hz,
@@ -249,6 +388,7 @@ pub fn static_figures(name: &str, st: &Static) -> Result<Vec<Figure>> {
             &Plot::Static(StaticPlot {
                 title: format!("{name}: ADC static (code density)"),
                 transfer_v: &transfer,
+                transfer_label: "level".into(),
                 dnl_lsb: &a.code_density.dnl_lsb,
                 inl_lsb: &a.code_density.inl_bestfit_lsb,
             }),
@@ -257,14 +397,55 @@ pub fn static_figures(name: &str, st: &Static) -> Result<Vec<Figure>> {
     if let Some(d) = &st.dac {
         figs.push(figure(
             "static_dac",
-            "DAC: settled output of every code, DNL and INL (best-fit line)".into(),
+            "DAC: settled output of every code relative to the zero-code output, DNL and INL (best-fit line)".into(),
             &Plot::Static(StaticPlot {
                 title: format!("{name}: DAC static"),
                 transfer_v: &d.levels_v,
+                transfer_label: "output above code 0".into(),
                 dnl_lsb: &d.result.dnl_lsb,
                 inl_lsb: &d.result.inl_bestfit_lsb,
             }),
         )?);
     }
     Ok(figs)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn only_a_sine_gets_tone_figures_and_other_sources_say_what_the_spectrum_is() {
+        let sine = Waveform::Sine {
+            frequency_hz: 1e3,
+            amplitude_v: 1.0,
+            phase_rad: 0.0,
+        };
+        assert_eq!(source_kind(&sine), None);
+        let noise = Waveform::Noise {
+            rms_v: 0.1,
+            bandwidth_hz: None,
+        };
+        let said = source_kind(&noise).unwrap();
+        assert!(said.starts_with("noise source, 100 mV rms"), "{said}");
+        let chirp = Waveform::Chirp {
+            start_hz: 100.0,
+            stop_hz: 10e3,
+            sweep_s: 1.0,
+            law: crate::signal::waveform::ChirpLaw::Linear,
+            amplitude_v: 1.0,
+        };
+        let said = source_kind(&chirp).unwrap();
+        assert!(said.starts_with("chirp source 100 Hz to 10 kHz"), "{said}");
+        let square = Waveform::Square {
+            frequency_hz: 50.0,
+            amplitude_v: 1.0,
+            duty: 0.5,
+        };
+        assert!(
+            source_kind(&square)
+                .unwrap()
+                .contains("SINAD, ENOB and THD need a sine")
+        );
+    }
 }

@@ -27,9 +27,10 @@ use super::shard::{
 use crate::engine::pipeline;
 use crate::engine::static_bench::{Static, static_tests};
 use crate::error::{Error, Result};
+use crate::format::units::format_si_table;
 use crate::measure::chain::{ChainMetrics, measure_run};
 use crate::report::OutputDir;
-use crate::report::plot::{Plot, PlotFormat, XyPlot, render};
+use crate::report::plot::{HistogramPlot, Plot, PlotFormat, render};
 use crate::scenario::overrides::ScenarioText;
 use crate::scenario::{Scenario, Spread, SpreadLaw};
 
@@ -656,8 +657,23 @@ pub fn csv_bytes(set: &RowSet) -> Result<Vec<u8>> {
     w.into_inner().map_err(|e| Error::Run(format!("csv: {e}")))
 }
 
-/// Axis label of a metric with its unit from the name's suffix.
+/// Axis label of a plotted metric in words, with its unit: "measured latency (s)", "worst ADC DNL (LSB)".
 fn axis_label(name: &str) -> String {
+    let words = match name {
+        "output.enob_bits" => "output ENOB (bits)",
+        "adc.enob_bits" => "ADC ENOB (bits)",
+        "output.sinad_db" => "output SINAD (dB)",
+        "output.gain_db" => "output gain (dB)",
+        "latency.measured_s" => "measured latency (s)",
+        "static.dac.dnl_max_lsb" => "worst DAC DNL (LSB)",
+        "static.dac.inl_max_lsb" => "worst DAC INL (LSB)",
+        "static.adc.dnl_max_lsb" => "worst ADC DNL (LSB)",
+        "static.adc.inl_max_lsb" => "worst ADC INL (LSB)",
+        _ => "",
+    };
+    if !words.is_empty() {
+        return words.to_string();
+    }
     for (suffix, unit) in [
         ("_s", "s"),
         ("_db", "dB"),
@@ -666,35 +682,29 @@ fn axis_label(name: &str) -> String {
         ("_lsb", "LSB"),
     ] {
         if let Some(stem) = name.strip_suffix(suffix) {
-            return format!("{stem} ({unit})");
+            return format!("{} ({unit})", stem.replace(['.', '_'], " "));
         }
     }
     name.to_string()
 }
 
-/// A histogram as a step outline: (x, y) points over `bins` equal bins between the extremes.
-pub fn histogram_outline(values: &[f64], bins: usize) -> Option<(Vec<f64>, Vec<f64>)> {
+/// A histogram of `bins` equal bins between the extremes: (edges, counts), `bins` + 1 edges; None when the
+/// values do not spread.
+pub fn histogram_bins(values: &[f64], bins: usize) -> Option<(Vec<f64>, Vec<f64>)> {
     let lo = values.iter().copied().fold(f64::INFINITY, f64::min);
     let hi = values.iter().copied().fold(f64::NEG_INFINITY, f64::max);
     if values.is_empty() || hi.partial_cmp(&lo) != Some(std::cmp::Ordering::Greater) || bins == 0 {
         return None;
     }
     let w = (hi - lo) / bins as f64;
-    let mut counts = vec![0u64; bins];
+    let mut counts = vec![0.0; bins];
     for v in values {
         let b = (((v - lo) / w) as usize).min(bins - 1);
-        counts[b] += 1;
+        counts[b] += 1.0;
     }
-    let mut x = vec![lo];
-    let mut y = vec![0.0];
-    for (b, c) in counts.iter().enumerate() {
-        let (e0, e1) = (lo + b as f64 * w, lo + (b + 1) as f64 * w);
-        x.extend([e0, e1]);
-        y.extend([*c as f64, *c as f64]);
-    }
-    x.push(hi);
-    y.push(0.0);
-    Some((x, y))
+    let mut edges: Vec<f64> = (0..bins).map(|b| lo + b as f64 * w).collect();
+    edges.push(hi);
+    Some((edges, counts))
 }
 
 /// Write `montecarlo.csv`, `montecarlo.json`, `rows.json` and histograms (`hist-<metric>.png/.svg`) of the
@@ -714,7 +724,7 @@ pub fn write_outputs(out: &OutputDir, set: &RowSet) -> Result<Summary> {
     for m in PLOTTED {
         let values: Vec<f64> = column(set, m)?.into_iter().flatten().collect();
         let bins = ((values.len() as f64).sqrt().ceil() as usize).clamp(5, 50);
-        let Some((x, y)) = histogram_outline(&values, bins) else {
+        let Some((edges, counts)) = histogram_bins(&values, bins) else {
             continue;
         };
         let st = summary
@@ -723,24 +733,26 @@ pub fn write_outputs(out: &OutputDir, set: &RowSet) -> Result<Summary> {
             .find(|s| s.name == m)
             .expect("every metric is summarised");
         let mut markers = Vec::new();
+        let x_label = axis_label(m);
+        let (_, unit) = crate::report::plot::split_label_unit(&x_label);
         for (label, v) in [("5 %", st.p5), ("median", st.median), ("95 %", st.p95)] {
             if let Some(v) = v {
-                markers.push((v, label.to_string()));
+                markers.push((v, format!("{label} {}", format_si_table(v, unit))));
             }
         }
         for r in requires.iter().filter(|r| r.metric == m) {
             markers.push((r.threshold, format!("require {}", r.text)));
         }
-        let plot = Plot::Xy(XyPlot {
+        let (words, _) = crate::report::plot::split_label_unit(&x_label);
+        let plot = Plot::Histogram(HistogramPlot {
             title: format!(
-                "{m}: {} runs ({} with a value)",
+                "{words} ({m}): {} runs ({} with a value)",
                 set.rows.len(),
                 values.len()
             ),
-            x_label: axis_label(m),
-            y_label: "runs".into(),
-            series: vec![("runs per bin", &x, &y)],
-            log_x: false,
+            x_label: x_label.clone(),
+            edges: &edges,
+            counts: &counts,
             markers,
         });
         for fmt in [PlotFormat::Png, PlotFormat::Svg] {
@@ -877,12 +889,14 @@ mod tests {
     }
 
     #[test]
-    fn histogram_outline_counts_every_value_once() {
+    fn histogram_bins_count_every_value_once() {
         let v: Vec<f64> = (0..100).map(|i| i as f64).collect();
-        let (x, y) = histogram_outline(&v, 10).unwrap();
-        assert_eq!(x.len(), y.len());
-        let total: f64 = y.iter().skip(1).step_by(2).sum();
-        assert_eq!(total, 100.0);
-        assert!(histogram_outline(&[1.0, 1.0], 5).is_none());
+        let (edges, counts) = histogram_bins(&v, 10).unwrap();
+        assert_eq!(edges.len(), counts.len() + 1);
+        assert_eq!(counts.iter().sum::<f64>(), 100.0);
+        // 0..99 in ten bins 9.9 wide: 10 values in each, the maximum in the last.
+        assert!(counts.iter().all(|&c| c == 10.0), "{counts:?}");
+        assert_eq!((edges[0], edges[10]), (0.0, 99.0));
+        assert!(histogram_bins(&[1.0, 1.0], 5).is_none());
     }
 }

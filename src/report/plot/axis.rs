@@ -10,6 +10,9 @@ use super::axis_title;
 use super::painter::{FRAME, GRID, Key, Painter, TEXT};
 use crate::format::units::{si_prefix_for_value, unit_takes_prefix};
 
+/// A linear axis whose values are more than this many spans away from zero counts its ticks from an offset.
+pub(super) const OFFSET_RATIO: f64 = 50.0;
+
 /// One axis: data range, mapping and ticks.
 #[derive(Debug, Clone)]
 pub(super) struct Axis {
@@ -23,6 +26,9 @@ pub(super) struct Axis {
 
 impl Axis {
     /// Linear axis over [lo, hi] in `unit`, ticks on 1-2-5 steps with labels scaled by the span's prefix.
+    /// When the labels would need many digits to tell the ticks apart (a 160 µs window 4 s into a run, a
+    /// histogram of latencies 9 µs wide around 153 ms), the ticks count from an offset named in the title:
+    /// "time (µs from 3.99984 s)", labels 0, 20, 40...
     pub(super) fn linear(
         quantity: &str,
         unit: &str,
@@ -31,16 +37,36 @@ impl Axis {
         target_ticks: usize,
     ) -> Axis {
         let (lo, hi) = widen(lo, hi);
-        let (title, prefix) = axis_title(quantity, unit, hi - lo);
         let step = nice_step((hi - lo) / target_ticks.max(2) as f64);
+        let offset = if lo.abs().max(hi.abs()) > OFFSET_RATIO * (hi - lo) {
+            (lo / step + 1e-9).floor() * step
+        } else {
+            0.0
+        };
+        let (mut title, prefix) = axis_title(quantity, unit, hi - lo);
+        if offset != 0.0 {
+            // Digits enough to write the offset to the tick step.
+            let digits = ((offset.abs() / step).log10().floor() as usize + 1).clamp(1, 15);
+            let at = trim_zeros(&super::format_si(offset, unit, digits));
+            let inner = match title.rfind('(') {
+                Some(open) if title.ends_with(')') => {
+                    let u = title[open + 1..title.len() - 1].to_string();
+                    title.truncate(open);
+                    format!("{u} from {at}")
+                }
+                _ => format!("from {at}"),
+            };
+            title = format!("{} ({inner})", title.trim_end());
+        }
         let scale = prefix.scale();
         let decimals = (-((step * scale).log10() + 1e-9).floor()).max(0.0) as usize;
         let mut ticks = Vec::new();
-        let first = (lo / step - 1e-9).ceil() as i64;
-        let last = (hi / step + 1e-9).floor() as i64;
+        let first = ((lo - offset) / step - 1e-9).ceil() as i64;
+        let last = ((hi - offset) / step + 1e-9).floor() as i64;
         for k in first..=last {
-            let v = k as f64 * step;
-            let shown = if k == 0 { 0.0 } else { v * scale };
+            let v = offset + k as f64 * step;
+            // Labels count from the offset (zero without one); k = 0 is written "0", never "-0".
+            let shown = if k == 0 { 0.0 } else { k as f64 * step * scale };
             ticks.push((v, format!("{shown:.decimals$}")));
         }
         Axis {
@@ -57,6 +83,16 @@ impl Axis {
     pub(super) fn logarithmic(quantity: &str, unit: &str, lo: f64, hi: f64) -> Axis {
         let lo = lo.max(f64::MIN_POSITIVE);
         let hi = if hi > lo { hi } else { lo * 10.0 };
+        if let Some((natural, scale)) = natural_unit(unit, hi) {
+            let mut a = Axis::logarithmic(quantity, "", lo * scale, hi * scale);
+            a.title = format!("{quantity} ({natural})");
+            a.lo = lo;
+            a.hi = hi;
+            for t in &mut a.ticks {
+                t.0 /= scale;
+            }
+            return a;
+        }
         let title = if unit.is_empty() {
             quantity.to_string()
         } else {
@@ -100,6 +136,33 @@ impl Axis {
         } else {
             (v - self.lo) / (self.hi - self.lo)
         }
+    }
+}
+
+/// The unit engineers read a quantity in, where it is not the base unit with an SI prefix: slew rates in
+/// V/µs (an amplifier's data sheet figure) or V/ms, rather than MV/s or kV/s. (written unit, factor from
+/// the base unit) for an axis reaching `magnitude`; None for units written with SI prefixes as usual.
+pub(super) fn natural_unit(unit: &str, magnitude: f64) -> Option<(&'static str, f64)> {
+    match unit {
+        "V/s" if magnitude.abs() >= 1e4 => Some(("V/µs", 1e-6)),
+        "V/s" if magnitude.abs() >= 10.0 => Some(("V/ms", 1e-3)),
+        "V/s" => Some(("V/s", 1.0)),
+        _ => None,
+    }
+}
+
+/// "3.79100 s" -> "3.791 s": trailing zeros of the number dropped, the unit kept.
+fn trim_zeros(s: &str) -> String {
+    let (num, rest) = s.split_once(' ').unwrap_or((s, ""));
+    let num = if num.contains('.') {
+        num.trim_end_matches('0').trim_end_matches('.')
+    } else {
+        num
+    };
+    if rest.is_empty() {
+        num.to_string()
+    } else {
+        format!("{num} {rest}")
     }
 }
 
@@ -173,6 +236,8 @@ pub(super) struct Frame {
     pub(super) y1: i32,
     pub(super) x: Axis,
     pub(super) y: Axis,
+    /// Room left free between the frame's bottom and the x tick labels, px (marks along the axis).
+    pub(super) below: i32,
 }
 
 impl Frame {
@@ -215,7 +280,7 @@ impl Frame {
                 let x = self.px(*v).round() as i32;
                 p.text(
                     s,
-                    (x, self.y1 + tick_gap),
+                    (x, self.y1 + self.below + tick_gap),
                     0.85,
                     TEXT,
                     HPos::Center,
@@ -225,7 +290,7 @@ impl Frame {
             }
             let xt = self.x.title.clone();
             p.summary.labels.push(xt.clone());
-            let y = self.y1 + tick_gap + p.fpx(1.25);
+            let y = self.y1 + self.below + tick_gap + p.fpx(1.25);
             p.text(
                 &xt,
                 ((self.x0 + self.x1) / 2, y),
@@ -310,6 +375,7 @@ pub(super) fn titled_frame<DB: DrawingBackend>(
         y1: p.h - bottom_margin(p),
         x,
         y,
+        below: 0,
     })
 }
 

@@ -71,6 +71,7 @@ pub(super) fn draw_budget<DB: DrawingBackend>(
         y1: p.h - bottom_margin(p),
         x,
         y,
+        below: 0,
     };
     p.label(
         &summary_note,

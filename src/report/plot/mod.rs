@@ -14,11 +14,13 @@
 //!
 //! Files: this one holds the public data types, the SI labels and `render`; `painter.rs` the palette, font
 //! and drawing primitives; `axis.rs` axes, ticks and the frame; `reduce.rs` the per-column reduction; one file
-//! per figure (`waveform.rs`, `spectrum.rs`, `static_transfer.rs`, `budget.rs`, `xy.rs`).
+//! per figure (`waveform.rs`, `spectrum.rs`, `static_transfer.rs`, `budget.rs`, `xy.rs`, `histogram.rs`, `panels.rs`).
 
 mod axis;
 mod budget;
+mod histogram;
 mod painter;
+mod panels;
 mod reduce;
 mod spectrum;
 mod static_transfer;
@@ -33,7 +35,9 @@ use crate::Error;
 use crate::format::units::{self, SiPrefix, SiStyle, si_prefix_for_span, unit_takes_prefix};
 
 use budget::draw_budget;
+use histogram::draw_histogram;
 use painter::{Painter, draw_err, ensure_font};
+use panels::draw_panels;
 use spectrum::draw_spectrum;
 use static_transfer::draw_static;
 use waveform::draw_waveform;
@@ -74,7 +78,11 @@ pub struct WaveformPlot<'a> {
     /// Named traces in volts on the grid: first = input (source), last = output, others = intermediate
     /// stages (drawn thin).
     pub traces: Vec<(&'a str, &'a [f64])>,
-    /// ADC sampling instants inside the window, s (drawn as small circles on the input trace).
+    /// Index in `traces` of the signal the ADC samples (the last analog stage before it, or the source):
+    /// the sampling instants are drawn on it.
+    pub sampled_trace: usize,
+    /// ADC sampling instants inside the window, s (drawn as small circles on the sampled trace; every one
+    /// when few enough to read, every k-th otherwise, as the legend says).
     pub sample_instants_s: &'a [f64],
     /// The value each sample was converted to (volts of the code), drawn as crosses; same length as
     /// `sample_instants_s`.
@@ -86,6 +94,10 @@ pub struct WaveformPlot<'a> {
     pub measured_delay_s: Option<f64>,
     /// Time window shown, s (start < end).
     pub window_s: (f64, f64),
+    /// The output one measured delay later, on the traces' grid (NaN where it was not captured): drawn
+    /// over the input in a panel below, with gain and offset fitted by least squares, and the error between
+    /// them in a panel under that.
+    pub aligned_output: Option<&'a [f64]>,
 }
 
 /// Spectrum in dBFS.
@@ -97,15 +109,17 @@ pub struct SpectrumPlot<'a> {
     pub bin_hz: f64,
     /// Level of each bin, dBFS (non-finite values are drawn at the bottom of the axis).
     pub level_dbfs: &'a [f64],
-    /// Fundamental frequency to mark, Hz.
+    /// Fundamental frequency to mark ("f0" under the frequency axis), Hz.
     pub fundamental_hz: Option<f64>,
-    /// Harmonics to mark: (order, where it lands in Hz, folded?). Folded ones are labelled "3f (folded)".
+    /// Harmonics to mark under the frequency axis: (order, where it lands in Hz, folded?). Folded ones are
+    /// labelled "3*".
     pub harmonics: Vec<(u32, f64, bool)>,
     /// Zero-order-hold images to mark, Hz.
     pub images_hz: Vec<f64>,
-    /// Upper edge of the analysis band, Hz (shaded).
+    /// Upper edge of the analysis band, Hz (shaded and marked when it is below the top of the plot).
     pub band_hz: Option<f64>,
-    /// Headline metrics written in a box ("SINAD 72.1 dB", ...).
+    /// Figures written in a strip under the plot ("SINAD 72.1 dB", ...), or what the spectrum is when the
+    /// source is not a sine.
     pub notes: Vec<String>,
     /// Logarithmic frequency axis (bin 0 is then not drawn).
     pub log_frequency: bool,
@@ -118,6 +132,9 @@ pub struct StaticPlot<'a> {
     pub title: String,
     /// Level or transition voltage per code, V.
     pub transfer_v: &'a [f64],
+    /// What `transfer_v` is, the transfer panel's axis title without its unit ("output above the zero-code
+    /// output").
+    pub transfer_label: String,
     /// Differential non-linearity per code, LSB.
     pub dnl_lsb: &'a [f64],
     /// Integral non-linearity per code, LSB.
@@ -153,6 +170,54 @@ pub struct XyPlot<'a> {
     pub markers: Vec<(f64, String)>,
 }
 
+/// A histogram: one bar per bin.
+#[derive(Debug, Clone)]
+pub struct HistogramPlot<'a> {
+    /// Title drawn above the plot.
+    pub title: String,
+    /// X axis label, same convention as [`XyPlot::x_label`].
+    pub x_label: String,
+    /// Bin edges in the x unit, increasing; one more than `counts`.
+    pub edges: &'a [f64],
+    /// Values per bin.
+    pub counts: &'a [f64],
+    /// Vertical lines with labels (percentiles, requirements), at x values in the x unit.
+    pub markers: Vec<(f64, String)>,
+}
+
+/// One panel of a [`PanelsPlot`]: a metric against the shared x, its threshold and where it is met.
+#[derive(Debug, Clone)]
+pub struct Panel<'a> {
+    /// The line above the panel ("accuracy: output ENOB falls below 7.43 bits at 38.73 Hz").
+    pub heading: String,
+    /// Y axis label with its unit in parentheses ("ENOB (bits)").
+    pub y_label: String,
+    pub x: &'a [f64],
+    pub y: &'a [f64],
+    /// Threshold in the y unit (a dashed line).
+    pub threshold: Option<f64>,
+    /// Where the criterion is met, in the x unit (a vertical line in the threshold's colour).
+    pub met_at: Option<f64>,
+}
+
+/// Panels over a shared x axis, one per criterion, with a table under them (the limit finder).
+#[derive(Debug, Clone)]
+pub struct PanelsPlot<'a> {
+    /// Title drawn above the panels.
+    pub title: String,
+    /// X axis label, same convention as [`XyPlot::x_label`].
+    pub x_label: String,
+    /// Logarithmic x axis.
+    pub log_x: bool,
+    pub panels: Vec<Panel<'a>>,
+    /// The overall limit, in the x unit (a black vertical line across every panel).
+    pub limit: Option<f64>,
+    /// The line above the table.
+    pub table_title: String,
+    /// Table rows, the first one the header; the first column is cut to fit.
+    pub table: Vec<Vec<String>>,
+}
+
 /// One plot of any kind.
 #[derive(Debug, Clone)]
 pub enum Plot<'a> {
@@ -166,6 +231,10 @@ pub enum Plot<'a> {
     Budget(BudgetPlot<'a>),
     /// Generic x-y chart.
     Xy(XyPlot<'a>),
+    /// Histogram bars.
+    Histogram(HistogramPlot<'a>),
+    /// Stacked panels with a table.
+    Panels(PanelsPlot<'a>),
 }
 
 /// What was drawn, so tests and callers can check a plot without looking at pixels.
@@ -180,6 +249,10 @@ pub struct PlotSummary {
     /// Texts drawn apart from numeric tick labels and bar values: title, axis titles, legend names,
     /// budget row names, notes and annotations.
     pub labels: Vec<String>,
+    /// Pixel box (left, top, right, bottom) of every horizontal label in `labels` drawn with a box (axis
+    /// titles and tick labels have their own rows and are not listed), so tests can check that no two
+    /// labels collide.
+    pub label_boxes: Vec<(i32, i32, i32, i32)>,
 }
 
 /// Size of an SVG rendering, pixels.
@@ -259,6 +332,16 @@ pub fn axis_title(quantity: &str, unit: &str, span: f64) -> (String, SiPrefix) {
     if !unit_takes_prefix(unit) {
         return (format!("{quantity} ({unit})"), SiPrefix::NONE);
     }
+    if let Some((natural, scale)) = axis::natural_unit(unit, span) {
+        let exponent = -(scale.log10().round() as i32);
+        return (
+            format!("{quantity} ({natural})"),
+            SiPrefix {
+                symbol: "",
+                exponent,
+            },
+        );
+    }
     let prefix = si_prefix_for_span(span);
     (format!("{quantity} ({}{unit})", prefix.symbol), prefix)
 }
@@ -271,7 +354,7 @@ pub fn format_si(value: f64, unit: &str, significant: usize) -> String {
 }
 
 /// Split "input frequency (Hz)" into ("input frequency", "Hz"); no trailing parentheses gives no unit.
-pub(super) fn split_label_unit(label: &str) -> (&str, &str) {
+pub fn split_label_unit(label: &str) -> (&str, &str) {
     let trimmed = label.trim_end();
     if trimmed.ends_with(')')
         && let Some(open) = trimmed.rfind('(')
@@ -301,6 +384,8 @@ fn draw_plot<DB: DrawingBackend>(
         Plot::Static(s) => draw_static(&mut p, s)?,
         Plot::Budget(b) => draw_budget(&mut p, b)?,
         Plot::Xy(x) => draw_xy(&mut p, x)?,
+        Plot::Histogram(h) => draw_histogram(&mut p, h)?,
+        Plot::Panels(s) => draw_panels(&mut p, s)?,
     }
     Ok(p.summary)
 }

@@ -109,6 +109,8 @@ pub(super) enum Key {
     Circle(RGBColor),
     Cross(RGBColor),
     Shade(RGBColor),
+    /// A short vertical tick (marks along an axis).
+    Tick(RGBColor),
 }
 
 /// Thin wrapper over a backend: pixel-space primitives plus the running summary.
@@ -210,18 +212,6 @@ impl<'b, DB: DrawingBackend> Painter<'b, DB> {
         self.line((c.0 - r, c.1 + r), (c.0 + r, c.1 - r), s, 1)
     }
 
-    pub(super) fn triangle_down(
-        &mut self,
-        tip: (i32, i32),
-        r: i32,
-        color: RGBColor,
-    ) -> Result<(), Error> {
-        let pts = [(tip.0 - r, tip.1 - 2 * r), (tip.0 + r, tip.1 - 2 * r), tip];
-        self.db
-            .fill_polygon(pts.iter().copied(), &Self::style(color.to_rgba(), 1, true))
-            .map_err(draw_err)
-    }
-
     pub(super) fn text_style(
         &self,
         rel: f64,
@@ -271,7 +261,39 @@ impl<'b, DB: DrawingBackend> Painter<'b, DB> {
         v: VPos,
     ) -> Result<(), Error> {
         self.summary.labels.push(s.to_string());
+        let b = self.text_box(s, at, rel, h, v);
+        self.summary.label_boxes.push(b);
         self.text(s, at, rel, color, h, v, false)
+    }
+
+    /// Pixel box (left, top, right, bottom) of a line of text anchored at `at` by (h, v).
+    pub(super) fn text_box(
+        &self,
+        s: &str,
+        at: (i32, i32),
+        rel: f64,
+        h: HPos,
+        v: VPos,
+    ) -> (i32, i32, i32, i32) {
+        let w = self.text_width(s, rel);
+        let ht = self.text_height(rel);
+        let x0 = match h {
+            HPos::Left => at.0,
+            HPos::Center => at.0 - w / 2,
+            HPos::Right => at.0 - w,
+        };
+        let y0 = match v {
+            VPos::Top => at.1,
+            VPos::Center => at.1 - ht / 2,
+            VPos::Bottom => at.1 - ht,
+        };
+        (x0, y0, x0 + w, y0 + ht)
+    }
+
+    /// Height of a line of text (ascent to descent), px.
+    pub(super) fn text_height(&self, rel: f64) -> i32 {
+        let scaled = embedded_font().as_scaled(PxScale::from((self.font_px * rel) as f32));
+        (scaled.ascent() - scaled.descent()).ceil() as i32
     }
 
     pub(super) fn text_width(&self, s: &str, rel: f64) -> i32 {
@@ -409,6 +431,10 @@ impl<'b, DB: DrawingBackend> Painter<'b, DB> {
                 }
                 Key::Circle(c) => self.circle(mid, (self.font_px * 0.25) as u32, c, false)?,
                 Key::Cross(c) => self.cross(mid, (self.font_px * 0.25) as i32, c)?,
+                Key::Tick(c) => {
+                    let r = self.fpx(0.45);
+                    self.line((mid.0, yy - r), (mid.0, yy + r), c.to_rgba(), 2)?;
+                }
                 Key::Shade(c) => {
                     let r = self.fpx(0.4);
                     self.rect((x, yy - r), (x + key_w, yy + r), rgba(c, 0.25), true)?;

@@ -1,15 +1,18 @@
-//! The spectrum figure: the power spectrum with harmonics, spurs and the measured figures.
+//! The spectrum figure: the power spectrum under a 0 dBFS top, the fundamental, harmonics, hold images and
+//! the analysis band's edge marked along the frequency axis (ticks and short labels, so no mark covers the
+//! trace), and the measured figures in a strip under the plot.
 
 use plotters::backend::DrawingBackend;
-use plotters::style::Color;
 use plotters::style::text_anchor::{HPos, VPos};
+use plotters::style::{Color, RGBColor};
 
 use crate::Error;
+use crate::format::units::format_si_table;
 
-use super::axis::{Axis, Frame, finite_range, titled_frame};
-use super::painter::{GRID, Key, Painter, TEXT, WHITE, palette, rgba};
+use super::SpectrumPlot;
+use super::axis::{Axis, Frame, bottom_margin, finite_range, left_margin};
+use super::painter::{Key, Painter, TEXT, palette, rgba};
 use super::reduce::{Reduce, to_pixels};
-use super::{SpectrumPlot, format_si};
 
 pub(super) fn draw_spectrum<DB: DrawingBackend>(
     p: &mut Painter<DB>,
@@ -29,32 +32,139 @@ pub(super) fn draw_spectrum<DB: DrawingBackend>(
     }
     let f_top = (n - 1) as f64 * s.bin_hz;
     let first_bin = if s.log_frequency { 1 } else { 0 };
-    let (lmin, lmax) = finite_range(&s.level_dbfs[first_bin..]).unwrap_or((-120.0, 0.0));
-    let y_hi = ((lmax + 8.0) / 10.0).ceil() * 10.0;
-    let y_lo = ((lmin / 10.0).floor() * 10.0)
-        .max(y_hi - 200.0)
-        .min(y_hi - 20.0);
+    let (y_lo, y_hi) = level_range(&s.level_dbfs[first_bin..]);
     let x = if s.log_frequency {
         Axis::logarithmic("frequency", "Hz", s.bin_hz, f_top)
     } else {
         Axis::linear("frequency", "Hz", 0.0, f_top, 8)
     };
     let y = Axis::linear("level", "dBFS", y_lo, y_hi, 8);
+    // The band is shown only where it cuts the plot short.
+    let band = s.band_hz.filter(|&b| b.is_finite() && b > 0.0 && b < f_top);
+    let visible_on =
+        |a: &Axis, hz: f64| hz.is_finite() && hz >= a.lo && hz <= a.hi && (!a.log || hz > 0.0);
+
+    // Marks along the frequency axis, in order of importance (a label that finds no room is left out,
+    // its tick stays).
+    let mut marks: Vec<Mark> = Vec::new();
+    if let Some(f0) = s.fundamental_hz.filter(|&h| visible_on(&x, h)) {
+        marks.push(Mark {
+            hz: f0,
+            text: "f0".into(),
+            colour: palette::VERMILLION,
+        });
+    }
+    if let Some(b) = band {
+        marks.push(Mark {
+            hz: b,
+            text: format!("band {}", format_si_table(b, "Hz")),
+            colour: palette::BLUE,
+        });
+    }
+    for &(order, hz, folded) in &s.harmonics {
+        if visible_on(&x, hz) {
+            marks.push(Mark {
+                hz,
+                text: if folded {
+                    format!("{order}*")
+                } else {
+                    order.to_string()
+                },
+                colour: HARMONIC,
+            });
+        }
+    }
+    for &hz in &s.images_hz {
+        if visible_on(&x, hz) {
+            marks.push(Mark {
+                hz,
+                text: "img".into(),
+                colour: palette::REDDISH_PURPLE,
+            });
+        }
+    }
 
     let mut entries = vec![("spectrum".to_string(), Key::Line(palette::BLUE, 1))];
-    if s.band_hz.is_some() {
+    if band.is_some() {
         entries.push(("analysis band".to_string(), Key::Shade(palette::SKY_BLUE)));
     }
-    let f = titled_frame(p, &s.title, &entries, x, y)?;
+    if marks.iter().any(|m| m.colour == palette::VERMILLION) {
+        entries.push((
+            "f0: fundamental".to_string(),
+            Key::Tick(palette::VERMILLION),
+        ));
+    }
+    if marks.iter().any(|m| m.colour == HARMONIC) {
+        let name = if s.harmonics.iter().any(|h| h.2) {
+            "harmonic order (* folded)"
+        } else {
+            "harmonic order"
+        };
+        entries.push((name.to_string(), Key::Tick(HARMONIC)));
+    }
+    if marks.iter().any(|m| m.colour == palette::REDDISH_PURPLE) {
+        entries.push((
+            "img: hold image".to_string(),
+            Key::Tick(palette::REDDISH_PURPLE),
+        ));
+    }
 
-    if let Some(band) = s.band_hz {
+    // Layout: title, legend, frame, the marks' rows under it, tick labels, x title, then the strip.
+    let top = p.title(&s.title)?;
+    let left = left_margin(p, &y);
+    let right = p.w - p.fpx(1.2);
+    let top = p.legend(&entries, left, top, right - left)?;
+    let strip = strip_lines(p, &s.notes, right - left - 2 * p.fpx(0.6));
+    let line_h = p.fpx(1.35);
+    let strip_h = if strip.is_empty() {
+        0
+    } else {
+        line_h * strip.len() as i32 + p.fpx(0.6)
+    };
+    let tick_len = p.fpx(0.45);
+    let mark_row = p.fpx(1.05);
+    // Each mark's label goes in the first row where it overlaps no other (None: no room, tick only).
+    let pad = p.fpx(0.25);
+    let mut rows: Vec<Vec<(i32, i32)>> = vec![Vec::new(); MARK_ROWS];
+    let placed: Vec<Option<(usize, i32)>> = marks
+        .iter()
+        .map(|m| {
+            let px = (left as f64 + x.frac(m.hz) * (right - left) as f64).round() as i32;
+            let w = p.text_width(&m.text, 0.75);
+            let cx = px.clamp(left + w / 2, right - w / 2);
+            let span = (cx - w / 2 - pad, cx + w / 2 + pad);
+            let r = rows
+                .iter()
+                .position(|row| row.iter().all(|&(a, b)| span.1 <= a || span.0 >= b))?;
+            rows[r].push(span);
+            Some((r, cx))
+        })
+        .collect();
+    let rows_used = rows.iter().filter(|r| !r.is_empty()).count() as i32;
+    let below = if marks.is_empty() {
+        0
+    } else {
+        tick_len + rows_used.max(1) * mark_row
+    };
+    let y1 = p.h - bottom_margin(p) - below - strip_h;
+    let f = Frame {
+        x0: left,
+        y0: top + p.fpx(0.3),
+        x1: right,
+        y1,
+        x,
+        y,
+        below,
+    };
+
+    if let Some(b) = band {
         let a = f.pt(f.x.lo, f.y.hi);
-        let b = f.pt(band.min(f.x.hi), f.y.lo);
-        p.rect(a, b, rgba(palette::SKY_BLUE, 0.15), true)?;
+        let c = f.pt(b, f.y.lo);
+        p.rect(a, c, rgba(palette::SKY_BLUE, 0.15), true)?;
     }
     f.draw(p, true)?;
-    if let Some(band) = s.band_hz {
-        let bx = f.pt(band.min(f.x.hi), f.y.lo).0;
+    if let Some(b) = band {
+        let bx = f.pt(b, f.y.lo).0;
         p.line((bx, f.y0), (bx, f.y1), palette::SKY_BLUE.to_rgba(), 1)?;
         p.summary.markers += 1;
     }
@@ -71,97 +181,91 @@ pub(super) fn draw_spectrum<DB: DrawingBackend>(
     );
     p.series_path(&pts, palette::BLUE, 1)?;
 
-    // Level at a marked frequency: the highest bin within one bin of it.
-    let level_at = |hz: f64| -> f64 {
-        let k = (hz / s.bin_hz).round().max(0.0) as usize;
-        let lo = k.saturating_sub(1).max(first_bin);
-        let hi = (k + 1).min(n - 1);
-        if lo > hi {
-            return floor;
-        }
-        s.level_dbfs[lo..=hi]
-            .iter()
-            .copied()
-            .filter(|v| v.is_finite())
-            .fold(floor, f64::max)
-    };
-    let visible =
-        |hz: f64| hz.is_finite() && hz >= f.x.lo && hz <= f.x.hi && (!f.x.log || hz > 0.0);
-    let r = (p.font_px * 0.3).max(3.0);
-    let gap = p.fpx(0.4);
-    if let Some(f0) = s.fundamental_hz.filter(|&h| visible(h)) {
-        let at = f.pt(f0, level_at(f0));
-        p.circle(at, r as u32, palette::VERMILLION, true)?;
+    // Ticks from the frame's bottom edge down, labels in their rows under them.
+    for (m, at) in marks.iter().zip(&placed) {
+        let px = f.pt(m.hz, f.y.lo).0;
+        p.line((px, f.y1), (px, f.y1 + tick_len), m.colour.to_rgba(), 2)?;
         p.summary.markers += 1;
-        let label = format!("f0 {}", format_si(f0, "Hz", 4));
-        p.label_above(
-            &label,
-            (at.0, at.1 - gap),
-            0.8,
-            palette::VERMILLION,
-            (f.x0, f.x1),
-        )?;
-    }
-    for &(order, hz, folded) in &s.harmonics {
-        if !visible(hz) {
-            continue;
+        if let Some((r, cx)) = *at {
+            let ty = f.y1 + tick_len + r as i32 * mark_row;
+            p.label(&m.text, (cx, ty), 0.75, m.colour, HPos::Center, VPos::Top)?;
         }
-        let at = f.pt(hz, level_at(hz));
-        p.circle(at, r as u32, palette::ORANGE, false)?;
-        p.summary.markers += 1;
-        let label = if folded {
-            format!("{order}f (folded)")
-        } else {
-            format!("{order}f")
-        };
-        p.label_above(&label, (at.0, at.1 - gap), 0.75, TEXT, (f.x0, f.x1))?;
     }
-    for &hz in &s.images_hz {
-        if !visible(hz) {
-            continue;
+
+    // The strip of figures under the x title.
+    if !strip.is_empty() {
+        let y0 = p.h - strip_h;
+        p.rect((f.x0, y0), (f.x1, p.h - 1), STRIP.to_rgba(), true)?;
+        let gap = p.fpx(1.6);
+        for (i, line) in strip.iter().enumerate() {
+            let mut x = f.x0 + p.fpx(0.6);
+            let y = y0 + p.fpx(0.3) + i as i32 * line_h;
+            for item in line {
+                p.label(item, (x, y), 0.9, TEXT, HPos::Left, VPos::Top)?;
+                x += p.text_width(item, 0.9) + gap;
+            }
         }
-        let at = f.pt(hz, level_at(hz));
-        let tip = (at.0, (at.1 - gap).max(f.y0 + 2 * r as i32));
-        p.triangle_down(tip, r as i32, palette::REDDISH_PURPLE)?;
-        p.summary.markers += 1;
-        let at = (tip.0, tip.1 - 2 * r as i32 - 2);
-        p.label_above("image", at, 0.75, palette::REDDISH_PURPLE, (f.x0, f.x1))?;
     }
-    notes_box(p, &f, &s.notes)?;
     Ok(())
 }
 
-/// Headline notes in a white box at the top right of a frame.
-pub(super) fn notes_box<DB: DrawingBackend>(
-    p: &mut Painter<DB>,
-    f: &Frame,
+/// The level axis' range, dBFS: topped at 0 dBFS, the full scale (only a line over full scale lifts the top to
+/// the next 10 dB so its peak shows), down to the lowest level (at most 200 dB, at least 20 dB below).
+pub(super) fn level_range(levels: &[f64]) -> (f64, f64) {
+    let (lmin, mut lmax) = finite_range(levels).unwrap_or((-120.0, 0.0));
+    // The DC lobe (the first three bins, as the meters leave it out) does not lift the top: a unipolar
+    // signal's mean may stand above a full-scale sine's peak. Its trace is then clipped at the top.
+    if levels.len() > 6 {
+        lmax = finite_range(&levels[3..]).map_or(lmax, |r| r.1);
+    }
+    let y_hi = if lmax <= 0.0 {
+        0.0
+    } else {
+        (lmax / 10.0).ceil() * 10.0
+    };
+    let y_lo = ((lmin / 10.0).floor() * 10.0)
+        .max(y_hi - 200.0)
+        .min(y_hi - 20.0);
+    (y_lo, y_hi)
+}
+
+/// Rows of the marks' labels under the frequency axis.
+const MARK_ROWS: usize = 2;
+
+/// Colour of the harmonics' marks: the Okabe-Ito orange darkened so small digits read on white.
+const HARMONIC: RGBColor = RGBColor(0xB0, 0x70, 0x00);
+
+/// Background of the strip of figures.
+const STRIP: RGBColor = RGBColor(0xF2, 0xF2, 0xF2);
+
+/// A mark along the frequency axis.
+struct Mark {
+    hz: f64,
+    text: String,
+    colour: RGBColor,
+}
+
+/// The strip's items laid out in lines no wider than `width` px.
+fn strip_lines<DB: DrawingBackend>(
+    p: &Painter<DB>,
     notes: &[String],
-) -> Result<(), Error> {
-    if notes.is_empty() {
-        return Ok(());
+    width: i32,
+) -> Vec<Vec<String>> {
+    let gap = p.fpx(1.6);
+    let mut lines: Vec<Vec<String>> = Vec::new();
+    let mut used = 0;
+    for n in notes {
+        let w = p.text_width(n, 0.9);
+        match lines.last_mut() {
+            Some(line) if used + gap + w <= width => {
+                line.push(n.clone());
+                used += gap + w;
+            }
+            _ => {
+                lines.push(vec![n.clone()]);
+                used = w;
+            }
+        }
     }
-    let line_h = p.fpx(1.25);
-    let pad = p.fpx(0.4);
-    let w = notes
-        .iter()
-        .map(|s| p.text_width(s, 0.9))
-        .max()
-        .unwrap_or(0)
-        + 2 * pad;
-    let h = line_h * notes.len() as i32 + 2 * pad;
-    let (x1, y0) = (f.x1 - p.fpx(0.5), f.y0 + p.fpx(0.5));
-    let x0 = x1 - w;
-    p.rect((x0, y0), (x1, y0 + h), WHITE.to_rgba(), true)?;
-    p.rect((x0, y0), (x1, y0 + h), GRID.to_rgba(), false)?;
-    for (i, s) in notes.iter().enumerate() {
-        p.label(
-            s,
-            (x0 + pad, y0 + pad + i as i32 * line_h),
-            0.9,
-            TEXT,
-            HPos::Left,
-            VPos::Top,
-        )?;
-    }
-    Ok(())
+    lines
 }

@@ -16,7 +16,7 @@ pub(super) fn draw_static<DB: DrawingBackend>(
     s: &StaticPlot,
 ) -> Result<(), Error> {
     let panels: Vec<(&str, &str, &[f64], RGBColor)> = [
-        ("level", "V", s.transfer_v, palette::BLUE),
+        (s.transfer_label.as_str(), "V", s.transfer_v, palette::BLUE),
         ("DNL", "LSB", s.dnl_lsb, palette::VERMILLION),
         ("INL", "LSB", s.inl_lsb, palette::BLUISH_GREEN),
     ]
@@ -58,6 +58,7 @@ pub(super) fn draw_static<DB: DrawingBackend>(
             y1: y0 + ph,
             x: Axis::linear("code", "", 0.0, x_hi, 8),
             y,
+            below: 0,
         };
         let last = i as i32 == np - 1;
         f.draw(p, last)?;

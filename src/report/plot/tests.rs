@@ -129,6 +129,8 @@ fn waveform(d: &WaveData) -> Plot<'_> {
         staircase: Some((&d.stair_t, &d.stair_l)),
         measured_delay_s: Some(50e-6),
         window_s: (0.0, 2e-3),
+        sampled_trace: 0,
+        aligned_output: None,
     })
 }
 
@@ -244,6 +246,51 @@ fn linear_ticks_use_one_two_five_steps_and_scaled_labels() {
 }
 
 #[test]
+fn ticks_count_from_an_offset_when_the_span_is_small_against_the_values() {
+    // 160 µs of a run 4 s long: labels count µs from the window's start, not "3999840".
+    let a = Axis::linear("time", "s", 3.99984, 4.0, 8);
+    assert_eq!(a.title, "time (µs from 3.99984 s)");
+    assert_eq!(a.ticks[0].1, "0");
+    assert!(a.ticks.iter().all(|(_, l)| l.len() <= 3), "{:?}", a.ticks);
+    assert_eq!(a.ticks.last().unwrap().1, "160");
+    // The ticks still sit at their times.
+    assert!((a.ticks[1].0 - 3.99986).abs() < 1e-12);
+    // A 4 s window from zero reads in seconds; a 4 s window 100 s into a run needs no offset either.
+    let b = Axis::linear("time", "s", 0.0, 4.0, 8);
+    assert_eq!(b.title, "time (s)");
+    assert_eq!(b.ticks[1].1, "0.5");
+    let c = Axis::linear("time", "s", 100.0, 104.0, 8);
+    assert_eq!(c.title, "time (s)");
+    assert_eq!(c.ticks[0].1, "100.0");
+    // Latencies 9 µs apart around 153 ms (a Monte-Carlo histogram).
+    let d = Axis::linear("measured latency", "s", 153.2077e-3, 153.2166e-3, 8);
+    assert_eq!(d.title, "measured latency (µs from 153.207 ms)");
+    assert_eq!(d.ticks[0].1, "1");
+}
+
+#[test]
+fn slew_rates_read_in_volts_per_microsecond() {
+    assert_eq!(axis_title("slew rate", "V/s", 49e6).0, "slew rate (V/µs)");
+    assert_eq!(axis_title("slew rate", "V/s", 5e3).0, "slew rate (V/ms)");
+    let a = Axis::linear("buffer slew rate", "V/s", 1e6, 50e6, 5);
+    assert_eq!(a.title, "buffer slew rate (V/µs)");
+    assert!(
+        a.ticks.iter().any(|(v, l)| *v == 10e6 && l == "10"),
+        "{:?}",
+        a.ticks
+    );
+    let l = Axis::logarithmic("buffer slew rate", "V/s", 1e6, 100e6);
+    assert_eq!(l.title, "buffer slew rate (V/µs)");
+    assert!(
+        l.ticks
+            .iter()
+            .any(|(v, t)| (*v - 10e6).abs() < 1.0 && t == "10"),
+        "{:?}",
+        l.ticks
+    );
+}
+
+#[test]
 fn log_ticks_sit_on_decades_with_their_own_prefix() {
     let a = Axis::logarithmic("frequency", "Hz", 10.0, 1e6);
     let labels: Vec<&str> = a.ticks.iter().map(|(_, s)| s.as_str()).collect();
@@ -330,6 +377,8 @@ fn long_waveform_keeps_its_spike_in_the_drawing() {
         staircase: None,
         measured_delay_s: None,
         window_s: (0.0, 1.0),
+        sampled_trace: 0,
+        aligned_output: None,
     });
     let (svg, summary) = render_svg(&plot).unwrap();
     assert_eq!(summary.series, 1);
@@ -372,6 +421,22 @@ fn check_png(plot: &Plot, colour: RGBColor) {
     assert!(summary.series > 0);
 }
 
+/// No two labels' boxes overlap (title, legend names, marks, notes, table cells).
+fn assert_no_label_overlaps(summary: &PlotSummary) {
+    let b = &summary.label_boxes;
+    for i in 0..b.len() {
+        for j in i + 1..b.len() {
+            let (p, q) = (b[i], b[j]);
+            let apart = p.2 <= q.0 || q.2 <= p.0 || p.3 <= q.1 || q.3 <= p.1;
+            assert!(
+                apart,
+                "labels overlap: {p:?} and {q:?} in {:?}",
+                summary.labels
+            );
+        }
+    }
+}
+
 #[test]
 fn waveform_renders_to_svg_and_png_with_its_series_and_markers() {
     let d = wave_data();
@@ -379,16 +444,17 @@ fn waveform_renders_to_svg_and_png_with_its_series_and_markers() {
     // Three traces and the staircase.
     let (svg, summary) = check_svg(&plot, 4);
     assert_eq!(count(&svg, "<polyline"), summary.series);
-    // 96 sampling circles + 96 converted-value crosses + the delay arrow.
-    assert_eq!(summary.markers, 2 * 96 + 1);
-    assert_eq!(count(&svg, "<circle"), 96 + 1); // plus the legend key
+    // 96 samples in the window are too many to read: every 2nd is marked (48 circles + 48 crosses), plus the
+    // delay arrow.
+    assert_eq!(summary.markers, 2 * 48 + 1);
+    assert_eq!(count(&svg, "<circle"), 48 + 1); // plus the legend key
     for l in [
         "time (ms)",
         "voltage (V)",
-        "measured delay 50.00 µs",
-        "delay 50.0 µs",
+        "delay 50.00 µs",
         "source",
         "output",
+        "sampled by the ADC, every 2nd",
     ] {
         assert!(
             summary.labels.iter().any(|s| s == l),
@@ -396,8 +462,69 @@ fn waveform_renders_to_svg_and_png_with_its_series_and_markers() {
             summary.labels
         );
     }
+    assert_no_label_overlaps(&summary);
     assert!(svg.contains("font-family=\"sans-serif\""));
     check_png(&plot, palette::VERMILLION);
+}
+
+#[test]
+fn waveform_markers_are_all_drawn_when_few() {
+    let d = wave_data();
+    let mut plot = waveform(&d);
+    if let Plot::Waveform(w) = &mut plot {
+        // 1 ms holds 48 samples of 48 kHz: every one is marked.
+        w.window_s = (0.0, 0.99e-3);
+        w.measured_delay_s = None;
+    }
+    let (_, summary) = check_svg(&plot, 4);
+    assert_eq!(summary.markers, 2 * 48);
+    assert!(summary.labels.iter().any(|s| s == "sampled by the ADC"));
+}
+
+#[test]
+fn waveform_aligns_the_output_and_draws_the_error_below() {
+    let d = wave_data();
+    // The output 50 µs (50 grid steps) later, scaled by 2 and offset by 0.1 V as a chain with gain might
+    // give it: the fit recovers the input exactly, so the error is zero to rounding.
+    let aligned: Vec<f64> = (0..d.output.len())
+        .map(|i| d.output.get(i + 50).map_or(f64::NAN, |v| 2.0 * v + 0.1))
+        .collect();
+    let mut plot = waveform(&d);
+    if let Plot::Waveform(w) = &mut plot {
+        w.aligned_output = Some(&aligned);
+        let al = super::waveform::align(w, &aligned).unwrap();
+        let worst = al.error.iter().fold(0.0f64, |m, e| m.max(e.abs()));
+        assert!(worst < 1e-12, "error {worst}");
+        assert_eq!(al.input.len(), 2001);
+        // An output that does not move cannot be aligned.
+        let flat = vec![0.3; d.output.len()];
+        assert!(super::waveform::align(w, &flat).is_none());
+    }
+    // Three traces, the staircase, then input, aligned output and error in the lower panels.
+    let (svg, summary) = check_svg(&plot, 7);
+    assert_eq!(count(&svg, "<polyline"), 7);
+    // The error axis keeps at least a millionth of the input's swing: rounding noise is not blown up.
+    assert!(
+        summary.labels.iter().any(|s| s == "error (µV)"),
+        "{:?}",
+        summary.labels
+    );
+    for l in ["aligned (V)", "time (ms)"] {
+        assert!(
+            summary.labels.iter().any(|s| s == l),
+            "missing {l}: {:?}",
+            summary.labels
+        );
+    }
+    assert!(
+        summary
+            .labels
+            .iter()
+            .any(|s| s.starts_with("output 50.00 µs earlier")),
+        "{:?}",
+        summary.labels
+    );
+    assert_no_label_overlaps(&summary);
 }
 
 #[test]
@@ -407,16 +534,20 @@ fn spectrum_renders_with_marks_notes_and_folded_harmonics() {
         let plot = spectrum(&levels, log);
         let (svg, summary) = check_svg(&plot, 1);
         assert_eq!(count(&svg, "<polyline"), 1);
-        // fundamental, two harmonics, one image, band edge.
-        assert_eq!(summary.markers, 5);
-        assert_eq!(count(&svg, "<polygon"), 1);
+        // Ticks under the axis for the fundamental, two harmonics, one image and the band edge, and the band
+        // edge's line; nothing is drawn on the peaks.
+        assert_eq!(summary.markers, 6);
+        assert_eq!(count(&svg, "<polygon"), 0);
+        assert_eq!(count(&svg, "<circle"), 0);
         let want = [
-            "2f",
-            "3f (folded)",
-            "image",
+            "f0",
+            "2",
+            "3*",
+            "img",
+            "band 2 kHz",
             "SINAD 72.1 dB",
-            "f0 1.000 kHz",
             "level (dBFS)",
+            "harmonic order (* folded)",
         ];
         for l in want {
             assert!(
@@ -431,7 +562,59 @@ fn spectrum_renders_with_marks_notes_and_folded_harmonics() {
             "frequency (kHz)"
         };
         assert!(summary.labels.iter().any(|s| s == x_title));
+        assert_no_label_overlaps(&summary);
         check_png(&plot, palette::BLUE);
+    }
+}
+
+#[test]
+fn spectrum_is_topped_at_full_scale() {
+    let levels = spectrum_levels(2401);
+    // The strongest line is -0.5 dBFS: the axis ends at 0 dBFS, not above.
+    assert_eq!(super::spectrum::level_range(&levels).1, 0.0);
+    // A record over full scale (+3 dBFS) lifts the top to the next 10 dB, so its peak shows.
+    let mut over = levels.clone();
+    over[100] = 3.0;
+    assert_eq!(super::spectrum::level_range(&over).1, 10.0);
+    // A mean above full scale (bin 0, a unipolar signal) does not.
+    let mut dc = levels.clone();
+    dc[0] = 2.0;
+    assert_eq!(super::spectrum::level_range(&dc).1, 0.0);
+}
+
+#[test]
+fn crowded_spectrum_marks_never_overlap_and_the_strip_wraps() {
+    let levels = spectrum_levels(2401);
+    // Fourteen harmonics 100 Hz apart crowd 1.4 kHz of a 24 kHz axis, and the band edge sits among them.
+    let harmonics: Vec<(u32, f64, bool)> = (2..16)
+        .map(|k| (k, 1000.0 + 100.0 * k as f64, k % 3 == 0))
+        .collect();
+    let notes: Vec<String> = (0..12)
+        .map(|k| format!("figure number {k} = {k}.00 dB"))
+        .collect();
+    let plot = Plot::Spectrum(SpectrumPlot {
+        title: "crowded".to_string(),
+        bin_hz: 10.0,
+        level_dbfs: &levels,
+        fundamental_hz: Some(1000.0),
+        harmonics,
+        images_hz: vec![1250.0],
+        band_hz: Some(1500.0),
+        notes,
+        log_frequency: false,
+    });
+    for (w, h) in [(1200, 750), (600, 400)] {
+        let (_, summary) = render_png(&plot, w, h).unwrap();
+        assert_no_label_overlaps(&summary);
+        // Every tick is drawn even where its label found no room.
+        assert_eq!(summary.markers, 1 + 1 + 14 + 1 + 1);
+        // Every figure of the strip is written.
+        assert!(
+            summary
+                .labels
+                .iter()
+                .any(|s| s == "figure number 11 = 11.00 dB")
+        );
     }
 }
 
@@ -441,6 +624,7 @@ fn static_plot_renders_three_panels() {
     let plot = Plot::Static(StaticPlot {
         title: "static transfer".to_string(),
         transfer_v: &t,
+        transfer_label: "level".into(),
         dnl_lsb: &d,
         inl_lsb: &i,
     });
@@ -455,6 +639,7 @@ fn static_plot_renders_three_panels() {
     let plot = Plot::Static(StaticPlot {
         title: "static transfer".to_string(),
         transfer_v: &t,
+        transfer_label: "level".into(),
         dnl_lsb: &d,
         inl_lsb: &[],
     });
@@ -508,7 +693,102 @@ fn xy_renders_series_points_and_marker_lines() {
     ] {
         assert!(summary.labels.iter().any(|s| s == l), "missing {l}");
     }
+    assert_no_label_overlaps(&summary);
     check_png(&plot, palette::VERMILLION);
+}
+
+#[test]
+fn histogram_draws_one_bar_per_filled_bin_and_keeps_its_labels_apart() {
+    let edges = [0.0, 1.0, 2.0, 3.0, 4.0, 5.0];
+    let counts = [1.0, 0.0, 5.0, 2.0, 2.0];
+    let plot = Plot::Histogram(HistogramPlot {
+        title: "measured latency: 10 runs".to_string(),
+        x_label: "measured latency (s)".to_string(),
+        edges: &edges,
+        counts: &counts,
+        // Three labels close together: they go to separate rows.
+        markers: vec![
+            (2.4, "5 % 2.4 s".to_string()),
+            (2.5, "median 2.5 s".to_string()),
+            (2.6, "95 % 2.6 s".to_string()),
+        ],
+    });
+    let (svg, summary) = check_svg(&plot, 4);
+    assert_eq!(count(&svg, "<polyline"), 0);
+    assert_eq!(summary.markers, 3);
+    for l in [
+        "5 % 2.4 s",
+        "median 2.5 s",
+        "95 % 2.6 s",
+        "runs",
+        "measured latency (s)",
+    ] {
+        assert!(summary.labels.iter().any(|s| s == l), "missing {l}");
+    }
+    assert_no_label_overlaps(&summary);
+    check_png(&plot, palette::BLUE);
+    let bad = Plot::Histogram(HistogramPlot {
+        title: String::new(),
+        x_label: String::new(),
+        edges: &edges[..3],
+        counts: &counts,
+        markers: Vec::new(),
+    });
+    assert!(render_svg(&bad).is_err());
+}
+
+#[test]
+fn panels_draw_a_frame_per_criterion_with_its_threshold_and_a_table() {
+    let x: Vec<f64> = (0..20).map(|k| 10f64.powf(k as f64 / 10.0)).collect();
+    let y: Vec<f64> = x.iter().map(|f| 10.0 - f.log10()).collect();
+    let long =
+        "a stage: a change described at such length that the table has to cut it short to keep \
+                its numbers in their columns, and more words still"
+            .repeat(3);
+    let plot = Plot::Panels(PanelsPlot {
+        title: "limit 50 Hz (accuracy)".to_string(),
+        x_label: "input frequency (Hz)".to_string(),
+        log_x: true,
+        panels: vec![
+            Panel {
+                heading: "accuracy: ENOB, threshold 8.3 bits; met at 50 Hz".to_string(),
+                y_label: "ENOB (bits)".to_string(),
+                x: &x,
+                y: &y,
+                threshold: Some(8.3),
+                met_at: Some(50.0),
+            },
+            Panel {
+                heading: "level: gain; not reached".to_string(),
+                y_label: "gain (dB)".to_string(),
+                x: &x,
+                y: &y,
+                threshold: None,
+                met_at: None,
+            },
+        ],
+        limit: Some(50.0),
+        table_title: "ablation".to_string(),
+        table: vec![
+            vec!["change".into(), "ENOB (bits)".into()],
+            vec![long.clone(), "9.10".into()],
+        ],
+    });
+    let (svg, summary) = check_svg(&plot, 2);
+    assert_eq!(count(&svg, "<polyline"), 2);
+    // 20 points per panel, one threshold, the criterion's line and the limit in the first panel, the limit in
+    // the second.
+    assert_eq!(summary.markers, 2 * 20 + 1 + 2 + 1);
+    assert!(summary.labels.iter().any(|s| s == "9.10"));
+    assert!(!summary.labels.contains(&long));
+    assert!(
+        summary
+            .labels
+            .iter()
+            .any(|s| s.starts_with("a stage: a change") && s.ends_with("..."))
+    );
+    assert_no_label_overlaps(&summary);
+    check_png(&plot, palette::BLUE);
 }
 
 #[test]
@@ -537,6 +817,8 @@ fn bad_inputs_are_refused() {
             staircase: None,
             measured_delay_s: None,
             window_s: window,
+            sampled_trace: 0,
+            aligned_output: None,
         })
     };
     assert!(render_svg(&mk(0.0, (0.0, 1.0), &[0.0])).is_err());
@@ -581,6 +863,8 @@ fn million_point_waveform_and_spectrum_render_quickly() {
         staircase: None,
         measured_delay_s: Some(1e-5),
         window_s: (0.0, 1.0),
+        sampled_trace: 0,
+        aligned_output: None,
     });
     let levels = spectrum_levels(n);
     let spec = spectrum(&levels, true);
@@ -621,6 +905,7 @@ fn gallery_is_written_for_a_visual_check() {
             Plot::Static(StaticPlot {
                 title: "static transfer".to_string(),
                 transfer_v: &t,
+                transfer_label: "level".into(),
                 dnl_lsb: &dn,
                 inl_lsb: &i,
             }),
@@ -634,6 +919,16 @@ fn gallery_is_written_for_a_visual_check() {
             }),
         ),
         ("xy", xy(&xyd)),
+        (
+            "histogram",
+            Plot::Histogram(HistogramPlot {
+                title: "histogram".to_string(),
+                x_label: "measured latency (s)".to_string(),
+                edges: &[153.2e-3, 153.203e-3, 153.206e-3, 153.209e-3],
+                counts: &[2.0, 5.0, 1.0],
+                markers: vec![(153.204e-3, "median 153.204 ms".to_string())],
+            }),
+        ),
     ];
     for (name, plot) in &plots {
         let (png_bytes, _) = render_png(plot, 1200, 750).unwrap();

@@ -1,13 +1,14 @@
-//! The waveform figure: the source, intermediate stages, the output and the ADC staircase over time.
+//! The waveform figure: the source, intermediate stages, the output and the DAC's staircase over time, the
+//! ADC's samples on the signal it samples; below, the output shifted back by the measured delay over the input
+//! and the error between them.
 
 use plotters::backend::DrawingBackend;
-use plotters::style::text_anchor::{HPos, VPos};
 use plotters::style::{Color, RGBColor};
 
 use crate::Error;
 
-use super::axis::{Axis, finite_range, merge, padded, titled_frame};
-use super::painter::{Key, Painter, TEXT, palette};
+use super::axis::{Axis, Frame, bottom_margin, finite_range, left_margin, merge, padded};
+use super::painter::{FRAME, Key, Painter, TEXT, palette};
 use super::reduce::{Reduce, to_pixels};
 use super::{WaveformPlot, format_si};
 
@@ -79,13 +80,19 @@ pub(super) fn draw_waveform<DB: DrawingBackend>(
         )));
     }
 
+    if w.sampled_trace >= w.traces.len() {
+        return Err(Error::Run(format!(
+            "plot: sampled trace {} but only {} traces",
+            w.sampled_trace,
+            w.traces.len()
+        )));
+    }
+    let idx = |y: &[f64]| window_indices(w.t0_s, w.dt_s, y.len(), w.window_s);
+
     // Vertical range over everything inside the window.
     let mut range = None;
     for (_, y) in &w.traces {
-        range = merge(
-            range,
-            finite_range(&y[window_indices(w.t0_s, w.dt_s, y.len(), w.window_s)]),
-        );
+        range = merge(range, finite_range(&y[idx(y)]));
     }
     let in_window = |t: f64| t >= w0 && t <= w1;
     let samples: Vec<(f64, f64)> = w
@@ -108,8 +115,10 @@ pub(super) fn draw_waveform<DB: DrawingBackend>(
     }
     let (lo, hi) = range.unwrap_or((-1.0, 1.0));
     let (ylo, yhi) = padded(lo, hi, 0.06);
-    let x = Axis::linear("time", "s", w0, w1, 8);
     let y = Axis::linear("voltage", "V", ylo, yhi, 6);
+
+    // The aligned output and the error, where both it and the input are known inside the window.
+    let aligned = w.aligned_output.and_then(|a| align(w, a));
 
     // Legend.
     let n = w.traces.len();
@@ -130,15 +139,81 @@ pub(super) fn draw_waveform<DB: DrawingBackend>(
     if stair_pts.is_some() {
         entries.push(("DAC hold levels".to_string(), Key::Line(palette::ORANGE, 1)));
     }
-    let max_markers = ((p.w as usize) / 6).max(1);
-    let show_samples = !samples.is_empty() && samples.len() <= max_markers;
-    if show_samples {
-        entries.push(("sampling instants".to_string(), Key::Circle(palette::BLACK)));
-        entries.push(("converted values".to_string(), Key::Cross(palette::BLACK)));
+    // Markers are drawn only while they can be told apart: every sample when few, else every k-th.
+    let stride = samples.len().div_ceil(MAX_MARKERS).max(1);
+    if !samples.is_empty() {
+        let every = if stride == 1 {
+            String::new()
+        } else {
+            format!(", every {}", ordinal(stride))
+        };
+        entries.push((
+            format!("sampled by the ADC{every}"),
+            Key::Circle(palette::BLACK),
+        ));
+        entries.push((
+            format!("converted value{every}"),
+            Key::Cross(palette::BLACK),
+        ));
+    }
+    if aligned.is_some() {
+        let delay = w.measured_delay_s.unwrap_or(0.0);
+        entries.push((
+            format!(
+                "output {} earlier, gain and offset fitted (lower panels)",
+                format_si(delay, "s", 4)
+            ),
+            Key::Line(ALIGNED, 1),
+        ));
     }
 
-    let f = titled_frame(p, &w.title, &entries, x, y)?;
-    f.draw(p, true)?;
+    let top = p.title(&w.title)?;
+    let left0 = p.fpx(1.2);
+    let right = p.w - p.fpx(1.2);
+    let top = p.legend(&entries, left0, top, right - left0)? + p.fpx(0.3);
+    let bottom = p.h - bottom_margin(p);
+    let x_axis = Axis::linear("time", "s", w0, w1, 8);
+    let (y_al, y_err) = match &aligned {
+        Some(al) => {
+            let (alo, ahi) =
+                merge(finite_range(&al.input), finite_range(&al.output)).unwrap_or((-1.0, 1.0));
+            let (alo, ahi) = padded(alo, ahi, 0.06);
+            let (elo, ehi) = finite_range(&al.error).unwrap_or((-1.0, 1.0));
+            // At least a millionth of the input's swing, so rounding noise is not blown up to fill the panel.
+            let (ilo, ihi) = finite_range(&al.input).unwrap_or((-1.0, 1.0));
+            let m = elo.abs().max(ehi.abs()).max(1e-6 * (ihi - ilo));
+            let (elo, ehi) = padded(-m, m, 0.08);
+            (
+                Some(Axis::linear("aligned", "V", alo, ahi, 4)),
+                Some(Axis::linear("error", "V", elo, ehi, 4)),
+            )
+        }
+        None => (None, None),
+    };
+    let left = [Some(&y), y_al.as_ref(), y_err.as_ref()]
+        .into_iter()
+        .flatten()
+        .map(|a| left_margin(p, a))
+        .max()
+        .unwrap_or(0);
+    let gap = p.fpx(0.6);
+    let span = bottom - top;
+    let (main_h, al_h) = if aligned.is_some() {
+        let al_h = (span - 2 * gap) * 24 / 100;
+        (span - 2 * gap - 2 * al_h, al_h)
+    } else {
+        (span, 0)
+    };
+    let f = Frame {
+        x0: left,
+        y0: top,
+        x1: right,
+        y1: top + main_h,
+        x: x_axis.clone(),
+        y,
+        below: 0,
+    };
+    f.draw(p, aligned.is_none())?;
 
     // Staircase below the traces.
     if let Some(sp) = &stair_pts {
@@ -157,73 +232,166 @@ pub(super) fn draw_waveform<DB: DrawingBackend>(
     }
     for k in order {
         let (_, ys) = w.traces[k];
-        let r = window_indices(w.t0_s, w.dt_s, ys.len(), w.window_s);
         let pts = to_pixels(
             &f,
-            r.map(|i| (f.px(w.t0_s + i as f64 * w.dt_s), f.py(ys[i]))),
+            idx(ys).map(|i| (f.px(w.t0_s + i as f64 * w.dt_s), f.py(ys[i]))),
             Reduce::MinMax,
         );
         let (c, width) = colour_of(k);
         p.series_path(&pts, c, width)?;
     }
 
-    // Sample markers: circle on the input trace at each instant, cross at the converted value.
-    let input = w.traces[0].1;
+    // Sample markers: a circle on the sampled trace at each instant, a cross at the converted value.
+    let sampled = w.traces[w.sampled_trace].1;
     let r = (p.font_px * 0.25).max(2.0);
-    if show_samples {
-        for &(t, v) in &samples {
-            if let Some(u) = interp(w.t0_s, w.dt_s, input, t) {
-                p.circle(f.pt(t, u), r as u32, palette::BLACK, false)?;
-                p.summary.markers += 1;
-            }
-            p.cross(f.pt(t, v), r as i32, palette::BLACK)?;
+    for &(t, v) in samples.iter().step_by(stride) {
+        if let Some(u) = interp(w.t0_s, w.dt_s, sampled, t) {
+            p.circle(f.pt(t, u), r as u32, palette::BLACK, false)?;
             p.summary.markers += 1;
         }
-    } else if !samples.is_empty() {
-        let note = format!("{} samples in window (markers not drawn)", samples.len());
-        p.label(
-            &note,
-            (f.x1 - p.fpx(0.5), f.y1 - p.fpx(0.5)),
-            0.8,
-            TEXT,
-            HPos::Right,
-            VPos::Bottom,
-        )?;
+        p.cross(f.pt(t, v), r as i32, palette::BLACK)?;
+        p.summary.markers += 1;
     }
 
-    if let Some(d) = w.measured_delay_s {
-        let note = format!("measured delay {}", format_si(d, "s", 4));
-        p.label(
-            &note,
-            (f.x0 + p.fpx(0.5), f.y0 + p.fpx(0.4)),
-            0.9,
+    if let Some(d) = w.measured_delay_s
+        && let Some((tc, level)) = rising_crossing(w, d)
+    {
+        let a = f.pt(tc, level);
+        let b = f.pt(tc + d, level);
+        let c = palette::BLACK.to_rgba();
+        let tick = p.fpx(0.5);
+        p.line((a.0, a.1 - tick), (a.0, a.1 + tick), c, 1)?;
+        p.line((b.0, b.1 - tick), (b.0, b.1 + tick), c, 1)?;
+        p.line(a, b, c, 1)?;
+        let head = p.fpx(0.4).min(((b.0 - a.0) / 2).max(1));
+        p.line(b, (b.0 - head, b.1 - head / 2), c, 1)?;
+        p.line(b, (b.0 - head, b.1 + head / 2), c, 1)?;
+        let label = format!("delay {}", format_si(d, "s", 4));
+        p.label_above(
+            &label,
+            ((a.0 + b.0) / 2, a.1 - tick),
+            0.8,
             TEXT,
-            HPos::Left,
-            VPos::Top,
+            (f.x0, f.x1),
         )?;
-        if let Some((tc, level)) = rising_crossing(w, d) {
-            let a = f.pt(tc, level);
-            let b = f.pt(tc + d, level);
-            let c = palette::BLACK.to_rgba();
-            let tick = p.fpx(0.5);
-            p.line((a.0, a.1 - tick), (a.0, a.1 + tick), c, 1)?;
-            p.line((b.0, b.1 - tick), (b.0, b.1 + tick), c, 1)?;
-            p.line(a, b, c, 1)?;
-            let head = p.fpx(0.4).min(((b.0 - a.0) / 2).max(1));
-            p.line(b, (b.0 - head, b.1 - head / 2), c, 1)?;
-            p.line(b, (b.0 - head, b.1 + head / 2), c, 1)?;
-            let label = format!("delay {}", format_si(d, "s", 3));
-            p.label_above(
-                &label,
-                ((a.0 + b.0) / 2, a.1 - tick),
-                0.8,
-                TEXT,
-                (f.x0, f.x1),
-            )?;
-            p.summary.markers += 1;
-        }
+        p.summary.markers += 1;
+    }
+
+    // The lower panels: input with the aligned output over it, then the error.
+    if let (Some(al), Some(ya), Some(ye)) = (&aligned, y_al, y_err) {
+        let fa = Frame {
+            x0: left,
+            y0: f.y1 + gap,
+            x1: right,
+            y1: f.y1 + gap + al_h,
+            x: x_axis.clone(),
+            y: ya,
+            below: 0,
+        };
+        fa.draw(p, false)?;
+        let t_at = |i: usize| al.t0_s + i as f64 * w.dt_s;
+        let path = |fr: &Frame, v: &[f64]| {
+            to_pixels(
+                fr,
+                v.iter()
+                    .enumerate()
+                    .filter(|(_, y)| y.is_finite())
+                    .map(|(i, &y)| (fr.px(t_at(i)), fr.py(y))),
+                Reduce::MinMax,
+            )
+        };
+        let pts = path(&fa, &al.input);
+        p.series_path(&pts, palette::BLUE, 2)?;
+        let pts = path(&fa, &al.output);
+        p.series_path(&pts, ALIGNED, 1)?;
+        let fe = Frame {
+            x0: left,
+            y0: fa.y1 + gap,
+            x1: right,
+            y1: fa.y1 + gap + al_h,
+            x: x_axis,
+            y: ye,
+            below: 0,
+        };
+        fe.draw(p, true)?;
+        let zy = fe.pt(0.0, 0.0).1;
+        p.line((fe.x0, zy), (fe.x1, zy), FRAME.to_rgba(), 1)?;
+        let pts = path(&fe, &al.error);
+        p.series_path(&pts, palette::BLACK, 1)?;
     }
     Ok(())
+}
+
+/// Most sample markers drawn in one window; beyond it every k-th is drawn.
+const MAX_MARKERS: usize = 48;
+
+/// Colour of the aligned output (dark grey, so the blue input shows beneath it).
+const ALIGNED: RGBColor = RGBColor(0x33, 0x33, 0x33);
+
+/// "2nd", "3rd", "5th"...
+fn ordinal(k: usize) -> String {
+    let suffix = match (k % 10, k % 100) {
+        (_, 11..=13) => "th",
+        (1, _) => "st",
+        (2, _) => "nd",
+        (3, _) => "rd",
+        _ => "th",
+    };
+    format!("{k}{suffix}")
+}
+
+/// The input and the output one delay later over the window, the output fitted to the input by gain and
+/// offset (least squares), and their difference.
+pub(super) struct Aligned {
+    /// Time of the first value, s.
+    pub(super) t0_s: f64,
+    pub(super) input: Vec<f64>,
+    /// Fitted output (NaN where it was not captured).
+    pub(super) output: Vec<f64>,
+    /// Fitted output minus input (NaN where not known).
+    pub(super) error: Vec<f64>,
+}
+
+/// Fit `gain * aligned + offset` to the input over the window; None when fewer than two points overlap or
+/// the aligned output does not move.
+pub(super) fn align(w: &WaveformPlot, aligned: &[f64]) -> Option<Aligned> {
+    let input = w.traces[0].1;
+    let r = window_indices(w.t0_s, w.dt_s, input.len().min(aligned.len()), w.window_s);
+    let pairs = || {
+        r.clone()
+            .map(|i| (aligned[i], input[i]))
+            .filter(|(a, b)| a.is_finite() && b.is_finite())
+    };
+    let (mut n, mut sa, mut sb) = (0.0, 0.0, 0.0);
+    for (a, b) in pairs() {
+        n += 1.0;
+        sa += a;
+        sb += b;
+    }
+    if n < 2.0 {
+        return None;
+    }
+    let (ma, mb) = (sa / n, sb / n);
+    let (mut sab, mut saa) = (0.0, 0.0);
+    for (a, b) in pairs() {
+        sab += (a - ma) * (b - mb);
+        saa += (a - ma) * (a - ma);
+    }
+    // A still output (to rounding: under 0.1 nV rms about its mean) has nothing to fit.
+    if saa.is_nan() || saa <= 1e-20 * n * (1.0 + ma * ma) {
+        return None;
+    }
+    let gain = sab / saa;
+    let offset = mb - gain * ma;
+    let output: Vec<f64> = r.clone().map(|i| gain * aligned[i] + offset).collect();
+    let inp: Vec<f64> = r.clone().map(|i| input[i]).collect();
+    let error = output.iter().zip(&inp).map(|(o, i)| o - i).collect();
+    Some(Aligned {
+        t0_s: w.t0_s + r.start as f64 * w.dt_s,
+        input: inp,
+        output,
+        error,
+    })
 }
 
 /// Points of a zero-order-hold step line within the window: each level holds until the next instant, the

@@ -26,7 +26,7 @@ use crate::engine::plan::Plan;
 use crate::error::{Error, Result};
 use crate::format::units::format_si;
 use crate::report::OutputDir;
-use crate::report::plot::{self, Plot, XyPlot};
+use crate::report::plot::{self, Plot};
 use crate::scenario::overrides::{Edit, ScenarioText};
 use crate::scenario::{Scenario, Waveform};
 use crate::stages::kind::Role;

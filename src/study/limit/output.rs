@@ -158,36 +158,9 @@ pub fn write_limit(r: &LimitReport, dir: &Path) -> Result<()> {
     let res = (|| -> Result<()> {
         let json = serde_json::to_vec_pretty(r).map_err(|e| Error::Run(e.to_string()))?;
         out.write("limit.json", &json)?;
-        let ok: Vec<&LimitPoint> = r.coarse.iter().filter(|p| p.error.is_none()).collect();
-        let col = |f: fn(&LimitPoint) -> Option<f64>| -> (Vec<f64>, Vec<f64>) {
-            ok.iter()
-                .filter_map(|p| f(p).map(|y| (p.frequency_hz, y)))
-                .unzip()
-        };
-        let enob = col(|p| p.enob_bits);
-        let gain = col(|p| p.gain_db);
-        let fid = col(|p| p.fidelity_db);
-        let enob_name = format!("ENOB of the {} (bits)", r.enob_source);
-        let markers: Vec<(f64, String)> = r
-            .limit
-            .criteria
-            .iter()
-            .filter_map(|c| c.frequency_hz.map(|f| (f, c.criterion.name().to_string())))
-            .filter(|(f, _)| *f >= r.from_hz * 0.5 && *f <= r.to_hz * 2.0)
-            .collect();
-        let p = Plot::Xy(XyPlot {
-            title: format!("{}: ENOB, gain and fidelity against frequency", r.scenario),
-            x_label: "input frequency (Hz)".into(),
-            y_label: "bits / dB".into(),
-            series: vec![
-                (enob_name.as_str(), &enob.0, &enob.1),
-                ("gain (dB)", &gain.0, &gain.1),
-                ("fidelity (dB)", &fid.0, &fid.1),
-            ],
-            log_x: true,
-            markers,
-        });
-        let (png, _) = plot::render_png(&p, 1000, 620)?;
+        let cols = LimitColumns::of(r);
+        let p = Plot::Panels(limit_panels(r, &cols));
+        let (png, _) = plot::render_png(&p, 1000, 900)?;
         out.write("limit.png", &png)?;
         let (svg, _) = plot::render_svg(&p)?;
         out.write("limit.svg", svg.as_bytes())?;
@@ -198,4 +171,139 @@ pub fn write_limit(r: &LimitReport, dir: &Path) -> Result<()> {
         return Err(e);
     }
     Ok(())
+}
+
+/// The coarse sweep's metrics as columns (frequency used, value), one per criterion with a metric.
+struct LimitColumns {
+    enob: (Vec<f64>, Vec<f64>),
+    gain: (Vec<f64>, Vec<f64>),
+    fidelity: (Vec<f64>, Vec<f64>),
+}
+
+impl LimitColumns {
+    fn of(r: &LimitReport) -> LimitColumns {
+        let col = |f: fn(&LimitPoint) -> Option<f64>| -> (Vec<f64>, Vec<f64>) {
+            r.coarse
+                .iter()
+                .filter(|p| p.error.is_none())
+                .filter_map(|p| f(p).map(|y| (p.frequency_hz, y)))
+                .unzip()
+        };
+        LimitColumns {
+            enob: col(|p| p.enob_bits),
+            gain: col(|p| p.gain_db),
+            fidelity: col(|p| p.fidelity_db),
+        }
+    }
+}
+
+/// `limit.png`: one panel per criterion with a metric (its threshold dashed, where it is met marked), the
+/// limit across all of them, and the ablation at the limit in a table below.
+fn limit_panels<'a>(r: &LimitReport, cols: &'a LimitColumns) -> plot::PanelsPlot<'a> {
+    let mut panels = Vec::new();
+    for c in &r.limit.criteria {
+        let (what, unit, (x, y)) = match c.criterion {
+            Criterion::Accuracy => (format!("ENOB of the {}", r.enob_source), "bits", &cols.enob),
+            Criterion::Level => ("gain".to_string(), "dB", &cols.gain),
+            Criterion::Shape => ("waveform fidelity".to_string(), "dB", &cols.fidelity),
+            Criterion::Aliasing => continue,
+        };
+        let threshold = c
+            .threshold
+            .map_or(String::new(), |t| format!(", threshold {t:.2} {unit}"));
+        let met = match c.frequency_hz {
+            Some(f) => format!("met at {}", format_si(f, "Hz")),
+            None => format!("not reached below {}", format_si(r.to_hz, "Hz")),
+        };
+        panels.push(plot::Panel {
+            heading: format!("{}: {what}{threshold}; {met}", c.criterion.name()),
+            y_label: format!("{what} ({unit})"),
+            x,
+            y,
+            threshold: c.threshold,
+            met_at: c.frequency_hz,
+        });
+    }
+    let limiting = r
+        .limit
+        .criteria
+        .iter()
+        .find(|c| Some(c.criterion) == r.limit.criterion && !c.ablation.is_empty());
+    let mut table = Vec::new();
+    let mut table_title = String::new();
+    if let Some(c) = limiting {
+        let unit = if c.criterion == Criterion::Accuracy {
+            "bits"
+        } else {
+            "dB"
+        };
+        table_title = format!(
+            "At the limit ({}, {}): each non-ideality removed in turn, and what it wins back",
+            c.criterion.name(),
+            c.frequency_hz.map_or("-".into(), |f| format_si(f, "Hz"))
+        );
+        // Two decimals; a value that rounds to zero is written without a sign ("0.00", not "-0.00").
+        let two = |x: f64, signed: bool| {
+            let t = if signed {
+                format!("{x:+.2}")
+            } else {
+                format!("{x:.2}")
+            };
+            if t.trim_start_matches(['+', '-']) == "0.00" {
+                "0.00".to_string()
+            } else {
+                t
+            }
+        };
+        let num = |v: Option<f64>| v.map_or("-".to_string(), |x| two(x, false));
+        table.push(vec![
+            "change".to_string(),
+            "ENOB (bits)".to_string(),
+            "gain (dB)".to_string(),
+            "fidelity (dB)".to_string(),
+            format!("wins back ({unit})"),
+        ]);
+        for a in &c.ablation {
+            if a.error.is_some() {
+                table.push(vec![
+                    a.change.clone(),
+                    "failed".into(),
+                    "-".into(),
+                    "-".into(),
+                    "-".into(),
+                ]);
+                continue;
+            }
+            table.push(vec![
+                a.change.clone(),
+                num(a.enob_bits),
+                num(a.gain_db),
+                num(a.fidelity_db),
+                a.recovery.map_or("-".to_string(), |x| two(x, true)),
+            ]);
+        }
+    }
+    let mut headline = match (r.limit.frequency_hz, r.limit.criterion) {
+        (Some(f), Some(c)) => format!("limit {} ({})", format_si(f, "Hz"), c.name()),
+        _ => format!("no limit below {}", format_si(r.to_hz, "Hz")),
+    };
+    // The aliasing criterion has no metric to draw: its frequency is said in the title.
+    if let Some(f) = r
+        .limit
+        .criteria
+        .iter()
+        .find(|c| c.criterion == Criterion::Aliasing)
+        .and_then(|c| c.frequency_hz)
+    {
+        headline.push_str(&format!("; aliasing from {}", format_si(f, "Hz")));
+    }
+    plot::PanelsPlot {
+        title: format!("{}: {headline}", r.scenario),
+        x_label: "input frequency (Hz)".into(),
+        log_x: true,
+        panels,
+        limit: r.limit.frequency_hz,
+        table_title,
+        table,
+    }
 }

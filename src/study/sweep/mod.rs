@@ -691,6 +691,34 @@ mod tests {
     }
 
     #[test]
+    fn plot_series_are_named_in_words_and_hold_each_x_once() {
+        let mut r = synthetic(Shard::WHOLE);
+        // The second requested frequency ran at the first one's frequency (as coherent sampling may move two
+        // close requests to one frequency): its points are drawn once, at that frequency.
+        let (f0, f1) = (r.axes[0][0], r.axes[0][1]);
+        let used0 = f0 * (1.0 + 1e-3 / 3.0);
+        for row in &mut r.rows {
+            if row.values[0] == f1 && row.frequency_used_hz.is_some() {
+                row.frequency_used_hz = Some(used0);
+            }
+        }
+        let series = r.plot_series(&["adc.enob_bits", "output.enob_bits"]);
+        assert!(!series.is_empty());
+        for (name, x, _) in &series {
+            assert!(
+                name.starts_with("ADC codes, stage 2 bits ")
+                    || name.starts_with("analog output, stage 2 bits "),
+                "{name}"
+            );
+            for (i, a) in x.iter().enumerate() {
+                assert!(!x[i + 1..].contains(a), "{name}: {x:?}");
+            }
+        }
+        assert_eq!(SweepResult::metric_words("output.gain_db"), "analog output");
+        assert_eq!(output::key_words("stage.3.slew_rate"), "stage 3 slew rate");
+    }
+
+    #[test]
     fn an_interrupted_sweep_keeps_its_note_through_its_rows_and_files() {
         let mut r = synthetic(Shard::WHOLE);
         r.rows.truncate(4);

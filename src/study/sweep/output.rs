@@ -289,14 +289,28 @@ impl SweepResult {
             "SINAD (dB)",
             &["adc.sinad_db", "output.sinad_db"],
         ),
-        ("sweep-gain", "Gain", "gain (dB)", &["output.gain_db"]),
+        (
+            "sweep-gain",
+            "Gain",
+            "output gain (dB)",
+            &["output.gain_db"],
+        ),
         (
             "sweep-fidelity",
             "Waveform fidelity",
-            "fidelity (dB)",
+            "output waveform fidelity (dB)",
             &["output.fidelity_db"],
         ),
     ];
+
+    /// A metric column's legend in words: where it is measured, as the terminal's table heads say.
+    pub fn metric_words(name: &str) -> String {
+        match name.split_once('.') {
+            Some(("adc", _)) => "ADC codes".to_string(),
+            Some(("output", _)) => "analog output".to_string(),
+            _ => name.replace(['.', '_'], " "),
+        }
+    }
 
     /// The series of one plot: (name, x, y), skipping missing values.
     pub fn plot_series(&self, metrics: &[&str]) -> Vec<(String, Vec<f64>, Vec<f64>)> {
@@ -315,14 +329,21 @@ impl SweepResult {
                 continue;
             };
             for (rest, rows) in &groups {
-                let (x, y): (Vec<f64>, Vec<f64>) = rows
-                    .iter()
-                    .filter_map(|r| r.metrics[i].map(|y| (self.plot_x(r), y)))
-                    .unzip();
+                let mut x: Vec<f64> = Vec::new();
+                let mut y: Vec<f64> = Vec::new();
+                for r in rows {
+                    // Two points at one x (requested values that ran at the same frequency) are drawn once.
+                    if let Some(v) = r.metrics[i]
+                        && !x.contains(&self.plot_x(r))
+                    {
+                        x.push(self.plot_x(r));
+                        y.push(v);
+                    }
+                }
                 if x.is_empty() {
                     continue;
                 }
-                let mut label = name.to_string();
+                let mut label = Self::metric_words(name);
                 for (v, val) in self.spec.vary[1..].iter().zip(rest) {
                     let shown = match key_dimension(&v.key) {
                         Some(Dimension::Angle) => format!("{val} deg"),
@@ -331,13 +352,18 @@ impl SweepResult {
                         }
                         _ => val.to_string(),
                     };
-                    label.push_str(&format!(", {}={shown}", v.key));
+                    label.push_str(&format!(", {} {shown}", key_words(&v.key)));
                 }
                 out.push((label, x, y));
             }
         }
         out
     }
+}
+
+/// A key in words for plot axes and legends: "buffer.slew_rate" -> "buffer slew rate".
+pub fn key_words(key: &str) -> String {
+    key.replace(['.', '_'], " ")
 }
 
 /// Write `sweep.csv`, `sweep.json`, `rows.json` and the plots (PNG and SVG) of the sweep a row set holds
@@ -350,13 +376,14 @@ pub fn write_outputs(out: &OutputDir, set: &RowSet) -> Result<SweepResult> {
     out.write("sweep.json", &json)?;
     out.write(ROWS_FILE, &set.to_json()?)?;
     let first = &result.spec.vary[0].key;
+    let words = key_words(first);
     let x_label = match key_dimension(first) {
         _ if first == "source.frequency" => "source frequency used (Hz)".to_string(),
-        Some(Dimension::Angle) => format!("{first} (deg)"),
+        Some(Dimension::Angle) => format!("{words} (deg)"),
         Some(d) if !d.base_unit().is_empty() && d != Dimension::Gain => {
-            format!("{first} ({})", d.base_unit())
+            format!("{words} ({})", d.base_unit())
         }
-        _ => first.clone(),
+        _ => words.clone(),
     };
     let mut shard_note = if result.shard == Shard::WHOLE {
         String::new()
@@ -369,7 +396,7 @@ pub fn write_outputs(out: &OutputDir, set: &RowSet) -> Result<SweepResult> {
     for (stem, title, y_label, metrics) in SweepResult::PLOTS {
         let series = result.plot_series(metrics);
         let xy = XyPlot {
-            title: format!("{}: {title} against {first}{shard_note}", result.scenario),
+            title: format!("{}: {title} against {words}{shard_note}", result.scenario),
             x_label: x_label.clone(),
             y_label: y_label.to_string(),
             series: series
