@@ -10,7 +10,7 @@ mod interrupt;
 mod montecarlo;
 
 use convchain::error::Error;
-use convchain::report::OutputDir;
+use convchain::report::{OutputDir, Producer};
 use convchain::scenario::{self, Scenario};
 
 mod study_cli;
@@ -59,6 +59,9 @@ enum Command {
         /// Do not write the plots and the Markdown/HTML reports.
         #[arg(long)]
         no_plots: bool,
+        /// Write into a folder that holds a study, replacing the files convchain wrote there.
+        #[arg(long)]
+        force: bool,
     },
     /// Write generated demo audio (no recording is shipped) to listen to a chain with.
     Audio {
@@ -82,7 +85,10 @@ enum Command {
         stereo: bool,
     },
     /// Check a scenario file without running it.
-    Check { scenario: PathBuf },
+    Check {
+        /// Scenario file (TOML).
+        scenario: PathBuf,
+    },
     /// Write a commented starter scenario.
     Init {
         /// File name to write (default scenario.toml), inside --out.
@@ -98,10 +104,15 @@ enum Command {
         /// Output folder (default out/<name>/).
         #[arg(long)]
         out: Option<PathBuf>,
+        /// Print static.json on standard output instead of the table.
         #[arg(long)]
         json: bool,
+        /// Print nothing but errors.
         #[arg(long, short)]
         quiet: bool,
+        /// Write into a folder that holds a study, replacing the files convchain wrote there.
+        #[arg(long)]
+        force: bool,
     },
     /// Sweep numeric keys over ranges (several --vary make a grid) and tabulate every metric.
     Sweep(study_cli::SweepArgs),
@@ -268,6 +279,7 @@ fn run(args: Args) -> anyhow::Result<()> {
             listen_gain,
             no_wav,
             no_plots,
+            force,
         } => {
             let window_s = window.as_deref().map(parse_window).transpose()?;
             if !(WAV_RATE_MIN_HZ..=WAV_RATE_MAX_HZ).contains(&wav_rate) {
@@ -297,7 +309,7 @@ fn run(args: Args) -> anyhow::Result<()> {
                 }
             }
             let dir = out_dir(out, &sc);
-            OutputDir::check(&dir)?;
+            OutputDir::check(&dir, &Producer::run(force))?;
             let opts = convchain::RunOptions {
                 full_waveforms: full,
                 progress: !quiet && !json,
@@ -311,6 +323,7 @@ fn run(args: Args) -> anyhow::Result<()> {
                     },
                     listen_gain,
                 }),
+                force,
             };
             interrupt::install_stop_handler("run");
             let report = convchain::run_to_dir(&sc, &dir, &opts)?;
@@ -373,13 +386,14 @@ fn run(args: Args) -> anyhow::Result<()> {
             out,
             json,
             quiet,
+            force,
         } => {
             let sc = load(scenario.as_deref())?;
             print_warnings(&sc, quiet);
             let dir = out_dir(out, &sc);
-            OutputDir::check(&dir)?;
+            OutputDir::check(&dir, &Producer::static_tests(force))?;
             interrupt::install_stop_handler("static");
-            let report = convchain::static_to_dir(&sc, &dir)?;
+            let report = convchain::static_to_dir(&sc, &dir, force)?;
             let mut o = stdout.lock();
             if json {
                 writeln!(o, "{}", serde_json::to_string_pretty(&report)?)?;

@@ -43,9 +43,13 @@ pub struct McArgs {
     /// Skip the static tests (faster for converters of many bits).
     #[arg(long)]
     no_static: bool,
-    /// Output folder (default out/<name>-montecarlo/, or .../shard-K-of-N/ for a shard).
+    /// Output folder (default out/<name>-montecarlo/, or out/<name>-montecarlo-shard-K-of-N/ for a shard).
     #[arg(long)]
     out: Option<PathBuf>,
+    /// Write into a folder that holds another study (other options, another shard...), replacing the files
+    /// convchain wrote there.
+    #[arg(long)]
+    force: bool,
     /// Print nothing but errors (no progress bar, no table).
     #[arg(long, short)]
     quiet: bool,
@@ -59,8 +63,12 @@ pub struct MergeArgs {
     /// Folder for the merged study.
     #[arg(long)]
     out: PathBuf,
+    /// Print nothing but errors.
     #[arg(long, short)]
     quiet: bool,
+    /// Write into a folder that holds another study, replacing the files convchain wrote there.
+    #[arg(long)]
+    force: bool,
 }
 
 fn fmt_value(name: &str, v: Option<f64>) -> String {
@@ -176,14 +184,15 @@ pub fn run(a: McArgs) -> anyhow::Result<()> {
         dynamic: !a.static_only,
         static_tests: !a.no_static,
         progress: !a.quiet,
+        force: a.force,
     };
+    // A shard's folder sits beside the whole study's, never inside it.
     let dir = a.out.clone().unwrap_or_else(|| {
-        let base = Path::new("out").join(format!("{}-montecarlo", sc.name));
-        if shard == Shard::WHOLE {
-            base
+        Path::new("out").join(if shard == Shard::WHOLE {
+            format!("{}-montecarlo", sc.name)
         } else {
-            base.join(format!("shard-{}-of-{}", shard.k, shard.n))
-        }
+            format!("{}-montecarlo-shard-{}-of-{}", sc.name, shard.k, shard.n)
+        })
     });
     interrupt::install_handler("runs");
     let started = Instant::now();
@@ -219,7 +228,7 @@ pub fn run(a: McArgs) -> anyhow::Result<()> {
 }
 
 pub fn merge(a: MergeArgs) -> anyhow::Result<()> {
-    let merged = shard::merge_dirs(&a.dirs, &a.out, convchain::study::STUDIES)?;
+    let merged = shard::merge_dirs(&a.dirs, &a.out, convchain::study::STUDIES, a.force)?;
     if !a.quiet && merged.kind == montecarlo::KIND {
         let summary = montecarlo::summarize(&merged)?;
         write!(std::io::stdout().lock(), "{}", table(&summary, &a.out))?;

@@ -23,6 +23,7 @@ use serde_json::{Value, json};
 
 use super::shard::{
     ROWS_FILE, ROWS_FORMAT, RowSet, Shard, StudyKind, fingerprint, interrupted_note, run_in_order,
+    study_producer,
 };
 use crate::engine::pipeline;
 use crate::engine::static_bench::{Static, static_tests};
@@ -220,6 +221,8 @@ pub struct McOptions {
     pub static_tests: bool,
     /// Show a progress bar on standard error when it is a terminal.
     pub progress: bool,
+    /// Write into a folder that holds another study (replacing it): `--force`.
+    pub force: bool,
 }
 
 impl McOptions {
@@ -234,6 +237,7 @@ impl McOptions {
             dynamic: true,
             static_tests: true,
             progress: false,
+            force: false,
         }
     }
 }
@@ -759,12 +763,16 @@ pub fn montecarlo_to_dir(
     dir: &Path,
     cancel: &AtomicBool,
 ) -> Result<Summary> {
-    prepare(text, opts)?;
-    OutputDir::check(dir)?;
+    let prepared = prepare(text, opts)?;
+    let producer = study_producer(KIND, &prepared.header, opts.shard, opts.force);
+    OutputDir::check(dir, &producer)?;
     let set = run_rows(text, opts, cancel)?;
-    let out = OutputDir::create(dir)?;
+    let out = OutputDir::create(dir, &producer)?;
     match write_outputs(&out, &set) {
-        Ok(s) => Ok(s),
+        Ok(s) => {
+            out.finish()?;
+            Ok(s)
+        }
         Err(e) => {
             out.abandon();
             Err(e)
