@@ -267,3 +267,155 @@ fn a_shard_is_another_study_and_its_default_folder_sits_beside_the_whole_ones() 
     ok(&o);
     assert!(stdout(&o).contains("2 points"), "{}", stdout(&o));
 }
+
+/// [`SMALL_CHAIN`] overdriven (2.7 V amplitude around 2.5 V into a 0..5 V converter) and sampled coherently (so
+/// the 1 kHz source moves), its converter named at length and converting in "10 us" (10 x 1e-6 is
+/// 9.999999999999999e-06 in doubles).
+const CLIP_CHAIN: &str = r#"
+name = "clip-chain"
+[simulation]
+analog_rate = "1 MHz"
+duration = "12 ms"
+settle = "2 ms"
+seed = 4
+[source]
+waveform = "sine"
+frequency = "1 kHz"
+amplitude = "2.7 V"
+offset = "2.5 V"
+[[stage]]
+kind = "sar_adc"
+name = "successive-approximation-converter-with-a-name-longer-than-the-column"
+bits = 8
+range = ["0 V", "5 V"]
+sample_rate = "50 kHz"
+conversion_time = "10 us"
+[[stage]]
+kind = "dac"
+range = ["0 V", "5 V"]
+[[stage]]
+kind = "filter"
+order = 2
+cutoff = "10 kHz"
+[analysis]
+band = "10 kHz"
+coherent = true
+"#;
+
+fn clip_run(extra: &[&str]) -> (tempfile::TempDir, std::process::Output) {
+    let d = tempfile::tempdir().unwrap();
+    fs::write(d.path().join("clip.toml"), CLIP_CHAIN).unwrap();
+    let mut args = vec!["run", "clip.toml", "--out", "c"];
+    args.extend(extra);
+    let o = run_in(d.path(), &args);
+    (d, o)
+}
+
+#[test]
+fn the_reports_say_the_clipped_codes_and_the_moved_source_as_the_terminal_does() {
+    let (d, o) = clip_run(&["--no-wav"]);
+    ok(&o);
+    let dir = d.path().join("c");
+    let r = json(&dir.join("report.json"));
+    let clipped = r["adc"]["codes_clipped"].as_u64().unwrap();
+    assert!(
+        clipped > 0,
+        "a 2.7 V amplitude around 2.5 V overdrives 0..5 V"
+    );
+    // The source moves for coherent sampling unless 1 kHz happens to fit the record exactly; when it moves,
+    // every report says so.
+    let moved = r["run"]["frequency_hz"].as_f64() != Some(1000.0);
+    let terminal = stdout(&o);
+    let md = fs::read_to_string(dir.join("report.md")).unwrap();
+    let html = fs::read_to_string(dir.join("report.html")).unwrap();
+    for (what, text) in [
+        ("terminal", &terminal),
+        ("report.md", &md),
+        ("report.html", &html),
+    ] {
+        assert!(
+            text.contains(&format!(
+                "{clipped} codes clipped: the input overdrives the ADC's range"
+            )),
+            "{what}: {text}"
+        );
+        assert_eq!(
+            text.contains("moved from 1 kHz to"),
+            moved,
+            "{what}: {text}"
+        );
+    }
+}
+
+#[test]
+fn report_json_echoes_the_configuration_without_arithmetic_noise() {
+    let (d, o) = clip_run(&["--no-wav", "--no-plots", "--quiet"]);
+    ok(&o);
+    let r = json(&d.path().join("c/report.json"));
+    // "10 us" as written, not 10 x 1e-6 = 9.999999999999999e-06.
+    let sar = r["chain"]["stages"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|s| s["kind"] == "sar_adc")
+        .unwrap_or_else(|| panic!("{}", r["chain"]));
+    assert_eq!(sar["conversion_time_s"].as_f64(), Some(1e-5), "{sar}");
+    assert_eq!(r["adc"]["conversion_time_s"].as_f64(), Some(1e-5));
+    assert_eq!(r["latency"]["budget"][0]["seconds"].as_f64(), Some(1e-5));
+}
+
+#[test]
+fn a_long_stage_name_does_not_break_the_latency_columns() {
+    let (_d, o) = clip_run(&["--no-wav", "--no-plots"]);
+    ok(&o);
+    let t = stdout(&o);
+    let lines: Vec<&str> = t
+        .lines()
+        .skip_while(|l| !l.contains("latency budget"))
+        .skip(1)
+        .take_while(|l| l.starts_with("    "))
+        .map(|l| l.trim_end_matches("  <- large: check the model"))
+        .collect();
+    assert!(lines.len() >= 5, "{t}");
+    assert!(
+        lines[0].contains("successive-approximation-converter-with"),
+        "{t}"
+    );
+    let widths: BTreeSet<usize> = lines.iter().map(|l| l.chars().count()).collect();
+    assert_eq!(widths.len(), 1, "values end in one column:\n{t}");
+}
+
+#[test]
+fn a_lowered_listen_gain_is_said_on_the_terminal() {
+    let (_d, o) = clip_run(&["--no-plots", "--listen-gain", "10000"]);
+    ok(&o);
+    let e = stderr(&o);
+    assert!(e.contains("--listen-gain 10000 lowered to "), "{e}");
+    // Not said when the gain was kept.
+    let (_d, o) = clip_run(&["--no-plots", "--listen-gain", "1"]);
+    ok(&o);
+    assert!(!stderr(&o).contains("lowered"), "{}", stderr(&o));
+}
+
+#[test]
+fn an_os_error_is_printed_once() {
+    let d = setup();
+    fs::write(d.path().join("afile"), "").unwrap();
+    let o = run_in(
+        d.path(),
+        &["run", "c.toml", "--out", "afile/sub", "--quiet"],
+    );
+    assert_eq!(o.status.code(), Some(1), "{}", stderr(&o));
+    let e = stderr(&o);
+    assert_eq!(e.matches("(os error").count(), 1, "{e}");
+    assert!(e.contains("afile/sub"), "{e}");
+}
+
+#[test]
+fn init_names_the_scenario_after_its_file() {
+    let d = tempfile::tempdir().unwrap();
+    ok(&run_in(d.path(), &["init", "my-chain.toml"]));
+    let text = fs::read_to_string(d.path().join("my-chain.toml")).unwrap();
+    assert!(text.contains("name = \"my-chain\""), "{text}");
+    ok(&run_in(d.path(), &["check", "my-chain.toml"]));
+}

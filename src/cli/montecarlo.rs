@@ -10,7 +10,7 @@ use clap::Args;
 use convchain::Error;
 use convchain::report::plot::format_si;
 use convchain::scenario::overrides::ScenarioText;
-use convchain::study::montecarlo::{self, McOptions, Requirement, Summary};
+use convchain::study::montecarlo::{self, McOptions, Requirement, Stats, Summary};
 use convchain::study::shard::{self, Shard};
 use convchain::study::sweep;
 
@@ -71,11 +71,39 @@ pub struct MergeArgs {
     force: bool,
 }
 
-fn fmt_value(name: &str, v: Option<f64>) -> String {
+/// Power of ten of the last digit a row of the table must show so its percentiles show their spread: a tenth
+/// of the spread from 5 % to 95 % (of the whole range when those two are equal), or None when every value is
+/// the same.
+fn resolution_exponent(m: &Stats) -> Option<i32> {
+    let spread = match (m.p5, m.p95, m.min, m.max) {
+        (Some(a), Some(b), _, _) if b > a => b - a,
+        (_, _, Some(a), Some(b)) if b > a => b - a,
+        _ => return None,
+    };
+    Some((spread / 10.0).log10().floor() as i32)
+}
+
+/// A value of the table's row `m`: seconds with an SI prefix and at least 4 significant digits, other values
+/// with at least 4 decimals; more when the spread of the row needs them (at most 12 digits).
+fn fmt_value(m: &Stats, v: Option<f64>) -> String {
+    let res = resolution_exponent(m);
     match v {
         None => "-".into(),
-        Some(x) if name.ends_with("_s") => format_si(x, "s", 4),
-        Some(x) => format!("{x:.4}"),
+        Some(x) if m.name.ends_with("_s") => {
+            let top = [m.p5, m.median, m.p95]
+                .iter()
+                .flatten()
+                .fold(0.0f64, |a, b| a.max(b.abs()));
+            let need = match res {
+                Some(r) if top > 0.0 => top.log10().floor() as i32 + 1 - r,
+                _ => 0,
+            };
+            format_si(x, "s", need.clamp(4, 12) as usize)
+        }
+        Some(x) => {
+            let need = res.map_or(0, |r| -r);
+            format!("{x:.*}", need.clamp(4, 12) as usize)
+        }
     }
 }
 
@@ -93,27 +121,40 @@ pub fn table(s: &Summary, dir: &Path) -> String {
         "{name}: {} runs (shard {}, base seed {seed}), {} failed",
         s.runs_done, s.shard, s.runs_failed
     );
-    let _ = writeln!(
-        t,
-        "  {:<26}{:>14}{:>14}{:>14}",
-        "metric", "5 %", "median", "95 %"
-    );
     // Pass/fail metrics (monotonic, missing codes) are summarised as fractions below.
     let pass_fail = |n: &str| n.ends_with(".monotonic") || n.ends_with(".missing_codes");
-    for m in s
+    let rows: Vec<(&str, [String; 3])> = s
         .metrics
         .iter()
         .chain(&s.drawn)
         .filter(|m| m.runs > 0 && !pass_fail(&m.name))
-    {
-        let _ = writeln!(
-            t,
-            "  {:<26}{:>14}{:>14}{:>14}",
-            m.name,
-            fmt_value(&m.name, m.p5),
-            fmt_value(&m.name, m.median),
-            fmt_value(&m.name, m.p95)
-        );
+        .map(|m| {
+            (
+                m.name.as_str(),
+                [m.p5, m.median, m.p95].map(|v| fmt_value(m, v)),
+            )
+        })
+        .collect();
+    // Columns as wide as their longest entry (at least 26 and 14), so long names never break them.
+    let w = rows
+        .iter()
+        .map(|(n, _)| n.chars().count() + 1)
+        .max()
+        .unwrap_or(0)
+        .max(26);
+    let v = rows
+        .iter()
+        .flat_map(|(_, c)| c.iter().map(|x| x.chars().count() + 2))
+        .max()
+        .unwrap_or(0)
+        .max(14);
+    let _ = writeln!(
+        t,
+        "  {:<w$}{:>v$}{:>v$}{:>v$}",
+        "metric", "5 %", "median", "95 %"
+    );
+    for (name, [a, b, c]) in &rows {
+        let _ = writeln!(t, "  {name:<w$}{a:>v$}{b:>v$}{c:>v$}");
     }
     let f = &s.fractions;
     if let Some(x) = f.dac_monotonic {
@@ -242,4 +283,48 @@ pub fn merge(a: MergeArgs) -> anyhow::Result<()> {
         )?;
     }
     Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn stats(name: &str, p5: f64, median: f64, p95: f64) -> Stats {
+        Stats {
+            name: name.into(),
+            runs: 100,
+            p5: Some(p5),
+            median: Some(median),
+            p95: Some(p95),
+            mean: Some(median),
+            min: Some(p5),
+            max: Some(p95),
+        }
+    }
+
+    #[test]
+    fn the_table_prints_enough_digits_to_show_the_spread() {
+        // A latency spread of 30 us around 153.2 ms: at 4 significant digits all three read 153.2 ms.
+        let m = stats("latency.measured_s", 0.153_19, 0.153_205, 0.153_22);
+        let shown: Vec<String> = [m.p5, m.median, m.p95]
+            .iter()
+            .map(|v| fmt_value(&m, *v))
+            .collect();
+        assert_eq!(shown, ["153.190 ms", "153.205 ms", "153.220 ms"]);
+        let m = stats("output.enob_bits", 7.912_341, 7.912_355, 7.912_372);
+        let shown: Vec<String> = [m.p5, m.median, m.p95]
+            .iter()
+            .map(|v| fmt_value(&m, *v))
+            .collect();
+        assert_eq!(shown, ["7.912341", "7.912355", "7.912372"]);
+        // A wide spread keeps the usual digits; no spread at all too.
+        assert_eq!(
+            fmt_value(&stats("output.enob_bits", 7.1, 7.5, 7.9), Some(7.5)),
+            "7.5000"
+        );
+        assert_eq!(
+            fmt_value(&stats("x_s", 1e-3, 1e-3, 1e-3), Some(1e-3)),
+            "1.000 ms"
+        );
+    }
 }

@@ -429,6 +429,8 @@ pub fn format_si_as(value: f64, unit: &str, style: SiStyle) -> String {
             format!("{s} {prefix}{unit}")
         }
         SiStyle::Table => {
+            // Arithmetic noise off first (99.99999999 ns from a sum of delays is 100 ns), then the prefix.
+            let value = round_significant(value, ECHO_DIGITS);
             let (factor, prefix) = si_prefix(value, "µ");
             let s = format!("{:.4}", value / factor);
             let s = s.trim_end_matches('0').trim_end_matches('.');
@@ -453,6 +455,21 @@ pub fn format_si_as(value: f64, unit: &str, style: SiStyle) -> String {
     }
 }
 
+/// Significant digits kept where a value is echoed or tabulated ([`round_significant`]): far below the
+/// precision of any input or measurement, far above double-precision arithmetic noise (about 16 digits).
+pub const ECHO_DIGITS: usize = 12;
+
+/// `x` rounded to `digits` significant decimal digits (1 to 17), so arithmetic noise such as
+/// `9.999999999999999e-06` (from "10 us" = 10 x 1e-6) reads `1e-05` again. Zero and non-finite values are
+/// returned unchanged. Goes through the decimal text, which rounds exactly.
+pub fn round_significant(x: f64, digits: usize) -> f64 {
+    if x == 0.0 || !x.is_finite() {
+        return x;
+    }
+    let d = digits.clamp(1, 17) - 1;
+    format!("{x:.d$e}").parse().unwrap_or(x)
+}
+
 /// [`format_si_as`] in [`SiStyle::Parseable`]: e.g. `format_si(83_333.3, "Hz")` = `"83.33 kHz"`.
 pub fn format_si(value: f64, unit: &str) -> String {
     format_si_as(value, unit, SiStyle::Parseable)
@@ -467,6 +484,27 @@ pub fn format_si_table(value: f64, unit: &str) -> String {
 mod tests {
     use super::*;
     use proptest::prelude::*;
+
+    #[test]
+    fn table_values_and_echoes_carry_no_arithmetic_noise() {
+        // 10 x 1e-6 in doubles is 9.999999999999999e-06 (IEEE 754 binary64 rounding; common practice, no
+        // source): twelve significant digits give 1e-5 back.
+        assert_eq!(10.0 * 1e-6, 9.999999999999999e-6);
+        assert_eq!(round_significant(10.0 * 1e-6, ECHO_DIGITS), 1e-5);
+        assert_eq!(round_significant(5.000000000000001e-7, ECHO_DIGITS), 5e-7);
+        assert_eq!(
+            round_significant(-0.000019999999999999998, ECHO_DIGITS),
+            -2e-5
+        );
+        assert_eq!(round_significant(123.456, 2), 120.0);
+        assert_eq!(round_significant(0.0, 3), 0.0);
+        assert!(round_significant(f64::NAN, 3).is_nan());
+        // A sum of delays a hair under 100 ns is 100 ns in a table, and one under 1 us is 1 us.
+        assert_eq!(format_si_table(99.99999999e-9, "s"), "100 ns");
+        assert_eq!(format_si_table(0.999999999999e-6, "s"), "1 µs");
+        // Real digits stay.
+        assert_eq!(format_si_table(67.2309e-6, "s"), "67.2309 µs");
+    }
 
     fn q(s: &str, d: Dimension) -> f64 {
         parse_quantity(s, d).unwrap_or_else(|e| panic!("{s}: {}", e.message))

@@ -74,6 +74,50 @@ fn latency_rows(r: &Report) -> Vec<(String, String)> {
     rows
 }
 
+/// What the terminal's summary says beside the metrics ([`crate::report::table::summary`]), as sentences for
+/// report.md and report.html: the source moved for coherent sampling, the converter with its clipped codes
+/// (an input overdriving the range), the output band, the bits a link flipped, and error.wav's gain when it
+/// was lowered.
+pub fn run_facts(r: &Report) -> Vec<String> {
+    let mut f = Vec::new();
+    if let (Some(req), Some(used)) = (r.run.requested_frequency_hz, r.run.frequency_hz)
+        && req != used
+    {
+        let cycles = r
+            .run
+            .coherent_cycles
+            .map(|c| format!(" ({c} cycles in the record)"))
+            .unwrap_or_default();
+        f.push(format!(
+            "The source was moved from {} to {} for coherent sampling{cycles}.",
+            si(req, "Hz"),
+            si(used, "Hz")
+        ));
+    }
+    if let Some(a) = r.adc.as_ref().map(|a| &a.metrics) {
+        f.push(format!(
+            "ADC: {} bits at {}, conversion {}; {} codes clipped; output band {}.",
+            a.bits,
+            si(a.sample_rate_hz, "Hz"),
+            si(a.conversion_time_s, "s"),
+            a.codes_clipped,
+            si(r.output.band_hz, "Hz")
+        ));
+        if a.codes_clipped > 0 {
+            f.push(format!(
+                "{} codes clipped: the input overdrives the ADC's range, and the metrics include the clipping.",
+                a.codes_clipped
+            ));
+        }
+    } else {
+        f.push(format!("Output band {}.", si(r.output.band_hz, "Hz")));
+    }
+    if r.output.bits_flipped > 0 {
+        f.push(format!("Link: {} bits flipped.", r.output.bits_flipped));
+    }
+    f
+}
+
 /// Markdown report; images are referenced as `<name>.png` beside it.
 pub fn markdown(r: &Report, figures: &[Figure]) -> String {
     let mut s = String::new();
@@ -86,15 +130,8 @@ pub fn markdown(r: &Report, figures: &[Figure]) -> String {
         "Scenario: `{}`, seed {}.\n",
         r.scenario.origin, r.scenario.seed
     );
-    if let (Some(req), Some(used)) = (r.run.requested_frequency_hz, r.run.frequency_hz)
-        && req != used
-    {
-        let _ = writeln!(
-            s,
-            "The source was moved from {} to {} for coherent sampling.\n",
-            si(req, "Hz"),
-            si(used, "Hz")
-        );
+    for fact in run_facts(r) {
+        let _ = writeln!(s, "{fact}\n");
     }
     let _ = writeln!(
         s,
@@ -155,6 +192,9 @@ figcaption{{color:#444}}</style></head><body>\n",
         esc(&r.scenario.origin),
         r.scenario.seed
     );
+    for fact in run_facts(r) {
+        let _ = writeln!(s, "<p>{}</p>", esc(&fact));
+    }
     let _ = writeln!(
         s,
         "<h2>Metrics</h2><table><tr><th></th><th>ADC codes</th><th>analog output</th></tr>"
@@ -180,11 +220,15 @@ figcaption{{color:#444}}</style></head><body>\n",
         );
     }
     let _ = writeln!(s, "</table>");
-    if r.listening.is_some() {
+    if let Some(l) = &r.listening {
         let _ = writeln!(
             s,
-            "<p>Listening files: <code>input.wav</code>, <code>output.wav</code>, <code>error.wav</code>. Play them at \
-             low volume first.</p>"
+            "<p>Listening files: <code>input.wav</code>, <code>output.wav</code>, <code>error.wav</code> at {} Hz; \
+             input and output share one scale ({} full scale); the error file is amplified {:.1}x. Play them at \
+             low volume first.</p>",
+            l.rate_hz,
+            esc(&si(l.full_scale_v, "V")),
+            l.error_gain_used
         );
     }
     for f in figures {
