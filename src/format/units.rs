@@ -501,7 +501,7 @@ mod tests {
         assert!(round_significant(f64::NAN, 3).is_nan());
         // A sum of delays a hair under 100 ns is 100 ns in a table, and one under 1 us is 1 us.
         assert_eq!(format_si_table(99.99999999e-9, "s"), "100 ns");
-        assert_eq!(format_si_table(0.999999999999e-6, "s"), "1 µs");
+        assert_eq!(format_si_table(0.9999999999999e-6, "s"), "1 µs");
         // Real digits stay.
         assert_eq!(format_si_table(67.2309e-6, "s"), "67.2309 µs");
     }

@@ -160,7 +160,12 @@ impl Producer {
                 .join(" and ")
         };
         match (&m.study, &self.study) {
-            (Some(there), Some(mine)) if there == mine => None,
+            // The same study: its kind and definition (not the words, which may change between versions).
+            (Some(there), Some(mine))
+                if there.kind == mine.kind && there.definition == mine.definition =>
+            {
+                None
+            }
             (Some(there), _) => Some(format!("holds {}", there.describe)),
             (None, Some(_)) if others(&self.by) => {
                 Some(format!("holds the outputs of {}", commands(m)))
