@@ -327,4 +327,48 @@ mod tests {
             "1.000 ms"
         );
     }
+
+    #[test]
+    fn a_long_drawn_name_does_not_break_the_table_columns() {
+        let summary = Summary {
+            study: serde_json::json!({"scenario": "x", "seed": 1}),
+            shard: "1/1".into(),
+            runs_done: 100,
+            runs_failed: 0,
+            interrupted: None,
+            percentiles: String::new(),
+            metrics: vec![stats("output.enob_bits", 7.1, 7.5, 7.9)],
+            drawn: vec![stats(
+                "stage.3.a_rather_long_stage_key_name.tolerance",
+                -0.01,
+                0.0,
+                0.01,
+            )],
+            fractions: montecarlo::Fractions {
+                dac_tested: 0,
+                dac_monotonic: None,
+                adc_tested: 0,
+                adc_without_missing_codes: None,
+            },
+            yields: Vec::new(),
+            failures: Vec::new(),
+        };
+        let t = table(&summary, Path::new("out"));
+        let rows: Vec<&str> = t.lines().skip(1).take(3).collect();
+        assert!(
+            rows[0].contains("median") && rows[2].contains("a_rather_long"),
+            "{t}"
+        );
+        // Every row ends in the same column and its values start after the longest name.
+        let ends: std::collections::BTreeSet<usize> =
+            rows.iter().map(|l| l.chars().count()).collect();
+        assert_eq!(ends.len(), 1, "{t}");
+        let name_end = rows[2].find("tolerance").unwrap() + "tolerance".len();
+        assert!(
+            rows[1][..name_end]
+                .trim_start()
+                .starts_with("output.enob_bits"),
+            "{t}"
+        );
+    }
 }
