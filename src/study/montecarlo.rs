@@ -300,7 +300,7 @@ fn prepare<'a>(text: &'a ScenarioText, opts: &McOptions) -> Result<Prepared<'a>>
                 "law": match s.law { SpreadLaw::Gaussian => "gaussian", SpreadLaw::Uniform => "uniform" },
                 "amount": s.amount,
                 "relative": s.relative,
-                "nominal": s.nominal,
+                "nominal": crate::format::units::round_significant(s.nominal, crate::format::units::ECHO_DIGITS),
             })
         })
         .collect();
