@@ -7,10 +7,10 @@ use crate::engine::plan::Plan;
 use crate::engine::static_bench::{StaticReport, missing_code_causes, static_tests};
 use crate::error::{Error, Result};
 use crate::measure::chain::measure_run;
-use crate::report::OutputDir;
 use crate::report::csv::CsvSink;
 use crate::report::json::{ListeningInfo, Report};
 use crate::report::wav::{WavFormat, WavOptions, listening_set};
+use crate::report::{OutputDir, Producer};
 use crate::report::{document, figures};
 use crate::scenario::Scenario;
 use crate::scenario::overrides::ScenarioText;
@@ -29,6 +29,8 @@ pub struct RunOptions {
     pub figures: bool,
     /// Write input.wav, output.wav and error.wav with these options; None = no WAV files.
     pub wav: Option<WavOptions>,
+    /// Write into a folder that holds a study (its files are then removed): `--force`.
+    pub force: bool,
 }
 
 impl Default for RunOptions {
@@ -39,18 +41,23 @@ impl Default for RunOptions {
             window_s: None,
             figures: true,
             wav: Some(WavOptions::default()),
+            force: false,
         }
     }
 }
 
 /// Run a scenario, measure it and write `report.json` and `waveforms.csv` into `dir` (created when the run
-/// starts; on failure nothing partial is left).
+/// starts; on failure nothing partial is left). The files an earlier run wrote there and this one did not
+/// (plots and WAV files after `--no-plots --no-wav`) are removed.
 pub fn run_to_dir(sc: &Scenario, dir: &Path, opts: &RunOptions) -> Result<Report> {
     // Plan first: bad input is reported before any folder appears.
     Plan::new(sc)?;
-    let out = OutputDir::create(dir)?;
+    let out = OutputDir::create(dir, &Producer::run(opts.force))?;
     match run_inner(sc, &out, opts) {
-        Ok(r) => Ok(r),
+        Ok(r) => {
+            out.finish()?;
+            Ok(r)
+        }
         Err(e) => {
             out.abandon();
             Err(e)
@@ -189,10 +196,11 @@ pub fn nominal_gain(sc: &Scenario) -> f64 {
     g
 }
 
-/// Run the static tests and write `static.json`.
+/// Run the static tests and write `static.json` and the static plots into `dir`; `force` lets them replace a
+/// study the folder holds.
 /// When the ADC misses codes, each non-ideality of its hold and converter is removed in turn and the ones that
 /// clear (or halve) the missing codes are named (`static.adc.missing_code_causes`).
-pub fn static_to_dir(text: &ScenarioText, dir: &Path) -> Result<StaticReport> {
+pub fn static_to_dir(text: &ScenarioText, dir: &Path, force: bool) -> Result<StaticReport> {
     let scenario = text.scenario()?;
     let sc = &scenario;
     let mut stat = static_tests(sc)?;
@@ -205,7 +213,7 @@ pub fn static_to_dir(text: &ScenarioText, dir: &Path) -> Result<StaticReport> {
     };
     let figs = figures::static_figures(&sc.name, &report.stat)?;
     let json = serde_json::to_vec_pretty(&report).map_err(|e| Error::Run(e.to_string()))?;
-    let out = OutputDir::create(dir)?;
+    let out = OutputDir::create(dir, &Producer::static_tests(force))?;
     let written = (|| {
         for f in &figs {
             out.write(&format!("{}.png", f.name), &f.png)?;
@@ -217,5 +225,6 @@ pub fn static_to_dir(text: &ScenarioText, dir: &Path) -> Result<StaticReport> {
         out.abandon();
         return Err(e);
     }
+    out.finish()?;
     Ok(report)
 }

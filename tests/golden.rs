@@ -13,22 +13,24 @@ use std::path::Path;
 use common::{ok, repo, run_in};
 
 /// (output, FNV-1a 64 of its bytes), recorded when the SAR's ideal transfer became IEEE Std 1241's centred one
-/// and the static headline took the bench sine's known amplitude and offset.
+/// and the static headline took the bench sine's known amplitude and offset; report.json re-recorded when its
+/// configuration echo (the chain, the converter's rate and conversion time, the budget's delays) became rounded
+/// to 12 significant digits.
 const GOLDEN: &[(&str, u64)] = &[
-    ("four-bit-listen-dithered/report.json", 0x821457a748a97681),
+    ("four-bit-listen-dithered/report.json", 0x888bfa362c9d1aed),
     ("four-bit-listen-dithered/waveforms.csv", 0x4b151367da46b8d7),
-    ("four-bit-listen/report.json", 0x530133715cabc93f),
+    ("four-bit-listen/report.json", 0x81f887d4dd61c1f7),
     ("four-bit-listen/waveforms.csv", 0x06e5a0b6c2740873),
-    ("radio-stl/report.json", 0xa0028902c73b45eb),
+    ("radio-stl/report.json", 0x87352304680ca0ad),
     ("radio-stl/waveforms.csv", 0x698310e33f1c0029),
     ("radio-stl/sweep.csv", 0xaabf6697816728e3),
-    ("river-gauge/report.json", 0x9f2c6119011a0d25),
+    ("river-gauge/report.json", 0xcefbabc822913646),
     ("river-gauge/waveforms.csv", 0x5196d3e0256cb7b5),
     ("river-gauge/sweep.csv", 0x0b370131c0c85f5d),
-    ("studio-interface/report.json", 0xe4df9c8e84b6f189),
+    ("studio-interface/report.json", 0x6bc3b474c4edc8fa),
     ("studio-interface/waveforms.csv", 0x1c1ac66f4f6967e5),
     ("studio-interface/sweep.csv", 0x7dcf3a3402c6cb9b),
-    ("default/report.json", 0x768eac7c66f6a4fe),
+    ("default/report.json", 0xb3509965d3bc7b17),
     ("default/waveforms.csv", 0x1c1ac66f4f6967e5),
     ("static.json", 0x7a01d9a97d69c6a8),
     ("limit.json", 0x3a37b5bed31a64db),

@@ -496,7 +496,7 @@ fn merged_sweep_shards_equal_one_run_and_foreign_or_missing_shards_are_refused()
         let o = sweep("4 kHz", &["--shard", &shard, "--threads", "1"]);
         assert!(o.status.success(), "{shard}: {}", stderr(&o));
     }
-    let shard_dir = |k: u32| format!("out/small-chain-sweep/shard-{k}-of-3");
+    let shard_dir = |k: u32| format!("out/small-chain-sweep-shard-{k}-of-3");
     // A shard holds only its points (grid index % 3 == K-1) and says so in its sweep.json.
     let (_, rows2) = csv_rows(&d.path().join(shard_dir(2)).join("sweep.csv"));
     let (_, all) = csv_rows(&d.path().join("one/sweep.csv"));

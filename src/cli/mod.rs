@@ -10,7 +10,7 @@ mod interrupt;
 mod montecarlo;
 
 use convchain::error::Error;
-use convchain::report::OutputDir;
+use convchain::report::{OutputDir, Producer};
 use convchain::scenario::{self, Scenario};
 
 mod study_cli;
@@ -59,6 +59,9 @@ enum Command {
         /// Do not write the plots and the Markdown/HTML reports.
         #[arg(long)]
         no_plots: bool,
+        /// Write into a folder that holds a study, replacing the files convchain wrote there.
+        #[arg(long)]
+        force: bool,
     },
     /// Write generated demo audio (no recording is shipped) to listen to a chain with.
     Audio {
@@ -82,7 +85,10 @@ enum Command {
         stereo: bool,
     },
     /// Check a scenario file without running it.
-    Check { scenario: PathBuf },
+    Check {
+        /// Scenario file (TOML).
+        scenario: PathBuf,
+    },
     /// Write a commented starter scenario.
     Init {
         /// File name to write (default scenario.toml), inside --out.
@@ -98,10 +104,15 @@ enum Command {
         /// Output folder (default out/<name>/).
         #[arg(long)]
         out: Option<PathBuf>,
+        /// Print static.json on standard output instead of the table.
         #[arg(long)]
         json: bool,
+        /// Print nothing but errors.
         #[arg(long, short)]
         quiet: bool,
+        /// Write into a folder that holds a study, replacing the files convchain wrote there.
+        #[arg(long)]
+        force: bool,
     },
     /// Sweep numeric keys over ranges (several --vary make a grid) and tabulate every metric.
     Sweep(study_cli::SweepArgs),
@@ -178,7 +189,7 @@ pub fn main() -> ExitCode {
             {
                 return ExitCode::SUCCESS;
             }
-            eprintln!("error: {e:#}");
+            eprintln!("error: {}", error_text(&e));
             let bad_input = e
                 .downcast_ref::<Error>()
                 .map(Error::is_bad_input)
@@ -186,6 +197,49 @@ pub fn main() -> ExitCode {
             ExitCode::from(if bad_input { 2 } else { 1 })
         }
     }
+}
+
+/// The error and its causes joined by ": ", each said once: a cause whose text the message already holds (the
+/// OS error inside "cannot write X: Permission denied (os error 13)") is not repeated.
+fn error_text(e: &anyhow::Error) -> String {
+    let mut s = String::new();
+    for cause in e.chain() {
+        let t = cause.to_string();
+        if t.is_empty() || s.contains(&t) {
+            continue;
+        }
+        if !s.is_empty() {
+            s.push_str(": ");
+        }
+        s.push_str(&t);
+    }
+    s
+}
+
+/// The starter scenario named after the file it is written to (`init my-chain.toml` names it "my-chain"):
+/// the file's stem with every character other than letters, digits, `-` and `_` made a `-`; the starter's own
+/// name when nothing is left.
+fn starter_named(file: &Path) -> String {
+    const STARTER_NAME: &str = "name = \"bench-demo\"";
+    let stem = file
+        .file_stem()
+        .map(|s| s.to_string_lossy().to_string())
+        .unwrap_or_default();
+    let name: String = stem
+        .chars()
+        .map(|c| {
+            if c.is_ascii_alphanumeric() || c == '-' || c == '_' {
+                c
+            } else {
+                '-'
+            }
+        })
+        .collect();
+    let name = name.trim_matches('-');
+    if name.is_empty() {
+        return scenario::STARTER.to_string();
+    }
+    scenario::STARTER.replacen(STARTER_NAME, &format!("name = \"{name}\""), 1)
 }
 
 fn load(path: Option<&Path>) -> Result<Scenario, Error> {
@@ -248,7 +302,7 @@ fn run(args: Args) -> anyhow::Result<()> {
             })?;
             convchain::report::outdir::write_new_file(&path, |tmp| {
                 let mut f = convchain::report::outdir::create_new_file(tmp)?;
-                f.write_all(scenario::STARTER.as_bytes())
+                f.write_all(starter_named(&name).as_bytes())
                     .map_err(|e| Error::Write {
                         path: tmp.to_path_buf(),
                         source: e,
@@ -268,6 +322,7 @@ fn run(args: Args) -> anyhow::Result<()> {
             listen_gain,
             no_wav,
             no_plots,
+            force,
         } => {
             let window_s = window.as_deref().map(parse_window).transpose()?;
             if !(WAV_RATE_MIN_HZ..=WAV_RATE_MAX_HZ).contains(&wav_rate) {
@@ -297,7 +352,7 @@ fn run(args: Args) -> anyhow::Result<()> {
                 }
             }
             let dir = out_dir(out, &sc);
-            OutputDir::check(&dir)?;
+            OutputDir::check(&dir, &Producer::run(force))?;
             let opts = convchain::RunOptions {
                 full_waveforms: full,
                 progress: !quiet && !json,
@@ -311,9 +366,20 @@ fn run(args: Args) -> anyhow::Result<()> {
                     },
                     listen_gain,
                 }),
+                force,
             };
             interrupt::install_stop_handler("run");
             let report = convchain::run_to_dir(&sc, &dir, &opts)?;
+            if let Some(l) = &report.listening
+                && !quiet
+                && opts.wav.is_some()
+                && l.error_gain_used < listen_gain * (1.0 - 1e-9)
+            {
+                eprintln!(
+                    "note: --listen-gain {listen_gain} lowered to {:.4} so error.wav does not clip",
+                    l.error_gain_used
+                );
+            }
             let mut o = stdout.lock();
             if json {
                 writeln!(o, "{}", serde_json::to_string_pretty(&report)?)?;
@@ -373,15 +439,16 @@ fn run(args: Args) -> anyhow::Result<()> {
             out,
             json,
             quiet,
+            force,
         } => {
             let text =
                 convchain::scenario::overrides::ScenarioText::load_or_default(scenario.as_deref())?;
             let sc = text.scenario()?;
             print_warnings(&sc, quiet);
             let dir = out_dir(out, &sc);
-            OutputDir::check(&dir)?;
+            OutputDir::check(&dir, &Producer::static_tests(force))?;
             interrupt::install_stop_handler("static");
-            let report = convchain::static_to_dir(&text, &dir)?;
+            let report = convchain::static_to_dir(&text, &dir, force)?;
             let mut o = stdout.lock();
             if json {
                 writeln!(o, "{}", serde_json::to_string_pretty(&report)?)?;
@@ -394,4 +461,70 @@ fn run(args: Args) -> anyhow::Result<()> {
         Command::Merge(a) => montecarlo::merge(a)?,
     }
     Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use clap::CommandFactory;
+
+    /// Every option and argument of `cmd` and its subcommands that has no help text, as "command --option".
+    fn without_help(cmd: &clap::Command, path: &str, out: &mut Vec<String>) {
+        for a in cmd.get_arguments() {
+            let id = a.get_id().as_str();
+            if id == "help" || id == "version" {
+                continue;
+            }
+            if a.get_help().is_none() && a.get_long_help().is_none() {
+                out.push(format!("{path} {id}"));
+            }
+        }
+        for sub in cmd.get_subcommands() {
+            without_help(sub, &format!("{path} {}", sub.get_name()), out);
+        }
+    }
+
+    #[test]
+    fn every_option_of_every_command_has_help_text() {
+        let mut cmd = Args::command();
+        cmd.build();
+        let mut missing = Vec::new();
+        without_help(&cmd, "convchain", &mut missing);
+        assert!(missing.is_empty(), "options without help text: {missing:?}");
+        // The walk reaches every command and its options (a walk that saw nothing would pass anything).
+        let run = cmd.find_subcommand("run").expect("run");
+        assert!(run.get_arguments().any(|a| a.get_id() == "listen_gain"));
+        assert!(cmd.get_subcommands().count() >= 9);
+    }
+
+    #[test]
+    fn an_error_says_its_os_cause_once() {
+        let io = std::io::Error::from_raw_os_error(13);
+        let e = anyhow::Error::from(Error::Write {
+            path: "out/x".into(),
+            source: io,
+        });
+        let t = error_text(&e);
+        assert_eq!(t.matches("os error 13").count(), 1, "{t}");
+        assert!(t.starts_with("cannot write out/x: "), "{t}");
+        let chained = anyhow::anyhow!("inner").context("outer");
+        assert_eq!(error_text(&chained), "outer: inner");
+    }
+
+    #[test]
+    fn init_names_the_starter_after_its_file() {
+        let t = starter_named(Path::new("my-chain.toml"));
+        assert!(t.contains("name = \"my-chain\""), "{}", &t[..400]);
+        assert!(!t.contains("bench-demo"));
+        let t = starter_named(Path::new("dir/bench v2.toml"));
+        assert!(t.contains("name = \"bench-v2\""));
+        // The renamed starter still reads.
+        let sc = scenario::parse_str(
+            &starter_named(Path::new("a_b.toml")),
+            "a_b.toml",
+            Path::new("."),
+        )
+        .unwrap();
+        assert_eq!(sc.name, "a_b");
+    }
 }

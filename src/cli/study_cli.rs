@@ -35,9 +35,13 @@ pub struct SweepArgs {
     /// Space the values logarithmically.
     #[arg(long)]
     log: bool,
-    /// Output folder (default out/<name>-sweep/, or .../shard-K-of-N/ for a shard).
+    /// Output folder (default out/<name>-sweep/, or out/<name>-sweep-shard-K-of-N/ for a shard).
     #[arg(long)]
     out: Option<PathBuf>,
+    /// Write into a folder that holds another study (other --vary, another shard...), replacing the files
+    /// convchain wrote there.
+    #[arg(long)]
+    force: bool,
     /// Worker threads (default: all cores).
     #[arg(long)]
     threads: Option<usize>,
@@ -72,6 +76,10 @@ pub struct LimitArgs {
     /// Output folder (default out/<name>-limit/).
     #[arg(long)]
     out: Option<PathBuf>,
+    /// Write into a folder that holds another study (other options), replacing the files convchain wrote
+    /// there.
+    #[arg(long)]
+    force: bool,
     /// Worker threads (default: all cores).
     #[arg(long)]
     threads: Option<usize>,
@@ -103,20 +111,23 @@ pub fn sweep(a: SweepArgs) -> anyhow::Result<()> {
     };
     let text = ScenarioText::load(&a.scenario)?;
     let sc = text.scenario()?;
+    // A shard's folder sits beside the whole sweep's, never inside it.
     let dir = a.out.unwrap_or_else(|| {
-        let base = Path::new("out").join(format!("{}-sweep", sc.name));
-        if shard == Shard::WHOLE {
-            base
+        Path::new("out").join(if shard == Shard::WHOLE {
+            format!("{}-sweep", sc.name)
         } else {
-            base.join(format!("shard-{}-of-{}", shard.k, shard.n))
-        }
+            format!("{}-sweep-shard-{}-of-{}", sc.name, shard.k, shard.n)
+        })
     });
-    OutputDir::check(&dir)?;
     let spec = sweep::SweepSpec {
         vary,
         points: a.points,
         log: a.log,
     };
+    OutputDir::check(
+        &dir,
+        &sweep::folder_producer(&spec, &sc.name, shard, a.force)?,
+    )?;
     let opts = sweep::SweepOptions {
         threads: threads(a.threads)?,
         progress: !a.quiet,
@@ -124,7 +135,7 @@ pub fn sweep(a: SweepArgs) -> anyhow::Result<()> {
     };
     interrupt::install_handler("points");
     let result = sweep::run_sweep_until(&text, &spec, &opts, &CANCEL)?;
-    sweep::write_sweep(&result, &dir)?;
+    sweep::write_sweep(&result, &dir, a.force)?;
     if !a.quiet {
         write!(std::io::stdout().lock(), "{}", sweep_line(&result, &dir))?;
     }
@@ -164,7 +175,6 @@ pub fn limit(a: LimitArgs) -> anyhow::Result<()> {
     let dir = a
         .out
         .unwrap_or_else(|| Path::new("out").join(format!("{}-limit", sc.name)));
-    OutputDir::check(&dir)?;
     let opts = limit::LimitOptions {
         from_hz: a.from,
         to_hz: a.to,
@@ -175,9 +185,11 @@ pub fn limit(a: LimitArgs) -> anyhow::Result<()> {
         progress: !a.quiet && !a.json,
         ..Default::default()
     };
+    let producer = limit::folder_producer(&sc.name, &opts, a.force);
+    OutputDir::check(&dir, &producer)?;
     interrupt::install_stop_handler("limit");
     let report = limit::find_limits(&text, &opts)?;
-    limit::write_limit(&report, &dir)?;
+    limit::write_limit(&report, &dir, &producer)?;
     let mut o = std::io::stdout().lock();
     if a.json {
         writeln!(o, "{}", serde_json::to_string_pretty(&report)?)?;

@@ -403,7 +403,8 @@ pub enum SiStyle {
     /// About 4 significant digits, trailing zeros dropped, micro written `u` so the text parses back
     /// (messages): `"83.33 kHz"`, `"12 us"`.
     Parseable,
-    /// Up to 4 decimals, trailing zeros dropped, micro written `µ` (tables): `"67.2309 µs"`.
+    /// At most 5 significant digits and 4 decimals, trailing zeros dropped, micro written `µ` (tables):
+    /// `"67.231 µs"`, `"3.5 ns"`; a phase delay of 99.99988 ns reads `"100 ns"`, not `"99.9999 ns"`.
     Table,
     /// Exactly this many significant digits (at least 1), micro written `µ`; units that take no prefix
     /// (dB, LSB, %) are written unprefixed (plot labels): `"12.3 µs"`, `"72.1 dB"`.
@@ -429,9 +430,26 @@ pub fn format_si_as(value: f64, unit: &str, style: SiStyle) -> String {
             format!("{s} {prefix}{unit}")
         }
         SiStyle::Table => {
+            // Arithmetic noise off first (99.99999999 ns from a sum of delays is 100 ns), then the prefix.
+            let value = round_significant(value, ECHO_DIGITS);
             let (factor, prefix) = si_prefix(value, "µ");
-            let s = format!("{:.4}", value / factor);
-            let s = s.trim_end_matches('0').trim_end_matches('.');
+            let scaled = value / factor;
+            let int_digits = if scaled.is_finite() {
+                scaled.abs().max(1.0).log10().floor() as usize + 1
+            } else {
+                1
+            };
+            let decimals = TABLE_DIGITS.saturating_sub(int_digits).min(4);
+            let s = format!("{scaled:.decimals$}");
+            let s = if s.contains('.') {
+                s.trim_end_matches('0').trim_end_matches('.')
+            } else {
+                &s
+            };
+            // Rounding may reach the next prefix (999.996 ns reads 1 µs).
+            if s.trim_start_matches('-').starts_with("1000") && prefix != "G" && !s.contains('.') {
+                return format_si_as(value.signum() * 1000.0 * factor, unit, style);
+            }
             format!("{s} {prefix}{unit}")
         }
         SiStyle::Significant(significant) => {
@@ -453,12 +471,32 @@ pub fn format_si_as(value: f64, unit: &str, style: SiStyle) -> String {
     }
 }
 
+/// Most significant digits of a table value ([`SiStyle::Table`]): enough to compare delays to a
+/// thousandth, not so many that model-level differences (a single pole's phase delay a hair under its time
+/// constant) read as digits.
+const TABLE_DIGITS: usize = 5;
+
+/// Significant digits kept where a value is echoed or tabulated ([`round_significant`]): far below the
+/// precision of any input or measurement, far above double-precision arithmetic noise (about 16 digits).
+pub const ECHO_DIGITS: usize = 12;
+
+/// `x` rounded to `digits` significant decimal digits (1 to 17), so arithmetic noise such as
+/// `9.999999999999999e-06` (from "10 us" = 10 x 1e-6) reads `1e-05` again. Zero and non-finite values are
+/// returned unchanged. Goes through the decimal text, which rounds exactly.
+pub fn round_significant(x: f64, digits: usize) -> f64 {
+    if x == 0.0 || !x.is_finite() {
+        return x;
+    }
+    let d = digits.clamp(1, 17) - 1;
+    format!("{x:.d$e}").parse().unwrap_or(x)
+}
+
 /// [`format_si_as`] in [`SiStyle::Parseable`]: e.g. `format_si(83_333.3, "Hz")` = `"83.33 kHz"`.
 pub fn format_si(value: f64, unit: &str) -> String {
     format_si_as(value, unit, SiStyle::Parseable)
 }
 
-/// [`format_si_as`] in [`SiStyle::Table`]: e.g. `"67.2309 µs"`.
+/// [`format_si_as`] in [`SiStyle::Table`]: e.g. `"67.231 µs"`.
 pub fn format_si_table(value: f64, unit: &str) -> String {
     format_si_as(value, unit, SiStyle::Table)
 }
@@ -467,6 +505,33 @@ pub fn format_si_table(value: f64, unit: &str) -> String {
 mod tests {
     use super::*;
     use proptest::prelude::*;
+
+    #[test]
+    fn table_values_and_echoes_carry_no_arithmetic_noise() {
+        // 10 x 1e-6 in doubles is 9.999999999999999e-06 (IEEE 754 binary64 rounding; common practice, no
+        // source): twelve significant digits give 1e-5 back.
+        assert_eq!(10.0 * 1e-6, 9.999999999999999e-6);
+        assert_eq!(round_significant(10.0 * 1e-6, ECHO_DIGITS), 1e-5);
+        assert_eq!(round_significant(5.000000000000001e-7, ECHO_DIGITS), 5e-7);
+        assert_eq!(
+            round_significant(-0.000019999999999999998, ECHO_DIGITS),
+            -2e-5
+        );
+        assert_eq!(round_significant(123.456, 2), 120.0);
+        assert_eq!(round_significant(0.0, 3), 0.0);
+        assert!(round_significant(f64::NAN, 3).is_nan());
+        // A sum of delays a hair under 100 ns is 100 ns in a table, and one under 1 us is 1 us.
+        assert_eq!(format_si_table(99.99999999e-9, "s"), "100 ns");
+        assert_eq!(format_si_table(0.9999999999999e-6, "s"), "1 µs");
+        // Real digits stay.
+        assert_eq!(format_si_table(67.2309e-6, "s"), "67.231 µs");
+        assert_eq!(format_si_table(3.5e-9, "s"), "3.5 ns");
+        assert_eq!(format_si_table(-499.4602e-9, "s"), "-499.46 ns");
+        // At most 5 significant digits: a value a hair under 100 ns or 1 us reads so.
+        assert_eq!(format_si_table(99.99988e-9, "s"), "100 ns");
+        assert_eq!(format_si_table(999.996e-9, "s"), "1 µs");
+        assert_eq!(format_si_table(0.0, "s"), "0 s");
+    }
 
     fn q(s: &str, d: Dimension) -> f64 {
         parse_quantity(s, d).unwrap_or_else(|e| panic!("{s}: {}", e.message))

@@ -184,7 +184,31 @@ pub fn write_file(
             }
         }
     }
-    writer.finalize().map_err(write_err)
+    writer.finalize().map_err(write_err)?;
+    // A mono file of the extensible format: the front-centre channel mask (see `wav::MONO_CHANNEL_MASK`).
+    if channels == 1 {
+        use std::io::{Read, Seek, SeekFrom, Write};
+        use std::os::unix::fs::OpenOptionsExt;
+        let io = |source| Error::Write {
+            path: path.to_path_buf(),
+            source,
+        };
+        let mut f = std::fs::OpenOptions::new()
+            .read(true)
+            .write(true)
+            .custom_flags(libc::O_NOFOLLOW)
+            .open(path)
+            .map_err(io)?;
+        let mut head = [0u8; 44];
+        if f.read_exact(&mut head).is_ok()
+            && let Some(i) = crate::report::wav::mono_channel_mask_offset(&head)
+        {
+            f.seek(SeekFrom::Start(i as u64)).map_err(io)?;
+            f.write_all(&crate::report::wav::MONO_CHANNEL_MASK.to_le_bytes())
+                .map_err(io)?;
+        }
+    }
+    Ok(())
 }
 
 fn sample_count(rate_hz: u32, seconds: f64) -> usize {
@@ -329,6 +353,26 @@ mod tests {
             band_power(&whole, wb, 0.47 * fs, 0.5 * fs)
                 < 1e-8 * band_power(&whole, wb, 0.0, 0.5 * fs)
         );
+    }
+
+    #[test]
+    fn mono_files_of_24_and_32_bits_carry_the_front_centre_channel_mask() {
+        // 0x4 = SPEAKER_FRONT_CENTER (Microsoft's WAVEFORMATEXTENSIBLE documentation; from memory); stereo keeps
+        // front left and right (0x3).
+        let d = tempfile::tempdir().unwrap();
+        for (bits, float, channels, mask) in
+            [(24, false, 1, 4u32), (32, true, 1, 4), (24, false, 2, 3)]
+        {
+            let path = d.path().join(format!("m_{bits}_{channels}.wav"));
+            write_file(&path, &[0.0, 0.25, -0.25], 48_000, bits, float, channels).unwrap();
+            let b = std::fs::read(&path).unwrap();
+            assert_eq!(
+                u32::from_le_bytes([b[40], b[41], b[42], b[43]]),
+                mask,
+                "{bits} bits, {channels} ch"
+            );
+            assert!(hound::WavReader::open(&path).is_ok());
+        }
     }
 
     #[test]

@@ -74,6 +74,37 @@ fn latency_rows(r: &Report) -> Vec<(String, String)> {
     rows
 }
 
+/// What the terminal's summary says beside the metrics ([`crate::report::table::summary`]), as sentences for
+/// report.md and report.html: the source moved for coherent sampling, the converter with its clipped codes
+/// (an input overdriving the range), the output band, the bits a link flipped, and error.wav's gain when it
+/// was lowered.
+pub fn run_facts(r: &Report) -> Vec<String> {
+    let mut f = Vec::new();
+    for note in r.tone_notes() {
+        f.push(format!("{}.", capitalise(&note)));
+    }
+    if let Some(a) = r.adc.as_ref().map(|a| &a.metrics) {
+        f.push(format!(
+            "ADC: {} bits at {}, conversion {}; {} codes clipped.",
+            a.bits,
+            si(a.sample_rate_hz, "Hz"),
+            si(a.conversion_time_s, "s"),
+            a.codes_clipped,
+        ));
+        if a.codes_clipped > 0 {
+            f.push(format!(
+                "{} codes clipped: the input overdrives the ADC's range, and the metrics include the clipping.",
+                a.codes_clipped
+            ));
+        }
+    }
+    f.push(format!("{}.", capitalise(&r.band_note())));
+    if r.output.bits_flipped > 0 {
+        f.push(format!("Link: {} bits flipped.", r.output.bits_flipped));
+    }
+    f
+}
+
 /// Markdown report; images are referenced as `<name>.png` beside it.
 pub fn markdown(r: &Report, figures: &[Figure]) -> String {
     let mut s = String::new();
@@ -86,8 +117,8 @@ pub fn markdown(r: &Report, figures: &[Figure]) -> String {
         "Scenario: `{}`, seed {}.\n",
         r.scenario.origin, r.scenario.seed
     );
-    for note in r.tone_notes() {
-        let _ = writeln!(s, "{}.\n", capitalise(&note));
+    for fact in run_facts(r) {
+        let _ = writeln!(s, "{fact}\n");
     }
     let _ = writeln!(
         s,
@@ -96,7 +127,6 @@ pub fn markdown(r: &Report, figures: &[Figure]) -> String {
     for (n, a, o) in metric_rows(r) {
         let _ = writeln!(s, "| {n} | {a} | {o} |");
     }
-    let _ = writeln!(s, "\n{}.", capitalise(&r.band_note()));
     let _ = writeln!(s, "\n## Latency\n\n| stage | delay |\n|---|---:|");
     for (n, v) in latency_rows(r) {
         let _ = writeln!(s, "| {n} | {v} |");
@@ -149,8 +179,8 @@ figcaption{{color:#444}}</style></head><body>\n",
         esc(&r.scenario.origin),
         r.scenario.seed
     );
-    for note in r.tone_notes() {
-        let _ = writeln!(s, "<p>{}.</p>", esc(&capitalise(&note)));
+    for fact in run_facts(r) {
+        let _ = writeln!(s, "<p>{}</p>", esc(&fact));
     }
     let _ = writeln!(
         s,
@@ -166,8 +196,7 @@ figcaption{{color:#444}}</style></head><body>\n",
     }
     let _ = writeln!(
         s,
-        "</table><p>{}.</p><h2>Latency</h2><table><tr><th>stage</th><th>delay</th></tr>",
-        esc(&capitalise(&r.band_note()))
+        "</table><h2>Latency</h2><table><tr><th>stage</th><th>delay</th></tr>"
     );
     for (n, v) in latency_rows(r) {
         let _ = writeln!(
@@ -178,11 +207,15 @@ figcaption{{color:#444}}</style></head><body>\n",
         );
     }
     let _ = writeln!(s, "</table>");
-    if r.listening.is_some() {
+    if let Some(l) = &r.listening {
         let _ = writeln!(
             s,
-            "<p>Listening files: <code>input.wav</code>, <code>output.wav</code>, <code>error.wav</code>. Play them at \
-             low volume first.</p>"
+            "<p>Listening files: <code>input.wav</code>, <code>output.wav</code>, <code>error.wav</code> at {} Hz; \
+             input and output share one scale ({} full scale); the error file is amplified {:.1}x. Play them at \
+             low volume first.</p>",
+            l.rate_hz,
+            esc(&si(l.full_scale_v, "V")),
+            l.error_gain_used
         );
     }
     for f in figures {

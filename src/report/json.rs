@@ -76,6 +76,20 @@ pub struct RunInfo {
 
 impl Report {
     pub fn new(sc: &Scenario, plan: &Plan, m: ChainMetrics) -> Report {
+        // The figures that restate the configuration (the converter's rate and conversion time, the budget's
+        // delays) are echoed at the configuration's precision, as the chain is ([`round_echo`]); measured
+        // figures keep every digit.
+        let echo =
+            |x: f64| crate::format::units::round_significant(x, crate::format::units::ECHO_DIGITS);
+        let mut m = m;
+        if let Some(a) = &mut m.adc {
+            a.sample_rate_hz = echo(a.sample_rate_hz);
+            a.conversion_time_s = echo(a.conversion_time_s);
+        }
+        m.latency.budget_s = echo(m.latency.budget_s);
+        for b in &mut m.latency.budget {
+            b.seconds = echo(b.seconds);
+        }
         Report {
             scenario: ScenarioInfo {
                 name: sc.name.clone(),
@@ -85,7 +99,7 @@ impl Report {
                 warnings: sc.warnings.clone(),
                 convchain_version: env!("CARGO_PKG_VERSION").to_string(),
             },
-            chain: chain_json(sc),
+            chain: round_echo(chain_json(sc)),
             adc: m.adc.map(|metrics| AdcReport { metrics }),
             output: m.output,
             latency: m.latency,
@@ -171,6 +185,32 @@ impl Report {
         }
         v
     }
+}
+
+/// `v` with every number that is not a whole number rounded to
+/// [`crate::format::units::ECHO_DIGITS`] significant digits: the configuration echoed as the user wrote it
+/// ("10 us" reads `1e-05`, not the `9.999999999999999e-06` of 10 x 1e-6).
+pub fn round_echo(mut v: Value) -> Value {
+    fn walk(v: &mut Value) {
+        match v {
+            Value::Number(n) if n.is_f64() => {
+                if let Some(x) = n.as_f64() {
+                    let r = crate::format::units::round_significant(
+                        x,
+                        crate::format::units::ECHO_DIGITS,
+                    );
+                    if let Some(m) = serde_json::Number::from_f64(r) {
+                        *n = m;
+                    }
+                }
+            }
+            Value::Array(a) => a.iter_mut().for_each(walk),
+            Value::Object(o) => o.values_mut().for_each(walk),
+            _ => {}
+        }
+    }
+    walk(&mut v);
+    v
 }
 
 /// Every resolved parameter, SI units in the key names.

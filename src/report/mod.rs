@@ -11,4 +11,4 @@ pub mod plot;
 pub mod table;
 pub mod wav;
 
-pub use outdir::{MARKER, OutputDir};
+pub use outdir::{MARKER, OutputDir, Producer};

@@ -75,6 +75,13 @@ pub fn summary(r: &Report) -> String {
             si(a.conversion_time_s, "s"),
             a.codes_clipped,
         );
+        if a.codes_clipped > 0 {
+            let _ = writeln!(
+                s,
+                "  {} codes clipped: the input overdrives the ADC's range, and the metrics include the clipping",
+                a.codes_clipped
+            );
+        }
     }
     let _ = writeln!(s, "  {}", r.band_note());
     if o.bits_flipped > 0 {
@@ -82,27 +89,36 @@ pub fn summary(r: &Report) -> String {
     }
     let l = &r.latency;
     let _ = writeln!(s, "\n  latency budget");
+    // The label column is as wide as its longest label (at least 52), so a long stage label never pushes its
+    // value out of the column.
+    let w = l
+        .budget
+        .iter()
+        .map(|b| b.stage.chars().count() + 1)
+        .max()
+        .unwrap_or(0)
+        .max(52);
     for b in &l.budget {
-        let _ = writeln!(s, "    {:<52}{:>14}", b.stage, si(b.seconds, "s"));
+        let _ = writeln!(s, "    {:<w$}{:>14}", b.stage, si(b.seconds, "s"));
     }
-    let _ = writeln!(s, "    {:<52}{:>14}", "total (budget)", si(l.budget_s, "s"));
+    let _ = writeln!(s, "    {:<w$}{:>14}", "total (budget)", si(l.budget_s, "s"));
     let _ = writeln!(
         s,
-        "    {:<52}{:>14}",
+        "    {:<w$}{:>14}",
         "measured (cross-correlation)",
         si(l.measured_s, "s")
     );
     if let Some(p) = l.phase_delay_s {
         let _ = writeln!(
             s,
-            "    {:<52}{:>14}",
+            "    {:<w$}{:>14}",
             "phase delay at the fundamental",
             si(p, "s")
         );
     }
     let _ = writeln!(
         s,
-        "    {:<52}{:>14}{}",
+        "    {:<w$}{:>14}{}",
         "measured - budget",
         si(l.difference_s, "s"),
         if l.flagged {

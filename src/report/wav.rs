@@ -204,6 +204,27 @@ pub fn resample(x: &[f64], in_rate_hz: f64, out_rate_hz: f64) -> Vec<f64> {
     y
 }
 
+/// `dwChannelMask` of a mono WAVE_FORMAT_EXTENSIBLE file: SPEAKER_FRONT_CENTER (Microsoft's
+/// WAVEFORMATEXTENSIBLE documentation, ksmedia.h speaker positions; from memory). The WAV writer we use puts
+/// SPEAKER_FRONT_LEFT (0x1) in every mono file, so a player routes it to the left speaker only.
+pub const MONO_CHANNEL_MASK: u32 = 0x4;
+
+/// Byte offset of `dwChannelMask` in a WAV file whose `fmt ` chunk is WAVE_FORMAT_EXTENSIBLE with one channel
+/// and starts right after the RIFF header (as the writer lays it out): None for any other file.
+pub fn mono_channel_mask_offset(header: &[u8]) -> Option<usize> {
+    let u16_at = |i: usize| {
+        header
+            .get(i..i + 2)
+            .map(|b| u16::from_le_bytes([b[0], b[1]]))
+    };
+    let extensible = header.get(0..4) == Some(b"RIFF")
+        && header.get(8..16) == Some(b"WAVEfmt ")
+        && u16_at(20) == Some(0xfffe)
+        && u16_at(22) == Some(1)
+        && u16_at(36) == Some(22);
+    (extensible && header.len() >= 44).then_some(40)
+}
+
 /// Encode mono samples (volts) as a WAV file in memory: `full_scale_v` maps to digital full scale (1.0).
 /// Values beyond full scale are clamped (both formats), so the file never holds more than +-1.0.
 pub fn encode(
@@ -257,6 +278,9 @@ pub fn encode(
             }
         }
         writer.finalize().map_err(hound_err)?;
+    }
+    if let Some(i) = mono_channel_mask_offset(&bytes) {
+        bytes[i..i + 4].copy_from_slice(&MONO_CHANNEL_MASK.to_le_bytes());
     }
     Ok(bytes)
 }
@@ -431,6 +455,28 @@ mod tests {
     use rand::{RngExt, SeedableRng};
     use rand_chacha::ChaCha8Rng;
     use std::f64::consts::PI;
+
+    #[test]
+    fn mono_files_carry_the_front_centre_channel_mask() {
+        // WAVE_FORMAT_EXTENSIBLE's dwChannelMask at byte 40 (RIFF 12 + chunk header 8 + 20 bytes into the fmt
+        // chunk); 0x4 = SPEAKER_FRONT_CENTER (Microsoft's WAVEFORMATEXTENSIBLE documentation; from memory).
+        for format in [WavFormat::Float32, WavFormat::Int24] {
+            let b = encode(&[0.0, 0.5, -0.5], 1.0, 48_000, format).unwrap();
+            assert_eq!(
+                &b[20..22],
+                &0xfffe_u16.to_le_bytes(),
+                "{format:?} is extensible"
+            );
+            assert_eq!(
+                u32::from_le_bytes([b[40], b[41], b[42], b[43]]),
+                0x4,
+                "{format:?}"
+            );
+            let (spec, x) = decode(&b);
+            assert_eq!(spec.channels, 1);
+            assert_eq!(x.len(), 3);
+        }
+    }
 
     /// Decode a WAV file with hound into (spec, samples in full-scale units).
     fn decode(bytes: &[u8]) -> (hound::WavSpec, Vec<f64>) {

@@ -23,6 +23,7 @@ use serde_json::{Value, json};
 
 use super::shard::{
     ROWS_FILE, ROWS_FORMAT, RowSet, Shard, StudyKind, fingerprint, interrupted_note, run_in_order,
+    study_producer,
 };
 use crate::engine::pipeline;
 use crate::engine::static_bench::{Static, static_tests};
@@ -221,6 +222,8 @@ pub struct McOptions {
     pub static_tests: bool,
     /// Show a progress bar on standard error when it is a terminal.
     pub progress: bool,
+    /// Write into a folder that holds another study (replacing it): `--force`.
+    pub force: bool,
 }
 
 impl McOptions {
@@ -235,6 +238,7 @@ impl McOptions {
             dynamic: true,
             static_tests: true,
             progress: false,
+            force: false,
         }
     }
 }
@@ -297,7 +301,7 @@ fn prepare<'a>(text: &'a ScenarioText, opts: &McOptions) -> Result<Prepared<'a>>
                 "law": match s.law { SpreadLaw::Gaussian => "gaussian", SpreadLaw::Uniform => "uniform" },
                 "amount": s.amount,
                 "relative": s.relative,
-                "nominal": s.nominal,
+                "nominal": crate::format::units::round_significant(s.nominal, crate::format::units::ECHO_DIGITS),
             })
         })
         .collect();
@@ -771,12 +775,16 @@ pub fn montecarlo_to_dir(
     dir: &Path,
     cancel: &AtomicBool,
 ) -> Result<Summary> {
-    prepare(text, opts)?;
-    OutputDir::check(dir)?;
+    let prepared = prepare(text, opts)?;
+    let producer = study_producer(KIND, &prepared.header, opts.shard, opts.force);
+    OutputDir::check(dir, &producer)?;
     let set = run_rows(text, opts, cancel)?;
-    let out = OutputDir::create(dir)?;
+    let out = OutputDir::create(dir, &producer)?;
     match write_outputs(&out, &set) {
-        Ok(s) => Ok(s),
+        Ok(s) => {
+            out.finish()?;
+            Ok(s)
+        }
         Err(e) => {
             out.abandon();
             Err(e)

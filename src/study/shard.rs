@@ -21,7 +21,7 @@ use serde::{Deserialize, Serialize};
 use serde_json::Value;
 
 use crate::error::{Error, Result};
-use crate::report::OutputDir;
+use crate::report::{OutputDir, Producer};
 
 /// File name of a study's rows in its folder.
 pub const ROWS_FILE: &str = "rows.json";
@@ -447,21 +447,64 @@ pub fn merge(sets: Vec<(PathBuf, RowSet)>, studies: &[StudyKind]) -> Result<RowS
 }
 
 /// Read the shard folders, merge them and write the study's outputs into `out` (a new or convchain-made
-/// folder) with the writer of the study's kind. Returns the merged rows.
-pub fn merge_dirs(dirs: &[PathBuf], out: &Path, studies: &[StudyKind]) -> Result<RowSet> {
+/// folder) with the writer of the study's kind. Returns the merged rows. `force`: replace another study the
+/// folder holds.
+pub fn merge_dirs(
+    dirs: &[PathBuf],
+    out: &Path,
+    studies: &[StudyKind],
+    force: bool,
+) -> Result<RowSet> {
     let mut sets = Vec::with_capacity(dirs.len());
     for d in dirs {
         sets.push((d.clone(), RowSet::read_dir(d)?));
     }
     let merged = merge(sets, studies)?;
-    OutputDir::check(out)?;
+    let producer = study_producer(&merged.kind, &merged.study, Shard::WHOLE, force);
+    OutputDir::check(out, &producer)?;
     let writer = study_of(&merged.kind, studies)?.write;
-    let o = OutputDir::create(out)?;
+    let o = OutputDir::create(out, &producer)?;
     if let Err(e) = writer(&o, &merged) {
         o.abandon();
         return Err(e);
     }
+    o.finish()?;
     Ok(merged)
+}
+
+/// Who writes a row-file study into a folder: its kind, and as its definition the study header of `rows.json`
+/// without the scenario's fingerprint (editing the scenario and running the same study again replaces it;
+/// other options, or another shard, make another study), with the shard.
+pub fn study_producer(kind: &str, study: &Value, shard: Shard, force: bool) -> Producer {
+    let mut definition = study.clone();
+    if let Some(m) = definition.as_object_mut() {
+        m.remove("scenario_hash");
+        m.insert("shard".into(), Value::String(shard.to_string()));
+    }
+    let name = study.get("scenario").and_then(Value::as_str).unwrap_or("?");
+    let mut describe = format!("a {kind} study of \"{}\"", crate::text::clip(name));
+    if let Some(vary) = study.get("vary").and_then(Value::as_array) {
+        let keys: Vec<&str> = vary
+            .iter()
+            .filter_map(|v| v.get("key").and_then(Value::as_str))
+            .collect();
+        let points = study.get("points").and_then(Value::as_u64).unwrap_or(0);
+        let each = if keys.len() > 1 { " each" } else { "" };
+        describe.push_str(&format!(
+            " varying {} ({points} points{each})",
+            keys.join(", ")
+        ));
+    } else if let Some(runs) = study.get("runs").and_then(Value::as_u64) {
+        describe.push_str(&format!(" ({runs} runs"));
+        if let Some(seed) = study.get("seed").and_then(Value::as_u64) {
+            describe.push_str(&format!(", base seed {seed}"));
+        }
+        describe.push(')');
+    }
+    if shard != Shard::WHOLE {
+        describe.push_str(&format!(", shard {shard}"));
+    }
+    Producer::study(kind, definition, describe, force)
 }
 
 /// FNV-1a, 64 bits, of some bytes, as `fnv1a64:<16 hex digits>`: a fingerprint of a scenario's text so that

@@ -616,7 +616,7 @@ fn aliasing(base: &Scenario, plan: &Plan) -> CriterionResult {
 mod output;
 mod search;
 
-pub use output::{table, write_limit};
+pub use output::{folder_producer, table, write_limit};
 use search::Search;
 
 #[cfg(test)]

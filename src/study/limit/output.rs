@@ -2,6 +2,8 @@
 
 use std::path::Path;
 
+use crate::report::Producer;
+
 use super::*;
 
 fn opt(v: Option<f64>, unit: &str) -> String {
@@ -152,9 +154,32 @@ fn fixed(v: Option<f64>, unit: &str) -> String {
     v.map_or("-".into(), |x| format!("{x:.2} {unit}"))
 }
 
-/// Write `limit.json` and the plot of the coarse sweep (`limit.png`, `limit.svg`) atomically into `dir`.
-pub fn write_limit(r: &LimitReport, dir: &Path) -> Result<()> {
-    let out = OutputDir::create(dir)?;
+/// Who writes the limit search of the scenario named `scenario` with `opts` into a folder: a study whose
+/// definition is the options as given (FROM and TO as given or defaulted, the criteria), known before the
+/// search runs so a folder holding another study is refused at once.
+pub fn folder_producer(scenario: &str, opts: &LimitOptions, force: bool) -> Producer {
+    let hz = |f: Option<f64>| f.map_or_else(|| "default".to_string(), |f| format_si(f, "Hz"));
+    let definition = serde_json::json!({
+        "scenario": scenario,
+        "from_hz": opts.from_hz,
+        "to_hz": opts.to_hz,
+        "enob_drop_bits": opts.enob_drop_bits,
+        "gain_drop_db": opts.gain_drop_db,
+        "fidelity_min_db": opts.fidelity_min_db,
+    });
+    let describe = format!(
+        "a limit search of \"{}\" (--from {}, --to {})",
+        crate::text::clip(scenario),
+        hz(opts.from_hz),
+        hz(opts.to_hz)
+    );
+    Producer::study("limit", definition, describe, force)
+}
+
+/// Write `limit.json` and the plot of the coarse sweep (`limit.png`, `limit.svg`) atomically into `dir` for
+/// `producer` ([`folder_producer`]).
+pub fn write_limit(r: &LimitReport, dir: &Path, producer: &Producer) -> Result<()> {
+    let out = OutputDir::create(dir, producer)?;
     let res = (|| -> Result<()> {
         let json = serde_json::to_vec_pretty(r).map_err(|e| Error::Run(e.to_string()))?;
         out.write("limit.json", &json)?;
@@ -170,6 +195,7 @@ pub fn write_limit(r: &LimitReport, dir: &Path) -> Result<()> {
         out.abandon();
         return Err(e);
     }
+    out.finish()?;
     Ok(())
 }
 

@@ -20,14 +20,15 @@ use serde_json::{Value, json};
 
 use super::shard::{
     ROWS_FILE, ROWS_FORMAT, RowSet, Shard, StudyKind, fingerprint, interrupted_note, run_in_order,
+    study_producer,
 };
 use crate::engine::pipeline;
 use crate::engine::plan::Plan;
 use crate::error::{Error, Result};
 use crate::format::units::{Dimension, parse_quantity};
 use crate::measure::chain::{ChainMetrics, measure_run};
-use crate::report::OutputDir;
 use crate::report::plot::{self, Plot, XyPlot};
+use crate::report::{OutputDir, Producer};
 use crate::scenario::Scenario;
 use crate::scenario::overrides::{ScenarioText, is_integer_key};
 
@@ -474,7 +475,7 @@ pub fn run_sweep_until(
 
 mod output;
 
-pub use output::{write_outputs, write_sweep};
+pub use output::{folder_producer, write_outputs, write_sweep};
 
 #[cfg(test)]
 mod tests {
@@ -785,7 +786,7 @@ mod tests {
         let r = run_sweep_until(&text, &spec, &opts, &cancel).unwrap();
         let d = tempfile::tempdir().unwrap();
         let dir = d.path().join("s");
-        write_sweep(&r, &dir).unwrap();
+        write_sweep(&r, &dir, false).unwrap();
         let csv = std::fs::read_to_string(dir.join("sweep.csv")).unwrap();
         assert_eq!(csv.lines().count(), 1);
         assert!(dir.join("sweep-enob.svg").exists());

@@ -22,15 +22,12 @@ impl SweepResult {
     /// The study header of `rows.json`: what must match for shards to merge (`runs` is the number of points
     /// of the whole grid; `vary` holds FROM and TO in the key's base unit).
     pub fn study_header(&self) -> Value {
-        json!({
-            "runs": self.total_points(),
-            "scenario": self.scenario,
-            "scenario_hash": self.scenario_hash,
-            "vary": self.spec.vary.iter().map(|v| json!({"key": v.key, "from": v.from, "to": v.to}))
-                .collect::<Vec<_>>(),
-            "points": self.spec.points,
-            "log": self.spec.log,
-        })
+        study_header(
+            &self.scenario,
+            &self.scenario_hash,
+            &self.spec,
+            self.total_points(),
+        )
     }
 
     /// The rows as a [`RowSet`] of kind [`KIND`]: `index`, then the cells of [`Self::columns`].
@@ -415,12 +412,45 @@ pub fn write_outputs(out: &OutputDir, set: &RowSet) -> Result<SweepResult> {
     Ok(result)
 }
 
-/// Write a sweep's files ([`write_outputs`] of its rows) atomically into `dir`.
-pub fn write_sweep(result: &SweepResult, dir: &Path) -> Result<()> {
-    let out = OutputDir::create(dir)?;
+/// The study header of a sweep's `rows.json` ([`SweepResult::study_header`]).
+fn study_header(scenario: &str, hash: &str, spec: &SweepSpec, total_points: u64) -> Value {
+    json!({
+        "runs": total_points,
+        "scenario": scenario,
+        "scenario_hash": hash,
+        "vary": spec.vary.iter().map(|v| json!({"key": v.key, "from": v.from, "to": v.to}))
+            .collect::<Vec<_>>(),
+        "points": spec.points,
+        "log": spec.log,
+    })
+}
+
+/// Who writes the sweep `spec` of the scenario named `scenario` (shard `shard`) into a folder, known before
+/// the sweep runs so a folder holding another study is refused at once: the same as the finished sweep's
+/// ([`write_sweep`]) and a merge of its shards'.
+pub fn folder_producer(
+    spec: &SweepSpec,
+    scenario: &str,
+    shard: Shard,
+    force: bool,
+) -> Result<Producer> {
+    let mut total = 1u64;
+    for v in &spec.vary {
+        total = total.saturating_mul(axis_values(v, spec.points, spec.log)?.len() as u64);
+    }
+    let header = study_header(scenario, "", spec, total);
+    Ok(study_producer(KIND, &header, shard, force))
+}
+
+/// Write a sweep's files ([`write_outputs`] of its rows) atomically into `dir`, removing the files an earlier
+/// run of the same sweep wrote there and this one did not. `force`: replace another study the folder holds.
+pub fn write_sweep(result: &SweepResult, dir: &Path, force: bool) -> Result<()> {
+    let producer = study_producer(KIND, &result.study_header(), result.shard, force);
+    let out = OutputDir::create(dir, &producer)?;
     if let Err(e) = write_outputs(&out, &result.to_rows()) {
         out.abandon();
         return Err(e);
     }
+    out.finish()?;
     Ok(())
 }
