@@ -10,7 +10,9 @@ use crate::measure::chain::measure_run;
 use crate::report::OutputDir;
 use crate::report::csv::CsvSink;
 use crate::report::json::{ListeningInfo, Report};
-use crate::report::wav::{WavFormat, WavOptions, listening_set};
+use crate::report::wav::{
+    LISTEN_FADE_S, LISTEN_MIN_S, ListeningRecords, WavFormat, WavOptions, listening_files,
+};
 use crate::report::{document, figures};
 use crate::scenario::Scenario;
 use crate::stages::kind::Upstream;
@@ -124,15 +126,23 @@ fn run_inner(sc: &Scenario, out: &OutputDir, opts: &RunOptions) -> Result<Report
         } else {
             (report.latency.measured_s, nominal, 0.0)
         };
-        match listening_set(
-            &run.source_record.volts,
-            &run.output_record.volts,
-            run.plan.out_rate_hz,
-            delay,
+        let records = ListeningRecords {
+            input_v: &run.source_record.volts,
+            output_v: &run.output_record.volts,
+            rate_hz: run.plan.out_rate_hz,
+            delay_s: delay,
             gain,
-            offset,
-            w,
-        ) {
+            offset_v: offset,
+            periodic: records_hold_whole_periods(
+                &run.scenario,
+                run.plan.out_rate_hz,
+                run.output_record.volts.len(),
+            ),
+            full_scale_floor_v: converter_full_scale_v(&run.scenario),
+            min_seconds: LISTEN_MIN_S,
+            fade_s: LISTEN_FADE_S,
+        };
+        match listening_files(&records, w) {
             Ok(set) => {
                 report.listening = Some(ListeningInfo {
                     rate_hz: set.rate_hz,
@@ -144,6 +154,10 @@ fn run_inner(sc: &Scenario, out: &OutputDir, opts: &RunOptions) -> Result<Report
                     full_scale_v: set.full_scale_v,
                     error_gain_used: set.error_gain_used,
                     error_rms_v: set.error_rms_v,
+                    seconds: set.length as f64 / f64::from(set.rate_hz),
+                    record_s: set.record_s,
+                    looped: set.looped.as_str().into(),
+                    fade_s: LISTEN_FADE_S,
                 });
                 wav_files = Some(set);
             }
@@ -186,6 +200,44 @@ pub fn nominal_gain(sc: &Scenario) -> f64 {
         st.kind.pass_on(&mut up);
     }
     g
+}
+
+/// True when a record of `len` samples at `rate_hz` holds a whole number of periods of the (sine) source, as
+/// a coherent record does: the listening files can then loop it without a seam.
+fn records_hold_whole_periods(sc: &Scenario, rate_hz: f64, len: usize) -> bool {
+    let crate::scenario::Waveform::Sine { frequency_hz, .. } = sc.source.waveform else {
+        return false;
+    };
+    let cycles = frequency_hz * len as f64 / rate_hz;
+    cycles >= 1.0 && (cycles - cycles.round()).abs() < 1e-6 * cycles
+}
+
+/// The converter's full scale (half its input range) carried to the larger of the chain's two ends, the
+/// input (divided by the gain before the converter) and the output (times the gain after it); 0 without a
+/// converter. Two runs of one chain then map volts to the listening files alike, whatever noise or
+/// distortion each adds (see [`crate::report::wav::listening_files`]).
+pub fn converter_full_scale_v(sc: &Scenario) -> f64 {
+    let mut up = Upstream::default();
+    let mut before = 1.0;
+    let mut after = 1.0;
+    let mut half_span_v = None;
+    for st in &sc.stages {
+        let g = st.kind.passband_gain(&up);
+        if let crate::scenario::StageKind::SarAdc(a) = &st.kind {
+            half_span_v = Some(0.5 * (a.range_v.1 - a.range_v.0).abs());
+        } else if half_span_v.is_none() {
+            before *= g;
+        } else {
+            after *= g;
+        }
+        st.kind.pass_on(&mut up);
+    }
+    match half_span_v {
+        Some(h) if before != 0.0 && before.is_finite() && after.is_finite() => {
+            (h / before.abs()).max(h * after.abs())
+        }
+        _ => 0.0,
+    }
 }
 
 /// Run the static tests and write `static.json`.

@@ -31,6 +31,15 @@ pub struct ListeningInfo {
     /// Gain applied to error.wav (the asked gain, lowered if it would clip).
     pub error_gain_used: f64,
     pub error_rms_v: f64,
+    /// Length of each file (s).
+    pub seconds: f64,
+    /// Length of the records' span the files were made from (s).
+    pub record_s: f64,
+    /// How the files were made longer than the records: "no", "seamless" (a coherent record read as one
+    /// period of an endless signal) or "crossfaded" (repeated with a short crossfade at each join).
+    pub looped: String,
+    /// Raised-cosine fade at both ends of each file (s).
+    pub fade_s: f64,
 }
 
 /// Where the run came from.
@@ -142,6 +151,10 @@ pub fn chain_json(sc: &Scenario) -> Value {
             json!({"waveform": "step", "at_s": at_s, "amplitude_v": amplitude_v})
         }
         Waveform::Dc => json!({"waveform": "dc"}),
+        Waveform::Chord {
+            amplitude_v,
+            beat_s,
+        } => json!({"waveform": "chord", "amplitude_v": amplitude_v, "beat_s": beat_s}),
         Waveform::Noise {
             rms_v,
             bandwidth_hz,
