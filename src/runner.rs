@@ -111,6 +111,10 @@ fn run_inner(sc: &Scenario, out: &OutputDir, opts: &RunOptions) -> Result<Report
     };
     let alignment = metrics.detail.alignment;
     let mut report = Report::new(&run.scenario, &run.plan, metrics);
+    if let Some(slip) = latency_slip(&run.scenario, &report) {
+        report.scenario.warnings.push(slip.text());
+        report.warnings.push(slip);
+    }
     let mut wav_files = None;
     if let Some(w) = &opts.wav {
         phase("making the listening files");
@@ -188,6 +192,79 @@ fn run_inner(sc: &Scenario, out: &OutputDir, opts: &RunOptions) -> Result<Report
         b.finish_and_clear();
     }
     Ok(report)
+}
+
+/// A measured latency differs from its budget by more than this fraction of the budget...
+const LATENCY_FAR_FRACTION: f64 = 0.25;
+/// ... and by more than this many conversion periods (grid steps without a converter).
+const LATENCY_FAR_PERIODS: f64 = 0.5;
+
+/// A located warning when the measured latency is far from the budget (more than a quarter of it and half a
+/// conversion period): the budget adds what each stage states about its own delay, so a stage delays the
+/// signal more (or less) than it states, as a slew-limited amplifier does, or a slip makes the signal
+/// something else. The warning points at the slowest `slew_rate` written, else at the first stage.
+pub fn latency_slip(sc: &Scenario, report: &Report) -> Option<crate::scenario::Slip> {
+    let l = &report.latency;
+    let period_s = match &report.adc {
+        Some(a) => 1.0 / a.metrics.sample_rate_hz,
+        None => 1.0 / sc.simulation.analog_rate_hz,
+    };
+    let far = l.difference_s.is_finite()
+        && l.difference_s.abs() > LATENCY_FAR_FRACTION * l.budget_s.abs()
+        && l.difference_s.abs() > LATENCY_FAR_PERIODS * period_s;
+    if !far {
+        return None;
+    }
+    // The slowest slew rate written, if any: an amplifier that slews delays the signal beyond its budget.
+    let slowest = sc
+        .stages
+        .iter()
+        .enumerate()
+        .filter_map(|(i, st)| {
+            let out = match &st.kind {
+                crate::scenario::StageKind::Amplifier(a) => &a.output,
+                crate::scenario::StageKind::Dac(d) => &d.output,
+                _ => return None,
+            };
+            out.slew_rate_v_per_s.map(|sr| (i + 1, sr))
+        })
+        .min_by(|a, b| a.1.total_cmp(&b.1));
+    let si = |v: f64| crate::format::units::format_si(v, "s");
+    let (key, suggestion) = match slowest {
+        Some((n, sr)) => (
+            format!("stage.{n}.slew_rate"),
+            format!(
+                "check this slew rate ({}) first: a stage that slews delays the signal by more than its \
+                 budget states; then each stage's bandwidth, cutoff and rails",
+                crate::format::units::format_si(sr, "V/s")
+            ),
+        ),
+        None => (
+            "stage.1".to_string(),
+            "check the stages' bandwidths, cutoffs and rails: one of them delays or reshapes the signal more \
+             than its budget states"
+                .to_string(),
+        ),
+    };
+    let location = crate::scenario::Slip::location_of(sc, &key);
+    Some(crate::scenario::Slip {
+        location,
+        key,
+        message: format!(
+            "the measured latency ({}) is {} {} its budget ({}, the sum of each stage's stated delay): more \
+             than a quarter of the budget and half a conversion period, so the chain does something its \
+             stages' delays do not describe",
+            si(l.measured_s),
+            si(l.difference_s.abs()),
+            if l.difference_s > 0.0 {
+                "over"
+            } else {
+                "under"
+            },
+            si(l.budget_s)
+        ),
+        suggestion,
+    })
 }
 
 /// The chain's nominal passband gain: each stage's passband gain in turn (amplifier gains, the DAC's span over

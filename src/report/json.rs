@@ -5,7 +5,7 @@ use serde_json::{Value, json};
 
 use crate::engine::plan::Plan;
 use crate::measure::chain::{AdcMetrics, ChainMetrics, LatencyMetrics, OutputMetrics};
-use crate::scenario::{ChirpLaw, Scenario, Waveform, WindowKind};
+use crate::scenario::{ChirpLaw, Scenario, Slip, Waveform, WindowKind};
 
 /// The whole report of a run. Field names are part of the interface: later tools rely on them.
 #[derive(Debug, Clone, Serialize)]
@@ -18,6 +18,9 @@ pub struct Report {
     pub run: RunInfo,
     /// The listening files, when written.
     pub listening: Option<ListeningInfo>,
+    /// Values that are legal but almost surely slips, found in the scenario or after the run (a measured
+    /// latency far from its budget): `{location, key, message, suggestion}`.
+    pub warnings: Vec<Slip>,
 }
 
 /// What the WAV files hold.
@@ -99,6 +102,7 @@ impl Report {
                 capture_length: plan.capture_len,
             },
             listening: None,
+            warnings: sc.slips.clone(),
         }
     }
 }
