@@ -9,7 +9,9 @@ use crate::error::{Error, Result};
 use crate::measure::chain::measure_run;
 use crate::report::csv::CsvSink;
 use crate::report::json::{ListeningInfo, Report};
-use crate::report::wav::{WavFormat, WavOptions, listening_set};
+use crate::report::wav::{
+    LISTEN_FADE_S, LISTEN_MIN_S, ListeningRecords, WavFormat, WavOptions, listening_files,
+};
 use crate::report::{OutputDir, Producer};
 use crate::report::{document, figures};
 use crate::scenario::Scenario;
@@ -117,6 +119,10 @@ fn run_inner(sc: &Scenario, out: &OutputDir, opts: &RunOptions) -> Result<Report
     };
     let alignment = metrics.detail.alignment;
     let mut report = Report::new(&run.scenario, &run.plan, metrics);
+    if let Some(slip) = latency_slip(&run.scenario, &report) {
+        report.scenario.warnings.push(slip.text());
+        report.warnings.push(slip);
+    }
     let mut wav_files = None;
     if let Some(w) = &opts.wav {
         phase("making the listening files");
@@ -132,15 +138,23 @@ fn run_inner(sc: &Scenario, out: &OutputDir, opts: &RunOptions) -> Result<Report
         } else {
             (report.latency.measured_s, nominal, 0.0)
         };
-        match listening_set(
-            &run.source_record.volts,
-            &run.output_record.volts,
-            run.plan.out_rate_hz,
-            delay,
+        let records = ListeningRecords {
+            input_v: &run.source_record.volts,
+            output_v: &run.output_record.volts,
+            rate_hz: run.plan.out_rate_hz,
+            delay_s: delay,
             gain,
-            offset,
-            w,
-        ) {
+            offset_v: offset,
+            periodic: records_hold_whole_periods(
+                &run.scenario,
+                run.plan.out_rate_hz,
+                run.output_record.volts.len(),
+            ),
+            full_scale_floor_v: converter_full_scale_v(&run.scenario),
+            min_seconds: LISTEN_MIN_S,
+            fade_s: LISTEN_FADE_S,
+        };
+        match listening_files(&records, w) {
             Ok(set) => {
                 report.listening = Some(ListeningInfo {
                     rate_hz: set.rate_hz,
@@ -152,6 +166,10 @@ fn run_inner(sc: &Scenario, out: &OutputDir, opts: &RunOptions) -> Result<Report
                     full_scale_v: set.full_scale_v,
                     error_gain_used: set.error_gain_used,
                     error_rms_v: set.error_rms_v,
+                    seconds: set.length as f64 / f64::from(set.rate_hz),
+                    record_s: set.record_s,
+                    looped: set.looped.as_str().into(),
+                    fade_s: LISTEN_FADE_S,
                 });
                 wav_files = Some(set);
             }
@@ -184,6 +202,79 @@ fn run_inner(sc: &Scenario, out: &OutputDir, opts: &RunOptions) -> Result<Report
     Ok(report)
 }
 
+/// A measured latency differs from its budget by more than this fraction of the budget...
+const LATENCY_FAR_FRACTION: f64 = 0.25;
+/// ... and by more than this many conversion periods (grid steps without a converter).
+const LATENCY_FAR_PERIODS: f64 = 0.5;
+
+/// A located warning when the measured latency is far from the budget (more than a quarter of it and half a
+/// conversion period): the budget adds what each stage states about its own delay, so a stage delays the
+/// signal more (or less) than it states, as a slew-limited amplifier does, or a slip makes the signal
+/// something else. The warning points at the slowest `slew_rate` written, else at the first stage.
+pub fn latency_slip(sc: &Scenario, report: &Report) -> Option<crate::scenario::Slip> {
+    let l = &report.latency;
+    let period_s = match &report.adc {
+        Some(a) => 1.0 / a.metrics.sample_rate_hz,
+        None => 1.0 / sc.simulation.analog_rate_hz,
+    };
+    let far = l.difference_s.is_finite()
+        && l.difference_s.abs() > LATENCY_FAR_FRACTION * l.budget_s.abs()
+        && l.difference_s.abs() > LATENCY_FAR_PERIODS * period_s;
+    if !far {
+        return None;
+    }
+    // The slowest slew rate written, if any: an amplifier that slews delays the signal beyond its budget.
+    let slowest = sc
+        .stages
+        .iter()
+        .enumerate()
+        .filter_map(|(i, st)| {
+            let out = match &st.kind {
+                crate::scenario::StageKind::Amplifier(a) => &a.output,
+                crate::scenario::StageKind::Dac(d) => &d.output,
+                _ => return None,
+            };
+            out.slew_rate_v_per_s.map(|sr| (i + 1, sr))
+        })
+        .min_by(|a, b| a.1.total_cmp(&b.1));
+    let si = |v: f64| crate::format::units::format_si(v, "s");
+    let (key, suggestion) = match slowest {
+        Some((n, sr)) => (
+            format!("stage.{n}.slew_rate"),
+            format!(
+                "check this slew rate ({}) first: a stage that slews delays the signal by more than its \
+                 budget states; then each stage's bandwidth, cutoff and rails",
+                crate::format::units::format_si(sr, "V/s")
+            ),
+        ),
+        None => (
+            "stage.1".to_string(),
+            "check the stages' bandwidths, cutoffs and rails: one of them delays or reshapes the signal more \
+             than its budget states"
+                .to_string(),
+        ),
+    };
+    let location = crate::scenario::Slip::location_of(sc, &key);
+    Some(crate::scenario::Slip {
+        location,
+        key,
+        message: format!(
+            "the measured latency ({}) is {} {} its budget ({}, the sum of each stage's stated delay): more \
+             than a quarter of the budget and half a conversion period, so the chain does something its \
+             stages' delays do not describe",
+            si(l.measured_s),
+            si(l.difference_s.abs()),
+            if l.difference_s > 0.0 {
+                "over"
+            } else {
+                "under"
+            },
+            si(l.budget_s)
+        ),
+        suggestion,
+    })
+}
+
 /// The chain's nominal passband gain: each stage's passband gain in turn (amplifier gains, the DAC's span over
 /// the ADC's; filters pass their passband unchanged).
 pub fn nominal_gain(sc: &Scenario) -> f64 {
@@ -194,6 +285,44 @@ pub fn nominal_gain(sc: &Scenario) -> f64 {
         st.kind.pass_on(&mut up);
     }
     g
+}
+
+/// True when a record of `len` samples at `rate_hz` holds a whole number of periods of the (sine) source, as
+/// a coherent record does: the listening files can then loop it without a seam.
+fn records_hold_whole_periods(sc: &Scenario, rate_hz: f64, len: usize) -> bool {
+    let crate::scenario::Waveform::Sine { frequency_hz, .. } = sc.source.waveform else {
+        return false;
+    };
+    let cycles = frequency_hz * len as f64 / rate_hz;
+    cycles >= 1.0 && (cycles - cycles.round()).abs() < 1e-6 * cycles
+}
+
+/// The converter's full scale (half its input range) carried to the larger of the chain's two ends, the
+/// input (divided by the gain before the converter) and the output (times the gain after it); 0 without a
+/// converter. Two runs of one chain then map volts to the listening files alike, whatever noise or
+/// distortion each adds (see [`crate::report::wav::listening_files`]).
+pub fn converter_full_scale_v(sc: &Scenario) -> f64 {
+    let mut up = Upstream::default();
+    let mut before = 1.0;
+    let mut after = 1.0;
+    let mut half_span_v = None;
+    for st in &sc.stages {
+        let g = st.kind.passband_gain(&up);
+        if let Some(a) = st.kind.quantizer_timing() {
+            half_span_v = Some(0.5 * (a.range_v.1 - a.range_v.0).abs());
+        } else if half_span_v.is_none() {
+            before *= g;
+        } else {
+            after *= g;
+        }
+        st.kind.pass_on(&mut up);
+    }
+    match half_span_v {
+        Some(h) if before != 0.0 && before.is_finite() && after.is_finite() => {
+            (h / before.abs()).max(h * after.abs())
+        }
+        _ => 0.0,
+    }
 }
 
 /// Run the static tests and write `static.json` and the static plots into `dir`; `force` lets them replace a

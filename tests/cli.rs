@@ -438,4 +438,81 @@ kind = "dac"
     let o = run_in(d.path(), &["static", "ideal.toml", "--out", "ideal"]);
     ok(&o);
     assert!(!stdout(&o).contains("why codes are missing"));
+
+/// A 12-bit chain at 48 kSPS on a 4.8 MHz grid whose DAC output slews at `slew`.
+fn slewing_chain(slew: &str) -> String {
+    format!(
+        "name = \"slip\"\n[simulation]\nanalog_rate = \"4.8 MHz\"\nduration = \"60 ms\"\nsettle = \"10 ms\"\n\
+         [source]\nwaveform = \"sine\"\nfrequency = \"1 kHz\"\namplitude = \"2 V\"\n\
+         [[stage]]\nkind = \"sar_adc\"\nbits = 12\nrange = [\"-2.5 V\", \"2.5 V\"]\n\
+         conversion_time = \"10 us\"\nsample_rate = \"48 kHz\"\n\
+         [[stage]]\nkind = \"dac\"\nslew_rate = \"{slew}\"\n"
+    )
+}
+
+#[test]
+fn a_slew_rate_slip_is_warned_by_check_and_run_and_listed_in_report_json_with_its_latency() {
+    let d = tempfile::tempdir().unwrap();
+    let text = slewing_chain("0.5 V/s");
+    let line = text
+        .lines()
+        .position(|l| l.starts_with("slew_rate"))
+        .unwrap()
+        + 1;
+    fs::write(d.path().join("s.toml"), &text).unwrap();
+    let o = run_in(d.path(), &["check", "s.toml"]);
+    ok(&o);
+    let err = stderr(&o);
+    let want = format!("warning: s.toml:{line}:13: stage.2.slew_rate: a slew rate of 500 mV/s");
+    assert!(err.contains(&want), "{err}");
+    assert!(err.contains("probably slew_rate = \"0.5 V/us\""), "{err}");
+    assert!(String::from_utf8_lossy(&o.stdout).contains("ok"));
+
+    let o = run_in(
+        d.path(),
+        &["run", "s.toml", "--out", "o", "--no-plots", "--no-wav"],
+    );
+    ok(&o);
+    assert!(stderr(&o).contains(&want), "{}", stderr(&o));
+    let r = json(&d.path().join("o/report.json"));
+    let w = r["warnings"].as_array().unwrap();
+    assert_eq!(w.len(), 2, "{w:?}");
+    assert_eq!(w[0]["key"], "stage.2.slew_rate");
+    assert_eq!(w[0]["location"], format!("s.toml:{line}:13"));
+    // After the run: the latency is nowhere near the budget (the output barely moves), pointed at the same key.
+    assert_eq!(w[1]["key"], "stage.2.slew_rate");
+    assert!(
+        w[1]["message"]
+            .as_str()
+            .unwrap()
+            .contains("the measured latency"),
+        "{w:?}"
+    );
+    assert!(r["latency"]["flagged"].as_bool().unwrap());
+
+    // The value meant: no warning before or after the run.
+    fs::write(d.path().join("t.toml"), slewing_chain("0.5 V/us")).unwrap();
+    let o = run_in(
+        d.path(),
+        &["run", "t.toml", "--out", "p", "--no-plots", "--no-wav"],
+    );
+    ok(&o);
+    assert!(!stderr(&o).contains("warning"), "{}", stderr(&o));
+    let r = json(&d.path().join("p/report.json"));
+    assert_eq!(r["warnings"].as_array().unwrap().len(), 0);
+}
+
+#[test]
+fn a_grid_too_coarse_for_the_converter_is_warned_by_check_at_the_analog_rate() {
+    let d = tempfile::tempdir().unwrap();
+    let text = slewing_chain("13 V/us").replace("4.8 MHz", "150 kHz");
+    fs::write(d.path().join("s.toml"), &text).unwrap();
+    let o = run_in(d.path(), &["check", "s.toml"]);
+    ok(&o);
+    let err = stderr(&o);
+    assert!(
+        err.contains("warning: s.toml:3:15: simulation.analog_rate: the analog grid (150 kHz) has 3.125 steps"),
+        "{err}"
+    );
+    assert!(err.contains("probably analog_rate = \"192 kHz\""), "{err}");
 }

@@ -291,6 +291,9 @@ pub fn source_kind(w: &Waveform) -> Option<String> {
             "noise source, {} rms: the chain's response to noise, not tone metrics",
             si(*rms_v, "V")
         )),
+        Waveform::Chord { .. } => {
+            Some("built-in chord source: the spectrum of the music, not tone metrics".into())
+        }
         Waveform::Wav { path, .. } => Some(format!(
             "WAV source {}: the spectrum of the recording, not tone metrics",
             path.file_name()

@@ -6,7 +6,7 @@ use serde_json::{Value, json};
 use crate::engine::pipeline::si;
 use crate::engine::plan::{Plan, TonePlacement};
 use crate::measure::chain::{AdcMetrics, ChainMetrics, LatencyMetrics, OutputMetrics};
-use crate::scenario::{ChirpLaw, Scenario, Waveform};
+use crate::scenario::{ChirpLaw, Scenario, Slip, Waveform};
 
 /// The whole report of a run. Field names are part of the interface: later tools rely on them.
 #[derive(Debug, Clone, Serialize)]
@@ -19,6 +19,9 @@ pub struct Report {
     pub run: RunInfo,
     /// The listening files, when written.
     pub listening: Option<ListeningInfo>,
+    /// Values that are legal but almost surely slips, found in the scenario or after the run (a measured
+    /// latency far from its budget): `{location, key, message, suggestion}`.
+    pub warnings: Vec<Slip>,
 }
 
 /// What the WAV files hold.
@@ -32,6 +35,15 @@ pub struct ListeningInfo {
     /// Gain applied to error.wav (the asked gain, lowered if it would clip).
     pub error_gain_used: f64,
     pub error_rms_v: f64,
+    /// Length of each file (s).
+    pub seconds: f64,
+    /// Length of the records' span the files were made from (s).
+    pub record_s: f64,
+    /// How the files were made longer than the records: "no", "seamless" (a coherent record read as one
+    /// period of an endless signal) or "crossfaded" (repeated with a short crossfade at each join).
+    pub looped: String,
+    /// Raised-cosine fade at both ends of each file (s).
+    pub fade_s: f64,
 }
 
 /// Where the run came from.
@@ -121,6 +133,7 @@ impl Report {
                 capture_length: plan.capture_len,
             },
             listening: None,
+            warnings: sc.slips.clone(),
         }
     }
 }
@@ -261,6 +274,10 @@ pub fn chain_json(sc: &Scenario) -> Value {
             json!({"waveform": "step", "at_s": at_s, "amplitude_v": amplitude_v})
         }
         Waveform::Dc => json!({"waveform": "dc"}),
+        Waveform::Chord {
+            amplitude_v,
+            beat_s,
+        } => json!({"waveform": "chord", "amplitude_v": amplitude_v, "beat_s": beat_s}),
         Waveform::Noise {
             rms_v,
             bandwidth_hz,

@@ -144,6 +144,45 @@ impl Kernel {
         acc * self.rho
     }
 
+    /// The band-limited value at `u` of the periodic signal whose one period is `x` (sample k + j x.len()
+    /// is sample k): the same kernel, with the record's indices taken modulo its length.
+    fn eval_circular(&self, x: &[f64], u: f64) -> f64 {
+        if x.is_empty() {
+            return 0.0;
+        }
+        let n = x.len() as i64;
+        let first = (u - self.half_length_in_samples).ceil() as i64;
+        let last = (u + self.half_length_in_samples).floor() as i64;
+        let scale = self.rho * TABLE_POINTS_PER_ZERO;
+        let mut acc = 0.0;
+        for k in first..=last {
+            let pos = (u - k as f64).abs() * scale;
+            let i = pos as usize;
+            if i + 1 >= self.table.len() {
+                continue;
+            }
+            let frac = pos - i as f64;
+            let a = self.table[i];
+            let b = self.table[i + 1];
+            acc += x[k.rem_euclid(n) as usize] * (a + frac * (b - a));
+        }
+        acc * self.rho
+    }
+
+    /// As [`Kernel::eval_grid`] for the periodic signal of [`Kernel::eval_circular`].
+    fn eval_grid_circular(&self, x: &[f64], u0: f64, step: f64, y: &mut [f64]) {
+        const CHUNK: usize = 1024;
+        let period = x.len() as f64;
+        y.par_chunks_mut(CHUNK).enumerate().for_each(|(c, chunk)| {
+            for (j, out) in chunk.iter_mut().enumerate() {
+                let m = c * CHUNK + j;
+                // Reduce the position to one period first, so a long file keeps the precision of a short one.
+                let u = (u0 + m as f64 * step).rem_euclid(period);
+                *out = self.eval_circular(x, u);
+            }
+        });
+    }
+
     /// y[m] = band-limited x at input position u0 + m * step, for m in 0..y.len(), spread over threads.
     fn eval_grid(&self, x: &[f64], u0: f64, step: f64, y: &mut [f64]) {
         const CHUNK: usize = 1024;
@@ -298,12 +337,75 @@ pub struct ListeningSet {
     pub full_scale_v: f64,
     /// Linear gain actually applied to the error file: the requested `listen_gain`, or lower if that would clip.
     pub error_gain_used: f64,
-    /// Rms of the error (volts, mean removed, band-limited to the file's band, before the listening gain).
+    /// Rms of the error (volts, mean removed, band-limited to the file's band, before the listening gain),
+    /// over the records once (not over repeats, not faded).
     pub error_rms_v: f64,
     /// Number of samples in each file.
     pub length: usize,
     /// Sample rate of the files (Hz).
     pub rate_hz: u32,
+    /// How the files were made longer than the records: [`Looped::No`] when the records were long enough.
+    pub looped: Looped,
+    /// Length of the records' span the files were made from (s), before any loop.
+    pub record_s: f64,
+}
+
+/// How a listening file was extended to [`ListeningRecords::min_seconds`].
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Looped {
+    /// Not extended: the records were long enough.
+    No,
+    /// The records hold whole periods of a periodic signal (a coherent record), so the band-limited
+    /// resampler read them as one period of an endless signal: the loop has no seam at all.
+    Seamless,
+    /// The span was repeated with a raised-cosine crossfade of [`LOOP_CROSSFADE_S`] at each join.
+    Crossfaded,
+}
+
+impl Looped {
+    /// The word report.json uses.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Looped::No => "no",
+            Looped::Seamless => "seamless",
+            Looped::Crossfaded => "crossfaded",
+        }
+    }
+}
+
+/// Shortest listening file the runs write (s): a 46 ms record played once is a click, not something to listen
+/// to.
+pub const LISTEN_MIN_S: f64 = 2.0;
+/// Raised-cosine fade in at the start and out at the end of every listening file (s): the files start and stop
+/// without a click (common practice, no source).
+pub const LISTEN_FADE_S: f64 = 0.02;
+/// Crossfade at each join when a span that is not periodic is repeated (s).
+pub const LOOP_CROSSFADE_S: f64 = 0.01;
+
+/// The records a run hands to [`listening_files`], and how to read them.
+#[derive(Debug, Clone)]
+pub struct ListeningRecords<'a> {
+    /// The source (volts) on the analysis grid.
+    pub input_v: &'a [f64],
+    /// The chain's output (volts) on the same grid, sample 0 at the same instant.
+    pub output_v: &'a [f64],
+    /// Rate of the grid (Hz).
+    pub rate_hz: f64,
+    /// The chain as output(t) ~= gain x input(t - delay_s) + offset_v.
+    pub delay_s: f64,
+    pub gain: f64,
+    pub offset_v: f64,
+    /// Both records hold a whole number of periods of the signal (a coherent record): they are read as one
+    /// period of an endless signal, so the files loop without a seam and lose no edge to the resampler.
+    pub periodic: bool,
+    /// The smallest volts-to-full-scale mapping the files may use (0 for none): a chain with a converter gives
+    /// its full scale here, so two runs of the same chain map volts to the files alike whatever their signals
+    /// add (see [`listening_files`]).
+    pub full_scale_floor_v: f64,
+    /// The files last at least this long (s): the records are looped when they are shorter.
+    pub min_seconds: f64,
+    /// Raised-cosine fade at both ends of every file (s).
+    pub fade_s: f64,
 }
 
 /// Build input.wav, output.wav and error.wav.
@@ -326,6 +428,8 @@ pub struct ListeningSet {
 /// 2.5, 3, 4, 5, 6 or 8 times a power of ten). The error file uses the same mapping times
 /// `opts.listen_gain`, but that gain is lowered so the error's peak stays at 1/1.05 of full scale: no file
 /// ever clips. The gain used is reported.
+///
+/// This is the records' span as it is, neither looped nor faded; a run writes [`listening_files`].
 pub fn listening_set(
     input_v: &[f64],
     output_v: &[f64],
@@ -335,13 +439,53 @@ pub fn listening_set(
     offset_v: f64,
     opts: &WavOptions,
 ) -> Result<ListeningSet, Error> {
+    listening_files(
+        &ListeningRecords {
+            input_v,
+            output_v,
+            rate_hz: rate_hz_in,
+            delay_s,
+            gain,
+            offset_v,
+            periodic: false,
+            full_scale_floor_v: 0.0,
+            min_seconds: 0.0,
+            fade_s: 0.0,
+        },
+        opts,
+    )
+}
+
+/// The listening files a run writes: as [`listening_set`], then
+/// - made at least `rec.min_seconds` long: periodic records are read as one period of an endless signal (no
+///   seam; the whole record is used, no edge is trimmed); other spans are repeated with a raised-cosine
+///   crossfade of [`LOOP_CROSSFADE_S`] at each join;
+/// - faded in and out over `rec.fade_s` (raised cosine);
+/// - mapped with `full_scale_v` at least `tidy(1.05 x rec.full_scale_floor_v)`, so two runs of one chain
+///   share a mapping even when one adds more noise than the other (whose peaks would otherwise round to
+///   different tidy values). The signals' own peak still raises it when they exceed the floor: no file clips.
+///
+/// `error_rms_v` is that of the records once, before any loop or fade.
+pub fn listening_files(
+    rec: &ListeningRecords<'_>,
+    opts: &WavOptions,
+) -> Result<ListeningSet, Error> {
+    let (input_v, output_v, rate_hz_in) = (rec.input_v, rec.output_v, rec.rate_hz);
+    let (delay_s, gain, offset_v) = (rec.delay_s, rec.gain, rec.offset_v);
     check_rate("the records' sample rate", rate_hz_in)?;
     if opts.rate_hz == 0 {
         return Err(Error::BadInput(
             "the listening files' sample rate must be above 0 Hz".into(),
         ));
     }
-    for (name, v) in [("delay", delay_s), ("gain", gain), ("offset", offset_v)] {
+    for (name, v) in [
+        ("delay", delay_s),
+        ("gain", gain),
+        ("offset", offset_v),
+        ("full-scale floor", rec.full_scale_floor_v),
+        ("minimum length", rec.min_seconds),
+        ("fade", rec.fade_s),
+    ] {
         if !v.is_finite() {
             return Err(Error::BadInput(format!(
                 "listening files: {name} must be a finite number, got {v}"
@@ -361,49 +505,94 @@ pub fn listening_set(
     }
     let rate_out = f64::from(opts.rate_hz);
     let kernel = Kernel::new(rate_hz_in, rate_out);
-    let margin = kernel.half_length_in_samples.ceil();
-    let delay_in_samples = delay_s * rate_hz_in;
-    // Positions in input samples along the output record's time axis.
-    let start = 0.0f64.max(delay_in_samples) + margin;
-    let end =
-        (output_v.len() as f64 - 1.0).min(delay_in_samples + input_v.len() as f64 - 1.0) - margin;
-    if input_v.is_empty() || output_v.is_empty() || end < start {
-        let need_s = (2.0 * margin + 1.0) / rate_hz_in + delay_s.abs();
-        return Err(Error::BadInput(format!(
-            "records too short for listening files: the input ({} samples) and output ({} samples) overlap \
-             for less than {need_s:.6} s once the {delay_s} s delay and the resampler's edges are allowed for",
-            input_v.len(),
-            output_v.len()
-        )));
-    }
     let step = rate_hz_in / rate_out;
-    let length = ((end - start) / step + 1e-9).floor() as usize + 1;
+    let delay_in_samples = delay_s * rate_hz_in;
+    let min_len = (rec.min_seconds.max(0.0) * rate_out).ceil() as usize;
+    let periodic = rec.periodic && !input_v.is_empty() && input_v.len() == output_v.len();
 
-    let mut out_r = vec![0.0; length];
-    kernel.eval_grid(output_v, start, step, &mut out_r);
-    let mut in_r = vec![0.0; length];
-    kernel.eval_grid(input_v, start - delay_in_samples, step, &mut in_r);
+    let (mut in_r, mut out_r, record_len) = if periodic {
+        // One period of the record in output samples; the files hold at least that and at least min_len.
+        let period_len = (output_v.len() as f64 / step).floor() as usize;
+        let length = period_len.max(min_len).max(1);
+        let mut out_r = vec![0.0; length];
+        kernel.eval_grid_circular(output_v, 0.0, step, &mut out_r);
+        let mut in_r = vec![0.0; length];
+        kernel.eval_grid_circular(input_v, -delay_in_samples, step, &mut in_r);
+        (in_r, out_r, period_len.clamp(1, length))
+    } else {
+        let margin = kernel.half_length_in_samples.ceil();
+        // Positions in input samples along the output record's time axis.
+        let start = 0.0f64.max(delay_in_samples) + margin;
+        let end = (output_v.len() as f64 - 1.0).min(delay_in_samples + input_v.len() as f64 - 1.0)
+            - margin;
+        if input_v.is_empty() || output_v.is_empty() || end < start {
+            let need_s = (2.0 * margin + 1.0) / rate_hz_in + delay_s.abs();
+            return Err(Error::BadInput(format!(
+                "records too short for listening files: the input ({} samples) and output ({} samples) \
+                 overlap for less than {need_s:.6} s once the {delay_s} s delay and the resampler's edges are \
+                 allowed for",
+                input_v.len(),
+                output_v.len()
+            )));
+        }
+        let length = ((end - start) / step + 1e-9).floor() as usize + 1;
+        let mut out_r = vec![0.0; length];
+        kernel.eval_grid(output_v, start, step, &mut out_r);
+        let mut in_r = vec![0.0; length];
+        kernel.eval_grid(input_v, start - delay_in_samples, step, &mut in_r);
+        (in_r, out_r, length)
+    };
     let mut err: Vec<f64> = out_r
         .iter()
         .zip(&in_r)
         .map(|(o, i)| o - (gain * i + offset_v))
         .collect();
-    remove_mean(&mut in_r);
-    remove_mean(&mut out_r);
-    remove_mean(&mut err);
+    // The mean of the records once (a periodic file's first period; the rest repeats it) comes off all of it.
+    for x in [&mut in_r, &mut out_r, &mut err] {
+        let mean = x[..record_len].iter().sum::<f64>() / record_len as f64;
+        for v in x.iter_mut() {
+            *v -= mean;
+        }
+    }
+    let error_rms_v = rms_of(&err[..record_len]);
+
+    let looped = if periodic {
+        if in_r.len() > record_len {
+            Looped::Seamless
+        } else {
+            Looped::No
+        }
+    } else if record_len < min_len {
+        let crossfade = ((LOOP_CROSSFADE_S * rate_out).round() as usize).min(record_len / 4);
+        for x in [&mut in_r, &mut out_r, &mut err] {
+            *x = loop_with_crossfade(x, min_len, crossfade);
+        }
+        Looped::Crossfaded
+    } else {
+        Looped::No
+    };
+    let length = in_r.len();
+    let fade_len = ((rec.fade_s.max(0.0) * rate_out).round() as usize).min(length / 4);
+    for x in [&mut in_r, &mut out_r, &mut err] {
+        fade_ends(x, fade_len);
+    }
 
     let signal_peak_v = peak(&in_r).max(peak(&out_r));
-    let full_scale_v = if signal_peak_v > 0.0 {
+    let from_peak_v = if signal_peak_v > 0.0 {
         tidy_up(FULL_SCALE_HEADROOM * signal_peak_v)
     } else {
         1.0
+    };
+    let full_scale_v = if rec.full_scale_floor_v > 0.0 {
+        from_peak_v.max(tidy_up(FULL_SCALE_HEADROOM * rec.full_scale_floor_v))
+    } else {
+        from_peak_v
     };
     let error_peak_v = peak(&err);
     let mut error_gain_used = opts.listen_gain;
     if error_peak_v * error_gain_used > ERROR_PEAK_CAP * full_scale_v {
         error_gain_used = ERROR_PEAK_CAP * full_scale_v / error_peak_v;
     }
-    let error_rms_v = (err.iter().map(|e| e * e).sum::<f64>() / length as f64).sqrt();
     let input = encode(&in_r, full_scale_v, opts.rate_hz, opts.format)?;
     let output = encode(&out_r, full_scale_v, opts.rate_hz, opts.format)?;
     for e in &mut err {
@@ -419,17 +608,51 @@ pub fn listening_set(
         error_rms_v,
         length,
         rate_hz: opts.rate_hz,
+        looped,
+        record_s: record_len as f64 / rate_out,
     })
 }
 
-fn remove_mean(x: &mut [f64]) {
-    if x.is_empty() {
+/// `x` repeated to `total` samples: copy k starts at k (n - crossfade), and over the `crossfade` samples where
+/// copy k - 1's tail and copy k's head overlap, a raised cosine hands one to the other (the weights sum to 1).
+fn loop_with_crossfade(x: &[f64], total: usize, crossfade: usize) -> Vec<f64> {
+    let n = x.len();
+    if n == 0 || total <= n {
+        return x.to_vec();
+    }
+    let xf = crossfade.min(n / 2);
+    let hop = n - xf;
+    (0..total)
+        .map(|m| {
+            let (k, j) = (m / hop, m % hop);
+            if k > 0 && j < xf {
+                let w = 0.5 - 0.5 * (std::f64::consts::PI * (j as f64 + 0.5) / xf as f64).cos();
+                w * x[j] + (1.0 - w) * x[hop + j]
+            } else {
+                x[j]
+            }
+        })
+        .collect()
+}
+
+/// Raised-cosine fade in over the first `len` samples and out over the last `len`.
+fn fade_ends(x: &mut [f64], len: usize) {
+    let n = x.len();
+    if len == 0 || n < 2 * len {
         return;
     }
-    let mean = x.iter().sum::<f64>() / x.len() as f64;
-    for v in x {
-        *v -= mean;
+    for j in 0..len {
+        let w = 0.5 - 0.5 * (std::f64::consts::PI * (j as f64 + 0.5) / len as f64).cos();
+        x[j] *= w;
+        x[n - 1 - j] *= w;
     }
+}
+
+fn rms_of(x: &[f64]) -> f64 {
+    if x.is_empty() {
+        return 0.0;
+    }
+    (x.iter().map(|e| e * e).sum::<f64>() / x.len() as f64).sqrt()
 }
 
 fn peak(x: &[f64]) -> f64 {
@@ -777,6 +1000,168 @@ mod tests {
         };
         assert!(listening_set(&y, &y, 192_000.0, 0.0, 1.0, 0.0, &bad).is_err());
         assert!(listening_set(&y, &y, 192_000.0, 0.0, 1.0, 0.0, &opts).is_ok());
+    }
+
+    fn records(
+        input_v: &'static [f64],
+        output_v: &'static [f64],
+        rate_hz: f64,
+        periodic: bool,
+    ) -> ListeningRecords<'static> {
+        ListeningRecords {
+            input_v,
+            output_v,
+            rate_hz,
+            delay_s: 0.0,
+            gain: 1.0,
+            offset_v: 0.0,
+            periodic,
+            full_scale_floor_v: 0.0,
+            min_seconds: LISTEN_MIN_S,
+            fade_s: LISTEN_FADE_S,
+        }
+    }
+
+    #[test]
+    fn a_coherent_record_loops_without_a_seam_to_two_seconds_with_fades_at_the_ends() {
+        // 23 ms at 192 kHz holding 17 whole cycles: read as one period, the files last 2 s and follow the
+        // endless sine everywhere, across every pass through the record.
+        let rate_hz = 192_000.0;
+        let n = 4416;
+        let f_hz = 17.0 * rate_hz / n as f64;
+        let delay_s = 3.3 / rate_hz;
+        let input: &'static [f64] = Vec::leak(sine(n, rate_hz, f_hz, 1.0, 0.0));
+        let output: &'static [f64] = Vec::leak(
+            (0..n)
+                .map(|i| 0.8 * (2.0 * PI * f_hz * (i as f64 / rate_hz - delay_s)).sin())
+                .collect(),
+        );
+        let rec = ListeningRecords {
+            delay_s,
+            gain: 0.8,
+            ..records(input, output, rate_hz, true)
+        };
+        let opts = WavOptions {
+            format: WavFormat::Float32,
+            ..WavOptions::default()
+        };
+        let set = listening_files(&rec, &opts).unwrap();
+        assert_eq!(set.looped, Looped::Seamless);
+        assert_eq!(set.length, 96_000);
+        assert!((set.record_s - n as f64 / rate_hz).abs() < 1.0 / 48_000.0);
+        let (_, out) = decode(&set.output);
+        let (_, inp) = decode(&set.input);
+        let (_, err) = decode(&set.error);
+        assert_eq!(out.len(), 96_000);
+        let fade = (LISTEN_FADE_S * 48_000.0) as usize;
+        let mut worst = 0.0f64;
+        for (m, v) in out.iter().enumerate().take(out.len() - fade).skip(fade) {
+            let want = 0.8 * (2.0 * PI * f_hz * (m as f64 / 48_000.0 - delay_s)).sin();
+            worst = worst.max((v * set.full_scale_v - want).abs());
+        }
+        // The resampler's own accuracy (about -100 dB of its kernel), not a seam of any size.
+        assert!(worst < 1e-4, "largest departure from the sine {worst} V");
+        // The input file is shifted by the delay: scaled by the gain, it is the output; the error is silent.
+        let mismatch = inp
+            .iter()
+            .zip(&out)
+            .fold(0.0f64, |m, (i, o)| m.max((0.8 * i - o).abs()));
+        assert!(mismatch < 1e-4, "{mismatch}");
+        assert!(err.iter().all(|e| e.abs() < 1e-4));
+        assert!(set.error_rms_v < 1e-5);
+        // Faded: silent at both ends, half way up half way through the fade.
+        assert!(out[0].abs() < 1e-3 && out[out.len() - 1].abs() < 1e-3);
+        let m = fade / 2;
+        let half = 0.8 * (2.0 * PI * f_hz * (m as f64 / 48_000.0 - delay_s)).sin();
+        assert!((out[m] * set.full_scale_v - 0.5 * half).abs() < 0.02 * 0.8);
+    }
+
+    #[test]
+    fn a_short_record_that_is_not_periodic_is_repeated_with_crossfades() {
+        let rate_hz = 96_000.0;
+        let n = 9_600; // 0.1 s of a 1234.5 Hz sine: not a whole number of cycles
+        let input: &'static [f64] = Vec::leak(sine(n, rate_hz, 1234.5, 1.0, 0.3));
+        let set = listening_files(
+            &records(input, input, rate_hz, false),
+            &WavOptions::default(),
+        )
+        .unwrap();
+        assert_eq!(set.looped, Looped::Crossfaded);
+        assert_eq!(set.length, 96_000);
+        let (_, out) = decode(&set.output);
+        assert_eq!(out.len(), 96_000);
+        assert!(out[0].abs() < 1e-3 && out[out.len() - 1].abs() < 1e-3);
+        // No click at the joins: no step between samples larger than the sine's own largest step
+        // (2 pi f A / rate, in full-scale units) plus what the 10 ms crossfade adds (pi / (2 x 480) x 2A).
+        let a = 1.0 / set.full_scale_v;
+        let own = 2.0 * PI * 1234.5 * a / 48_000.0;
+        let crossfade = PI / 960.0 * 2.0 * a;
+        let largest = out
+            .windows(2)
+            .fold(0.0f64, |m, w| m.max((w[1] - w[0]).abs()));
+        assert!(
+            largest < own + crossfade,
+            "{largest} vs {own} + {crossfade}"
+        );
+        // The error is that of the records once: silent for identical records.
+        assert_eq!(set.error_rms_v, 0.0);
+        // Records already long enough are neither looped nor cut.
+        let long: &'static [f64] = Vec::leak(sine(3 * 96_000, rate_hz, 1234.5, 1.0, 0.3));
+        let set =
+            listening_files(&records(long, long, rate_hz, false), &WavOptions::default()).unwrap();
+        assert_eq!(set.looped, Looped::No);
+        assert_eq!(set.length, 3 * 48_000 - 2 * 64);
+    }
+
+    #[test]
+    fn a_full_scale_floor_gives_two_runs_of_one_chain_one_mapping_and_never_clips() {
+        // Two outputs of one chain, one with more noise: their peaks round to different tidy full scales
+        // (1.2 V and 1.5 V), the converter's floor maps both alike.
+        let rate_hz = 48_000.0;
+        let input: &'static [f64] = Vec::leak(sine(48_000, rate_hz, 441.0, 1.0, 0.0));
+        let mut rng = ChaCha8Rng::seed_from_u64(5);
+        let noisy: &'static [f64] = Vec::leak(
+            input
+                .iter()
+                .map(|x| x + 0.3 * (rng.random::<f64>() - 0.5))
+                .collect(),
+        );
+        let plain = listening_files(
+            &records(input, input, rate_hz, false),
+            &WavOptions::default(),
+        )
+        .unwrap();
+        let louder = listening_files(
+            &records(input, noisy, rate_hz, false),
+            &WavOptions::default(),
+        )
+        .unwrap();
+        assert_ne!(plain.full_scale_v, louder.full_scale_v);
+        let floor = |r: ListeningRecords<'static>| ListeningRecords {
+            full_scale_floor_v: 1.25,
+            ..r
+        };
+        let a = listening_files(
+            &floor(records(input, input, rate_hz, false)),
+            &WavOptions::default(),
+        )
+        .unwrap();
+        let b = listening_files(
+            &floor(records(input, noisy, rate_hz, false)),
+            &WavOptions::default(),
+        )
+        .unwrap();
+        assert_eq!((a.full_scale_v, b.full_scale_v), (1.5, 1.5));
+        assert_eq!(a.input, b.input);
+        // A signal above the floor still sets the mapping: nothing clips.
+        let low_floor = ListeningRecords {
+            full_scale_floor_v: 0.1,
+            ..records(input, noisy, rate_hz, false)
+        };
+        let c = listening_files(&low_floor, &WavOptions::default()).unwrap();
+        assert_eq!(c.full_scale_v, louder.full_scale_v);
+        let (_, out) = decode(&c.output);
+        assert!(out.iter().all(|v| v.abs() < 1.0 / 1.05 + 1e-6));
     }
 
     #[test]

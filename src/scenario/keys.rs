@@ -28,6 +28,7 @@ pub const SECTION_PARAMS: &[(&str, Param)] = {
         ("source", Param::spread("at", D::Time)),
         ("source", Param::spread("rms", D::Voltage)),
         ("source", Param::spread("bandwidth", D::Frequency)),
+        ("source", Param::spread("beat", D::Time)),
         ("source", Param::spread("full_scale", D::Voltage)),
         ("source", Param::fixed("channel", ParamKind::Integer)),
         ("analysis", Param::spread("band", D::Frequency)),

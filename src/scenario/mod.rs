@@ -16,8 +16,9 @@ pub const STARTER: &str = include_str!("starter.toml");
 pub fn parse_str(text: &str, origin: &str, base_dir: &Path) -> Result<Scenario, ScenarioError> {
     let map = crate::format::reader::SourceMap::new(origin, text);
     let root = crate::format::reader::parse_document(&map)?;
-    let sc = validate::build(&map, &root, base_dir)?;
+    let mut sc = validate::build(&map, &root, base_dir)?;
     sanity::check(&map, &root, &sc)?;
+    sanity::note_slips(&map, &root, &mut sc);
     Ok(sc)
 }
 
@@ -49,8 +50,47 @@ pub struct Scenario {
     pub analysis: Analysis,
     /// `[spread]`: values drawn afresh for each Monte-Carlo run, in file order (empty for a single run).
     pub spread: Vec<Spread>,
-    /// Non-fatal remarks found while checking (e.g. an analog rate below 20x the highest source frequency).
+    /// Non-fatal remarks found while checking (e.g. an analog rate below 20x the highest source frequency),
+    /// as printed; they include the text of every [`Slip`].
     pub warnings: Vec<String>,
+    /// Legal values that are almost surely slips ([`sanity::note_slips`]), located.
+    pub slips: Vec<Slip>,
+    /// Where each `[[stage]]` table (`stage.N`) and each stage's `slew_rate` (`stage.N.slew_rate`) is written:
+    /// "file:line:column", for warnings made after a run.
+    pub locations: Vec<(String, String)>,
+}
+
+/// A value that is legal but almost surely a slip: where it is, why it is suspicious and what was probably
+/// meant. Printed by `check` and `run`, listed in report.json's `warnings`; never an error.
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
+pub struct Slip {
+    /// "file:line:column" of the value (or of its table).
+    pub location: String,
+    /// Key path: `stage.5.slew_rate`, `simulation.analog_rate`.
+    pub key: String,
+    /// Why the value is suspicious, with the figures.
+    pub message: String,
+    /// What was probably meant, or what to change.
+    pub suggestion: String,
+}
+
+impl Slip {
+    /// The one-line form printed after "warning: ".
+    pub fn text(&self) -> String {
+        format!(
+            "{}: {}: {}; {}",
+            self.location, self.key, self.message, self.suggestion
+        )
+    }
+
+    /// Where `key` is written, from [`Scenario::locations`] ("" when unknown).
+    pub fn location_of(sc: &Scenario, key: &str) -> String {
+        sc.locations
+            .iter()
+            .find(|(k, _)| k == key)
+            .map(|(_, l)| l.clone())
+            .unwrap_or_default()
+    }
 }
 
 /// `[simulation]`

@@ -2,7 +2,7 @@
 //! or make a run cost far more than it should. They run after [`super::validate::build`], in `check` as in
 //! `run`, and locate their message at the key to change.
 
-use super::{Scenario, StageKind, Waveform};
+use super::{AdcInput, Scenario, Slip, StageKind, Waveform};
 use crate::format::reader::{ScenarioError, SourceMap, Span, Table, Value};
 use crate::format::units::format_si;
 
@@ -214,4 +214,310 @@ fn wav_rate_near_the_grid(
             .with_hint("give a file recorded at an audio rate, or lower simulation.analog_rate"));
     }
     Ok(())
+}
+
+/// Slowest slew rate taken as a real amplifier's (V/s): 1 V/ms. The slowest micropower op-amps slew at a few
+/// V/ms (from memory); a value below this is almost surely a unit slip ("0.5 V/s" for "0.5 V/us").
+pub const SLEW_RATE_FLOOR_V_PER_S: f64 = 1e3;
+/// Fewest grid steps per conversion for the output analysis stream (as the engine's plan asks).
+const MIN_STEPS_PER_CONVERSION: f64 = 4.0;
+
+/// The `n`-th `[[stage]]` table (from 1).
+fn stage_table(root: &Table, n: usize) -> Option<&Table> {
+    let entry = root.entries.iter().find(|e| e.key == "stage")?;
+    let Value::Array(items) = &entry.node.value else {
+        return None;
+    };
+    match items.get(n.wrapping_sub(1)).map(|i| &i.value) {
+        Some(Value::Table(t)) => Some(t),
+        _ => None,
+    }
+}
+
+/// True when stage `n` writes `key`.
+fn stage_writes(root: &Table, n: usize, key: &str) -> bool {
+    stage_table(root, n).is_some_and(|t| t.entries.iter().any(|e| e.key == key))
+}
+
+fn location(map: &SourceMap<'_>, span: &Span) -> String {
+    let (line, column) = map.position(span.start);
+    format!("{}:{line}:{column}", map.origin())
+}
+
+/// A plain decimal for a suggested value ("0.5", "13", "0.001").
+fn plain(v: f64) -> String {
+    let s = format!("{:.6}", v);
+    let s = s.trim_end_matches('0').trim_end_matches('.');
+    if s.is_empty() || s == "-" {
+        "0".into()
+    } else {
+        s.into()
+    }
+}
+
+/// Find the values that are legal but almost surely slips, add them to `sc.slips` and their text to
+/// `sc.warnings`, and note where each stage and each stage's `slew_rate` is written (`sc.locations`) for the
+/// warnings made after a run. Never fails: every check here has passed [`check`] already.
+///
+/// - A `slew_rate` under [`SLEW_RATE_FLOOR_V_PER_S`]: slower than any amplifier; probably V/us was meant.
+/// - An analog grid that is not a whole multiple, at least 4, of the converter's sample rate: conversions and
+///   the DAC's updates fall at varying places between grid samples, the output analysis stream cannot be a
+///   multiple of the conversion rate (its rate, and with no `analysis.band` its band, follow the grid), and
+///   the output metrics can read far worse than the chain is.
+/// - An amplifier or DAC output whose bandwidth lies at or above the grid's rate: it settles within one grid
+///   step, so the grid shows none of it.
+/// - A converter with a live input whose bit-trial clock is faster than the grid: each trial reads the input
+///   interpolated between grid samples.
+pub fn note_slips(map: &SourceMap<'_>, root: &Table, sc: &mut Scenario) {
+    let mut slips = Vec::new();
+    let rate = sc.simulation.analog_rate_hz;
+    for (i, st) in sc.stages.iter().enumerate() {
+        let n = i + 1;
+        if let Some(t) = stage_table(root, n) {
+            sc.locations
+                .push((format!("stage.{n}"), location(map, &t.span)));
+        }
+        let output = match &st.kind {
+            StageKind::Amplifier(a) => Some(&a.output),
+            StageKind::Dac(d) => Some(&d.output),
+            _ => None,
+        };
+        if let Some(out) = output {
+            if let Some(sr) = out.slew_rate_v_per_s {
+                let key = format!("stage.{n}.slew_rate");
+                let at = location(map, &span_of(root, &key));
+                sc.locations.push((key.clone(), at.clone()));
+                if sr < SLEW_RATE_FLOOR_V_PER_S {
+                    slips.push(Slip {
+                        location: at,
+                        key,
+                        message: format!(
+                            "a slew rate of {} is slower than any amplifier (the slowest micropower op-amps \
+                             slew at a few V/ms): a 1 V step would take {}, and the stage can follow a 1 V \
+                             peak sine only below {}",
+                            format_si(sr, "V/s"),
+                            format_si(1.0 / sr, "s"),
+                            format_si(sr / (2.0 * std::f64::consts::PI), "Hz")
+                        ),
+                        suggestion: format!(
+                            "probably slew_rate = \"{} V/us\" ({}) was meant",
+                            plain(sr),
+                            format_si(sr * 1e6, "V/s")
+                        ),
+                    });
+                }
+            }
+            if let Some(tau) = out.tau_s
+                && tau > 0.0
+            {
+                let f_c = 1.0 / (2.0 * std::f64::consts::PI * tau);
+                if f_c >= rate {
+                    let key = ["bandwidth", "settling"]
+                        .into_iter()
+                        .find(|k| stage_writes(root, n, k))
+                        .map_or_else(|| format!("stage.{n}"), |k| format!("stage.{n}.{k}"));
+                    slips.push(Slip {
+                        location: location(map, &span_of(root, &key)),
+                        key,
+                        message: format!(
+                            "the output's bandwidth ({}, time constant {}) is at or above the analog grid's \
+                             rate ({}): it settles within one grid step, so on this grid the stage acts as \
+                             if its bandwidth were unlimited",
+                            format_si(f_c, "Hz"),
+                            format_si(tau, "s"),
+                            format_si(rate, "Hz")
+                        ),
+                        suggestion: format!(
+                            "raise simulation.analog_rate to at least {} if the bandwidth matters, or leave \
+                             the key out",
+                            format_si(4.0 * f_c, "Hz")
+                        ),
+                    });
+                }
+            }
+        }
+        if let StageKind::SarAdc(a) = &st.kind {
+            let fs = a.effective_sample_rate_hz();
+            let steps = rate / fs;
+            let whole = (steps - steps.round()).abs() < 1e-6 * steps;
+            if steps < MIN_STEPS_PER_CONVERSION || !whole {
+                let k = steps.ceil().max(MIN_STEPS_PER_CONVERSION);
+                let why = if steps < MIN_STEPS_PER_CONVERSION {
+                    format!(
+                        "the analog grid ({}) has {:.3} steps per conversion of the ADC ({}), fewer than \
+                         the {MIN_STEPS_PER_CONVERSION} the output analysis stream needs: it falls back to \
+                         the grid's own rate, so the output band (without analysis.band, 0.4 x that rate) \
+                         and the output metrics change with the grid",
+                        format_si(rate, "Hz"),
+                        steps,
+                        format_si(fs, "Hz")
+                    )
+                } else {
+                    format!(
+                        "the analog grid ({}) is {:.3} times the ADC's sample rate ({}), not a whole \
+                         multiple: conversions and the DAC's updates fall at varying places between grid \
+                         samples, the output analysis stream cannot be a multiple of the conversion rate, \
+                         and the output metrics can read far worse than the chain is",
+                        format_si(rate, "Hz"),
+                        steps,
+                        format_si(fs, "Hz")
+                    )
+                };
+                slips.push(Slip {
+                    location: location(map, &span_of(root, "simulation.analog_rate")),
+                    key: "simulation.analog_rate".into(),
+                    message: why,
+                    suggestion: format!(
+                        "probably analog_rate = \"{}\" ({k:.0} steps per conversion) was meant",
+                        format_si(k * fs, "Hz")
+                    ),
+                });
+            }
+            if a.input == AdcInput::Live && a.clock_given && a.clock_hz > rate {
+                let key = format!("stage.{n}.clock");
+                slips.push(Slip {
+                    location: location(map, &span_of(root, &key)),
+                    key,
+                    message: format!(
+                        "the bit-trial clock ({}) is faster than the analog grid ({}): with a live input \
+                         each trial reads the input interpolated between grid samples, so the conversion sees \
+                         the input only as finely as the grid resolves it",
+                        format_si(a.clock_hz, "Hz"),
+                        format_si(rate, "Hz")
+                    ),
+                    suggestion: format!(
+                        "raise simulation.analog_rate to at least {} (the clock's rate)",
+                        format_si(a.clock_hz, "Hz")
+                    ),
+                });
+            }
+        }
+    }
+    for slip in &slips {
+        sc.warnings.push(slip.text());
+    }
+    sc.slips.extend(slips);
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use std::path::Path;
+
+    /// A 12-bit chain at 48 kSPS: `{grid}` analog rate, `{amp}` extra keys of a buffer amplifier, `{adc}`
+    /// extra keys of the converter, `{dac}` extra keys of the DAC.
+    fn chain(grid: &str, amp: &str, adc: &str, dac: &str) -> String {
+        format!(
+            "name = \"t\"\n[simulation]\nanalog_rate = \"{grid}\"\nduration = \"60 ms\"\nsettle = \"10 ms\"\n\
+             [source]\nwaveform = \"sine\"\nfrequency = \"1 kHz\"\namplitude = \"1 V\"\n\
+             [[stage]]\nkind = \"amplifier\"\n{amp}\n\
+             [[stage]]\nkind = \"sar_adc\"\nbits = 12\nrange = [\"-2 V\", \"2 V\"]\n{adc}\n\
+             [[stage]]\nkind = \"dac\"\n{dac}\n"
+        )
+    }
+
+    const HELD: &str = "conversion_time = \"10 us\"\nsample_rate = \"48 kHz\"";
+
+    fn slips(text: &str) -> Vec<Slip> {
+        let sc = crate::scenario::parse_str(text, "t.toml", Path::new(".")).unwrap();
+        for s in &sc.slips {
+            assert!(
+                sc.warnings.contains(&s.text()),
+                "printed with the other warnings"
+            );
+        }
+        sc.slips
+    }
+
+    /// "t.toml:LINE:COLUMN" of the first line holding `needle`, at the value after `= `.
+    fn at(text: &str, needle: &str) -> String {
+        let (i, line) = text
+            .lines()
+            .enumerate()
+            .find(|(_, l)| l.contains(needle))
+            .unwrap();
+        format!("t.toml:{}:{}", i + 1, line.find("= ").unwrap() + 3)
+    }
+
+    #[test]
+    fn a_slew_rate_in_volts_per_second_is_a_located_slip_that_suggests_volts_per_microsecond() {
+        let text = chain("4.8 MHz", "", HELD, "slew_rate = \"0.5 V/s\"");
+        let s = slips(&text);
+        assert_eq!(s.len(), 1, "{s:?}");
+        assert_eq!(s[0].key, "stage.3.slew_rate");
+        assert_eq!(s[0].location, at(&text, "slew_rate"));
+        assert!(s[0].message.contains("500 mV/s"), "{}", s[0].message);
+        assert!(
+            s[0].suggestion.contains("slew_rate = \"0.5 V/us\""),
+            "{}",
+            s[0].suggestion
+        );
+        // The slowest real amplifiers (a few V/ms) and anything faster pass; so does the same value in V/us.
+        for ok in ["0.5 V/us", "5 V/ms", "13 V/us"] {
+            let text = chain("4.8 MHz", &format!("slew_rate = \"{ok}\""), HELD, "");
+            assert!(slips(&text).is_empty(), "{ok}");
+        }
+    }
+
+    #[test]
+    fn a_grid_that_is_not_a_whole_multiple_of_at_least_4_conversions_is_a_located_slip() {
+        // 150 kHz: 3.125 steps per conversion; the output stream falls back to the grid's rate.
+        let text = chain("150 kHz", "", HELD, "");
+        let s = slips(&text);
+        assert_eq!(s.len(), 1, "{s:?}");
+        assert_eq!(s[0].key, "simulation.analog_rate");
+        assert_eq!(s[0].location, "t.toml:3:15");
+        assert!(s[0].message.contains("3.125 steps"), "{}", s[0].message);
+        assert!(
+            s[0].suggestion.contains("\"192 kHz\""),
+            "{}",
+            s[0].suggestion
+        );
+        // 1.01 MHz: 21.04 steps, not whole; the next whole number of steps is 22 (1.056 MHz).
+        let s = slips(&chain("1.01 MHz", "", HELD, ""));
+        assert_eq!(s.len(), 1, "{s:?}");
+        assert!(s[0].message.contains("not a whole"), "{}", s[0].message);
+        assert!(
+            s[0].suggestion.contains("\"1.056 MHz\""),
+            "{}",
+            s[0].suggestion
+        );
+        for ok in ["192 kHz", "480 kHz", "4.8 MHz"] {
+            assert!(slips(&chain(ok, "", HELD, "")).is_empty(), "{ok}");
+        }
+    }
+
+    #[test]
+    fn a_bandwidth_at_or_above_the_grid_rate_is_a_located_slip() {
+        let text = chain("480 kHz", "bandwidth = \"1 MHz\"", HELD, "");
+        let s = slips(&text);
+        assert_eq!(s.len(), 1, "{s:?}");
+        assert_eq!(s[0].key, "stage.1.bandwidth");
+        assert_eq!(s[0].location, at(&text, "bandwidth"));
+        assert!(s[0].suggestion.contains("4 MHz"), "{}", s[0].suggestion);
+        // Given as a settling time on the DAC: 100 ns is 1.59 MHz.
+        let text = chain("480 kHz", "", HELD, "settling = \"100 ns\"");
+        let s = slips(&text);
+        assert_eq!(s.len(), 1, "{s:?}");
+        assert_eq!(s[0].key, "stage.3.settling");
+        // Below the grid's rate it is shown by the grid: no warning.
+        assert!(slips(&chain("480 kHz", "bandwidth = \"200 kHz\"", HELD, "")).is_empty());
+        assert!(slips(&chain("4.8 MHz", "bandwidth = \"3 MHz\"", HELD, "")).is_empty());
+    }
+
+    #[test]
+    fn a_live_converter_clocked_faster_than_the_grid_is_a_located_slip() {
+        let live = |clock: &str| {
+            format!("clock = \"{clock}\"\ncycles = 14\nsample_rate = \"48 kHz\"\ninput = \"live\"")
+        };
+        let text = chain("480 kHz", "", &live("1 MHz"), "");
+        let s = slips(&text);
+        assert_eq!(s.len(), 1, "{s:?}");
+        assert_eq!(s[0].key, "stage.2.clock");
+        assert_eq!(s[0].location, at(&text, "clock"));
+        assert!(slips(&chain("4.8 MHz", "", &live("1 MHz"), "")).is_empty());
+        // A held input is read once, at the sampling instant: the clock does not matter to the grid.
+        let held = "clock = \"1 MHz\"\ncycles = 14\nsample_rate = \"48 kHz\"";
+        assert!(slips(&chain("480 kHz", "", held, "")).is_empty());
+    }
 }

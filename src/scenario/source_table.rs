@@ -6,7 +6,7 @@ use super::*;
 use crate::format::reader::{ScenarioError, SourceMap, Table, TableReader, Value};
 use crate::format::units::{Dimension, format_si};
 
-const WAVEFORMS: [(&str, WaveKind); 10] = [
+const WAVEFORMS: [(&str, WaveKind); 11] = [
     ("sine", WaveKind::Sine),
     ("square", WaveKind::Square),
     ("triangle", WaveKind::Triangle),
@@ -17,10 +17,11 @@ const WAVEFORMS: [(&str, WaveKind); 10] = [
     ("dc", WaveKind::Dc),
     ("noise", WaveKind::Noise),
     ("wav", WaveKind::Wav),
+    ("chord", WaveKind::Chord),
 ];
 
 /// Every key a `[source]` table may hold, for any waveform.
-const SOURCE_KEYS: [&str; 18] = [
+const SOURCE_KEYS: [&str; 19] = [
     "waveform",
     "frequency",
     "amplitude",
@@ -39,7 +40,11 @@ const SOURCE_KEYS: [&str; 18] = [
     "channel",
     "full_scale",
     "repeat",
+    "beat",
 ];
+
+/// The built-in chord's beat when `beat` is not given: two chords a second.
+const CHORD_BEAT_DEFAULT_S: f64 = 0.5;
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 enum WaveKind {
@@ -53,6 +58,7 @@ enum WaveKind {
     Dc,
     Noise,
     Wav,
+    Chord,
 }
 
 pub(super) fn source(
@@ -192,6 +198,12 @@ pub(super) fn source(
             }
         }
         WaveKind::Wav => wav(&mut r, base_dir)?,
+        WaveKind::Chord => Waveform::Chord {
+            amplitude_v: amplitude(&mut r)?,
+            beat_s: r
+                .positive("beat", D::Time)?
+                .map_or(CHORD_BEAT_DEFAULT_S, |q| q.value),
+        },
     };
     let wave_name = WAVEFORMS
         .iter()

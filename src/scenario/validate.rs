@@ -107,6 +107,8 @@ pub fn build(
         analysis,
         spread,
         warnings,
+        slips: Vec::new(),
+        locations: Vec::new(),
     })
 }
 

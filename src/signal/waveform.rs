@@ -83,6 +83,12 @@ pub enum Waveform {
         /// Replay the file from the start when it ends.
         repeat: bool,
     },
+    /// A built-in music-like signal: a four-chord progression, one chord every `beat_s`, each struck and
+    /// decaying ([`chord_excursion`]); the progression repeats. `amplitude_v` bounds the peak.
+    Chord {
+        amplitude_v: f64,
+        beat_s: f64,
+    },
 }
 
 impl Waveform {
@@ -98,6 +104,7 @@ impl Waveform {
                 start_hz, stop_hz, ..
             } => Some(start_hz.max(*stop_hz)),
             Waveform::Noise { bandwidth_hz, .. } => *bandwidth_hz,
+            Waveform::Chord { .. } => Some(CHORD_HIGHEST_HZ),
             Waveform::Step { .. } | Waveform::Dc | Waveform::Wav { .. } => None,
         }
     }
@@ -132,5 +139,111 @@ pub fn chirp_cycles(f0: f64, f1: f64, sweep_s: f64, law: ChirpLaw, t_s: f64) -> 
             f0 * sweep_s / ln_k * (ln_k * tau / sweep_s).exp_m1()
         }
         _ => f0 * tau + (f1 - f0) * tau * tau / (2.0 * sweep_s),
+    }
+}
+
+/// The chords of [`Waveform::Chord`], in order: A major, D major, E major, A major (equal temperament,
+/// A4 = 440 Hz; common practice, no source). Each row: bass (the root an octave down), root, third, fifth (Hz).
+const CHORDS_HZ: [[f64; 4]; 4] = [
+    [110.0, 220.0, 277.182_630_976_872, 329.627_556_912_870],
+    [
+        146.832_383_958_704,
+        293.664_767_917_408,
+        369.994_422_711_634,
+        440.0,
+    ],
+    [
+        164.813_778_456_435,
+        329.627_556_912_870,
+        415.304_697_579_945,
+        493.883_301_256_124,
+    ],
+    [110.0, 220.0, 277.182_630_976_872, 329.627_556_912_870],
+];
+/// Relative levels of bass, root, third and fifth; they sum to 3.1, so the peak never exceeds the amplitude.
+const CHORD_LEVELS: [f64; 4] = [0.6, 1.0, 0.8, 0.7];
+/// The highest note of [`CHORDS_HZ`] (B4).
+pub const CHORD_HIGHEST_HZ: f64 = 493.883_301_256_124;
+/// Attack of each chord (raised cosine), seconds; shortened to a tenth of the beat for short beats.
+const CHORD_ATTACK_S: f64 = 0.01;
+/// Release at the end of each beat (raised cosine), seconds; shortened to a fifth of the beat for short beats.
+const CHORD_RELEASE_S: f64 = 0.03;
+
+/// The excursion (V, before the source's offset) of [`Waveform::Chord`] at `t_s`: in beat k (from
+/// `k beat_s` to `(k + 1) beat_s`) the chord `CHORDS_HZ[k mod 4]` sounds, its notes starting in sine phase at the
+/// beat, under a raised-cosine attack, an exponential decay (time constant half a beat: a struck or plucked
+/// string's fading, roughly) and a raised-cosine release that ends the beat at zero, so the signal is
+/// continuous with a continuous slope. The notes' levels sum to one: |value| <= `amplitude_v` at every instant.
+/// Zero before t = 0 and for a beat that is not positive and finite.
+pub fn chord_excursion(amplitude_v: f64, beat_s: f64, t_s: f64) -> f64 {
+    if !(beat_s.is_finite() && beat_s > 0.0) || t_s < 0.0 {
+        return 0.0;
+    }
+    let k = (t_s / beat_s).floor();
+    let tau = (t_s - k * beat_s).clamp(0.0, beat_s);
+    let chord = &CHORDS_HZ[(k as u64 % CHORDS_HZ.len() as u64) as usize];
+    let attack_s = CHORD_ATTACK_S.min(0.1 * beat_s);
+    let release_s = CHORD_RELEASE_S.min(0.2 * beat_s);
+    let ramp = |u: f64| 0.5 - 0.5 * (std::f64::consts::PI * u.clamp(0.0, 1.0)).cos();
+    let envelope =
+        ramp(tau / attack_s) * ramp((beat_s - tau) / release_s) * (-2.0 * tau / beat_s).exp();
+    let total: f64 = CHORD_LEVELS.iter().sum();
+    let tone: f64 = chord
+        .iter()
+        .zip(CHORD_LEVELS)
+        .map(|(f, a)| a * (2.0 * std::f64::consts::PI * f * tau).sin())
+        .sum();
+    amplitude_v * envelope * tone / total
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn chord_stays_within_its_amplitude_starts_each_beat_at_zero_and_is_continuous() {
+        let (a, beat) = (0.5, 0.4);
+        let dt = 1.0 / 96_000.0;
+        let mut prev = chord_excursion(a, beat, 0.0);
+        assert_eq!(prev, 0.0);
+        let mut peak = 0.0f64;
+        let mut largest_step = 0.0f64;
+        for i in 1..(4.0 * 4.0 * beat / dt) as usize {
+            let v = chord_excursion(a, beat, i as f64 * dt);
+            peak = peak.max(v.abs());
+            largest_step = largest_step.max((v - prev).abs());
+            prev = v;
+        }
+        assert!(peak <= a && peak > 0.5 * a, "peak {peak}");
+        // No click at the beat boundaries: the largest step between samples is that of the notes themselves
+        // (2 pi f A dt at the highest note, 494 Hz), not a jump.
+        let smooth = 2.0 * std::f64::consts::PI * CHORD_HIGHEST_HZ * a * dt;
+        assert!(largest_step < smooth, "{largest_step} vs {smooth}");
+        for k in 0..8 {
+            assert!(chord_excursion(a, beat, k as f64 * beat).abs() < 1e-12);
+        }
+        assert_eq!(chord_excursion(a, 0.0, 1.0), 0.0);
+        assert_eq!(chord_excursion(a, beat, -1.0), 0.0);
+    }
+
+    #[test]
+    fn chord_plays_the_notes_of_its_beat() {
+        // In the second beat (D major), a three-parameter projection finds D4 (293.66 Hz) and not C#4.
+        let (a, beat) = (1.0, 0.5);
+        let rate = 48_000.0;
+        let n = (0.4 * rate) as usize;
+        let t0 = beat + 0.05;
+        let project = |f: f64| {
+            let (mut s, mut c) = (0.0, 0.0);
+            for i in 0..n {
+                let t = t0 + i as f64 / rate;
+                let v = chord_excursion(a, beat, t);
+                s += v * (2.0 * std::f64::consts::PI * f * t).sin();
+                c += v * (2.0 * std::f64::consts::PI * f * t).cos();
+            }
+            2.0 * s.hypot(c) / n as f64
+        };
+        assert!(project(293.664_767_917_408) > 10.0 * project(277.182_630_976_872));
+        assert!(project(277.182_630_976_872) < 0.02);
     }
 }

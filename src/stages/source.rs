@@ -305,6 +305,10 @@ fn exact_excursion(w: &Waveform, t_s: f64) -> f64 {
                 0.0
             }
         }
+        Waveform::Chord {
+            amplitude_v,
+            beat_s,
+        } => crate::signal::waveform::chord_excursion(*amplitude_v, *beat_s, t_s),
         Waveform::Dc | Waveform::Noise { .. } | Waveform::Wav { .. } => 0.0,
     }
 }
