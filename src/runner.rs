@@ -101,6 +101,7 @@ fn run_inner(sc: &Scenario, out: &OutputDir, opts: &RunOptions) -> Result<Report
     csv.finish()?;
     phase("measuring");
     let metrics = measure_run(&run.records())?;
+    let imd = crate::measure::imd::from_run(&run.records());
     let figs = if opts.figures {
         phase("drawing the plots");
         figures::run_figures(&run, &metrics, opts.window_s)?
@@ -109,6 +110,7 @@ fn run_inner(sc: &Scenario, out: &OutputDir, opts: &RunOptions) -> Result<Report
     };
     let alignment = metrics.detail.alignment;
     let mut report = Report::new(&run.scenario, &run.plan, metrics);
+    report.imd = imd;
     let mut wav_files = None;
     if let Some(w) = &opts.wav {
         phase("making the listening files");

@@ -4,6 +4,7 @@
 pub mod chain;
 pub mod coherent;
 pub mod fidelity;
+pub mod imd;
 pub mod latency;
 pub mod metrics;
 pub mod sinefit;

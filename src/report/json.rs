@@ -5,6 +5,7 @@ use serde_json::{Value, json};
 
 use crate::engine::plan::Plan;
 use crate::measure::chain::{AdcMetrics, ChainMetrics, LatencyMetrics, OutputMetrics};
+use crate::measure::imd::ImdMetrics;
 use crate::scenario::{ChirpLaw, Scenario, Waveform, WindowKind};
 
 /// The whole report of a run. Field names are part of the interface: later tools rely on them.
@@ -18,6 +19,9 @@ pub struct Report {
     pub run: RunInfo,
     /// The listening files, when written.
     pub listening: Option<ListeningInfo>,
+    /// Two-tone intermodulation of the output, for a source of two tones.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub imd: Option<ImdMetrics>,
 }
 
 /// What the WAV files hold.
@@ -90,6 +94,7 @@ impl Report {
                 capture_length: plan.capture_len,
             },
             listening: None,
+            imd: None,
         }
     }
 }

@@ -85,6 +85,36 @@ pub fn summary(r: &Report) -> String {
             si(o.band_hz, "Hz")
         );
     }
+    if let Some(m) = &r.imd {
+        let _ = writeln!(
+            s,
+            "\n  two-tone IMD at the output (tones {} and {}; dBc of the tone at {})",
+            si(m.f1_hz, "Hz"),
+            si(m.f2_hz, "Hz"),
+            si(m.f1_hz, "Hz")
+        );
+        for p in &m.products {
+            let level = match (p.level_dbc, &p.note) {
+                (Some(v), _) => format!("{v:.2} dBc"),
+                (None, Some(n)) => n.clone(),
+                (None, None) => "-".into(),
+            };
+            let _ = writeln!(
+                s,
+                "    {:<8}{:>14}  {level}",
+                p.product,
+                si(p.frequency_hz, "Hz")
+            );
+        }
+        let dbc = |x: Option<f64>| x.map_or("-".into(), |v| format!("{v:.2} dBc"));
+        let _ = writeln!(
+            s,
+            "    IM2 {}   IM3 {}   total {}",
+            dbc(m.im2_dbc),
+            dbc(m.im3_dbc),
+            dbc(m.total_dbc)
+        );
+    }
     if o.bits_flipped > 0 {
         let _ = writeln!(s, "  link: {} bits flipped", o.bits_flipped);
     }
