@@ -83,3 +83,82 @@ fn the_two_tone_imd_of_an_ideal_chain_is_below_the_quantization_floor() {
     let r = json(&d.path().join("one/report.json"));
     assert!(r.get("imd").is_none());
 }
+
+/// An analog-only chain: a 1 V step at 2 ms through one filter stage with a 1 kHz cutoff.
+fn step_through(family: &str, order: u32, band: &str) -> serde_json::Value {
+    let text = format!(
+        r#"
+name = "step"
+[simulation]
+analog_rate = "10 MHz"
+duration = "10 ms"
+settle = "1 ms"
+[source]
+waveform = "step"
+at = "2 ms"
+level = "1 Vpp"
+[[stage]]
+kind = "filter"
+family = "{family}"
+order = {order}
+cutoff = "1 kHz"
+[analysis]
+{band}
+"#
+    );
+    let d = tempfile::tempdir().unwrap();
+    fs::write(d.path().join("step.toml"), text).unwrap();
+    let o = run_in(d.path(), &["run", "step.toml", "--no-plots", "--no-wav"]);
+    ok(&o);
+    let table = stdout(&o);
+    assert!(table.contains("rise time (10-90 %)"), "{table}");
+    json(&d.path().join("out/step/report.json"))["step"].clone()
+}
+
+#[test]
+fn a_first_order_rc_steps_with_rise_tau_ln_9_and_no_overshoot() {
+    // Single pole, tau = 1/(2 pi fc): 10-90 % rise tau ln 9, within 1 % after tau ln 100, no overshoot
+    // (textbook, from memory).
+    let tau = 1.0 / (2.0 * std::f64::consts::PI * 1e3);
+    let m = step_through("rc", 1, "");
+    let rise = m["rise_time_s"].as_f64().unwrap();
+    assert!(
+        (rise / (tau * 9f64.ln()) - 1.0).abs() < 0.002,
+        "rise {rise}"
+    );
+    let over = m["overshoot_percent"].as_f64().unwrap();
+    assert!(over < 1e-6, "overshoot {over} %");
+    assert_eq!(m["settling_band"].as_f64(), Some(0.01));
+    let settle = m["settling_time_s"].as_f64().unwrap();
+    assert!(
+        (settle / (tau * 100f64.ln()) - 1.0).abs() < 0.002,
+        "settle {settle}"
+    );
+    let (a, b) = (
+        m["initial_v"].as_f64().unwrap(),
+        m["final_v"].as_f64().unwrap(),
+    );
+    assert!(a.abs() < 1e-9 && (b - 1.0).abs() < 1e-6, "{a} {b}");
+    // A wider band settles sooner: 5 % after tau ln 20.
+    let m = step_through("rc", 1, "settling_band = \"5%\"");
+    let settle = m["settling_time_s"].as_f64().unwrap();
+    assert!(
+        (settle / (tau * 20f64.ln()) - 1.0).abs() < 0.002,
+        "settle {settle}"
+    );
+}
+
+#[test]
+fn a_second_order_butterworth_overshoots_by_4_3_percent() {
+    // Second-order Butterworth, damping 1/sqrt 2: overshoot exp(-pi) = 4.32 % (handbook value, from memory).
+    let m = step_through("butterworth", 2, "");
+    let over = m["overshoot_percent"].as_f64().unwrap();
+    assert!(
+        (over - 100.0 * (-std::f64::consts::PI).exp()).abs() < 0.02,
+        "overshoot {over}"
+    );
+    // Bessel of the same order barely overshoots (about 0.4 %, under 1 %; from memory).
+    let m = step_through("bessel", 2, "");
+    let over = m["overshoot_percent"].as_f64().unwrap();
+    assert!(over < 1.0, "bessel overshoot {over}");
+}

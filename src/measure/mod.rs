@@ -10,4 +10,5 @@ pub mod metrics;
 pub mod sinefit;
 pub mod spectrum;
 pub mod static_test;
+pub mod step;
 pub mod window;

@@ -6,6 +6,7 @@ use serde_json::{Value, json};
 use crate::engine::plan::Plan;
 use crate::measure::chain::{AdcMetrics, ChainMetrics, LatencyMetrics, OutputMetrics};
 use crate::measure::imd::ImdMetrics;
+use crate::measure::step::StepMetrics;
 use crate::scenario::{ChirpLaw, Scenario, Waveform, WindowKind};
 
 /// The whole report of a run. Field names are part of the interface: later tools rely on them.
@@ -22,6 +23,9 @@ pub struct Report {
     /// Two-tone intermodulation of the output, for a source of two tones.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub imd: Option<ImdMetrics>,
+    /// Step metrics of the output, for a step source.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub step: Option<StepMetrics>,
 }
 
 /// What the WAV files hold.
@@ -95,6 +99,7 @@ impl Report {
             },
             listening: None,
             imd: None,
+            step: None,
         }
     }
 }

@@ -115,6 +115,39 @@ pub fn summary(r: &Report) -> String {
             dbc(m.total_dbc)
         );
     }
+    if let Some(m) = &r.step {
+        let t = |x: Option<f64>| x.map_or("-".into(), |v| si(v, "s"));
+        let _ = writeln!(
+            s,
+            "\n  step at {} (output {} to {})",
+            si(m.at_s, "s"),
+            si(m.initial_v, "V"),
+            si(m.final_v, "V")
+        );
+        let _ = writeln!(
+            s,
+            "    {:<40}{:>14}",
+            "rise time (10-90 %)",
+            t(m.rise_time_s)
+        );
+        let _ = writeln!(s, "    {:<40}{:>14}", "delay to 50 %", t(m.delay_50_s));
+        let _ = writeln!(
+            s,
+            "    {:<40}{:>14}",
+            "overshoot",
+            format!("{:.2} %", m.overshoot_percent)
+        );
+        let _ = writeln!(
+            s,
+            "    {:<40}{:>14}",
+            format!(
+                "settling time (to {} % of the step)",
+                100.0 * m.settling_band
+            ),
+            m.settling_time_s
+                .map_or("not settled".into(), |v| si(v, "s"))
+        );
+    }
     if o.bits_flipped > 0 {
         let _ = writeln!(s, "  link: {} bits flipped", o.bits_flipped);
     }

@@ -13,6 +13,9 @@ use crate::format::units::{Dimension, format_si};
 /// The analog-rate margin below which a warning is given (x the highest source frequency).
 const RECOMMENDED_OVERSAMPLING: f64 = 20.0;
 
+/// The band a step's output settles into when `analysis.settling_band` is not given (1 % of the step).
+const DEFAULT_SETTLING_BAND: f64 = 0.01;
+
 /// Build a checked scenario from a parsed document.
 pub fn build(
     map: &SourceMap<'_>,
@@ -94,6 +97,7 @@ pub fn build(
             window: WindowKind::BlackmanHarris,
             coherent: true,
             harmonics: 9,
+            settling_band: DEFAULT_SETTLING_BAND,
         },
         Some(t) => analysis(map, t)?,
     };
@@ -214,12 +218,29 @@ fn analysis(map: &SourceMap<'_>, t: &Table) -> Result<Analysis, ScenarioError> {
         .map_or(WindowKind::BlackmanHarris, |q| q.value);
     let coherent = r.boolean("coherent")?.is_none_or(|q| q.value);
     let harmonics = r.integer("harmonics", 2, 50)?.map_or(9, |q| q.value as u32);
+    let settling_band = match r.quantity("settling_band", Dimension::Ratio)? {
+        None => DEFAULT_SETTLING_BAND,
+        Some(q) if q.value <= 0.0 || q.value >= 1.0 => {
+            return Err(r
+                .error(
+                    &q.span,
+                    "settling_band",
+                    format!(
+                        "must be a fraction of the step between 0 and 1 (exclusive), found {}",
+                        q.value
+                    ),
+                )
+                .with_hint("write e.g. settling_band = \"1%\" (or 0.001 for 0.1 %)"));
+        }
+        Some(q) => q.value,
+    };
     r.finish(&[], "[analysis]")?;
     Ok(Analysis {
         band_hz,
         window,
         coherent,
         harmonics,
+        settling_band,
     })
 }
 
@@ -434,7 +455,8 @@ clock = "2 MHz"
                 band_hz: None,
                 window: WindowKind::BlackmanHarris,
                 coherent: true,
-                harmonics: 9
+                harmonics: 9,
+                settling_band: 0.01
             }
         );
         let StageKind::Amplifier(a) = &s.stages[0].kind else {
@@ -653,6 +675,18 @@ clock = "2 MHz"
         // A step has no rms level.
         let t = "name = \"t\"\n[simulation]\nanalog_rate = \"10 MHz\"\nduration = \"20 ms\"\n[source]\nwaveform = \"step\"\nlevel = \"1 Vrms\"\n";
         assert_eq!(err(t).key_path, "source.level");
+    }
+
+    #[test]
+    fn settling_band_reads_as_a_fraction_and_refuses_one_or_more() {
+        let s = ok(&format!("{HEAD}[analysis]\nsettling_band = \"0.1%\"\n"));
+        assert!((s.analysis.settling_band - 1e-3).abs() < 1e-15);
+        for bad in ["0", "1.5", "\"100%\"", "\"-1%\""] {
+            let t = format!("{HEAD}[analysis]\nsettling_band = {bad}\n");
+            let e = err(&t);
+            assert_eq!(e.key_path, "analysis.settling_band", "{bad}");
+            assert_eq!(e.line, line_of(&t, "settling_band"), "{bad}");
+        }
     }
 
     #[test]
