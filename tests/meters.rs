@@ -162,3 +162,84 @@ fn a_second_order_butterworth_overshoots_by_4_3_percent() {
     let over = m["overshoot_percent"].as_f64().unwrap();
     assert!(over < 1.0, "bessel overshoot {over}");
 }
+
+/// `sweep.csv` as rows of (column name -> cell).
+fn sweep_rows(path: &std::path::Path) -> Vec<std::collections::HashMap<String, String>> {
+    let text = fs::read_to_string(path).unwrap();
+    let mut lines = text.lines();
+    let header: Vec<String> = lines
+        .next()
+        .unwrap()
+        .split(',')
+        .map(str::to_string)
+        .collect();
+    lines
+        .map(|l| {
+            header
+                .iter()
+                .cloned()
+                .zip(l.split(',').map(str::to_string))
+                .collect()
+        })
+        .collect()
+}
+
+#[test]
+fn a_frequency_sweep_carries_the_phase_unwrapped_beyond_minus_180_degrees() {
+    // The analog prototype's phase, -sum of arg(j w - p_k) over the Butterworth poles
+    // p_k = exp(j pi (2k + n - 1) / (2n)), k = 1..n, at w = f / fc (textbook pole positions, from memory);
+    // order 1 is the RC's -atan(f / fc). An analog-only chain adds no pure delay.
+    let analog_phase_deg = |order: u32, x: f64| {
+        let n = order as f64;
+        -(1..=order)
+            .map(|k| {
+                let a = std::f64::consts::PI * (2.0 * k as f64 + n - 1.0) / (2.0 * n);
+                (x - a.sin()).atan2(-a.cos())
+            })
+            .sum::<f64>()
+            .to_degrees()
+    };
+    for (order, family) in [(1, "rc"), (4, "butterworth")] {
+        let text = format!(
+            "name = \"ph\"\n[simulation]\nanalog_rate = \"2 MHz\"\nduration = \"40 ms\"\nsettle = \"10 ms\"\n\
+             [source]\nwaveform = \"sine\"\nfrequency = \"1 kHz\"\nlevel = \"1 Vrms\"\n\
+             [[stage]]\nkind = \"filter\"\nfamily = \"{family}\"\norder = {order}\ncutoff = \"1 kHz\"\n"
+        );
+        let d = tempfile::tempdir().unwrap();
+        fs::write(d.path().join("ph.toml"), text).unwrap();
+        let o = run_in(
+            d.path(),
+            &[
+                "sweep",
+                "ph.toml",
+                "--vary",
+                "source.frequency=300 Hz..5 kHz",
+                "--points",
+                "6",
+                "--out",
+                "sw",
+            ],
+        );
+        ok(&o);
+        let mut seen = 0;
+        let mut last = f64::INFINITY;
+        for r in sweep_rows(&d.path().join("sw/sweep.csv")) {
+            let Ok(f) = r["output.fundamental_hz"].parse::<f64>() else {
+                continue;
+            };
+            let got: f64 = r["output.phase_deg"].parse().unwrap();
+            let want = analog_phase_deg(order, f / 1e3);
+            assert!(
+                (got - want).abs() < 0.1,
+                "order {order} at {f} Hz: {got} vs {want}"
+            );
+            assert!(got < last, "the phase falls along the sweep");
+            last = got;
+            seen += 1;
+        }
+        assert!(seen >= 5, "{seen} points measured");
+        if order == 4 {
+            assert!(last < -270.0, "unwrapped: {last}");
+        }
+    }
+}
