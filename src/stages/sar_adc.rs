@@ -872,6 +872,7 @@ mod tests {
             offset_v: 0.0,
             gain_error: 0.0,
             output: OutputAmpCfg::default(),
+            reference_noise_v: 0.0,
         };
         let dac = Dac::new(&dcfg, &mut ChaCha8Rng::seed_from_u64(0));
         let mut a = adc(&c, 0);
