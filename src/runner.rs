@@ -111,6 +111,8 @@ fn run_inner(sc: &Scenario, out: &OutputDir, opts: &RunOptions) -> Result<Report
     csv.finish()?;
     phase("measuring");
     let metrics = measure_run(&run.records())?;
+    let imd = crate::measure::imd::from_run(&run.records());
+    let step = crate::measure::step::from_run(&run.records(), run.scenario.analysis.settling_band);
     let figs = if opts.figures {
         phase("drawing the plots");
         figures::run_figures(&run, &metrics, opts.window_s)?
@@ -119,6 +121,12 @@ fn run_inner(sc: &Scenario, out: &OutputDir, opts: &RunOptions) -> Result<Report
     };
     let alignment = metrics.detail.alignment;
     let mut report = Report::new(&run.scenario, &run.plan, metrics);
+    report.imd = imd;
+    match step {
+        Some(Ok(m)) => report.step = Some(m),
+        Some(Err(problem)) => report.scenario.warnings.push(problem.to_string()),
+        None => {}
+    }
     if let Some(slip) = latency_slip(&run.scenario, &report) {
         report.scenario.warnings.push(slip.text());
         report.warnings.push(slip);

@@ -438,6 +438,7 @@ kind = "dac"
     let o = run_in(d.path(), &["static", "ideal.toml", "--out", "ideal"]);
     ok(&o);
     assert!(!stdout(&o).contains("why codes are missing"));
+}
 
 /// A 12-bit chain at 48 kSPS on a 4.8 MHz grid whose DAC output slews at `slew`.
 fn slewing_chain(slew: &str) -> String {

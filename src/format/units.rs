@@ -28,6 +28,12 @@ pub enum Dimension {
     Angle,
     /// A voltage gain: bare number or `V/V` is a ratio, `dB` is 20 log10 of the ratio. Parsed as V/V.
     Gain,
+    /// A voltage noise density (`V/rtHz`, `nV/rtHz`; `V/√Hz` too), parsed as V/sqrt(Hz).
+    NoiseDensity,
+    /// Farads (`F`, `pF`).
+    Capacitance,
+    /// Kelvin (`K`).
+    Temperature,
 }
 
 impl Dimension {
@@ -42,6 +48,9 @@ impl Dimension {
             Dimension::Decibels => "a level in decibels such as \"0.5 dB\"",
             Dimension::Angle => "an angle such as \"90 deg\" or \"1.57 rad\"",
             Dimension::Gain => "a gain such as 10 or \"20 dB\"",
+            Dimension::NoiseDensity => "a noise density such as \"10 nV/rtHz\"",
+            Dimension::Capacitance => "a capacitance such as \"10 pF\"",
+            Dimension::Temperature => "a temperature in kelvin such as \"300 K\"",
         }
     }
 
@@ -56,6 +65,9 @@ impl Dimension {
             Dimension::Decibels => "dB",
             Dimension::Angle => "deg",
             Dimension::Gain => "V/V",
+            Dimension::NoiseDensity => "V/rtHz",
+            Dimension::Capacitance => "F",
+            Dimension::Temperature => "K",
         }
     }
 }
@@ -122,6 +134,10 @@ enum Unit {
     VoltsPerSecond(f64),
     /// Volts per volt.
     VoltsPerVolt,
+    /// Volts per root hertz, with prefix factor.
+    VoltsPerRootHz(f64),
+    Farads(f64),
+    Kelvin(f64),
     Percent,
     Ppm,
     Db,
@@ -138,6 +154,9 @@ impl Unit {
             Unit::Volts(_) => "volts",
             Unit::VoltsPerSecond(_) => "volts per second",
             Unit::VoltsPerVolt => "volts per volt",
+            Unit::VoltsPerRootHz(_) => "volts per root hertz",
+            Unit::Farads(_) => "farads",
+            Unit::Kelvin(_) => "kelvin",
             Unit::Percent => "a percentage",
             Unit::Ppm => "parts per million",
             Unit::Db => "decibels",
@@ -161,6 +180,11 @@ fn classify_unit(rest: &str) -> Option<Unit> {
         "V/V" => return Some(Unit::VoltsPerVolt),
         _ => {}
     }
+    if let Some((num, den)) = rest.split_once('/')
+        && matches!(den.trim(), "rtHz" | "√Hz" | "sqrt(Hz)")
+    {
+        return strip_prefixed(num.trim(), "V").map(Unit::VoltsPerRootHz);
+    }
     if let Some((num, den)) = rest.split_once('/') {
         let n = strip_prefixed(num.trim(), "V")?;
         let d = strip_prefixed(den.trim(), "s")?;
@@ -174,6 +198,12 @@ fn classify_unit(rest: &str) -> Option<Unit> {
     }
     if let Some(f) = strip_prefixed(rest, "V") {
         return Some(Unit::Volts(f));
+    }
+    if let Some(f) = strip_prefixed(rest, "F") {
+        return Some(Unit::Farads(f));
+    }
+    if rest == "K" {
+        return Some(Unit::Kelvin(1.0));
     }
     let mut chars = rest.chars();
     let first = chars.next()?;
@@ -262,7 +292,14 @@ pub fn parse_quantity(text: &str, dim: Dimension) -> Result<f64, UnitError> {
 fn convert(x: f64, unit: Unit, dim: Dimension) -> Option<f64> {
     use Dimension as D;
     match (dim, unit) {
-        (D::Frequency | D::Time | D::Voltage | D::SlewRate, Unit::Bare(f)) => Some(x * f),
+        (
+            D::Frequency | D::Time | D::Voltage | D::SlewRate | D::NoiseDensity | D::Capacitance,
+            Unit::Bare(f),
+        ) => Some(x * f),
+        (D::Temperature, Unit::Bare(1.0)) => Some(x),
+        (D::NoiseDensity, Unit::VoltsPerRootHz(f)) => Some(x * f),
+        (D::Capacitance, Unit::Farads(f)) => Some(x * f),
+        (D::Temperature, Unit::Kelvin(f)) => Some(x * f),
         (D::Ratio | D::Decibels | D::Gain, Unit::Bare(1.0)) => Some(x),
         (D::Angle, Unit::Bare(1.0)) => Some(x.to_radians()),
         (D::Frequency, Unit::Hz(f)) => Some(x * f),
@@ -748,6 +785,19 @@ mod tests {
             let expected = mantissa * PFX[pn].1 / PFX[pd].1;
             let got = parse_quantity(&text, Dimension::SlewRate).unwrap();
             prop_assert!((got - expected).abs() <= 1e-12 * expected.abs(), "{} -> {} vs {}", text, got, expected);
+        }
+
+        #[test]
+        fn noise_density_capacitance_and_temperature_parse(x in 0.001f64..1000.0) {
+            let d = parse_quantity(&format!("{x} nV/rtHz"), Dimension::NoiseDensity).unwrap();
+            prop_assert!((d - x * 1e-9).abs() <= 1e-12 * x * 1e-9);
+            let c = parse_quantity(&format!("{x} pF"), Dimension::Capacitance).unwrap();
+            prop_assert!((c - x * 1e-12).abs() <= 1e-12 * x * 1e-12);
+            prop_assert_eq!(parse_quantity(&format!("{x} K"), Dimension::Temperature).unwrap(), x);
+            let volts = format!("{x} nV");
+            let kilo = format!("{x} kK");
+            prop_assert!(parse_quantity(&volts, Dimension::NoiseDensity).is_err());
+            prop_assert!(parse_quantity(&kilo, Dimension::Temperature).is_err());
         }
 
         #[test]

@@ -4,9 +4,11 @@
 pub mod chain;
 pub mod coherent;
 pub mod fidelity;
+pub mod imd;
 pub mod latency;
 pub mod metrics;
 pub mod sinefit;
 pub mod spectrum;
 pub mod static_test;
+pub mod step;
 pub mod window;

@@ -6,6 +6,8 @@ use serde_json::{Value, json};
 use crate::engine::pipeline::si;
 use crate::engine::plan::{Plan, TonePlacement};
 use crate::measure::chain::{AdcMetrics, ChainMetrics, LatencyMetrics, OutputMetrics};
+use crate::measure::imd::ImdMetrics;
+use crate::measure::step::StepMetrics;
 use crate::scenario::{ChirpLaw, Scenario, Slip, Waveform};
 
 /// The whole report of a run. Field names are part of the interface: later tools rely on them.
@@ -22,6 +24,12 @@ pub struct Report {
     /// Values that are legal but almost surely slips, found in the scenario or after the run (a measured
     /// latency far from its budget): `{location, key, message, suggestion}`.
     pub warnings: Vec<Slip>,
+    /// Two-tone intermodulation of the output, for a source of two tones.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub imd: Option<ImdMetrics>,
+    /// Step metrics of the output, for a step source.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub step: Option<StepMetrics>,
 }
 
 /// What the WAV files hold.
@@ -134,6 +142,8 @@ impl Report {
             },
             listening: None,
             warnings: sc.slips.clone(),
+            imd: None,
+            step: None,
         }
     }
 }

@@ -84,6 +84,69 @@ pub fn summary(r: &Report) -> String {
         }
     }
     let _ = writeln!(s, "  {}", r.band_note());
+    if let Some(m) = &r.imd {
+        let _ = writeln!(
+            s,
+            "\n  two-tone IMD at the output (tones {} and {}; dBc of the tone at {})",
+            si(m.f1_hz, "Hz"),
+            si(m.f2_hz, "Hz"),
+            si(m.f1_hz, "Hz")
+        );
+        for p in &m.products {
+            let level = match (p.level_dbc, &p.note) {
+                (Some(v), _) => format!("{v:.2} dBc"),
+                (None, Some(n)) => n.clone(),
+                (None, None) => "-".into(),
+            };
+            let _ = writeln!(
+                s,
+                "    {:<8}{:>14}  {level}",
+                p.product,
+                si(p.frequency_hz, "Hz")
+            );
+        }
+        let dbc = |x: Option<f64>| x.map_or("-".into(), |v| format!("{v:.2} dBc"));
+        let _ = writeln!(
+            s,
+            "    IM2 {}   IM3 {}   total {}",
+            dbc(m.im2_dbc),
+            dbc(m.im3_dbc),
+            dbc(m.total_dbc)
+        );
+    }
+    if let Some(m) = &r.step {
+        let t = |x: Option<f64>| x.map_or("-".into(), |v| si(v, "s"));
+        let _ = writeln!(
+            s,
+            "\n  step at {} (output {} to {})",
+            si(m.at_s, "s"),
+            si(m.initial_v, "V"),
+            si(m.final_v, "V")
+        );
+        let _ = writeln!(
+            s,
+            "    {:<40}{:>14}",
+            "rise time (10-90 %)",
+            t(m.rise_time_s)
+        );
+        let _ = writeln!(s, "    {:<40}{:>14}", "delay to 50 %", t(m.delay_50_s));
+        let _ = writeln!(
+            s,
+            "    {:<40}{:>14}",
+            "overshoot",
+            format!("{:.2} %", m.overshoot_percent)
+        );
+        let _ = writeln!(
+            s,
+            "    {:<40}{:>14}",
+            format!(
+                "settling time (to {} % of the step)",
+                100.0 * m.settling_band
+            ),
+            m.settling_time_s
+                .map_or("not settled".into(), |v| si(v, "s"))
+        );
+    }
     if o.bits_flipped > 0 {
         let _ = writeln!(s, "  link: {} bits flipped", o.bits_flipped);
     }

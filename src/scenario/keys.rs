@@ -33,6 +33,10 @@ pub const SECTION_PARAMS: &[(&str, Param)] = {
         ("source", Param::fixed("channel", ParamKind::Integer)),
         ("analysis", Param::spread("band", D::Frequency)),
         ("analysis", Param::fixed("harmonics", ParamKind::Integer)),
+        (
+            "analysis",
+            Param::fixed("settling_band", ParamKind::Quantity(D::Ratio)),
+        ),
     ]
 };
 

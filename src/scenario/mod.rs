@@ -167,6 +167,8 @@ pub struct Analysis {
     pub coherent: bool,
     /// Highest harmonic counted in THD (and removed for SNR).
     pub harmonics: u32,
+    /// The band a step source's output settles into, as a fraction of its step (default 0.01).
+    pub settling_band: f64,
 }
 
 /// How a `[spread]` value is drawn around its nominal.

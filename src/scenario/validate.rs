@@ -3,7 +3,7 @@
 
 use std::path::Path;
 
-use super::source_table::source;
+use super::source_table::{FullScale, source};
 use super::spread::spread;
 use super::stage_list::stages;
 use super::*;
@@ -12,6 +12,9 @@ use crate::format::units::{Dimension, format_si};
 
 /// The analog-rate margin below which a warning is given (x the highest source frequency).
 const RECOMMENDED_OVERSAMPLING: f64 = 20.0;
+
+/// The band a step's output settles into when `analysis.settling_band` is not given (1 % of the step).
+const DEFAULT_SETTLING_BAND: f64 = 0.01;
 
 /// Build a checked scenario from a parsed document.
 pub fn build(
@@ -44,7 +47,16 @@ pub fn build(
 
     let mut warnings = Vec::new();
     let (simulation, rate_span) = simulation(map, sim_t)?;
-    let source = source(map, src_t, base_dir, &simulation, &mut warnings)?;
+    // The stages are read first: a level in dBFS refers to the first converter's range.
+    let stages = match stage_nodes {
+        None => Vec::new(),
+        Some(nodes) => stages(map, &nodes, &simulation)?,
+    };
+    let full_scale = stages
+        .iter()
+        .find_map(|st| st.kind.quantizer_timing())
+        .map(|q| FullScale { range_v: q.range_v });
+    let source = source(map, src_t, base_dir, &simulation, full_scale, &mut warnings)?;
 
     // Source frequency against the analog grid.
     if let Some(f_hz) = source.waveform.highest_frequency_hz() {
@@ -79,16 +91,13 @@ pub fn build(
         }
     }
 
-    let stages = match stage_nodes {
-        None => Vec::new(),
-        Some(nodes) => stages(map, &nodes, &simulation)?,
-    };
     let analysis = match analysis_t {
         None => Analysis {
             band_hz: None,
             window: WindowKind::BlackmanHarris,
             coherent: true,
             harmonics: 9,
+            settling_band: DEFAULT_SETTLING_BAND,
         },
         Some(t) => analysis(map, t)?,
     };
@@ -211,12 +220,29 @@ fn analysis(map: &SourceMap<'_>, t: &Table) -> Result<Analysis, ScenarioError> {
         .map_or(WindowKind::BlackmanHarris, |q| q.value);
     let coherent = r.boolean("coherent")?.is_none_or(|q| q.value);
     let harmonics = r.integer("harmonics", 2, 50)?.map_or(9, |q| q.value as u32);
+    let settling_band = match r.quantity("settling_band", Dimension::Ratio)? {
+        None => DEFAULT_SETTLING_BAND,
+        Some(q) if q.value <= 0.0 || q.value >= 1.0 => {
+            return Err(r
+                .error(
+                    &q.span,
+                    "settling_band",
+                    format!(
+                        "must be a fraction of the step between 0 and 1 (exclusive), found {}",
+                        q.value
+                    ),
+                )
+                .with_hint("write e.g. settling_band = \"1%\" (or 0.001 for 0.1 %)"));
+        }
+        Some(q) => q.value,
+    };
     r.finish(&[], "[analysis]")?;
     Ok(Analysis {
         band_hz,
         window,
         coherent,
         harmonics,
+        settling_band,
     })
 }
 
@@ -431,7 +457,8 @@ clock = "2 MHz"
                 band_hz: None,
                 window: WindowKind::BlackmanHarris,
                 coherent: true,
-                harmonics: 9
+                harmonics: 9,
+                settling_band: 0.01
             }
         );
         let StageKind::Amplifier(a) = &s.stages[0].kind else {
@@ -549,6 +576,119 @@ clock = "2 MHz"
                 .unwrap_or("")
                 .contains("did you mean `bits`")
         );
+    }
+
+    /// The source's peak amplitude read from `[source]` lines written after HEAD's first three source lines.
+    fn peak_of(src: &str, stages: &str) -> f64 {
+        let text = format!(
+            "name = \"t\"\n[simulation]\nanalog_rate = \"10 MHz\"\nduration = \"20 ms\"\n[source]\n{src}\n{stages}"
+        );
+        match ok(&text).source.waveform {
+            Waveform::Sine { amplitude_v, .. }
+            | Waveform::Square { amplitude_v, .. }
+            | Waveform::Triangle { amplitude_v, .. }
+            | Waveform::Sawtooth { amplitude_v, .. }
+            | Waveform::Chirp { amplitude_v, .. }
+            | Waveform::Step { amplitude_v, .. } => amplitude_v,
+            Waveform::Multitone { tones } => tones[0].amplitude_v,
+            w => panic!("no amplitude: {w:?}"),
+        }
+    }
+
+    #[test]
+    fn levels_in_dbfs_vpp_and_vrms_give_the_peak_amplitude() {
+        let sine = "waveform = \"sine\"\nfrequency = \"1 kHz\"";
+        let adc_dac = format!("{ADC}{DAC}");
+        // 0 dBFS: the sine spanning the 0..5 V range, peak 2.5 V; -6.0206 dBFS halves it (20 log10 2).
+        let p = peak_of(&format!("{sine}\nlevel = \"0 dBFS\""), &adc_dac);
+        assert!((p - 2.5).abs() < 1e-12, "{p}");
+        let p = peak_of(&format!("{sine}\nlevel = \"-6.0206 dBFS\""), &adc_dac);
+        assert!((p - 1.25).abs() < 1e-4, "{p}");
+        // Crest factors (common practice, no source): sine sqrt 2, square 1, triangle and sawtooth sqrt 3.
+        let p = peak_of(&format!("{sine}\nlevel = \"2 Vpp\""), "");
+        assert!((p - 1.0).abs() < 1e-12, "{p}");
+        let p = peak_of(&format!("{sine}\nlevel = \"707.1068 mVrms\""), "");
+        assert!((p - 1.0).abs() < 1e-6, "{p}");
+        let p = peak_of(
+            "waveform = \"square\"\nfrequency = 100\nlevel = \"0.5 Vrms\"",
+            "",
+        );
+        assert!((p - 0.5).abs() < 1e-12, "{p}");
+        let p = peak_of(
+            "waveform = \"triangle\"\nfrequency = 100\nlevel = \"1 Vrms\"",
+            "",
+        );
+        assert!((p - 3f64.sqrt()).abs() < 1e-12, "{p}");
+        let p = peak_of(
+            "waveform = \"sawtooth\"\nfrequency = 100\nlevel = \"4 Vpp\"",
+            "",
+        );
+        assert!((p - 2.0).abs() < 1e-12, "{p}");
+        let p = peak_of(
+            "waveform = \"multitone\"\ntones = [{ frequency = \"1 kHz\", level = \"-20 dBFS\" }]",
+            &adc_dac,
+        );
+        assert!((p - 0.25).abs() < 1e-12, "{p}");
+        let p = peak_of(
+            "waveform = \"chirp\"\nstart = 100\nstop = 1000\nlevel = \"1 Vrms\"",
+            "",
+        );
+        assert!((p - 2f64.sqrt()).abs() < 1e-12, "{p}");
+        // A step's level is its height; 0 dBFS crosses the whole 5 V span.
+        let p = peak_of(
+            "waveform = \"step\"\nat = \"1 ms\"\nlevel = \"-6.0206 dBFS\"",
+            &adc_dac,
+        );
+        assert!((p - 2.5).abs() < 1e-4, "{p}");
+        let p = peak_of("waveform = \"step\"\nat = \"1 ms\"\nlevel = \"3 Vpp\"", "");
+        assert!((p - 3.0).abs() < 1e-12, "{p}");
+    }
+
+    #[test]
+    fn bad_levels_are_located_errors() {
+        let sine = "waveform = \"sine\"\nfrequency = \"1 kHz\"";
+        let text = |src: &str, stages: &str| {
+            format!(
+                "name = \"t\"\n[simulation]\nanalog_rate = \"10 MHz\"\nduration = \"20 ms\"\n[source]\n{sine}\n{src}\n{stages}"
+            )
+        };
+        // Both written: the error sits at the level.
+        let t = text("amplitude = \"1 V\"\nlevel = \"2 Vpp\"", "");
+        let e = err(&t);
+        assert_eq!(e.key_path, "source.level");
+        assert_eq!((e.line, e.column), (line_of(&t, "level"), 9));
+        assert!(e.message.contains("both given"), "{}", e.message);
+        // dBFS without a converter.
+        let t = text("level = \"-6 dBFS\"", "");
+        let e = err(&t);
+        assert_eq!(e.key_path, "source.level");
+        assert!(e.message.contains("needs a converter"), "{}", e.message);
+        assert!(e.hint.as_deref().unwrap_or("").contains("Vpp"));
+        // Unknown unit, negative volts, not a string, missing both.
+        for bad in ["\"2 V\"", "\"-1 Vpp\"", "3", "\"abc dBFS\"", "\"1 kVrmsx\""] {
+            let t = text(&format!("level = {bad}"), "");
+            let e = err(&t);
+            assert_eq!(e.key_path, "source.level", "{bad}");
+            assert_eq!(e.line, line_of(&t, "level"), "{bad}");
+        }
+        let e = err(&text("", ""));
+        assert_eq!(e.key_path, "source.amplitude");
+        assert!(e.hint.as_deref().unwrap_or("").contains("level"));
+        // A step has no rms level.
+        let t = "name = \"t\"\n[simulation]\nanalog_rate = \"10 MHz\"\nduration = \"20 ms\"\n[source]\nwaveform = \"step\"\nlevel = \"1 Vrms\"\n";
+        assert_eq!(err(t).key_path, "source.level");
+    }
+
+    #[test]
+    fn settling_band_reads_as_a_fraction_and_refuses_one_or_more() {
+        let s = ok(&format!("{HEAD}[analysis]\nsettling_band = \"0.1%\"\n"));
+        assert!((s.analysis.settling_band - 1e-3).abs() < 1e-15);
+        for bad in ["0", "1.5", "\"100%\"", "\"-1%\""] {
+            let t = format!("{HEAD}[analysis]\nsettling_band = {bad}\n");
+            let e = err(&t);
+            assert_eq!(e.key_path, "analysis.settling_band", "{bad}");
+            assert_eq!(e.line, line_of(&t, "settling_band"), "{bad}");
+        }
     }
 
     #[test]

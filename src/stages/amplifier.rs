@@ -6,6 +6,8 @@
 
 use num_complex::Complex64;
 
+use rand_chacha::ChaCha8Rng;
+use rand_distr::{Distribution, StandardNormal};
 use serde::Serialize;
 
 use crate::signal::stream::Timebase;
@@ -26,6 +28,8 @@ pub struct AmplifierCfg {
     /// Added at the output (V).
     pub offset_v: f64,
     pub output: OutputAmpCfg,
+    /// Input-referred voltage noise density, white over the analog grid's band (V/sqrt(Hz); 0 = none).
+    pub noise_density_v_per_rthz: f64,
 }
 
 impl KindSpec for AmplifierCfg {
@@ -41,6 +45,7 @@ bandwidth = "200 kHz""#;
         OUTPUT_AMP_PARAMS[1],
         OUTPUT_AMP_PARAMS[2],
         OUTPUT_AMP_PARAMS[3],
+        Param::spread("noise_density", Dimension::NoiseDensity),
     ];
 
     fn read(
@@ -55,6 +60,7 @@ bandwidth = "200 kHz""#;
                 .quantity("offset", Dimension::Voltage)?
                 .map_or(0.0, |q| q.value),
             output: read_output_amp(r)?,
+            noise_density_v_per_rthz: r.non_negative("noise_density", Dimension::NoiseDensity)?,
         })
     }
 
@@ -77,7 +83,13 @@ bandwidth = "200 kHz""#;
         let tb = ctx
             .timebase
             .ok_or_else(|| Error::Run("an amplifier needs the analog grid".into()))?;
-        Ok(Runtime::Analog(Box::new(Amplifier::new(self, tb))))
+        let mut amp = Amplifier::new(self, tb);
+        if self.noise_density_v_per_rthz > 0.0 {
+            // White over the grid's band 0..rate/2: variance density^2 * rate / 2 per grid sample.
+            let sigma = self.noise_density_v_per_rthz * (0.5 * tb.rate_hz).sqrt();
+            amp.noise = Some((sigma, ctx.rng.clone()));
+        }
+        Ok(Runtime::Analog(Box::new(amp)))
     }
 }
 
@@ -93,6 +105,8 @@ pub struct Amplifier {
     dt_s: f64,
     /// The target at the previous grid sample (V); None before the first sample.
     prev_target_v: Option<f64>,
+    /// Input noise: rms per grid sample (V) and its random stream; None without noise.
+    noise: Option<(f64, ChaCha8Rng)>,
 }
 
 impl Amplifier {
@@ -105,12 +119,20 @@ impl Amplifier {
             amp: OutputAmp::new(&cfg.output, cfg.offset_v),
             dt_s: timebase.dt_s(),
             prev_target_v: None,
+            noise: None,
         }
     }
 }
 
 impl AnalogStage for Amplifier {
     fn tick(&mut self, x_v: f64) -> f64 {
+        let x_v = match &mut self.noise {
+            Some((sigma, rng)) => {
+                let z: f64 = StandardNormal.sample(rng);
+                x_v + *sigma * z
+            }
+            None => x_v,
+        };
         let target = self.gain * x_v + self.offset_v;
         let y = match self.prev_target_v {
             None => {
@@ -145,6 +167,7 @@ mod tests {
                 tau_s: tau,
                 rails_v: None,
             },
+            noise_density_v_per_rthz: 0.0,
         }
     }
 
@@ -161,6 +184,42 @@ mod tests {
         let n = y.len() as f64;
         let (a, b) = (2.0 * s / n, 2.0 * c / n); // y ~ a sin + b cos
         ((a * a + b * b).sqrt(), b.atan2(a))
+    }
+
+    #[test]
+    fn input_noise_density_gives_its_rms_over_the_grid_band_times_the_gain() {
+        // White noise of density e_n (V/sqrt Hz) over 0..fs/2 has rms e_n sqrt(fs/2) (the one-sided density
+        // integrated over the band; common practice, no source); the amplifier multiplies it by its gain.
+        let (rate, e_n, gain) = (4e6, 20e-9, 10.0);
+        let mut cfg = amp_cfg(gain, 0.0, None, None);
+        cfg.noise_density_v_per_rthz = e_n;
+        let mut ctx = BuildContext {
+            label: "amp".into(),
+            timebase: Some(Timebase::new(rate)),
+            rng: ChaCha8Rng::seed_from_u64(11),
+            hold_rng: ChaCha8Rng::seed_from_u64(12),
+            static_bench: false,
+            upstream: Upstream::default(),
+            pending_hold: None,
+        };
+        let Runtime::Analog(mut a) = cfg.build(&mut ctx).unwrap() else {
+            panic!("an analog stage")
+        };
+        let n = 200_000;
+        let y: Vec<f64> = (0..n).map(|_| a.tick(0.0)).collect();
+        let rms = (y.iter().map(|v| v * v).sum::<f64>() / n as f64).sqrt();
+        let want = gain * e_n * (0.5 * rate).sqrt();
+        // The sample rms of n Gaussian draws is within a few times 1/sqrt(2n) of sigma (relative).
+        assert!((rms / want - 1.0).abs() < 5.0 / (2.0 * n as f64).sqrt(), "{rms} vs {want}");
+        // White: neighbouring samples are uncorrelated.
+        let r1 = y.windows(2).map(|w| w[0] * w[1]).sum::<f64>() / (n as f64 * rms * rms);
+        assert!(r1.abs() < 0.02, "lag-1 correlation {r1}");
+        // Without a density the output is exactly the gain times the input.
+        let cfg = amp_cfg(gain, 0.0, None, None);
+        let Runtime::Analog(mut a) = cfg.build(&mut ctx).unwrap() else {
+            panic!()
+        };
+        assert_eq!(a.tick(0.1), gain * 0.1);
     }
 
     #[test]

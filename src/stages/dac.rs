@@ -59,6 +59,9 @@ pub struct DacCfg {
     /// Relative gain error (0.01 = +1 %).
     pub gain_error: f64,
     pub output: OutputAmpCfg,
+    /// Rms of the reference's noise (V), drawn once per code update: the span (the reference) becomes
+    /// span + e, scaling the code's level above the range's low end by (1 + e / span). 0 = a quiet reference.
+    pub reference_noise_v: f64,
 }
 
 impl KindSpec for DacCfg {
@@ -81,6 +84,7 @@ settling = "1 us""#;
             ),
             Param::spread("offset", D::Voltage),
             Param::spread("gain_error", D::Ratio),
+            Param::spread("reference_noise", D::Voltage),
             OUTPUT_AMP_PARAMS[0],
             OUTPUT_AMP_PARAMS[1],
             OUTPUT_AMP_PARAMS[2],
@@ -208,6 +212,7 @@ fn read_dac(r: &mut TableReader<'_, '_>) -> std::result::Result<DacCfg, Scenario
         offset_v,
         gain_error,
         output,
+        reference_noise_v: r.non_negative("reference_noise", D::Voltage)?,
     })
 }
 
@@ -293,6 +298,8 @@ pub struct Dac {
     target_v: f64,
     /// The instant the amplifier state refers to (s).
     t_cur_s: f64,
+    /// Reference noise relative to the span (rms) and its random stream; None for a quiet reference.
+    reference: Option<(f64, ChaCha8Rng)>,
 }
 
 /// One drawn resistor factor (1 + error).
@@ -410,6 +417,13 @@ impl Dac {
             amp: OutputAmp::new(&cfg.output, 0.0),
             target_v: 0.0,
             t_cur_s: 0.0,
+            // Drawn after the ladder, from the same stream, so a quiet reference leaves the ladder unchanged.
+            reference: (cfg.reference_noise_v > 0.0).then(|| {
+                (
+                    cfg.reference_noise_v / (cfg.range_v.1 - cfg.range_v.0),
+                    rng.clone(),
+                )
+            }),
         };
         dac.target_v = dac.level_v(0);
         dac.amp.set_value_v(dac.target_v);
@@ -487,6 +501,10 @@ impl Dac {
                     self.t_cur_s = t_ev;
                 }
                 self.target_v = self.level_v(ev.code);
+                if let Some((rel, rng)) = &mut self.reference {
+                    let z: f64 = StandardNormal.sample(rng);
+                    self.target_v = self.low_v + (self.target_v - self.low_v) * (1.0 + *rel * z);
+                }
                 i += 1;
             }
             if self.t_cur_s != prev_t {
@@ -605,6 +623,7 @@ mod tests {
             offset_v: 0.0,
             gain_error: 0.0,
             output: OutputAmpCfg::default(),
+            reference_noise_v: 0.0,
         }
     }
 
@@ -837,6 +856,39 @@ mod tests {
         dac.render(tb, 0, &[ev], &mut out);
         assert_eq!(out[100], dac.level_v(200));
         assert_eq!(out[99], dac.level_v(0));
+    }
+
+    #[test]
+    fn reference_noise_scales_each_update_by_one_plus_e_over_the_span() {
+        // The level above the range's low end, d, scales with the reference: d (1 + e / span), so the
+        // output's rms spread is d sigma / span (common practice, no source).
+        let (rate, sigma) = (1e6, 5e-3);
+        let tb = Timebase::new(rate);
+        let mut c = cfg(12, Ladder::Ideal, 0.0, ToleranceDistribution::Uniform);
+        c.reference_noise_v = sigma;
+        let span = c.range_v.1 - c.range_v.0;
+        let mut dac = Dac::new(&c, &mut rng(3));
+        let code = 3500;
+        let d = dac.level_v(code) - c.range_v.0;
+        let n = 20_000;
+        let evs: Vec<CodeEvent> = (0..n)
+            .map(|k| CodeEvent {
+                t_sample_s: 0.0,
+                t_avail_s: tb.time_s(k as u64),
+                code,
+            })
+            .collect();
+        let mut out = vec![0.0; n];
+        dac.render(tb, 0, &evs, &mut out);
+        let mean = out.iter().sum::<f64>() / n as f64;
+        let sd = (out.iter().map(|y| (y - mean).powi(2)).sum::<f64>() / n as f64).sqrt();
+        let want = d * sigma / span;
+        assert!((sd / want - 1.0).abs() < 0.05, "{sd} vs {want}");
+        assert!((mean - dac.level_v(code)).abs() < 5.0 * want / (n as f64).sqrt());
+        // The ladder drawn before it is the same as with a quiet reference.
+        c.reference_noise_v = 0.0;
+        let quiet = Dac::new(&c, &mut rng(3));
+        assert_eq!(quiet.level_v(code), dac.level_v(code));
     }
 
     #[test]

@@ -38,6 +38,27 @@ pub struct SampleHoldCfg {
     pub droop_v_per_s: f64,
     /// Pedestal added to the held value when the switch opens (V).
     pub hold_step_v: f64,
+    /// Hold capacitance for the switch's kT/C noise, drawn afresh for each held sample (F; 0 = no noise).
+    pub capacitance_f: f64,
+    /// Temperature of the kT/C noise (K).
+    pub temperature_k: f64,
+}
+
+/// The Boltzmann constant (J/K), exact in the SI since 2019 (CODATA 2018).
+pub const BOLTZMANN_J_PER_K: f64 = 1.380649e-23;
+
+/// The temperature of the kT/C noise when `temperature` is not given (K).
+pub const DEFAULT_TEMPERATURE_K: f64 = 300.0;
+
+impl SampleHoldCfg {
+    /// Rms of the kT/C noise of each held sample, sqrt(k T / C) (V; 0 without a capacitance).
+    pub fn ktc_noise_v(&self) -> f64 {
+        if self.capacitance_f > 0.0 {
+            (BOLTZMANN_J_PER_K * self.temperature_k / self.capacitance_f).sqrt()
+        } else {
+            0.0
+        }
+    }
 }
 
 impl KindSpec for SampleHoldCfg {
@@ -53,6 +74,8 @@ acquisition = "100 ns""#;
         Param::spread("aperture_jitter", Dimension::Time),
         Param::spread("droop", Dimension::SlewRate),
         Param::spread("hold_step", Dimension::Voltage),
+        Param::spread("capacitance", Dimension::Capacitance),
+        Param::spread("temperature", Dimension::Temperature),
     ];
 
     fn read(
@@ -68,6 +91,10 @@ acquisition = "100 ns""#;
             hold_step_v: r
                 .quantity("hold_step", D::Voltage)?
                 .map_or(0.0, |q| q.value),
+            capacitance_f: r.non_negative("capacitance", D::Capacitance)?,
+            temperature_k: r
+                .positive("temperature", D::Temperature)?
+                .map_or(DEFAULT_TEMPERATURE_K, |q| q.value),
         })
     }
 
@@ -205,6 +232,13 @@ impl SampleHold {
             };
             self.track(t_start, v_start, t_open, probe)
         };
+        let ktc = self.cfg.ktc_noise_v();
+        let v_cap = if ktc > 0.0 {
+            let z: f64 = StandardNormal.sample(&mut self.rng);
+            v_cap + ktc * z
+        } else {
+            v_cap
+        };
         let held = Held {
             t_open_s: t_open,
             v: v_cap + self.cfg.hold_step_v,
@@ -329,6 +363,40 @@ mod tests {
         }
         assert_eq!(h.lookahead_s(), 0.0);
         assert_eq!(h.history_needed_s(1.0), 0.0);
+    }
+
+    #[test]
+    fn ktc_noise_of_one_picofarad_at_300_k_is_64_4_microvolts_rms() {
+        // kT/C noise: sqrt(k T / C) rms per held sample (common practice, no source), with the Boltzmann
+        // constant k = 1.380649e-23 J/K (exact, CODATA 2018): 1 pF at 300 K gives 64.36 uV.
+        let cfg = SampleHoldCfg {
+            capacitance_f: 1e-12,
+            temperature_k: 300.0,
+            ..Default::default()
+        };
+        assert!((cfg.ktc_noise_v() - 64.36e-6).abs() < 0.01e-6, "{}", cfg.ktc_noise_v());
+        let mut h = sh(cfg);
+        let n = 100_000;
+        let x = 0.7;
+        let errs: Vec<f64> = (0..n)
+            .map(|i| {
+                let t = i as f64 * 1e-6;
+                let held = h.acquire(t, &FnProbe(|_| x));
+                h.release(t + 0.5e-6);
+                held.v - x
+            })
+            .collect();
+        let mean = errs.iter().sum::<f64>() / n as f64;
+        let rms = (errs.iter().map(|e| e * e).sum::<f64>() / n as f64).sqrt();
+        // Sample statistics of n Gaussian draws: mean within a few sigma/sqrt(n), rms within a few 1/sqrt(2n).
+        assert!(mean.abs() < 5.0 * 64.4e-6 / (n as f64).sqrt(), "mean {mean}");
+        assert!((rms / cfg.ktc_noise_v() - 1.0).abs() < 5.0 / (2.0 * n as f64).sqrt(), "rms {rms}");
+        // Independent from sample to sample.
+        let r1 = errs.windows(2).map(|w| w[0] * w[1]).sum::<f64>() / (n as f64 * rms * rms);
+        assert!(r1.abs() < 0.02, "lag-1 correlation {r1}");
+        // No capacitance, no noise.
+        let mut h = sh(SampleHoldCfg::default());
+        assert_eq!(h.acquire(0.0, &FnProbe(|_| x)).v, x);
     }
 
     #[test]

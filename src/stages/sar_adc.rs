@@ -104,6 +104,9 @@ pub struct SarAdcCfg {
     pub dither_lsb: f64,
     /// Centred (IEEE Std 1241 ideal transfer, the default) or truncating.
     pub transfer: Transfer,
+    /// Rms of the reference's noise (V), drawn once per conversion: the range's span (the reference) becomes
+    /// span + e, scaling every trial level by (1 + e / span). 0 = a quiet reference.
+    pub reference_noise_v: f64,
     /// The scenario gave `clock` (rather than `conversion_time`): an ablation that speeds the converter up
     /// edits the key that was written.
     #[serde(skip)]
@@ -148,6 +151,7 @@ comparator_noise = "0.5 mV""#;
             Param::fixed("dither", ParamKind::Choice(&["none", "rpdf", "tpdf"])),
             Param::spread("dither_lsb", D::Ratio),
             Param::fixed("transfer", ParamKind::Choice(&["centred", "truncating"])),
+            Param::spread("reference_noise", D::Voltage),
         ]
     };
 
@@ -377,6 +381,7 @@ fn read_sar(r: &mut TableReader<'_, '_>) -> std::result::Result<SarAdcCfg, Scena
             ],
         )?
         .map_or(Transfer::Centred, |q| q.value);
+    let reference_noise_v = r.non_negative("reference_noise", D::Voltage)?;
     Ok(SarAdcCfg {
         bits,
         range_v,
@@ -391,6 +396,7 @@ fn read_sar(r: &mut TableReader<'_, '_>) -> std::result::Result<SarAdcCfg, Scena
         dither,
         dither_lsb,
         transfer,
+        reference_noise_v,
         clock_given: clock.is_some(),
     })
 }
@@ -487,6 +493,15 @@ impl SarAdc {
         let q = self.cfg.lsb_v();
         let full = f64::powi(2.0, n as i32);
         let dither = self.draw_dither_lsb();
+        // A noisy reference scales every trial level by (1 + e / span); dividing the input by it instead
+        // compares the same quantities.
+        let ref_sigma = self.cfg.reference_noise_v;
+        let q = if ref_sigma > 0.0 {
+            let z: f64 = StandardNormal.sample(&mut self.rng);
+            q * (1.0 + ref_sigma * z / (self.cfg.range_v.1 - self.cfg.range_v.0))
+        } else {
+            q
+        };
         let held = match self.cfg.input {
             AdcInput::Held => Some(sh.acquire(t_k, probe)),
             AdcInput::Live => None,
@@ -745,6 +760,7 @@ mod tests {
             dither: DitherKind::None,
             dither_lsb: 0.0,
             transfer: Transfer::Centred,
+            reference_noise_v: 0.0,
             clock_given: true,
         }
     }
@@ -855,6 +871,7 @@ mod tests {
             offset_v: 0.0,
             gain_error: 0.0,
             output: OutputAmpCfg::default(),
+            reference_noise_v: 0.0,
         };
         let dac = Dac::new(&dcfg, &mut ChaCha8Rng::seed_from_u64(0));
         let mut a = adc(&c, 0);
@@ -1097,6 +1114,35 @@ mod tests {
                 }
             }
         }
+    }
+
+    #[test]
+    fn reference_noise_spreads_codes_in_proportion_to_the_input() {
+        // A reference of span V_ref + e reads the input v (above the range's low end by d) as code
+        // d / q / (1 + e / V_ref), about d / q (1 - e / V_ref): the code's rms spread is (d / q) sigma / V_ref,
+        // proportional to the input (first-order Taylor; common practice, no source). Quantization adds
+        // q^2 / 12 (Bennett, BSTJ 1948), here negligible.
+        let mut c = cfg(16);
+        let span = c.range_v.1 - c.range_v.0;
+        c.reference_noise_v = 1e-3;
+        let n = 20_000;
+        for frac in [0.9, 0.3] {
+            let d = frac * span;
+            let v = c.range_v.0 + d;
+            let mut a = adc(&c, 6);
+            let codes: Vec<f64> = (0..n).map(|_| code_of(&mut a, v) as f64).collect();
+            let mean = codes.iter().sum::<f64>() / n as f64;
+            let sd = (codes.iter().map(|k| (k - mean).powi(2)).sum::<f64>() / n as f64).sqrt();
+            let want = (d / c.lsb_v()) * c.reference_noise_v / span;
+            let want = (want * want + 1.0 / 12.0).sqrt();
+            assert!((sd / want - 1.0).abs() < 0.05, "at {frac} of the span: {sd} vs {want} LSB");
+        }
+        // Without reference noise the code of a fixed input never moves.
+        c.reference_noise_v = 0.0;
+        let mut a = adc(&c, 6);
+        let v = c.range_v.0 + 0.9 * span;
+        let k0 = code_of(&mut a, v);
+        assert!((0..100).all(|_| code_of(&mut a, v) == k0));
     }
 
     #[test]

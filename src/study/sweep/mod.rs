@@ -245,6 +245,7 @@ pub const METRIC_COLUMNS: &[&str] = &[
     "output.bits_flipped",
     "latency.measured_s",
     "latency.budget_s",
+    "output.phase_deg",
 ];
 
 /// Every number of a report's `adc` and `output` sections, and the measured and budgeted latency, in the
@@ -288,8 +289,19 @@ pub fn metric_values(m: &ChainMetrics) -> Vec<Option<f64>> {
         Some(o.bits_flipped as f64),
         Some(m.latency.measured_s),
         Some(m.latency.budget_s),
+        phase_deg(m),
     ]);
     v
+}
+
+/// The chain's phase at the fundamental (degrees, output against source): from the three-parameter sine fits
+/// of both records (the latency's phase delay), unwrapped at each point by the cross-correlation delay, so it
+/// runs on continuously along a frequency sweep without needing the neighbouring points (and shards agree).
+/// The chain's latency is not removed: a pure delay tau contributes -360 f tau.
+fn phase_deg(m: &ChainMetrics) -> Option<f64> {
+    let f = m.output.fundamental_hz?;
+    let tau = m.latency.phase_delay_s?;
+    Some(-360.0 * f * tau)
 }
 
 /// One point of a sweep.
