@@ -243,3 +243,22 @@ fn a_frequency_sweep_carries_the_phase_unwrapped_beyond_minus_180_degrees() {
         }
     }
 }
+
+#[test]
+fn report_md_and_html_carry_the_imd_figures_the_terminal_prints() {
+    let d = tempfile::tempdir().unwrap();
+    fs::write(d.path().join("two.toml"), TWO_TONE).unwrap();
+    let o = run_in(d.path(), &["run", "two.toml", "--no-wav"]);
+    ok(&o);
+    let dir = d.path().join("out/two-tone");
+    let r = json(&dir.join("report.json"));
+    let im3 = format!("IM3 {:.2} dBc", r["imd"]["im3_dbc"].as_f64().unwrap());
+    assert!(stdout(&o).contains(&im3), "{}", stdout(&o));
+    for f in ["report.md", "report.html"] {
+        let text = fs::read_to_string(dir.join(f)).unwrap();
+        assert!(
+            text.contains("Two-tone IMD at the output") && text.contains(&im3),
+            "{f}: {text}"
+        );
+    }
+}

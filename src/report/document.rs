@@ -99,6 +99,33 @@ pub fn run_facts(r: &Report) -> Vec<String> {
         }
     }
     f.push(format!("{}.", capitalise(&r.band_note())));
+    if let Some(m) = &r.imd {
+        let dbc = |x: Option<f64>| x.map_or("-".into(), |v| format!("{v:.2} dBc"));
+        f.push(format!(
+            "Two-tone IMD at the output (tones {} and {}, dBc of the tone at {}): IM2 {}, IM3 {}, total {}.",
+            si(m.f1_hz, "Hz"),
+            si(m.f2_hz, "Hz"),
+            si(m.f1_hz, "Hz"),
+            dbc(m.im2_dbc),
+            dbc(m.im3_dbc),
+            dbc(m.total_dbc)
+        ));
+    }
+    if let Some(m) = &r.step {
+        let t = |x: Option<f64>| x.map_or("-".into(), |v| si(v, "s"));
+        f.push(format!(
+            "Step at {} (output {} to {}): rise time (10-90 %) {}, delay to 50 % {}, overshoot {:.2} %, settling \
+             time (to {} % of the step) {}.",
+            si(m.at_s, "s"),
+            si(m.initial_v, "V"),
+            si(m.final_v, "V"),
+            t(m.rise_time_s),
+            t(m.delay_50_s),
+            m.overshoot_percent,
+            100.0 * m.settling_band,
+            m.settling_time_s.map_or("not settled".into(), |v| si(v, "s"))
+        ));
+    }
     if r.output.bits_flipped > 0 {
         f.push(format!("Link: {} bits flipped.", r.output.bits_flipped));
     }
