@@ -98,6 +98,7 @@ pub mod wav_file;
 registry::stage_kinds! {
     sample_hold => SampleHold(SampleHoldCfg),
     sar_adc => SarAdc(SarAdcCfg),
+    flash_adc => FlashAdc(FlashAdcCfg),
     link => Link(LinkCfg),
     dac => Dac(DacCfg),
     filter => Filter(FilterCfg),
