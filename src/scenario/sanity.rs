@@ -93,13 +93,10 @@ fn links_leave_a_record(
     root: &Table,
     sc: &Scenario,
 ) -> Result<(), ScenarioError> {
-    let Some(adc) = sc.stages.iter().find_map(|s| match &s.kind {
-        StageKind::SarAdc(a) => Some(*a),
-        _ => None,
-    }) else {
+    let Some(adc) = sc.stages.iter().find_map(|s| s.kind.quantizer_timing()) else {
         return Ok(());
     };
-    let fs = adc.effective_sample_rate_hz();
+    let fs = adc.sample_rate_hz;
     let window_s = sc.simulation.duration_s - sc.simulation.settle_s;
     let without_links = ((window_s - adc.conversion_time_s - 1.0 / fs) * fs).floor();
     if without_links < MIN_CONVERSIONS {
@@ -336,8 +333,8 @@ pub fn note_slips(map: &SourceMap<'_>, root: &Table, sc: &mut Scenario) {
                 }
             }
         }
-        if let StageKind::SarAdc(a) = &st.kind {
-            let fs = a.effective_sample_rate_hz();
+        if let Some(t) = st.kind.quantizer_timing() {
+            let fs = t.sample_rate_hz;
             let steps = rate / fs;
             let whole = (steps - steps.round()).abs() < 1e-6 * steps;
             if steps < MIN_STEPS_PER_CONVERSION || !whole {
@@ -346,8 +343,8 @@ pub fn note_slips(map: &SourceMap<'_>, root: &Table, sc: &mut Scenario) {
                     format!(
                         "the analog grid ({}) has {:.3} steps per conversion of the ADC ({}), fewer than \
                          the {MIN_STEPS_PER_CONVERSION} the output analysis stream needs: it falls back to \
-                         the grid's own rate, so the output band (without analysis.band, 0.4 x that rate) \
-                         and the output metrics change with the grid",
+                         the grid's own rate, so the output record's passband (the wideband figures) and \
+                         the output metrics change with the grid",
                         format_si(rate, "Hz"),
                         steps,
                         format_si(fs, "Hz")
@@ -373,7 +370,11 @@ pub fn note_slips(map: &SourceMap<'_>, root: &Table, sc: &mut Scenario) {
                     ),
                 });
             }
-            if a.input == AdcInput::Live && a.clock_given && a.clock_hz > rate {
+            if let StageKind::SarAdc(a) = &st.kind
+                && a.input == AdcInput::Live
+                && a.clock_given
+                && a.clock_hz > rate
+            {
                 let key = format!("stage.{n}.clock");
                 slips.push(Slip {
                     location: location(map, &span_of(root, &key)),
