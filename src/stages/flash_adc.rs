@@ -180,6 +180,7 @@ comparator_offset = "2 mV""#;
         let thresholds_v = thresholds(self, &mut rng);
         Ok(Runtime::Quantizer(Box::new(FlashQuantizer {
             cfg: *self,
+            ordered: thresholds_v.is_sorted(),
             thresholds_v,
             rng,
             hold,
@@ -220,6 +221,8 @@ pub fn thresholds(cfg: &FlashAdcCfg, rng: &mut ChaCha8Rng) -> Vec<f64> {
 pub struct FlashQuantizer {
     cfg: FlashAdcCfg,
     thresholds_v: Vec<f64>,
+    /// The thresholds rise along the ladder (no offset larger than a step): a binary search finds the count.
+    ordered: bool,
     rng: ChaCha8Rng,
     hold: Box<dyn Hold>,
     clipped: u64,
@@ -258,7 +261,7 @@ impl Quantizer for FlashQuantizer {
                     v + sigma * z >= t
                 })
                 .count()
-        } else if self.thresholds_v.is_sorted() {
+        } else if self.ordered {
             self.thresholds_v.partition_point(|&t| t <= v)
         } else {
             self.thresholds_v.iter().filter(|&&t| v >= t).count()
