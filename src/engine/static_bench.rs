@@ -8,7 +8,7 @@ use crate::engine::pipeline::build_context;
 use crate::error::{Error, Result};
 use crate::measure::static_test::{self, StaticResult};
 use crate::scenario::Scenario;
-use crate::scenario::overrides::{Edit, ScenarioText};
+use crate::scenario::overrides::{ScenarioText, candidates};
 use crate::stages::Probe;
 use crate::stages::kind::{Role, Runtime, Upstream};
 use crate::stages::roles::{Quantizer, Reconstructor};
@@ -55,27 +55,23 @@ pub fn missing_code_causes(
     if missing == 0 {
         return Ok(Vec::new());
     }
-    let mut tries = Vec::new();
-    for (i, st) in sc.stages.iter().enumerate() {
-        if matches!(st.kind.role(), Role::Hold | Role::Quantizer) {
-            for ab in st.kind.ablations() {
-                tries.push((i, st, ab));
-            }
-        }
-    }
     // Each try is a whole code-density test: run them side by side.
     use rayon::prelude::*;
-    let mut out: Vec<MissingCodeCause> = tries
+    let mut out: Vec<MissingCodeCause> = candidates(sc)
         .into_par_iter()
-        .filter_map(|(i, st, ab)| {
-            let edits: Vec<Edit> = ab.edits.iter().map(|e| Edit::of_stage(i + 1, e)).collect();
+        .filter(|c| {
+            matches!(
+                sc.stages[c.stage_index].kind.role(),
+                Role::Hold | Role::Quantizer
+            )
+        })
+        .filter_map(|c| {
             // A change the scenario cannot take (or a bench it cannot run) explains nothing.
-            let changed = text.with_edits(&edits).ok()?;
-            let a = static_tests(&changed).ok()?.adc?;
-            let m = a.code_density.missing_codes;
-            (2 * m <= missing).then(|| MissingCodeCause {
-                mechanism: ab.mechanism,
-                change: format!("{}: {}", st.label, ab.change),
+            let changed = text.with_edits(&c.edits).ok()?;
+            let m = static_tests(&changed).ok()?.adc?.code_density.missing_codes;
+            (2 * m <= missing).then_some(MissingCodeCause {
+                mechanism: c.mechanism,
+                change: c.change,
                 missing_codes: m,
             })
         })

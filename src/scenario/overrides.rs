@@ -293,6 +293,38 @@ fn apply(doc: &mut Table, edit: &Edit) -> std::result::Result<(), String> {
     }
 }
 
+/// A candidate ablation: one non-ideality of one stage and the edits that make it ideal (the limit finder's
+/// diagnosis and the static bench's missing-code causes).
+#[derive(Debug, Clone, PartialEq)]
+pub struct Candidate {
+    /// Index of the stage in the chain (0-based).
+    pub stage_index: usize,
+    pub mechanism: String,
+    pub stage: String,
+    pub change: String,
+    pub edits: Vec<Edit>,
+}
+
+/// The non-idealities present in the scenario, each with the edits that make it ideal (each stage kind lists its
+/// own: [`crate::stages::kind::KindSpec::ablations`]).
+pub fn candidates(sc: &Scenario) -> Vec<Candidate> {
+    let mut out = Vec::new();
+    for (i, st) in sc.stages.iter().enumerate() {
+        let n = i + 1;
+        for ab in st.kind.ablations() {
+            let edits = ab.edits.iter().map(|e| Edit::of_stage(n, e)).collect();
+            out.push(Candidate {
+                stage_index: i,
+                mechanism: ab.mechanism,
+                stage: st.label.clone(),
+                change: format!("{}: {}", st.label, ab.change),
+                edits,
+            });
+        }
+    }
+    out
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

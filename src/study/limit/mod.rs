@@ -177,33 +177,7 @@ pub struct LimitReport {
     pub notes: Vec<String>,
 }
 
-/// A candidate ablation: (mechanism, stage label, description, edits).
-#[derive(Debug, Clone, PartialEq)]
-pub struct Candidate {
-    pub mechanism: String,
-    pub stage: String,
-    pub change: String,
-    pub edits: Vec<Edit>,
-}
-
-/// The non-idealities present in the scenario, each with the edits that make it ideal (each stage kind lists its
-/// own: [`crate::stages::kind::KindSpec::ablations`]).
-pub fn candidates(sc: &Scenario) -> Vec<Candidate> {
-    let mut out = Vec::new();
-    for (i, st) in sc.stages.iter().enumerate() {
-        let n = i + 1;
-        for ab in st.kind.ablations() {
-            let edits = ab.edits.iter().map(|e| Edit::of_stage(n, e)).collect();
-            out.push(Candidate {
-                mechanism: ab.mechanism,
-                stage: st.label.clone(),
-                change: format!("{}: {}", st.label, ab.change),
-                edits,
-            });
-        }
-    }
-    out
-}
+pub use crate::scenario::overrides::{Candidate, candidates};
 
 /// Rates of interest of a chain: each stage's (the ADC's sample rate, low-pass cutoffs, amplifier and DAC
 /// bandwidths), the analysis band. And the highest high-pass cutoff.
