@@ -56,8 +56,9 @@ pub struct Plan {
     pub memory_estimate_bytes: u64,
 }
 
-/// How a sine source and the analysis record were fitted to each other.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+/// How a sine source and the analysis record were fitted to each other (report.json: `run.tone_placement`).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize)]
+#[serde(rename_all = "snake_case")]
 pub enum TonePlacement {
     /// Not a sine source, or `analysis.coherent = false`: the tone is analysed as asked, with the window.
     AsAsked,
@@ -70,8 +71,9 @@ pub enum TonePlacement {
     NonCoherent,
 }
 
-/// Where the output metrics' band comes from.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+/// Where the output metrics' band comes from (report.json: `run.output_band_rule`).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize)]
+#[serde(rename_all = "snake_case")]
 pub enum BandRule {
     /// `analysis.band` as written.
     Written,
@@ -83,12 +85,12 @@ pub enum BandRule {
 }
 
 impl BandRule {
-    /// The name report.json uses.
-    pub fn key(self) -> &'static str {
+    /// Words for tables and reports.
+    pub fn describe(self) -> &'static str {
         match self {
-            BandRule::Written => "written",
-            BandRule::ConverterNyquist => "converter_nyquist",
-            BandRule::RecordPassband => "record_passband",
+            BandRule::Written => "analysis.band",
+            BandRule::ConverterNyquist => "the converter's Nyquist band",
+            BandRule::RecordPassband => "the output record's passband",
         }
     }
 }

@@ -4,7 +4,7 @@ use serde::Serialize;
 use serde_json::{Value, json};
 
 use crate::engine::pipeline::si;
-use crate::engine::plan::{Plan, TonePlacement};
+use crate::engine::plan::{BandRule, Plan, TonePlacement};
 use crate::measure::chain::{AdcMetrics, ChainMetrics, LatencyMetrics, OutputMetrics};
 use crate::measure::imd::ImdMetrics;
 use crate::measure::step::StepMetrics;
@@ -82,14 +82,14 @@ pub struct RunInfo {
     pub coherent_cycles: Option<u64>,
     /// `coherent` (moved by at most 0.1 %), `as_asked` (not a sine, or coherence off) or `non_coherent`
     /// (coherence asked for but impossible within the run: analysed with the window).
-    pub tone_placement: &'static str,
+    pub tone_placement: TonePlacement,
     /// The scenario's own duration when the run was lengthened to hold the tone coherently.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub lengthened_from_s: Option<f64>,
     pub output_analysis_rate_hz: f64,
     /// Where the output metrics' band comes from: `written` (analysis.band), `converter_nyquist` or
     /// `record_passband`.
-    pub output_band_rule: &'static str,
+    pub output_band_rule: BandRule,
     pub capture_start_s: f64,
     pub capture_length: usize,
 }
@@ -129,14 +129,10 @@ impl Report {
                 requested_frequency_hz: plan.requested_frequency_hz,
                 frequency_hz: plan.frequency_hz,
                 coherent_cycles: plan.coherent_cycles,
-                tone_placement: match plan.tone {
-                    TonePlacement::AsAsked => "as_asked",
-                    TonePlacement::Coherent => "coherent",
-                    TonePlacement::NonCoherent => "non_coherent",
-                },
+                tone_placement: plan.tone,
                 lengthened_from_s: plan.lengthened_from_s,
                 output_analysis_rate_hz: plan.out_rate_hz,
-                output_band_rule: plan.out_band_rule.key(),
+                output_band_rule: plan.out_band_rule,
                 capture_start_s: plan.timebase.time_s(plan.capture_n0),
                 capture_length: plan.capture_len,
             },
@@ -152,11 +148,7 @@ impl Report {
     /// The band the output figures use and where it comes from, with the wideband figures when there are any.
     pub fn band_note(&self) -> String {
         let o = &self.output;
-        let why = match self.run.output_band_rule {
-            "written" => "analysis.band",
-            "converter_nyquist" => "the converter's Nyquist band",
-            _ => "the output record's passband",
-        };
+        let why = self.run.output_band_rule.describe();
         let mut s = format!("output figures over 0 .. {} ({why})", si(o.band_hz, "Hz"));
         if let Some(w) = &o.wideband {
             let f = |x: Option<f64>, unit: &str| {
@@ -181,14 +173,14 @@ impl Report {
             return v;
         };
         match r.tone_placement {
-            "coherent" if req != used => v.push(format!(
+            TonePlacement::Coherent if req != used => v.push(format!(
                 "source at {} (asked {}, {:+.3} %): {} whole cycles in the record, for coherent sampling",
                 format_si_as(used, "Hz", SiStyle::Significant(7)),
                 si(req, "Hz"),
                 100.0 * (used - req) / req,
                 r.coherent_cycles.unwrap_or(0)
             )),
-            "non_coherent" => v.push(format!(
+            TonePlacement::NonCoherent => v.push(format!(
                 "source at {} analysed non-coherently with the {} window: no record in this run holds it \
                  coherently within 0.1 % (lengthen simulation.duration for a coherent record)",
                 si(req, "Hz"),
