@@ -4,7 +4,7 @@ mod common;
 
 use std::fs;
 
-use common::{json, ok, run_in, stdout};
+use common::{csv_rows, json, ok, run_in, stdout};
 
 /// An ideal 12-bit chain (0..5 V) at 48 kHz, driven by two tones of 1 V at 1 kHz and 1.2 kHz; `level` writes
 /// the tones as -7.96 dBFS (1 V peak in a 2.5 V full-scale peak).
@@ -165,22 +165,9 @@ fn a_second_order_butterworth_overshoots_by_4_3_percent() {
 
 /// `sweep.csv` as rows of (column name -> cell).
 fn sweep_rows(path: &std::path::Path) -> Vec<std::collections::HashMap<String, String>> {
-    let text = fs::read_to_string(path).unwrap();
-    let mut lines = text.lines();
-    let header: Vec<String> = lines
-        .next()
-        .unwrap()
-        .split(',')
-        .map(str::to_string)
-        .collect();
-    lines
-        .map(|l| {
-            header
-                .iter()
-                .cloned()
-                .zip(l.split(',').map(str::to_string))
-                .collect()
-        })
+    let (header, rows) = csv_rows(path);
+    rows.into_iter()
+        .map(|r| header.iter().cloned().zip(r).collect())
         .collect()
 }
 

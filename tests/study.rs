@@ -3,11 +3,10 @@
 mod common;
 
 use std::fs;
-use std::path::Path;
 use std::process::Output;
 use std::time::Duration;
 
-use common::{bin, interrupt_after, json, ok, run_in, stderr, stdout};
+use common::{bin, csv_rows, interrupt_after, json, ok, run_in, stderr, stdout};
 
 /// A short 10-bit chain on a 1 MHz grid: hold, SAR at 50 kSPS, DAC with slew and settling, 2nd-order filter.
 const SMALL_CHAIN: &str = r#"
@@ -48,21 +47,6 @@ cutoff = "10 kHz"
 band = "10 kHz"
 coherent = true
 "#;
-
-fn csv_rows(path: &Path) -> (Vec<String>, Vec<Vec<String>>) {
-    let text = fs::read_to_string(path).unwrap();
-    let mut lines = text.lines();
-    let header: Vec<String> = lines
-        .next()
-        .unwrap()
-        .split(',')
-        .map(str::to_string)
-        .collect();
-    let rows = lines
-        .map(|l| l.split(',').map(str::to_string).collect())
-        .collect();
-    (header, rows)
-}
 
 fn col(header: &[String], name: &str) -> usize {
     header

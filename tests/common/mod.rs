@@ -95,3 +95,19 @@ pub fn interrupt_after(cmd: &mut Command, after: Duration) -> (ExitStatus, Strin
     std::io::Read::read_to_string(&mut child.stderr.take().unwrap(), &mut err).unwrap();
     (status, err)
 }
+
+/// A comma-separated file (no quoting, as convchain writes its rows) as its header and its rows of cells.
+pub fn csv_rows(path: &Path) -> (Vec<String>, Vec<Vec<String>>) {
+    let text = std::fs::read_to_string(path).unwrap();
+    let mut lines = text.lines();
+    let header: Vec<String> = lines
+        .next()
+        .unwrap()
+        .split(',')
+        .map(str::to_string)
+        .collect();
+    let rows = lines
+        .map(|l| l.split(',').map(str::to_string).collect())
+        .collect();
+    (header, rows)
+}
