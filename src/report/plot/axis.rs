@@ -382,3 +382,111 @@ pub(super) fn titled_frame<DB: DrawingBackend>(
 pub(super) fn bottom_margin<DB: DrawingBackend>(p: &Painter<DB>) -> i32 {
     p.fpx(0.35) + p.fpx(1.25) + p.fpx(1.6)
 }
+
+#[cfg(test)]
+mod tests {
+    use super::super::split_label_unit;
+    use super::*;
+
+    // ---- SI formatter ----
+
+    #[test]
+    fn axis_titles_carry_the_prefixed_unit() {
+        assert_eq!(axis_title("time", "s", 2e-3).0, "time (ms)");
+        assert_eq!(axis_title("time", "s", 300e-6).0, "time (µs)");
+        assert_eq!(axis_title("frequency", "Hz", 24e3).0, "frequency (kHz)");
+        assert_eq!(axis_title("voltage", "V", 0.05).0, "voltage (mV)");
+        assert_eq!(axis_title("level", "dBFS", 120.0).0, "level (dBFS)");
+        assert_eq!(axis_title("code", "", 4095.0).0, "code");
+        let (_, p) = axis_title("time", "s", 2e-3);
+        assert!((1.5e-3 * p.scale() - 1.5).abs() < 1e-12);
+    }
+
+    #[test]
+    fn linear_ticks_use_one_two_five_steps_and_scaled_labels() {
+        let a = Axis::linear("time", "s", 0.0, 2e-3, 8);
+        let labels: Vec<&str> = a.ticks.iter().map(|(_, s)| s.as_str()).collect();
+        // 2 ms / 8 = 0.25 ms; the nearest 1-2-5 step (in ratio) is 0.2 ms.
+        let want = [
+            "0.0", "0.2", "0.4", "0.6", "0.8", "1.0", "1.2", "1.4", "1.6", "1.8", "2.0",
+        ];
+        assert_eq!(labels, want);
+        assert_eq!(a.title, "time (ms)");
+        let v = Axis::linear("voltage", "V", -0.9, 0.9, 6);
+        let labels: Vec<&str> = v.ticks.iter().map(|(_, s)| s.as_str()).collect();
+        assert_eq!(
+            labels,
+            [
+                "-0.8", "-0.6", "-0.4", "-0.2", "0.0", "0.2", "0.4", "0.6", "0.8"
+            ]
+        );
+        assert_eq!(v.title, "voltage (V)");
+        let m = Axis::linear("voltage", "V", -0.03, 0.05, 4);
+        let labels: Vec<&str> = m.ticks.iter().map(|(_, s)| s.as_str()).collect();
+        assert_eq!(labels, ["-20", "0", "20", "40"]);
+        assert_eq!(m.title, "voltage (mV)");
+    }
+
+    #[test]
+    fn ticks_count_from_an_offset_when_the_span_is_small_against_the_values() {
+        // 160 µs of a run 4 s long: labels count µs from the window's start, not "3999840".
+        let a = Axis::linear("time", "s", 3.99984, 4.0, 8);
+        assert_eq!(a.title, "time (µs from 3.99984 s)");
+        assert_eq!(a.ticks[0].1, "0");
+        assert!(a.ticks.iter().all(|(_, l)| l.len() <= 3), "{:?}", a.ticks);
+        assert_eq!(a.ticks.last().unwrap().1, "160");
+        // The ticks still sit at their times.
+        assert!((a.ticks[1].0 - 3.99986).abs() < 1e-12);
+        // A 4 s window from zero reads in seconds; a 4 s window 100 s into a run needs no offset either.
+        let b = Axis::linear("time", "s", 0.0, 4.0, 8);
+        assert_eq!(b.title, "time (s)");
+        assert_eq!(b.ticks[1].1, "0.5");
+        let c = Axis::linear("time", "s", 100.0, 104.0, 8);
+        assert_eq!(c.title, "time (s)");
+        assert_eq!(c.ticks[0].1, "100.0");
+        // Latencies 9 µs apart around 153 ms (a Monte-Carlo histogram).
+        let d = Axis::linear("measured latency", "s", 153.2077e-3, 153.2166e-3, 8);
+        assert_eq!(d.title, "measured latency (µs from 153.207 ms)");
+        assert_eq!(d.ticks[0].1, "1");
+    }
+
+    #[test]
+    fn slew_rates_read_in_volts_per_microsecond() {
+        assert_eq!(axis_title("slew rate", "V/s", 49e6).0, "slew rate (V/µs)");
+        assert_eq!(axis_title("slew rate", "V/s", 5e3).0, "slew rate (V/ms)");
+        let a = Axis::linear("buffer slew rate", "V/s", 1e6, 50e6, 5);
+        assert_eq!(a.title, "buffer slew rate (V/µs)");
+        assert!(
+            a.ticks.iter().any(|(v, l)| *v == 10e6 && l == "10"),
+            "{:?}",
+            a.ticks
+        );
+        let l = Axis::logarithmic("buffer slew rate", "V/s", 1e6, 100e6);
+        assert_eq!(l.title, "buffer slew rate (V/µs)");
+        assert!(
+            l.ticks
+                .iter()
+                .any(|(v, t)| (*v - 10e6).abs() < 1.0 && t == "10"),
+            "{:?}",
+            l.ticks
+        );
+    }
+
+    #[test]
+    fn log_ticks_sit_on_decades_with_their_own_prefix() {
+        let a = Axis::logarithmic("frequency", "Hz", 10.0, 1e6);
+        let labels: Vec<&str> = a.ticks.iter().map(|(_, s)| s.as_str()).collect();
+        assert_eq!(labels, ["10", "100", "1k", "10k", "100k", "1M"]);
+        assert_eq!(a.title, "frequency (Hz)");
+    }
+
+    #[test]
+    fn label_units_are_split_from_the_quantity() {
+        assert_eq!(
+            split_label_unit("input frequency (Hz)"),
+            ("input frequency", "Hz")
+        );
+        assert_eq!(split_label_unit("SINAD (dB)"), ("SINAD", "dB"));
+        assert_eq!(split_label_unit("gain"), ("gain", ""));
+    }
+}

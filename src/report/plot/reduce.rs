@@ -91,3 +91,62 @@ pub(super) fn to_pixels<I: Iterator<Item = (f64, f64)>>(
     }
     out
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    // ---- decimation ----
+
+    /// Slow oracle: the extreme values of every column.
+    fn column_extremes(points: &[(f64, f64)]) -> Vec<(i64, f64, f64)> {
+        let mut out: Vec<(i64, f64, f64)> = Vec::new();
+        for &(x, y) in points {
+            let c = x.floor() as i64;
+            match out.last_mut() {
+                Some(last) if last.0 == c => {
+                    last.1 = last.1.min(y);
+                    last.2 = last.2.max(y);
+                }
+                _ => out.push((c, y, y)),
+            }
+        }
+        out
+    }
+
+    #[test]
+    fn min_max_reduction_keeps_a_single_sample_spike() {
+        // 100 000 points over 500 columns, flat except one sample up and one sample down.
+        let n = 100_000;
+        let mut pts: Vec<(f64, f64)> = (0..n)
+            .map(|i| (i as f64 * 500.0 / n as f64, 300.0))
+            .collect();
+        pts[31_337].1 = 10.0;
+        pts[77_777].1 = 590.0;
+        let mut out = Vec::new();
+        reduce_columns(pts.iter().copied(), Reduce::MinMax, &mut out);
+        assert!(out.len() <= 2 * 500);
+        assert!(out.iter().any(|p| p.1 == 10.0), "upward spike lost");
+        assert!(out.iter().any(|p| p.1 == 590.0), "downward spike lost");
+        // Every column keeps exactly its extremes (against the slow oracle).
+        let oracle = column_extremes(&pts);
+        let kept = column_extremes(&out);
+        assert_eq!(oracle, kept);
+        // Order of occurrence is kept: x never decreases.
+        assert!(out.windows(2).all(|w| w[1].0 >= w[0].0));
+    }
+
+    #[test]
+    fn max_reduction_keeps_spectral_peaks_and_short_series_pass_unchanged() {
+        let mut pts: Vec<(f64, f64)> = (0..10_000).map(|i| (i as f64 / 100.0, 500.0)).collect();
+        pts[4321].1 = 20.0; // a peak is a small pixel y
+        let mut out = Vec::new();
+        reduce_columns(pts.iter().copied(), Reduce::Max, &mut out);
+        assert_eq!(out.len(), 100);
+        assert!(out.contains(&pts[4321]));
+        let short: Vec<(f64, f64)> = (0..50).map(|i| (i as f64 * 3.0, (i * i) as f64)).collect();
+        let mut out = Vec::new();
+        reduce_columns(short.iter().copied(), Reduce::MinMax, &mut out);
+        assert_eq!(out, short);
+    }
+}
