@@ -55,8 +55,14 @@ pub(super) fn draw_budget<DB: DrawingBackend>(
     } else {
         0.0
     };
+    // Two significant digits, so a small difference does not print as "+0.0 %".
+    let decimals = if pct.abs() >= 10.0 || pct == 0.0 {
+        0
+    } else {
+        ((1.0 - pct.abs().log10().floor()) as usize).min(4)
+    };
     let summary_note = format!(
-        "budget {}, measured {} ({}{}, {pct:+.1} %)",
+        "budget {}, measured {} ({}{}, {pct:+.decimals$} %)",
         format_si(total, "s", 4),
         format_si(b.measured_s, "s", 4),
         if diff >= 0.0 { "+" } else { "" },
