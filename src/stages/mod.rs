@@ -84,7 +84,9 @@ pub trait Probe {
 
 #[cfg(test)]
 pub mod conformance;
+pub mod delta_sigma;
 pub mod kind;
+pub mod multirate;
 #[macro_use]
 pub mod registry;
 pub mod roles;
