@@ -21,7 +21,6 @@ use crate::measure::window::bessel_i0;
 /// output divided by the DC gain `factor^order`.
 #[derive(Debug, Clone)]
 pub struct CicDecimator {
-    order: usize,
     factor: usize,
     integ: Vec<i64>,
     comb: Vec<i64>,
@@ -32,7 +31,6 @@ pub struct CicDecimator {
 impl CicDecimator {
     pub fn new(order: usize, factor: usize) -> CicDecimator {
         CicDecimator {
-            order,
             factor: factor.max(1),
             integ: vec![0; order],
             comb: vec![0; order],
