@@ -536,6 +536,7 @@ impl DeltaSigmaQuantizer {
         let half = 0.5 * (high - low);
         let noise = self.cfg.input_noise_v / half;
         let step = self.modulator.step_size();
+        let centre = i64::from(self.modulator.levels()) - 1;
         let mut last = None;
         while m <= m_end {
             let t = m.max(0) as f64 / f_mod;
@@ -546,11 +547,13 @@ impl DeltaSigmaQuantizer {
                 let z: f64 = StandardNormal.sample(&mut self.rng);
                 u += noise * z;
             }
+            // The filters run on the level index centred on mid-scale (2 i - (levels - 1)), so their empty
+            // start-up state reads as mid-scale rather than as the lowest level.
             let i = self.modulator.step(u);
-            if let Some(c) = self.cic.push(i64::from(i))
+            if let Some(c) = self.cic.push(2 * i64::from(i) - centre)
                 && let Some(y) = self.fir.push(c)
             {
-                last = Some(-1.0 + step * y);
+                last = Some(0.5 * step * y);
             }
             m += 1;
         }
