@@ -202,7 +202,7 @@ impl Modulator {
     pub fn step(&mut self, u: f64) -> u32 {
         let f = self.d[0];
         let mut w = u + f;
-        if !(w.abs() <= self.limit) {
+        if w.is_nan() || w.abs() > self.limit {
             // Overload (or a non-finite input): count it, clear the loop filter, quantize the input alone.
             self.overloads += 1;
             self.d.iter_mut().for_each(|v| *v = 0.0);
