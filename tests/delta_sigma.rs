@@ -69,7 +69,10 @@ fn the_demo_measures_the_decimation_delay_it_states() {
 #[test]
 fn minimum_phase_is_far_earlier_and_as_clean() {
     let d = tempfile::tempdir().unwrap();
-    let sc = variant(d.path(), &[("phase = \"linear\"", "phase = \"minimum\"")]);
+    let sc = variant(
+        d.path(),
+        &[("filter_phase = \"linear\"", "filter_phase = \"minimum\"")],
+    );
     let out = d.path().join("o");
     ok(&run(&[
         "run",

@@ -2,7 +2,7 @@
 //! the input at the modulator clock (`oversampling` x the output rate) with a quantizer of 1 to 5 bits; a
 //! decimation chain ([`super::multirate`]) brings its output down to the output rate: a sinc^K (CIC) stage to 4
 //! (or 2) x the output rate, then one FIR that compensates the CIC's droop, sets the passband, and decimates the
-//! rest of the way. The FIR is linear phase, or (`phase = "minimum"`) its minimum-phase counterpart: the same
+//! rest of the way. The FIR is linear phase, or (`filter_phase = "minimum"`) its minimum-phase counterpart: the same
 //! magnitude with most of the delay gone and the phase no longer linear near the band edge.
 //!
 //! Delay (the latency budget): the CIC's K (R - 1) / 2 modulator clocks, plus the FIR's (taps - 1) / 2 samples at
@@ -94,24 +94,32 @@ impl DeltaSigmaAdcCfg {
     pub fn modulator_clock_hz(&self) -> f64 {
         self.sample_rate_hz * f64::from(self.oversampling)
     }
-    /// The FIR's decimation factor (4 when the ratio allows, else 2 or 1) and the CIC's (the rest).
-    pub fn factors(&self) -> (usize, usize) {
-        let osr = self.oversampling as usize;
-        let fir = if osr.is_multiple_of(4) {
-            4
-        } else if osr.is_multiple_of(2) {
-            2
-        } else {
-            1
-        };
-        (osr / fir, fir)
+    /// The loop and filter keys.
+    pub fn shaping(&self) -> Shaping {
+        Shaping {
+            oversampling: self.oversampling,
+            order: self.order,
+            quantizer_bits: self.quantizer_bits,
+            ntf_gain: self.ntf_gain,
+            zeros: self.zeros,
+            phase: self.phase,
+            passband_edge: self.passband_edge,
+            stopband_edge: self.stopband_edge,
+            ripple_db: self.ripple_db,
+            attenuation_db: self.attenuation_db,
+            cic_order: self.cic_order,
+        }
     }
     pub fn levels(&self) -> u32 {
-        1 << self.quantizer_bits
+        self.shaping().levels()
     }
     /// The designed loop and filters (cached: the same keys give the same design).
     pub fn design(&self) -> Arc<Design> {
-        design(self)
+        self.shaping().design()
+    }
+    /// The decimation chain's delay at `f_hz` (s); see [`Shaping::delay_s`].
+    pub fn delay_s(&self, f_hz: f64) -> f64 {
+        self.shaping().delay_s(self.sample_rate_hz, f_hz)
     }
 }
 
@@ -128,7 +136,7 @@ pub struct Design {
     pub delay_at_dc_s: f64,
 }
 
-fn design(cfg: &DeltaSigmaAdcCfg) -> Arc<Design> {
+fn design(cfg: &Shaping) -> Arc<Design> {
     type Key = (u32, u32, u32, u64, NtfZeros, FilterPhase, [u64; 4], u32);
     static CACHE: OnceLock<Mutex<HashMap<Key, Arc<Design>>>> = OnceLock::new();
     let key: Key = (
@@ -157,7 +165,7 @@ fn design(cfg: &DeltaSigmaAdcCfg) -> Arc<Design> {
     d
 }
 
-fn compute_design(cfg: &DeltaSigmaAdcCfg) -> Design {
+fn compute_design(cfg: &Shaping) -> Design {
     let osr = f64::from(cfg.oversampling);
     let ntf = design_ntf(
         cfg.order as usize,
@@ -212,98 +220,76 @@ fn compute_design(cfg: &DeltaSigmaAdcCfg) -> Design {
     }
 }
 
-impl Design {
-    /// The decimation chain's delay at `f_hz` (s) for output rate `fs_hz`: linear phase, the CIC's and the FIR's
-    /// (taps - 1)/2; minimum phase, the CIC's plus the FIR's phase delay at `f_hz`.
-    pub fn delay_s(&self, cfg: &DeltaSigmaAdcCfg, f_hz: f64) -> f64 {
-        let fs = cfg.sample_rate_hz;
-        match cfg.phase {
-            FilterPhase::Linear => self.delay_at_dc_s / fs,
+
+
+/// The keys of the noise-shaping loop and its rate-change filter, shared by the delta-sigma ADC and DAC.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct Shaping {
+    /// Modulator clock over the converter's word rate.
+    pub oversampling: u32,
+    /// Loop order (1 to 5).
+    pub order: u32,
+    /// The loop's quantizer (1 to 5 bits: 2 to 32 levels).
+    pub quantizer_bits: u32,
+    /// Largest NTF gain over all frequencies.
+    pub ntf_gain: f64,
+    pub zeros: NtfZeros,
+    /// The rate-change FIR's phase.
+    pub phase: FilterPhase,
+    /// Passband and stop-band edges, fractions of the word rate.
+    pub passband_edge: f64,
+    pub stopband_edge: f64,
+    /// Peak-to-peak passband ripple (dB) and stop-band attenuation (dB) the FIR must meet.
+    pub ripple_db: f64,
+    pub attenuation_db: f64,
+    /// Order of the CIC stage.
+    pub cic_order: u32,
+}
+
+impl Shaping {
+    pub fn levels(&self) -> u32 {
+        1 << self.quantizer_bits
+    }
+    /// The FIR's rate-change factor (4 when the ratio allows, else 2 or 1) and the CIC's (the rest).
+    pub fn factors(&self) -> (usize, usize) {
+        let osr = self.oversampling as usize;
+        let fir = if osr.is_multiple_of(4) {
+            4
+        } else if osr.is_multiple_of(2) {
+            2
+        } else {
+            1
+        };
+        (osr / fir, fir)
+    }
+    /// The designed loop and filters (cached: the same keys give the same design).
+    pub fn design(&self) -> Arc<Design> {
+        design(self)
+    }
+    /// The filters' delay at `f_hz` (s) for word rate `fs_hz`: linear phase, the CIC's K (R - 1)/2 fast clocks
+    /// and the FIR's (taps - 1)/2; minimum phase, the CIC's plus the FIR's phase delay at `f_hz`.
+    pub fn delay_s(&self, fs_hz: f64, f_hz: f64) -> f64 {
+        let d = self.design();
+        match self.phase {
+            FilterPhase::Linear => d.delay_at_dc_s / fs_hz,
             FilterPhase::Minimum => {
-                let osr = f64::from(cfg.oversampling);
-                let k = cfg.cic_order as f64;
-                let cic = k * (self.cic_factor as f64 - 1.0) / 2.0 / (osr * fs);
-                let rate = self.fir_factor as f64 * fs;
+                let osr = f64::from(self.oversampling);
+                let k = f64::from(self.cic_order);
+                let cic = k * (d.cic_factor as f64 - 1.0) / 2.0 / (osr * fs_hz);
+                let rate = d.fir_factor as f64 * fs_hz;
                 let f = (f_hz / rate).clamp(0.0, 0.5);
-                cic + fir_phase_delay_samples(&self.fir.taps, f) / rate
+                cic + fir_phase_delay_samples(&d.fir.taps, f) / rate
             }
         }
     }
 }
 
-impl KindSpec for DeltaSigmaAdcCfg {
-    const NAME: &'static str = "delta_sigma_adc";
-    const ROLE: Role = Role::Quantizer;
-    const EXAMPLE: &'static str = r#"bits = 20
-range = ["-2.5 V", "2.5 V"]
-sample_rate = "48 kHz"
-oversampling = 64
-order = 4
-quantizer_bits = 1
-input_noise = "20 uV""#;
-    const PARAMS: &'static [Param] = {
-        use Dimension as D;
-        &[
-            Param::fixed("bits", ParamKind::Integer),
-            Param::fixed("range", ParamKind::Pair(D::Voltage)),
-            Param::spread("sample_rate", D::Frequency),
-            Param::fixed("modulator_clock", ParamKind::Quantity(D::Frequency)),
-            Param::fixed("oversampling", ParamKind::Integer),
-            Param::fixed("order", ParamKind::Integer),
-            Param::fixed("quantizer_bits", ParamKind::Integer),
-            Param::fixed("ntf_gain", ParamKind::Number),
-            Param::fixed("zeros", ParamKind::Choice(&["dc", "spread"])),
-            Param::fixed("phase", ParamKind::Choice(&["linear", "minimum"])),
-            Param::fixed("passband_edge", ParamKind::Number),
-            Param::fixed("stopband_edge", ParamKind::Number),
-            Param::fixed("ripple", ParamKind::Quantity(D::Decibels)),
-            Param::fixed("attenuation", ParamKind::Quantity(D::Decibels)),
-            Param::fixed("cic_order", ParamKind::Integer),
-            Param::spread("input_noise", D::Voltage),
-        ]
-    };
-
-    fn read(
-        r: &mut TableReader<'_, '_>,
-        _ctx: &ReadContext,
-    ) -> std::result::Result<Self, ScenarioError> {
-        use Dimension as D;
-        let bits = r.integer("bits", 4, 24)?.map_or(24, |b| b.value as u32);
-        let range = r
-            .pair("range", D::Voltage)?
-            .ok_or_else(|| r.missing("range", "[\"-2.5 V\", \"2.5 V\"]"))?;
-        if range.value.0 >= range.value.1 {
-            return Err(r
-                .error(&range.span, "range", "the low end must be below the high end")
-                .with_hint("write the range as [low, high], e.g. [\"-2.5 V\", \"2.5 V\"]"));
-        }
+/// Read the [`Shaping`] keys (with their defaults) and check that the loop they design is stable.
+pub fn read_shaping(r: &mut TableReader<'_, '_>) -> std::result::Result<Shaping, ScenarioError> {
+    use Dimension as D;
         let oversampling = r
             .integer("oversampling", 4, 1024)?
             .map_or(64, |v| v.value as u32);
-        let sample_rate = r.positive("sample_rate", D::Frequency)?;
-        let clock = r.positive("modulator_clock", D::Frequency)?;
-        let osr = f64::from(oversampling);
-        let sample_rate_hz = match (&sample_rate, &clock) {
-            (Some(fs), None) => fs.value,
-            (None, Some(c)) => c.value / osr,
-            (Some(fs), Some(c)) => {
-                if ((fs.value * osr) / c.value - 1.0).abs() > 1e-9 {
-                    return Err(r
-                        .error(
-                            &c.span,
-                            "modulator_clock",
-                            format!(
-                                "is not sample_rate x oversampling ({} x {oversampling} = {})",
-                                format_si(fs.value, "Hz"),
-                                format_si(fs.value * osr, "Hz")
-                            ),
-                        )
-                        .with_hint("give either sample_rate or modulator_clock, with oversampling"));
-                }
-                fs.value
-            }
-            (None, None) => return Err(r.missing("sample_rate", "\"48 kHz\"")),
-        };
         let order = r.integer("order", 1, 5)?.map_or(4, |v| v.value as u32);
         let quantizer_bits = r
             .integer("quantizer_bits", 1, 5)?
@@ -327,7 +313,7 @@ input_noise = "20 uV""#;
             .map_or(NtfZeros::Spread, |c| c.value);
         let phase = r
             .choice(
-                "phase",
+                "filter_phase",
                 &[("linear", FilterPhase::Linear), ("minimum", FilterPhase::Minimum)],
             )?
             .map_or(FilterPhase::Linear, |c| c.value);
@@ -379,36 +365,124 @@ input_noise = "20 uV""#;
         let cic_order = r
             .integer("cic_order", 1, 8)?
             .map_or(order + 1, |v| v.value as u32);
+    let sh = Shaping {
+        oversampling,
+        order,
+        quantizer_bits,
+        ntf_gain,
+        zeros,
+        phase,
+        passband_edge,
+        stopband_edge,
+        ripple_db,
+        attenuation_db,
+        cic_order,
+    };
+    let d = sh.design();
+    if d.max_stable < 0.05 {
+        let span = gain.map(|g| g.span).unwrap_or_default();
+        return Err(r
+        .error(
+            &span,
+            "ntf_gain",
+            format!(
+            "the loop (order {order}, {quantizer_bits}-bit quantizer, NTF gain {ntf_gain}) is unstable even for a small input"
+            ),
+        )
+        .with_hint("lower ntf_gain (1.5 for a 1-bit quantizer), lower the order, or add quantizer bits"));
+    }
+    Ok(sh)
+}
+
+impl KindSpec for DeltaSigmaAdcCfg {
+    const NAME: &'static str = "delta_sigma_adc";
+    const ROLE: Role = Role::Quantizer;
+    const EXAMPLE: &'static str = r#"bits = 20
+range = ["-2.5 V", "2.5 V"]
+sample_rate = "48 kHz"
+oversampling = 64
+order = 4
+quantizer_bits = 1
+input_noise = "20 uV""#;
+    const PARAMS: &'static [Param] = {
+        use Dimension as D;
+        &[
+            Param::fixed("bits", ParamKind::Integer),
+            Param::fixed("range", ParamKind::Pair(D::Voltage)),
+            Param::spread("sample_rate", D::Frequency),
+            Param::fixed("modulator_clock", ParamKind::Quantity(D::Frequency)),
+            Param::fixed("oversampling", ParamKind::Integer),
+            Param::fixed("order", ParamKind::Integer),
+            Param::fixed("quantizer_bits", ParamKind::Integer),
+            Param::fixed("ntf_gain", ParamKind::Number),
+            Param::fixed("zeros", ParamKind::Choice(&["dc", "spread"])),
+            Param::fixed("filter_phase", ParamKind::Choice(&["linear", "minimum"])),
+            Param::fixed("passband_edge", ParamKind::Number),
+            Param::fixed("stopband_edge", ParamKind::Number),
+            Param::fixed("ripple", ParamKind::Quantity(D::Decibels)),
+            Param::fixed("attenuation", ParamKind::Quantity(D::Decibels)),
+            Param::fixed("cic_order", ParamKind::Integer),
+            Param::spread("input_noise", D::Voltage),
+        ]
+    };
+
+    fn read(
+        r: &mut TableReader<'_, '_>,
+        _ctx: &ReadContext,
+    ) -> std::result::Result<Self, ScenarioError> {
+        use Dimension as D;
+        let bits = r.integer("bits", 4, 24)?.map_or(24, |b| b.value as u32);
+        let range = r
+            .pair("range", D::Voltage)?
+            .ok_or_else(|| r.missing("range", "[\"-2.5 V\", \"2.5 V\"]"))?;
+        if range.value.0 >= range.value.1 {
+            return Err(r
+                .error(&range.span, "range", "the low end must be below the high end")
+                .with_hint("write the range as [low, high], e.g. [\"-2.5 V\", \"2.5 V\"]"));
+        }
+        let sh = read_shaping(r)?;
+        let oversampling = sh.oversampling;
+        let sample_rate = r.positive("sample_rate", D::Frequency)?;
+        let clock = r.positive("modulator_clock", D::Frequency)?;
+        let osr = f64::from(oversampling);
+        let sample_rate_hz = match (&sample_rate, &clock) {
+            (Some(fs), None) => fs.value,
+            (None, Some(c)) => c.value / osr,
+            (Some(fs), Some(c)) => {
+                if ((fs.value * osr) / c.value - 1.0).abs() > 1e-9 {
+                    return Err(r
+                        .error(
+                            &c.span,
+                            "modulator_clock",
+                            format!(
+                                "is not sample_rate x oversampling ({} x {oversampling} = {})",
+                                format_si(fs.value, "Hz"),
+                                format_si(fs.value * osr, "Hz")
+                            ),
+                        )
+                        .with_hint("give either sample_rate or modulator_clock, with oversampling"));
+                }
+                fs.value
+            }
+            (None, None) => return Err(r.missing("sample_rate", "\"48 kHz\"")),
+        };
         let cfg = DeltaSigmaAdcCfg {
             bits,
             range_v: range.value,
             sample_rate_hz,
             oversampling,
-            order,
-            quantizer_bits,
-            ntf_gain,
-            zeros,
-            phase,
-            passband_edge,
-            stopband_edge,
-            ripple_db,
-            attenuation_db,
-            cic_order,
+            order: sh.order,
+            quantizer_bits: sh.quantizer_bits,
+            ntf_gain: sh.ntf_gain,
+            zeros: sh.zeros,
+            phase: sh.phase,
+            passband_edge: sh.passband_edge,
+            stopband_edge: sh.stopband_edge,
+            ripple_db: sh.ripple_db,
+            attenuation_db: sh.attenuation_db,
+            cic_order: sh.cic_order,
             input_noise_v: r.non_negative("input_noise", D::Voltage)?,
         };
-        let d = cfg.design();
-        if d.max_stable < 0.05 {
-            let span = gain.map(|g| g.span).unwrap_or_default();
-            return Err(r
-                .error(
-                    &span,
-                    "ntf_gain",
-                    format!(
-                        "the loop (order {order}, {quantizer_bits}-bit quantizer, NTF gain {ntf_gain}) is unstable even for a small input"
-                    ),
-                )
-                .with_hint("lower ntf_gain (1.5 for a 1-bit quantizer), lower the order, or add quantizer bits"));
-        }
         Ok(cfg)
     }
 
@@ -629,7 +703,7 @@ impl Quantizer for DeltaSigmaQuantizer {
         };
         lines.push(BudgetLine {
             stage: format!("{}: {what}", self.label),
-            seconds: self.design.delay_s(&self.cfg, f_hz),
+            seconds: self.cfg.delay_s(f_hz),
         });
         lines.push(BudgetLine {
             stage: format!("{}: output register (one modulator clock)", self.label),
@@ -729,7 +803,7 @@ mod tests {
         let (amp, phase, res) = fit(tail, f / c.sample_rate_hz);
         assert!((amp / 0.5 - 1.0).abs() < 2e-3, "amplitude {amp}");
         // Phase at the tail's start: the input's phase there is 2 pi f 1200 / fs; the output lags by the delay.
-        let d = c.design().delay_s(&c, f);
+        let d = c.delay_s(f);
         let expect = (2.0 * PI * f * (1200.0 / c.sample_rate_hz - d)).rem_euclid(2.0 * PI);
         let got = phase.rem_euclid(2.0 * PI);
         let diff = (got - expect + PI).rem_euclid(2.0 * PI) - PI;
@@ -744,9 +818,9 @@ mod tests {
     #[test]
     fn minimum_phase_cuts_the_delay_and_keeps_the_level() {
         let mut c = cfg();
-        let lin = c.design().delay_s(&c, 1000.0);
+        let lin = c.delay_s(1000.0);
         c.phase = FilterPhase::Minimum;
-        let min = c.design().delay_s(&c, 1000.0);
+        let min = c.delay_s(1000.0);
         assert!(min < lin / 3.0, "{min} vs {lin}");
         let y = convert_sine(&c, 0.5, 1000.0, 4800);
         let (amp, _, _) = fit(&y[1200..], 1000.0 / 48_000.0);
@@ -776,7 +850,7 @@ mod tests {
         let lines = q.budget_at(1000.0);
         assert!(lines.iter().any(|l| l.stage.contains("linear-phase FIR")));
         let total: f64 = lines.iter().map(|l| l.seconds).sum();
-        let d = c.design().delay_s(&c, 1000.0) + 1.0 / c.modulator_clock_hz();
+        let d = c.delay_s(1000.0) + 1.0 / c.modulator_clock_hz();
         assert!((total - d).abs() < 1e-12);
     }
 }
