@@ -83,6 +83,8 @@ pub struct RunOutput {
     pub capture_adc_events: Vec<CodeEvent>,
     pub capture_dac_events: Vec<CodeEvent>,
     pub codes_clipped: u64,
+    /// Overloads of a noise-shaping loop (`None` without one).
+    pub modulator_overloads: Option<u64>,
     pub bits_flipped: u64,
     /// The latency budget from each stage's own delay: phase delays at the fundamental, or group delays at a
     /// tenth of the output band for broadband sources.
@@ -111,6 +113,7 @@ impl RunOutput {
                 _ => None,
             },
             codes_clipped: self.codes_clipped,
+            modulator_overloads: self.modulator_overloads,
             bits_flipped: self.bits_flipped,
             out_rate_hz: self.plan.out_rate_hz,
             out_band_hz: self.plan.out_band_hz,
@@ -256,7 +259,7 @@ impl Chain {
         }
         if let Some(c) = &self.converter {
             let fs = c.quantizer.sample_rate_hz();
-            lines.extend(c.quantizer.budget());
+            lines.extend(c.quantizer.budget_at(f_hz.unwrap_or(broadband_hz)));
             for stage in &c.code {
                 lines.extend(stage.budget(fs));
             }
@@ -634,6 +637,10 @@ fn run_with(
         volts: out_dec,
     };
 
+    let modulator_overloads = chain
+        .converter
+        .as_ref()
+        .and_then(|c| c.quantizer.overloads());
     let (codes_clipped, bits_flipped) = match &chain.converter {
         Some(c) => (
             c.quantizer.codes_clipped(),
@@ -676,6 +683,7 @@ fn run_with(
         capture_adc_events,
         capture_dac_events,
         codes_clipped,
+        modulator_overloads,
         bits_flipped,
         budget,
         pre_gain,

@@ -22,6 +22,8 @@ pub struct RunRecords<'a> {
     pub frequency_hz: Option<f64>,
     pub adc: Option<AdcRecord<'a>>,
     pub codes_clipped: u64,
+    /// Overloads of a noise-shaping loop (`None` without one).
+    pub modulator_overloads: Option<u64>,
     pub bits_flipped: u64,
     /// Rate and band of the output analysis record (Hz).
     pub out_rate_hz: f64,
@@ -66,6 +68,9 @@ pub struct AdcMetrics {
     pub sample_rate_hz: f64,
     pub conversion_time_s: f64,
     pub codes_clipped: u64,
+    /// Overloads of the converter's noise-shaping loop (delta-sigma converters only).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub modulator_overloads: Option<u64>,
     pub record_length: usize,
     pub fundamental_hz: Option<f64>,
     pub amplitude_v: Option<f64>,
@@ -229,6 +234,7 @@ pub fn measure_run(run: &RunRecords<'_>) -> Result<ChainMetrics> {
                 sample_rate_hz: p.sample_rate_hz,
                 conversion_time_s: p.conversion_time_s,
                 codes_clipped: run.codes_clipped,
+                modulator_overloads: run.modulator_overloads,
                 record_length: volts.len(),
                 fundamental_hz: f0,
                 amplitude_v: tm.as_ref().map(|t| t.fundamental_amplitude_v),

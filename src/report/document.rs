@@ -97,6 +97,11 @@ pub fn run_facts(r: &Report) -> Vec<String> {
                 a.codes_clipped
             ));
         }
+        if let Some(n) = a.modulator_overloads.filter(|&n| n > 0) {
+            f.push(format!(
+                "The noise-shaping loop overloaded {n} times: the input exceeds its largest stable level (see max_stable_input_v), and the metrics include the overloads."
+            ));
+        }
     }
     f.push(format!("{}.", capitalise(&r.band_note())));
     if let Some(m) = &r.imd {

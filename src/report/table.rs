@@ -82,6 +82,12 @@ pub fn summary(r: &Report) -> String {
                 a.codes_clipped
             );
         }
+        if let Some(n) = a.modulator_overloads.filter(|&n| n > 0) {
+            let _ = writeln!(
+                s,
+                "  the noise-shaping loop overloaded {n} times: the input exceeds its largest stable level (see max_stable_input_v), and the metrics include the overloads"
+            );
+        }
     }
     let _ = writeln!(s, "  {}", r.band_note());
     if let Some(m) = &r.imd {

@@ -84,7 +84,9 @@ pub trait Probe {
 
 #[cfg(test)]
 pub mod conformance;
+pub mod delta_sigma;
 pub mod kind;
+pub mod multirate;
 #[macro_use]
 pub mod registry;
 pub mod roles;
@@ -99,8 +101,10 @@ registry::stage_kinds! {
     sample_hold => SampleHold(SampleHoldCfg),
     sar_adc => SarAdc(SarAdcCfg),
     flash_adc => FlashAdc(FlashAdcCfg),
+    delta_sigma_adc => DeltaSigmaAdc(DeltaSigmaAdcCfg),
     link => Link(LinkCfg),
     dac => Dac(DacCfg),
+    delta_sigma_dac => DeltaSigmaDac(DeltaSigmaDacCfg),
     filter => Filter(FilterCfg),
     amplifier => Amplifier(AmplifierCfg),
     clip => Clip(ClipCfg),

@@ -57,6 +57,15 @@ pub trait Quantizer: Send {
     }
     /// Budget lines: the hold's, then the conversion's.
     fn budget(&self) -> Vec<BudgetLine>;
+    /// Budget lines at `f_hz`, for converters whose delay depends on frequency (a minimum-phase decimation
+    /// filter); the same as [`Quantizer::budget`] otherwise.
+    fn budget_at(&self, _f_hz: f64) -> Vec<BudgetLine> {
+        self.budget()
+    }
+    /// Times a noise-shaping loop overloaded (`None` for converters without one).
+    fn overloads(&self) -> Option<u64> {
+        None
+    }
 }
 
 /// A digital stage between the quantizer and the reconstructor.
