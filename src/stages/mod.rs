@@ -99,6 +99,7 @@ registry::stage_kinds! {
     sample_hold => SampleHold(SampleHoldCfg),
     sar_adc => SarAdc(SarAdcCfg),
     flash_adc => FlashAdc(FlashAdcCfg),
+    pipeline_adc => PipelineAdc(PipelineAdcCfg),
     link => Link(LinkCfg),
     dac => Dac(DacCfg),
     filter => Filter(FilterCfg),
