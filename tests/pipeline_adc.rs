@@ -123,3 +123,32 @@ fn static_finds_the_missing_codes_of_a_stage_gain_error_and_names_it() {
         }
     }
 }
+
+#[test]
+fn a_stage_resolution_the_kind_lacks_or_too_few_bits_exit_2_at_the_key() {
+    let d = tempfile::tempdir().unwrap();
+    for (name, extra, bits, want) in [
+        (
+            "half",
+            "stage_bits = 2",
+            12,
+            "stage.1.stage_bits: must be 1.5, 2.5 or 3.5, found 2",
+        ),
+        (
+            "few",
+            "stage_bits = 2.5",
+            3,
+            "stage.1.bits: a pipeline of 2.5-bit stages needs at least 4 bits",
+        ),
+    ] {
+        let text = scenario(name, extra).replace("bits = 12", &format!("bits = {bits}"));
+        fs::write(d.path().join(format!("{name}.toml")), text).unwrap();
+        let o = run_in(d.path(), &["check", &format!("{name}.toml")]);
+        assert_eq!(o.status.code(), Some(2), "{name}");
+        let e = common::stderr(&o);
+        assert!(
+            e.contains(&format!("{name}.toml:")) && e.contains(want),
+            "{e}"
+        );
+    }
+}
