@@ -101,6 +101,7 @@ registry::stage_kinds! {
     sample_hold => SampleHold(SampleHoldCfg),
     sar_adc => SarAdc(SarAdcCfg),
     flash_adc => FlashAdc(FlashAdcCfg),
+    pipeline_adc => PipelineAdc(PipelineAdcCfg),
     delta_sigma_adc => DeltaSigmaAdc(DeltaSigmaAdcCfg),
     link => Link(LinkCfg),
     dac => Dac(DacCfg),
