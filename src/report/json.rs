@@ -3,6 +3,7 @@
 use serde::Serialize;
 use serde_json::{Value, json};
 
+use crate::engine::audio::AudioReport;
 use crate::engine::pipeline::si;
 use crate::engine::plan::{BandRule, Plan, TonePlacement};
 use crate::measure::chain::{AdcMetrics, ChainMetrics, LatencyMetrics, OutputMetrics};
@@ -30,6 +31,9 @@ pub struct Report {
     /// Step metrics of the output, for a step source.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub step: Option<StepMetrics>,
+    /// Audio figures (AES17 methods), with `run --audio`.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub audio: Option<AudioReport>,
 }
 
 /// What the WAV files hold.
@@ -140,6 +144,7 @@ impl Report {
             warnings: sc.slips.clone(),
             imd: None,
             step: None,
+            audio: None,
         }
     }
 }
