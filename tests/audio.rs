@@ -181,14 +181,22 @@ fn audio_figures_need_a_sine_and_a_converter_and_a_band_that_parses() {
         ("20 kHz..20 Hz", "after the start"),
         ("20 Hz..20 kV", "frequency"),
         ("30 kHz..40 kHz", "Nyquist"),
+        ("2 kHz..20 kHz", "does not hold the source's tone"),
+        ("-5 Hz..20 kHz", "must not be negative"),
     ] {
-        let o = run_in(
-            d.path(),
-            &["run", "d16.toml", "--quiet", "--audio-band", band],
-        );
+        let arg = format!("--audio-band={band}");
+        let o = run_in(d.path(), &["run", "d16.toml", "--quiet", &arg]);
         assert_eq!(o.status.code(), Some(2), "{band}: {}", stderr(&o));
         assert!(stderr(&o).contains(says), "{band}: {}", stderr(&o));
     }
+    // A chain without a converter has no full scale for dBFS.
+    let analog = "name = \"analog\"\n[simulation]\nanalog_rate = \"480 kHz\"\nduration = \"20 ms\"\n\
+                  [source]\nwaveform = \"sine\"\nfrequency = \"1 kHz\"\namplitude = \"1 V\"\n\
+                  [[stage]]\nkind = \"amplifier\"\ngain = 2\n";
+    fs::write(d.path().join("analog.toml"), analog).unwrap();
+    let o = run_in(d.path(), &["run", "analog.toml", "--quiet", "--audio"]);
+    assert_eq!(o.status.code(), Some(2), "{}", stderr(&o));
+    assert!(stderr(&o).contains("needs a converter"), "{}", stderr(&o));
     // Without --audio there is no audio object.
     let o = run_in(
         d.path(),

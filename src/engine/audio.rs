@@ -205,7 +205,17 @@ pub fn check(sc: &Scenario, plan: &Plan, band_hz: (f64, f64)) -> Result<(f64, f6
             sc.origin
         )));
     };
-    band_used(band_hz, adc.sample_rate_hz, plan.out_wide_band_hz)
+    let band = band_used(band_hz, adc.sample_rate_hz, plan.out_wide_band_hz)?;
+    if let Some(f0) = sc.source.waveform.fundamental_hz()
+        && (f0 <= band.0 || f0 >= band.1)
+    {
+        return Err(Error::BadInput(format!(
+            "{}: the audio band {} Hz..{} Hz does not hold the source's tone ({f0} Hz): THD+N is measured \
+             around it; give a band that holds it",
+            sc.origin, band.0, band.1
+        )));
+    }
+    Ok(band)
 }
 
 /// The audio figures of a finished run (its metrics measured) over `band_hz` (see the module doc). Bad input

@@ -86,7 +86,7 @@ pub fn band_power(
     let p = &spec.power_v2;
     let nb = p.len();
     let l = spec.lobe_half_width_bins;
-    if nb < 2 * l + 3 || !(spec.bin_hz > 0.0) {
+    if nb < 2 * l + 3 || spec.bin_hz.is_nan() || spec.bin_hz <= 0.0 {
         return Err(Error::Run("spectrum too short for band powers".into()));
     }
     let (lo_hz, hi_hz) = band_hz;
@@ -126,7 +126,7 @@ pub fn band_power(
         None => None,
     };
     let in_fund = |k: usize| fund.is_some_and(|(a, b)| k >= a && k <= b);
-    let in_dc = |k: usize| k <= l && !fund.is_some_and(|(a, _)| a == 0);
+    let in_dc = |k: usize| k <= l && fund.is_none_or(|(a, _)| a != 0);
     let fundamental_v2 = fund.map_or(0.0, |(a, b)| p[a..=b].iter().sum::<f64>() / spec.enbw_bins);
     // Residual bins: their weighted sum, and their unweighted sum and bandwidth for the mean density.
     let (mut weighted, mut raw, mut width) = (0.0, 0.0, 0.0);
