@@ -6,9 +6,10 @@
 //! - the tone at -60 dBFS (the converter's full scale referred back to the source through the gain of the
 //!   stages before it at the tone's frequency);
 //! - the source silent (a sine of amplitude 0: the chain's idle channel);
-//! - a multitone of [`RESPONSE_TONES`] tones spaced evenly on a log axis over the band (plus one at 1 kHz when
-//!   none lies near it), with Schroeder's phases, their amplitudes summing to half of full scale, the run
-//!   lengthened so its record holds [`RESPONSE_CYCLES`] cycles of the lowest tone.
+//! - a multitone of [`RESPONSE_TONES`] tones spaced evenly on a log axis over the band (one of them moved to
+//!   1 kHz when it lies within 10 % of it, else a tone at 1 kHz added), with Schroeder's phases, their
+//!   amplitudes summing to half of full scale, the run lengthened so its record holds [`RESPONSE_CYCLES`]
+//!   cycles of the lowest tone.
 //!
 //! Every figure is taken on the analog output (full scale: the converter's full scale carried to the output by
 //! the chain's measured gain at the tone) and on the ADC's codes (full scale: half the converter's range).
@@ -117,15 +118,21 @@ fn with_waveform(sc: &Scenario, waveform: Waveform) -> Scenario {
 }
 
 /// The response run's tones over `band_hz` (the lowest at least a thousandth of the highest, the highest under
-/// 0.45 of the converter's rate), with one at 1 kHz added when no tone lies within 10 % of it.
+/// 0.45 of the converter's rate), with one at exactly 1 kHz (when the band holds it): the tone within 10 % of
+/// it is moved there, or one is added.
 pub fn response_tones_hz(band_hz: (f64, f64), adc_rate_hz: f64) -> Vec<f64> {
     let high = band_hz.1.min(0.45 * adc_rate_hz);
     let low = band_hz.0.max(high / 1000.0);
     let mut tones = audio::log_tones_hz(low, high, RESPONSE_TONES);
     let r = RESPONSE_REFERENCE_HZ;
-    if r > low && r < high && !tones.iter().any(|f| (f / r - 1.0).abs() < 0.1) {
-        tones.push(r);
-        tones.sort_by(f64::total_cmp);
+    if r > low && r < high {
+        match tones.iter().position(|f| (f / r - 1.0).abs() < 0.1) {
+            Some(i) => tones[i] = r,
+            None => {
+                tones.push(r);
+                tones.sort_by(f64::total_cmp);
+            }
+        }
     }
     tones
 }
@@ -356,6 +363,11 @@ mod tests {
         assert!((t[0] - 20.0).abs() < 1e-9 && (t[t.len() - 1] - 20_000.0).abs() < 1e-6);
         assert!(t.contains(&1000.0));
         assert!(t.windows(2).all(|w| w[1] > w[0]));
+        // A tone near 1 kHz is moved onto it.
+        // (105 Hz .. 10.5 kHz in 11 tones: the 6th at 1050 Hz.)
+        let t = response_tones_hz((105.0, 10_500.0), 48_000.0);
+        assert_eq!(t.len(), RESPONSE_TONES);
+        assert!(t.contains(&1000.0) && (t[0] - 105.0).abs() < 1e-9);
         // Clipped under the converter's Nyquist frequency, and the lowest never 0 on a log axis.
         let t = response_tones_hz((0.0, 20_000.0), 8_000.0);
         assert!((t[t.len() - 1] - 3600.0).abs() < 1e-6 && (t[0] - 3.6).abs() < 1e-9);
