@@ -206,3 +206,93 @@ fn audio_figures_need_a_sine_and_a_converter_and_a_band_that_parses() {
     let r = json(&d.path().join("out/dithered-16/report.json"));
     assert!(r.get("audio").is_none());
 }
+
+#[test]
+fn a_sweep_with_audio_gives_each_point_the_figures_run_gives() {
+    // The same scenario and seed give the same figures (the engine is deterministic): the sweep's point with
+    // the scenario's own seed reads what `run --audio` reports.
+    let d = tempfile::tempdir().unwrap();
+    fs::write(d.path().join("d16.toml"), DITHERED_16).unwrap();
+    let o = run_in(
+        d.path(),
+        &[
+            "run",
+            "d16.toml",
+            "--quiet",
+            "--no-wav",
+            "--no-plots",
+            "--audio",
+        ],
+    );
+    ok(&o);
+    let r = json(&d.path().join("out/dithered-16/report.json"));
+    let o = run_in(
+        d.path(),
+        &[
+            "sweep",
+            "d16.toml",
+            "--vary",
+            "simulation.seed=11..12",
+            "--points",
+            "2",
+            "--quiet",
+            "--audio",
+            "--out",
+            "sw",
+        ],
+    );
+    ok(&o);
+    let s = json(&d.path().join("sw/sweep.json"));
+    let row = &s["rows"][0];
+    assert_eq!(row["simulation.seed"].as_f64(), Some(11.0), "{row}");
+    for record in ["output", "adc"] {
+        for key in ["thd_n_db", "dynamic_range_db", "noise_a_dbfs", "noise_dbfs"] {
+            let col = format!("audio.{record}.{key}");
+            assert_eq!(
+                row[&col].as_f64(),
+                r["audio"][record][key].as_f64(),
+                "{col}"
+            );
+            assert!(row[&col].as_f64().is_some(), "{col}");
+        }
+        for (col, key) in [("response_min_db", "min"), ("response_max_db", "max")] {
+            let col = format!("audio.{record}.{col}");
+            assert_eq!(
+                row[&col].as_f64(),
+                r["audio"][record]["response_db"][key].as_f64(),
+                "{col}"
+            );
+        }
+    }
+    let second = &s["rows"][1];
+    assert!(second["audio.adc.noise_a_dbfs"].as_f64().is_some());
+    assert_ne!(
+        second["audio.adc.noise_a_dbfs"],
+        row["audio.adc.noise_a_dbfs"]
+    );
+    // The header says the band, and a sweep without --audio has no audio columns.
+    let o = run_in(
+        d.path(),
+        &[
+            "sweep",
+            "d16.toml",
+            "--vary",
+            "simulation.seed=11..12",
+            "--points",
+            "2",
+            "--quiet",
+            "--out",
+            "plain",
+        ],
+    );
+    ok(&o);
+    let plain = fs::read_to_string(d.path().join("plain/sweep.csv")).unwrap();
+    assert!(!plain.contains("audio."));
+    let with = fs::read_to_string(d.path().join("sw/sweep.csv")).unwrap();
+    assert!(
+        with.lines()
+            .next()
+            .unwrap()
+            .contains("audio.adc.response_max_db")
+    );
+}
