@@ -296,3 +296,41 @@ fn a_sweep_with_audio_gives_each_point_the_figures_run_gives() {
             .contains("audio.adc.response_max_db")
     );
 }
+
+#[test]
+fn a_monte_carlo_study_with_audio_takes_requirements_on_the_audio_figures() {
+    // Each run's audio figures are those `run --audio` gives for its seed; here the study checks the columns,
+    // the yield of a requirement on them, and that such a requirement without --audio is bad input.
+    let d = tempfile::tempdir().unwrap();
+    fs::write(d.path().join("d16.toml"), DITHERED_16).unwrap();
+    let args = [
+        "montecarlo",
+        "d16.toml",
+        "--runs",
+        "2",
+        "--no-static",
+        "--quiet",
+        "--require",
+        "audio.adc.dynamic_range_db>=90",
+        "--out",
+        "mc",
+    ];
+    let o = run_in(d.path(), &args);
+    assert_eq!(o.status.code(), Some(2), "{}", stderr(&o));
+    assert!(stderr(&o).contains("only with --audio"), "{}", stderr(&o));
+    let mut with_audio = args.to_vec();
+    with_audio.push("--audio");
+    let o = run_in(d.path(), &with_audio);
+    ok(&o);
+    let s = json(&d.path().join("mc/montecarlo.json"));
+    assert_eq!(s["yield"][0]["passed"].as_u64(), Some(2), "{}", s["yield"]);
+    let names: Vec<&str> = s["metrics"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .filter_map(|m| m["name"].as_str())
+        .collect();
+    assert!(names.contains(&"audio.output.noise_a_dbfs"), "{names:?}");
+    let csv = fs::read_to_string(d.path().join("mc/montecarlo.csv")).unwrap();
+    assert!(csv.lines().next().unwrap().contains("audio.adc.thd_n_db"));
+}
