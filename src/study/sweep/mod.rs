@@ -396,12 +396,12 @@ pub struct SweepOptions {
     pub shard: Shard,
 }
 
+/// A point's requested and used frequencies and its metric values.
+pub type PointValues = (Option<f64>, Option<f64>, Vec<Option<f64>>);
+
 /// [`simulate`], then the audio figures over `band_hz` (three more runs): (requested frequency, used
 /// frequency, the values of [`METRIC_COLUMNS`] and [`AUDIO_COLUMNS`]).
-pub fn simulate_audio(
-    sc: &Scenario,
-    band_hz: (f64, f64),
-) -> Result<(Option<f64>, Option<f64>, Vec<Option<f64>>)> {
+pub fn simulate_audio(sc: &Scenario, band_hz: (f64, f64)) -> Result<PointValues> {
     let run = pipeline::run_lean(sc)?;
     let m = measure_run(&run.records())?;
     let audio = crate::engine::audio::audio_figures(&run, &m, band_hz)?;
