@@ -33,6 +33,8 @@ pub struct RunOptions {
     pub wav: Option<WavOptions>,
     /// Write into a folder that holds a study (its files are then removed): `--force`.
     pub force: bool,
+    /// Measure the audio figures over this band (Hz), with three more runs (`--audio`); None = not.
+    pub audio_band_hz: Option<(f64, f64)>,
 }
 
 impl Default for RunOptions {
@@ -44,6 +46,7 @@ impl Default for RunOptions {
             figures: true,
             wav: Some(WavOptions::default()),
             force: false,
+            audio_band_hz: None,
         }
     }
 }
@@ -53,7 +56,10 @@ impl Default for RunOptions {
 /// (plots and WAV files after `--no-plots --no-wav`) are removed.
 pub fn run_to_dir(sc: &Scenario, dir: &Path, opts: &RunOptions) -> Result<Report> {
     // Plan first: bad input is reported before any folder appears.
-    Plan::new(sc)?;
+    let (plan, _) = Plan::new(sc)?;
+    if let Some(band) = opts.audio_band_hz {
+        crate::engine::audio::check(sc, &plan, band)?;
+    }
     let out = OutputDir::create(dir, &Producer::run(opts.force))?;
     match run_inner(sc, &out, opts) {
         Ok(r) => {
@@ -113,6 +119,13 @@ fn run_inner(sc: &Scenario, out: &OutputDir, opts: &RunOptions) -> Result<Report
     let metrics = measure_run(&run.records())?;
     let imd = crate::measure::imd::from_run(&run.records());
     let step = crate::measure::step::from_run(&run.records(), run.scenario.analysis.settling_band);
+    let audio = match opts.audio_band_hz {
+        Some(band) => {
+            phase("measuring the audio figures (three more runs)");
+            Some(crate::engine::audio::audio_figures(&run, &metrics, band)?)
+        }
+        None => None,
+    };
     let figs = if opts.figures {
         phase("drawing the plots");
         figures::run_figures(&run, &metrics, opts.window_s)?
@@ -122,6 +135,7 @@ fn run_inner(sc: &Scenario, out: &OutputDir, opts: &RunOptions) -> Result<Report
     let alignment = metrics.detail.alignment;
     let mut report = Report::new(&run.scenario, &run.plan, metrics);
     report.imd = imd;
+    report.audio = audio;
     match step {
         Some(Ok(m)) => report.step = Some(m),
         Some(Err(problem)) => report.scenario.warnings.push(problem.to_string()),

@@ -62,6 +62,14 @@ enum Command {
         /// Write into a folder that holds a study, replacing the files convchain wrote there.
         #[arg(long)]
         force: bool,
+        /// Add the audio figures (AES17 methods: THD+N, A-weighted dynamic range and idle noise, frequency
+        /// response), with three more runs of the chain.
+        #[arg(long)]
+        audio: bool,
+        /// Band of the audio figures, e.g. "20 Hz..20 kHz" (the default; implies --audio; its top is clipped to
+        /// the converter's Nyquist frequency).
+        #[arg(long, value_name = "LOW..HIGH")]
+        audio_band: Option<String>,
     },
     /// Write generated demo audio (no recording is shipped) to listen to a chain with.
     Audio {
@@ -146,23 +154,59 @@ const WAV_RATE_MAX_HZ: u32 = 384_000;
 /// Largest gain for error.wav (+80 dB); it is lowered automatically anyway when it would clip.
 const LISTEN_GAIN_MAX: f64 = 1e4;
 
-/// Parse `START..END` with time units.
-fn parse_window(text: &str) -> Result<(f64, f64), Error> {
-    use convchain::format::units::{Dimension, parse_quantity};
+/// Parse `FROM..TO` of one dimension for `option` (its message shows `example`): two quantities with units,
+/// the second larger.
+fn parse_range(
+    option: &str,
+    text: &str,
+    dimension: convchain::format::units::Dimension,
+    what: &str,
+    example: &str,
+) -> Result<(f64, f64), Error> {
+    use convchain::format::units::parse_quantity;
     let bad = |why: String| {
         Error::BadInput(format!(
-            "--window \"{}\": {why}; write it as START..END with times, e.g. \"10 ms..12 ms\"",
+            "{option} \"{}\": {why}; write it as {what}, e.g. \"{example}\"",
             convchain::text::clip(text)
         ))
     };
     let (a, b) = text.split_once("..").ok_or_else(|| bad("no `..`".into()))?;
     if b.starts_with('.') || b.contains("..") {
-        return Err(bad("more than two dots between START and END".into()));
+        return Err(bad("more than two dots between the two ends".into()));
     }
-    let a = parse_quantity(a.trim(), Dimension::Time).map_err(|e| bad(e.message))?;
-    let b = parse_quantity(b.trim(), Dimension::Time).map_err(|e| bad(e.message))?;
+    let a = parse_quantity(a.trim(), dimension).map_err(|e| bad(e.message))?;
+    let b = parse_quantity(b.trim(), dimension).map_err(|e| bad(e.message))?;
     if b <= a {
         return Err(bad("the end must come after the start".into()));
+    }
+    Ok((a, b))
+}
+
+/// Parse `START..END` with time units.
+fn parse_window(text: &str) -> Result<(f64, f64), Error> {
+    parse_range(
+        "--window",
+        text,
+        convchain::format::units::Dimension::Time,
+        "START..END with times",
+        "10 ms..12 ms",
+    )
+}
+
+/// Parse `LOW..HIGH` with frequency units; LOW must not be negative.
+fn parse_audio_band(text: &str) -> Result<(f64, f64), Error> {
+    let (a, b) = parse_range(
+        "--audio-band",
+        text,
+        convchain::format::units::Dimension::Frequency,
+        "LOW..HIGH with frequencies",
+        "20 Hz..20 kHz",
+    )?;
+    if a < 0.0 {
+        return Err(Error::BadInput(format!(
+            "--audio-band \"{}\": the low end must not be negative",
+            convchain::text::clip(text)
+        )));
     }
     Ok((a, b))
 }
@@ -323,8 +367,14 @@ fn run(args: Args) -> anyhow::Result<()> {
             no_wav,
             no_plots,
             force,
+            audio,
+            audio_band,
         } => {
             let window_s = window.as_deref().map(parse_window).transpose()?;
+            let audio_band_hz = match audio_band.as_deref() {
+                Some(t) => Some(parse_audio_band(t)?),
+                None => audio.then_some(convchain::engine::audio::DEFAULT_BAND_HZ),
+            };
             if !(WAV_RATE_MIN_HZ..=WAV_RATE_MAX_HZ).contains(&wav_rate) {
                 return Err(Error::BadInput(format!(
                     "--wav-rate {wav_rate}: the listening files' rate must lie in \
@@ -367,6 +417,7 @@ fn run(args: Args) -> anyhow::Result<()> {
                     listen_gain,
                 }),
                 force,
+                audio_band_hz,
             };
             interrupt::install_stop_handler("run");
             let report = convchain::run_to_dir(&sc, &dir, &opts)?;

@@ -53,6 +53,12 @@ pub struct McArgs {
     /// Print nothing but errors (no progress bar, no table).
     #[arg(long, short)]
     quiet: bool,
+    /// Add the audio figures of every run (as `run --audio`: three more runs each), as metrics.
+    #[arg(long)]
+    audio: bool,
+    /// Band of the audio figures, e.g. "20 Hz..20 kHz" (the default; implies --audio).
+    #[arg(long, value_name = "LOW..HIGH")]
+    audio_band: Option<String>,
 }
 
 #[derive(Args, Debug)]
@@ -219,6 +225,10 @@ pub fn run(a: McArgs) -> anyhow::Result<()> {
         static_tests: !a.no_static,
         progress: !a.quiet,
         force: a.force,
+        audio_band_hz: match a.audio_band.as_deref() {
+            Some(t) => Some(super::parse_audio_band(t)?),
+            None => a.audio.then_some(convchain::engine::audio::DEFAULT_BAND_HZ),
+        },
     };
     // A shard's folder sits beside the whole study's, never inside it.
     let dir = a.out.clone().unwrap_or_else(|| {

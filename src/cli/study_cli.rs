@@ -52,6 +52,12 @@ pub struct SweepArgs {
     /// Print nothing but errors.
     #[arg(long, short)]
     quiet: bool,
+    /// Add the audio figures of every point (as `run --audio`: three more runs per point).
+    #[arg(long)]
+    audio: bool,
+    /// Band of the audio figures, e.g. "20 Hz..20 kHz" (the default; implies --audio).
+    #[arg(long, value_name = "LOW..HIGH")]
+    audio_band: Option<String>,
 }
 
 #[derive(clap::Args, Debug)]
@@ -119,10 +125,15 @@ pub fn sweep(a: SweepArgs) -> anyhow::Result<()> {
             format!("{}-sweep-shard-{}-of-{}", sc.name, shard.k, shard.n)
         })
     });
+    let audio_band_hz = match a.audio_band.as_deref() {
+        Some(t) => Some(super::parse_audio_band(t)?),
+        None => a.audio.then_some(convchain::engine::audio::DEFAULT_BAND_HZ),
+    };
     let spec = sweep::SweepSpec {
         vary,
         points: a.points,
         log: a.log,
+        audio_band_hz,
     };
     OutputDir::check(
         &dir,

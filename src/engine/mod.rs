@@ -1,5 +1,6 @@
 //! The streaming pipeline: runs a checked scenario on a uniform analog grid, in blocks.
 
+pub mod audio;
 pub mod decimate;
 pub mod pipeline;
 pub mod plan;

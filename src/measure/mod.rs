@@ -1,6 +1,7 @@
 //! Meters: spectra, dynamic metrics, sine fits, latency and static tests. Pure functions of records;
 //! nothing here knows about TOML or files.
 
+pub mod audio;
 pub mod chain;
 pub mod coherent;
 pub mod fidelity;

@@ -159,6 +159,16 @@ pub fn markdown(r: &Report, figures: &[Figure]) -> String {
     for (n, a, o) in metric_rows(r) {
         let _ = writeln!(s, "| {n} | {a} | {o} |");
     }
+    if let Some(note) = r.audio_note() {
+        let _ = writeln!(
+            s,
+            "\n## Audio figures\n\n{}.\n\n| | ADC codes | analog output |\n|---|---:|---:|",
+            capitalise(&note)
+        );
+        for (n, a, o) in r.audio_rows() {
+            let _ = writeln!(s, "| {n} | {a} | {o} |");
+        }
+    }
     let _ = writeln!(s, "\n## Latency\n\n| stage | delay |\n|---|---:|");
     for (n, v) in latency_rows(r) {
         let _ = writeln!(s, "| {n} | {v} |");
@@ -226,9 +236,26 @@ figcaption{{color:#444}}</style></head><body>\n",
             esc(&o)
         );
     }
+    let _ = writeln!(s, "</table>");
+    if let Some(note) = r.audio_note() {
+        let _ = writeln!(
+            s,
+            "<h2>Audio figures</h2><p>{}.</p><table><tr><th></th><th>ADC codes</th><th>analog output</th></tr>",
+            esc(&capitalise(&note))
+        );
+        for (n, a, o) in r.audio_rows() {
+            let _ = writeln!(
+                s,
+                "<tr><td>{n}</td><td class=\"n\">{}</td><td class=\"n\">{}</td></tr>",
+                esc(&a),
+                esc(&o)
+            );
+        }
+        let _ = writeln!(s, "</table>");
+    }
     let _ = writeln!(
         s,
-        "</table><h2>Latency</h2><table><tr><th>stage</th><th>delay</th></tr>"
+        "<h2>Latency</h2><table><tr><th>stage</th><th>delay</th></tr>"
     );
     for (n, v) in latency_rows(r) {
         let _ = writeln!(

@@ -3,8 +3,10 @@
 use serde::Serialize;
 use serde_json::{Value, json};
 
+use crate::engine::audio::AudioReport;
 use crate::engine::pipeline::si;
 use crate::engine::plan::{BandRule, Plan, TonePlacement};
+use crate::measure::audio::AudioFigures;
 use crate::measure::chain::{AdcMetrics, ChainMetrics, LatencyMetrics, OutputMetrics};
 use crate::measure::imd::ImdMetrics;
 use crate::measure::step::StepMetrics;
@@ -30,6 +32,9 @@ pub struct Report {
     /// Step metrics of the output, for a step source.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub step: Option<StepMetrics>,
+    /// Audio figures (AES17 methods), with `run --audio`.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub audio: Option<AudioReport>,
 }
 
 /// What the WAV files hold.
@@ -140,11 +145,65 @@ impl Report {
             warnings: sc.slips.clone(),
             imd: None,
             step: None,
+            audio: None,
         }
     }
 }
 
 impl Report {
+    /// The audio figures as rows (name, ADC codes, analog output), for the table and the reports; empty without
+    /// `--audio`.
+    pub fn audio_rows(&self) -> Vec<(&'static str, String, String)> {
+        let Some(a) = &self.audio else {
+            return Vec::new();
+        };
+        let db = |x: Option<f64>| x.map_or("-".to_string(), |v| format!("{v:.2} dB"));
+        let thd_n = |f: &AudioFigures| match (f.thd_n_db, f.thd_n_pct) {
+            (Some(d), Some(p)) => format!("{d:.2} dB ({p:.4} %)"),
+            _ => "-".into(),
+        };
+        let noise = |x: Option<f64>| x.map_or("silent".to_string(), |v| format!("{v:.2} dBFS"));
+        let response = |f: &AudioFigures| {
+            f.response_db
+                .as_ref()
+                .map_or("-".into(), |r| format!("{:+.2} .. {:+.2} dB", r.min, r.max))
+        };
+        vec![
+            ("THD+N (unweighted)", thd_n(&a.adc), thd_n(&a.output)),
+            (
+                "dynamic range (A-weighted)",
+                db(a.adc.dynamic_range_db),
+                db(a.output.dynamic_range_db),
+            ),
+            (
+                "idle noise (A-weighted)",
+                noise(a.adc.noise_a_dbfs),
+                noise(a.output.noise_a_dbfs),
+            ),
+            (
+                "idle noise (unweighted)",
+                noise(a.adc.noise_dbfs),
+                noise(a.output.noise_dbfs),
+            ),
+            ("response", response(&a.adc), response(&a.output)),
+        ]
+    }
+
+    /// The sentence that heads the audio figures: the band, the levels and the reference of the response.
+    pub fn audio_note(&self) -> Option<String> {
+        let a = self.audio.as_ref()?;
+        let reference = a.output.response_db.as_ref().map_or(String::new(), |r| {
+            format!(", response relative to {}", si(r.reference_hz, "Hz"))
+        });
+        Some(format!(
+            "audio figures over {} .. {} (AES17): dynamic range from a {} dBFS tone, A-weighted; idle noise \
+             with the source silent{reference}",
+            si(a.band_hz[0], "Hz"),
+            si(a.band_hz[1], "Hz"),
+            a.dynamic_range_level_dbfs,
+        ))
+    }
+
     /// The band the output figures use and where it comes from, with the wideband figures when there are any.
     pub fn band_note(&self) -> String {
         let o = &self.output;

@@ -153,6 +153,17 @@ pub fn summary(r: &Report) -> String {
                 .map_or("not settled".into(), |v| si(v, "s"))
         );
     }
+    if let Some(note) = r.audio_note() {
+        let _ = writeln!(s, "\n  {note}");
+        let _ = writeln!(
+            s,
+            "    {:<28}{:>24}{:>24}",
+            "", "ADC codes", "analog output"
+        );
+        for (name, a, o) in r.audio_rows() {
+            let _ = writeln!(s, "    {name:<28}{a:>24}{o:>24}");
+        }
+    }
     if o.bits_flipped > 0 {
         let _ = writeln!(s, "  link: {} bits flipped", o.bits_flipped);
     }

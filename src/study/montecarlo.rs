@@ -34,6 +34,7 @@ use crate::report::OutputDir;
 use crate::report::plot::{HistogramPlot, Plot, PlotFormat, render};
 use crate::scenario::overrides::ScenarioText;
 use crate::scenario::{Scenario, Spread, SpreadLaw};
+use crate::study::sweep::{AUDIO_COLUMNS, audio_values};
 
 /// `kind` of a Monte-Carlo [`RowSet`].
 pub const KIND: &str = "montecarlo";
@@ -99,6 +100,10 @@ fn is_static(metric: &str) -> bool {
     metric.starts_with("static.")
 }
 
+fn is_audio(metric: &str) -> bool {
+    metric.starts_with("audio.")
+}
+
 /// The seed of run `index` of a study with base seed `base` (see the module notes): 53 bits.
 pub fn run_seed(base: u64, index: u64) -> u64 {
     let mut z = base.wrapping_add((index.wrapping_add(1)).wrapping_mul(0x9E37_79B9_7F4A_7C15));
@@ -150,7 +155,13 @@ impl Requirement {
     /// Parse `METRIC>=X`; an unknown metric or bad syntax is [`Error::BadInput`] listing the metrics.
     pub fn parse(text: &str) -> Result<Requirement> {
         let compact: String = text.chars().filter(|c| !c.is_whitespace()).collect();
-        let list = || format!("metrics: {}", METRICS.join(", "));
+        let list = || {
+            format!(
+                "metrics: {}; with --audio: {}",
+                METRICS.join(", "),
+                AUDIO_COLUMNS.join(", ")
+            )
+        };
         let bad = |why: String| {
             Error::BadInput(format!(
                 "--require {text:?}: {why}\n  hint: write METRIC>=X, METRIC<=X, METRIC>X or METRIC<X, e.g. \
@@ -171,11 +182,12 @@ impl Requirement {
         } else {
             (Cmp::Lt, &rest[1..])
         };
-        if !METRICS.contains(&metric) {
+        let known: Vec<&str> = METRICS.iter().chain(AUDIO_COLUMNS).copied().collect();
+        if !known.contains(&metric) {
             let near = (!metric.is_empty())
-                .then(|| METRICS.iter().find(|m| m.starts_with(metric)).copied())
+                .then(|| known.iter().find(|m| m.starts_with(metric)).copied())
                 .flatten()
-                .or_else(|| crate::format::reader::did_you_mean(metric, &METRICS))
+                .or_else(|| crate::format::reader::did_you_mean(metric, &known))
                 .map(|m| format!(" (did you mean `{m}`?)"))
                 .unwrap_or_default();
             return Err(bad(format!("unknown metric `{metric}`{near}")));
@@ -224,6 +236,8 @@ pub struct McOptions {
     pub progress: bool,
     /// Write into a folder that holds another study (replacing it): `--force`.
     pub force: bool,
+    /// Measure the audio figures of every run over this band (Hz), adding [`AUDIO_COLUMNS`] (`--audio`).
+    pub audio_band_hz: Option<(f64, f64)>,
 }
 
 impl McOptions {
@@ -239,6 +253,7 @@ impl McOptions {
             static_tests: true,
             progress: false,
             force: false,
+            audio_band_hz: None,
         }
     }
 }
@@ -250,6 +265,7 @@ struct Prepared<'a> {
     base_seed: u64,
     dynamic: bool,
     statics: bool,
+    audio_band_hz: Option<(f64, f64)>,
     header: Value,
     columns: Vec<String>,
 }
@@ -269,7 +285,15 @@ fn prepare<'a>(text: &'a ScenarioText, opts: &McOptions) -> Result<Prepared<'a>>
             opts.runs
         )));
     }
-    crate::engine::plan::Plan::new(&sc)?;
+    let (plan, _) = crate::engine::plan::Plan::new(&sc)?;
+    if let Some(band) = opts.audio_band_hz {
+        if !opts.dynamic {
+            return Err(Error::BadInput(
+                "--audio: --static-only skips the simulated run the audio figures come from".into(),
+            ));
+        }
+        crate::engine::audio::check(&sc, &plan, band)?;
+    }
     let statics = opts.static_tests && has_converter(&sc);
     if !opts.dynamic && !statics {
         return Err(Error::BadInput(format!(
@@ -281,6 +305,12 @@ fn prepare<'a>(text: &'a ScenarioText, opts: &McOptions) -> Result<Prepared<'a>>
         if is_static(&r.metric) && !statics {
             return Err(Error::BadInput(format!(
                 "--require {}: the static tests are not run (no converter in the chain, or --no-static)",
+                r.text
+            )));
+        }
+        if is_audio(&r.metric) && opts.audio_band_hz.is_none() {
+            return Err(Error::BadInput(format!(
+                "--require {}: the audio figures are measured only with --audio",
                 r.text
             )));
         }
@@ -305,7 +335,7 @@ fn prepare<'a>(text: &'a ScenarioText, opts: &McOptions) -> Result<Prepared<'a>>
             })
         })
         .collect();
-    let header = json!({
+    let mut header = json!({
         "runs": opts.runs,
         "scenario": sc.name,
         "scenario_hash": fingerprint(text.text.as_bytes()),
@@ -316,9 +346,15 @@ fn prepare<'a>(text: &'a ScenarioText, opts: &McOptions) -> Result<Prepared<'a>>
         "spread": spread_json,
         "require": opts.requires.iter().map(|r| r.text.clone()).collect::<Vec<_>>(),
     });
+    if let Some((low, high)) = opts.audio_band_hz {
+        header["audio_band_hz"] = json!([low, high]);
+    }
     let mut columns = vec!["index".to_string(), "seed".to_string()];
     columns.extend(spreads.iter().map(|s| s.path.clone()));
     columns.extend(METRICS.iter().map(|m| m.to_string()));
+    if opts.audio_band_hz.is_some() {
+        columns.extend(AUDIO_COLUMNS.iter().map(|m| m.to_string()));
+    }
     columns.push("error".into());
     Ok(Prepared {
         text,
@@ -326,6 +362,7 @@ fn prepare<'a>(text: &'a ScenarioText, opts: &McOptions) -> Result<Prepared<'a>>
         base_seed,
         dynamic: opts.dynamic,
         statics,
+        audio_band_hz: opts.audio_band_hz,
         header,
         columns,
     })
@@ -381,9 +418,13 @@ fn one_run(p: &Prepared<'_>, index: u64) -> Vec<Value> {
     );
     let result = (|| -> Result<Vec<Option<f64>>> {
         let sc = p.text.with(&overrides)?;
+        let mut audio = None;
         let chain = if p.dynamic {
             let run = pipeline::run_lean(&sc)?;
             let m = measure_run(&run.records())?;
+            if let Some(band) = p.audio_band_hz {
+                audio = Some(crate::engine::audio::audio_figures(&run, &m, band)?);
+            }
             run.recycle();
             Some(m)
         } else {
@@ -394,7 +435,15 @@ fn one_run(p: &Prepared<'_>, index: u64) -> Vec<Value> {
         } else {
             None
         };
-        Ok(metric_values(chain.as_ref(), stat.as_ref()))
+        let mut v = metric_values(chain.as_ref(), stat.as_ref());
+        if let Some(a) = &audio {
+            v.extend(
+                audio_values(a)
+                    .into_iter()
+                    .map(|x| x.filter(|x| x.is_finite())),
+            );
+        }
+        Ok(v)
     })();
     let mut row = vec![json!(index), json!(seed)];
     row.extend(drawn.iter().map(|v| num(*v)));
@@ -404,7 +453,8 @@ fn one_run(p: &Prepared<'_>, index: u64) -> Vec<Value> {
             row.push(Value::Null);
         }
         Err(e) => {
-            row.extend(METRICS.iter().map(|_| Value::Null));
+            let n = METRICS.len() + p.audio_band_hz.map_or(0, |_| AUDIO_COLUMNS.len());
+            row.extend((0..n).map(|_| Value::Null));
             // One line: the origin of a drawn scenario lists every override, which the row already holds.
             let msg = e.to_string().replace('\n', " ");
             row.push(Value::String(msg));
@@ -575,11 +625,21 @@ pub fn summarize(set: &RowSet) -> Result<Summary> {
             })
         })
         .collect();
-    let mut metrics = Vec::with_capacity(METRICS.len());
-    for m in METRICS {
+    let audio: &[&str] = if set.study.get("audio_band_hz").is_some() {
+        AUDIO_COLUMNS
+    } else {
+        &[]
+    };
+    let mut metrics = Vec::with_capacity(METRICS.len() + audio.len());
+    for m in METRICS.iter().chain(audio) {
         metrics.push(stats(m, &column(set, m)?));
     }
-    let spreads: Vec<String> = set.columns[2..set.columns.len() - 1 - METRICS.len()].to_vec();
+    let n_metrics = METRICS.len() + audio.len();
+    let spreads: Vec<String> = set
+        .columns
+        .get(2..set.columns.len().saturating_sub(1 + n_metrics))
+        .unwrap_or_default()
+        .to_vec();
     let mut drawn = Vec::with_capacity(spreads.len());
     for s in &spreads {
         drawn.push(stats(s, &column(set, s)?));

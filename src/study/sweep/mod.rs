@@ -150,6 +150,53 @@ pub struct SweepSpec {
     pub points: usize,
     /// Space the values logarithmically (FROM and TO must then have the same sign and not be zero).
     pub log: bool,
+    /// Measure the audio figures of every point over this band (Hz), adding [`AUDIO_COLUMNS`] (`--audio`).
+    pub audio_band_hz: Option<(f64, f64)>,
+}
+
+impl SweepSpec {
+    /// The metric columns of this sweep: [`METRIC_COLUMNS`], then [`AUDIO_COLUMNS`] with `--audio`.
+    pub fn metric_columns(&self) -> Vec<&'static str> {
+        let mut c = METRIC_COLUMNS.to_vec();
+        if self.audio_band_hz.is_some() {
+            c.extend_from_slice(AUDIO_COLUMNS);
+        }
+        c
+    }
+}
+
+/// The audio figures of a point (`sweep --audio`), in the order of [`audio_values`]: for the analog output,
+/// then the ADC's codes, as report.json's `audio` object names them (`response_min_db` and `response_max_db`
+/// are its `response_db.min` and `.max`).
+pub const AUDIO_COLUMNS: &[&str] = &[
+    "audio.output.thd_n_db",
+    "audio.output.dynamic_range_db",
+    "audio.output.noise_a_dbfs",
+    "audio.output.noise_dbfs",
+    "audio.output.response_min_db",
+    "audio.output.response_max_db",
+    "audio.adc.thd_n_db",
+    "audio.adc.dynamic_range_db",
+    "audio.adc.noise_a_dbfs",
+    "audio.adc.noise_dbfs",
+    "audio.adc.response_min_db",
+    "audio.adc.response_max_db",
+];
+
+/// The values of [`AUDIO_COLUMNS`].
+pub fn audio_values(a: &crate::engine::audio::AudioReport) -> Vec<Option<f64>> {
+    let mut v = Vec::with_capacity(AUDIO_COLUMNS.len());
+    for f in [&a.output, &a.adc] {
+        v.extend([
+            f.thd_n_db,
+            f.dynamic_range_db,
+            f.noise_a_dbfs,
+            f.noise_dbfs,
+            f.response_db.as_ref().map(|r| r.min),
+            f.response_db.as_ref().map(|r| r.max),
+        ]);
+    }
+    v
 }
 
 /// The values of one key: `points` values from `from` to `to`, rounded and de-duplicated for integer keys.
@@ -349,6 +396,22 @@ pub struct SweepOptions {
     pub shard: Shard,
 }
 
+/// A point's requested and used frequencies and its metric values.
+pub type PointValues = (Option<f64>, Option<f64>, Vec<Option<f64>>);
+
+/// [`simulate`], then the audio figures over `band_hz` (three more runs): (requested frequency, used
+/// frequency, the values of [`METRIC_COLUMNS`] and [`AUDIO_COLUMNS`]).
+pub fn simulate_audio(sc: &Scenario, band_hz: (f64, f64)) -> Result<PointValues> {
+    let run = pipeline::run_lean(sc)?;
+    let m = measure_run(&run.records())?;
+    let audio = crate::engine::audio::audio_figures(&run, &m, band_hz)?;
+    let freqs = (run.plan.requested_frequency_hz, run.plan.frequency_hz);
+    run.recycle();
+    let mut v = metric_values(&m);
+    v.extend(audio_values(&audio));
+    Ok((freqs.0, freqs.1, v))
+}
+
 /// Simulate and measure one checked scenario: (requested frequency, used frequency, metrics).
 pub fn simulate(sc: &Scenario) -> Result<(Option<f64>, Option<f64>, ChainMetrics)> {
     let run = pipeline::run_lean(sc)?;
@@ -426,7 +489,10 @@ pub fn run_sweep_until(
                     .map(|(v, x)| (v.key.clone(), *x))
                     .collect();
                 let sc = text.with(&ov)?;
-                Plan::new(&sc)?;
+                let (plan, _) = Plan::new(&sc)?;
+                if let Some(band) = spec.audio_band_hz {
+                    crate::engine::audio::check(&sc, &plan, band)?;
+                }
                 Ok(sc)
             })
             .collect()
@@ -446,17 +512,22 @@ pub fn run_sweep_until(
         .collect();
     let bar = progress_bar(mine.len(), opts.progress, "sweeping");
     let finite = |x: Option<f64>| x.filter(|v| v.is_finite());
+    let n_metrics = spec.metric_columns().len();
+    let measured = |sc: &Scenario| match spec.audio_band_hz {
+        Some(band) => simulate_audio(sc, band),
+        None => simulate(sc).map(|(fr, fu, m)| (fr, fu, metric_values(&m))),
+    };
     // Points start in grid order, so an interrupted sweep holds the first points of its shard.
     let rows: Vec<SweepRow> = run_in_order(&pool, mine.len(), cancel, bar.as_ref(), |j| {
         let (index, sc, p) = mine[j];
-        match simulate(sc) {
+        match measured(sc) {
             Ok((fr, fu, m)) => SweepRow {
                 index,
                 values: p.clone(),
                 frequency_requested_hz: finite(fr),
                 frequency_used_hz: finite(fu),
                 // Non-finite values are kept as missing, as rows.json holds them.
-                metrics: metric_values(&m).into_iter().map(finite).collect(),
+                metrics: m.into_iter().map(finite).collect(),
                 error: None,
             },
             Err(e) => SweepRow {
@@ -464,7 +535,7 @@ pub fn run_sweep_until(
                 values: p.clone(),
                 frequency_requested_hz: finite(sc.source.waveform.fundamental_hz()),
                 frequency_used_hz: None,
-                metrics: vec![None; METRIC_COLUMNS.len()],
+                metrics: vec![None; n_metrics],
                 error: Some(e.to_string()),
             },
         }
@@ -656,6 +727,7 @@ mod tests {
             ],
             points: 3,
             log: true,
+            audio_band_hz: None,
         };
         let axes: Vec<Vec<f64>> = spec
             .vary
@@ -773,6 +845,7 @@ mod tests {
             }],
             points: 3,
             log: false,
+            audio_band_hz: None,
         };
         let cancel = AtomicBool::new(true);
         for (shard, of) in [(Shard::WHOLE, 3), (Shard { k: 2, n: 2 }, 1)] {
@@ -821,6 +894,7 @@ mod tests {
             vary: vec![parse_vary("simulation.duration=0.2 ms..0.3 ms").unwrap()],
             points: 16,
             log: false,
+            audio_band_hz: None,
         };
         let mut messages = Vec::new();
         for threads in [1, 2] {

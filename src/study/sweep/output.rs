@@ -98,6 +98,14 @@ impl SweepResult {
                 .get("log")
                 .and_then(Value::as_bool)
                 .ok_or_else(|| bad("the header lacks `log`".into()))?,
+            audio_band_hz: match h.get("audio_band_hz") {
+                None => None,
+                Some(b) => Some(
+                    b.as_array()
+                        .and_then(|a| Some((a.first()?.as_f64()?, a.get(1)?.as_f64()?)))
+                        .ok_or_else(|| bad("`audio_band_hz` is not [low, high]".into()))?,
+                ),
+            },
         };
         let axes = spec
             .vary
@@ -126,6 +134,7 @@ impl SweepResult {
             return Err(bad("the columns are not those of this sweep".into()));
         }
         let nv = result.spec.vary.len();
+        let n_metrics = result.spec.metric_columns().len();
         let cell = |c: &Value| -> std::result::Result<Option<f64>, ()> {
             match c {
                 Value::Null => Ok(None),
@@ -142,7 +151,7 @@ impl SweepResult {
                     .iter()
                     .map(|c| c.as_f64().ok_or(()))
                     .collect::<std::result::Result<Vec<f64>, ()>>()?;
-                let metrics = r[nv + 3..nv + 3 + METRIC_COLUMNS.len()]
+                let metrics = r[nv + 3..nv + 3 + n_metrics]
                     .iter()
                     .map(cell)
                     .collect::<std::result::Result<Vec<_>, ()>>()?;
@@ -174,7 +183,7 @@ impl SweepResult {
         let mut c: Vec<String> = self.spec.vary.iter().map(|v| v.key.clone()).collect();
         c.push("frequency_requested_hz".into());
         c.push("frequency_used_hz".into());
-        c.extend(METRIC_COLUMNS.iter().map(|s| s.to_string()));
+        c.extend(self.spec.metric_columns().iter().map(|s| s.to_string()));
         c.push("error".into());
         c
     }
@@ -228,7 +237,7 @@ impl SweepResult {
                     json!(r.frequency_requested_hz),
                 );
                 m.insert("frequency_used_hz".into(), json!(r.frequency_used_hz));
-                for (c, x) in METRIC_COLUMNS.iter().zip(&r.metrics) {
+                for (c, x) in self.spec.metric_columns().iter().zip(&r.metrics) {
                     m.insert(c.to_string(), json!(x));
                 }
                 m.insert("error".into(), json!(r.error));
@@ -414,7 +423,7 @@ pub fn write_outputs(out: &OutputDir, set: &RowSet) -> Result<SweepResult> {
 
 /// The study header of a sweep's `rows.json` ([`SweepResult::study_header`]).
 fn study_header(scenario: &str, hash: &str, spec: &SweepSpec, total_points: u64) -> Value {
-    json!({
+    let mut h = json!({
         "runs": total_points,
         "scenario": scenario,
         "scenario_hash": hash,
@@ -422,7 +431,11 @@ fn study_header(scenario: &str, hash: &str, spec: &SweepSpec, total_points: u64)
             .collect::<Vec<_>>(),
         "points": spec.points,
         "log": spec.log,
-    })
+    });
+    if let Some((low, high)) = spec.audio_band_hz {
+        h["audio_band_hz"] = json!([low, high]);
+    }
+    h
 }
 
 /// Who writes the sweep `spec` of the scenario named `scenario` (shard `shard`) into a folder, known before
