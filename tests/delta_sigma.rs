@@ -128,3 +128,65 @@ fn an_inconsistent_clock_is_refused_with_its_location() {
         "{e}"
     );
 }
+
+#[test]
+fn static_tests_refuse_it_and_say_why() {
+    let d = tempfile::tempdir().unwrap();
+    let o = run(&[
+        "static",
+        repo("scenarios/field-recorder.toml").to_str().unwrap(),
+        "--out",
+        d.path().join("s").to_str().unwrap(),
+    ]);
+    assert_eq!(o.status.code(), Some(2));
+    assert!(
+        stderr(&o).contains("delta-sigma converter does not have"),
+        "{}",
+        stderr(&o)
+    );
+}
+
+#[test]
+fn an_oversampling_ratio_that_is_not_a_multiple_of_four_is_refused() {
+    let d = tempfile::tempdir().unwrap();
+    let sc = variant(
+        d.path(),
+        &[(
+            "oversampling = 64\norder = 4",
+            "oversampling = 30\norder = 4",
+        )],
+    );
+    let o = run(&["check", sc.to_str().unwrap()]);
+    assert_eq!(o.status.code(), Some(2), "{}", stderr(&o));
+    assert!(stderr(&o).contains("multiple of 4"), "{}", stderr(&o));
+}
+
+#[test]
+fn a_sweep_of_the_oversampling_ratio_shows_the_noise_falling() {
+    // Each doubling of OSR lowers the in-band noise of an order-L loop by about 6 L + 3 dB (Schreier and Temes
+    // 2005, section 4.1) until something else (the preamp's noise, the filter) sets the floor: ask only that
+    // the SNR rises with every doubling from 16 to 64.
+    let d = tempfile::tempdir().unwrap();
+    let out = d.path().join("sw");
+    let o = run(&[
+        "sweep",
+        repo("scenarios/field-recorder.toml").to_str().unwrap(),
+        "--vary",
+        "stage.2.oversampling=16..128",
+        "--points",
+        "4",
+        "--log",
+        "--out",
+        out.to_str().unwrap(),
+    ]);
+    ok(&o);
+    let (header, rows) = common::csv_rows(&out.join("sweep.csv"));
+    let col = |name: &str| -> Vec<f64> {
+        let i = header.iter().position(|h| h == name).unwrap();
+        rows.iter().map(|r| r[i].parse().unwrap()).collect()
+    };
+    let snr = col("adc.snr_db");
+    let osr = col("stage.2.oversampling");
+    assert_eq!(osr, vec![16.0, 32.0, 64.0, 128.0]);
+    assert!(snr[1] > snr[0] + 10.0 && snr[2] > snr[1] + 10.0, "{snr:?}");
+}

@@ -175,6 +175,21 @@ impl<'a> Bench<'a> {
 
 /// Static tests of the scenario's ADC and DAC, drawn with the same seeds as a run.
 pub fn static_tests(sc: &Scenario) -> Result<Static> {
+    // An oversampling converter has no code transitions to find: its long words are set by its shaped noise and
+    // its filters, and stepping or sweeping it measures those, not a ladder. Say so rather than print nonsense.
+    if let Some((i, st)) = sc
+        .stages
+        .iter()
+        .enumerate()
+        .find(|(_, s)| s.kind.kind_name().starts_with("delta_sigma"))
+    {
+        return Err(Error::BadInput(format!(
+            "{}: stage {} ({}): static tests (DNL, INL, missing codes) measure code transitions, which a delta-sigma converter does not have; measure it with `convchain run` (SNR, THD, SFDR, the noise floor) or replace it by a SAR, flash or pipelined converter for a static test",
+            sc.origin,
+            i + 1,
+            st.kind.kind_name()
+        )));
+    }
     let bench = Bench::new(sc)?;
     let mut dac_res = None;
     if let Some((label, dac)) = &bench.reconstructor {

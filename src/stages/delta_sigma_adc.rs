@@ -1,7 +1,7 @@
 //! The `delta_sigma_adc` stage: an oversampling converter. A noise-shaping loop ([`super::delta_sigma`]) samples
 //! the input at the modulator clock (`oversampling` x the output rate) with a quantizer of 1 to 5 bits; a
 //! decimation chain ([`super::multirate`]) brings its output down to the output rate: a sinc^K (CIC) stage to 4
-//! (or 2) x the output rate, then one FIR that compensates the CIC's droop, sets the passband, and decimates the
+//! x the output rate, then one FIR that compensates the CIC's droop, sets the passband, and decimates the
 //! rest of the way. The FIR is linear phase, or (`filter_phase = "minimum"`) its minimum-phase counterpart: the same
 //! magnitude with most of the delay gone and the phase no longer linear near the band edge.
 //!
@@ -250,17 +250,10 @@ impl Shaping {
     pub fn levels(&self) -> u32 {
         1 << self.quantizer_bits
     }
-    /// The FIR's rate-change factor (4 when the ratio allows, else 2 or 1) and the CIC's (the rest).
+    /// The FIR's rate-change factor (4: `oversampling` is a multiple of 4) and the CIC's (the rest).
     pub fn factors(&self) -> (usize, usize) {
         let osr = self.oversampling as usize;
-        let fir = if osr.is_multiple_of(4) {
-            4
-        } else if osr.is_multiple_of(2) {
-            2
-        } else {
-            1
-        };
-        (osr / fir, fir)
+        (osr / 4, 4)
     }
     /// The designed loop and filters (cached: the same keys give the same design).
     pub fn design(&self) -> Arc<Design> {
@@ -287,109 +280,119 @@ impl Shaping {
 /// Read the [`Shaping`] keys (with their defaults) and check that the loop they design is stable.
 pub fn read_shaping(r: &mut TableReader<'_, '_>) -> std::result::Result<Shaping, ScenarioError> {
     use Dimension as D;
-        let oversampling = r
-            .integer("oversampling", 4, 1024)?
-            .map_or(64, |v| v.value as u32);
-        let order = r.integer("order", 1, 5)?.map_or(4, |v| v.value as u32);
-        let quantizer_bits = r
-            .integer("quantizer_bits", 1, 5)?
-            .map_or(1, |v| v.value as u32);
-        let gain = r.number("ntf_gain")?;
-        let ntf_gain = match &gain {
-            Some(g) if !(g.value > 1.0 && g.value <= 8.0) => {
-                return Err(r
-                    .error(
-                        &g.span,
-                        "ntf_gain",
-                        format!("must be above 1 and at most 8, found {}", g.value),
-                    )
-                    .with_hint("1.5 is the usual choice for a 1-bit quantizer; multi-bit loops take 2 to 4"));
-            }
-            Some(g) => g.value,
-            None => 1.5,
-        };
-        let zeros = r
-            .choice("zeros", &[("dc", NtfZeros::Dc), ("spread", NtfZeros::Spread)])?
-            .map_or(NtfZeros::Spread, |c| c.value);
-        let phase = r
-            .choice(
-                "filter_phase",
-                &[("linear", FilterPhase::Linear), ("minimum", FilterPhase::Minimum)],
-            )?
-            .map_or(FilterPhase::Linear, |c| c.value);
-        let pass = r.number("passband_edge")?;
-        let stop = r.number("stopband_edge")?;
-        let passband_edge = pass.as_ref().map_or(0.45, |p| p.value);
-        let stopband_edge = stop.as_ref().map_or(0.55, |p| p.value);
-        if !(passband_edge > 0.0 && passband_edge < 0.5) {
-            let span = pass.map(|p| p.span).unwrap_or_default();
+    let osr = r.integer("oversampling", 4, 1024)?;
+    let oversampling = osr.as_ref().map_or(64, |v| v.value as u32);
+    if let Some(o) = &osr
+        && o.value % 4 != 0
+    {
+        return Err(r
+            .error(
+                &o.span,
+                "oversampling",
+                format!("must be a multiple of 4, found {}", o.value),
+            )
+            .with_hint("the rate-change FIR works at 4 x the word rate: write 32, 64, 128 or another multiple of 4"));
+    }
+    let order = r.integer("order", 1, 5)?.map_or(4, |v| v.value as u32);
+    let quantizer_bits = r
+        .integer("quantizer_bits", 1, 5)?
+        .map_or(1, |v| v.value as u32);
+    let gain = r.number("ntf_gain")?;
+    let ntf_gain = match &gain {
+        Some(g) if !(g.value > 1.0 && g.value <= 8.0) => {
             return Err(r
                 .error(
-                    &span,
-                    "passband_edge",
-                    format!("must lie between 0 and 0.5 (of the output rate), found {passband_edge}"),
+                    &g.span,
+                    "ntf_gain",
+                    format!("must be above 1 and at most 8, found {}", g.value),
                 )
-                .with_hint("0.45 keeps 20 kHz of a 48 kHz output (the usual audio choice)"));
+                .with_hint("1.5 is the usual choice for a 1-bit quantizer; multi-bit loops take 2 to 4"));
         }
-        if !(stopband_edge > passband_edge && stopband_edge <= 1.0) {
-            let span = stop
-                .map(|p| p.span)
-                .or(pass.map(|p| p.span))
-                .unwrap_or_default();
+        Some(g) => g.value,
+        None => 1.5,
+    };
+    let zeros = r
+        .choice("zeros", &[("dc", NtfZeros::Dc), ("spread", NtfZeros::Spread)])?
+        .map_or(NtfZeros::Spread, |c| c.value);
+    let phase = r
+        .choice(
+            "filter_phase",
+            &[("linear", FilterPhase::Linear), ("minimum", FilterPhase::Minimum)],
+        )?
+        .map_or(FilterPhase::Linear, |c| c.value);
+    let pass = r.number("passband_edge")?;
+    let stop = r.number("stopband_edge")?;
+    let passband_edge = pass.as_ref().map_or(0.45, |p| p.value);
+    let stopband_edge = stop.as_ref().map_or(0.55, |p| p.value);
+    if !(passband_edge > 0.0 && passband_edge < 0.5) {
+        let span = pass.map(|p| p.span).unwrap_or_default();
+        return Err(r
+            .error(
+                &span,
+                "passband_edge",
+                format!("must lie between 0 and 0.5 (of the output rate), found {passband_edge}"),
+            )
+            .with_hint("0.45 keeps 20 kHz of a 48 kHz output (the usual audio choice)"));
+    }
+    if !(stopband_edge > passband_edge && stopband_edge <= 1.0) {
+        let span = stop
+            .map(|p| p.span)
+            .or(pass.map(|p| p.span))
+            .unwrap_or_default();
+        return Err(r
+            .error(
+                &span,
+                "stopband_edge",
+                format!(
+                    "must lie above passband_edge ({passband_edge}) and at most 1 (of the output rate), found {stopband_edge}"
+                ),
+            )
+            .with_hint("0.55 lets only the transition band alias; 0.5 lets nothing alias"));
+    }
+    let ripple = r.positive("ripple", D::Decibels)?;
+    let atten = r.positive("attenuation", D::Decibels)?;
+    let ripple_db = ripple.map_or(0.01, |q| q.value);
+    let attenuation_db = match atten {
+        Some(a) if a.value < 20.0 || a.value > 160.0 => {
             return Err(r
                 .error(
-                    &span,
-                    "stopband_edge",
-                    format!(
-                        "must lie above passband_edge ({passband_edge}) and at most 1 (of the output rate), found {stopband_edge}"
-                    ),
+                    &a.span,
+                    "attenuation",
+                    format!("must be from 20 dB to 160 dB, found {} dB", a.value),
                 )
-                .with_hint("0.55 lets only the transition band alias; 0.5 lets nothing alias"));
+                .with_hint("100 dB suits a 16-bit output, 120 dB a 20-bit one"));
         }
-        let ripple = r.positive("ripple", D::Decibels)?;
-        let atten = r.positive("attenuation", D::Decibels)?;
-        let ripple_db = ripple.map_or(0.01, |q| q.value);
-        let attenuation_db = match atten {
-            Some(a) if a.value < 20.0 || a.value > 160.0 => {
-                return Err(r
-                    .error(
-                        &a.span,
-                        "attenuation",
-                        format!("must be from 20 dB to 160 dB, found {} dB", a.value),
-                    )
-                    .with_hint("100 dB suits a 16-bit output, 120 dB a 20-bit one"));
-            }
-            Some(a) => a.value,
-            None => 100.0,
-        };
-        let cic_order = r
-            .integer("cic_order", 1, 8)?
-            .map_or(order + 1, |v| v.value as u32);
+        Some(a) => a.value,
+        None => 100.0,
+    };
+    let cic_order = r
+        .integer("cic_order", 1, 8)?
+        .map_or(order + 1, |v| v.value as u32);
     let sh = Shaping {
-        oversampling,
-        order,
-        quantizer_bits,
-        ntf_gain,
-        zeros,
-        phase,
-        passband_edge,
-        stopband_edge,
-        ripple_db,
-        attenuation_db,
-        cic_order,
+    oversampling,
+    order,
+    quantizer_bits,
+    ntf_gain,
+    zeros,
+    phase,
+    passband_edge,
+    stopband_edge,
+    ripple_db,
+    attenuation_db,
+    cic_order,
     };
     let d = sh.design();
     if d.max_stable < 0.05 {
-        let span = gain.map(|g| g.span).unwrap_or_default();
-        return Err(r
-        .error(
-            &span,
-            "ntf_gain",
-            format!(
-            "the loop (order {order}, {quantizer_bits}-bit quantizer, NTF gain {ntf_gain}) is unstable even for a small input"
-            ),
-        )
-        .with_hint("lower ntf_gain (1.5 for a 1-bit quantizer), lower the order, or add quantizer bits"));
+    let span = gain.map(|g| g.span).unwrap_or_default();
+    return Err(r
+    .error(
+        &span,
+        "ntf_gain",
+        format!(
+        "the loop (order {order}, {quantizer_bits}-bit quantizer, NTF gain {ntf_gain}) is unstable even for a small input"
+        ),
+    )
+    .with_hint("lower ntf_gain (1.5 for a 1-bit quantizer), lower the order, or add quantizer bits"));
     }
     Ok(sh)
 }

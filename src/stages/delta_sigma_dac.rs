@@ -1,6 +1,6 @@
 //! The `delta_sigma_dac` stage: an oversampling DAC. Each arriving word is interpolated up to the modulator clock
 //! (`oversampling` x the word rate) by the same pair of filters the ADC decimates with, in reverse: one FIR that
-//! raises the rate by 4 (or 2, or 1) and sets the passband, linear or minimum phase, then a sinc^K (CIC)
+//! raises the rate by 4 and sets the passband, linear or minimum phase, then a sinc^K (CIC)
 //! interpolator the rest of the way, the FIR compensating its droop ([`super::delta_sigma_adc::Shaping`]). A
 //! noise-shaping loop ([`super::delta_sigma`]) turns the fast stream into 2^`quantizer_bits` levels, and a DAC
 //! element makes them a voltage, held for one modulator clock on the analog grid (the analog stages after the
