@@ -6,6 +6,7 @@ use std::process::ExitCode;
 
 use clap::{Parser, Subcommand};
 
+mod analyze;
 mod interrupt;
 mod montecarlo;
 
@@ -122,6 +123,8 @@ enum Command {
     Montecarlo(montecarlo::McArgs),
     /// Join the folders of shards (--shard K/N) of one study into what a single machine would have written.
     Merge(montecarlo::MergeArgs),
+    /// Measure a recorded sine (WAV or CSV capture): analysis.json and plots.
+    Analyze(analyze::AnalyzeArgs),
 }
 
 #[derive(clap::ValueEnum, Clone, Copy, Debug)]
@@ -459,6 +462,7 @@ fn run(args: Args) -> anyhow::Result<()> {
         }
         Command::Montecarlo(a) => montecarlo::run(a)?,
         Command::Merge(a) => montecarlo::merge(a)?,
+        Command::Analyze(a) => analyze::run(a)?,
     }
     Ok(())
 }

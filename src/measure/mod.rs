@@ -7,6 +7,7 @@ pub mod fidelity;
 pub mod imd;
 pub mod latency;
 pub mod metrics;
+pub mod sine_record;
 pub mod sinefit;
 pub mod spectrum;
 pub mod static_test;
