@@ -324,6 +324,9 @@ fn figure(name: &str, caption: String, plot: &Plot) -> Result<Figure> {
     })
 }
 
+/// Most samples of the waveform figure (five cycles of a very slow tone are cut to this many).
+const WAVEFORM_POINTS: usize = 1 << 20;
+
 /// Most points of the residual drawn: longer records are reduced to the minimum and maximum of each block.
 const RESIDUAL_POINTS: usize = 1 << 14;
 
@@ -387,7 +390,9 @@ pub fn figures(capture: &Capture, a: &CaptureAnalysis, r: &SineRecord) -> Result
     };
     let x = &capture.samples;
     let n = x.len();
-    let shown = ((5.0 * fs / r.fit.frequency_hz).ceil() as usize).clamp(64.min(n), n);
+    let shown = ((5.0 * fs / r.fit.frequency_hz).ceil() as usize)
+        .min(WAVEFORM_POINTS)
+        .clamp(64.min(n), n);
     let t: Vec<f64> = (0..shown).map(|i| capture.t0_s + i as f64 / fs).collect();
     let fitted: Vec<f64> = (0..shown).map(model).collect();
     let unit = level_unit(a);
