@@ -3,6 +3,7 @@
 
 pub mod chain;
 pub mod coherent;
+pub mod delay;
 pub mod fidelity;
 pub mod imd;
 pub mod latency;
