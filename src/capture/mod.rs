@@ -1,11 +1,12 @@
 //! Reading recordings made outside convchain (a sound card's WAV file, a scope's CSV export) into one record
-//! of samples on a uniform time grid, for the meters ([`analyze`]).
+//! of samples on a uniform time grid, for the meters ([`analyze`], [`delay`]).
 //!
 //! Files given by the user may come from any device or be hostile: every problem is a
 //! [`crate::Error::BadInput`] naming the file and, for CSV, the line and column, never a panic.
 
 pub mod analyze;
 pub mod csv;
+pub mod delay;
 pub mod wav;
 
 use std::path::{Path, PathBuf};

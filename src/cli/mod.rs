@@ -7,6 +7,7 @@ use std::process::ExitCode;
 use clap::{Parser, Subcommand};
 
 mod analyze;
+mod delay;
 mod interrupt;
 mod montecarlo;
 
@@ -125,6 +126,8 @@ enum Command {
     Merge(montecarlo::MergeArgs),
     /// Measure a recorded sine (WAV or CSV capture): analysis.json and plots.
     Analyze(analyze::AnalyzeArgs),
+    /// The delay of a capture behind its reference, the drift between their clocks, and the gain.
+    Delay(delay::DelayArgs),
 }
 
 #[derive(clap::ValueEnum, Clone, Copy, Debug)]
@@ -463,6 +466,7 @@ fn run(args: Args) -> anyhow::Result<()> {
         Command::Montecarlo(a) => montecarlo::run(a)?,
         Command::Merge(a) => montecarlo::merge(a)?,
         Command::Analyze(a) => analyze::run(a)?,
+        Command::Delay(a) => delay::run(a)?,
     }
     Ok(())
 }

@@ -194,8 +194,14 @@ pub struct WindowDelay {
 /// The delay along a recording.
 #[derive(Debug, Clone, PartialEq)]
 pub struct DelayTrack {
-    /// Over the whole records.
+    /// Over the whole records (with drift, the correlation of a long broadband record smears: the windows'
+    /// figures below are the ones to trust).
     pub whole: Estimate,
+    /// The median of the windows' confidences (the whole records' without windows).
+    pub confidence: f64,
+    /// The median gain of the windows whose confidence reaches the threshold (the whole records' without
+    /// them), V/V.
+    pub gain: f64,
     pub windows: Vec<WindowDelay>,
     /// The line through the windows' delays: (delay at t = 0 in s, slope in s/s); None with fewer than three
     /// windows above the confidence threshold.
@@ -224,6 +230,7 @@ pub fn track(
     let c_lo = d.max(0);
     let c_hi = (y.len() as i64).min(x.len() as i64 + d) - w;
     let mut windows = Vec::new();
+    let mut gains = Vec::new();
     if c_hi >= c_lo + w {
         let count = (((c_hi - c_lo) / (w / 2)) as usize + 1).clamp(2, MAX_WINDOWS);
         for j in 0..count {
@@ -231,6 +238,9 @@ pub fn track(
             let (c, r) = (c as usize, (c - d) as usize);
             let e = estimate(&x[r..r + WINDOW_SAMPLES], &y[c..c + WINDOW_SAMPLES], method);
             let Ok(e) = e else { continue };
+            if e.confidence >= threshold && e.gain.is_finite() {
+                gains.push(e.gain);
+            }
             windows.push(WindowDelay {
                 time_s: (c as f64 + 0.5 * (WINDOW_SAMPLES - 1) as f64) / rate_hz,
                 delay_s: (d as f64 + e.delay_samples) / rate_hz,
@@ -254,8 +264,20 @@ pub fn track(
         let slope = if stt > 0.0 { std / stt } else { 0.0 };
         (md - slope * mt, slope)
     });
+    let median = |mut v: Vec<f64>| -> Option<f64> {
+        if v.is_empty() {
+            return None;
+        }
+        let mid = v.len() / 2;
+        Some(*v.select_nth_unstable_by(mid, f64::total_cmp).1)
+    };
+    let confidence =
+        median(windows.iter().map(|w| w.confidence).collect()).unwrap_or(whole.confidence);
+    let gain = median(gains).unwrap_or(whole.gain);
     Ok(DelayTrack {
         whole,
+        confidence,
+        gain,
         windows,
         line,
     })
@@ -368,6 +390,9 @@ mod tests {
         );
         assert!((d0 - 2.5e-3).abs() < 0.1 / fs, "{d0}");
         assert!(tr.windows.len() >= 10);
+        // The windows keep their confidence and the unit gain where the whole record's correlation smears.
+        assert!(tr.confidence > 0.9, "{}", tr.confidence);
+        assert!((tr.gain - 1.0).abs() < 0.02, "{}", tr.gain);
     }
 
     #[test]
