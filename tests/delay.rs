@@ -113,6 +113,12 @@ fn a_fifty_ppm_drift_between_two_recordings_is_recovered_within_two_ppm() {
     let last_s = (n - 1) as f64 / fs;
     assert!((r["start_s"].as_f64().unwrap() - 3e-3).abs() < 0.1 / fs);
     assert!((r["end_s"].as_f64().unwrap() - (3e-3 - 50e-6 * last_s)).abs() < 0.1 / fs);
+    // The same level: 0 dB within 0.1 dB despite the drift within each window.
+    assert!(
+        r["gain_db"].as_f64().unwrap().abs() < 0.1,
+        "{}",
+        r["gain_db"]
+    );
 }
 
 #[test]

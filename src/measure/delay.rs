@@ -238,13 +238,19 @@ pub fn track(
             let (c, r) = (c as usize, (c - d) as usize);
             let e = estimate(&x[r..r + WINDOW_SAMPLES], &y[c..c + WINDOW_SAMPLES], method);
             let Ok(e) = e else { continue };
-            if e.confidence >= threshold && e.gain.is_finite() {
-                gains.push(e.gain);
+            // Gain and confidence from the window's central quarter: a drift smears the alignment across a
+            // whole window (50 ppm moves the delay by 0.8 sample over 16384 samples, which costs a broadband
+            // signal some 7 % of its correlation), four times less across the quarter.
+            let (q0, q) = (3 * WINDOW_SAMPLES / 8, WINDOW_SAMPLES / 4);
+            let centre =
+                estimate(&x[r + q0..r + q0 + q], &y[c + q0..c + q0 + q], method).unwrap_or(e);
+            if centre.confidence >= threshold && centre.gain.is_finite() {
+                gains.push(centre.gain);
             }
             windows.push(WindowDelay {
                 time_s: (c as f64 + 0.5 * (WINDOW_SAMPLES - 1) as f64) / rate_hz,
                 delay_s: (d as f64 + e.delay_samples) / rate_hz,
-                confidence: e.confidence,
+                confidence: centre.confidence,
             });
         }
     }
@@ -391,8 +397,8 @@ mod tests {
         assert!((d0 - 2.5e-3).abs() < 0.1 / fs, "{d0}");
         assert!(tr.windows.len() >= 10);
         // The windows keep their confidence and the unit gain where the whole record's correlation smears.
-        assert!(tr.confidence > 0.9, "{}", tr.confidence);
-        assert!((tr.gain - 1.0).abs() < 0.02, "{}", tr.gain);
+        assert!(tr.confidence > 0.98, "{}", tr.confidence);
+        assert!((tr.gain - 1.0).abs() < 0.01, "{}", tr.gain);
     }
 
     #[test]
