@@ -58,6 +58,8 @@ pub struct DelayResult {
     pub drift_ppm: Option<f64>,
     /// Capture against reference, least squares after alignment (dB): the median of the confident windows'.
     pub gain_db: Option<f64>,
+    /// The capture is the reference upside down (a negative gain).
+    pub inverted: bool,
     /// Normalised correlation at the delay (0..1): the median of the windows', or the whole records' when
     /// too short for windows.
     pub confidence: f64,
@@ -107,7 +109,7 @@ pub fn measure(reference: &Capture, capture: &Capture, opts: &DelayOptions) -> R
         )),
         other => other,
     })?;
-    if !(t.confidence >= CONFIDENCE_MIN) {
+    if t.confidence.is_nan() || t.confidence < CONFIDENCE_MIN {
         return Err(Error::Run(format!(
             "{} and {} do not correlate: the normalised correlation peaks at {:.3}, below {CONFIDENCE_MIN}; no \
              delay is given (are both recordings of the same signal?)",
@@ -138,7 +140,7 @@ pub fn measure(reference: &Capture, capture: &Capture, opts: &DelayOptions) -> R
             (d, d, None)
         }
     };
-    let gain_db = (t.gain.is_finite() && t.gain > 0.0).then(|| 20.0 * t.gain.log10());
+    let gain_db = (t.gain.is_finite() && t.gain != 0.0).then(|| 20.0 * t.gain.abs().log10());
     Ok(DelayReport {
         delay: DelayResult {
             reference: describe(reference),
@@ -149,6 +151,7 @@ pub fn measure(reference: &Capture, capture: &Capture, opts: &DelayOptions) -> R
             end_s,
             drift_ppm,
             gain_db,
+            inverted: t.gain < 0.0,
             confidence: t.confidence,
             windows,
         },
@@ -247,13 +250,14 @@ pub fn summary(d: &DelayResult) -> String {
         d.confidence
     ));
     s.push_str(&format!(
-        "  drift {}   gain {}   ({} windows, {:?})\n",
+        "  drift {}   gain {}{}   ({} windows, {})\n",
         d.drift_ppm
             .map_or_else(|| "-".to_string(), |p| format!("{p:+.3} ppm")),
         d.gain_db
             .map_or_else(|| "-".to_string(), |g| format!("{g:+.3} dB")),
+        if d.inverted { ", inverted" } else { "" },
         d.windows.len(),
-        d.method
+        d.method.name()
     ));
     s
 }

@@ -6,7 +6,8 @@
 //!
 //! Conventions: the capture `y` is the reference `x` delayed by `d` samples, `y[n] ~ g x[n - d]`; a positive
 //! delay means the capture lags. The confidence is the normalised correlation `sum x[n] y[n + d] /
-//! sqrt(sum x^2 sum y^2)` (means removed) at the delay found, in 0..1.
+//! sqrt(sum x^2 sum y^2)` (means removed) at the delay found, in magnitude (0..1): a capture of inverted
+//! polarity correlates as well as an upright one, with a negative gain.
 
 use std::f64::consts::PI;
 
@@ -26,6 +27,16 @@ pub enum Method {
     Phat,
 }
 
+impl Method {
+    /// The name the command line and delay.json use.
+    pub fn name(self) -> &'static str {
+        match self {
+            Method::Plain => "plain",
+            Method::Phat => "phat",
+        }
+    }
+}
+
 /// One delay estimate.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct Estimate {
@@ -33,7 +44,8 @@ pub struct Estimate {
     pub delay_samples: f64,
     /// Normalised correlation at that delay (0..1).
     pub confidence: f64,
-    /// Least-squares gain of the capture against the aligned reference (V/V).
+    /// Least-squares gain of the capture against the aligned reference (V/V); negative for a capture of
+    /// inverted polarity.
     pub gain: f64,
 }
 
@@ -111,14 +123,16 @@ pub fn estimate(x: &[f64], y: &[f64], method: Method) -> Result<Estimate> {
     let (mut best_i, mut best) = (0usize, f64::NEG_INFINITY);
     for (i, &v) in r.iter().enumerate() {
         let lag = lag_of(i);
-        if lag > -(x.len() as i64) && lag < y.len() as i64 && v > best {
-            best = v;
+        if lag > -(x.len() as i64) && lag < y.len() as i64 && v.abs() > best {
+            best = v.abs();
             best_i = i;
         }
     }
     let coarse = lag_of(best_i) as f64;
+    // A capture of inverted polarity peaks negative: the search maximises the correlation times its sign.
+    let sign = if r[best_i] < 0.0 { -1.0 } else { 1.0 };
     // Golden-section search of the interpolated correlation around the coarse peak.
-    let at = |tau: f64| interpolate(&weighted, nfft, tau);
+    let at = |tau: f64| sign * interpolate(&weighted, nfft, tau);
     let (mut a, mut b) = (coarse - 0.75, coarse + 0.75);
     let g = (5f64.sqrt() - 1.0) / 2.0;
     let (mut c, mut d) = (b - g * (b - a), a + g * (b - a));
@@ -140,7 +154,7 @@ pub fn estimate(x: &[f64], y: &[f64], method: Method) -> Result<Estimate> {
     }
     let tau = 0.5 * (a + b);
     let r_tau = interpolate(&plain, nfft, tau) / nfft as f64;
-    let confidence = (r_tau / (ex * ey).sqrt()).clamp(0.0, 1.0);
+    let confidence = (r_tau.abs() / (ex * ey).sqrt()).clamp(0.0, 1.0);
     // Least-squares gain over the overlap: sum x y / sum x^2, x the reference samples the capture overlaps.
     let shift = tau.round() as i64;
     let overlap_ex: f64 = x
