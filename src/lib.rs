@@ -9,6 +9,7 @@
 //! - [`engine`]: the streaming pipeline that runs a scenario on a uniform analog grid, in blocks;
 //! - [`measure`]: spectra, dynamic metrics, sine fits, latency, static tests;
 //! - [`report`]: JSON, CSV and text output;
+//! - [`capture`]: recordings made outside convchain (WAV, CSV exports) read and measured (`convchain analyze`);
 //! - [`runner`]: a whole run, from a checked scenario to files in a folder;
 //! - [`study`]: many runs of one scenario: parameter sweeps, the frequency-limit finder, Monte-Carlo, and the
 //!   shards and merging that spread a study over machines.
@@ -20,6 +21,7 @@
 //! assert!(!sc.stages.is_empty());
 //! ```
 
+pub mod capture;
 pub mod engine;
 pub mod error;
 pub mod format;

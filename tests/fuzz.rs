@@ -1,6 +1,6 @@
 //! Fuzzing without cargo-fuzz: proptest mutates a corpus of valid inputs (byte flips, insertions, deletions,
-//! truncation, splices of interesting tokens) and feeds them to the four readers that take user files: the
-//! scenario reader, the SI-unit parser, the WAV reader and the rows file reader. Each must answer with a value
+//! truncation, splices of interesting tokens) and feeds them to the readers that take user files: the
+//! scenario reader, the SI-unit parser, the WAV reader, the rows file reader and the CSV capture reader. Each must answer with a value
 //! or an error, never a panic, and never allocate beyond what the input holds.
 //!
 //! Run it longer with `PROPTEST_CASES=20000 cargo test --release --test fuzz`. Inputs that once crashed a
@@ -10,6 +10,7 @@ use std::path::Path;
 
 use proptest::prelude::*;
 
+use convchain::capture::{self, Pick};
 use convchain::format::units;
 use convchain::scenario;
 use convchain::stages::wav_file;
@@ -167,6 +168,42 @@ fn rows_corpus() -> Vec<String> {
     vec![study.to_string(), sweep.to_string()]
 }
 
+fn csv_corpus() -> Vec<String> {
+    let mut scope = String::from("# scope export\nTime (s),CH1,CH2\n");
+    for i in 0..40 {
+        let t = -1e-3 + f64::from(i) * 1e-6;
+        scope.push_str(&format!(
+            "{t:.6e},{:.4},{:.3}\n",
+            (f64::from(i) * 0.3).sin(),
+            0.5
+        ));
+    }
+    vec![
+        scope,
+        "t;v\n0;1.5\n0.001;-2\n0.002;0\n0.003;1\n".to_string(),
+        "time [ms]\tA\n0\t1\n1\t2\n2\t3\n3\t4\n".to_string(),
+        "x-axis,1,2\n\"0\",\"1\",2\n1,2,3\n2,3,4\n".to_string(),
+    ]
+}
+
+fn read_csv(bytes: &[u8]) {
+    for pick in [
+        Pick::Only,
+        Pick::Column("CH1".into()),
+        Pick::Column("2".into()),
+        Pick::Column("v".into()),
+    ] {
+        if let Ok(c) = capture::csv::parse(bytes, "fuzz.csv", &pick) {
+            assert!(c.samples.len() >= 2);
+            assert!(c.samples.iter().all(|v| v.is_finite()));
+            assert!(c.sample_rate_hz.is_finite() && c.sample_rate_hz > 0.0);
+            assert!(c.t0_s.is_finite());
+            // Never more samples than the input has lines.
+            assert!(c.samples.len() <= bytes.iter().filter(|&&b| b == b'\n').count() + 1);
+        }
+    }
+}
+
 fn read_wav(dir: &Path, bytes: &[u8]) {
     let p = dir.join("f.wav");
     std::fs::write(&p, bytes).unwrap();
@@ -240,6 +277,18 @@ proptest! {
     }
 
     #[test]
+    fn the_csv_capture_reader_never_panics(which in 0usize..4, muts in mutations()) {
+        read_csv(&apply(csv_corpus()[which].as_bytes(), &muts));
+    }
+
+    #[test]
+    fn the_csv_capture_reader_never_panics_on_arbitrary_bytes(
+        bytes in prop::collection::vec(any::<u8>(), 0..512),
+    ) {
+        read_csv(&bytes);
+    }
+
+    #[test]
     fn the_rows_reader_never_panics(which in 0usize..2, muts in mutations()) {
         let bytes = apply(rows_corpus()[which].as_bytes(), &muts);
         let d = tempfile::tempdir().unwrap();
@@ -260,5 +309,13 @@ fn the_corpus_itself_reads() {
     for r in rows_corpus() {
         std::fs::write(d.path().join(ROWS_FILE), &r).unwrap();
         RowSet::read_dir(d.path()).unwrap();
+    }
+    for (k, c) in csv_corpus().iter().enumerate() {
+        let pick = match k {
+            0 => Pick::Column("CH1".into()),
+            3 => Pick::Column("2".into()),
+            _ => Pick::Only,
+        };
+        capture::csv::parse(c.as_bytes(), "corpus.csv", &pick).unwrap();
     }
 }

@@ -6,6 +6,8 @@ use std::process::ExitCode;
 
 use clap::{Parser, Subcommand};
 
+mod analyze;
+mod delay;
 mod interrupt;
 mod montecarlo;
 
@@ -130,6 +132,10 @@ enum Command {
     Montecarlo(montecarlo::McArgs),
     /// Join the folders of shards (--shard K/N) of one study into what a single machine would have written.
     Merge(montecarlo::MergeArgs),
+    /// Measure a recorded sine (WAV or CSV capture): analysis.json and plots.
+    Analyze(analyze::AnalyzeArgs),
+    /// The delay of a capture behind its reference, the drift between their clocks, and the gain.
+    Delay(delay::DelayArgs),
 }
 
 #[derive(clap::ValueEnum, Clone, Copy, Debug)]
@@ -510,6 +516,8 @@ fn run(args: Args) -> anyhow::Result<()> {
         }
         Command::Montecarlo(a) => montecarlo::run(a)?,
         Command::Merge(a) => montecarlo::merge(a)?,
+        Command::Analyze(a) => analyze::run(a)?,
+        Command::Delay(a) => delay::run(a)?,
     }
     Ok(())
 }

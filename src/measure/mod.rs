@@ -4,10 +4,12 @@
 pub mod audio;
 pub mod chain;
 pub mod coherent;
+pub mod delay;
 pub mod fidelity;
 pub mod imd;
 pub mod latency;
 pub mod metrics;
+pub mod sine_record;
 pub mod sinefit;
 pub mod spectrum;
 pub mod static_test;

@@ -174,6 +174,21 @@ impl<'b, DB: DrawingBackend> Painter<'b, DB> {
         if pts.is_empty() {
             return Ok(());
         }
+        if self.raster_text && width > 1 {
+            // The bitmap backend joins thick segments with unlimited miters, so a dense zigzag (a noisy
+            // trace) throws spikes far outside the frame; `width` one-pixel paths stacked vertically draw the
+            // same thick line with no joins.
+            for k in 0..width as i32 {
+                let dy = k - (width as i32 - 1) / 2;
+                self.db
+                    .draw_path(
+                        pts.iter().map(|&(x, y)| (x, y + dy)),
+                        &Self::style(color.to_rgba(), 1, false),
+                    )
+                    .map_err(draw_err)?;
+            }
+            return Ok(());
+        }
         self.db
             .draw_path(
                 pts.iter().copied(),

@@ -1,0 +1,58 @@
+//! A channel of a WAV recording, through the checked reader the WAV source uses
+//! ([`crate::stages::wav_file`]): every format hound reads (8/16/24/32-bit integer, 32-bit float, any channel
+//! count), samples scaled to +-1 at the format's full scale.
+
+use std::io::BufReader;
+use std::path::Path;
+
+use super::{Capture, Origin, Pick};
+use crate::Error;
+use crate::stages::wav_file;
+
+/// Read channel `pick` (from 1; [`Pick::Only`] for a one-channel file) of the WAV file at `path`.
+pub fn read(path: &Path, pick: &Pick) -> Result<Capture, Error> {
+    let header = wav_file::read_header(path)?;
+    let channels = header.channels;
+    let channel = match pick {
+        Pick::Channel(c) if *c >= 1 && *c <= channels => *c,
+        Pick::Channel(c) => {
+            return Err(Error::BadInput(format!(
+                "{}: --channel {c} was given but the file has {channels} channel(s); choose one of \
+                 1..={channels}",
+                path.display()
+            )));
+        }
+        Pick::Only if channels == 1 => 1,
+        Pick::Only => {
+            return Err(Error::BadInput(format!(
+                "{}: the file has {channels} channels; choose the one to analyse with --channel N \
+                 (1..={channels})",
+                path.display()
+            )));
+        }
+        Pick::Column(_) => {
+            return Err(Error::BadInput(format!(
+                "{}: a WAV file has channels, not columns; use --channel N",
+                path.display()
+            )));
+        }
+    };
+    // The header was checked above; read its format for the report (bits, integer or float).
+    let (f, _) = wav_file::open_regular(path, "a WAV file")?;
+    let spec = hound::WavReader::new(BufReader::new(f))
+        .map_err(|e| Error::BadInput(format!("{}: not a readable WAV file ({e})", path.display())))?
+        .spec();
+    let data = wav_file::read_channel(path, usize::from(channel - 1))?;
+    Ok(Capture {
+        file: path.to_path_buf(),
+        origin: Origin::Wav {
+            channel,
+            channels,
+            bits: spec.bits_per_sample,
+            float: spec.sample_format == hound::SampleFormat::Float,
+        },
+        sample_rate_hz: f64::from(data.rate_hz),
+        t0_s: 0.0,
+        samples: data.data,
+    })
+}
