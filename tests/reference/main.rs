@@ -291,3 +291,100 @@ fn flash_comparator_offsets_lower_the_sinad_as_their_added_noise_predicts() {
         "SINAD {sinad:.2} dB vs {expect:.2} dB"
     );
 }
+
+/// The default delta-sigma decimation design (order 4, oversampling 64: a sinc^5 CIC by 16, then an FIR by 4).
+fn default_decimation() -> (Vec<f64>, convchain::stages::delta_sigma_adc::Shaping) {
+    use convchain::stages::delta_sigma_adc::{FilterPhase, NtfZeros, Shaping};
+    let sh = Shaping {
+        oversampling: 64,
+        order: 4,
+        quantizer_bits: 1,
+        ntf_gain: 1.5,
+        zeros: NtfZeros::Spread,
+        phase: FilterPhase::Linear,
+        passband_edge: 0.45,
+        stopband_edge: 0.55,
+        ripple_db: 0.01,
+        attenuation_db: 100.0,
+        cic_order: 5,
+    };
+    (sh.design().fir.taps.clone(), sh)
+}
+
+#[test]
+fn decimation_design_matches_scipy_freqz() {
+    // Computed with scipy.signal.freqz (scipy 1.17.1, numpy 2.4.6) by
+    // tests/reference/decimation.py from tests/reference/decimation_taps.txt, the taps this design gave.
+    let here = Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/reference");
+    let (taps, sh) = default_decimation();
+    let taps_path = here.join("decimation_taps.txt");
+    if std::env::var_os("CONVCHAIN_REFERENCE_WRITE").is_some() {
+        let text: String = taps.iter().map(|t| format!("{t:.17e}\n")).collect();
+        std::fs::write(&taps_path, text).unwrap();
+    }
+    // The design still gives the taps the reference was computed from.
+    let stored: Vec<f64> = std::fs::read_to_string(&taps_path)
+        .unwrap()
+        .lines()
+        .map(|l| l.trim().parse().unwrap())
+        .collect();
+    assert_eq!(stored.len(), taps.len());
+    for (a, b) in stored.iter().zip(&taps) {
+        assert!((a - b).abs() < 1e-12, "{a} vs {b}");
+    }
+    let csv = std::fs::read_to_string(here.join("decimation_freqz.csv")).unwrap();
+    let d = sh.design();
+    let (r, k) = (d.cic_factor, 5usize);
+    assert_eq!(r, 16);
+    let mut seen = 0;
+    for line in csv.lines().filter(|l| !l.starts_with('#')).skip(1) {
+        let cells: Vec<&str> = line.split(',').collect();
+        let value: f64 = cells[2].parse().unwrap();
+        match cells[0] {
+            "fir" => {
+                let f: f64 = cells[1].parse().unwrap();
+                let ours = 20.0
+                    * convchain::stages::multirate::fir_response(&taps, f)
+                        .norm()
+                        .log10();
+                // Deep in the stop band both are rounding noise far under -100 dB.
+                if value > -100.0 {
+                    assert!(
+                        (ours - value).abs() < 1e-6,
+                        "FIR at {f}: {ours} vs scipy {value}"
+                    );
+                } else {
+                    assert!(ours < -100.0, "FIR at {f}: {ours}");
+                }
+            }
+            "cic" => {
+                // E. B. Hogenauer, IEEE Trans. ASSP 29(2), 1981: (sin(pi f R)/(R sin(pi f)))^K.
+                let f: f64 = cells[1].parse().unwrap();
+                let ours = 20.0 * convchain::stages::multirate::cic_magnitude(k, r, f).log10();
+                assert!(
+                    (ours - value).abs() < 1e-9,
+                    "CIC at {f}: {ours} vs scipy {value}"
+                );
+            }
+            "ripple_db" => {
+                assert!(value <= 0.01, "scipy's ripple {value} dB");
+                assert!(
+                    (d.fir.ripple_db - value).abs() < 2e-4,
+                    "{} vs scipy {value}",
+                    d.fir.ripple_db
+                );
+            }
+            "attenuation_db" => {
+                assert!(value >= 100.0, "scipy's attenuation {value} dB");
+                assert!(
+                    (d.fir.atten_db - value).abs() < 0.1,
+                    "{} vs scipy {value}",
+                    d.fir.atten_db
+                );
+            }
+            other => panic!("unknown row {other}"),
+        }
+        seen += 1;
+    }
+    assert_eq!(seen, 18);
+}
