@@ -64,6 +64,9 @@ fn the_demo_measures_the_decimation_delay_it_states() {
     assert_eq!(r["adc"]["modulator_overloads"], 0);
     assert!(r["adc"]["snr_db"].as_f64().unwrap() > 95.0);
     assert_eq!(r["adc"]["codes_clipped"], 0);
+    // The loop's own output is drawn (the bit-stream spectrum), beside the code spectrum.
+    assert!(out.join("spectrum_modulator.png").exists());
+    assert!(out.join("spectrum_modulator.svg").exists());
 }
 
 #[test]

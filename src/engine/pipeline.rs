@@ -85,6 +85,8 @@ pub struct RunOutput {
     pub codes_clipped: u64,
     /// Overloads of a noise-shaping loop (`None` without one).
     pub modulator_overloads: Option<u64>,
+    /// The last stretch of a noise-shaping loop's output: (clock, levels at full scale +-1).
+    pub modulator_stream: Option<(f64, Vec<f64>)>,
     pub bits_flipped: u64,
     /// The latency budget from each stage's own delay: phase delays at the fundamental, or group delays at a
     /// tenth of the output band for broadband sources.
@@ -641,6 +643,10 @@ fn run_with(
         .converter
         .as_ref()
         .and_then(|c| c.quantizer.overloads());
+    let modulator_stream = chain
+        .converter
+        .as_ref()
+        .and_then(|c| c.quantizer.modulator_stream());
     let (codes_clipped, bits_flipped) = match &chain.converter {
         Some(c) => (
             c.quantizer.codes_clipped(),
@@ -684,6 +690,7 @@ fn run_with(
         capture_dac_events,
         codes_clipped,
         modulator_overloads,
+        modulator_stream,
         bits_flipped,
         budget,
         pre_gain,

@@ -4,9 +4,11 @@ use crate::engine::pipeline::{RunOutput, si};
 use crate::engine::static_bench::Static;
 use crate::error::Result;
 use crate::measure::chain::{ChainMetrics, SpectrumDetail};
+use crate::measure::spectrum::SpectrumAnalyzer;
 use crate::report::plot::{
     BudgetPlot, Plot, PlotSummary, SpectrumPlot, StaticPlot, WaveformPlot, render_png, render_svg,
 };
+use crate::scenario::WindowKind;
 use crate::signal::waveform::Waveform;
 
 /// Pixel size of the PNG files.
@@ -240,6 +242,13 @@ pub fn run_figures(
         )?);
     }
 
+    // ---- the noise-shaping loop's own output, before its decimation filter
+    if let Some((clock_hz, levels)) = &run.modulator_stream
+        && levels.len() >= 1024
+    {
+        figs.push(modulator_figure(name, *clock_hz, levels, run)?);
+    }
+
     // ---- latency budget
     let lines: Vec<(String, f64)> = m
         .latency
@@ -257,6 +266,41 @@ pub fn run_figures(
         }),
     )?);
     Ok(figs)
+}
+
+/// The spectrum of a noise-shaping loop's output levels (full scale +-1) at its clock, on a logarithmic frequency
+/// axis so the shaped noise's slope shows, with the converter's output band (up to its Nyquist frequency) shaded.
+fn modulator_figure(name: &str, clock_hz: f64, levels: &[f64], run: &RunOutput) -> Result<Figure> {
+    let mut an = SpectrumAnalyzer::new(levels.len(), WindowKind::BlackmanHarris)?;
+    let spec = an.power_spectrum(levels, clock_hz)?;
+    let level = spec.dbfs(1.0);
+    let band_hz = run.plan.adc.as_ref().map(|a| a.sample_rate_hz / 2.0);
+    let mut notes = vec![
+        format!("loop clock {}", si(clock_hz, "Hz")),
+        format!("last {} clocks", levels.len()),
+        "Blackman-Harris window".to_string(),
+    ];
+    if let Some(b) = band_hz {
+        notes.push(format!("shaded: the output band, 0 .. {}", si(b, "Hz")));
+    }
+    figure(
+        "spectrum_modulator",
+        "Spectrum of the delta-sigma loop's own output (its quantizer's levels at the loop clock, before the \
+         decimation filter), in dBFS, on a logarithmic frequency axis: the quantization noise is pushed out of \
+         the shaded output band and rises toward half the loop clock"
+            .to_string(),
+        &Plot::Spectrum(SpectrumPlot {
+            title: format!("{name}: delta-sigma loop output spectrum"),
+            bin_hz: spec.bin_hz,
+            level_dbfs: &level,
+            fundamental_hz: run.plan.frequency_hz,
+            harmonics: Vec::new(),
+            images_hz: Vec::new(),
+            band_hz,
+            notes,
+            log_frequency: true,
+        }),
+    )
 }
 
 /// What the spectrum of a source other than a sine is, for the strip under the spectrum (sine metrics such as

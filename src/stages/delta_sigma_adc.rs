@@ -579,11 +579,57 @@ input_noise = "20 uV""#;
             fir: FirDecimator::new(&d.fir.taps, d.fir_factor),
             design: d,
             next_m: None,
+            stream: StreamTail::new(),
             rng: ctx.rng.clone(),
             hold,
             clipped: 0,
             label: ctx.label.clone(),
         })))
+    }
+}
+
+/// The last [`StreamTail::LEN`] values of a stream, in a ring (bounded memory whatever the run's length).
+#[derive(Debug, Clone)]
+pub struct StreamTail {
+    buf: Vec<f64>,
+    pos: usize,
+    filled: bool,
+}
+
+impl StreamTail {
+    /// 2^16 modulator clocks: 1024 output samples at 64 x oversampling.
+    pub const LEN: usize = 1 << 16;
+    pub fn new() -> StreamTail {
+        StreamTail {
+            buf: vec![0.0; Self::LEN],
+            pos: 0,
+            filled: false,
+        }
+    }
+    #[inline]
+    pub fn push(&mut self, v: f64) {
+        self.buf[self.pos] = v;
+        self.pos += 1;
+        if self.pos == Self::LEN {
+            self.pos = 0;
+            self.filled = true;
+        }
+    }
+    /// The values held, oldest first.
+    pub fn ordered(&self) -> Vec<f64> {
+        if self.filled {
+            let mut v = self.buf[self.pos..].to_vec();
+            v.extend_from_slice(&self.buf[..self.pos]);
+            v
+        } else {
+            self.buf[..self.pos].to_vec()
+        }
+    }
+}
+
+impl Default for StreamTail {
+    fn default() -> Self {
+        Self::new()
     }
 }
 
@@ -596,6 +642,8 @@ pub struct DeltaSigmaQuantizer {
     fir: FirDecimator,
     /// The next modulator clock to run.
     next_m: Option<i64>,
+    /// The loop's latest output levels, for the bit-stream spectrum.
+    stream: StreamTail,
     rng: ChaCha8Rng,
     hold: Box<dyn Hold>,
     clipped: u64,
@@ -627,6 +675,7 @@ impl DeltaSigmaQuantizer {
             // The filters run on the level index centred on mid-scale (2 i - (levels - 1)), so their empty
             // start-up state reads as mid-scale rather than as the lowest level.
             let i = self.modulator.step(u);
+            self.stream.push(self.modulator.level(i));
             if let Some(c) = self.cic.push(2 * i64::from(i) - centre)
                 && let Some(y) = self.fir.push(c)
             {
@@ -672,6 +721,9 @@ impl Quantizer for DeltaSigmaQuantizer {
     }
     fn overloads(&self) -> Option<u64> {
         Some(self.modulator.overloads())
+    }
+    fn modulator_stream(&self) -> Option<(f64, Vec<f64>)> {
+        Some((self.cfg.modulator_clock_hz(), self.stream.ordered()))
     }
     fn bits(&self) -> u32 {
         self.cfg.bits
@@ -751,6 +803,7 @@ mod tests {
             fir: FirDecimator::new(&d.fir.taps, d.fir_factor),
             design: d,
             next_m: None,
+            stream: StreamTail::new(),
             rng: rand::SeedableRng::seed_from_u64(1),
             hold: Box::new(SampleHold::ideal()),
             clipped: 0,
@@ -844,6 +897,23 @@ mod tests {
             assert!(ev.code < 1 << 24);
         }
         assert!(q.overloads().unwrap() > 0);
+    }
+
+    #[test]
+    fn the_stream_tail_keeps_the_last_values_in_order() {
+        let mut t = StreamTail::new();
+        for i in 0..10 {
+            t.push(i as f64);
+        }
+        assert_eq!(t.ordered(), (0..10).map(|i| i as f64).collect::<Vec<_>>());
+        let n = StreamTail::LEN + 5;
+        for i in 0..n {
+            t.push(i as f64);
+        }
+        let v = t.ordered();
+        assert_eq!(v.len(), StreamTail::LEN);
+        assert_eq!(v[0], (n - StreamTail::LEN) as f64);
+        assert_eq!(*v.last().unwrap(), (n - 1) as f64);
     }
 
     #[test]

@@ -66,6 +66,11 @@ pub trait Quantizer: Send {
     fn overloads(&self) -> Option<u64> {
         None
     }
+    /// The last stretch of a noise-shaping loop's output at its clock: (clock in Hz, levels with full scale
+    /// +-1), oldest first (`None` for converters without one).
+    fn modulator_stream(&self) -> Option<(f64, Vec<f64>)> {
+        None
+    }
 }
 
 /// A digital stage between the quantizer and the reconstructor.
