@@ -90,6 +90,18 @@ fn minimum_phase_is_far_earlier_and_as_clean() {
     let budget = r["latency"]["budget_s"].as_f64().unwrap();
     assert!((measured - budget).abs() < 200e-9, "{measured} vs {budget}");
     assert!(r["adc"]["snr_db"].as_f64().unwrap() > 95.0);
+    // The report says how much minimum phase saves: the budget lines quote the linear-phase delay, and the
+    // stage's echo gives it.
+    let lines = r["latency"]["budget"].as_array().unwrap();
+    let quoting = lines
+        .iter()
+        .filter(|l| l["stage"].as_str().unwrap().contains("linear phase: "))
+        .count();
+    assert_eq!(quoting, 2);
+    let lin = ds_stage(&r)["decimation"]["delay_linear_phase_s"]
+        .as_f64()
+        .unwrap();
+    assert!(lin > 5.0 * measured / 2.0, "{lin}");
 }
 
 #[test]

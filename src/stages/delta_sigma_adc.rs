@@ -132,8 +132,9 @@ pub struct Design {
     pub fir: DesignedFir,
     pub cic_factor: usize,
     pub fir_factor: usize,
-    /// Linear-phase delay (s): the CIC's and the linear FIR's (for a minimum-phase FIR, its delay at DC).
-    pub delay_at_dc_s: f64,
+    /// The delay of the linear-phase design, in word periods: the CIC's and the linear FIR's (taps - 1)/2. With
+    /// `filter_phase = "minimum"` it is what linear phase would have given.
+    pub linear_delay_out: f64,
 }
 
 fn design(cfg: &Shaping) -> Arc<Design> {
@@ -216,7 +217,7 @@ fn compute_design(cfg: &Shaping) -> Design {
         cic_factor,
         fir_factor,
         // Output samples; converted to seconds by `delay_s`.
-        delay_at_dc_s: cic_delay_out + fir_delay_out,
+        linear_delay_out: cic_delay_out + fir_delay_out,
     }
 }
 
@@ -264,7 +265,7 @@ impl Shaping {
     pub fn delay_s(&self, fs_hz: f64, f_hz: f64) -> f64 {
         let d = self.design();
         match self.phase {
-            FilterPhase::Linear => d.delay_at_dc_s / fs_hz,
+            FilterPhase::Linear => d.linear_delay_out / fs_hz,
             FilterPhase::Minimum => {
                 let osr = f64::from(self.oversampling);
                 let k = f64::from(self.cic_order);
@@ -560,7 +561,7 @@ input_noise = "20 uV""#;
             "stopband_hz": self.stopband_edge * self.sample_rate_hz,
             "ripple_db": d.fir.ripple_db,
             "attenuation_db": d.fir.atten_db,
-            "delay_at_dc_s": d.delay_at_dc_s / self.sample_rate_hz,
+            "delay_linear_phase_s": d.linear_delay_out / self.sample_rate_hz,
         });
         v
     }
@@ -749,11 +750,12 @@ impl Quantizer for DeltaSigmaQuantizer {
                 self.cfg.cic_order, self.design.cic_factor, self.design.fir_factor
             ),
             FilterPhase::Minimum => format!(
-                "decimation filter (sinc^{} by {}, {taps}-tap minimum-phase FIR by {}, at {})",
+                "decimation filter (sinc^{} by {}, {taps}-tap minimum-phase FIR by {}, at {}; linear phase: {})",
                 self.cfg.cic_order,
                 self.design.cic_factor,
                 self.design.fir_factor,
-                format_si(f_hz, "Hz")
+                format_si(f_hz, "Hz"),
+                format_si(self.design.linear_delay_out / self.cfg.sample_rate_hz, "s")
             ),
         };
         lines.push(BudgetLine {

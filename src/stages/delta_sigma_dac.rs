@@ -193,6 +193,7 @@ element_selection = "dwa""#;
             "ripple_db": d.fir.ripple_db,
             "attenuation_db": d.fir.atten_db,
         });
+        v["interpolation"]["delay_linear_phase_words"] = serde_json::json!(d.linear_delay_out);
         v
     }
 
@@ -439,15 +440,21 @@ impl Reconstructor for DeltaSigmaDac {
     }
     fn budget(&self, update_rate_hz: f64, f_hz: f64) -> Vec<BudgetLine> {
         let taps = self.design.fir.taps.len();
-        let phase = match self.cfg.shaping.phase {
-            FilterPhase::Linear => "linear-phase",
-            FilterPhase::Minimum => "minimum-phase",
+        let (phase, linear) = match self.cfg.shaping.phase {
+            FilterPhase::Linear => ("linear-phase", String::new()),
+            FilterPhase::Minimum => (
+                "minimum-phase",
+                format!(
+                    "; linear phase: {}",
+                    format_si(self.design.linear_delay_out / update_rate_hz, "s")
+                ),
+            ),
         };
         let f_mod = update_rate_hz * f64::from(self.cfg.shaping.oversampling);
         vec![
             BudgetLine {
                 stage: format!(
-                    "{}: interpolation filter ({taps}-tap {phase} FIR by {}, sinc^{} by {})",
+                    "{}: interpolation filter ({taps}-tap {phase} FIR by {}, sinc^{} by {}{linear})",
                     self.label,
                     self.design.fir_factor,
                     self.cfg.shaping.cic_order,
