@@ -64,24 +64,9 @@ pub struct DeltaSigmaAdcCfg {
     pub range_v: (f64, f64),
     /// Output rate (Hz).
     pub sample_rate_hz: f64,
-    /// Modulator clock over the output rate.
-    pub oversampling: u32,
-    /// Loop order (1 to 5).
-    pub order: u32,
-    /// The loop's quantizer (1 to 5 bits: 2 to 32 levels).
-    pub quantizer_bits: u32,
-    /// Largest NTF gain over all frequencies.
-    pub ntf_gain: f64,
-    pub zeros: NtfZeros,
-    pub phase: FilterPhase,
-    /// Passband and stop-band edges, fractions of the output rate.
-    pub passband_edge: f64,
-    pub stopband_edge: f64,
-    /// Peak-to-peak passband ripple (dB) and stop-band attenuation (dB) the decimation filter must meet.
-    pub ripple_db: f64,
-    pub attenuation_db: f64,
-    /// Order of the CIC stage.
-    pub cic_order: u32,
+    /// The loop and decimation-filter keys (shared with the delta-sigma DAC).
+    #[serde(flatten)]
+    pub shaping: Shaping,
     /// Rms noise added to the input at each modulator sample (V): the sampling capacitor's kT/C noise and the
     /// loop's own input-referred noise.
     pub input_noise_v: f64,
@@ -92,34 +77,18 @@ impl DeltaSigmaAdcCfg {
         (self.range_v.1 - self.range_v.0) / f64::powi(2.0, self.bits as i32)
     }
     pub fn modulator_clock_hz(&self) -> f64 {
-        self.sample_rate_hz * f64::from(self.oversampling)
-    }
-    /// The loop and filter keys.
-    pub fn shaping(&self) -> Shaping {
-        Shaping {
-            oversampling: self.oversampling,
-            order: self.order,
-            quantizer_bits: self.quantizer_bits,
-            ntf_gain: self.ntf_gain,
-            zeros: self.zeros,
-            phase: self.phase,
-            passband_edge: self.passband_edge,
-            stopband_edge: self.stopband_edge,
-            ripple_db: self.ripple_db,
-            attenuation_db: self.attenuation_db,
-            cic_order: self.cic_order,
-        }
+        self.sample_rate_hz * f64::from(self.shaping.oversampling)
     }
     pub fn levels(&self) -> u32 {
-        self.shaping().levels()
+        self.shaping.levels()
     }
     /// The designed loop and filters (cached: the same keys give the same design).
     pub fn design(&self) -> Arc<Design> {
-        self.shaping().design()
+        self.shaping.design()
     }
     /// The decimation chain's delay at `f_hz` (s); see [`Shaping::delay_s`].
     pub fn delay_s(&self, f_hz: f64) -> f64 {
-        self.shaping().delay_s(self.sample_rate_hz, f_hz)
+        self.shaping.delay_s(self.sample_rate_hz, f_hz)
     }
 }
 
@@ -235,7 +204,8 @@ pub struct Shaping {
     /// Largest NTF gain over all frequencies.
     pub ntf_gain: f64,
     pub zeros: NtfZeros,
-    /// The rate-change FIR's phase.
+    /// The rate-change FIR's phase (`filter_phase` in scenarios and reports).
+    #[serde(rename = "filter_phase")]
     pub phase: FilterPhase,
     /// Passband and stop-band edges, fractions of the word rate.
     pub passband_edge: f64,
@@ -474,17 +444,7 @@ input_noise = "20 uV""#;
             bits,
             range_v: range.value,
             sample_rate_hz,
-            oversampling,
-            order: sh.order,
-            quantizer_bits: sh.quantizer_bits,
-            ntf_gain: sh.ntf_gain,
-            zeros: sh.zeros,
-            phase: sh.phase,
-            passband_edge: sh.passband_edge,
-            stopband_edge: sh.stopband_edge,
-            ripple_db: sh.ripple_db,
-            attenuation_db: sh.attenuation_db,
-            cic_order: sh.cic_order,
+            shaping: sh,
             input_noise_v: r.non_negative("input_noise", D::Voltage)?,
         };
         Ok(cfg)
@@ -505,7 +465,7 @@ input_noise = "20 uV""#;
                 vec![KeyEdit::Set("input_noise", 0.0)],
             ));
         }
-        if self.quantizer_bits < 5 {
+        if self.shaping.quantizer_bits < 5 {
             out.push(Ablation::new(
                 mechanism::<Self>("quantizer_bits"),
                 "quantizer_bits raised to 5",
@@ -529,7 +489,7 @@ input_noise = "20 uV""#;
 
     fn rates(&self) -> Rates {
         Rates {
-            lowpass_hz: Some(self.passband_edge * self.sample_rate_hz),
+            lowpass_hz: Some(self.shaping.passband_edge * self.sample_rate_hz),
             highpass_hz: None,
         }
     }
@@ -553,12 +513,12 @@ input_noise = "20 uV""#;
         v["max_stable_input_v"] = serde_json::json!(d.max_stable * half);
         v["max_stable_input_dbfs"] = serde_json::json!(20.0 * d.max_stable.log10());
         v["decimation"] = serde_json::json!({
-            "cic_order": self.cic_order,
+            "cic_order": self.shaping.cic_order,
             "cic_factor": d.cic_factor,
             "fir_factor": d.fir_factor,
             "fir_taps": d.fir.taps.len(),
-            "passband_hz": self.passband_edge * self.sample_rate_hz,
-            "stopband_hz": self.stopband_edge * self.sample_rate_hz,
+            "passband_hz": self.shaping.passband_edge * self.sample_rate_hz,
+            "stopband_hz": self.shaping.stopband_edge * self.sample_rate_hz,
             "ripple_db": d.fir.ripple_db,
             "attenuation_db": d.fir.atten_db,
             "delay_linear_phase_s": d.linear_delay_out / self.sample_rate_hz,
@@ -576,7 +536,7 @@ input_noise = "20 uV""#;
         Ok(Runtime::Quantizer(Box::new(DeltaSigmaQuantizer {
             cfg: *self,
             modulator: Modulator::new(&d.ntf, self.levels()),
-            cic: CicDecimator::new(self.cic_order as usize, d.cic_factor),
+            cic: CicDecimator::new(self.shaping.cic_order as usize, d.cic_factor),
             fir: FirDecimator::new(&d.fir.taps, d.fir_factor),
             design: d,
             next_m: None,
@@ -654,7 +614,7 @@ pub struct DeltaSigmaQuantizer {
 impl DeltaSigmaQuantizer {
     /// Run the loop and the filters through modulator clock `m_end` (inclusive); the last filter output.
     fn run_to(&mut self, m_end: i64, probe: &dyn Probe) -> f64 {
-        let osr = i64::from(self.cfg.oversampling);
+        let osr = i64::from(self.cfg.shaping.oversampling);
         let mut m = self.next_m.unwrap_or(m_end - osr + 1);
         let f_mod = self.cfg.modulator_clock_hz();
         let (low, high) = self.cfg.range_v;
@@ -702,7 +662,7 @@ impl Quantizer for DeltaSigmaQuantizer {
         self.hold.lookahead_s() + self.hold.history_needed_s(t_mod) + 2.0 * period
     }
     fn convert(&mut self, k: u64, probe: &dyn Probe) -> CodeEvent {
-        let m_end = k as i64 * i64::from(self.cfg.oversampling);
+        let m_end = k as i64 * i64::from(self.cfg.shaping.oversampling);
         let y = self.run_to(m_end, probe);
         let full = f64::powi(2.0, self.cfg.bits as i32);
         let x = (y + 1.0) / 2.0 * full;
@@ -744,14 +704,14 @@ impl Quantizer for DeltaSigmaQuantizer {
     fn budget_at(&self, f_hz: f64) -> Vec<BudgetLine> {
         let mut lines = self.hold.budget();
         let taps = self.design.fir.taps.len();
-        let what = match self.cfg.phase {
+        let what = match self.cfg.shaping.phase {
             FilterPhase::Linear => format!(
                 "decimation filter (sinc^{} by {}, {taps}-tap linear-phase FIR by {})",
-                self.cfg.cic_order, self.design.cic_factor, self.design.fir_factor
+                self.cfg.shaping.cic_order, self.design.cic_factor, self.design.fir_factor
             ),
             FilterPhase::Minimum => format!(
                 "decimation filter (sinc^{} by {}, {taps}-tap minimum-phase FIR by {}, at {}; linear phase: {})",
-                self.cfg.cic_order,
+                self.cfg.shaping.cic_order,
                 self.design.cic_factor,
                 self.design.fir_factor,
                 format_si(f_hz, "Hz"),
@@ -781,17 +741,19 @@ mod tests {
             bits: 24,
             range_v: (-1.0, 1.0),
             sample_rate_hz: 48_000.0,
-            oversampling: 64,
-            order: 4,
-            quantizer_bits: 1,
-            ntf_gain: 1.5,
-            zeros: NtfZeros::Spread,
-            phase: FilterPhase::Linear,
-            passband_edge: 0.45,
-            stopband_edge: 0.55,
-            ripple_db: 0.01,
-            attenuation_db: 100.0,
-            cic_order: 5,
+            shaping: Shaping {
+                oversampling: 64,
+                order: 4,
+                quantizer_bits: 1,
+                ntf_gain: 1.5,
+                zeros: NtfZeros::Spread,
+                phase: FilterPhase::Linear,
+                passband_edge: 0.45,
+                stopband_edge: 0.55,
+                ripple_db: 0.01,
+                attenuation_db: 100.0,
+                cic_order: 5,
+            },
             input_noise_v: 0.0,
         }
     }
@@ -801,7 +763,7 @@ mod tests {
         DeltaSigmaQuantizer {
             cfg: *c,
             modulator: Modulator::new(&d.ntf, c.levels()),
-            cic: CicDecimator::new(c.cic_order as usize, d.cic_factor),
+            cic: CicDecimator::new(c.shaping.cic_order as usize, d.cic_factor),
             fir: FirDecimator::new(&d.fir.taps, d.fir_factor),
             design: d,
             next_m: None,
@@ -823,30 +785,12 @@ mod tests {
             .collect()
     }
 
-    /// Amplitude and phase (rad) of a least-squares fit at a known frequency, and the rms residual.
+    /// Amplitude, phase of `A sin(w n + phase)` (rad) and rms residual of a three-parameter fit (IEEE Std 1241)
+    /// at `f_norm` cycles per sample.
     fn fit(x: &[f64], f_norm: f64) -> (f64, f64, f64) {
-        let (mut ss, mut cc, mut sc, mut xs, mut xc) = (0.0, 0.0, 0.0, 0.0, 0.0);
-        for (n, v) in x.iter().enumerate() {
-            let (s, c) = (2.0 * PI * f_norm * n as f64).sin_cos();
-            ss += s * s;
-            cc += c * c;
-            sc += s * c;
-            xs += v * s;
-            xc += v * c;
-        }
-        let det = ss * cc - sc * sc;
-        let a = (xs * cc - xc * sc) / det;
-        let b = (xc * ss - xs * sc) / det;
-        let res: f64 = x
-            .iter()
-            .enumerate()
-            .map(|(n, v)| {
-                let (s, c) = (2.0 * PI * f_norm * n as f64).sin_cos();
-                (v - a * s - b * c).powi(2)
-            })
-            .sum::<f64>()
-            / x.len() as f64;
-        (a.hypot(b), b.atan2(a), res.sqrt())
+        let f = crate::measure::sinefit::fit3(x, 1.0, f_norm, 0.0);
+        // fit3 gives A cos(w n + phi); A sin(w n + phi + pi/2) is the same wave.
+        (f.amplitude_v, f.phase_rad + PI / 2.0, f.residual_rms_v)
     }
 
     #[test]
@@ -877,7 +821,7 @@ mod tests {
     fn minimum_phase_cuts_the_delay_and_keeps_the_level() {
         let mut c = cfg();
         let lin = c.delay_s(1000.0);
-        c.phase = FilterPhase::Minimum;
+        c.shaping.phase = FilterPhase::Minimum;
         let min = c.delay_s(1000.0);
         assert!(min < lin / 3.0, "{min} vs {lin}");
         let y = convert_sine(&c, 0.5, 1000.0, 4800);

@@ -564,49 +564,10 @@ mod tests {
         (words, dac.overloads() as f64, out)
     }
 
-    /// Least-squares sine at a known frequency: (amplitude, rms residual).
+    /// Amplitude and rms residual of a three-parameter fit (IEEE Std 1241) at `f_norm` cycles per sample.
     fn fit(x: &[f64], f_norm: f64) -> (f64, f64) {
-        let (mut ss, mut cc, mut sc, mut xs, mut xc, mut s1, mut c1, mut x1) =
-            (0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0);
-        let n = x.len() as f64;
-        for (i, v) in x.iter().enumerate() {
-            let (s, c) = (2.0 * PI * f_norm * i as f64).sin_cos();
-            ss += s * s;
-            cc += c * c;
-            sc += s * c;
-            xs += v * s;
-            xc += v * c;
-            s1 += s;
-            c1 += c;
-            x1 += v;
-        }
-        // Solve the 3x3 normal equations for a sin + b cos + m (m: the mean), by Cramer's rule.
-        let m = [[ss, sc, s1], [sc, cc, c1], [s1, c1, n]];
-        let rhs = [xs, xc, x1];
-        let det3 = |m: [[f64; 3]; 3]| {
-            m[0][0] * (m[1][1] * m[2][2] - m[1][2] * m[2][1])
-                - m[0][1] * (m[1][0] * m[2][2] - m[1][2] * m[2][0])
-                + m[0][2] * (m[1][0] * m[2][1] - m[1][1] * m[2][0])
-        };
-        let d = det3(m);
-        let mut sol = [0.0; 3];
-        for (k, s) in sol.iter_mut().enumerate() {
-            let mut mk = m;
-            for row in 0..3 {
-                mk[row][k] = rhs[row];
-            }
-            *s = det3(mk) / d;
-        }
-        let res: f64 = x
-            .iter()
-            .enumerate()
-            .map(|(i, v)| {
-                let (s, c) = (2.0 * PI * f_norm * i as f64).sin_cos();
-                (v - sol[0] * s - sol[1] * c - sol[2]).powi(2)
-            })
-            .sum::<f64>()
-            / n;
-        (sol[0].hypot(sol[1]), res.sqrt())
+        let f = crate::measure::sinefit::fit3(x, 1.0, f_norm, 0.0);
+        (f.amplitude_v, f.residual_rms_v)
     }
 
     #[test]
