@@ -140,6 +140,9 @@ pub struct LatencyMetrics {
     pub difference_s: f64,
     /// True when the difference is large (more than 5 % of the budget and more than a tenth of a sample period).
     pub flagged: bool,
+    /// The measured delay tracked block by block over the output record (`analysis.latency_blocks`).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub over_time: Option<latency::LatencyOverTime>,
 }
 
 /// A spectrum kept for plots, with its tone analysis and the full-scale reference of its dBFS.
@@ -438,6 +441,7 @@ pub fn measure_run(run: &RunRecords<'_>) -> Result<ChainMetrics> {
             budget,
             difference_s,
             flagged,
+            over_time: None,
         },
     })
 }
