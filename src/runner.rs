@@ -153,10 +153,10 @@ fn run_inner(sc: &Scenario, out: &OutputDir, opts: &RunOptions) -> Result<Report
         }
         None => None,
     };
-    let path_delays = match sc.paths.first() {
-        Some(first) => Some(path_delays(&first.name, &run, &metrics, &other_runs)),
-        None => None,
-    };
+    let path_delays = sc
+        .paths
+        .first()
+        .map(|first| path_delays(&first.name, &run, &metrics, &other_runs));
     let figs = if opts.figures {
         phase("drawing the plots");
         let mut figs = figures::run_figures(&run, &metrics, opts.window_s)?;
@@ -216,7 +216,7 @@ fn run_inner(sc: &Scenario, out: &OutputDir, opts: &RunOptions) -> Result<Report
                         .map_or(f64::NAN, |(_, p)| p.output_analysis_rate_hz)
                 };
                 let period_s = 1.0 / rate(&d.from).min(rate(&d.to));
-                if !(d.agreement_s.abs() <= period_s) {
+                if d.agreement_s.is_nan() || d.agreement_s.abs() > period_s {
                     report.scenario.warnings.push(format!(
                         "paths \"{}\" and \"{}\": the delay between them cross-correlated directly ({}) and \
                          the difference of their measured latencies ({}) disagree by more than one output \

@@ -159,9 +159,12 @@ pub struct BudgetPlot<'a> {
 pub struct PathBudgetsPlot<'a> {
     /// Title drawn above the plot.
     pub title: String,
-    /// (path name, its budget lines (stage name, latency in s) in chain order, its measured latency in s).
-    pub paths: Vec<(&'a str, &'a [(String, f64)], f64)>,
+    pub paths: Vec<PathBudget<'a>>,
 }
+
+/// One path of a [`PathBudgetsPlot`]: (path name, its budget lines (stage name, latency in s) in chain order,
+/// its measured latency in s).
+pub type PathBudget<'a> = (&'a str, &'a [(String, f64)], f64);
 
 /// A generic x-y chart (sweeps): several named series.
 #[derive(Debug, Clone)]
