@@ -60,9 +60,7 @@ impl Default for RunOptions {
 pub fn run_to_dir(sc: &Scenario, dir: &Path, opts: &RunOptions) -> Result<Report> {
     // Plan first: bad input is reported before any folder appears.
     let (plan, _) = Plan::new(sc)?;
-    for (name, _, s) in other_paths(sc)? {
-        Plan::new(&s).map_err(|e| in_path(&name, e))?;
-    }
+    check_paths(sc)?;
     if let Some(band) = opts.audio_band_hz {
         crate::engine::audio::check(sc, &plan, band)?;
     }
@@ -336,6 +334,15 @@ fn other_paths(sc: &Scenario) -> Result<Vec<(String, String, Scenario)>> {
             (p.name.clone(), p.description.clone(), s)
         })
         .collect())
+}
+
+/// Plan every path after the first of a `[[path]]` scenario (the first is the scenario's own chain): an error
+/// names its path. Nothing to do for a one-chain scenario.
+pub fn check_paths(sc: &Scenario) -> Result<()> {
+    for (name, _, s) in other_paths(sc)? {
+        Plan::new(&s).map_err(|e| in_path(&name, e))?;
+    }
+    Ok(())
 }
 
 /// An error of one path's run, named by the path.

@@ -268,3 +268,22 @@ fn path_mistakes_are_located_errors() {
         assert!(e.contains("s.toml:"), "located: {e}");
     }
 }
+
+#[test]
+fn check_names_every_path_and_a_path_that_cannot_run() {
+    let d = tempfile::tempdir().unwrap();
+    let path = d.path().join("s.toml");
+    std::fs::write(&path, HEAD.replace("DURATION", "400 ms") + PATHS).unwrap();
+    let o = run(&["check", s(&path)]);
+    ok(&o);
+    let said = String::from_utf8_lossy(&o.stdout).to_string();
+    assert!(
+        said.contains("2 paths: analog 1 stages, digital 4 stages"),
+        "{said}"
+    );
+    // The link's 100 ms leave the second path no record in a 100 ms run: the error names that path.
+    std::fs::write(&path, HEAD.replace("DURATION", "100 ms") + PATHS).unwrap();
+    let o = run(&["check", s(&path)]);
+    assert_eq!(o.status.code(), Some(2), "{}", stderr(&o));
+    assert!(stderr(&o).contains("path \"digital\""), "{}", stderr(&o));
+}
