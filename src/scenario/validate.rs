@@ -344,6 +344,36 @@ clock = "2 MHz"
     }
 
     #[test]
+    fn paths_read_with_the_first_as_the_chain_and_latency_blocks_refuse_one() {
+        let text = format!(
+            "{HEAD}[[path]]\nname = \"direct\"\n[[path.stage]]\nkind = \"filter\"\norder = 2\ncutoff = \"20 kHz\"\n\
+             [[path]]\nname = \"converted\"\ndescription = \"through a converter\"\n\
+             [[path.stage]]{}[[path.stage]]{}[analysis]\nlatency_blocks = 12\n",
+            ADC.trim_start_matches("\n[[stage]]"),
+            DAC.trim_start_matches("\n[[stage]]")
+        );
+        let s = ok(&text);
+        let names: Vec<&str> = s.paths.iter().map(|p| p.name.as_str()).collect();
+        assert_eq!(names, ["direct", "converted"]);
+        assert_eq!(s.stages, s.paths[0].stages);
+        assert_eq!(s.paths[1].stages.len(), 2);
+        assert_eq!(s.paths[1].description, "through a converter");
+        assert_eq!(s.analysis.latency_blocks, 12);
+        let one = for_path_check(&s);
+        assert_eq!(one, (2, 0));
+        let text = text.replace("latency_blocks = 12", "latency_blocks = 1");
+        let e = err(&text);
+        assert_eq!(e.line, line_of(&text, "latency_blocks"), "{e}");
+        assert!(e.message.contains("one block"), "{e}");
+    }
+
+    /// The stage count and path count of the scenario made for the second path.
+    fn for_path_check(s: &Scenario) -> (usize, usize) {
+        let p = s.for_path(&s.paths[1]);
+        (p.stages.len(), p.paths.len())
+    }
+
+    #[test]
     fn spreads_read_in_every_form_with_their_nominals() {
         let s = ok(&with_spread(
             "\"stage.2.offset\" = \"2 mV\"\n\"stage.3.cutoff\" = { uniform = \"5%\" }\n\
