@@ -782,11 +782,11 @@ fn gallery_is_written_for_a_visual_check() {
 
 #[test]
 fn path_budgets_render_each_paths_stages_and_its_measured_total_on_one_axis() {
-    let fm = vec![
+    let fm = [
         ("band limit".to_string(), 27.7e-6),
         ("drive".to_string(), 0.8e-6),
     ];
-    let digital = vec![
+    let digital = [
         ("adc".to_string(), 9e-6),
         ("link".to_string(), 0.374),
         ("dac".to_string(), 10e-6),
