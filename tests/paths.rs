@@ -287,3 +287,27 @@ fn check_names_every_path_and_a_path_that_cannot_run() {
     assert_eq!(o.status.code(), Some(2), "{}", stderr(&o));
     assert!(stderr(&o).contains("path \"digital\""), "{}", stderr(&o));
 }
+
+#[test]
+fn paths_run_in_parallel_give_the_same_report_every_time() {
+    // The paths run side by side on the thread pool; each stage draws from its own seeded stream, so the
+    // report must not depend on which path finishes first.
+    let d = tempfile::tempdir().unwrap();
+    let path = d.path().join("s.toml");
+    std::fs::write(&path, HEAD.replace("DURATION", "400 ms") + PATHS).unwrap();
+    let mut reports = Vec::new();
+    for k in 0..2 {
+        let out = d.path().join(format!("out{k}"));
+        ok(&run(&[
+            "run",
+            s(&path),
+            "--out",
+            s(&out),
+            "-q",
+            "--no-wav",
+            "--no-plots",
+        ]));
+        reports.push(std::fs::read(out.join("report.json")).unwrap());
+    }
+    assert!(reports[0] == reports[1], "the two runs' report.json differ");
+}
