@@ -242,7 +242,7 @@ pub fn markdown(r: &Report, figures: &[Figure]) -> String {
     }
     if let Some((each, between)) = path_tables(r) {
         let _ = writeln!(s, "\n## Paths\n\n{PATHS_NOTE}\n");
-        for t in [each, between] {
+        for t in [each, between].into_iter().filter(|t| t.len() > 1) {
             for (i, row) in t.iter().enumerate() {
                 let _ = writeln!(s, "| {} |", row.join(" | "));
                 if i == 0 {
@@ -347,7 +347,7 @@ figcaption{{color:#444}}</style></head><body>\n",
     let _ = writeln!(s, "</table>");
     if let Some((each, between)) = path_tables(r) {
         let _ = writeln!(s, "<h2>Paths</h2><p>{}</p>", esc(PATHS_NOTE));
-        for t in [each, between] {
+        for t in [each, between].into_iter().filter(|t| t.len() > 1) {
             let _ = write!(s, "<table>");
             for (i, row) in t.iter().enumerate() {
                 let _ = write!(s, "<tr>");

@@ -276,7 +276,7 @@ fn paths_table(s: &mut String, r: &Report) {
             );
         }
     }
-    if let Some(delays) = &r.path_delays {
+    if let Some(delays) = r.path_delays.as_ref().filter(|d| !d.is_empty()) {
         let _ = writeln!(
             s,
             "\n  delay between paths (switching from one to the other, the programme moves by)"
