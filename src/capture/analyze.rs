@@ -377,6 +377,7 @@ pub fn figures(capture: &Capture, a: &CaptureAnalysis, r: &SineRecord) -> Result
             band_hz: Some(a.band_hz),
             notes,
             log_frequency: false,
+            overlay: None,
         }),
     )?];
 

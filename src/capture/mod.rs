@@ -5,6 +5,7 @@
 //! [`crate::Error::BadInput`] naming the file and, for CSV, the line and column, never a panic.
 
 pub mod analyze;
+pub mod compare;
 pub mod csv;
 pub mod delay;
 pub mod wav;
