@@ -66,7 +66,7 @@ pub fn run_to_dir(sc: &Scenario, dir: &Path, opts: &RunOptions) -> Result<Report
         crate::engine::audio::check(sc, &plan, band)?;
     }
     // The capture is read before anything is simulated: a bad file is reported at once.
-    let capture = match &opts.compare {
+    let capture = match opts.compare.as_ref().or(sc.compare.as_ref()) {
         Some(spec) => {
             compare::check_source(&sc.source.waveform)?;
             Some((

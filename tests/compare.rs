@@ -241,3 +241,44 @@ fn bad_captures_and_sources_are_refused_before_anything_is_written() {
     ]);
     assert_eq!(o.status.code(), Some(2), "{}", stderr(&o));
 }
+
+#[test]
+fn a_compare_table_in_the_scenario_names_the_capture_beside_it() {
+    // `[compare]` with a path relative to the scenario's folder; `channel` would count from 0 as the source's.
+    let d = tempfile::tempdir().unwrap();
+    let (fs, n) = (100e3, 20_000usize);
+    let x: Vec<f64> = (0..n)
+        .map(|i| 1.5 * (TAU * 1_000.0 * i as f64 / fs).sin())
+        .collect();
+    write_csv(&d.path().join("take.csv"), fs, &x);
+    let text = fs::read_to_string(scenario()).unwrap();
+    let sc = d.path().join("with-take.toml");
+    fs::write(
+        &sc,
+        format!("{text}\n[compare]\nfile = \"take.csv\"\ncolumn = \"CH1\"\n"),
+    )
+    .unwrap();
+    let out = d.path().join("out");
+    ok(&run(&[
+        "run",
+        s(&sc),
+        "--out",
+        s(&out),
+        "--no-wav",
+        "--no-plots",
+        "-q",
+    ]));
+    let c = json(&out.join("report.json"))["compare"].clone();
+    assert!(
+        (c["captured"]["amplitude_v"].as_f64().unwrap() - 1.5).abs() < 1e-6,
+        "{c}"
+    );
+    assert!(c["file"].as_str().unwrap().ends_with("take.csv"));
+    // A file that is not there: located at the key, exit 2.
+    let bad = d.path().join("bad.toml");
+    fs::write(&bad, format!("{text}\n[compare]\nfile = \"gone.csv\"\n")).unwrap();
+    let o = run(&["run", s(&bad), "--out", s(&out)]);
+    assert_eq!(o.status.code(), Some(2), "{}", stderr(&o));
+    let e = stderr(&o);
+    assert!(e.contains("compare.file") && e.contains("gone.csv"), "{e}");
+}

@@ -129,8 +129,8 @@ pub fn check_source(waveform: &Waveform) -> Result<()> {
     match waveform {
         Waveform::Sine { .. } => Ok(()),
         other => Err(Error::BadInput(format!(
-            "--compare measures a sine on both sides, but the scenario's source is {}; give the scenario a \
-             sine source (source.waveform = \"sine\") at the frequency the capture was made with",
+            "a capture is compared tone for tone, but the scenario's source is {}; give the scenario a sine \
+             source (source.waveform = \"sine\") at the frequency the capture was made with",
             other.name()
         ))),
     }
