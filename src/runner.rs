@@ -2,8 +2,7 @@
 
 use std::path::Path;
 
-use crate::capture::Capture;
-use crate::capture::compare::{self, CompareSpec};
+use crate::capture::compare::{self, CompareCapture, CompareSpec};
 use crate::engine::pipeline;
 use crate::engine::plan::Plan;
 use crate::engine::static_bench::{StaticReport, missing_code_causes, static_tests};
@@ -69,10 +68,7 @@ pub fn run_to_dir(sc: &Scenario, dir: &Path, opts: &RunOptions) -> Result<Report
     let capture = match opts.compare.as_ref().or(sc.compare.as_ref()) {
         Some(spec) => {
             compare::check_source(&sc.source.waveform)?;
-            Some((
-                compare::read_capture(spec)?,
-                spec.volts_per_unit.unwrap_or(1.0),
-            ))
+            Some(compare::read_capture(spec)?)
         }
         None => None,
     };
@@ -93,7 +89,7 @@ fn run_inner(
     sc: &Scenario,
     out: &OutputDir,
     opts: &RunOptions,
-    capture: Option<&(Capture, f64)>,
+    capture: Option<&CompareCapture>,
 ) -> Result<Report> {
     let (plan, _) = Plan::new(sc)?;
     let (file, tmp) = out.create_temp("waveforms.csv")?;
@@ -148,10 +144,10 @@ fn run_inner(
         None => None,
     };
     let compared = match capture {
-        Some((c, volts_per_unit)) => {
+        Some(c) => {
             phase("measuring the capture");
-            let (rep, sim, cap) = compare::compare(&run, &metrics, c, *volts_per_unit)?;
-            Some((rep, sim, cap, c))
+            let (rep, sim, cap) = compare::compare(&run, &metrics, c)?;
+            Some((rep, sim, cap, &c.capture))
         }
         None => None,
     };

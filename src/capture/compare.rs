@@ -136,8 +136,17 @@ pub fn check_source(waveform: &Waveform) -> Result<()> {
     }
 }
 
-/// Read the capture of `spec` into volts (see the module doc).
-pub fn read_capture(spec: &CompareSpec) -> Result<Capture> {
+/// A capture read for comparison: the record in volts, with a note when it is a stretch of a longer recording.
+#[derive(Debug, Clone)]
+pub struct CompareCapture {
+    pub capture: Capture,
+    pub volts_per_unit: f64,
+    pub note: Option<String>,
+}
+
+/// Read the capture of `spec` into volts (see the module doc): at most [`super::RECORD_MAX`] samples from its
+/// start.
+pub fn read_capture(spec: &CompareSpec) -> Result<CompareCapture> {
     let scale = spec.volts_per_unit.unwrap_or(1.0);
     if !(scale.is_finite() && scale > 0.0) {
         return Err(Error::BadInput(format!(
@@ -145,24 +154,33 @@ pub fn read_capture(spec: &CompareSpec) -> Result<Capture> {
              \"2.5 V\""
         )));
     }
-    let mut c = super::read(&spec.file, &spec.pick)?;
+    let (mut c, note) = super::open(&spec.file, &spec.pick)?.record(None, None)?;
     if scale != 1.0 {
         for v in &mut c.samples {
             *v *= scale;
         }
     }
-    Ok(c)
+    Ok(CompareCapture {
+        capture: c,
+        volts_per_unit: scale,
+        note: note.map(|n| {
+            n.replace(
+                " with --start and --length",
+                " with `analyze --start --length`",
+            )
+        }),
+    })
 }
 
 /// Measure the run's output and `capture` with one meter.
 pub fn compare(
     run: &RunOutput,
     metrics: &ChainMetrics,
-    capture: &Capture,
-    volts_per_unit: f64,
+    read: &CompareCapture,
 ) -> Result<(CompareReport, SineRecord, SineRecord)> {
+    let (capture, volts_per_unit) = (&read.capture, read.volts_per_unit);
     let sc = &run.scenario;
-    let mut notes = Vec::new();
+    let mut notes: Vec<String> = read.note.iter().cloned().collect();
     let mut band_hz = run.plan.out_band_hz;
     let cap_nyquist_hz = 0.5 * capture.sample_rate_hz;
     if cap_nyquist_hz < band_hz {
