@@ -169,6 +169,16 @@ pub fn markdown(r: &Report, figures: &[Figure]) -> String {
             let _ = writeln!(s, "| {n} | {a} | {o} |");
         }
     }
+    if let Some(c) = &r.compare {
+        let _ = writeln!(
+            s,
+            "\n## Capture beside the simulation\n\n{}.\n\n| | simulated | captured | captured - simulated | |\n|---|---:|---:|---:|---|",
+            capitalise(&c.note())
+        );
+        for [n, a, b, d, v] in c.rows() {
+            let _ = writeln!(s, "| {n} | {a} | {b} | {d} | {v} |");
+        }
+    }
     let _ = writeln!(s, "\n## Latency\n\n| stage | delay |\n|---|---:|");
     for (n, v) in latency_rows(r) {
         let _ = writeln!(s, "| {n} | {v} |");
@@ -249,6 +259,24 @@ figcaption{{color:#444}}</style></head><body>\n",
                 "<tr><td>{n}</td><td class=\"n\">{}</td><td class=\"n\">{}</td></tr>",
                 esc(&a),
                 esc(&o)
+            );
+        }
+        let _ = writeln!(s, "</table>");
+    }
+    if let Some(c) = &r.compare {
+        let _ = writeln!(
+            s,
+            "<h2>Capture beside the simulation</h2><p>{}.</p><table><tr><th></th><th>simulated</th>\
+             <th>captured</th><th>captured - simulated</th><th></th></tr>",
+            esc(&capitalise(&c.note()))
+        );
+        for [n, a, b, d, v] in c.rows() {
+            let _ = writeln!(
+                s,
+                "<tr><td>{n}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td>{v}</td></tr>",
+                esc(&a),
+                esc(&b),
+                esc(&d)
             );
         }
         let _ = writeln!(s, "</table>");

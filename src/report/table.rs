@@ -164,6 +164,18 @@ pub fn summary(r: &Report) -> String {
             let _ = writeln!(s, "    {name:<28}{a:>24}{o:>24}");
         }
     }
+    if let Some(c) = &r.compare {
+        let _ = writeln!(s, "\n  {}", c.note());
+        let _ = writeln!(
+            s,
+            "    {:<14}{:>16}{:>16}{:>22}",
+            "", "simulated", "captured", "captured - simulated"
+        );
+        for [name, a, b, d, v] in c.rows() {
+            let line = format!("    {name:<14}{a:>16}{b:>16}{d:>22}  {v}");
+            let _ = writeln!(s, "{}", line.trim_end());
+        }
+    }
     if o.bits_flipped > 0 {
         let _ = writeln!(s, "  link: {} bits flipped", o.bits_flipped);
     }
