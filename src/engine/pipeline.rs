@@ -85,6 +85,8 @@ pub struct RunOutput {
     pub codes_clipped: u64,
     /// Overloads of a noise-shaping loop (`None` without one).
     pub modulator_overloads: Option<u64>,
+    /// Overloads of the DAC's noise-shaping loop (`None` without one).
+    pub dac_modulator_overloads: Option<u64>,
     /// The last stretch of a noise-shaping loop's output: (clock, levels at full scale +-1).
     pub modulator_stream: Option<(f64, Vec<f64>)>,
     pub bits_flipped: u64,
@@ -116,6 +118,7 @@ impl RunOutput {
             },
             codes_clipped: self.codes_clipped,
             modulator_overloads: self.modulator_overloads,
+            dac_modulator_overloads: self.dac_modulator_overloads,
             bits_flipped: self.bits_flipped,
             out_rate_hz: self.plan.out_rate_hz,
             out_band_hz: self.plan.out_band_hz,
@@ -643,6 +646,10 @@ fn run_with(
         .converter
         .as_ref()
         .and_then(|c| c.quantizer.overloads());
+    let dac_modulator_overloads = chain
+        .converter
+        .as_ref()
+        .and_then(|c| c.reconstructor.overloads());
     let modulator_stream = chain
         .converter
         .as_ref()
@@ -690,6 +697,7 @@ fn run_with(
         capture_dac_events,
         codes_clipped,
         modulator_overloads,
+        dac_modulator_overloads,
         modulator_stream,
         bits_flipped,
         budget,

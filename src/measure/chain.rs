@@ -24,6 +24,8 @@ pub struct RunRecords<'a> {
     pub codes_clipped: u64,
     /// Overloads of a noise-shaping loop (`None` without one).
     pub modulator_overloads: Option<u64>,
+    /// Overloads of the DAC's noise-shaping loop (`None` without one).
+    pub dac_modulator_overloads: Option<u64>,
     pub bits_flipped: u64,
     /// Rate and band of the output analysis record (Hz).
     pub out_rate_hz: f64,
@@ -101,6 +103,9 @@ pub struct OutputMetrics {
     pub enob_bits: Option<f64>,
     pub thd_db: Option<f64>,
     pub sfdr_dbc: Option<f64>,
+    /// Overloads of a delta-sigma DAC's noise-shaping loop (absent for other DACs).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub dac_modulator_overloads: Option<u64>,
     /// Output fundamental over source fundamental.
     pub gain_db: Option<f64>,
     /// The same tone figures over the output record's whole flat passband, when it is wider than `band_hz`
@@ -425,6 +430,7 @@ pub fn measure_run(run: &RunRecords<'_>) -> Result<ChainMetrics> {
             enob_bits: out_tm.as_ref().and_then(|t| finite(t.enob_bits)),
             thd_db: out_tm.as_ref().and_then(|t| finite(t.thd_db)),
             sfdr_dbc: out_tm.as_ref().and_then(|t| finite(t.sfdr_dbc)),
+            dac_modulator_overloads: run.dac_modulator_overloads,
             gain_db,
             wideband,
             fidelity_db: fid.fidelity_db,

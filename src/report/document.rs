@@ -103,6 +103,11 @@ pub fn run_facts(r: &Report) -> Vec<String> {
             ));
         }
     }
+    if let Some(n) = r.output.dac_modulator_overloads.filter(|&n| n > 0) {
+        f.push(format!(
+            "The DAC's noise-shaping loop overloaded {n} times: its input exceeds the loop's largest stable level, and the output metrics include the overloads."
+        ));
+    }
     f.push(format!("{}.", capitalise(&r.band_note())));
     if let Some(m) = &r.imd {
         let dbc = |x: Option<f64>| x.map_or("-".into(), |v| format!("{v:.2} dBc"));

@@ -89,6 +89,12 @@ pub fn summary(r: &Report) -> String {
             );
         }
     }
+    if let Some(n) = r.output.dac_modulator_overloads.filter(|&n| n > 0) {
+        let _ = writeln!(
+            s,
+            "  the DAC's noise-shaping loop overloaded {n} times: its input exceeds the loop's largest stable level, and the output metrics include the overloads"
+        );
+    }
     let _ = writeln!(s, "  {}", r.band_note());
     if let Some(m) = &r.imd {
         let _ = writeln!(

@@ -102,4 +102,8 @@ pub trait Reconstructor: Send {
     fn range_v(&self) -> (f64, f64);
     /// Budget lines for codes updated at `update_rate_hz`, at `f_hz` (phase delays).
     fn budget(&self, update_rate_hz: f64, f_hz: f64) -> Vec<BudgetLine>;
+    /// Times a noise-shaping loop overloaded (`None` for DACs without one).
+    fn overloads(&self) -> Option<u64> {
+        None
+    }
 }
