@@ -54,6 +54,7 @@ fn span_of(root: &Table, path: &str) -> Span {
 pub fn check(map: &SourceMap<'_>, root: &Table, sc: &Scenario) -> Result<(), ScenarioError> {
     tone_inside_band(map, root, sc)?;
     links_leave_a_record(map, root, sc)?;
+    network_packets_hold_a_code(map, root, sc)?;
     chirp_spans_the_grid(map, root, sc)?;
     wav_rate_near_the_grid(map, root, sc)?;
     Ok(())
@@ -144,6 +145,42 @@ fn links_leave_a_record(
             "shorten this link's {key}, or lengthen simulation.duration by at least {}",
             format_si(transport_s, "s")
         )))
+}
+
+/// A network's packet holds round(packet x fs) codes at the ADC's rate: at least one.
+fn network_packets_hold_a_code(
+    map: &SourceMap<'_>,
+    root: &Table,
+    sc: &Scenario,
+) -> Result<(), ScenarioError> {
+    let Some(adc) = sc.stages.iter().find_map(|s| s.kind.quantizer_timing()) else {
+        return Ok(());
+    };
+    let fs = adc.sample_rate_hz;
+    for (i, s) in sc.stages.iter().enumerate() {
+        if let StageKind::Network(n) = &s.kind
+            && n.codes_per_packet(fs) == 0
+        {
+            let path = format!("stage.{}.packet", i + 1);
+            return Err(map
+                .error(
+                    &span_of(root, &path),
+                    &path,
+                    format!(
+                        "the packet ({}) is shorter than one sample at the ADC's {} ({}); a packet carries \
+                         round(packet x sample rate) codes, at least one",
+                        format_si(n.packet_s, "s"),
+                        format_si(fs, "Hz"),
+                        format_si(1.0 / fs, "s")
+                    ),
+                )
+                .with_hint(format!(
+                    "make the packet at least one sample period ({})",
+                    format_si(1.0 / fs, "s")
+                )));
+        }
+    }
+    Ok(())
 }
 
 /// A chirp whose sweep is shorter than a few grid steps is no sweep, and its group-delay meter would visit

@@ -118,9 +118,10 @@ impl CodeStage for Buffer {
     fn budget(&self, sample_rate_hz: f64) -> Vec<BudgetLine> {
         vec![BudgetLine {
             stage: format!(
-                "{}: {} blocks of {} samples at {}",
+                "{}: {} block{} of {} samples at {}",
                 self.label,
                 self.cfg.blocks,
+                if self.cfg.blocks == 1 { "" } else { "s" },
                 self.cfg.block,
                 si(sample_rate_hz, "Hz")
             ),
