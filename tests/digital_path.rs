@@ -302,6 +302,16 @@ fn bad_values_are_refused_at_their_key() {
             "above 0 dB",
         ),
         (
+            "[[stage]]\nkind = \"network\"\npacket = \"1 ms\"\ndelay = \"200 ms\"\n",
+            "stage.2.delay",
+            "the code stages' delays",
+        ),
+        (
+            "[[stage]]\nkind = \"buffer\"\nblock = 9600\nblocks = 1\n",
+            "stage.2.block",
+            "leave 0 of the",
+        ),
+        (
             "[[stage]]\nkind = \"buffer\"\nblocks = 2\n",
             "stage.2.block",
             "block",
