@@ -90,6 +90,10 @@ pub struct RunOutput {
     /// The last stretch of a noise-shaping loop's output: (clock, levels at full scale +-1).
     pub modulator_stream: Option<(f64, Vec<f64>)>,
     pub bits_flipped: u64,
+    /// Packets lost by the chain's networks, and the instants they should have played (the first
+    /// [`LOSS_TIMES_MAX`](crate::stages::network::LOSS_TIMES_MAX), in time order).
+    pub packets_lost: u64,
+    pub packet_loss_times_s: Vec<f64>,
     /// The latency budget from each stage's own delay: phase delays at the fundamental, or group delays at a
     /// tenth of the output band for broadband sources.
     pub budget: Vec<BudgetLine>,
@@ -120,6 +124,8 @@ impl RunOutput {
             modulator_overloads: self.modulator_overloads,
             dac_modulator_overloads: self.dac_modulator_overloads,
             bits_flipped: self.bits_flipped,
+            packets_lost: self.packets_lost,
+            packet_loss_times_s: &self.packet_loss_times_s,
             out_rate_hz: self.plan.out_rate_hz,
             out_band_hz: self.plan.out_band_hz,
             out_wide_band_hz: self.plan.out_wide_band_hz,
@@ -661,6 +667,19 @@ fn run_with(
         ),
         None => (0, 0),
     };
+    let (packets_lost, packet_loss_times_s) = match &chain.converter {
+        Some(c) => {
+            let mut times: Vec<f64> = c
+                .code
+                .iter()
+                .flat_map(|l| l.packet_loss_times_s().iter().copied())
+                .collect();
+            times.sort_by(f64::total_cmp);
+            times.truncate(crate::stages::network::LOSS_TIMES_MAX);
+            (c.code.iter().map(|l| l.packets_lost()).sum(), times)
+        }
+        None => (0, Vec::new()),
+    };
     let capture = Capture {
         timebase: tb,
         n0: plan.capture_n0,
@@ -700,6 +719,8 @@ fn run_with(
         dac_modulator_overloads,
         modulator_stream,
         bits_flipped,
+        packets_lost,
+        packet_loss_times_s,
         budget,
         pre_gain,
         chain,

@@ -27,6 +27,9 @@ pub struct RunRecords<'a> {
     /// Overloads of the DAC's noise-shaping loop (`None` without one).
     pub dac_modulator_overloads: Option<u64>,
     pub bits_flipped: u64,
+    /// Packets lost by networks, and the instants they should have played (s).
+    pub packets_lost: u64,
+    pub packet_loss_times_s: &'a [f64],
     /// Rate and band of the output analysis record (Hz).
     pub out_rate_hz: f64,
     pub out_band_hz: f64,
@@ -145,6 +148,11 @@ pub struct LatencyMetrics {
     pub difference_s: f64,
     /// True when the difference is large (more than 5 % of the budget and more than a tenth of a sample period).
     pub flagged: bool,
+    /// Packets lost by the chain's networks (arrived after their playout instant; concealed).
+    pub packets_lost: u64,
+    /// The instants the lost packets should have started playing (run time, s; the first
+    /// [`LOSS_TIMES_MAX`](crate::stages::network::LOSS_TIMES_MAX)).
+    pub packet_loss_times_s: Vec<f64>,
 }
 
 /// A spectrum kept for plots, with its tone analysis and the full-scale reference of its dBFS.
@@ -444,6 +452,8 @@ pub fn measure_run(run: &RunRecords<'_>) -> Result<ChainMetrics> {
             budget,
             difference_s,
             flagged,
+            packets_lost: run.packets_lost,
+            packet_loss_times_s: run.packet_loss_times_s.to_vec(),
         },
     })
 }

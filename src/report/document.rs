@@ -139,6 +139,15 @@ pub fn run_facts(r: &Report) -> Vec<String> {
     if r.output.bits_flipped > 0 {
         f.push(format!("Link: {} bits flipped.", r.output.bits_flipped));
     }
+    if r.latency.packets_lost > 0 {
+        let line = crate::report::table::packets_lost_line(&r.latency);
+        let mut chars = line.chars();
+        let cap: String = chars
+            .next()
+            .map(|c| c.to_uppercase().collect())
+            .unwrap_or_default();
+        f.push(format!("{cap}{}.", chars.as_str()));
+    }
     f
 }
 

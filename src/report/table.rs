@@ -185,6 +185,9 @@ pub fn summary(r: &Report) -> String {
     if o.bits_flipped > 0 {
         let _ = writeln!(s, "  link: {} bits flipped", o.bits_flipped);
     }
+    if r.latency.packets_lost > 0 {
+        let _ = writeln!(s, "  {}", packets_lost_line(&r.latency));
+    }
     let l = &r.latency;
     let _ = writeln!(s, "\n  latency budget");
     // The label column is as wide as its longest label (at least 52), so a long stage label never pushes its
@@ -280,4 +283,18 @@ pub fn static_summary(r: &StaticReport) -> String {
         }
     }
     s
+}
+
+/// "network: N packets lost (concealed), the first at T": for the table and the reports.
+pub fn packets_lost_line(l: &crate::measure::chain::LatencyMetrics) -> String {
+    let first = l
+        .packet_loss_times_s
+        .first()
+        .map(|t| format!(", the first at {}", si(*t, "s")))
+        .unwrap_or_default();
+    format!(
+        "network: {} packet{} lost (late for the jitter buffer, concealed){first}",
+        l.packets_lost,
+        if l.packets_lost == 1 { "" } else { "s" }
+    )
 }
