@@ -438,6 +438,9 @@ impl Reconstructor for DeltaSigmaDac {
     fn range_v(&self) -> (f64, f64) {
         self.cfg.range_v
     }
+    fn overloads(&self) -> Option<u64> {
+        Some(self.modulator.overloads())
+    }
     fn budget(&self, update_rate_hz: f64, f_hz: f64) -> Vec<BudgetLine> {
         let taps = self.design.fir.taps.len();
         let (phase, linear) = match self.cfg.shaping.phase {
