@@ -296,6 +296,9 @@ fn paths_table(s: &mut String, r: &Report) {
                 si(t.spread_s, "s")
             );
         }
+        if l.packets_lost > 0 {
+            let _ = writeln!(s, "    {:<w$}  packets lost: {}", "", l.packets_lost);
+        }
     }
     if let Some(delays) = r.path_delays.as_ref().filter(|d| !d.is_empty()) {
         let _ = writeln!(
