@@ -14,6 +14,7 @@
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 
+use crate::engine::clock::{FifoCrossing, SlipRecord};
 use crate::engine::decimate::Decimator;
 use crate::engine::plan::{BLOCK, Plan};
 use crate::engine::probe::{ExactProbe, GridHistory};
@@ -88,6 +89,8 @@ pub struct RunOutput {
     /// The last stretch of a noise-shaping loop's output: (clock, levels at full scale +-1).
     pub modulator_stream: Option<(f64, Vec<f64>)>,
     pub bits_flipped: u64,
+    /// What the FIFO between the codes' clock and the DAC's own clock recorded (`None` on a shared clock).
+    pub slips: Option<SlipRecord>,
     /// The latency budget from each stage's own delay: phase delays at the fundamental, or group delays at a
     /// tenth of the output band for broadband sources.
     pub budget: Vec<BudgetLine>,
@@ -117,6 +120,7 @@ impl RunOutput {
             codes_clipped: self.codes_clipped,
             modulator_overloads: self.modulator_overloads,
             bits_flipped: self.bits_flipped,
+            slips: self.slips.as_ref(),
             out_rate_hz: self.plan.out_rate_hz,
             out_band_hz: self.plan.out_band_hz,
             out_wide_band_hz: self.plan.out_wide_band_hz,
@@ -152,6 +156,8 @@ pub struct Converter {
     pub code: Vec<Box<dyn CodeStage>>,
     pub reconstructor_label: String,
     pub reconstructor: Box<dyn Reconstructor>,
+    /// The FIFO the DAC reads through when the codes come paced by another clock.
+    pub crossing: Option<FifoCrossing>,
 }
 
 /// A ChaCha stream of its own for each stage, derived from the base seed and the stage's index.
@@ -211,6 +217,11 @@ impl Chain {
                 Runtime::Quantizer(q) => quantizer = Some((stage.label.clone(), q)),
                 Runtime::Code(c) => code.push(c),
                 Runtime::Reconstructor(r) => {
+                    let crossing = r.fifo().map(FifoCrossing::new);
+                    let dac_ppm = r.clock_ppm();
+                    for s in code.iter_mut() {
+                        s.lock_output_clock(dac_ppm);
+                    }
                     let (quantizer_label, quantizer) = quantizer.take().ok_or_else(|| {
                         Error::BadInput(format!(
                             "{}: {} needs an ADC before it",
@@ -223,6 +234,7 @@ impl Chain {
                         code: std::mem::take(&mut code),
                         reconstructor_label: stage.label.clone(),
                         reconstructor: r,
+                        crossing,
                     });
                 }
             }
@@ -260,10 +272,21 @@ impl Chain {
             });
         }
         if let Some(c) = &self.converter {
-            let fs = c.quantizer.sample_rate_hz();
+            let mut fs = c.quantizer.sample_rate_hz();
             lines.extend(c.quantizer.budget_at(f_hz.unwrap_or(broadband_hz)));
             for stage in &c.code {
                 lines.extend(stage.budget(fs));
+                fs = stage.output_rate_hz(fs);
+            }
+            if let Some(f) = c.reconstructor.fifo() {
+                lines.push(BudgetLine {
+                    stage: format!(
+                        "{}: FIFO from the codes' clock to its own (starts at {} of {})",
+                        c.reconstructor_label, f.start, f.depth
+                    ),
+                    seconds: f.delay_s(fs),
+                });
+                fs = f.tick_rate_hz;
             }
             lines.extend(c.reconstructor.budget(fs, f_hz.unwrap_or(broadband_hz)));
         }
@@ -496,6 +519,13 @@ fn run_with(
                         }
                         std::mem::swap(&mut link_buf_a, &mut link_buf_b);
                     }
+                    if let Some(x) = conv.crossing.as_mut() {
+                        link_buf_b.clear();
+                        for e in link_buf_a.drain(..) {
+                            x.push(e, &mut link_buf_b);
+                        }
+                        std::mem::swap(&mut link_buf_a, &mut link_buf_b);
+                    }
                     capture_dac_events
                         .extend(link_buf_a.iter().filter(|e| e.t_avail_s >= capture_t0_s));
                     dac_pending.append(&mut link_buf_a);
@@ -669,6 +699,11 @@ fn run_with(
         plan.frequency_hz,
         plan.out_band_hz.min(tb.rate_hz / 4.0) / 10.0,
     );
+    let slips = chain
+        .converter
+        .as_ref()
+        .and_then(|c| c.crossing.as_ref())
+        .map(|x| x.record().clone());
     let pre_gain = plan
         .frequency_hz
         .map(|f| {
@@ -692,6 +727,7 @@ fn run_with(
         modulator_overloads,
         modulator_stream,
         bits_flipped,
+        slips,
         budget,
         pre_gain,
         chain,

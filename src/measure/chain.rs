@@ -25,6 +25,8 @@ pub struct RunRecords<'a> {
     /// Overloads of a noise-shaping loop (`None` without one).
     pub modulator_overloads: Option<u64>,
     pub bits_flipped: u64,
+    /// The clock-crossing FIFO's record, when the DAC reads through one.
+    pub slips: Option<&'a crate::engine::clock::SlipRecord>,
     /// Rate and band of the output analysis record (Hz).
     pub out_rate_hz: f64,
     pub out_band_hz: f64,
@@ -140,6 +142,13 @@ pub struct LatencyMetrics {
     pub difference_s: f64,
     /// True when the difference is large (more than 5 % of the budget and more than a tenth of a sample period).
     pub flagged: bool,
+    /// Slips of the FIFO between the codes' clock and the DAC's own (repeated plus dropped codes), when the DAC
+    /// reads through one ([`crate::engine::clock`]).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub slips: Option<u64>,
+    /// Their instants (s), the first [`crate::engine::clock::SLIP_TIMES_MAX`].
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub slip_times_s: Option<Vec<f64>>,
 }
 
 /// A spectrum kept for plots, with its tone analysis and the full-scale reference of its dBFS.
@@ -438,6 +447,8 @@ pub fn measure_run(run: &RunRecords<'_>) -> Result<ChainMetrics> {
             budget,
             difference_s,
             flagged,
+            slips: run.slips.map(|s| s.slips),
+            slip_times_s: run.slips.map(|s| s.slip_times_s.clone()),
         },
     })
 }

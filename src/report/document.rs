@@ -134,6 +134,9 @@ pub fn run_facts(r: &Report) -> Vec<String> {
     if r.output.bits_flipped > 0 {
         f.push(format!("Link: {} bits flipped.", r.output.bits_flipped));
     }
+    if let Some(line) = crate::report::table::slip_line(&r.latency) {
+        f.push(format!("{line}."));
+    }
     f
 }
 

@@ -13,6 +13,7 @@ use rand_distr::{Distribution, StandardNormal};
 use serde::Serialize;
 
 use crate::signal::stream::{CodeEvent, Timebase};
+use crate::engine::clock::{DAC_CLOCK_PARAMS, DacClockCfg, FifoTiming, read_dac_clock};
 use crate::error::Result;
 use crate::format::reader::{ScenarioError, TableReader};
 use crate::format::units::Dimension;
@@ -62,6 +63,9 @@ pub struct DacCfg {
     /// Rms of the reference's noise (V), drawn once per code update: the span (the reference) becomes
     /// span + e, scaling the code's level above the range's low end by (1 + e / span). 0 = a quiet reference.
     pub reference_noise_v: f64,
+    /// The DAC's clock and the FIFO it reads codes through when they come from another clock.
+    #[serde(flatten)]
+    pub clock: DacClockCfg,
 }
 
 impl KindSpec for DacCfg {
@@ -89,6 +93,9 @@ settling = "1 us""#;
             OUTPUT_AMP_PARAMS[1],
             OUTPUT_AMP_PARAMS[2],
             OUTPUT_AMP_PARAMS[3],
+            DAC_CLOCK_PARAMS[0],
+            DAC_CLOCK_PARAMS[1],
+            DAC_CLOCK_PARAMS[2],
         ]
     };
 
@@ -107,6 +114,13 @@ settling = "1 us""#;
         if !self.range_given {
             self.range_v = up.quantizer_range_v.unwrap_or((0.0, 0.0));
         }
+        self.clock.resolve(up);
+    }
+
+    fn echo(&self) -> serde_json::Value {
+        let mut v = serde_json::to_value(self).unwrap_or(serde_json::Value::Null);
+        self.clock.echo_into(&mut v);
+        v
     }
 
     fn ablations(&self) -> Vec<Ablation> {
@@ -213,6 +227,7 @@ fn read_dac(r: &mut TableReader<'_, '_>) -> std::result::Result<DacCfg, Scenario
         gain_error,
         output,
         reference_noise_v: r.non_negative("reference_noise", D::Voltage)?,
+        clock: read_dac_clock(r)?,
     })
 }
 
@@ -241,6 +256,12 @@ impl Reconstructor for LabelledDac {
     }
     fn range_v(&self) -> (f64, f64) {
         self.cfg.range_v
+    }
+    fn fifo(&self) -> Option<FifoTiming> {
+        self.cfg.clock.fifo_timing()
+    }
+    fn clock_ppm(&self) -> f64 {
+        self.cfg.clock.clock_ppm
     }
     /// Half an update period for the zero-order hold, and the output amplifier's lag at `f_hz`.
     fn budget(&self, update_rate_hz: f64, f_hz: f64) -> Vec<BudgetLine> {
@@ -624,6 +645,7 @@ mod tests {
             gain_error: 0.0,
             output: OutputAmpCfg::default(),
             reference_noise_v: 0.0,
+            clock: DacClockCfg::default(),
         }
     }
 
