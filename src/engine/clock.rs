@@ -42,10 +42,7 @@ pub fn read_clock_ppm(r: &mut TableReader<'_, '_>) -> Result<f64, ScenarioError>
             .error(
                 &q.span,
                 "clock_ppm",
-                format!(
-                    "must be within +-{CLOCK_PPM_MAX} ppm, found {}",
-                    q.value
-                ),
+                format!("must be within +-{CLOCK_PPM_MAX} ppm, found {}", q.value),
             )
             .with_hint("write the clock's frequency offset in ppm, e.g. clock_ppm = 50")),
         Some(q) => Ok(q.value),
@@ -127,9 +124,8 @@ impl DacClockCfg {
     /// already on this DAC's clock, as after an asynchronous `resample`).
     pub fn resolve(&mut self, up: &crate::stages::kind::Upstream) {
         self.nominal_rate_hz = up.sample_rate_hz.unwrap_or(0.0);
-        self.crossing = up.sample_rate_hz.is_some()
-            && !up.clock_follows_dac
-            && up.clock_ppm != self.clock_ppm;
+        self.crossing =
+            up.sample_rate_hz.is_some() && !up.clock_follows_dac && up.clock_ppm != self.clock_ppm;
     }
 
     /// The DAC's tick rate (Hz): the nominal rate of the codes arriving on its own clock.

@@ -227,7 +227,9 @@ pub fn slip_line(l: &crate::measure::chain::LatencyMetrics) -> Option<String> {
             si(*a, "s"),
             times.len()
         ),
-        (Some(a), Some(b)) if n > 1 => format!(" (first at {}, last at {})", si(*a, "s"), si(*b, "s")),
+        (Some(a), Some(b)) if n > 1 => {
+            format!(" (first at {}, last at {})", si(*a, "s"), si(*b, "s"))
+        }
         (Some(a), _) => format!(" (at {})", si(*a, "s")),
         _ => String::new(),
     };

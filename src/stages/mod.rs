@@ -104,6 +104,7 @@ registry::stage_kinds! {
     pipeline_adc => PipelineAdc(PipelineAdcCfg),
     delta_sigma_adc => DeltaSigmaAdc(DeltaSigmaAdcCfg),
     link => Link(LinkCfg),
+    resample => Resample(ResampleCfg),
     dac => Dac(DacCfg),
     delta_sigma_dac => DeltaSigmaDac(DeltaSigmaDacCfg),
     filter => Filter(FilterCfg),
