@@ -220,8 +220,13 @@ element_selection = "dwa""#;
         if let Some(tb) = ctx.timebase
             && tb.rate_hz < f_mod * (1.0 - 1e-9)
         {
+            let on_clock = if self.clock.clock_ppm != 0.0 {
+                format!(", on its clock_ppm = {}", self.clock.clock_ppm)
+            } else {
+                String::new()
+            };
             return Err(Error::BadInput(format!(
-                "{}: simulation.analog_rate ({}) must be at least the modulator clock ({} = {} x {}); raise analog_rate or lower oversampling",
+                "{}: simulation.analog_rate ({}) must be at least the modulator clock ({} = {} x {}{on_clock}); raise analog_rate or lower oversampling",
                 ctx.label,
                 format_si(tb.rate_hz, "Hz"),
                 format_si(f_mod, "Hz"),
