@@ -2,6 +2,7 @@
 
 use std::path::Path;
 
+use crate::capture::compare::{self, CompareCapture, CompareSpec};
 use crate::engine::pipeline;
 use crate::engine::plan::Plan;
 use crate::engine::static_bench::{StaticReport, missing_code_causes, static_tests};
@@ -35,6 +36,8 @@ pub struct RunOptions {
     pub force: bool,
     /// Measure the audio figures over this band (Hz), with three more runs (`--audio`); None = not.
     pub audio_band_hz: Option<(f64, f64)>,
+    /// Measure a capture of the built chain beside the simulated output (`--compare`); None = not.
+    pub compare: Option<CompareSpec>,
 }
 
 impl Default for RunOptions {
@@ -47,6 +50,7 @@ impl Default for RunOptions {
             wav: Some(WavOptions::default()),
             force: false,
             audio_band_hz: None,
+            compare: None,
         }
     }
 }
@@ -60,8 +64,16 @@ pub fn run_to_dir(sc: &Scenario, dir: &Path, opts: &RunOptions) -> Result<Report
     if let Some(band) = opts.audio_band_hz {
         crate::engine::audio::check(sc, &plan, band)?;
     }
+    // The capture is read before anything is simulated: a bad file is reported at once.
+    let capture = match opts.compare.as_ref().or(sc.compare.as_ref()) {
+        Some(spec) => {
+            compare::check_source(&sc.source.waveform)?;
+            Some(compare::read_capture(spec)?)
+        }
+        None => None,
+    };
     let out = OutputDir::create(dir, &Producer::run(opts.force))?;
-    match run_inner(sc, &out, opts) {
+    match run_inner(sc, &out, opts, capture.as_ref()) {
         Ok(r) => {
             out.finish()?;
             Ok(r)
@@ -73,7 +85,12 @@ pub fn run_to_dir(sc: &Scenario, dir: &Path, opts: &RunOptions) -> Result<Report
     }
 }
 
-fn run_inner(sc: &Scenario, out: &OutputDir, opts: &RunOptions) -> Result<Report> {
+fn run_inner(
+    sc: &Scenario,
+    out: &OutputDir,
+    opts: &RunOptions,
+    capture: Option<&CompareCapture>,
+) -> Result<Report> {
     let (plan, _) = Plan::new(sc)?;
     let (file, tmp) = out.create_temp("waveforms.csv")?;
     let mut csv = CsvSink::from_file(file, tmp, plan.n_total, opts.full_waveforms);
@@ -126,16 +143,28 @@ fn run_inner(sc: &Scenario, out: &OutputDir, opts: &RunOptions) -> Result<Report
         }
         None => None,
     };
-    let figs = if opts.figures {
+    let compared = match capture {
+        Some(c) => {
+            phase("measuring the capture");
+            let (rep, sim, cap) = compare::compare(&run, &metrics, c)?;
+            Some((rep, sim, cap, &c.capture))
+        }
+        None => None,
+    };
+    let mut figs = if opts.figures {
         phase("drawing the plots");
         figures::run_figures(&run, &metrics, opts.window_s)?
     } else {
         Vec::new()
     };
+    if let (true, Some((rep, sim, cap, c))) = (opts.figures, &compared) {
+        figs.push(compare::figure(&run, c, rep, sim, cap)?);
+    }
     let alignment = metrics.detail.alignment;
     let mut report = Report::new(&run.scenario, &run.plan, metrics);
     report.imd = imd;
     report.audio = audio;
+    report.compare = compared.map(|(rep, ..)| rep);
     match step {
         Some(Ok(m)) => report.step = Some(m),
         Some(Err(problem)) => report.scenario.warnings.push(problem.to_string()),

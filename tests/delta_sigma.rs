@@ -62,6 +62,8 @@ fn the_demo_measures_the_decimation_delay_it_states() {
     let cic_s = 5.0 * 15.0 / 2.0 / 3.072e6;
     assert!((filt["seconds"].as_f64().unwrap() - fir_s - cic_s).abs() < 1e-12);
     assert_eq!(r["adc"]["modulator_overloads"], 0);
+    // The DAC's loop reports its own overloads beside the output figures.
+    assert_eq!(r["output"]["dac_modulator_overloads"], 0);
     assert!(r["adc"]["snr_db"].as_f64().unwrap() > 95.0);
     assert_eq!(r["adc"]["codes_clipped"], 0);
     // The loop's own output is drawn (the bit-stream spectrum), beside the code spectrum.

@@ -39,6 +39,10 @@ pub struct AnalyzeOptions {
     pub figures: bool,
     /// Replace what convchain wrote into the folder, a study included.
     pub force: bool,
+    /// Samples the whole recording holds, when the record measured is a stretch of it ([`super::CaptureFile`]).
+    pub samples_in_file: Option<u64>,
+    /// Why the record is a stretch of the recording (cut to [`super::RECORD_MAX`]), for the report.
+    pub note: Option<String>,
 }
 
 /// Where the full scale came from.
@@ -72,6 +76,8 @@ pub struct CaptureAnalysis {
     pub column: Option<String>,
     pub sample_rate_hz: f64,
     pub samples: usize,
+    /// Samples the recording holds (more than `samples` when a stretch of it was measured).
+    pub samples_in_file: u64,
     /// Time of the first sample (s).
     pub start_s: f64,
     /// Four-parameter fit (IEEE Std 1241): frequency, amplitude (peak), offset.
@@ -97,6 +103,9 @@ pub struct CaptureAnalysis {
     pub window: &'static str,
     pub band_hz: f64,
     pub harmonics: u32,
+    /// Why only a stretch of the recording was measured.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub note: Option<String>,
 }
 
 fn finite(x: f64) -> Option<f64> {
@@ -229,6 +238,7 @@ pub fn analyze(capture: &Capture, opts: &AnalyzeOptions) -> Result<(AnalysisRepo
             column,
             sample_rate_hz: capture.sample_rate_hz,
             samples: capture.samples.len(),
+            samples_in_file: opts.samples_in_file.unwrap_or(capture.samples.len() as u64),
             start_s: capture.t0_s,
             fundamental_hz: r.fit.frequency_hz,
             amplitude: r.fit.amplitude_v,
@@ -248,6 +258,7 @@ pub fn analyze(capture: &Capture, opts: &AnalyzeOptions) -> Result<(AnalysisRepo
             window: cfg.window.name(),
             band_hz: t.band_hz,
             harmonics: cfg.harmonics,
+            note: opts.note.clone(),
         },
     };
     Ok((report, r))
@@ -377,6 +388,7 @@ pub fn figures(capture: &Capture, a: &CaptureAnalysis, r: &SineRecord) -> Result
             band_hz: Some(a.band_hz),
             notes,
             log_frequency: false,
+            overlay: None,
         }),
     )?];
 
@@ -468,6 +480,9 @@ pub fn summary(a: &CaptureAnalysis) -> String {
         format_si_table(a.sample_rate_hz, "Hz"),
         a.samples
     );
+    if let Some(n) = &a.note {
+        s.push_str(&format!("  note: {n}\n"));
+    }
     s.push_str(&format!(
         "  fundamental  {}   amplitude {:.6} {unit} ({:.2} dBFS, {fs_note})\n",
         format_si_table(a.fundamental_hz, "Hz"),

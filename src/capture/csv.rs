@@ -21,6 +21,10 @@ use crate::text::clip;
 /// sample (a step of two periods) or a change of sample rate.
 pub const STEP_TOLERANCE: f64 = 0.01;
 
+/// Most rows of numbers read (2^24): a CSV capture is held in memory (its time column must be checked whole), so
+/// a longer one is refused with the way out (a shorter export, or WAV, which is read a stretch at a time).
+pub const MAX_ROWS: usize = 1 << 24;
+
 /// Longest line read before the header is found (bytes); a longer one is not a CSV header.
 const MAX_HEADER_LINE: u64 = 1 << 20;
 
@@ -140,6 +144,16 @@ pub fn parse<R: Read>(input: R, origin: &str, pick: &Pick) -> Result<Capture, Er
             break;
         }
         let line = rec.position().map_or(prev_line + 1, |p| p.line());
+        if times.len() == MAX_ROWS {
+            return Err(bad(
+                line,
+                format!(
+                    "the file has more than {MAX_ROWS} rows of numbers; CSV captures are read whole into memory \
+                     up to that many: export a shorter stretch, or convert the recording to WAV (read a stretch \
+                     at a time, whatever its length)"
+                ),
+            ));
+        }
         if line != prev_line + 1 || times.is_empty() {
             jumps.push((times.len(), line));
         }

@@ -6,7 +6,7 @@ use std::path::Path;
 
 use serde::Serialize;
 
-use super::{Capture, Kind, Pick};
+use super::{CaptureFile, Kind, Pick};
 use crate::error::{Error, Result};
 use crate::measure::delay::{Method, WindowDelay, track};
 use crate::report::figures::{Figure, PNG_SIZE};
@@ -79,12 +79,16 @@ pub fn pick_in(kind: Kind, option: &str, text: &str) -> Result<Pick> {
     }
 }
 
-fn describe(c: &Capture) -> String {
+fn describe(c: &CaptureFile) -> String {
     format!("{} ({})", c.file.display(), c.origin.describe())
 }
 
 /// Measure the delay of `capture` behind `reference`.
-pub fn measure(reference: &Capture, capture: &Capture, opts: &DelayOptions) -> Result<DelayReport> {
+pub fn measure(
+    reference: &CaptureFile,
+    capture: &CaptureFile,
+    opts: &DelayOptions,
+) -> Result<DelayReport> {
     let (fr, fc) = (reference.sample_rate_hz, capture.sample_rate_hz);
     if (fr - fc).abs() > RATE_TOLERANCE * fr.max(fc) {
         return Err(Error::BadInput(format!(
@@ -94,14 +98,7 @@ pub fn measure(reference: &Capture, capture: &Capture, opts: &DelayOptions) -> R
             capture.file.display()
         )));
     }
-    let t = track(
-        &reference.samples,
-        &capture.samples,
-        fr,
-        opts.method,
-        CONFIDENCE_MIN,
-    )
-    .map_err(|e| match e {
+    let t = track(reference, capture, fr, opts.method, CONFIDENCE_MIN).map_err(|e| match e {
         Error::BadInput(m) => Error::BadInput(format!(
             "{} against {}: {m}",
             capture.file.display(),
@@ -128,7 +125,7 @@ pub fn measure(reference: &Capture, capture: &Capture, opts: &DelayOptions) -> R
             ..*w
         })
         .collect();
-    let last_s = (capture.samples.len().saturating_sub(1)) as f64 / fr;
+    let last_s = (capture.len.saturating_sub(1)) as f64 / fr;
     let (start_s, end_s, drift_ppm) = match t.line {
         Some((d0, slope)) => (
             d0 + offset_s,
@@ -174,8 +171,8 @@ pub fn check_out_dir(dir: &Path, force: bool) -> Result<()> {
 /// Measure and write `delay.json` and the figure `delay` (PNG and SVG) into `dir`, atomically; a folder of
 /// files convchain did not write is refused.
 pub fn delay_to_dir(
-    reference: &Capture,
-    capture: &Capture,
+    reference: &CaptureFile,
+    capture: &CaptureFile,
     opts: &DelayOptions,
     dir: &Path,
 ) -> Result<DelayReport> {
@@ -204,10 +201,10 @@ pub fn delay_to_dir(
 }
 
 /// The delay of each window against time, with the fitted line.
-fn figure(d: &DelayResult, capture: &Capture) -> Result<Figure> {
+fn figure(d: &DelayResult, capture: &CaptureFile) -> Result<Figure> {
     let t: Vec<f64> = d.windows.iter().map(|w| w.time_s).collect();
     let v: Vec<f64> = d.windows.iter().map(|w| w.delay_s).collect();
-    let last_s = (capture.samples.len().saturating_sub(1)) as f64 / d.sample_rate_hz;
+    let last_s = (capture.len.saturating_sub(1)) as f64 / d.sample_rate_hz;
     let line_t = [0.0, last_s];
     let line_v = [d.start_s, d.end_s];
     let mut series: Vec<(&str, &[f64], &[f64])> = vec![("fitted line", &line_t, &line_v)];

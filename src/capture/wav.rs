@@ -5,12 +5,19 @@
 use std::io::BufReader;
 use std::path::Path;
 
-use super::{Capture, Origin, Pick};
+use super::{Body, Capture, CaptureFile, Origin, Pick};
 use crate::Error;
 use crate::stages::wav_file;
 
-/// Read channel `pick` (from 1; [`Pick::Only`] for a one-channel file) of the WAV file at `path`.
+/// Read channel `pick` (from 1; [`Pick::Only`] for a one-channel file) of the WAV file at `path`, whole.
 pub fn read(path: &Path, pick: &Pick) -> Result<Capture, Error> {
+    let f = open(path, pick)?;
+    f.stretch(0, f.len)
+}
+
+/// Open channel `pick` of the WAV file at `path` (header checked, no sample read): stretches of it are then read
+/// one at a time ([`CaptureFile::stretch`]).
+pub fn open(path: &Path, pick: &Pick) -> Result<CaptureFile, Error> {
     let header = wav_file::read_header(path)?;
     let channels = header.channels;
     let channel = match pick {
@@ -42,8 +49,7 @@ pub fn read(path: &Path, pick: &Pick) -> Result<Capture, Error> {
     let spec = hound::WavReader::new(BufReader::new(f))
         .map_err(|e| Error::BadInput(format!("{}: not a readable WAV file ({e})", path.display())))?
         .spec();
-    let data = wav_file::read_channel(path, usize::from(channel - 1))?;
-    Ok(Capture {
+    Ok(CaptureFile {
         file: path.to_path_buf(),
         origin: Origin::Wav {
             channel,
@@ -51,8 +57,21 @@ pub fn read(path: &Path, pick: &Pick) -> Result<Capture, Error> {
             bits: spec.bits_per_sample,
             float: spec.sample_format == hound::SampleFormat::Float,
         },
-        sample_rate_hz: f64::from(data.rate_hz),
+        sample_rate_hz: f64::from(header.rate_hz),
         t0_s: 0.0,
-        samples: data.data,
+        len: header.frames,
+        body: Body::Wav {
+            channel0: usize::from(channel - 1),
+        },
     })
+}
+
+/// Frames `start .. start + len` of channel `channel0` (from 0).
+pub(super) fn stretch(
+    path: &Path,
+    channel0: usize,
+    start: u64,
+    len: u64,
+) -> Result<Vec<f64>, Error> {
+    Ok(wav_file::read_channel_range(path, channel0, start, len)?.data)
 }

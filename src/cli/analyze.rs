@@ -32,6 +32,12 @@ pub struct AnalyzeArgs {
     /// Spectral window.
     #[arg(long, value_enum, default_value_t = WindowArg::BlackmanHarris)]
     window: WindowArg,
+    /// Measure from this time on (seconds from the recording's first sample, e.g. "90 s"; default 0).
+    #[arg(long, value_name = "TIME")]
+    start: Option<String>,
+    /// Measure this long (default: to the end; at most 2^23 samples are measured at once).
+    #[arg(long, value_name = "TIME")]
+    length: Option<String>,
     /// Output folder (default out/<the capture's file name without extension>/).
     #[arg(long)]
     out: Option<PathBuf>,
@@ -90,7 +96,22 @@ pub fn run(a: AnalyzeArgs) -> anyhow::Result<()> {
         .out
         .unwrap_or_else(|| analyze::default_out_dir(&a.capture));
     analyze::check_out_dir(&dir, a.force)?;
-    let cap = capture::read(&a.capture, &pick)?;
+    let time = |opt: &str, t: &Option<String>| {
+        t.as_deref()
+            .map(|t| {
+                parse_quantity(t, Dimension::Time).map_err(|e| {
+                    Error::BadInput(format!(
+                        "{opt} \"{}\": {}; give a time, e.g. \"90 s\"",
+                        convchain::text::clip(t),
+                        e.message
+                    ))
+                })
+            })
+            .transpose()
+    };
+    let (start_s, length_s) = (time("--start", &a.start)?, time("--length", &a.length)?);
+    let file = capture::open(&a.capture, &pick)?;
+    let (cap, note) = file.record(start_s, length_s)?;
     let opts = analyze::AnalyzeOptions {
         full_scale: a.full_scale,
         bits: a.bits,
@@ -98,6 +119,8 @@ pub fn run(a: AnalyzeArgs) -> anyhow::Result<()> {
         window: a.window.into(),
         figures: !a.no_plots,
         force: a.force,
+        samples_in_file: Some(file.len),
+        note,
     };
     let report = analyze::analyze_to_dir(&cap, &opts, &dir)?;
     let stdout = std::io::stdout();

@@ -67,8 +67,8 @@ pub fn run(a: DelayArgs) -> anyhow::Result<()> {
         .out
         .unwrap_or_else(|| capture::analyze::default_out_dir(&cap_path));
     delay::check_out_dir(&dir, a.force)?;
-    let reference = capture::read(&ref_path, &ref_pick)?;
-    let cap = capture::read(&cap_path, &cap_pick)?;
+    let reference = capture::open(&ref_path, &ref_pick)?;
+    let cap = capture::open(&cap_path, &cap_pick)?;
     let opts = delay::DelayOptions {
         method: match a.method {
             MethodArg::Plain => Method::Plain,

@@ -72,6 +72,20 @@ enum Command {
         /// the converter's Nyquist frequency).
         #[arg(long, value_name = "LOW..HIGH")]
         audio_band: Option<String>,
+        /// A recording of the built chain's output (WAV, or CSV with a time column) to measure beside the
+        /// simulated output with the same meter; report.json gets a `compare` object.
+        #[arg(long, value_name = "CAPTURE")]
+        compare: Option<PathBuf>,
+        /// CSV capture: the value column, by header name or number (from 1; the time is column 1).
+        #[arg(long, requires = "compare", conflicts_with = "compare_channel")]
+        compare_column: Option<String>,
+        /// WAV capture: the channel, from 1.
+        #[arg(long, requires = "compare")]
+        compare_channel: Option<u16>,
+        /// The volts that the capture's sample value 1.0 stands for (a WAV file's full scale), e.g. "2.5 V";
+        /// default 1 V (a CSV export's values are volts as written).
+        #[arg(long, value_name = "V", requires = "compare")]
+        compare_full_scale: Option<String>,
     },
     /// Write generated demo audio (no recording is shipped) to listen to a chain with.
     Audio {
@@ -375,7 +389,38 @@ fn run(args: Args) -> anyhow::Result<()> {
             force,
             audio,
             audio_band,
+            compare,
+            compare_column,
+            compare_channel,
+            compare_full_scale,
         } => {
+            let compare = match compare {
+                Some(file) => Some(convchain::capture::compare::CompareSpec {
+                    file,
+                    pick: match (compare_column, compare_channel) {
+                        (Some(c), _) => convchain::capture::Pick::Column(c),
+                        (None, Some(n)) => convchain::capture::Pick::Channel(n),
+                        (None, None) => convchain::capture::Pick::Only,
+                    },
+                    volts_per_unit: compare_full_scale
+                        .as_deref()
+                        .map(|t| {
+                            convchain::format::units::parse_quantity(
+                                t,
+                                convchain::format::units::Dimension::Voltage,
+                            )
+                            .map_err(|e| {
+                                Error::BadInput(format!(
+                                    "--compare-full-scale \"{t}\": {}; give the volts that sample value 1.0 \
+                                     stands for, e.g. \"2.5 V\"",
+                                    e.message
+                                ))
+                            })
+                        })
+                        .transpose()?,
+                }),
+                None => None,
+            };
             let window_s = window.as_deref().map(parse_window).transpose()?;
             let audio_band_hz = match audio_band.as_deref() {
                 Some(t) => Some(parse_audio_band(t)?),
@@ -424,6 +469,7 @@ fn run(args: Args) -> anyhow::Result<()> {
                 }),
                 force,
                 audio_band_hz,
+                compare,
             };
             interrupt::install_stop_handler("run");
             let report = convchain::run_to_dir(&sc, &dir, &opts)?;

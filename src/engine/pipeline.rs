@@ -86,11 +86,17 @@ pub struct RunOutput {
     pub codes_clipped: u64,
     /// Overloads of a noise-shaping loop (`None` without one).
     pub modulator_overloads: Option<u64>,
+    /// Overloads of the DAC's noise-shaping loop (`None` without one).
+    pub dac_modulator_overloads: Option<u64>,
     /// The last stretch of a noise-shaping loop's output: (clock, levels at full scale +-1).
     pub modulator_stream: Option<(f64, Vec<f64>)>,
     pub bits_flipped: u64,
     /// What the FIFO between the codes' clock and the DAC's own clock recorded (`None` on a shared clock).
     pub slips: Option<SlipRecord>,
+    /// Packets lost by the chain's networks, and the instants they should have played (the first
+    /// [`LOSS_TIMES_MAX`](crate::stages::network::LOSS_TIMES_MAX), in time order).
+    pub packets_lost: u64,
+    pub packet_loss_times_s: Vec<f64>,
     /// The latency budget from each stage's own delay: phase delays at the fundamental, or group delays at a
     /// tenth of the output band for broadband sources.
     pub budget: Vec<BudgetLine>,
@@ -119,8 +125,11 @@ impl RunOutput {
             },
             codes_clipped: self.codes_clipped,
             modulator_overloads: self.modulator_overloads,
+            dac_modulator_overloads: self.dac_modulator_overloads,
             bits_flipped: self.bits_flipped,
             slips: self.slips.as_ref(),
+            packets_lost: self.packets_lost,
+            packet_loss_times_s: &self.packet_loss_times_s,
             out_rate_hz: self.plan.out_rate_hz,
             out_band_hz: self.plan.out_band_hz,
             out_wide_band_hz: self.plan.out_wide_band_hz,
@@ -673,6 +682,10 @@ fn run_with(
         .converter
         .as_ref()
         .and_then(|c| c.quantizer.overloads());
+    let dac_modulator_overloads = chain
+        .converter
+        .as_ref()
+        .and_then(|c| c.reconstructor.overloads());
     let modulator_stream = chain
         .converter
         .as_ref()
@@ -683,6 +696,19 @@ fn run_with(
             c.code.iter().map(|l| l.bits_flipped()).sum(),
         ),
         None => (0, 0),
+    };
+    let (packets_lost, packet_loss_times_s) = match &chain.converter {
+        Some(c) => {
+            let mut times: Vec<f64> = c
+                .code
+                .iter()
+                .flat_map(|l| l.packet_loss_times_s().iter().copied())
+                .collect();
+            times.sort_by(f64::total_cmp);
+            times.truncate(crate::stages::network::LOSS_TIMES_MAX);
+            (c.code.iter().map(|l| l.packets_lost()).sum(), times)
+        }
+        None => (0, Vec::new()),
     };
     let capture = Capture {
         timebase: tb,
@@ -725,9 +751,12 @@ fn run_with(
         capture_dac_events,
         codes_clipped,
         modulator_overloads,
+        dac_modulator_overloads,
         modulator_stream,
         bits_flipped,
         slips,
+        packets_lost,
+        packet_loss_times_s,
         budget,
         pre_gain,
         chain,

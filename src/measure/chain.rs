@@ -24,9 +24,14 @@ pub struct RunRecords<'a> {
     pub codes_clipped: u64,
     /// Overloads of a noise-shaping loop (`None` without one).
     pub modulator_overloads: Option<u64>,
+    /// Overloads of the DAC's noise-shaping loop (`None` without one).
+    pub dac_modulator_overloads: Option<u64>,
     pub bits_flipped: u64,
     /// The clock-crossing FIFO's record, when the DAC reads through one.
     pub slips: Option<&'a crate::engine::clock::SlipRecord>,
+    /// Packets lost by networks, and the instants they should have played (s).
+    pub packets_lost: u64,
+    pub packet_loss_times_s: &'a [f64],
     /// Rate and band of the output analysis record (Hz).
     pub out_rate_hz: f64,
     pub out_band_hz: f64,
@@ -103,6 +108,9 @@ pub struct OutputMetrics {
     pub enob_bits: Option<f64>,
     pub thd_db: Option<f64>,
     pub sfdr_dbc: Option<f64>,
+    /// Overloads of a delta-sigma DAC's noise-shaping loop (absent for other DACs).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub dac_modulator_overloads: Option<u64>,
     /// Output fundamental over source fundamental.
     pub gain_db: Option<f64>,
     /// The same tone figures over the output record's whole flat passband, when it is wider than `band_hz`
@@ -149,6 +157,11 @@ pub struct LatencyMetrics {
     /// Their instants (s), the first [`crate::engine::clock::SLIP_TIMES_MAX`].
     #[serde(skip_serializing_if = "Option::is_none")]
     pub slip_times_s: Option<Vec<f64>>,
+    /// Packets lost by the chain's networks (arrived after their playout instant; concealed).
+    pub packets_lost: u64,
+    /// The instants the lost packets should have started playing (run time, s; the first
+    /// [`LOSS_TIMES_MAX`](crate::stages::network::LOSS_TIMES_MAX)).
+    pub packet_loss_times_s: Vec<f64>,
 }
 
 /// A spectrum kept for plots, with its tone analysis and the full-scale reference of its dBFS.
@@ -434,6 +447,7 @@ pub fn measure_run(run: &RunRecords<'_>) -> Result<ChainMetrics> {
             enob_bits: out_tm.as_ref().and_then(|t| finite(t.enob_bits)),
             thd_db: out_tm.as_ref().and_then(|t| finite(t.thd_db)),
             sfdr_dbc: out_tm.as_ref().and_then(|t| finite(t.sfdr_dbc)),
+            dac_modulator_overloads: run.dac_modulator_overloads,
             gain_db,
             wideband,
             fidelity_db: fid.fidelity_db,
@@ -449,6 +463,8 @@ pub fn measure_run(run: &RunRecords<'_>) -> Result<ChainMetrics> {
             flagged,
             slips: run.slips.map(|s| s.slips),
             slip_times_s: run.slips.map(|s| s.slip_times_s.clone()),
+            packets_lost: run.packets_lost,
+            packet_loss_times_s: run.packet_loss_times_s.to_vec(),
         },
     })
 }

@@ -226,38 +226,72 @@ pub struct DelayTrack {
 pub const WINDOW_SAMPLES: usize = 1 << 14;
 /// Most windows measured.
 pub const MAX_WINDOWS: usize = 64;
+/// Most samples of each record the whole-record estimate correlates (2^21, 44 s at 48 kHz): it only places
+/// the windows, so a longer recording is never read whole.
+pub const HEAD_SAMPLES: usize = 1 << 21;
 
-/// The delay of `y` behind `x` (both at `rate_hz`) over the whole records, then in windows of
-/// [`WINDOW_SAMPLES`] placed along the capture one whole delay apart from their reference windows, and the
-/// least-squares line through the windows whose confidence reaches `threshold` (weighted alike).
-pub fn track(
-    x: &[f64],
-    y: &[f64],
+/// A record a delay track reads a stretch at a time (a slice in memory, or a recording on disk).
+pub trait Records {
+    /// Samples in the record.
+    fn samples(&self) -> usize;
+    /// Samples `start .. start + len` (inside the record).
+    fn stretch(&self, start: usize, len: usize) -> Result<std::borrow::Cow<'_, [f64]>>;
+}
+
+impl Records for [f64] {
+    fn samples(&self) -> usize {
+        self.len()
+    }
+    fn stretch(&self, start: usize, len: usize) -> Result<std::borrow::Cow<'_, [f64]>> {
+        Ok(std::borrow::Cow::Borrowed(&self[start..start + len]))
+    }
+}
+
+/// The delay of `y` behind `x` (both at `rate_hz`) over the records' first [`HEAD_SAMPLES`], then in windows of
+/// [`WINDOW_SAMPLES`] placed along the capture, each against the reference window one delay earlier (the delay
+/// carried from window to window, so a drift of many samples over a long recording keeps every pair aligned),
+/// and the least-squares line through the windows whose confidence reaches `threshold` (weighted alike). Only
+/// the head and the windows are read.
+pub fn track<X: Records + ?Sized, Y: Records + ?Sized>(
+    x: &X,
+    y: &Y,
     rate_hz: f64,
     method: Method,
     threshold: f64,
 ) -> Result<DelayTrack> {
-    let whole = estimate(x, y, method)?;
-    let d = whole.delay_samples.round() as i64;
+    let (nx, ny) = (x.samples(), y.samples());
+    let whole = estimate(
+        &x.stretch(0, nx.min(HEAD_SAMPLES))?,
+        &y.stretch(0, ny.min(HEAD_SAMPLES))?,
+        method,
+    )?;
+    let d0 = whole.delay_samples.round() as i64;
     let w = WINDOW_SAMPLES as i64;
     // Capture windows [c, c + w) with reference windows [c - d, c - d + w) inside both records.
-    let c_lo = d.max(0);
-    let c_hi = (y.len() as i64).min(x.len() as i64 + d) - w;
+    let c_lo = d0.max(0);
+    let c_hi = (ny as i64).min(nx as i64 + d0) - w;
     let mut windows = Vec::new();
     let mut gains = Vec::new();
+    let mut d = d0;
     if c_hi >= c_lo + w {
         let count = (((c_hi - c_lo) / (w / 2)) as usize + 1).clamp(2, MAX_WINDOWS);
         for j in 0..count {
             let c = c_lo + (c_hi - c_lo) * j as i64 / (count as i64 - 1);
-            let (c, r) = (c as usize, (c - d) as usize);
-            let e = estimate(&x[r..r + WINDOW_SAMPLES], &y[c..c + WINDOW_SAMPLES], method);
-            let Ok(e) = e else { continue };
+            let r = c - d;
+            if r < 0 || r + w > nx as i64 {
+                continue;
+            }
+            let (c, r) = (c as usize, r as usize);
+            let xw = x.stretch(r, WINDOW_SAMPLES)?;
+            let yw = y.stretch(c, WINDOW_SAMPLES)?;
+            let Ok(e) = estimate(&xw, &yw, method) else {
+                continue;
+            };
             // Gain and confidence from the window's central quarter: a drift smears the alignment across a
             // whole window (50 ppm moves the delay by 0.8 sample over 16384 samples, which costs a broadband
             // signal some 7 % of its correlation), four times less across the quarter.
             let (q0, q) = (3 * WINDOW_SAMPLES / 8, WINDOW_SAMPLES / 4);
-            let centre =
-                estimate(&x[r + q0..r + q0 + q], &y[c + q0..c + q0 + q], method).unwrap_or(e);
+            let centre = estimate(&xw[q0..q0 + q], &yw[q0..q0 + q], method).unwrap_or(e);
             if centre.confidence >= threshold && centre.gain.is_finite() {
                 gains.push(centre.gain);
             }
@@ -266,6 +300,10 @@ pub fn track(
                 delay_s: (d as f64 + e.delay_samples) / rate_hz,
                 confidence: centre.confidence,
             });
+            // Follow the delay: the next window pair is placed at this one's delay.
+            if centre.confidence >= threshold && e.delay_samples.is_finite() {
+                d += e.delay_samples.round() as i64;
+            }
         }
     }
     let good: Vec<&WindowDelay> = windows
@@ -401,7 +439,7 @@ mod tests {
                 s(i as f64 - delay_s * fs)
             })
             .collect();
-        let tr = track(&x, &y, fs, Method::Plain, 0.2).unwrap();
+        let tr = track(&x[..], &y[..], fs, Method::Plain, 0.2).unwrap();
         let (d0, slope) = tr.line.unwrap();
         assert!(
             (-slope * 1e6 - 50.0).abs() < 2.0,

@@ -93,7 +93,7 @@ pub fn measure_sine_record(
         && b < fit.frequency_hz
     {
         return Err(Error::BadInput(format!(
-            "--band {b} Hz lies below the fundamental at {:.6} Hz; give a band that holds it",
+            "the measurement band ends at {b} Hz, below the fundamental at {:.6} Hz; give a band that holds it",
             fit.frequency_hz
         )));
     }

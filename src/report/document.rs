@@ -103,6 +103,11 @@ pub fn run_facts(r: &Report) -> Vec<String> {
             ));
         }
     }
+    if let Some(n) = r.output.dac_modulator_overloads.filter(|&n| n > 0) {
+        f.push(format!(
+            "The DAC's noise-shaping loop overloaded {n} times: its input exceeds the loop's largest stable level, and the output metrics include the overloads."
+        ));
+    }
     f.push(format!("{}.", capitalise(&r.band_note())));
     if let Some(m) = &r.imd {
         let dbc = |x: Option<f64>| x.map_or("-".into(), |v| format!("{v:.2} dBc"));
@@ -135,7 +140,16 @@ pub fn run_facts(r: &Report) -> Vec<String> {
         f.push(format!("Link: {} bits flipped.", r.output.bits_flipped));
     }
     if let Some(line) = crate::report::table::slip_line(&r.latency) {
-        f.push(format!("{line}."));
+        f.push(format!("C{}.", &line[1..]));
+    }
+    if r.latency.packets_lost > 0 {
+        let line = crate::report::table::packets_lost_line(&r.latency);
+        let mut chars = line.chars();
+        let cap: String = chars
+            .next()
+            .map(|c| c.to_uppercase().collect())
+            .unwrap_or_default();
+        f.push(format!("{cap}{}.", chars.as_str()));
     }
     f
 }
@@ -170,6 +184,16 @@ pub fn markdown(r: &Report, figures: &[Figure]) -> String {
         );
         for (n, a, o) in r.audio_rows() {
             let _ = writeln!(s, "| {n} | {a} | {o} |");
+        }
+    }
+    if let Some(c) = &r.compare {
+        let _ = writeln!(
+            s,
+            "\n## Capture beside the simulation\n\n{}.\n\n| | simulated | captured | captured - simulated | |\n|---|---:|---:|---:|---|",
+            capitalise(&c.note())
+        );
+        for [n, a, b, d, v] in c.rows() {
+            let _ = writeln!(s, "| {n} | {a} | {b} | {d} | {v} |");
         }
     }
     let _ = writeln!(s, "\n## Latency\n\n| stage | delay |\n|---|---:|");
@@ -252,6 +276,24 @@ figcaption{{color:#444}}</style></head><body>\n",
                 "<tr><td>{n}</td><td class=\"n\">{}</td><td class=\"n\">{}</td></tr>",
                 esc(&a),
                 esc(&o)
+            );
+        }
+        let _ = writeln!(s, "</table>");
+    }
+    if let Some(c) = &r.compare {
+        let _ = writeln!(
+            s,
+            "<h2>Capture beside the simulation</h2><p>{}.</p><table><tr><th></th><th>simulated</th>\
+             <th>captured</th><th>captured - simulated</th><th></th></tr>",
+            esc(&capitalise(&c.note()))
+        );
+        for [n, a, b, d, v] in c.rows() {
+            let _ = writeln!(
+                s,
+                "<tr><td>{n}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td>{v}</td></tr>",
+                esc(&a),
+                esc(&b),
+                esc(&d)
             );
         }
         let _ = writeln!(s, "</table>");

@@ -338,6 +338,7 @@ fn modulator_figure(name: &str, clock_hz: f64, levels: &[f64], run: &RunOutput) 
             band_hz,
             notes,
             log_frequency: true,
+            overlay: None,
         }),
     )
 }
@@ -459,6 +460,7 @@ fn spectrum_figure(
             band_hz,
             notes,
             log_frequency: false,
+            overlay: None,
         }),
     )
 }

@@ -3,6 +3,7 @@
 use serde::Serialize;
 use serde_json::{Value, json};
 
+use crate::capture::compare::CompareReport;
 use crate::engine::audio::AudioReport;
 use crate::engine::pipeline::si;
 use crate::engine::plan::{BandRule, Plan, TonePlacement};
@@ -35,6 +36,9 @@ pub struct Report {
     /// Audio figures (AES17 methods), with `run --audio`.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub audio: Option<AudioReport>,
+    /// A capture of the built chain measured beside the simulated output, with `run --compare`.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub compare: Option<CompareReport>,
 }
 
 /// What the WAV files hold.
@@ -146,6 +150,7 @@ impl Report {
             imd: None,
             step: None,
             audio: None,
+            compare: None,
         }
     }
 }

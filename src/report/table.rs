@@ -89,6 +89,12 @@ pub fn summary(r: &Report) -> String {
             );
         }
     }
+    if let Some(n) = r.output.dac_modulator_overloads.filter(|&n| n > 0) {
+        let _ = writeln!(
+            s,
+            "  the DAC's noise-shaping loop overloaded {n} times: its input exceeds the loop's largest stable level, and the output metrics include the overloads"
+        );
+    }
     let _ = writeln!(s, "  {}", r.band_note());
     if let Some(m) = &r.imd {
         let _ = writeln!(
@@ -164,11 +170,26 @@ pub fn summary(r: &Report) -> String {
             let _ = writeln!(s, "    {name:<28}{a:>24}{o:>24}");
         }
     }
+    if let Some(c) = &r.compare {
+        let _ = writeln!(s, "\n  {}", c.note());
+        let _ = writeln!(
+            s,
+            "    {:<14}{:>16}{:>16}{:>22}",
+            "", "simulated", "captured", "captured - simulated"
+        );
+        for [name, a, b, d, v] in c.rows() {
+            let line = format!("    {name:<14}{a:>16}{b:>16}{d:>22}  {v}");
+            let _ = writeln!(s, "{}", line.trim_end());
+        }
+    }
     if o.bits_flipped > 0 {
         let _ = writeln!(s, "  link: {} bits flipped", o.bits_flipped);
     }
     if let Some(line) = slip_line(&r.latency) {
         let _ = writeln!(s, "  {line}");
+    }
+    if r.latency.packets_lost > 0 {
+        let _ = writeln!(s, "  {}", packets_lost_line(&r.latency));
     }
     let l = &r.latency;
     let _ = writeln!(s, "\n  latency budget");
@@ -288,4 +309,18 @@ pub fn static_summary(r: &StaticReport) -> String {
         }
     }
     s
+}
+
+/// "network: N packets lost (concealed), the first at T": for the table and the reports.
+pub fn packets_lost_line(l: &crate::measure::chain::LatencyMetrics) -> String {
+    let first = l
+        .packet_loss_times_s
+        .first()
+        .map(|t| format!(", the first at {}", si(*t, "s")))
+        .unwrap_or_default();
+    format!(
+        "network: {} packet{} lost (late for the jitter buffer, concealed){first}",
+        l.packets_lost,
+        if l.packets_lost == 1 { "" } else { "s" }
+    )
 }

@@ -50,6 +50,9 @@ pub struct Scenario {
     pub analysis: Analysis,
     /// `[spread]`: values drawn afresh for each Monte-Carlo run, in file order (empty for a single run).
     pub spread: Vec<Spread>,
+    /// `[compare]`: a recording of the built chain that `run` measures beside the simulated output (`run
+    /// --compare` takes its place); studies leave it alone.
+    pub compare: Option<crate::capture::compare::CompareSpec>,
     /// Non-fatal remarks found while checking (e.g. an analog rate below 20x the highest source frequency),
     /// as printed; they include the text of every [`Slip`].
     pub warnings: Vec<String>,

@@ -5,6 +5,7 @@
 use super::{AdcInput, Scenario, Slip, StageKind, Waveform};
 use crate::format::reader::{ScenarioError, SourceMap, Span, Table, Value};
 use crate::format::units::format_si;
+use crate::stages::kind::Role;
 
 /// Conversions the ADC record needs at least (as [`crate::engine::pipeline::Plan::new`] asks).
 const MIN_CONVERSIONS: f64 = 16.0;
@@ -54,6 +55,7 @@ fn span_of(root: &Table, path: &str) -> Span {
 pub fn check(map: &SourceMap<'_>, root: &Table, sc: &Scenario) -> Result<(), ScenarioError> {
     tone_inside_band(map, root, sc)?;
     links_leave_a_record(map, root, sc)?;
+    network_packets_hold_a_code(map, root, sc)?;
     chirp_spans_the_grid(map, root, sc)?;
     wav_rate_near_the_grid(map, root, sc)?;
     Ok(())
@@ -85,9 +87,10 @@ fn tone_inside_band(map: &SourceMap<'_>, root: &Table, sc: &Scenario) -> Result<
     Ok(())
 }
 
-/// A link's delay and frame wait come off the ADC record (the output must have received every recorded
+/// The code stages' delays (a link's delay and frame wait, a buffer's blocks, a codec's frame, a network's packet,
+/// delay and jitter buffer) come off the ADC record (the output must have received every recorded
 /// code): when they leave fewer than [`MIN_CONVERSIONS`] of conversions that fit in the analysis window,
-/// name the link rather than the window.
+/// name the stage rather than the window.
 fn links_leave_a_record(
     map: &SourceMap<'_>,
     root: &Table,
@@ -103,36 +106,44 @@ fn links_leave_a_record(
         return Ok(()); // the window itself is too short: the pipeline's own message says so
     }
     let mut transport_s = 0.0;
-    let mut worst: Option<(usize, f64, bool)> = None; // (stage number, seconds, delay rather than frame)
+    // (stage number, seconds, the key that holds most of them)
+    let mut worst: Option<(usize, f64, &'static str)> = None;
     for (i, s) in sc.stages.iter().enumerate() {
-        if let StageKind::Link(l) = &s.kind {
-            let frame_s = f64::from(l.frame) / fs;
-            transport_s += l.delay_s + frame_s;
-            let (t, is_delay) = if l.delay_s >= frame_s {
-                (l.delay_s, true)
-            } else {
-                (frame_s, false)
-            };
-            if worst.is_none_or(|(_, w, _)| t > w) {
-                worst = Some((i + 1, t, is_delay));
+        if s.kind.role() != Role::Code {
+            continue;
+        }
+        let t = s.kind.transport_s(fs);
+        transport_s += t;
+        let key = match &s.kind {
+            StageKind::Link(l) if l.delay_s >= f64::from(l.frame) / fs => "delay",
+            StageKind::Link(_) => "frame",
+            StageKind::Network(n) if n.delay_s >= n.jitter_buffer_s && n.delay_s >= n.packet_s => {
+                "delay"
             }
+            StageKind::Network(n) if n.jitter_buffer_s >= n.packet_s => "jitter_buffer",
+            StageKind::Network(_) => "packet",
+            StageKind::Buffer(_) => "block",
+            StageKind::Codec(_) => "frame",
+            _ => "kind",
+        };
+        if worst.is_none_or(|(_, w, _)| t > w) {
+            worst = Some((i + 1, t, key));
         }
     }
     let with_links = ((window_s - adc.conversion_time_s - transport_s - 1.0 / fs) * fs).floor();
-    let Some((n, _, is_delay)) = worst else {
+    let Some((n, _, key)) = worst else {
         return Ok(());
     };
     if with_links >= MIN_CONVERSIONS {
         return Ok(());
     }
-    let key = if is_delay { "delay" } else { "frame" };
     let path = format!("stage.{n}.{key}");
     Err(map
         .error(
             &span_of(root, &path),
             &path,
             format!(
-                "the links' delay and frame wait ({}) leave {} of the {} conversions that fit in the analysis \
+                "the code stages' delays (links, buffers, codecs, networks: {}) leave {} of the {} conversions that fit in the analysis \
                  window (duration - settle = {}); at least {MIN_CONVERSIONS} must reach the output",
                 format_si(transport_s, "s"),
                 with_links.max(0.0),
@@ -141,9 +152,45 @@ fn links_leave_a_record(
             ),
         )
         .with_hint(format!(
-            "shorten this link's {key}, or lengthen simulation.duration by at least {}",
+            "shorten this stage's {key}, or lengthen simulation.duration by at least {}",
             format_si(transport_s, "s")
         )))
+}
+
+/// A network's packet holds round(packet x fs) codes at the ADC's rate: at least one.
+fn network_packets_hold_a_code(
+    map: &SourceMap<'_>,
+    root: &Table,
+    sc: &Scenario,
+) -> Result<(), ScenarioError> {
+    let Some(adc) = sc.stages.iter().find_map(|s| s.kind.quantizer_timing()) else {
+        return Ok(());
+    };
+    let fs = adc.sample_rate_hz;
+    for (i, s) in sc.stages.iter().enumerate() {
+        if let StageKind::Network(n) = &s.kind
+            && n.codes_per_packet(fs) == 0
+        {
+            let path = format!("stage.{}.packet", i + 1);
+            return Err(map
+                .error(
+                    &span_of(root, &path),
+                    &path,
+                    format!(
+                        "the packet ({}) is shorter than one sample at the ADC's {} ({}); a packet carries \
+                         round(packet x sample rate) codes, at least one",
+                        format_si(n.packet_s, "s"),
+                        format_si(fs, "Hz"),
+                        format_si(1.0 / fs, "s")
+                    ),
+                )
+                .with_hint(format!(
+                    "make the packet at least one sample period ({})",
+                    format_si(1.0 / fs, "s")
+                )));
+        }
+    }
+    Ok(())
 }
 
 /// A chirp whose sweep is shorter than a few grid steps is no sweep, and its group-delay meter would visit

@@ -1,7 +1,7 @@
 //! From a spanned TOML table to a checked [`Scenario`]: schema, defaults, ranges, stage order and
 //! cross-stage resolution. Every error names the offending value's position and key path.
 
-use std::path::Path;
+use std::path::{Path, PathBuf};
 
 use super::source_table::{FullScale, source};
 use super::spread::spread;
@@ -30,6 +30,7 @@ pub fn build(
     let stage_nodes = r.array("stage")?;
     let analysis_t = r.table("analysis")?;
     let spread_t = r.table("spread")?;
+    let compare_t = r.table("compare")?;
     // Report an unknown top-level key (e.g. `[stages]`) before complaining about missing ones.
     let missing_name = r.missing("name", "\"my-bench\"");
     let missing_sim = r.missing("simulation", "a [simulation] table");
@@ -105,6 +106,7 @@ pub fn build(
         None => Vec::new(),
         Some(t) => spread(map, t, root)?,
     };
+    let compare = compare_t.map(|t| compare(map, t, base_dir)).transpose()?;
     Ok(Scenario {
         name: name.value.to_string(),
         description,
@@ -115,6 +117,7 @@ pub fn build(
         stages,
         analysis,
         spread,
+        compare,
         warnings,
         slips: Vec::new(),
         locations: Vec::new(),
@@ -201,6 +204,63 @@ fn simulation(map: &SourceMap<'_>, t: &Table) -> Result<(Simulation, Span), Scen
         },
         rate.span,
     ))
+}
+
+/// `[compare]`: a recording of the built chain for `run` to measure beside the simulated output. `file` is
+/// taken from the scenario's folder when relative; `channel` counts from 0 and `full_scale` is the volts sample
+/// value 1.0 stands for, as in the source's `wav` waveform; `column` is a CSV column's header name or its number
+/// in the file (from 1, the time being column 1), written as a string.
+fn compare(
+    map: &SourceMap<'_>,
+    t: &Table,
+    base_dir: &Path,
+) -> Result<crate::capture::compare::CompareSpec, ScenarioError> {
+    use crate::capture::Pick;
+    let mut r = TableReader::new(map, t, "compare");
+    let file = r.string("file")?.ok_or_else(|| {
+        r.missing("file", "\"bench-take.csv\"")
+            .with_hint("name the recording to compare with")
+    })?;
+    let column = r.string("column")?;
+    let channel = r.integer("channel", 0, i128::from(u16::MAX) - 1)?;
+    let full_scale = r.positive("full_scale", Dimension::Voltage)?;
+    if let (Some(c), Some(_)) = (&column, &channel) {
+        return Err(r
+            .error(
+                &c.span,
+                "column",
+                "give column (a CSV file) or channel (a WAV file), not both",
+            )
+            .with_hint("remove the one that does not match the file"));
+    }
+    let given = PathBuf::from(file.value);
+    let path = if given.is_absolute() {
+        given
+    } else {
+        base_dir.join(&given)
+    };
+    if !path.is_file() {
+        return Err(r
+            .error(
+                &file.span,
+                "file",
+                format!("{} is not a file that can be read", path.display()),
+            )
+            .with_hint(format!(
+                "relative paths are taken from the scenario's folder ({})",
+                base_dir.display()
+            )));
+    }
+    r.finish(&[], "[compare]")?;
+    Ok(crate::capture::compare::CompareSpec {
+        file: path,
+        pick: match (column, channel) {
+            (Some(c), _) => Pick::Column(c.value.to_string()),
+            (None, Some(n)) => Pick::Channel(n.value as u16 + 1),
+            (None, None) => Pick::Only,
+        },
+        volts_per_unit: full_scale.map(|q| q.value),
+    })
 }
 
 fn analysis(map: &SourceMap<'_>, t: &Table) -> Result<Analysis, ScenarioError> {

@@ -92,6 +92,23 @@ pub enum Waveform {
 }
 
 impl Waveform {
+    /// The name a scenario gives the waveform (`source.waveform`).
+    pub fn name(&self) -> &'static str {
+        match self {
+            Waveform::Sine { .. } => "sine",
+            Waveform::Square { .. } => "square",
+            Waveform::Triangle { .. } => "triangle",
+            Waveform::Sawtooth { .. } => "sawtooth",
+            Waveform::Multitone { .. } => "multitone",
+            Waveform::Chirp { .. } => "chirp",
+            Waveform::Step { .. } => "step",
+            Waveform::Dc => "dc",
+            Waveform::Noise { .. } => "noise",
+            Waveform::Wav { .. } => "wav",
+            Waveform::Chord { .. } => "chord",
+        }
+    }
+
     /// The highest frequency the source puts out by design (for the analog-rate checks), if it has one.
     pub fn highest_frequency_hz(&self) -> Option<f64> {
         match self {

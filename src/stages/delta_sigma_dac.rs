@@ -461,6 +461,9 @@ impl Reconstructor for DeltaSigmaDac {
     fn clock_ppm(&self) -> f64 {
         self.cfg.clock.clock_ppm
     }
+    fn overloads(&self) -> Option<u64> {
+        Some(self.modulator.overloads())
+    }
     fn budget(&self, update_rate_hz: f64, f_hz: f64) -> Vec<BudgetLine> {
         let taps = self.design.fir.taps.len();
         let (phase, linear) = match self.cfg.shaping.phase {

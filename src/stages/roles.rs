@@ -81,6 +81,15 @@ pub trait CodeStage: Send {
     fn bits_flipped(&self) -> u64 {
         0
     }
+    /// Packets lost (arrived too late to play) so far.
+    fn packets_lost(&self) -> u64 {
+        0
+    }
+    /// The instants (s) the lost packets should have started playing, oldest first (at most the first
+    /// [`LOSS_TIMES_MAX`](crate::stages::network::LOSS_TIMES_MAX)).
+    fn packet_loss_times_s(&self) -> &[f64] {
+        &[]
+    }
     /// Budget lines for codes arriving at `sample_rate_hz`.
     fn budget(&self, sample_rate_hz: f64) -> Vec<BudgetLine>;
     /// The rate of the codes leaving, for codes arriving at `input_rate_hz` (a rate converter changes it).
@@ -117,5 +126,9 @@ pub trait Reconstructor: Send {
     /// Offset of the DAC's clock (ppm).
     fn clock_ppm(&self) -> f64 {
         0.0
+    }
+    /// Times a noise-shaping loop overloaded (`None` for DACs without one).
+    fn overloads(&self) -> Option<u64> {
+        None
     }
 }

@@ -139,6 +139,18 @@ pub fn read_header(path: &Path) -> Result<WavHeader, Error> {
 /// Read channel `channel` (from 0) of the WAV file at `path`, checking the whole file as the module says:
 /// every sample of every channel must be finite.
 pub fn read_channel(path: &Path, channel: usize) -> Result<WavChannel, Error> {
+    read_channel_range(path, channel, 0, u64::MAX)
+}
+
+/// Read frames `start .. start + frames` (cut to the file's end) of channel `channel` (from 0): the reader seeks
+/// to the first frame, so memory and time follow the stretch read, not the file. Every sample read (of every
+/// channel) must be finite; a stretch that starts beyond the file's end is an error.
+pub fn read_channel_range(
+    path: &Path,
+    channel: usize,
+    start: u64,
+    frames: u64,
+) -> Result<WavChannel, Error> {
     let (mut r, h) = reader(path)?;
     let channels = usize::from(h.channels);
     if channel >= channels {
@@ -149,10 +161,30 @@ pub fn read_channel(path: &Path, channel: usize) -> Result<WavChannel, Error> {
             ),
         ));
     }
+    if start >= h.frames {
+        return Err(bad(
+            path,
+            format!(
+                "the stretch asked for starts at frame {start} but the file holds {} frames",
+                h.frames
+            ),
+        ));
+    }
+    let frames = frames.min(h.frames - start);
+    if start > 0 {
+        let at = u32::try_from(start).map_err(|_| bad(path, "the file is too long to seek in"))?;
+        r.seek(at).map_err(|e| Error::Read {
+            path: path.to_path_buf(),
+            source: e,
+        })?;
+    }
+    let wanted = frames as usize * channels;
     // The size was checked against the file's length, so this allocation is bounded by the file.
-    let mut data = Vec::with_capacity(h.frames as usize);
+    let mut data = Vec::with_capacity(frames as usize);
     let spec = r.spec();
+    let first = start as usize * channels;
     let not_finite = |i: usize, v: f32| {
+        let i = first + i;
         bad(
             path,
             format!(
@@ -164,7 +196,7 @@ pub fn read_channel(path: &Path, channel: usize) -> Result<WavChannel, Error> {
     };
     match spec.sample_format {
         hound::SampleFormat::Float => {
-            for (i, s) in r.samples::<f32>().enumerate() {
+            for (i, s) in r.samples::<f32>().take(wanted).enumerate() {
                 let s = s.map_err(|e| hound_error(path, e))?;
                 if !s.is_finite() {
                     return Err(not_finite(i, s));
@@ -176,7 +208,7 @@ pub fn read_channel(path: &Path, channel: usize) -> Result<WavChannel, Error> {
         }
         hound::SampleFormat::Int => {
             let scale = 1.0 / f64::powi(2.0, i32::from(spec.bits_per_sample) - 1);
-            for (i, s) in r.samples::<i32>().enumerate() {
+            for (i, s) in r.samples::<i32>().take(wanted).enumerate() {
                 let s = s.map_err(|e| hound_error(path, e))?;
                 if i % channels == channel {
                     data.push(f64::from(s) * scale);
@@ -278,5 +310,34 @@ mod tests {
         let w = read_channel(&p, 0).unwrap();
         assert_eq!(w.data, vec![0.0, 0.5, -0.25]);
         assert_eq!((w.rate_hz, w.channels), (8000, 1));
+    }
+
+    #[test]
+    fn a_stretch_of_one_channel_is_read_after_a_seek() {
+        // Stereo 16-bit: channel 0 holds frame index k, channel 1 holds -k (in LSBs).
+        let d = tempfile::tempdir().unwrap();
+        let p = d.path().join("ramp.wav");
+        let spec = hound::WavSpec {
+            channels: 2,
+            sample_rate: 1000,
+            bits_per_sample: 16,
+            sample_format: hound::SampleFormat::Int,
+        };
+        let mut w = hound::WavWriter::create(&p, spec).unwrap();
+        for k in 0..100i16 {
+            w.write_sample(k).unwrap();
+            w.write_sample(-k).unwrap();
+        }
+        w.finalize().unwrap();
+        let lsb = 1.0 / 32768.0;
+        let r = read_channel_range(&p, 1, 40, 5).unwrap();
+        assert_eq!(
+            r.data,
+            (40..45).map(|k| -f64::from(k) * lsb).collect::<Vec<_>>()
+        );
+        // Cut at the file's end; a start beyond it is refused.
+        assert_eq!(read_channel_range(&p, 0, 98, 10).unwrap().data.len(), 2);
+        let e = read_channel_range(&p, 0, 100, 1).unwrap_err();
+        assert!(e.to_string().contains("holds 100 frames"), "{e}");
     }
 }

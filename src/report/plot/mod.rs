@@ -123,6 +123,21 @@ pub struct SpectrumPlot<'a> {
     pub notes: Vec<String>,
     /// Logarithmic frequency axis (bin 0 is then not drawn).
     pub log_frequency: bool,
+    /// A second spectrum drawn over the first (a capture beside its simulation), with the two traces' names.
+    pub overlay: Option<SpectrumOverlay<'a>>,
+}
+
+/// A second trace for a [`SpectrumPlot`]: its own bins, drawn over the first in another colour.
+#[derive(Debug, Clone)]
+pub struct SpectrumOverlay<'a> {
+    /// Legend name of the plot's own trace ("simulated output").
+    pub first_label: String,
+    /// Legend name of this trace ("capture").
+    pub label: String,
+    /// Bin spacing of this trace, Hz (> 0).
+    pub bin_hz: f64,
+    /// Level of each bin, dBFS.
+    pub level_dbfs: &'a [f64],
 }
 
 /// Static transfer with DNL and INL panels (empty slices leave their panel out).

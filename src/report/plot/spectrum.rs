@@ -32,7 +32,28 @@ pub(super) fn draw_spectrum<DB: DrawingBackend>(
     }
     let f_top = (n - 1) as f64 * s.bin_hz;
     let first_bin = if s.log_frequency { 1 } else { 0 };
-    let (y_lo, y_hi) = level_range(&s.level_dbfs[first_bin..]);
+    // The overlay's bins up to the plot's top frequency (its own may reach higher: a faster capture).
+    let overlay = match &s.overlay {
+        Some(o) if o.bin_hz > 0.0 && o.bin_hz.is_finite() => {
+            let top = ((f_top / o.bin_hz).floor() as usize + 1).min(o.level_dbfs.len());
+            Some((o, &o.level_dbfs[..top]))
+        }
+        Some(o) => {
+            return Err(Error::Run(format!(
+                "plot: overlay bin spacing {} Hz must be positive",
+                o.bin_hz
+            )));
+        }
+        None => None,
+    };
+    let (y_lo, y_hi) = match overlay {
+        Some((_, lv)) if lv.len() > first_bin => {
+            let (a_lo, a_hi) = level_range(&s.level_dbfs[first_bin..]);
+            let (b_lo, b_hi) = level_range(&lv[first_bin..]);
+            (a_lo.min(b_lo).max(a_hi.max(b_hi) - 200.0), a_hi.max(b_hi))
+        }
+        _ => level_range(&s.level_dbfs[first_bin..]),
+    };
     let x = if s.log_frequency {
         Axis::logarithmic("frequency", "Hz", s.bin_hz, f_top)
     } else {
@@ -84,7 +105,13 @@ pub(super) fn draw_spectrum<DB: DrawingBackend>(
         }
     }
 
-    let mut entries = vec![("spectrum".to_string(), Key::Line(palette::BLUE, 1))];
+    let mut entries = match overlay {
+        Some((o, _)) => vec![
+            (o.first_label.clone(), Key::Line(palette::BLUE, 1)),
+            (o.label.clone(), Key::Line(OVERLAY, 1)),
+        ],
+        None => vec![("spectrum".to_string(), Key::Line(palette::BLUE, 1))],
+    };
     if band.is_some() {
         entries.push(("analysis band".to_string(), Key::Shade(palette::SKY_BLUE)));
     }
@@ -180,6 +207,22 @@ pub(super) fn draw_spectrum<DB: DrawingBackend>(
         Reduce::Max,
     );
     p.series_path(&pts, palette::BLUE, 1)?;
+    if let Some((o, lv)) = overlay {
+        let pts = to_pixels(
+            &f,
+            (first_bin..lv.len()).map(|k| {
+                let l = lv[k];
+                let l = if l.is_finite() {
+                    l.clamp(floor, f.y.hi)
+                } else {
+                    floor
+                };
+                (f.px(k as f64 * o.bin_hz), f.py(l))
+            }),
+            Reduce::Max,
+        );
+        p.series_path(&pts, OVERLAY, 1)?;
+    }
 
     // Ticks from the frame's bottom edge down, labels in their rows under them.
     for (m, at) in marks.iter().zip(&placed) {
@@ -234,6 +277,9 @@ const MARK_ROWS: usize = 2;
 
 /// Colour of the harmonics' marks: the Okabe-Ito orange darkened so small digits read on white.
 const HARMONIC: RGBColor = RGBColor(0xB0, 0x70, 0x00);
+
+/// Colour of an overlaid second trace: the Okabe-Ito vermillion, against the first trace's blue.
+const OVERLAY: RGBColor = palette::VERMILLION;
 
 /// Background of the strip of figures.
 const STRIP: RGBColor = RGBColor(0xF2, 0xF2, 0xF2);

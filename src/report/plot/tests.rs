@@ -158,6 +158,7 @@ fn spectrum(levels: &[f64], log: bool) -> Plot<'_> {
         band_hz: Some(2000.0),
         notes: vec!["SINAD 72.1 dB".to_string(), "ENOB 11.7 bit".to_string()],
         log_frequency: log,
+        overlay: None,
     })
 }
 
@@ -444,6 +445,7 @@ fn crowded_spectrum_marks_never_overlap_and_the_strip_wraps() {
         band_hz: Some(1500.0),
         notes,
         log_frequency: false,
+        overlay: None,
     });
     for (w, h) in [(1200, 750), (600, 400)] {
         let (_, summary) = render_png(&plot, w, h).unwrap();

@@ -292,6 +292,7 @@ pub const METRIC_COLUMNS: &[&str] = &[
     "output.bits_flipped",
     "latency.measured_s",
     "latency.budget_s",
+    "latency.packets_lost",
     "output.phase_deg",
 ];
 
@@ -336,6 +337,7 @@ pub fn metric_values(m: &ChainMetrics) -> Vec<Option<f64>> {
         Some(o.bits_flipped as f64),
         Some(m.latency.measured_s),
         Some(m.latency.budget_s),
+        Some(m.latency.packets_lost as f64),
         phase_deg(m),
     ]);
     v
