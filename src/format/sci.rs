@@ -97,7 +97,7 @@ fn fast(v: f64) -> Option<(bool, u64, i32)> {
             continue;
         }
         // Too close to a power of ten to be sure which side it is on.
-        if scaled < 1e9 + GUARD || scaled > 1e10 - GUARD {
+        if !(1e9 + GUARD..=1e10 - GUARD).contains(&scaled) {
             return None;
         }
         let floor = scaled.floor();
