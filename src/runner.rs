@@ -484,8 +484,21 @@ pub fn latency_slip(sc: &Scenario, report: &Report) -> Option<crate::scenario::S
         })
         .min_by(|a, b| a.1.total_cmp(&b.1));
     let si = |v: f64| crate::format::units::format_si(v, "s");
-    let (key, suggestion) = match slowest {
-        Some((n, sr)) => (
+    let dac_index = sc
+        .stages
+        .iter()
+        .position(|st| st.kind.role() == crate::stages::kind::Role::Reconstructor);
+    let slipped = l.slips.filter(|n| *n > 0).zip(dac_index);
+    let (key, suggestion) = match (slipped, slowest) {
+        (Some((n, i)), _) => (
+            format!("stage.{}.clock_ppm", i + 1),
+            format!(
+                "the DAC runs on another clock than the ADC and its FIFO slipped {n} times: the delay drifts as \
+                 the FIFO empties or fills, and the budget states only its start; give both converters the same \
+                 clock_ppm, or put a resample with mode = \"async\" before the DAC"
+            ),
+        ),
+        (None, Some((n, sr))) => (
             format!("stage.{n}.slew_rate"),
             format!(
                 "check this slew rate ({}) first: a stage that slews delays the signal by more than its \
@@ -493,14 +506,20 @@ pub fn latency_slip(sc: &Scenario, report: &Report) -> Option<crate::scenario::S
                 crate::format::units::format_si(sr, "V/s")
             ),
         ),
-        None => (
+        (None, None) => (
             "stage.1".to_string(),
             "check the stages' bandwidths, cutoffs and rails: one of them delays or reshapes the signal more \
              than its budget states"
                 .to_string(),
         ),
     };
-    let location = crate::scenario::Slip::location_of(sc, &key);
+    // Where the key is written, else where its stage is.
+    let mut location = crate::scenario::Slip::location_of(sc, &key);
+    if location.is_empty()
+        && let Some((stage, _)) = key.rsplit_once('.')
+    {
+        location = crate::scenario::Slip::location_of(sc, stage);
+    }
     Some(crate::scenario::Slip {
         location,
         key,

@@ -150,8 +150,11 @@ fn a_dithered_16_bit_converter_gives_the_figures_of_its_dither_noise() {
     assert_eq!(points.len(), 12);
     // The phase of the output is that of a pure delay, -360 f tau: the conversion time and half an update
     // period (the hold's delay, Oppenheim and Schafer as above), to within half a step of the 480 kHz grid the
-    // DAC's updates are rendered on; the same delay at every tone (to 0.01 degree: the fits of tones 36 dB
-    // above the noise).
+    // DAC's updates are rendered on; the same delay at every tone (to 0.03 degree: 0.01 for the fits of tones
+    // 36 dB above the noise, and 0.02 for the grid: each hold is rendered as its average over the grid cells
+    // (src/stages/dac.rs), which keeps each update's instant exactly but weighs a hold's two end cells by the
+    // fractions it covers (0.2 and 0.8 here), a kernel that is not quite symmetric; its phase departs from a pure
+    // delay by 0.016 degree at 20 kHz on this 480 kHz grid, 2 ns, a thousandth of a grid step).
     let tau = 10e-6 + 0.5 / fs_hz;
     let grid_s = 1.0 / 480e3;
     let delays: Vec<f64> = points
@@ -162,7 +165,7 @@ fn a_dithered_16_bit_converter_gives_the_figures_of_its_dither_noise() {
     for (p, t) in points.iter().zip(&delays) {
         assert!((t - tau).abs() < 0.5 * grid_s, "{t} vs {tau}");
         let f = p["frequency_hz"].as_f64().unwrap();
-        assert!((360.0 * f * (t - reference)).abs() < 0.01, "{p} {delays:?}");
+        assert!((360.0 * f * (t - reference)).abs() < 0.03, "{p} {delays:?}");
     }
 }
 

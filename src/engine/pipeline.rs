@@ -14,6 +14,7 @@
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 
+use crate::engine::clock::{FifoCrossing, SlipRecord};
 use crate::engine::decimate::Decimator;
 use crate::engine::plan::{BLOCK, Plan};
 use crate::engine::probe::{ExactProbe, GridHistory};
@@ -90,6 +91,8 @@ pub struct RunOutput {
     /// The last stretch of a noise-shaping loop's output: (clock, levels at full scale +-1).
     pub modulator_stream: Option<(f64, Vec<f64>)>,
     pub bits_flipped: u64,
+    /// What the FIFO between the codes' clock and the DAC's own clock recorded (`None` on a shared clock).
+    pub slips: Option<SlipRecord>,
     /// Packets lost by the chain's networks, and the instants they should have played (the first
     /// [`LOSS_TIMES_MAX`](crate::stages::network::LOSS_TIMES_MAX), in time order).
     pub packets_lost: u64,
@@ -124,6 +127,7 @@ impl RunOutput {
             modulator_overloads: self.modulator_overloads,
             dac_modulator_overloads: self.dac_modulator_overloads,
             bits_flipped: self.bits_flipped,
+            slips: self.slips.as_ref(),
             packets_lost: self.packets_lost,
             packet_loss_times_s: &self.packet_loss_times_s,
             out_rate_hz: self.plan.out_rate_hz,
@@ -161,6 +165,8 @@ pub struct Converter {
     pub code: Vec<Box<dyn CodeStage>>,
     pub reconstructor_label: String,
     pub reconstructor: Box<dyn Reconstructor>,
+    /// The FIFO the DAC reads through when the codes come paced by another clock.
+    pub crossing: Option<FifoCrossing>,
 }
 
 /// A ChaCha stream of its own for each stage, derived from the base seed and the stage's index.
@@ -220,6 +226,11 @@ impl Chain {
                 Runtime::Quantizer(q) => quantizer = Some((stage.label.clone(), q)),
                 Runtime::Code(c) => code.push(c),
                 Runtime::Reconstructor(r) => {
+                    let crossing = r.fifo().map(FifoCrossing::new);
+                    let dac_ppm = r.clock_ppm();
+                    for s in code.iter_mut() {
+                        s.lock_output_clock(dac_ppm);
+                    }
                     let (quantizer_label, quantizer) = quantizer.take().ok_or_else(|| {
                         Error::BadInput(format!(
                             "{}: {} needs an ADC before it",
@@ -232,6 +243,7 @@ impl Chain {
                         code: std::mem::take(&mut code),
                         reconstructor_label: stage.label.clone(),
                         reconstructor: r,
+                        crossing,
                     });
                 }
             }
@@ -269,10 +281,21 @@ impl Chain {
             });
         }
         if let Some(c) = &self.converter {
-            let fs = c.quantizer.sample_rate_hz();
+            let mut fs = c.quantizer.sample_rate_hz();
             lines.extend(c.quantizer.budget_at(f_hz.unwrap_or(broadband_hz)));
             for stage in &c.code {
                 lines.extend(stage.budget(fs));
+                fs = stage.output_rate_hz(fs);
+            }
+            if let Some(f) = c.reconstructor.fifo() {
+                lines.push(BudgetLine {
+                    stage: format!(
+                        "{}: FIFO from the codes' clock to its own (starts at {} of {})",
+                        c.reconstructor_label, f.start, f.depth
+                    ),
+                    seconds: f.delay_s(fs),
+                });
+                fs = f.tick_rate_hz;
             }
             lines.extend(c.reconstructor.budget(fs, f_hz.unwrap_or(broadband_hz)));
         }
@@ -505,6 +528,13 @@ fn run_with(
                         }
                         std::mem::swap(&mut link_buf_a, &mut link_buf_b);
                     }
+                    if let Some(x) = conv.crossing.as_mut() {
+                        link_buf_b.clear();
+                        for e in link_buf_a.drain(..) {
+                            x.push(e, &mut link_buf_b);
+                        }
+                        std::mem::swap(&mut link_buf_a, &mut link_buf_b);
+                    }
                     capture_dac_events
                         .extend(link_buf_a.iter().filter(|e| e.t_avail_s >= capture_t0_s));
                     dac_pending.append(&mut link_buf_a);
@@ -695,6 +725,11 @@ fn run_with(
         plan.frequency_hz,
         plan.out_band_hz.min(tb.rate_hz / 4.0) / 10.0,
     );
+    let slips = chain
+        .converter
+        .as_ref()
+        .and_then(|c| c.crossing.as_ref())
+        .map(|x| x.record().clone());
     let pre_gain = plan
         .frequency_hz
         .map(|f| {
@@ -719,6 +754,7 @@ fn run_with(
         dac_modulator_overloads,
         modulator_stream,
         bits_flipped,
+        slips,
         packets_lost,
         packet_loss_times_s,
         budget,

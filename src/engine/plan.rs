@@ -164,6 +164,16 @@ impl Plan {
         let window_s = sim.duration_s - sim.settle_s;
 
         let adc_cfg = sc.stages.iter().find_map(|s| s.kind.quantizer_timing());
+        // The rate the DAC updates at: the quantizer's, or the last `resample`'s (nominal).
+        let resampled_hz = {
+            let mut up = crate::stages::kind::Upstream::default();
+            let mut resampled = false;
+            for s in &sc.stages {
+                s.kind.pass_on(&mut up);
+                resampled |= s.kind.kind_name() == "resample";
+            }
+            if resampled { up.sample_rate_hz } else { None }
+        };
         // Time from a sample to its arrival at the DAC, plus one sample period: the output record must not start
         // before the first recorded code has reached the output.
         let mut transport_s = 0.0;
@@ -277,7 +287,13 @@ impl Plan {
         let out_wide_band_hz = PASSBAND_FRACTION * out_rate_hz;
         let (asked_band_hz, rule) = match (band, &adc) {
             (Some(b), _) => (b, BandRule::Written),
-            (None, Some(a)) => (a.sample_rate_hz / 2.0, BandRule::ConverterNyquist),
+            (None, Some(a)) => (
+                resampled_hz
+                    .unwrap_or(a.sample_rate_hz)
+                    .min(a.sample_rate_hz)
+                    / 2.0,
+                BandRule::ConverterNyquist,
+            ),
             (None, None) => (f64::INFINITY, BandRule::RecordPassband),
         };
         let (out_band_hz, out_band_rule) = if asked_band_hz <= out_wide_band_hz {

@@ -3,4 +3,5 @@
 //! Stage kinds read their own tables with these; [`crate::scenario`] assembles the whole file.
 
 pub mod reader;
+pub mod sci;
 pub mod units;

@@ -27,6 +27,8 @@ pub struct RunRecords<'a> {
     /// Overloads of the DAC's noise-shaping loop (`None` without one).
     pub dac_modulator_overloads: Option<u64>,
     pub bits_flipped: u64,
+    /// The clock-crossing FIFO's record, when the DAC reads through one.
+    pub slips: Option<&'a crate::engine::clock::SlipRecord>,
     /// Packets lost by networks, and the instants they should have played (s).
     pub packets_lost: u64,
     pub packet_loss_times_s: &'a [f64],
@@ -148,6 +150,13 @@ pub struct LatencyMetrics {
     pub difference_s: f64,
     /// True when the difference is large (more than 5 % of the budget and more than a tenth of a sample period).
     pub flagged: bool,
+    /// Slips of the FIFO between the codes' clock and the DAC's own (repeated plus dropped codes), when the DAC
+    /// reads through one ([`crate::engine::clock`]).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub slips: Option<u64>,
+    /// Their instants (s), the first [`crate::engine::clock::SLIP_TIMES_MAX`].
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub slip_times_s: Option<Vec<f64>>,
     /// Packets lost by the chain's networks (arrived after their playout instant; concealed).
     pub packets_lost: u64,
     /// The instants the lost packets should have started playing (run time, s; the first
@@ -455,6 +464,8 @@ pub fn measure_run(run: &RunRecords<'_>) -> Result<ChainMetrics> {
             budget,
             difference_s,
             flagged,
+            slips: run.slips.map(|s| s.slips),
+            slip_times_s: run.slips.map(|s| s.slip_times_s.clone()),
             packets_lost: run.packets_lost,
             packet_loss_times_s: run.packet_loss_times_s.to_vec(),
             over_time: None,

@@ -17,7 +17,7 @@ pub struct CsvSink {
     path: PathBuf,
     out: BufWriter<File>,
     every: u64,
-    line: String,
+    line: Vec<u8>,
 }
 
 /// Header-safe name for a stream label: `stage.4 dac` -> `stage4_dac`.
@@ -55,7 +55,7 @@ impl CsvSink {
             path,
             out: BufWriter::with_capacity(1 << 20, f),
             every,
-            line: String::with_capacity(256),
+            line: Vec::with_capacity(256),
         }
     }
 
@@ -98,21 +98,23 @@ impl WaveformSink for CsvSink {
         analog: &[&[f64]],
         codes: &[&[u32]],
     ) -> Result<()> {
-        use std::fmt::Write as _;
+        use crate::format::sci::{push_e9, push_u32};
         let len = analog.first().map(|c| c.len()).unwrap_or(0);
         let first = (self.every - n0 % self.every) % self.every;
         let mut j = first as usize;
         while j < len {
             self.line.clear();
-            let _ = write!(self.line, "{:.9e}", timebase.time_s(n0 + j as u64));
+            push_e9(&mut self.line, timebase.time_s(n0 + j as u64));
             for col in analog {
-                let _ = write!(self.line, ",{:.9e}", col[j]);
+                self.line.push(b',');
+                push_e9(&mut self.line, col[j]);
             }
             for col in codes {
-                let _ = write!(self.line, ",{}", col[j]);
+                self.line.push(b',');
+                push_u32(&mut self.line, col[j]);
             }
-            self.line.push('\n');
-            if let Err(e) = self.out.write_all(self.line.as_bytes()) {
+            self.line.push(b'\n');
+            if let Err(e) = self.out.write_all(&self.line) {
                 return Err(self.io(e));
             }
             j += self.every as usize;

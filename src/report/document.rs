@@ -206,6 +206,9 @@ pub fn run_facts(r: &Report) -> Vec<String> {
     if r.output.bits_flipped > 0 {
         f.push(format!("Link: {} bits flipped.", r.output.bits_flipped));
     }
+    if let Some(line) = crate::report::table::slip_line(&r.latency) {
+        f.push(format!("C{}.", &line[1..]));
+    }
     if r.latency.packets_lost > 0 {
         let line = crate::report::table::packets_lost_line(&r.latency);
         let mut chars = line.chars();

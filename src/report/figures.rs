@@ -251,6 +251,13 @@ pub fn run_figures(
         figs.push(modulator_figure(name, *clock_hz, levels, run)?);
     }
 
+    // ---- the FIFO between clocks
+    if let Some(rec) = &run.slips
+        && !rec.fill.is_empty()
+    {
+        figs.push(fifo_figure(name, rec)?);
+    }
+
     // ---- latency budget
     let lines: Vec<(String, f64)> = m
         .latency
@@ -438,6 +445,37 @@ pub fn path_figures(paths: &[PathShown<'_>], window_s: Option<(f64, f64)>) -> Re
         figs.push(f);
     }
     Ok(figs)
+}
+
+/// The fill of the FIFO between the codes' clock and the DAC's own over the run: its lowest and highest fill
+/// over each stretch of ticks, with the first slips marked.
+fn fifo_figure(name: &str, rec: &crate::engine::clock::SlipRecord) -> Result<Figure> {
+    let t: Vec<f64> = rec.fill.iter().map(|p| p.0).collect();
+    let lo: Vec<f64> = rec.fill.iter().map(|p| f64::from(p.1)).collect();
+    let hi: Vec<f64> = rec.fill.iter().map(|p| f64::from(p.2)).collect();
+    let markers = rec
+        .slip_times_s
+        .iter()
+        .take(12)
+        .map(|&s| (s, "slip".to_string()))
+        .collect();
+    figure(
+        "fifo_fill",
+        format!(
+            "Fill of the DAC's FIFO (depth {}) over the run, lowest and highest over each stretch of ticks: it \
+             drifts as the two clocks differ; a slip repeats a code when it runs empty or drops one when it is \
+             full ({} slips; the first marked)",
+            rec.depth, rec.slips
+        ),
+        &Plot::Xy(XyPlot {
+            title: format!("{name}: FIFO fill between clocks"),
+            x_label: "time (s)".to_string(),
+            y_label: "codes in the FIFO".to_string(),
+            series: vec![("lowest", &t, &lo), ("highest", &t, &hi)],
+            log_x: false,
+            markers,
+        }),
+    )
 }
 
 /// The spectrum of a noise-shaping loop's output levels (full scale +-1) at its clock, on a logarithmic frequency

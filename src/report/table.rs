@@ -185,6 +185,9 @@ pub fn summary(r: &Report) -> String {
     if o.bits_flipped > 0 {
         let _ = writeln!(s, "  link: {} bits flipped", o.bits_flipped);
     }
+    if let Some(line) = slip_line(&r.latency) {
+        let _ = writeln!(s, "  {line}");
+    }
     if r.latency.packets_lost > 0 {
         let _ = writeln!(s, "  {}", packets_lost_line(&r.latency));
     }
@@ -321,6 +324,29 @@ fn paths_table(s: &mut String, r: &Report) {
             );
         }
     }
+}
+
+/// The line on the FIFO between clocks, when the DAC reads through one: "clock crossing: 44 slips (first at
+/// 1.234 s, last at 9.876 s)".
+pub fn slip_line(l: &crate::measure::chain::LatencyMetrics) -> Option<String> {
+    let n = l.slips?;
+    let times = l.slip_times_s.as_deref().unwrap_or(&[]);
+    let when = match (times.first(), times.last()) {
+        (Some(a), _) if n > times.len() as u64 => format!(
+            " (first at {}; the first {} listed in report.json)",
+            si(*a, "s"),
+            times.len()
+        ),
+        (Some(a), Some(b)) if n > 1 => {
+            format!(" (first at {}, last at {})", si(*a, "s"), si(*b, "s"))
+        }
+        (Some(a), _) => format!(" (at {})", si(*a, "s")),
+        _ => String::new(),
+    };
+    Some(format!(
+        "clock crossing: {n} slip{} of one sample{when}",
+        if n == 1 { "" } else { "s" }
+    ))
 }
 
 /// The summary printed by `convchain static`.

@@ -13,6 +13,7 @@ use rand_distr::{Distribution, StandardNormal};
 use serde::Serialize;
 
 use crate::signal::stream::{CodeEvent, Timebase};
+use crate::engine::clock::{DAC_CLOCK_PARAMS, DacClockCfg, FifoTiming, read_dac_clock};
 use crate::error::Result;
 use crate::format::reader::{ScenarioError, TableReader};
 use crate::format::units::Dimension;
@@ -62,6 +63,9 @@ pub struct DacCfg {
     /// Rms of the reference's noise (V), drawn once per code update: the span (the reference) becomes
     /// span + e, scaling the code's level above the range's low end by (1 + e / span). 0 = a quiet reference.
     pub reference_noise_v: f64,
+    /// The DAC's clock and the FIFO it reads codes through when they come from another clock.
+    #[serde(flatten)]
+    pub clock: DacClockCfg,
 }
 
 impl KindSpec for DacCfg {
@@ -89,6 +93,9 @@ settling = "1 us""#;
             OUTPUT_AMP_PARAMS[1],
             OUTPUT_AMP_PARAMS[2],
             OUTPUT_AMP_PARAMS[3],
+            DAC_CLOCK_PARAMS[0],
+            DAC_CLOCK_PARAMS[1],
+            DAC_CLOCK_PARAMS[2],
         ]
     };
 
@@ -107,6 +114,13 @@ settling = "1 us""#;
         if !self.range_given {
             self.range_v = up.quantizer_range_v.unwrap_or((0.0, 0.0));
         }
+        self.clock.resolve(up);
+    }
+
+    fn echo(&self) -> serde_json::Value {
+        let mut v = serde_json::to_value(self).unwrap_or(serde_json::Value::Null);
+        self.clock.echo_into(&mut v);
+        v
     }
 
     fn ablations(&self) -> Vec<Ablation> {
@@ -213,6 +227,7 @@ fn read_dac(r: &mut TableReader<'_, '_>) -> std::result::Result<DacCfg, Scenario
         gain_error,
         output,
         reference_noise_v: r.non_negative("reference_noise", D::Voltage)?,
+        clock: read_dac_clock(r)?,
     })
 }
 
@@ -241,6 +256,12 @@ impl Reconstructor for LabelledDac {
     }
     fn range_v(&self) -> (f64, f64) {
         self.cfg.range_v
+    }
+    fn fifo(&self) -> Option<FifoTiming> {
+        self.cfg.clock.fifo_timing()
+    }
+    fn clock_ppm(&self) -> f64 {
+        self.cfg.clock.clock_ppm
     }
     /// Half an update period for the zero-order hold, and the output amplifier's lag at `f_hz`.
     fn budget(&self, update_rate_hz: f64, f_hz: f64) -> Vec<BudgetLine> {
@@ -475,6 +496,9 @@ impl Dac {
         events: &[CodeEvent],
         out: &mut [f64],
     ) -> usize {
+        if self.amp.is_instant() {
+            return self.render_cells(timebase, n0, events, out);
+        }
         let mut i = 0;
         // An event within a millionth of a grid step after a grid instant is taken as at that instant: event
         // times are sums of floating-point terms, and a rounding error must not move a step by a whole grid step.
@@ -529,6 +553,54 @@ impl Dac {
                 j = end;
             }
         }
+        i
+    }
+
+    /// [`Dac::render`] without output dynamics: grid sample n holds the average of the zero-order hold over its
+    /// cell `[t_n - dt/2, t_n + dt/2)`, so a step at any instant t_e inside a cell shows as the fraction of the
+    /// cell after it. That is the hold convolved with a centred box one grid step wide: no delay, a droop of
+    /// sinc(f dt) (0.2 dB at a tenth of the grid rate), and the first moment of every step (where the
+    /// cross-correlation and the phase see it) exactly at t_e, whatever the grid rate; sampling the hold at the
+    /// grid instants instead moves each step to the next grid instant, an error of up to a grid step. Events
+    /// before the first cell's start take effect at its start. Consumes the events before the last cell's end.
+    fn render_cells(
+        &mut self,
+        timebase: Timebase,
+        n0: u64,
+        events: &[CodeEvent],
+        out: &mut [f64],
+    ) -> usize {
+        let dt = timebase.dt_s();
+        let mut i = 0;
+        let mut level = self.amp.clamp_v(self.target_v);
+        for (j, y) in out.iter_mut().enumerate() {
+            let t_n = timebase.time_s(n0 + j as u64);
+            let lo = t_n - 0.5 * dt;
+            let hi = t_n + 0.5 * dt;
+            // y = final level - sum over the steps of (step size) x (time from the cell's start to the step) / dt.
+            let mut early = 0.0;
+            while let Some(ev) = events.get(i) {
+                if ev.t_avail_s >= hi {
+                    break;
+                }
+                self.target_v = self.level_v(ev.code);
+                if let Some((rel, rng)) = &mut self.reference {
+                    let z: f64 = StandardNormal.sample(rng);
+                    self.target_v = self.low_v + (self.target_v - self.low_v) * (1.0 + *rel * z);
+                }
+                let next = self.amp.clamp_v(self.target_v);
+                early += (next - level) * (ev.t_avail_s - lo).max(0.0);
+                level = next;
+                i += 1;
+            }
+            *y = if early == 0.0 {
+                level
+            } else {
+                level - early / dt
+            };
+        }
+        self.amp.set_value_v(level);
+        self.t_cur_s = timebase.time_s(n0 + out.len() as u64) - 0.5 * dt;
         i
     }
 
@@ -624,6 +696,7 @@ mod tests {
             gain_error: 0.0,
             output: OutputAmpCfg::default(),
             reference_noise_v: 0.0,
+            clock: DacClockCfg::default(),
         }
     }
 
@@ -837,9 +910,10 @@ mod tests {
     }
 
     #[test]
-    fn a_code_due_at_a_grid_instant_is_not_pushed_a_step_late_by_rounding() {
+    fn a_code_due_at_a_grid_instant_fills_half_its_cell_and_an_ulp_later_changes_nothing() {
         // Availability times are sums like k/fs + t_conv; one ulp past the grid instant must not delay the step
-        // by a whole grid step (that would act like sampling jitter of one grid step on the output).
+        // by a whole grid step (that would act like sampling jitter of one grid step on the output). With the
+        // cell average, a step at the grid instant fills the second half of its cell.
         let tb = Timebase::new(4.8e6);
         let mut dac = Dac::new(
             &cfg(8, Ladder::Ideal, 0.0, ToleranceDistribution::Uniform),
@@ -852,10 +926,36 @@ mod tests {
             code: 200,
         };
         assert!(ev.t_avail_s > t);
-        let mut out = vec![0.0; 101];
+        let mut out = vec![0.0; 102];
         dac.render(tb, 0, &[ev], &mut out);
-        assert_eq!(out[100], dac.level_v(200));
+        let half = 0.5 * (dac.level_v(200) + dac.level_v(0));
+        assert!((out[100] - half).abs() < 1e-9, "{} vs {half}", out[100]);
+        assert_eq!(out[101], dac.level_v(200));
         assert_eq!(out[99], dac.level_v(0));
+    }
+
+    #[test]
+    fn each_step_keeps_its_exact_instant_at_any_grid_rate() {
+        // By construction: the cell averages of a unit step at t_e hold the step's area exactly, so the area
+        // under (1 - y) from the first cell's start is t_e - (t_0 - dt/2), wherever t_e falls in its cell.
+        for (rate, t_e) in [(1e6, 10.37e-6), (2e6, 10.37e-6), (3.3e6, 7.0123e-6), (1e6, 12e-6)] {
+            let tb = Timebase::new(rate);
+            let mut c = cfg(8, Ladder::Ideal, 0.0, ToleranceDistribution::Uniform);
+            c.range_v = (0.0, 256.0);
+            let mut dac = Dac::new(&c, &mut rng(1));
+            let ev = CodeEvent {
+                t_sample_s: 0.0,
+                t_avail_s: t_e,
+                code: 1,
+            };
+            let mut out = vec![0.0; 64];
+            dac.render(tb, 0, &[ev], &mut out);
+            let area: f64 = out.iter().map(|y| (1.0 - y) * tb.dt_s()).sum();
+            assert!(
+                (area - (t_e + 0.5 * tb.dt_s())).abs() < 1e-9 * tb.dt_s(),
+                "{rate}: {area}"
+            );
+        }
     }
 
     #[test]
@@ -871,10 +971,11 @@ mod tests {
         let code = 3500;
         let d = dac.level_v(code) - c.range_v.0;
         let n = 20_000;
+        // One update at the start of each grid cell, so each cell holds one draw.
         let evs: Vec<CodeEvent> = (0..n)
             .map(|k| CodeEvent {
                 t_sample_s: 0.0,
-                t_avail_s: tb.time_s(k as u64),
+                t_avail_s: tb.time_s(k as u64) - 0.5 * tb.dt_s(),
                 code,
             })
             .collect();
@@ -892,7 +993,7 @@ mod tests {
     }
 
     #[test]
-    fn zoh_output_without_amplifier_is_the_latest_level_at_every_grid_time() {
+    fn zoh_output_without_amplifier_is_the_hold_averaged_over_each_cell() {
         let rate = 1e6;
         let tb = Timebase::new(rate);
         let mut dac = Dac::new(
@@ -902,18 +1003,28 @@ mod tests {
         let evs = events(rate, 300);
         let mut out = vec![0.0; 1000];
         let used = dac.render(tb, 0, &evs, &mut out);
-        let last_t = tb.time_s(999);
-        assert_eq!(used, evs.iter().filter(|e| e.t_avail_s <= last_t).count());
+        let dt = tb.dt_s();
+        let end = tb.time_s(999) + 0.5 * dt;
+        assert_eq!(used, evs.iter().filter(|e| e.t_avail_s < end).count());
         assert!(used < evs.len());
         let mut on_grid = 0;
         for (n, y) in out.iter().enumerate() {
             let t = tb.time_s(n as u64);
-            // Slow oracle: the latest event available at or before t, else code 0.
-            let code = evs.iter().rfind(|e| e.t_avail_s <= t).map_or(0, |e| e.code);
+            let (lo, hi) = (t - 0.5 * dt, t + 0.5 * dt);
+            // Slow oracle: integrate the staircase over the cell.
+            let mut code = evs.iter().rfind(|e| e.t_avail_s <= lo).map_or(0, |e| e.code);
+            let mut at = lo;
+            let mut area = 0.0;
+            for e in evs.iter().filter(|e| e.t_avail_s > lo && e.t_avail_s < hi) {
+                area += dac.level_v(code) * (e.t_avail_s - at);
+                at = e.t_avail_s;
+                code = e.code;
+            }
+            area += dac.level_v(code) * (hi - at);
             if evs.iter().any(|e| e.t_avail_s == t) {
                 on_grid += 1;
             }
-            assert_eq!(*y, dac.level_v(code), "n={n}");
+            assert!((*y - area / dt).abs() < 1e-9, "n={n}: {y} vs {}", area / dt);
         }
         assert!(on_grid > 10);
     }
@@ -1022,7 +1133,7 @@ mod tests {
                 tau_s: Some(0.3e-6),
                 rails_v: Some((-4.0, 4.5)),
             },
-            // settling only, slew only, neither
+            // settling only, slew only (without either, the cell-average rendering applies: tested above)
             OutputAmpCfg {
                 slew_rate_v_per_s: None,
                 tau_s: Some(2e-6),
@@ -1033,7 +1144,6 @@ mod tests {
                 tau_s: None,
                 rails_v: None,
             },
-            OutputAmpCfg::default(),
         ];
         // Events at irregular instants (some exactly on grid instants, some a rounding error past one), and a
         // sparse set so that runs settle for long stretches.

@@ -70,9 +70,20 @@ pub struct DeltaSigmaAdcCfg {
     /// Rms noise added to the input at each modulator sample (V): the sampling capacitor's kT/C noise and the
     /// loop's own input-referred noise.
     pub input_noise_v: f64,
+    /// Offset of the converter's clock from nominal (ppm; see [`crate::engine::clock`]).
+    #[serde(skip_serializing_if = "crate::engine::clock::is_zero")]
+    pub clock_ppm: f64,
 }
 
 impl DeltaSigmaAdcCfg {
+    /// The timing on the converter's own clock: the sample rate `1 + clock_ppm 1e-6` times its nominal value
+    /// (the same configuration when `clock_ppm` is 0).
+    pub fn clocked(&self) -> DeltaSigmaAdcCfg {
+        DeltaSigmaAdcCfg {
+            sample_rate_hz: self.sample_rate_hz * crate::engine::clock::clock_scale(self.clock_ppm),
+            ..*self
+        }
+    }
     pub fn lsb_v(&self) -> f64 {
         (self.range_v.1 - self.range_v.0) / f64::powi(2.0, self.bits as i32)
     }
@@ -397,6 +408,7 @@ input_noise = "20 uV""#;
             Param::fixed("attenuation", ParamKind::Quantity(D::Decibels)),
             Param::fixed("cic_order", ParamKind::Integer),
             Param::spread("input_noise", D::Voltage),
+            Param::fixed("clock_ppm", ParamKind::Number),
         ]
     };
 
@@ -446,6 +458,7 @@ input_noise = "20 uV""#;
             sample_rate_hz,
             shaping: sh,
             input_noise_v: r.non_negative("input_noise", D::Voltage)?,
+            clock_ppm: crate::engine::clock::read_clock_ppm(r)?,
         };
         Ok(cfg)
     }
@@ -454,6 +467,7 @@ input_noise = "20 uV""#;
         up.width_bits = self.bits;
         up.quantizer_range_v = Some(self.range_v);
         up.sample_rate_hz = Some(self.sample_rate_hz);
+        up.clock_ppm = self.clock_ppm;
     }
 
     fn ablations(&self) -> Vec<Ablation> {
@@ -495,9 +509,10 @@ input_noise = "20 uV""#;
     }
 
     fn quantizer_timing(&self) -> Option<QuantizerTiming> {
+        let c = self.clocked();
         Some(QuantizerTiming {
-            sample_rate_hz: self.sample_rate_hz,
-            conversion_time_s: 1.0 / self.modulator_clock_hz(),
+            sample_rate_hz: c.sample_rate_hz,
+            conversion_time_s: 1.0 / c.modulator_clock_hz(),
             bits: self.bits,
             range_v: self.range_v,
         })
@@ -534,7 +549,7 @@ input_noise = "20 uV""#;
         };
         let d = self.design();
         Ok(Runtime::Quantizer(Box::new(DeltaSigmaQuantizer {
-            cfg: *self,
+            cfg: self.clocked(),
             modulator: Modulator::new(&d.ntf, self.levels()),
             cic: CicDecimator::new(self.shaping.cic_order as usize, d.cic_factor),
             fir: FirDecimator::new(&d.fir.taps, d.fir_factor),
@@ -755,6 +770,7 @@ mod tests {
                 cic_order: 5,
             },
             input_noise_v: 0.0,
+            clock_ppm: 0.0,
         }
     }
 

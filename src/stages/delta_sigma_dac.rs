@@ -28,6 +28,7 @@ use std::sync::Arc;
 use rand_distr::{Distribution, StandardNormal};
 use serde::Serialize;
 
+use crate::engine::clock::{DAC_CLOCK_PARAMS, DacClockCfg, FifoTiming, clock_scale, read_dac_clock};
 use crate::error::{Error, Result};
 use crate::format::reader::{ScenarioError, TableReader};
 use crate::format::units::{Dimension, format_si};
@@ -65,6 +66,9 @@ pub struct DeltaSigmaDacCfg {
     /// Relative sigma of each unit element.
     pub element_mismatch: f64,
     pub element_selection: Selection,
+    /// The DAC's clock and the FIFO it reads words through when they come from another clock.
+    #[serde(flatten)]
+    pub clock: DacClockCfg,
 }
 
 impl DeltaSigmaDacCfg {
@@ -99,6 +103,9 @@ element_selection = "dwa""#;
             Param::fixed("cic_order", ParamKind::Integer),
             Param::spread("element_mismatch", D::Ratio),
             Param::fixed("element_selection", ParamKind::Choice(&["fixed", "dwa"])),
+            DAC_CLOCK_PARAMS[0],
+            DAC_CLOCK_PARAMS[1],
+            DAC_CLOCK_PARAMS[2],
         ]
     };
 
@@ -144,6 +151,7 @@ element_selection = "dwa""#;
             shaping,
             element_mismatch,
             element_selection,
+            clock: read_dac_clock(r)?,
         })
     }
 
@@ -154,6 +162,7 @@ element_selection = "dwa""#;
         if !self.range_given {
             self.range_v = up.quantizer_range_v.unwrap_or((0.0, 0.0));
         }
+        self.clock.resolve(up);
     }
 
     fn ablations(&self) -> Vec<Ablation> {
@@ -194,6 +203,7 @@ element_selection = "dwa""#;
             "attenuation_db": d.fir.atten_db,
         });
         v["interpolation"]["delay_linear_phase_words"] = serde_json::json!(d.linear_delay_out);
+        self.clock.echo_into(&mut v);
         v
     }
 
@@ -204,12 +214,19 @@ element_selection = "dwa""#;
                 ctx.label
             ))
         })?;
+        // The word clock runs on the DAC's own clock.
+        let fs = fs * clock_scale(self.clock.clock_ppm);
         let f_mod = fs * f64::from(self.shaping.oversampling);
         if let Some(tb) = ctx.timebase
             && tb.rate_hz < f_mod * (1.0 - 1e-9)
         {
+            let on_clock = if self.clock.clock_ppm != 0.0 {
+                format!(", on its clock_ppm = {}", self.clock.clock_ppm)
+            } else {
+                String::new()
+            };
             return Err(Error::BadInput(format!(
-                "{}: simulation.analog_rate ({}) must be at least the modulator clock ({} = {} x {}); raise analog_rate or lower oversampling",
+                "{}: simulation.analog_rate ({}) must be at least the modulator clock ({} = {} x {}{on_clock}); raise analog_rate or lower oversampling",
                 ctx.label,
                 format_si(tb.rate_hz, "Hz"),
                 format_si(f_mod, "Hz"),
@@ -438,6 +455,12 @@ impl Reconstructor for DeltaSigmaDac {
     fn range_v(&self) -> (f64, f64) {
         self.cfg.range_v
     }
+    fn fifo(&self) -> Option<FifoTiming> {
+        self.cfg.clock.fifo_timing()
+    }
+    fn clock_ppm(&self) -> f64 {
+        self.cfg.clock.clock_ppm
+    }
     fn overloads(&self) -> Option<u64> {
         Some(self.modulator.overloads())
     }
@@ -509,6 +532,7 @@ mod tests {
             },
             element_mismatch: mismatch,
             element_selection: sel,
+            clock: DacClockCfg::default(),
         }
     }
 

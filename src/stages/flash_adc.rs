@@ -43,9 +43,20 @@ pub struct FlashAdcCfg {
     pub comparator_noise_v: f64,
     /// Relative sigma of each ladder resistor.
     pub ladder_tolerance: f64,
+    /// Offset of the converter's clock from nominal (ppm; see [`crate::engine::clock`]).
+    #[serde(skip_serializing_if = "crate::engine::clock::is_zero")]
+    pub clock_ppm: f64,
 }
 
 impl FlashAdcCfg {
+    /// The timing on the converter's own clock: the sample rate `1 + clock_ppm 1e-6` times its nominal value
+    /// (the same configuration when `clock_ppm` is 0).
+    pub fn clocked(&self) -> FlashAdcCfg {
+        FlashAdcCfg {
+            sample_rate_hz: self.sample_rate_hz * crate::engine::clock::clock_scale(self.clock_ppm),
+            ..*self
+        }
+    }
     pub fn lsb_v(&self) -> f64 {
         (self.range_v.1 - self.range_v.0) / f64::powi(2.0, self.bits as i32)
     }
@@ -73,6 +84,7 @@ comparator_offset = "2 mV""#;
             Param::spread("comparator_offset", D::Voltage),
             Param::spread("comparator_noise", D::Voltage),
             Param::spread("ladder_tolerance", D::Ratio),
+            Param::fixed("clock_ppm", ParamKind::Number),
         ]
     };
 
@@ -107,6 +119,7 @@ comparator_offset = "2 mV""#;
             comparator_offset_v: r.non_negative("comparator_offset", D::Voltage)?,
             comparator_noise_v: r.non_negative("comparator_noise", D::Voltage)?,
             ladder_tolerance: r.non_negative("ladder_tolerance", D::Ratio)?,
+            clock_ppm: crate::engine::clock::read_clock_ppm(r)?,
         })
     }
 
@@ -114,6 +127,7 @@ comparator_offset = "2 mV""#;
         up.width_bits = self.bits;
         up.quantizer_range_v = Some(self.range_v);
         up.sample_rate_hz = Some(self.sample_rate_hz);
+        up.clock_ppm = self.clock_ppm;
     }
 
     fn ablations(&self) -> Vec<Ablation> {
@@ -151,9 +165,10 @@ comparator_offset = "2 mV""#;
     }
 
     fn quantizer_timing(&self) -> Option<QuantizerTiming> {
+        let c = self.clocked();
         Some(QuantizerTiming {
-            sample_rate_hz: self.sample_rate_hz,
-            conversion_time_s: self.latency_s(),
+            sample_rate_hz: c.sample_rate_hz,
+            conversion_time_s: c.latency_s(),
             bits: self.bits,
             range_v: self.range_v,
         })
@@ -179,7 +194,7 @@ comparator_offset = "2 mV""#;
         let mut rng = ctx.rng.clone();
         let thresholds_v = thresholds(self, &mut rng);
         Ok(Runtime::Quantizer(Box::new(FlashQuantizer {
-            cfg: *self,
+            cfg: self.clocked(),
             ordered: thresholds_v.is_sorted(),
             thresholds_v,
             rng,
@@ -316,6 +331,7 @@ mod tests {
             comparator_offset_v: 0.0,
             comparator_noise_v: 0.0,
             ladder_tolerance: 0.0,
+            clock_ppm: 0.0,
         }
     }
 

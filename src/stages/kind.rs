@@ -107,8 +107,12 @@ pub struct Upstream {
     pub width_bits: u32,
     /// The quantizer's input range (V).
     pub quantizer_range_v: Option<(f64, f64)>,
-    /// The quantizer's sample rate (Hz).
+    /// The nominal rate of the codes (Hz): the quantizer's, or the last `resample`'s.
     pub sample_rate_hz: Option<f64>,
+    /// Offset (ppm) of the clock that paces the codes (the quantizer's `clock_ppm`).
+    pub clock_ppm: f64,
+    /// The codes are already paced by the DAC's own clock (an asynchronous `resample` produced them).
+    pub clock_follows_dac: bool,
 }
 
 /// A change that removes a non-ideality, relative to the stage's own table.

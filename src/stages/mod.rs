@@ -104,6 +104,7 @@ registry::stage_kinds! {
     pipeline_adc => PipelineAdc(PipelineAdcCfg),
     delta_sigma_adc => DeltaSigmaAdc(DeltaSigmaAdcCfg),
     link => Link(LinkCfg),
+    resample => Resample(ResampleCfg),
     buffer => Buffer(BufferCfg),
     codec => Codec(CodecCfg),
     network => Network(NetworkCfg),

@@ -70,6 +70,9 @@ pub struct PipelineAdcCfg {
     pub stage_gain_error: f64,
     /// Rms noise at each stage's input, per conversion (V).
     pub stage_noise_v: f64,
+    /// Offset of the converter's clock from nominal (ppm; see [`crate::engine::clock`]).
+    #[serde(skip_serializing_if = "crate::engine::clock::is_zero")]
+    pub clock_ppm: f64,
 }
 
 impl PipelineAdcCfg {
@@ -84,6 +87,14 @@ impl PipelineAdcCfg {
     /// Bits of the final flash, B = N - n K.
     pub fn final_bits(&self) -> u32 {
         self.bits - self.stage_resolution() * self.stages()
+    }
+    /// The timing on the converter's own clock: the sample rate `1 + clock_ppm 1e-6` times its nominal value
+    /// (the same configuration when `clock_ppm` is 0).
+    pub fn clocked(&self) -> PipelineAdcCfg {
+        PipelineAdcCfg {
+            sample_rate_hz: self.sample_rate_hz * crate::engine::clock::clock_scale(self.clock_ppm),
+            ..*self
+        }
     }
     pub fn lsb_v(&self) -> f64 {
         (self.range_v.1 - self.range_v.0) / f64::powi(2.0, self.bits as i32)
@@ -119,6 +130,7 @@ stage_gain_error = 0.0002"#;
             Param::spread("comparator_offset", D::Voltage),
             Param::spread("stage_gain_error", D::Ratio),
             Param::spread("stage_noise", D::Voltage),
+            Param::fixed("clock_ppm", ParamKind::Number),
         ]
     };
 
@@ -184,6 +196,7 @@ stage_gain_error = 0.0002"#;
             comparator_offset_v: r.non_negative("comparator_offset", D::Voltage)?,
             stage_gain_error: r.non_negative("stage_gain_error", D::Ratio)?,
             stage_noise_v: r.non_negative("stage_noise", D::Voltage)?,
+            clock_ppm: crate::engine::clock::read_clock_ppm(r)?,
         })
     }
 
@@ -191,6 +204,7 @@ stage_gain_error = 0.0002"#;
         up.width_bits = self.bits;
         up.quantizer_range_v = Some(self.range_v);
         up.sample_rate_hz = Some(self.sample_rate_hz);
+        up.clock_ppm = self.clock_ppm;
     }
 
     fn ablations(&self) -> Vec<Ablation> {
@@ -228,9 +242,10 @@ stage_gain_error = 0.0002"#;
     }
 
     fn quantizer_timing(&self) -> Option<QuantizerTiming> {
+        let c = self.clocked();
         Some(QuantizerTiming {
-            sample_rate_hz: self.sample_rate_hz,
-            conversion_time_s: self.latency_s(),
+            sample_rate_hz: c.sample_rate_hz,
+            conversion_time_s: c.latency_s(),
             bits: self.bits,
             range_v: self.range_v,
         })
@@ -258,7 +273,7 @@ stage_gain_error = 0.0002"#;
         let mut rng = ctx.rng.clone();
         let core = PipelineCore::drawn(self, &mut rng);
         Ok(Runtime::Quantizer(Box::new(PipelineQuantizer {
-            cfg: *self,
+            cfg: self.clocked(),
             core,
             rng,
             hold,
@@ -460,6 +475,7 @@ mod tests {
             comparator_offset_v: 0.0,
             stage_gain_error: 0.0,
             stage_noise_v: 0.0,
+            clock_ppm: 0.0,
         }
     }
 

@@ -92,6 +92,13 @@ pub trait CodeStage: Send {
     }
     /// Budget lines for codes arriving at `sample_rate_hz`.
     fn budget(&self, sample_rate_hz: f64) -> Vec<BudgetLine>;
+    /// The rate of the codes leaving, for codes arriving at `input_rate_hz` (a rate converter changes it).
+    fn output_rate_hz(&self, input_rate_hz: f64) -> f64 {
+        input_rate_hz
+    }
+    /// The DAC after the chain runs on a clock of this offset (ppm): a stage that paces its output by the DAC's
+    /// clock (an asynchronous rate converter) takes it here, before the run.
+    fn lock_output_clock(&mut self, _dac_clock_ppm: f64) {}
 }
 
 /// A DAC: renders codes on the analog grid.
@@ -111,6 +118,15 @@ pub trait Reconstructor: Send {
     fn range_v(&self) -> (f64, f64);
     /// Budget lines for codes updated at `update_rate_hz`, at `f_hz` (phase delays).
     fn budget(&self, update_rate_hz: f64, f_hz: f64) -> Vec<BudgetLine>;
+    /// The FIFO the DAC reads its codes through when they come paced by another clock (`None`: it takes each
+    /// code at its own instant, as on a shared clock).
+    fn fifo(&self) -> Option<crate::engine::clock::FifoTiming> {
+        None
+    }
+    /// Offset of the DAC's clock (ppm).
+    fn clock_ppm(&self) -> f64 {
+        0.0
+    }
     /// Times a noise-shaping loop overloaded (`None` for DACs without one).
     fn overloads(&self) -> Option<u64> {
         None

@@ -111,12 +111,26 @@ pub struct SarAdcCfg {
     /// edits the key that was written.
     #[serde(skip)]
     pub clock_given: bool,
+    /// Offset of the converter's clock from nominal (ppm; see [`crate::engine::clock`]).
+    #[serde(skip_serializing_if = "crate::engine::clock::is_zero")]
+    pub clock_ppm: f64,
 }
 
 impl SarAdcCfg {
     /// The rate at which conversions start.
     pub fn effective_sample_rate_hz(&self) -> f64 {
         self.sample_rate_hz.unwrap_or(1.0 / self.conversion_time_s)
+    }
+    /// The timing on the converter's own clock: every rate `1 + clock_ppm 1e-6` times its nominal value,
+    /// every duration divided by it (the same configuration when `clock_ppm` is 0).
+    pub fn clocked(&self) -> SarAdcCfg {
+        let s = crate::engine::clock::clock_scale(self.clock_ppm);
+        SarAdcCfg {
+            clock_hz: self.clock_hz * s,
+            conversion_time_s: self.conversion_time_s / s,
+            sample_rate_hz: self.sample_rate_hz.map(|f| f * s),
+            ..*self
+        }
     }
     /// One LSB (volts).
     pub fn lsb_v(&self) -> f64 {
@@ -152,6 +166,7 @@ comparator_noise = "0.5 mV""#;
             Param::spread("dither_lsb", D::Ratio),
             Param::fixed("transfer", ParamKind::Choice(&["centred", "truncating"])),
             Param::spread("reference_noise", D::Voltage),
+            Param::fixed("clock_ppm", ParamKind::Number),
         ]
     };
 
@@ -166,6 +181,7 @@ comparator_noise = "0.5 mV""#;
         up.width_bits = self.bits;
         up.quantizer_range_v = Some(self.range_v);
         up.sample_rate_hz = Some(self.effective_sample_rate_hz());
+        up.clock_ppm = self.clock_ppm;
     }
 
     fn ablations(&self) -> Vec<Ablation> {
@@ -221,9 +237,10 @@ comparator_noise = "0.5 mV""#;
     }
 
     fn quantizer_timing(&self) -> Option<QuantizerTiming> {
+        let c = self.clocked();
         Some(QuantizerTiming {
-            sample_rate_hz: self.effective_sample_rate_hz(),
-            conversion_time_s: self.conversion_time_s,
+            sample_rate_hz: c.effective_sample_rate_hz(),
+            conversion_time_s: c.conversion_time_s,
             bits: self.bits,
             range_v: self.range_v,
         })
@@ -248,7 +265,7 @@ comparator_noise = "0.5 mV""#;
             None => Box::new(SampleHold::ideal()),
         };
         Ok(Runtime::Quantizer(Box::new(SarQuantizer {
-            adc: SarAdc::new(self, ctx.rng.clone()),
+            adc: SarAdc::new(&self.clocked(), ctx.rng.clone()),
             hold,
             label: ctx.label.clone(),
         })))
@@ -398,6 +415,7 @@ fn read_sar(r: &mut TableReader<'_, '_>) -> std::result::Result<SarAdcCfg, Scena
         transfer,
         reference_noise_v,
         clock_given: clock.is_some(),
+        clock_ppm: crate::engine::clock::read_clock_ppm(r)?,
     })
 }
 
@@ -762,6 +780,7 @@ mod tests {
             transfer: Transfer::Centred,
             reference_noise_v: 0.0,
             clock_given: true,
+            clock_ppm: 0.0,
         }
     }
 
@@ -872,6 +891,7 @@ mod tests {
             gain_error: 0.0,
             output: OutputAmpCfg::default(),
             reference_noise_v: 0.0,
+            clock: crate::engine::clock::DacClockCfg::default(),
         };
         let dac = Dac::new(&dcfg, &mut ChaCha8Rng::seed_from_u64(0));
         let mut a = adc(&c, 0);

@@ -161,6 +161,16 @@ impl OutputAmp {
         self.v
     }
 
+    /// No slew limit and no time constant: the output follows its target at once (within the rails).
+    pub fn is_instant(&self) -> bool {
+        self.tau_s == 0.0 && self.slew_v_per_s.is_infinite()
+    }
+
+    /// `v` within the rails.
+    pub fn clamp_v(&self, v: f64) -> f64 {
+        v.clamp(self.lo_v, self.hi_v)
+    }
+
     /// Small-signal response of the linear part, `1/(1 + j 2 pi f tau)` (slew and rails ignored).
     pub fn response(&self, f_hz: f64) -> Complex64 {
         Complex64::new(1.0, 0.0)
