@@ -7,9 +7,12 @@ use crate::engine::pipeline;
 use crate::engine::plan::Plan;
 use crate::engine::static_bench::{StaticReport, missing_code_causes, static_tests};
 use crate::error::{Error, Result};
+use crate::measure::chain::ChainMetrics;
 use crate::measure::chain::measure_run;
+use crate::measure::latency::LatencyOverTime;
+use crate::measure::paths::{TimedRecord, delay_between_s};
 use crate::report::csv::CsvSink;
-use crate::report::json::{ListeningInfo, Report};
+use crate::report::json::{ListeningInfo, PathDelay, PathReport, PathsReport, Report};
 use crate::report::wav::{
     LISTEN_FADE_S, LISTEN_MIN_S, ListeningRecords, WavFormat, WavOptions, listening_files,
 };
@@ -61,6 +64,7 @@ impl Default for RunOptions {
 pub fn run_to_dir(sc: &Scenario, dir: &Path, opts: &RunOptions) -> Result<Report> {
     // Plan first: bad input is reported before any folder appears.
     let (plan, _) = Plan::new(sc)?;
+    check_paths(sc)?;
     if let Some(band) = opts.audio_band_hz {
         crate::engine::audio::check(sc, &plan, band)?;
     }
@@ -110,7 +114,27 @@ fn run_inner(
             b.set_position((f * 1000.0) as u64);
         }
     };
-    let run = pipeline::run(sc, Some(&mut csv), &mut progress)?;
+    // The first path (or the one chain) with the waveforms and the progress bar; the other paths beside it.
+    let others = other_paths(sc)?;
+    let (run, other_runs) = rayon::join(
+        || pipeline::run(sc, Some(&mut csv), &mut progress),
+        || {
+            use rayon::prelude::*;
+            others
+                .par_iter()
+                .map(|(name, description, s)| {
+                    run_path(name, s).map(|(run, metrics)| PathRun {
+                        name: name.clone(),
+                        description: description.clone(),
+                        run,
+                        metrics,
+                    })
+                })
+                .collect::<Result<Vec<_>>>()
+        },
+    );
+    let run = run?;
+    let other_runs = other_runs?;
     if let Some(b) = bar {
         b.finish_and_clear();
     }
@@ -133,7 +157,8 @@ fn run_inner(
     phase("writing the waveforms");
     csv.finish()?;
     phase("measuring");
-    let metrics = measure_run(&run.records())?;
+    let mut metrics = measure_run(&run.records())?;
+    metrics.latency.over_time = track_latency(&run, &metrics);
     let imd = crate::measure::imd::from_run(&run.records());
     let step = crate::measure::step::from_run(&run.records(), run.scenario.analysis.settling_band);
     let audio = match opts.audio_band_hz {
@@ -143,6 +168,10 @@ fn run_inner(
         }
         None => None,
     };
+    let path_delays = sc
+        .paths
+        .first()
+        .map(|first| path_delays(&first.name, &run, &metrics, &other_runs));
     let compared = match capture {
         Some(c) => {
             phase("measuring the capture");
@@ -153,7 +182,21 @@ fn run_inner(
     };
     let mut figs = if opts.figures {
         phase("drawing the plots");
-        figures::run_figures(&run, &metrics, opts.window_s)?
+        let mut figs = figures::run_figures(&run, &metrics, opts.window_s)?;
+        if let Some(first) = sc.paths.first() {
+            let mut all: Vec<figures::PathShown<'_>> = vec![figures::PathShown {
+                name: &first.name,
+                run: &run,
+                metrics: &metrics,
+            }];
+            all.extend(other_runs.iter().map(|p| figures::PathShown {
+                name: &p.name,
+                run: &p.run,
+                metrics: &p.metrics,
+            }));
+            figs.extend(figures::path_figures(&all, opts.window_s)?);
+        }
+        figs
     } else {
         Vec::new()
     };
@@ -173,6 +216,49 @@ fn run_inner(
     if let Some(slip) = latency_slip(&run.scenario, &report) {
         report.scenario.warnings.push(slip.text());
         report.warnings.push(slip);
+    }
+    if let Some(first) = sc.paths.first() {
+        let mut paths = vec![(
+            first.name.clone(),
+            PathReport::from_report(&first.description, &report),
+        )];
+        for p in other_runs {
+            let r = Report::new(&p.run.scenario, &p.run.plan, p.metrics);
+            if let Some(slip) = latency_slip(&p.run.scenario, &r) {
+                report
+                    .scenario
+                    .warnings
+                    .push(format!("path \"{}\": {}", p.name, slip.text()));
+            }
+            paths.push((p.name, PathReport::from_report(&p.description, &r)));
+        }
+        report.paths = Some(PathsReport(paths));
+        if let (Some(delays), Some(all)) = (&path_delays, &report.paths) {
+            for d in delays {
+                // One sample period of the slower of the two output records.
+                let rate = |n: &str| {
+                    all.0
+                        .iter()
+                        .find(|(k, _)| k == n)
+                        .map_or(f64::NAN, |(_, p)| p.output_analysis_rate_hz)
+                };
+                let period_s = 1.0 / rate(&d.from).min(rate(&d.to));
+                if d.agreement_s.is_nan() || d.agreement_s.abs() > period_s {
+                    report.scenario.warnings.push(format!(
+                        "paths \"{}\" and \"{}\": the delay between them cross-correlated directly ({}) and \
+                         the difference of their measured latencies ({}) disagree by more than one output \
+                         sample: a path's latency measurement failed (a latency over half its output record \
+                         cannot be measured: lengthen simulation.duration) or a path does something its \
+                         budget does not say",
+                        d.from,
+                        d.to,
+                        crate::format::units::format_si(d.cross_correlated_s, "s"),
+                        crate::format::units::format_si(d.latency_difference_s, "s"),
+                    ));
+                }
+            }
+        }
+        report.path_delays = path_delays;
     }
     let mut wav_files = None;
     if let Some(w) = &opts.wav {
@@ -251,6 +337,115 @@ fn run_inner(
         b.finish_and_clear();
     }
     Ok(report)
+}
+
+/// A path after the first of a `[[path]]` scenario, run and measured.
+struct PathRun {
+    name: String,
+    description: String,
+    run: pipeline::RunOutput,
+    metrics: ChainMetrics,
+}
+
+/// The paths after the first of a `[[path]]` scenario as scenarios of their own: (name, description,
+/// scenario). They run the source the first path runs (its tone moved for coherence on the first path's
+/// record), so every path hears the same signal; their records are analysed with the window.
+fn other_paths(sc: &Scenario) -> Result<Vec<(String, String, Scenario)>> {
+    if sc.paths.len() < 2 {
+        return Ok(Vec::new());
+    }
+    let (_, first) = Plan::new(sc).map_err(|e| in_path(&sc.paths[0].name, e))?;
+    Ok(sc.paths[1..]
+        .iter()
+        .map(|p| {
+            let mut s = first.for_path(p);
+            s.analysis.coherent = false;
+            (p.name.clone(), p.description.clone(), s)
+        })
+        .collect())
+}
+
+/// Plan every path after the first of a `[[path]]` scenario (the first is the scenario's own chain): an error
+/// names its path. Nothing to do for a one-chain scenario.
+pub fn check_paths(sc: &Scenario) -> Result<()> {
+    for (name, _, s) in other_paths(sc)? {
+        Plan::new(&s).map_err(|e| in_path(&name, e))?;
+    }
+    Ok(())
+}
+
+/// An error of one path's run, named by the path.
+fn in_path(name: &str, e: Error) -> Error {
+    match e {
+        Error::BadInput(m) => Error::BadInput(format!("path \"{name}\": {m}")),
+        Error::Run(m) => Error::Run(format!("path \"{name}\": {m}")),
+        other => other,
+    }
+}
+
+/// Run and measure one path (its latency tracked when asked).
+fn run_path(name: &str, sc: &Scenario) -> Result<(pipeline::RunOutput, ChainMetrics)> {
+    let run = pipeline::run_lean(sc).map_err(|e| in_path(name, e))?;
+    let mut metrics = measure_run(&run.records()).map_err(|e| in_path(name, e))?;
+    metrics.latency.over_time = track_latency(&run, &metrics);
+    Ok((run, metrics))
+}
+
+/// The measured latency tracked over `analysis.latency_blocks` blocks of the output record, around the
+/// measured latency; None when not asked for.
+fn track_latency(run: &pipeline::RunOutput, m: &ChainMetrics) -> Option<LatencyOverTime> {
+    let blocks = run.scenario.analysis.latency_blocks as usize;
+    if blocks < 2 {
+        return None;
+    }
+    crate::measure::latency::latency_over_time(
+        &run.source_record.volts,
+        &run.output_record.volts,
+        run.plan.out_rate_hz,
+        run.output_record.t0_s(),
+        m.latency.measured_s,
+        run.plan.frequency_hz.map(|f| 1.0 / f),
+        blocks,
+    )
+}
+
+/// The delay between every two paths: the difference of their measured latencies, and the later path's
+/// output record cross-correlated against the earlier one's (searched around their budgets' difference).
+fn path_delays(
+    first_name: &str,
+    first: &pipeline::RunOutput,
+    first_m: &ChainMetrics,
+    others: &[PathRun],
+) -> Vec<PathDelay> {
+    let mut all: Vec<(&str, &pipeline::RunOutput, &ChainMetrics)> =
+        vec![(first_name, first, first_m)];
+    all.extend(others.iter().map(|p| (p.name.as_str(), &p.run, &p.metrics)));
+    let period_s = first.plan.frequency_hz.map(|f| 1.0 / f);
+    fn record(r: &pipeline::RunOutput) -> TimedRecord<'_> {
+        TimedRecord {
+            t0_s: r.output_record.t0_s(),
+            rate_hz: r.plan.out_rate_hz,
+            volts: &r.output_record.volts,
+        }
+    }
+    let mut out = Vec::new();
+    for (i, a) in all.iter().enumerate() {
+        for b in &all[i + 1..] {
+            let latency_difference_s = b.2.latency.measured_s - a.2.latency.measured_s;
+            let budget_difference_s = b.2.latency.budget_s - a.2.latency.budget_s;
+            let cross_correlated_s =
+                delay_between_s(record(a.1), record(b.1), budget_difference_s, period_s);
+            out.push(PathDelay {
+                from: a.0.to_string(),
+                to: b.0.to_string(),
+                latency_difference_s,
+                cross_correlated_s,
+                budget_difference_s,
+                agreement_s: cross_correlated_s - latency_difference_s,
+            });
+        }
+    }
+    out
 }
 
 /// A measured latency differs from its budget by more than this fraction of the budget...

@@ -339,14 +339,32 @@ fn run(args: Args) -> anyhow::Result<()> {
             let sc = scenario::load(&scenario)?;
             print_warnings(&sc, false);
             let (plan, _) = convchain::engine::plan::Plan::new(&sc)?;
+            convchain::runner::check_paths(&sc)?;
+            let stages = if sc.paths.is_empty() {
+                format!("{} stages", sc.stages.len())
+            } else {
+                format!(
+                    "{} paths: {}",
+                    sc.paths.len(),
+                    sc.paths
+                        .iter()
+                        .map(|p| format!("{} {} stages", p.name, p.stages.len()))
+                        .collect::<Vec<_>>()
+                        .join(", ")
+                )
+            };
             let mut o = stdout.lock();
             writeln!(
                 o,
-                "{}: ok ({} stages, {} grid steps, about {:.0} MB for the analysis record)",
+                "{}: ok ({stages}, {} grid steps, about {:.0} MB for the analysis record{})",
                 scenario.display(),
-                sc.stages.len(),
                 plan.n_total,
-                plan.memory_estimate_bytes as f64 / 1e6
+                plan.memory_estimate_bytes as f64 / 1e6,
+                if sc.paths.len() > 1 {
+                    " of the first path"
+                } else {
+                    ""
+                }
             )?;
         }
         Command::Init { file, out } => {

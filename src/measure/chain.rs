@@ -162,6 +162,9 @@ pub struct LatencyMetrics {
     /// The instants the lost packets should have started playing (run time, s; the first
     /// [`LOSS_TIMES_MAX`](crate::stages::network::LOSS_TIMES_MAX)).
     pub packet_loss_times_s: Vec<f64>,
+    /// The measured delay tracked block by block over the output record (`analysis.latency_blocks`).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub over_time: Option<latency::LatencyOverTime>,
 }
 
 /// A spectrum kept for plots, with its tone analysis and the full-scale reference of its dBFS.
@@ -465,6 +468,7 @@ pub fn measure_run(run: &RunRecords<'_>) -> Result<ChainMetrics> {
             slip_times_s: run.slips.map(|s| s.slip_times_s.clone()),
             packets_lost: run.packets_lost,
             packet_loss_times_s: run.packet_loss_times_s.to_vec(),
+            over_time: None,
         },
     })
 }

@@ -230,6 +230,109 @@ pub fn xcorr_delay_s(input: &[f64], output: &[f64], sample_rate_hz: f64, max_del
     cc.refine(l0) / sample_rate_hz
 }
 
+/// The measured delay of one block of the record.
+#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
+pub struct BlockDelay {
+    /// Centre of the block's output stretch (s, run time).
+    pub time_s: f64,
+    pub delay_s: f64,
+}
+
+/// The measured delay tracked over the run (`latency.over_time`).
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
+pub struct LatencyOverTime {
+    pub min_s: f64,
+    pub max_s: f64,
+    /// The last block's delay.
+    pub final_s: f64,
+    /// max - min.
+    pub spread_s: f64,
+    /// Block length (s).
+    pub block_s: f64,
+    /// Each block's delay, in time order.
+    pub blocks: Vec<BlockDelay>,
+}
+
+/// Fewest samples in a tracking block.
+const MIN_BLOCK_SAMPLES: usize = 64;
+
+/// The delay of `output` behind `input` (same instants, `rate_hz`, first sample at `t0_s`) tracked over
+/// `blocks` equal blocks, each cross-correlated on its own ([`xcorr_delay_s`], refined between samples).
+///
+/// The output is taken `centre_s` (rounded to whole samples) after the input, so every block compares the
+/// output with the input it came from: the blocks cover the output record from `centre_s` on, each paired
+/// with the input stretch `centre_s` earlier. The search spans a quarter period either side of `centre_s`
+/// for a periodic source of `period_s` (the correlation of a sine repeats every period, and peaks in
+/// magnitude every half period), otherwise an eighth of a block; at least two samples either way.
+///
+/// Fewer blocks are used when the record cannot hold `blocks` of at least 64 samples (and, for a periodic
+/// source, at least four periods); `None` with fewer than two, or without a finite `centre_s`.
+pub fn latency_over_time(
+    input: &[f64],
+    output: &[f64],
+    rate_hz: f64,
+    t0_s: f64,
+    centre_s: f64,
+    period_s: Option<f64>,
+    blocks: usize,
+) -> Option<LatencyOverTime> {
+    if !(centre_s.is_finite() && rate_hz > 0.0) || blocks < 2 {
+        return None;
+    }
+    let len = input.len().min(output.len());
+    let shift = (centre_s * rate_hz).round().max(0.0) as usize;
+    let usable = len.checked_sub(shift)?;
+    let min_block = match period_s {
+        Some(p) if p.is_finite() && p > 0.0 => {
+            MIN_BLOCK_SAMPLES.max((4.0 * p * rate_hz).ceil() as usize)
+        }
+        _ => MIN_BLOCK_SAMPLES,
+    };
+    let count = blocks.min(usable / min_block);
+    if count < 2 {
+        return None;
+    }
+    let b = usable / count;
+    let half_window_s = match period_s {
+        Some(p) if p.is_finite() && p > 0.0 => 0.25 * p,
+        _ => b as f64 / 8.0 / rate_hz,
+    }
+    .max(2.0 / rate_hz)
+    .min(b as f64 / 4.0 / rate_hz);
+    let mut points = Vec::with_capacity(count);
+    for k in 0..count {
+        let a = k * b;
+        let d = xcorr_delay_s(
+            &input[a..a + b],
+            &output[shift + a..shift + a + b],
+            rate_hz,
+            half_window_s,
+        );
+        points.push(BlockDelay {
+            time_s: t0_s + (shift + a) as f64 / rate_hz + 0.5 * (b - 1) as f64 / rate_hz,
+            delay_s: shift as f64 / rate_hz + d,
+        });
+    }
+    let finite: Vec<f64> = points
+        .iter()
+        .map(|p| p.delay_s)
+        .filter(|d| d.is_finite())
+        .collect();
+    let min_s = finite.iter().copied().fold(f64::INFINITY, f64::min);
+    let max_s = finite.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+    if finite.is_empty() {
+        return None;
+    }
+    Some(LatencyOverTime {
+        min_s,
+        max_s,
+        final_s: points.last().map_or(f64::NAN, |p| p.delay_s),
+        spread_s: max_s - min_s,
+        block_s: b as f64 / rate_hz,
+        blocks: points,
+    })
+}
+
 /// Phase delay (s) of `output` against `input` at `f_hz`: three-parameter fits of both (same time origin), delay
 /// `(phi_in - phi_out) / (2 pi f)` modulo one period, the period count chosen to land nearest `coarse_delay_s`
 /// (e.g. from [`xcorr_delay_s`]). A polarity flip cannot be told from half a period here.
@@ -534,6 +637,49 @@ mod tests {
         inv.process(&mut spec, &mut input).unwrap();
         inv.process(&mut delayed_spec, &mut output).unwrap();
         (input, output)
+    }
+
+    #[test]
+    fn a_fixed_delay_tracks_flat_within_a_hundredth_of_a_sample() {
+        // By construction: the output is the input delayed by 37.3 samples exactly (frequency-domain shift),
+        // so every block must find 37.3 samples.
+        let fs = 48_000.0;
+        let (x, y) = noise_and_delayed(48_000, 37.3, 7);
+        let t = latency_over_time(&x, &y, fs, 0.0, 37.0 / fs, None, 12).unwrap();
+        assert_eq!(t.blocks.len(), 12);
+        for p in &t.blocks {
+            assert!((p.delay_s * fs - 37.3).abs() < 0.01, "{p:?}");
+        }
+        assert!(t.spread_s * fs < 0.02, "{t:?}");
+        assert!(t.blocks.windows(2).all(|w| w[1].time_s > w[0].time_s));
+    }
+
+    #[test]
+    fn a_delay_that_steps_half_way_shows_in_the_later_blocks() {
+        // By construction: the second half of the output is delayed by one more sample (a slip), and the
+        // blocks wholly after it must say so.
+        let fs = 48_000.0;
+        let n = 48_000;
+        let (x, y10) = noise_and_delayed(n, 10.0, 8);
+        let (_, y11) = noise_and_delayed(n, 11.0, 8);
+        let y: Vec<f64> = (0..n)
+            .map(|i| if i < n / 2 { y10[i] } else { y11[i] })
+            .collect();
+        let t = latency_over_time(&x, &y, fs, 0.0, 10.0 / fs, None, 8).unwrap();
+        let first = t.blocks.first().unwrap().delay_s * fs;
+        let last = t.final_s * fs;
+        assert!(
+            (first - 10.0).abs() < 0.05 && (last - 11.0).abs() < 0.05,
+            "{first} {last}"
+        );
+        assert!((t.spread_s * fs - 1.0).abs() < 0.1, "{t:?}");
+    }
+
+    #[test]
+    fn a_record_too_short_for_two_blocks_is_not_tracked() {
+        let (x, y) = noise_and_delayed(100, 3.0, 9);
+        assert!(latency_over_time(&x, &y, 1.0, 0.0, 3.0, None, 12).is_none());
+        assert!(latency_over_time(&x, &y, 1.0, 0.0, f64::NAN, None, 12).is_none());
     }
 
     #[test]

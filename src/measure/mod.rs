@@ -9,6 +9,7 @@ pub mod fidelity;
 pub mod imd;
 pub mod latency;
 pub mod metrics;
+pub mod paths;
 pub mod sine_record;
 pub mod sinefit;
 pub mod spectrum;

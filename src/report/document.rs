@@ -71,8 +71,75 @@ fn latency_rows(r: &Report) -> Vec<(String, String)> {
         ),
         si(l.difference_s, "s"),
     ));
+    if let Some(t) = &l.over_time {
+        let over = format!(
+            "over the run ({} blocks of {})",
+            t.blocks.len(),
+            si(t.block_s, "s")
+        );
+        rows.push((format!("{over}: min"), si(t.min_s, "s")));
+        rows.push((format!("{over}: max"), si(t.max_s, "s")));
+        rows.push((format!("{over}: final"), si(t.final_s, "s")));
+        rows.push((format!("{over}: spread (max - min)"), si(t.spread_s, "s")));
+    }
     rows
 }
+
+/// The paths of a `[[path]]` scenario as tables (first row the header): each path's latency with its budget
+/// and its headline figures, then the delay between every two paths. None for a one-chain scenario.
+type Rows = Vec<Vec<String>>;
+fn path_tables(r: &Report) -> Option<(Rows, Rows)> {
+    let paths = r.paths.as_ref()?;
+    let mut each = vec![
+        [
+            "path",
+            "budget",
+            "measured",
+            "measured - budget",
+            "over the run (min .. max)",
+            "SINAD",
+            "ENOB",
+        ]
+        .map(String::from)
+        .to_vec(),
+    ];
+    for (name, p) in &paths.0 {
+        let l = &p.latency;
+        each.push(vec![
+            name.clone(),
+            si(l.budget_s, "s"),
+            si(l.measured_s, "s"),
+            si(l.difference_s, "s"),
+            l.over_time.as_ref().map_or("-".into(), |t| {
+                format!("{} .. {}", si(t.min_s, "s"), si(t.max_s, "s"))
+            }),
+            opt(p.output.sinad_db, "dB"),
+            opt(p.output.enob_bits, "bits"),
+        ]);
+    }
+    let mut between = vec![
+        [
+            "switching",
+            "latency difference",
+            "cross-correlated",
+            "budget difference",
+        ]
+        .map(String::from)
+        .to_vec(),
+    ];
+    for d in r.path_delays.iter().flatten() {
+        between.push(vec![
+            format!("{} -> {}", d.from, d.to),
+            si(d.latency_difference_s, "s"),
+            si(d.cross_correlated_s, "s"),
+            si(d.budget_difference_s, "s"),
+        ]);
+    }
+    Some((each, between))
+}
+
+const PATHS_NOTE: &str = "The figures above are the first path's. A listener switching from one path to another hears \
+                          the programme move by the delay between them (positive: the second path is later).";
 
 /// What the terminal's summary says beside the metrics ([`crate::report::table::summary`]), as sentences for
 /// report.md and report.html: the source moved for coherent sampling, the converter with its clipped codes
@@ -200,6 +267,18 @@ pub fn markdown(r: &Report, figures: &[Figure]) -> String {
     for (n, v) in latency_rows(r) {
         let _ = writeln!(s, "| {n} | {v} |");
     }
+    if let Some((each, between)) = path_tables(r) {
+        let _ = writeln!(s, "\n## Paths\n\n{PATHS_NOTE}\n");
+        for t in [each, between].into_iter().filter(|t| t.len() > 1) {
+            for (i, row) in t.iter().enumerate() {
+                let _ = writeln!(s, "| {} |", row.join(" | "));
+                if i == 0 {
+                    let _ = writeln!(s, "|---|{}", "---:|".repeat(row.len().saturating_sub(1)));
+                }
+            }
+            let _ = writeln!(s);
+        }
+    }
     if let Some(l) = &r.listening {
         let _ = writeln!(
             s,
@@ -311,6 +390,25 @@ figcaption{{color:#444}}</style></head><body>\n",
         );
     }
     let _ = writeln!(s, "</table>");
+    if let Some((each, between)) = path_tables(r) {
+        let _ = writeln!(s, "<h2>Paths</h2><p>{}</p>", esc(PATHS_NOTE));
+        for t in [each, between].into_iter().filter(|t| t.len() > 1) {
+            let _ = write!(s, "<table>");
+            for (i, row) in t.iter().enumerate() {
+                let _ = write!(s, "<tr>");
+                for (j, cell) in row.iter().enumerate() {
+                    let (tag, class) = match (i, j) {
+                        (0, _) => ("th", ""),
+                        (_, 0) => ("td", ""),
+                        _ => ("td", " class=\"n\""),
+                    };
+                    let _ = write!(s, "<{tag}{class}>{}</{tag}>", esc(cell));
+                }
+                let _ = writeln!(s, "</tr>");
+            }
+            let _ = writeln!(s, "</table>");
+        }
+    }
     if let Some(l) = &r.listening {
         let _ = writeln!(
             s,

@@ -4,10 +4,11 @@ use crate::engine::pipeline::{RunOutput, si};
 use crate::engine::static_bench::Static;
 use crate::error::Result;
 use crate::measure::chain::{ChainMetrics, SpectrumDetail};
+use crate::measure::latency::LatencyOverTime;
 use crate::measure::spectrum::SpectrumAnalyzer;
 use crate::report::plot::{
-    BudgetPlot, Plot, PlotSummary, SpectrumPlot, StaticPlot, WaveformPlot, XyPlot, render_png,
-    render_svg,
+    BudgetPlot, PathBudgetsPlot, Plot, PlotSummary, SpectrumPlot, StaticPlot, WaveformPlot, XyPlot,
+    render_png, render_svg,
 };
 use crate::scenario::WindowKind;
 use crate::signal::waveform::Waveform;
@@ -273,6 +274,176 @@ pub fn run_figures(
             measured_s: m.latency.measured_s,
         }),
     )?);
+    if let Some(track) = &m.latency.over_time {
+        figs.push(latency_over_time_figure(
+            &format!("{name}: measured latency over the run"),
+            &[(name.as_str(), track, 0.0)],
+        )?);
+    }
+    Ok(figs)
+}
+
+/// The measured delay of each block against time (`latency_over_time`): one series per (name, track, offset
+/// subtracted in s).
+fn latency_over_time_figure(
+    title: &str,
+    tracks: &[(&str, &LatencyOverTime, f64)],
+) -> Result<Figure> {
+    let data: Vec<(Vec<f64>, Vec<f64>)> = tracks
+        .iter()
+        .map(|(_, t, offset)| {
+            (
+                t.blocks.iter().map(|b| b.time_s).collect(),
+                t.blocks.iter().map(|b| b.delay_s - offset).collect(),
+            )
+        })
+        .collect();
+    let series: Vec<(&str, &[f64], &[f64])> = tracks
+        .iter()
+        .zip(&data)
+        .map(|((n, _, _), (t, d))| (*n, &t[..], &d[..]))
+        .collect();
+    let offsets = tracks.iter().any(|(_, _, o)| *o != 0.0);
+    let spread = tracks
+        .iter()
+        .map(|(n, t, _)| format!("{n}: spread {}", si(t.spread_s, "s")))
+        .collect::<Vec<_>>()
+        .join(", ");
+    figure(
+        "latency_over_time",
+        format!(
+            "The measured delay block by block over the run{} ({spread})",
+            if offsets {
+                ", each path less its measured latency"
+            } else {
+                ""
+            }
+        ),
+        &Plot::Xy(XyPlot {
+            title: title.to_string(),
+            x_label: "time (s)".into(),
+            y_label: if offsets {
+                "delay - measured latency (s)".into()
+            } else {
+                "delay (s)".into()
+            },
+            series,
+            log_x: false,
+            markers: Vec::new(),
+        }),
+    )
+}
+
+/// One path of a `[[path]]` scenario as the path figures read it.
+pub struct PathShown<'a> {
+    pub name: &'a str,
+    pub run: &'a RunOutput,
+    pub metrics: &'a ChainMetrics,
+}
+
+/// The figures of a `[[path]]` scenario: the paths' latency budgets side by side (`path_budgets`), every
+/// path's output over one window of the first path's capture with the source (`path_waveforms`), and the
+/// latency of every path over the run when it is tracked (`path_latency_over_time`).
+pub fn path_figures(paths: &[PathShown<'_>], window_s: Option<(f64, f64)>) -> Result<Vec<Figure>> {
+    let Some(first) = paths.first() else {
+        return Ok(Vec::new());
+    };
+    let name = &first.run.scenario.name;
+    let mut figs = Vec::new();
+    let lines: Vec<Vec<(String, f64)>> = paths
+        .iter()
+        .map(|p| {
+            p.metrics
+                .latency
+                .budget
+                .iter()
+                .map(|b| (b.stage.clone(), b.seconds))
+                .collect()
+        })
+        .collect();
+    figs.push(figure(
+        "path_budgets",
+        "Each path's latency budget (its stages laid end to end) and its measured latency, on one time axis"
+            .into(),
+        &Plot::PathBudgets(PathBudgetsPlot {
+            title: format!("{name}: latency budget per path"),
+            paths: paths
+                .iter()
+                .zip(&lines)
+                .map(|(p, l)| (p.name, &l[..], p.metrics.latency.measured_s))
+                .collect(),
+        }),
+    )?);
+
+    // Waveforms: the source and each path's output at the grid instants of one window.
+    let (w0, w1) = window_s.unwrap_or_else(|| default_window_s(first.run, None));
+    let mut data: Vec<(String, Vec<f64>, Vec<f64>)> = Vec::new();
+    let cap = &first.run.capture;
+    if let Some(src) = cap.source() {
+        data.push(("source".into(), Vec::new(), Vec::new()));
+        let tb = cap.timebase;
+        let last = data.last_mut().expect("pushed");
+        for (i, v) in src.iter().enumerate() {
+            let t = tb.time_s(cap.n0 + i as u64);
+            if t >= w0 && t <= w1 {
+                last.1.push(t);
+                last.2.push(*v);
+            }
+        }
+    }
+    for p in paths {
+        let cap = &p.run.capture;
+        let tb = cap.timebase;
+        let (mut t_s, mut v) = (Vec::new(), Vec::new());
+        for (i, x) in cap.output().iter().enumerate() {
+            let t = tb.time_s(cap.n0 + i as u64);
+            if t >= w0 && t <= w1 {
+                t_s.push(t);
+                v.push(*x);
+            }
+        }
+        data.push((format!("{} output", p.name), t_s, v));
+    }
+    let series: Vec<(&str, &[f64], &[f64])> = data
+        .iter()
+        .filter(|(_, t, _)| t.len() >= 2)
+        .map(|(n, t, v)| (n.as_str(), &t[..], &v[..]))
+        .collect();
+    if !series.is_empty() {
+        figs.push(figure(
+            "path_waveforms",
+            "The source and every path's output over one window: a listener switching paths hears the \
+             offset between them"
+                .into(),
+            &Plot::Xy(XyPlot {
+                title: format!("{name}: every path's output"),
+                x_label: "time (s)".into(),
+                y_label: "voltage (V)".into(),
+                series,
+                log_x: false,
+                markers: Vec::new(),
+            }),
+        )?);
+    }
+
+    let tracks: Vec<(&str, &LatencyOverTime, f64)> = paths
+        .iter()
+        .filter_map(|p| {
+            p.metrics
+                .latency
+                .over_time
+                .as_ref()
+                .map(|t| (p.name, t, p.metrics.latency.measured_s))
+        })
+        .collect();
+    if !tracks.is_empty() {
+        let mut f = latency_over_time_figure(
+            &format!("{name}: each path's latency over the run"),
+            &tracks,
+        )?;
+        f.name = "path_latency_over_time".into();
+        figs.push(f);
+    }
     Ok(figs)
 }
 

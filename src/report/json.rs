@@ -39,6 +39,68 @@ pub struct Report {
     /// A capture of the built chain measured beside the simulated output, with `run --compare`.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub compare: Option<CompareReport>,
+    /// Each `[[path]]` by name, in the scenario's order (the figures above are the first path's).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub paths: Option<PathsReport>,
+    /// The delay between every two paths (first listed against each later one).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub path_delays: Option<Vec<PathDelay>>,
+}
+
+/// One path of a scenario with `[[path]]` tables: its chain, meters and latency with its budget.
+#[derive(Debug, Clone, Serialize)]
+pub struct PathReport {
+    pub description: String,
+    pub chain: Value,
+    pub adc: Option<AdcMetrics>,
+    pub output: OutputMetrics,
+    pub latency: LatencyMetrics,
+    pub output_analysis_rate_hz: f64,
+    /// `coherent`, `as_asked` or `non_coherent`: the first path places the tone; the others run the same tone
+    /// and are analysed with the window.
+    pub tone_placement: TonePlacement,
+}
+
+impl PathReport {
+    /// The figures of a path's own report.
+    pub fn from_report(description: &str, r: &Report) -> PathReport {
+        PathReport {
+            description: description.to_string(),
+            chain: r.chain.clone(),
+            adc: r.adc.as_ref().map(|a| a.metrics.clone()),
+            output: r.output.clone(),
+            latency: r.latency.clone(),
+            output_analysis_rate_hz: r.run.output_analysis_rate_hz,
+            tone_placement: r.run.tone_placement,
+        }
+    }
+}
+
+/// Paths by name, written as a JSON object in the scenario's order.
+#[derive(Debug, Clone)]
+pub struct PathsReport(pub Vec<(String, PathReport)>);
+
+impl Serialize for PathsReport {
+    fn serialize<S: serde::Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
+        s.collect_map(self.0.iter().map(|(k, v)| (k, v)))
+    }
+}
+
+/// What a listener switching from path `from` to path `to` hears: the programme moved by this much (positive:
+/// `to` is later).
+#[derive(Debug, Clone, Serialize)]
+pub struct PathDelay {
+    pub from: String,
+    pub to: String,
+    /// `to`'s measured latency minus `from`'s.
+    pub latency_difference_s: f64,
+    /// Measured directly: `to`'s output record cross-correlated against `from`'s (searched around the budget
+    /// difference).
+    pub cross_correlated_s: f64,
+    /// `to`'s latency budget minus `from`'s.
+    pub budget_difference_s: f64,
+    /// cross_correlated - latency_difference: how far the two measurements agree.
+    pub agreement_s: f64,
 }
 
 /// What the WAV files hold.
@@ -151,6 +213,8 @@ impl Report {
             step: None,
             audio: None,
             compare: None,
+            paths: None,
+            path_delays: None,
         }
     }
 }

@@ -231,10 +231,99 @@ pub fn summary(r: &Report) -> String {
             ""
         }
     );
+    if let Some(t) = &l.over_time {
+        let _ = writeln!(
+            s,
+            "    over the run ({} blocks of {}):",
+            t.blocks.len(),
+            si(t.block_s, "s")
+        );
+        for (what, v) in [
+            ("min", t.min_s),
+            ("max", t.max_s),
+            ("final", t.final_s),
+            ("spread (max - min)", t.spread_s),
+        ] {
+            let _ = writeln!(s, "      {what:<width$}{:>14}", si(v, "s"), width = w - 2);
+        }
+    }
+    paths_table(&mut s, r);
     for w in &r.scenario.warnings {
         let _ = writeln!(s, "  warning: {w}");
     }
     s
+}
+
+/// The paths of a `[[path]]` scenario: each path's latency against its budget and its headline figures, then
+/// the delay between every two paths.
+fn paths_table(s: &mut String, r: &Report) {
+    let Some(paths) = &r.paths else {
+        return;
+    };
+    let _ = writeln!(
+        s,
+        "\n  paths (the figures above are the first path's, \"{}\")",
+        paths.0.first().map_or("", |p| p.0.as_str())
+    );
+    let w = paths
+        .0
+        .iter()
+        .map(|(n, _)| n.chars().count() + 2)
+        .max()
+        .unwrap_or(0)
+        .max(14);
+    let _ = writeln!(
+        s,
+        "    {:<w$}{:>14}{:>14}{:>14}{:>14}{:>14}",
+        "", "budget", "measured", "difference", "SINAD", "ENOB"
+    );
+    for (name, p) in &paths.0 {
+        let l = &p.latency;
+        let _ = writeln!(
+            s,
+            "    {name:<w$}{:>14}{:>14}{:>14}{:>14}{:>14}",
+            si(l.budget_s, "s"),
+            si(l.measured_s, "s"),
+            si(l.difference_s, "s"),
+            db(p.output.sinad_db),
+            bits(p.output.enob_bits)
+        );
+        if let Some(t) = &l.over_time {
+            let _ = writeln!(
+                s,
+                "    {:<w$}  over the run: min {}, max {}, final {}, spread {}",
+                "",
+                si(t.min_s, "s"),
+                si(t.max_s, "s"),
+                si(t.final_s, "s"),
+                si(t.spread_s, "s")
+            );
+        }
+        if l.packets_lost > 0 {
+            let _ = writeln!(s, "    {:<w$}  packets lost: {}", "", l.packets_lost);
+        }
+    }
+    if let Some(delays) = r.path_delays.as_ref().filter(|d| !d.is_empty()) {
+        let _ = writeln!(
+            s,
+            "\n  delay between paths (switching from one to the other, the programme moves by)"
+        );
+        let _ = writeln!(
+            s,
+            "    {:<32}{:>20}{:>20}{:>20}",
+            "", "latency difference", "cross-correlated", "budget difference"
+        );
+        for d in delays {
+            let _ = writeln!(
+                s,
+                "    {:<32}{:>20}{:>20}{:>20}",
+                format!("{} -> {}", d.from, d.to),
+                si(d.latency_difference_s, "s"),
+                si(d.cross_correlated_s, "s"),
+                si(d.budget_difference_s, "s")
+            );
+        }
+    }
 }
 
 /// The line on the FIFO between clocks, when the DAC reads through one: "clock crossing: 44 slips (first at

@@ -37,6 +37,10 @@ pub const SECTION_PARAMS: &[(&str, Param)] = {
             "analysis",
             Param::fixed("settling_band", ParamKind::Quantity(D::Ratio)),
         ),
+        (
+            "analysis",
+            Param::fixed("latency_blocks", ParamKind::Integer),
+        ),
     ]
 };
 

@@ -45,8 +45,11 @@ pub struct Scenario {
     pub base_dir: PathBuf,
     pub simulation: Simulation,
     pub source: Source,
-    /// The signal path, in order.
+    /// The signal path, in order (with `[[path]]` tables: the first path's stages).
     pub stages: Vec<Stage>,
+    /// `[[path]]`: named chains fed by the same source, run and measured side by side; empty for a scenario
+    /// written as one `[[stage]]` list.
+    pub paths: Vec<NamedPath>,
     pub analysis: Analysis,
     /// `[spread]`: values drawn afresh for each Monte-Carlo run, in file order (empty for a single run).
     pub spread: Vec<Spread>,
@@ -111,6 +114,25 @@ pub struct Simulation {
 
 pub use crate::signal::waveform::{ChirpLaw, Source, Tone, Waveform};
 
+/// One `[[path]]`: a named chain of its own `[[path.stage]]` tables, fed by the scenario's source.
+#[derive(Debug, Clone, PartialEq)]
+pub struct NamedPath {
+    /// Letters, digits, - and _ (labels the report's `paths` entries).
+    pub name: String,
+    pub description: String,
+    pub stages: Vec<Stage>,
+}
+
+impl Scenario {
+    /// The scenario with `path`'s stages as its one chain (no paths): what the engine runs for that path.
+    pub fn for_path(&self, path: &NamedPath) -> Scenario {
+        let mut sc = self.clone();
+        sc.stages = path.stages.clone();
+        sc.paths = Vec::new();
+        sc
+    }
+}
+
 /// One stage of the signal path.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Stage {
@@ -172,6 +194,9 @@ pub struct Analysis {
     pub harmonics: u32,
     /// The band a step source's output settles into, as a fraction of its step (default 0.01).
     pub settling_band: f64,
+    /// Blocks the output analysis record is cut into to track the measured latency over the run
+    /// (`latency.over_time`); 0 = not tracked (the default).
+    pub latency_blocks: u32,
 }
 
 /// How a `[spread]` value is drawn around its nominal.
@@ -210,6 +235,7 @@ impl Spread {
 
 pub mod keys;
 pub mod overrides;
+mod path_list;
 pub mod sanity;
 mod source_table;
 mod spread;

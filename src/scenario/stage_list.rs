@@ -15,14 +15,17 @@ struct ReadStage {
     kind: StageKind,
 }
 
+/// Read a stage list. `prefix` starts every key path in messages: `"stage"` for the scenario's `[[stage]]`
+/// list, `"path.2.stage"` for the second `[[path]]`'s.
 pub(super) fn stages(
     map: &SourceMap<'_>,
     nodes: &At<&[Node]>,
     sim: &Simulation,
+    prefix: &str,
 ) -> Result<Vec<Stage>, ScenarioError> {
     let mut read = Vec::with_capacity(nodes.value.len());
     for (i, node) in nodes.value.iter().enumerate() {
-        let path = format!("stage.{}", i + 1);
+        let path = format!("{prefix}.{}", i + 1);
         let Value::Table(t) = &node.value else {
             return Err(map
                 .error(
@@ -34,7 +37,7 @@ pub(super) fn stages(
         };
         read.push(stage(map, t, path, i + 1, sim)?);
     }
-    check_order(map, &read)?;
+    check_order(map, &read, prefix)?;
     Ok(resolve(read))
 }
 
@@ -103,11 +106,15 @@ enum Place {
 const GRAMMAR: &str = "a chain reads: analog stages, then one converter group [hold] ADC [links] DAC, then analog \
                        stages";
 
-fn check_order(map: &SourceMap<'_>, stages: &[ReadStage]) -> Result<(), ScenarioError> {
+fn check_order(
+    map: &SourceMap<'_>,
+    stages: &[ReadStage],
+    prefix: &str,
+) -> Result<(), ScenarioError> {
     let mut place = Place::Before;
     let mut quantizer_index = None;
     for (i, s) in stages.iter().enumerate() {
-        let path = format!("stage.{}.kind", i + 1);
+        let path = format!("{prefix}.{}.kind", i + 1);
         let err = |msg: String, hint: &str| {
             map.error(&s.kind_span, &path, msg)
                 .with_hint(hint.to_string())
@@ -175,7 +182,7 @@ fn check_order(map: &SourceMap<'_>, stages: &[ReadStage]) -> Result<(), Scenario
             Err(map
                 .error(
                     &s,
-                    &format!("stage.{}.kind", stages.len()),
+                    &format!("{prefix}.{}.kind", stages.len()),
                     format!("a {kind} must come directly before an ADC"),
                 )
                 .with_hint("add an ADC stage (e.g. kind = \"sar_adc\") after it, or remove it"))
@@ -187,7 +194,7 @@ fn check_order(map: &SourceMap<'_>, stages: &[ReadStage]) -> Result<(), Scenario
             Err(map
                 .error(
                     &s,
-                    &format!("stage.{}.kind", i + 1),
+                    &format!("{prefix}.{}.kind", i + 1),
                     format!("a {kind} needs a DAC after it (links may sit between)"),
                 )
                 .with_hint("add a [[stage]] with kind = \"dac\" after the ADC (and any links)"))

@@ -3,6 +3,7 @@
 
 use std::path::{Path, PathBuf};
 
+use super::path_list::paths;
 use super::source_table::{FullScale, source};
 use super::spread::spread;
 use super::stage_list::stages;
@@ -16,6 +17,9 @@ const RECOMMENDED_OVERSAMPLING: f64 = 20.0;
 /// The band a step's output settles into when `analysis.settling_band` is not given (1 % of the step).
 const DEFAULT_SETTLING_BAND: f64 = 0.01;
 
+/// Most blocks the latency is tracked over (`analysis.latency_blocks`).
+pub const MAX_LATENCY_BLOCKS: u32 = 64;
+
 /// Build a checked scenario from a parsed document.
 pub fn build(
     map: &SourceMap<'_>,
@@ -28,6 +32,7 @@ pub fn build(
     let sim_t = r.table("simulation")?;
     let src_t = r.table("source")?;
     let stage_nodes = r.array("stage")?;
+    let path_nodes = r.array("path")?;
     let analysis_t = r.table("analysis")?;
     let spread_t = r.table("spread")?;
     let compare_t = r.table("compare")?;
@@ -49,12 +54,35 @@ pub fn build(
     let mut warnings = Vec::new();
     let (simulation, rate_span) = simulation(map, sim_t)?;
     // The stages are read first: a level in dBFS refers to the first converter's range.
-    let stages = match stage_nodes {
+    let stages = match &stage_nodes {
         None => Vec::new(),
-        Some(nodes) => stages(map, &nodes, &simulation)?,
+        Some(nodes) => stages(map, nodes, &simulation, "stage")?,
     };
+    let paths = match (&path_nodes, &stage_nodes) {
+        (None, _) => Vec::new(),
+        (Some(p), Some(_)) => {
+            return Err(map
+                .error(
+                    &p.span,
+                    "path",
+                    "a scenario is either one chain ([[stage]]) or several paths ([[path]]), not both",
+                )
+                .with_hint(
+                    "move the [[stage]] tables into a [[path]] as [[path.stage]] tables, or remove the paths",
+                ));
+        }
+        (Some(p), None) => paths(map, p, &simulation)?,
+    };
+    // With paths, the first path is the scenario's chain: what reads one chain (the plan, the meters, the
+    // stage echo) reads it, and the other paths are run beside it.
+    let stages = match paths.first() {
+        Some(p) => p.stages.clone(),
+        None => stages,
+    };
+    // A level in dBFS refers to the first converter's range, in any path.
     let full_scale = stages
         .iter()
+        .chain(paths.iter().flat_map(|p| p.stages.iter()))
         .find_map(|st| st.kind.quantizer_timing())
         .map(|q| FullScale { range_v: q.range_v });
     let source = source(map, src_t, base_dir, &simulation, full_scale, &mut warnings)?;
@@ -99,6 +127,7 @@ pub fn build(
             coherent: true,
             harmonics: 9,
             settling_band: DEFAULT_SETTLING_BAND,
+            latency_blocks: 0,
         },
         Some(t) => analysis(map, t)?,
     };
@@ -115,6 +144,7 @@ pub fn build(
         simulation,
         source,
         stages,
+        paths,
         analysis,
         spread,
         compare,
@@ -296,6 +326,19 @@ fn analysis(map: &SourceMap<'_>, t: &Table) -> Result<Analysis, ScenarioError> {
         }
         Some(q) => q.value,
     };
+    let latency_blocks = match r.integer("latency_blocks", 0, MAX_LATENCY_BLOCKS as i128)? {
+        None => 0,
+        Some(q) if q.value == 1 => {
+            return Err(r
+                .error(
+                    &q.span,
+                    "latency_blocks",
+                    "one block tracks nothing: give 0 (not tracked) or 2 or more",
+                )
+                .with_hint("write e.g. latency_blocks = 12"));
+        }
+        Some(q) => q.value as u32,
+    };
     r.finish(&[], "[analysis]")?;
     Ok(Analysis {
         band_hz,
@@ -303,6 +346,7 @@ fn analysis(map: &SourceMap<'_>, t: &Table) -> Result<Analysis, ScenarioError> {
         coherent,
         harmonics,
         settling_band,
+        latency_blocks,
     })
 }
 
@@ -357,6 +401,36 @@ clock = "2 MHz"
             "{HEAD}{ADC}comparator_offset = \"0.2 mV\"\n{DAC}offset = \"1 mV\"\ntolerance = \"1%\"\n[[stage]]\nkind = \"filter\"\norder = 2\ncutoff = \"20 kHz\"\n\
              [spread]\n{body}"
         )
+    }
+
+    #[test]
+    fn paths_read_with_the_first_as_the_chain_and_latency_blocks_refuse_one() {
+        let text = format!(
+            "{HEAD}[[path]]\nname = \"direct\"\n[[path.stage]]\nkind = \"filter\"\norder = 2\ncutoff = \"20 kHz\"\n\
+             [[path]]\nname = \"converted\"\ndescription = \"through a converter\"\n\
+             [[path.stage]]{}[[path.stage]]{}[analysis]\nlatency_blocks = 12\n",
+            ADC.trim_start_matches("\n[[stage]]"),
+            DAC.trim_start_matches("\n[[stage]]")
+        );
+        let s = ok(&text);
+        let names: Vec<&str> = s.paths.iter().map(|p| p.name.as_str()).collect();
+        assert_eq!(names, ["direct", "converted"]);
+        assert_eq!(s.stages, s.paths[0].stages);
+        assert_eq!(s.paths[1].stages.len(), 2);
+        assert_eq!(s.paths[1].description, "through a converter");
+        assert_eq!(s.analysis.latency_blocks, 12);
+        let one = for_path_check(&s);
+        assert_eq!(one, (2, 0));
+        let text = text.replace("latency_blocks = 12", "latency_blocks = 1");
+        let e = err(&text);
+        assert_eq!(e.line, line_of(&text, "latency_blocks"), "{e}");
+        assert!(e.message.contains("one block"), "{e}");
+    }
+
+    /// The stage count and path count of the scenario made for the second path.
+    fn for_path_check(s: &Scenario) -> (usize, usize) {
+        let p = s.for_path(&s.paths[1]);
+        (p.stages.len(), p.paths.len())
     }
 
     #[test]
@@ -518,7 +592,8 @@ clock = "2 MHz"
                 window: WindowKind::BlackmanHarris,
                 coherent: true,
                 harmonics: 9,
-                settling_band: 0.01
+                settling_band: 0.01,
+                latency_blocks: 0
             }
         );
         let StageKind::Amplifier(a) = &s.stages[0].kind else {

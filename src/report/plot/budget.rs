@@ -8,7 +8,7 @@ use crate::Error;
 
 use super::axis::{Axis, Frame, bottom_margin};
 use super::painter::{Painter, TEXT, palette};
-use super::{BudgetPlot, format_si};
+use super::{BudgetPlot, PathBudgetsPlot, format_si};
 
 pub(super) fn draw_budget<DB: DrawingBackend>(
     p: &mut Painter<DB>,
@@ -119,6 +119,102 @@ pub(super) fn draw_budget<DB: DrawingBackend>(
         p.summary.series += 1;
         p.text(
             &format_si(len, "s", 3),
+            (xc + p.fpx(0.3), cy),
+            0.8,
+            TEXT,
+            HPos::Left,
+            VPos::Center,
+            false,
+        )?;
+    }
+    Ok(())
+}
+
+/// Several paths' budgets on one time axis: per path, a row per stage (bars laid end to end from zero, in the
+/// path's colour) and a row for its measured total (hatched darker: drawn in vermillion outline).
+pub(super) fn draw_path_budgets<DB: DrawingBackend>(
+    p: &mut Painter<DB>,
+    b: &PathBudgetsPlot,
+) -> Result<(), Error> {
+    let finite = b
+        .paths
+        .iter()
+        .all(|(_, lines, m)| m.is_finite() && lines.iter().all(|(_, v)| v.is_finite()));
+    if !finite || b.paths.is_empty() {
+        return Err(Error::Run(
+            "plot: path budgets hold a non-finite value or no path".to_string(),
+        ));
+    }
+    // Rows from the top: for each path its stages, then "<path>: measured".
+    let mut rows: Vec<(String, f64, f64, usize, bool)> = Vec::new();
+    let mut x_hi = 0.0f64;
+    let mut x_lo = 0.0f64;
+    for (k, (name, lines, measured)) in b.paths.iter().enumerate() {
+        let mut start = 0.0;
+        for (stage, v) in lines.iter() {
+            rows.push((format!("{name}: {stage}"), start, *v, k, false));
+            start += v;
+            x_hi = x_hi.max(start);
+            x_lo = x_lo.min(start);
+        }
+        rows.push((format!("{name}: measured"), 0.0, *measured, k, true));
+        x_hi = x_hi.max(*measured);
+        x_lo = x_lo.min(*measured);
+    }
+    let x_hi = if x_hi > 0.0 { x_hi * 1.18 } else { 1e-6 };
+    let x = Axis::linear("time", "s", x_lo, x_hi, 8);
+    let y = Axis {
+        lo: 0.0,
+        hi: rows.len() as f64,
+        log: false,
+        ticks: Vec::new(),
+        title: String::new(),
+    };
+    let top = p.title(&b.title)?;
+    let label_w = rows
+        .iter()
+        .map(|r| p.text_width(&r.0, 0.85))
+        .max()
+        .unwrap_or(0);
+    let f = Frame {
+        x0: label_w + p.fpx(1.2),
+        y0: top + p.fpx(0.3),
+        x1: p.w - p.fpx(1.2),
+        y1: p.h - bottom_margin(p),
+        x,
+        y,
+        below: 0,
+    };
+    f.draw(p, true)?;
+    let row_h = (f.y1 - f.y0) as f64 / rows.len() as f64;
+    let bar_h = (row_h * 0.3).max(2.0) as i32;
+    for (i, (label, from, len, k, measured)) in rows.iter().enumerate() {
+        let colour = palette::SERIES[k % palette::SERIES.len()];
+        let cy = (f.y0 as f64 + (i as f64 + 0.5) * row_h).round() as i32;
+        p.label(
+            label,
+            (f.x0 - p.fpx(0.4), cy),
+            0.85,
+            TEXT,
+            HPos::Right,
+            VPos::Center,
+        )?;
+        let (a, c) = (from.min(from + len), from.max(from + len));
+        let xa = f.pt(a, 0.0).0;
+        let xc = f.pt(c, 0.0).0.max(xa + 1);
+        p.rect((xa, cy - bar_h), (xc, cy + bar_h), colour.to_rgba(), true)?;
+        if *measured {
+            // The measured total: an outline in black around the path's colour.
+            p.rect(
+                (xa, cy - bar_h),
+                (xc, cy + bar_h),
+                palette::BLACK.to_rgba(),
+                false,
+            )?;
+        }
+        p.summary.series += 1;
+        p.text(
+            &format_si(*len, "s", 3),
             (xc + p.fpx(0.3), cy),
             0.8,
             TEXT,

@@ -34,7 +34,7 @@ use plotters::backend::{BitMapBackend, DrawingBackend, SVGBackend};
 use crate::Error;
 use crate::format::units::{self, SiPrefix, SiStyle, si_prefix_for_span, unit_takes_prefix};
 
-use budget::draw_budget;
+use budget::{draw_budget, draw_path_budgets};
 use histogram::draw_histogram;
 use painter::{Painter, draw_err, ensure_font};
 use panels::draw_panels;
@@ -168,6 +168,19 @@ pub struct BudgetPlot<'a> {
     pub measured_s: f64,
 }
 
+/// The latency budgets of several paths on one time axis: for each path, its stages' bars laid end to end
+/// and its measured total under them, one colour per path.
+#[derive(Debug, Clone)]
+pub struct PathBudgetsPlot<'a> {
+    /// Title drawn above the plot.
+    pub title: String,
+    pub paths: Vec<PathBudget<'a>>,
+}
+
+/// One path of a [`PathBudgetsPlot`]: (path name, its budget lines (stage name, latency in s) in chain order,
+/// its measured latency in s).
+pub type PathBudget<'a> = (&'a str, &'a [(String, f64)], f64);
+
 /// A generic x-y chart (sweeps): several named series.
 #[derive(Debug, Clone)]
 pub struct XyPlot<'a> {
@@ -244,6 +257,8 @@ pub enum Plot<'a> {
     Static(StaticPlot<'a>),
     /// Latency budget bars.
     Budget(BudgetPlot<'a>),
+    /// Several paths' latency budgets side by side.
+    PathBudgets(PathBudgetsPlot<'a>),
     /// Generic x-y chart.
     Xy(XyPlot<'a>),
     /// Histogram bars.
@@ -398,6 +413,7 @@ fn draw_plot<DB: DrawingBackend>(
         Plot::Spectrum(s) => draw_spectrum(&mut p, s)?,
         Plot::Static(s) => draw_static(&mut p, s)?,
         Plot::Budget(b) => draw_budget(&mut p, b)?,
+        Plot::PathBudgets(b) => draw_path_budgets(&mut p, b)?,
         Plot::Xy(x) => draw_xy(&mut p, x)?,
         Plot::Histogram(h) => draw_histogram(&mut p, h)?,
         Plot::Panels(s) => draw_panels(&mut p, s)?,

@@ -781,3 +781,46 @@ fn gallery_is_written_for_a_visual_check() {
         std::fs::write(dir.join(format!("{name}.svg")), svg).unwrap();
     }
 }
+
+#[test]
+fn path_budgets_render_each_paths_stages_and_its_measured_total_on_one_axis() {
+    let fm = [
+        ("band limit".to_string(), 27.7e-6),
+        ("drive".to_string(), 0.8e-6),
+    ];
+    let digital = [
+        ("adc".to_string(), 9e-6),
+        ("link".to_string(), 0.374),
+        ("dac".to_string(), 10e-6),
+    ];
+    let plot = Plot::PathBudgets(PathBudgetsPlot {
+        title: "two paths".to_string(),
+        paths: vec![("fm", &fm[..], 28.5e-6), ("digital", &digital[..], 0.37406)],
+    });
+    // One bar per stage and one per path's measured total.
+    let (_, summary) = check_svg(&plot, fm.len() + digital.len() + 2);
+    for label in [
+        "fm: band limit",
+        "fm: measured",
+        "digital: link",
+        "digital: measured",
+    ] {
+        assert!(
+            summary.labels.iter().any(|s| s == label),
+            "{label}: {:?}",
+            summary.labels
+        );
+    }
+    // One axis in ms: the digital path sets the span.
+    assert!(
+        summary.labels.iter().any(|s| s == "time (ms)"),
+        "{:?}",
+        summary.labels
+    );
+    check_png(&plot, palette::BLUE);
+    let bad = Plot::PathBudgets(PathBudgetsPlot {
+        title: "none".to_string(),
+        paths: Vec::new(),
+    });
+    assert!(render_svg(&bad).is_err());
+}
