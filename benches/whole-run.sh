@@ -3,8 +3,9 @@
 # artefact (report.json, waveforms.csv, plots, WAV files, report.md, report.html), for 1 s and 0.1 s of signal,
 # then with --no-wav --no-plots: the median wall time of RUNS runs (default 5) each, and the peak resident memory
 # of the last one. Run from the repository root after `cargo build --release`:  sh benches/whole-run.sh [RUNS]
+# (CONVCHAIN_BIN=path/to/convchain times another build.)
 set -e
-bin=./target/release/convchain
+bin=${CONVCHAIN_BIN:-./target/release/convchain}
 runs=${1:-5}
 tmp=$(mktemp -d)
 trap 'rm -rf "$tmp"' EXIT

@@ -453,18 +453,25 @@ fn fifo_figure(name: &str, rec: &crate::engine::clock::SlipRecord) -> Result<Fig
     let t: Vec<f64> = rec.fill.iter().map(|p| p.0).collect();
     let lo: Vec<f64> = rec.fill.iter().map(|p| f64::from(p.1)).collect();
     let hi: Vec<f64> = rec.fill.iter().map(|p| f64::from(p.2)).collect();
-    let markers = rec
-        .slip_times_s
+    // At most MARKED slips, spread evenly over the ones recorded (first and last included).
+    const MARKED: usize = 24;
+    let n = rec.slip_times_s.len();
+    let shown: Vec<usize> = if n <= MARKED {
+        (0..n).collect()
+    } else {
+        (0..MARKED).map(|k| k * (n - 1) / (MARKED - 1)).collect()
+    };
+    let markers: Vec<(f64, String)> = shown
         .iter()
-        .take(12)
-        .map(|&s| (s, "slip".to_string()))
+        .map(|&i| (rec.slip_times_s[i], format!("slip {}", i + 1)))
         .collect();
+    let marked = markers.len();
     figure(
         "fifo_fill",
         format!(
             "Fill of the DAC's FIFO (depth {}) over the run, lowest and highest over each stretch of ticks: it \
              drifts as the two clocks differ; a slip repeats a code when it runs empty or drops one when it is \
-             full ({} slips; the first marked)",
+             full ({} slips; {marked} of them marked, numbered, spread over the run)",
             rec.depth, rec.slips
         ),
         &Plot::Xy(XyPlot {

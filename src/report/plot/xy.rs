@@ -58,6 +58,9 @@ pub(super) fn draw_xy<DB: DrawingBackend>(p: &mut Painter<DB>, xy: &XyPlot) -> R
         .collect();
     let f = titled_frame(p, &xy.title, &entries, x, y)?;
     f.draw(p, true)?;
+    // Each marker's line is drawn; its label only where it clears the label before it (close markers would
+    // otherwise print over each other).
+    let mut label_end = i32::MIN;
     for (x, label) in &xy.markers {
         if !usable(*x) {
             continue;
@@ -65,14 +68,24 @@ pub(super) fn draw_xy<DB: DrawingBackend>(p: &mut Painter<DB>, xy: &XyPlot) -> R
         let px = f.pt(*x, f.y.lo).0;
         p.line((px, f.y0), (px, f.y1), palette::BLACK.to_rgba(), 1)?;
         p.summary.markers += 1;
+        let w = p.text_width(label, 0.8);
+        // Right of the line, or left of it where the frame ends first.
+        let mut lx = px + p.fpx(0.3);
+        if lx + w > f.x1 {
+            lx = px - p.fpx(0.3) - w;
+        }
+        if label.is_empty() || lx < label_end || lx < f.x0 {
+            continue;
+        }
         p.label(
             label,
-            (px + p.fpx(0.3), f.y0 + p.fpx(0.3)),
+            (lx, f.y0 + p.fpx(0.3)),
             0.8,
             TEXT,
             HPos::Left,
             VPos::Top,
         )?;
+        label_end = lx + w + p.fpx(0.6);
     }
     for (k, (_, xs, ys)) in xy.series.iter().enumerate() {
         let c = palette::SERIES[k % 8];
