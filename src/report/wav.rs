@@ -109,9 +109,15 @@ impl Kernel {
         };
         let rho = 2.0 * cutoff_hz / in_rate_hz;
         let half_length_in_samples = HALF_LENGTH_LOW_RATE_SAMPLES * in_rate_hz / low_rate_hz;
+        Kernel::with(rho, half_length_in_samples, KAISER_BETA)
+    }
+
+    /// A kernel with its cut-off at rho / 2 cycles per input sample, reaching `half_length_in_samples` each
+    /// side, Kaiser window shape `beta`.
+    fn with(rho: f64, half_length_in_samples: f64, beta: f64) -> Kernel {
         let z_half = rho * half_length_in_samples;
         let n = (z_half * TABLE_POINTS_PER_ZERO).ceil() as usize;
-        let i0_beta = bessel_i0(KAISER_BETA);
+        let i0_beta = bessel_i0(beta);
         let mut table = Vec::with_capacity(n + 3);
         for i in 0..=n + 2 {
             let z = i as f64 / TABLE_POINTS_PER_ZERO;
@@ -119,7 +125,7 @@ impl Kernel {
             table.push(if v > 1.0 {
                 0.0
             } else {
-                sinc(z) * bessel_i0(KAISER_BETA * (1.0 - v * v).sqrt()) / i0_beta
+                sinc(z) * bessel_i0(beta * (1.0 - v * v).sqrt()) / i0_beta
             });
         }
         Kernel {
@@ -166,71 +172,16 @@ const SECOND_STAGE_RATIO: f64 = 6.0;
 /// Attenuation of the first stage's stop band (dB), above the second stage's.
 const FIRST_STAGE_ATTENUATION_DB: f64 = 115.0;
 
-/// The first stage of a large decimation: a symmetric, zero-delay, Kaiser-windowed sinc low-pass evaluated at
-/// every `factor`-th input sample.
-struct Decimator {
-    factor: usize,
-    /// Taps for offsets -half..=half input samples, summing to 1.
-    taps: Vec<f64>,
-    half: usize,
-}
-
-impl Decimator {
-    /// Passes what lies below `keep_hz` (the final rate's Nyquist frequency) with ripple of about
-    /// 10^(-115/20) and removes from `in_rate_hz / factor - keep_hz` on by about 115 dB, so nothing folds into
-    /// 0..keep_hz (Kaiser's design formulas, Oppenheim and Schafer, section 7.5).
-    fn new(in_rate_hz: f64, factor: usize, keep_hz: f64) -> Decimator {
-        let mid_rate_hz = in_rate_hz / factor as f64;
-        let transition = 2.0 * std::f64::consts::PI * (mid_rate_hz - 2.0 * keep_hz) / in_rate_hz;
-        let a = FIRST_STAGE_ATTENUATION_DB;
-        let beta = 0.1102 * (a - 8.7);
-        let half = (((a - 8.0) / (2.285 * transition)) / 2.0).ceil().max(1.0) as usize;
-        let rho = mid_rate_hz / in_rate_hz; // cut-off at half the intermediate rate
-        let i0_beta = bessel_i0(beta);
-        let mut taps: Vec<f64> = (0..=2 * half)
-            .map(|i| {
-                let k = i as f64 - half as f64;
-                let v = k / half as f64;
-                rho * sinc(rho * k) * bessel_i0(beta * (1.0 - v * v).max(0.0).sqrt()) / i0_beta
-            })
-            .collect();
-        let sum: f64 = taps.iter().sum();
-        for t in &mut taps {
-            *t /= sum;
-        }
-        Decimator { factor, taps, half }
-    }
-
-    /// Samples 0, factor, 2 factor, ... of the filtered record (samples outside it taken as zero).
-    fn run(&self, x: &[f64]) -> Vec<f64> {
-        let n = x.len();
-        let mut y = vec![0.0; (n + self.factor - 1) / self.factor];
-        y.par_chunks_mut(1024).enumerate().for_each(|(c, chunk)| {
-            for (i, out) in chunk.iter_mut().enumerate() {
-                let centre = (c * 1024 + i) * self.factor;
-                let k0 = centre as i64 - self.half as i64;
-                let j0 = (-k0).max(0) as usize;
-                let j1 = (self.taps.len() as i64).min(n as i64 - k0) as usize;
-                let x0 = (k0 + j0 as i64) as usize;
-                *out = dot(&self.taps[j0..j1], &x[x0..x0 + (j1 - j0)]);
-            }
-        });
-        y
-    }
-
-    /// As [`Decimator::run`] for the periodic signal of which `x` is one period (x.len() a multiple of
-    /// the factor).
-    fn run_circular(&self, x: &[f64]) -> Vec<f64> {
-        let padded = pad_circular(x, self.half, self.half);
-        let mut y = vec![0.0; x.len() / self.factor];
-        y.par_chunks_mut(1024).enumerate().for_each(|(c, chunk)| {
-            for (i, out) in chunk.iter_mut().enumerate() {
-                let k0 = (c * 1024 + i) * self.factor;
-                *out = dot(&self.taps, &padded[k0..k0 + self.taps.len()]);
-            }
-        });
-        y
-    }
+/// The first stage of a large decimation: a zero-delay Kaiser-windowed sinc low-pass from `in_rate_hz` to
+/// `in_rate_hz / step` that passes what lies below `keep_hz` (the final rate's Nyquist frequency) with ripple of
+/// about 10^(-115/20) and removes by about 115 dB from `in_rate_hz / step - keep_hz` on, so nothing folds into
+/// 0..keep_hz (Kaiser's design formulas, Oppenheim and Schafer, section 7.5).
+fn first_stage_kernel(in_rate_hz: f64, step: f64, keep_hz: f64) -> Kernel {
+    let mid_rate_hz = in_rate_hz / step;
+    let transition = 2.0 * std::f64::consts::PI * (mid_rate_hz - 2.0 * keep_hz) / in_rate_hz;
+    let a = FIRST_STAGE_ATTENUATION_DB;
+    let half = ((a - 8.0) / (2.285 * transition) / 2.0).ceil().max(1.0);
+    Kernel::with(1.0 / step, half, 0.1102 * (a - 8.7))
 }
 
 /// One period `x` with `before` samples of the previous period in front and `after` of the next behind.
@@ -261,7 +212,7 @@ fn dot(a: &[f64], b: &[f64]) -> f64 {
     ((acc[0] + acc[4]) + (acc[1] + acc[5])) + ((acc[2] + acc[6]) + (acc[3] + acc[7])) + tail
 }
 
-/// How the phase rows of a resampler are found.
+/// How the phase rows of a stage are found.
 enum Bank {
     /// The step is p / q input samples (whole numbers, q small): output instants take q phases, one exact row
     /// each, built for the grid's offset at each call.
@@ -270,16 +221,22 @@ enum Bank {
     Blended { rows: Vec<f64>, phases: usize },
 }
 
-/// A band-limited resampler from one rate to another: an optional first integer decimation stage, then a
-/// phase bank over the windowed-sinc [`Kernel`].
-struct Resampler {
-    first: Option<Decimator>,
+/// One phase-bank stage: a kernel evaluated at input positions u0 + m step.
+struct Stage {
     kernel: Kernel,
-    /// Taps per output sample of the last stage (2 l), for taps base - l + 1 ..= base + l.
+    /// Taps per output sample (2 l), for taps base - l + 1 ..= base + l.
     l: usize,
     bank: Bank,
-    /// Last stage's step (its input samples per output sample).
+    /// Input samples per output sample.
     step: f64,
+}
+
+/// A band-limited resampler from one rate to another: an optional first decimation stage, then the
+/// windowed-sinc [`Kernel`] of the module documentation, both through phase banks.
+struct Resampler {
+    /// The first stage and, for periodic records, the length of one period after it.
+    first: Option<(Stage, Option<usize>)>,
+    last: Stage,
     /// Reach of the whole resampler on each side of an output instant, in input samples.
     half_length_in_samples: f64,
 }
@@ -298,42 +255,18 @@ fn whole_ratio(a: f64, b: f64) -> Option<(u64, u64)> {
     Some((a / x, b / x))
 }
 
-impl Resampler {
-    /// `circular_len`: the length of the periodic records [`Resampler::eval_grid_circular`] will see (a first
-    /// stage is used for them only if its factor divides that length).
-    fn new(in_rate_hz: f64, out_rate_hz: f64, circular_len: Option<usize>) -> Resampler {
-        let ratio = in_rate_hz / out_rate_hz;
-        let mut factor = 1usize;
-        if ratio > SINGLE_STAGE_MAX_RATIO {
-            // Candidates leave the second stage a ratio from 4 to 16; prefer an exact bank, then a ratio near 6.
-            let lo = (ratio / SINGLE_STAGE_MAX_RATIO).ceil().max(2.0) as usize;
-            let hi = ((ratio / 4.0).floor() as usize).max(lo);
-            let mut best: Option<(bool, f64, usize)> = None;
-            for d in lo..=hi {
-                if circular_len.is_some_and(|n| n % d != 0) {
-                    continue;
-                }
-                let exact =
-                    whole_ratio(in_rate_hz, out_rate_hz * d as f64).is_some_and(|(_, q)| q <= 256);
-                let off = (ratio / d as f64 - SECOND_STAGE_RATIO).abs();
-                if best.is_none_or(|(e, o, _)| (exact && !e) || (exact == e && off < o)) {
-                    best = Some((exact, off, d));
-                }
-            }
-            if let Some((_, _, d)) = best {
-                factor = d;
-            }
-        }
-        let first = (factor > 1).then(|| Decimator::new(in_rate_hz, factor, 0.5 * out_rate_hz));
-        let mid_rate_hz = in_rate_hz / factor as f64;
-        let kernel = Kernel::new(mid_rate_hz, out_rate_hz);
+impl Stage {
+    /// `ratio`: the step as p / q in whole numbers, when known.
+    fn new(kernel: Kernel, step: f64, ratio: Option<(u64, u64)>) -> Stage {
         let l = kernel.half_length_in_samples.ceil() as usize + 1;
-        let exact = whole_ratio(in_rate_hz, out_rate_hz * factor as f64)
+        let exact = ratio
             .filter(|&(_, q)| q <= MAX_EXACT_DENOMINATOR && q as usize * 2 * l <= MAX_BANK_WEIGHTS);
         let bank = match exact {
             Some((p, q)) => Bank::Exact { p, q },
             None => {
-                let phases = BLENDED_PHASES.min(MAX_BANK_WEIGHTS / (2 * l) - 1).max(64);
+                let phases = BLENDED_PHASES
+                    .min((MAX_BANK_WEIGHTS / (2 * l)).saturating_sub(1))
+                    .max(64);
                 let mut rows = vec![0.0; (phases + 1) * 2 * l];
                 rows.par_chunks_mut(2 * l).enumerate().for_each(|(i, row)| {
                     kernel.fill_row(i as f64 / phases as f64, l, row);
@@ -341,60 +274,17 @@ impl Resampler {
                 Bank::Blended { rows, phases }
             }
         };
-        let half_length_in_samples = kernel.half_length_in_samples * factor as f64
-            + first.as_ref().map_or(0.0, |d| d.half as f64);
-        Resampler {
-            first,
+        Stage {
             kernel,
             l,
             bank,
-            step: ratio / factor as f64,
-            half_length_in_samples,
+            step,
         }
     }
 
-    /// y[m] = band-limited x at input position u0 + m in/out (samples outside the record count as zero),
-    /// spread over threads.
-    fn eval_grid(&self, x: &[f64], u0: f64, y: &mut [f64]) {
-        match &self.first {
-            Some(d) => {
-                let mid = d.run(x);
-                self.last_stage(&mid, u0 / d.factor as f64, y, None);
-            }
-            None => self.last_stage(x, u0, y, None),
-        }
-    }
-
-    /// As [`Resampler::eval_grid`] for the periodic signal whose one period is `x` (sample k + j x.len() is
-    /// sample k).
-    fn eval_grid_circular(&self, x: &[f64], u0: f64, y: &mut [f64]) {
-        if x.is_empty() {
-            y.fill(0.0);
-            return;
-        }
-        let mid;
-        let (x, u0) = match &self.first {
-            Some(d) if x.len() % d.factor == 0 => {
-                mid = d.run_circular(x);
-                (&mid[..], u0 / d.factor as f64)
-            }
-            Some(_) => {
-                debug_assert!(
-                    false,
-                    "a first stage whose factor does not divide the period"
-                );
-                (x, u0)
-            }
-            None => (x, u0),
-        };
-        let pad = self.l;
-        let padded = pad_circular(x, pad, pad);
-        self.last_stage(&padded, u0, y, Some((x.len(), pad)));
-    }
-
-    /// The phase-bank stage. `circular`: `x` is one period of length n with `pad` samples of wrap-around on
-    /// each side.
-    fn last_stage(&self, x: &[f64], u0: f64, y: &mut [f64], circular: Option<(usize, usize)>) {
+    /// y[m] = the stage's output at input position u0 + m step. `circular`: `x` is one period of length n
+    /// with `pad` samples of wrap-around on each side; otherwise samples outside `x` count as zero.
+    fn run(&self, x: &[f64], u0: f64, y: &mut [f64], circular: Option<(usize, usize)>) {
         const CHUNK: usize = 512;
         let l = self.l;
         let taps = 2 * l;
@@ -467,6 +357,98 @@ impl Resampler {
                     }
                 });
             }
+        }
+    }
+
+    /// As [`Stage::run`] for the periodic signal whose one period is `x`.
+    fn run_circular(&self, x: &[f64], u0: f64, y: &mut [f64]) {
+        if x.is_empty() {
+            y.fill(0.0);
+            return;
+        }
+        let padded = pad_circular(x, self.l, self.l);
+        self.run(&padded, u0, y, Some((x.len(), self.l)));
+    }
+}
+
+impl Resampler {
+    /// `circular_len`: the length of the periodic records [`Resampler::eval_grid_circular`] will see.
+    fn new(in_rate_hz: f64, out_rate_hz: f64, circular_len: Option<usize>) -> Resampler {
+        let ratio = in_rate_hz / out_rate_hz;
+        let keep_hz = 0.5 * out_rate_hz;
+        // Above a ratio of 16, a first stage leaves the last one a ratio near 6: a whole factor for records
+        // read as they are; for a periodic record of n samples a step n / m with m whole, so one period is m
+        // samples after it.
+        let first = (ratio > SINGLE_STAGE_MAX_RATIO).then(|| match circular_len {
+            None => {
+                let d = (ratio / SECOND_STAGE_RATIO).floor().max(2.0);
+                let stage = Stage::new(
+                    first_stage_kernel(in_rate_hz, d, keep_hz),
+                    d,
+                    Some((d as u64, 1)),
+                );
+                (stage, None)
+            }
+            Some(n) => {
+                let m = ((n as f64 * SECOND_STAGE_RATIO / ratio).round() as usize).max(1);
+                let step = n as f64 / m as f64;
+                let stage = Stage::new(
+                    first_stage_kernel(in_rate_hz, step, keep_hz),
+                    step,
+                    whole_ratio(n as f64, m as f64),
+                );
+                (stage, Some(m))
+            }
+        });
+        let first_step = first.as_ref().map_or(1.0, |(s, _)| s.step);
+        let mid_rate_hz = in_rate_hz / first_step;
+        let last_ratio = match (&first, circular_len) {
+            (None, _) => whole_ratio(in_rate_hz, out_rate_hz),
+            (Some((_, Some(m))), Some(n)) => {
+                whole_ratio(in_rate_hz * *m as f64, out_rate_hz * n as f64)
+            }
+            (Some(_), _) => whole_ratio(in_rate_hz, out_rate_hz * first_step),
+        };
+        let last = Stage::new(
+            Kernel::new(mid_rate_hz, out_rate_hz),
+            ratio / first_step,
+            last_ratio,
+        );
+        let half_length_in_samples = last.kernel.half_length_in_samples * first_step
+            + first
+                .as_ref()
+                .map_or(0.0, |(s, _)| s.kernel.half_length_in_samples);
+        Resampler {
+            first,
+            last,
+            half_length_in_samples,
+        }
+    }
+
+    /// y[m] = band-limited x at input position u0 + m in/out (samples outside the record count as zero),
+    /// spread over threads.
+    fn eval_grid(&self, x: &[f64], u0: f64, y: &mut [f64]) {
+        match &self.first {
+            Some((stage, _)) => {
+                let d = stage.step;
+                let mut mid = vec![0.0; ((x.len().max(1) - 1) as f64 / d).floor() as usize + 1];
+                stage.run(x, 0.0, &mut mid, None);
+                self.last.run(&mid, u0 / d, y, None);
+            }
+            None => self.last.run(x, u0, y, None),
+        }
+    }
+
+    /// As [`Resampler::eval_grid`] for the periodic signal whose one period is `x` (sample k + j x.len() is
+    /// sample k); `x.len()` is the `circular_len` the resampler was made for.
+    fn eval_grid_circular(&self, x: &[f64], u0: f64, y: &mut [f64]) {
+        match &self.first {
+            Some((stage, Some(m))) if !x.is_empty() => {
+                let mut mid = vec![0.0; *m];
+                stage.run_circular(x, 0.0, &mut mid);
+                self.last.run_circular(&mid, u0 / stage.step, y);
+            }
+            _ => self.last.run_circular(x, u0, y),
         }
     }
 }
@@ -1195,7 +1177,7 @@ mod tests {
             // Tones that the first stage's decimation would fold to 1 kHz and to 23 kHz.
             let mid_rate_hz = Resampler::new(in_rate_hz, 48_000.0, None)
                 .first
-                .map_or(f64::INFINITY, |d| in_rate_hz / d.factor as f64);
+                .map_or(f64::INFINITY, |(s, _)| in_rate_hz / s.step);
             for f_hz in [
                 24_000.0,
                 24_100.0,
