@@ -447,6 +447,7 @@ fn run_with(
                 adc_seen: Vec::new(),
                 last_adc_code: 0,
                 last_dac_code: 0,
+                clipped_before_settle: None,
             }
         })
         .collect();
@@ -498,6 +499,7 @@ fn run_with(
         .collect();
 
     let end_s = sc.simulation.duration_s;
+    let settle_s = sc.simulation.settle_s;
     let n_blocks = plan.n_total.div_ceil(BLOCK as u64);
     let block_len = |x: u64| (plan.n_total - x * BLOCK as u64).min(BLOCK as u64) as usize;
     let mut last_progress = 0.0;
@@ -546,6 +548,9 @@ fn run_with(
                     }
                     if needed > end_s {
                         break;
+                    }
+                    if h > 0 && st.clipped_before_settle.is_none() && t_k >= settle_s {
+                        st.clipped_before_settle = Some(conv.quantizer.codes_clipped());
                     }
                     let ev = match st.history.as_ref() {
                         Some(hist) => conv.quantizer.convert(k, hist),
@@ -752,10 +757,21 @@ fn run_with(
     let modulator_stream = chain
         .converter()
         .and_then(|c| c.quantizer.modulator_stream());
+    // The first hop counts every clipped code; a later hop only those after settle (before it, the hop before
+    // it is still starting up from rest).
     let codes_clipped = chain
         .hops
         .iter()
-        .map(|h| h.converter.quantizer.codes_clipped())
+        .zip(&hop_state)
+        .enumerate()
+        .map(|(h, (hop, st))| {
+            let all = hop.converter.quantizer.codes_clipped();
+            if h == 0 {
+                all
+            } else {
+                all - st.clipped_before_settle.unwrap_or(all)
+            }
+        })
         .sum();
     let bits_flipped = chain
         .hops
@@ -839,6 +855,9 @@ struct HopState {
     adc_seen: Vec<CodeEvent>,
     last_adc_code: u32,
     last_dac_code: u32,
+    /// A later hop's clipped codes before the first conversion after `settle` (while the hop before it starts
+    /// up from rest), left out of its count.
+    clipped_before_settle: Option<u64>,
 }
 
 /// The slip records of every hop's FIFO as one: counts summed, instants merged in time order (the first
