@@ -631,10 +631,12 @@ fn run_with(
                 }
                 let out = &mut ring[slot];
                 let c0 = hop_col[h];
-                let used = hop
-                    .converter
-                    .reconstructor
-                    .render(tb, n0, &st.dac_pending, &mut out[c0][..len]);
+                let used = hop.converter.reconstructor.render(
+                    tb,
+                    n0,
+                    &st.dac_pending,
+                    &mut out[c0][..len],
+                );
                 st.dac_pending.drain(..used);
                 for (i, (_, stage)) in hop.post.iter_mut().enumerate() {
                     let (head, tail) = out.split_at_mut(c0 + i + 1);
@@ -742,12 +744,8 @@ fn run_with(
             (Some(a), Some(x)) => Some(a + x),
         })
     };
-    let modulator_overloads = sum_opt(
-        &mut chain
-            .hops
-            .iter()
-            .map(|h| h.converter.quantizer.overloads()),
-    );
+    let modulator_overloads =
+        sum_opt(&mut chain.hops.iter().map(|h| h.converter.quantizer.overloads()));
     let dac_modulator_overloads = sum_opt(
         &mut chain
             .hops

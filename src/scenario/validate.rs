@@ -1151,10 +1151,15 @@ clock = "2 MHz"
         assert_eq!(s.stages.len(), 2 * MAX_HOPS);
         let text = format!("{HEAD}{}", hop.repeat(MAX_HOPS + 1));
         let e = err(&text);
-        assert_eq!(e.key_path, format!("stage.{}.kind", 2 * MAX_HOPS + 1), "{e}");
+        assert_eq!(
+            e.key_path,
+            format!("stage.{}.kind", 2 * MAX_HOPS + 1),
+            "{e}"
+        );
         assert!(
-            e.message
-                .contains(&format!("at most {MAX_HOPS} hops (ADC ... DAC groups) in series")),
+            e.message.contains(&format!(
+                "at most {MAX_HOPS} hops (ADC ... DAC groups) in series"
+            )),
             "{e}"
         );
         assert!(e.hint.is_some(), "{e}");
