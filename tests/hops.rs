@@ -101,6 +101,7 @@ fn the_delays_of_hops_in_series_add() {
     let one_b = run_hops(&d.path().join("b"), std::slice::from_ref(&b), &[]);
     let two = run_hops(&d.path().join("ab"), &[a, b], &[]);
     let (la, lb, lab) = (measured_s(&one_a), measured_s(&one_b), measured_s(&two));
+    eprintln!("one hop {la} s, the other {lb} s, both in series {lab} s");
     assert!(la > 2e-3 && lb > 1.5e-3, "{la} {lb}");
     assert!(
         (lab - (la + lb)).abs() < 0.05 / FS_HZ,
@@ -148,6 +149,7 @@ fn the_noise_powers_of_hops_in_series_add() {
     ));
     let n_ab = noise_power_v2(&run_hops(&d.path().join("ab"), &[a, b], &[]));
     let err_db = 10.0 * (n_ab / (n_a + n_b)).log10();
+    eprintln!("noise powers: {n_a:e} + {n_b:e} V^2 alone, {n_ab:e} V^2 in series ({err_db:+.3} dB)");
     assert!(
         err_db.abs() < 0.5,
         "two hops {n_ab:e} V^2 against {n_a:e} + {n_b:e} V^2 ({err_db:+.2} dB)"
