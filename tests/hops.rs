@@ -149,7 +149,9 @@ fn the_noise_powers_of_hops_in_series_add() {
     ));
     let n_ab = noise_power_v2(&run_hops(&d.path().join("ab"), &[a, b], &[]));
     let err_db = 10.0 * (n_ab / (n_a + n_b)).log10();
-    eprintln!("noise powers: {n_a:e} + {n_b:e} V^2 alone, {n_ab:e} V^2 in series ({err_db:+.3} dB)");
+    eprintln!(
+        "noise powers: {n_a:e} + {n_b:e} V^2 alone, {n_ab:e} V^2 in series ({err_db:+.3} dB)"
+    );
     assert!(
         err_db.abs() < 0.5,
         "two hops {n_ab:e} V^2 against {n_a:e} + {n_b:e} V^2 ({err_db:+.2} dB)"
@@ -160,7 +162,8 @@ fn the_noise_powers_of_hops_in_series_add() {
 fn the_waveform_csv_has_every_hops_streams_and_codes() {
     let d = tempfile::tempdir().unwrap();
     let hops = [hop(12, "1 ms"), hop(12, "1 ms"), hop(12, "1 ms")];
-    run_hops(d.path(), &hops, &["--full"]);
+    let r = run_hops(d.path(), &hops, &["--full"]);
+    assert_eq!(r["hops"].as_array().map(Vec::len), Some(3));
     let csv = std::fs::read_to_string(d.path().join("out/waveforms.csv")).unwrap();
     let header = csv.lines().next().unwrap();
     let cols: Vec<&str> = header.split(',').collect();
@@ -213,6 +216,20 @@ fn the_relay_demo_runs_clean() {
     assert_eq!(r["adc"]["codes_clipped"].as_u64(), Some(0));
     assert!(r["latency"]["slips"].is_null() || r["latency"]["slips"].as_u64() == Some(0));
     // The measured delay agrees with the budget summed over both hops within a fifth of a grid step (4.8 MHz).
+    // report.json's `hops`: one summary per hop, in order, whose subtotals are the budget after the studio's
+    // anti-alias filter.
+    let hops = r["hops"].as_array().expect("hops");
+    assert_eq!(hops.len(), 2);
+    assert_eq!(hops[0]["adc"].as_str(), Some("studio SAR"));
+    assert_eq!(hops[1]["dac"].as_str(), Some("transmitter DAC"));
+    let budget = r["latency"]["budget"].as_array().unwrap();
+    let first_line = budget[0]["seconds"].as_f64().unwrap();
+    let subtotals: f64 = hops.iter().map(|h| h["budget_s"].as_f64().unwrap()).sum();
+    let total = r["latency"]["budget_s"].as_f64().unwrap();
+    assert!(
+        (first_line + subtotals - total).abs() < 1e-12,
+        "{subtotals} + {first_line} vs {total}"
+    );
     let diff = r["latency"]["difference_s"].as_f64().unwrap();
     assert!(diff.abs() < 0.2 / 4.8e6, "{diff}");
 }

@@ -68,8 +68,23 @@ pub trait WaveformSink {
     ) -> Result<()>;
 }
 
+/// One hop's summary, for the report of a chain with hops in series.
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
+pub struct HopSummary {
+    /// The hop's ADC and DAC (their labels).
+    pub adc: String,
+    pub dac: String,
+    pub sample_rate_hz: f64,
+    /// The sum of the hop's budget lines (its ADC, code stages, DAC and the analog stages after it).
+    pub budget_s: f64,
+    /// Codes the hop's ADC clipped (a later hop: after `settle`).
+    pub codes_clipped: u64,
+}
+
 /// Everything a run produced.
 pub struct RunOutput {
+    /// One summary per hop (empty without a converter).
+    pub hops: Vec<HopSummary>,
     /// The scenario as run (coherent frequency applied).
     pub scenario: Scenario,
     pub plan: Plan,
@@ -288,6 +303,42 @@ impl Chain {
             .collect()
     }
 
+    /// Hop `h`'s lines of the budget (see [`Chain::budget`]): its ADC, code stages, FIFO, DAC and the analog
+    /// stages after it.
+    pub fn hop_budget(&self, h: usize, f_hz: Option<f64>, broadband_hz: f64) -> Vec<BudgetLine> {
+        let delay = |s: &dyn AnalogStage| match f_hz {
+            Some(f) => s.phase_delay_s(f),
+            None => s.group_delay_s(broadband_hz),
+        };
+        let mut lines = Vec::new();
+        let h = &self.hops[h];
+        let c = &h.converter;
+        let mut fs = c.quantizer.sample_rate_hz();
+        lines.extend(c.quantizer.budget_at(f_hz.unwrap_or(broadband_hz)));
+        for stage in &c.code {
+            lines.extend(stage.budget(fs));
+            fs = stage.output_rate_hz(fs);
+        }
+        if let Some(f) = c.reconstructor.fifo() {
+            lines.push(BudgetLine {
+                stage: format!(
+                    "{}: FIFO from the codes' clock to its own (starts at {} of {})",
+                    c.reconstructor_label, f.start, f.depth
+                ),
+                seconds: f.delay_s(fs),
+            });
+            fs = f.tick_rate_hz;
+        }
+        lines.extend(c.reconstructor.budget(fs, f_hz.unwrap_or(broadband_hz)));
+        for (label, s) in &h.post {
+            lines.push(BudgetLine {
+                stage: label.clone(),
+                seconds: delay(s.as_ref()),
+            });
+        }
+        lines
+    }
+
     /// The latency budget at `f_hz` (phase delays) or, for broadband sources (`None`), group delays at `broadband_hz`.
     pub fn budget(&self, f_hz: Option<f64>, broadband_hz: f64) -> Vec<BudgetLine> {
         let delay = |s: &dyn AnalogStage| match f_hz {
@@ -301,31 +352,8 @@ impl Chain {
                 seconds: delay(s.as_ref()),
             });
         }
-        for h in &self.hops {
-            let c = &h.converter;
-            let mut fs = c.quantizer.sample_rate_hz();
-            lines.extend(c.quantizer.budget_at(f_hz.unwrap_or(broadband_hz)));
-            for stage in &c.code {
-                lines.extend(stage.budget(fs));
-                fs = stage.output_rate_hz(fs);
-            }
-            if let Some(f) = c.reconstructor.fifo() {
-                lines.push(BudgetLine {
-                    stage: format!(
-                        "{}: FIFO from the codes' clock to its own (starts at {} of {})",
-                        c.reconstructor_label, f.start, f.depth
-                    ),
-                    seconds: f.delay_s(fs),
-                });
-                fs = f.tick_rate_hz;
-            }
-            lines.extend(c.reconstructor.budget(fs, f_hz.unwrap_or(broadband_hz)));
-            for (label, s) in &h.post {
-                lines.push(BudgetLine {
-                    stage: label.clone(),
-                    seconds: delay(s.as_ref()),
-                });
-            }
+        for h in 0..self.hops.len() {
+            lines.extend(self.hop_budget(h, f_hz, broadband_hz));
         }
         lines
     }
@@ -757,7 +785,7 @@ fn run_with(
         .and_then(|c| c.quantizer.modulator_stream());
     // The first hop counts every clipped code; a later hop only those after settle (before it, the hop before
     // it is still starting up from rest).
-    let codes_clipped = chain
+    let hop_clipped: Vec<u64> = chain
         .hops
         .iter()
         .zip(&hop_state)
@@ -770,7 +798,8 @@ fn run_with(
                 all - st.clipped_before_settle.unwrap_or(all)
             }
         })
-        .sum();
+        .collect();
+    let codes_clipped = hop_clipped.iter().sum();
     let bits_flipped = chain
         .hops
         .iter()
@@ -801,6 +830,23 @@ fn run_with(
         plan.frequency_hz,
         plan.out_band_hz.min(tb.rate_hz / 4.0) / 10.0,
     );
+    let broadband_hz = plan.out_band_hz.min(tb.rate_hz / 4.0) / 10.0;
+    let hops = (0..n_hops)
+        .map(|h| {
+            let c = &chain.hops[h].converter;
+            HopSummary {
+                adc: c.quantizer_label.clone(),
+                dac: c.reconstructor_label.clone(),
+                sample_rate_hz: c.quantizer.sample_rate_hz(),
+                budget_s: chain
+                    .hop_budget(h, plan.frequency_hz, broadband_hz)
+                    .iter()
+                    .map(|l| l.seconds)
+                    .sum(),
+                codes_clipped: hop_clipped[h],
+            }
+        })
+        .collect();
     let slips = combine_slips(
         chain
             .hops
@@ -819,6 +865,7 @@ fn run_with(
         })
         .unwrap_or(1.0);
     Ok(RunOutput {
+        hops,
         scenario: sc,
         plan,
         adc_codes,
