@@ -205,6 +205,9 @@ fn run_inner(
     }
     let alignment = metrics.detail.alignment;
     let mut report = Report::new(&run.scenario, &run.plan, metrics);
+    if run.hops.len() > 1 {
+        report.hops = Some(run.hops.clone());
+    }
     report.imd = imd;
     report.audio = audio;
     report.compare = compared.map(|(rep, ..)| rep);

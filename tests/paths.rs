@@ -257,7 +257,7 @@ fn path_mistakes_are_located_errors() {
                 PATHS.replace("kind = \"dac\"", "kind = \"amplifier\"")
             ),
             "path.2.stage.3.kind",
-            "between the ADC and the DAC",
+            "between an ADC and its DAC",
         ),
     ];
     for (text, key, msg) in cases {

@@ -68,8 +68,23 @@ pub trait WaveformSink {
     ) -> Result<()>;
 }
 
+/// One hop's summary, for the report of a chain with hops in series.
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
+pub struct HopSummary {
+    /// The hop's ADC and DAC (their labels).
+    pub adc: String,
+    pub dac: String,
+    pub sample_rate_hz: f64,
+    /// The sum of the hop's budget lines (its ADC, code stages, DAC and the analog stages after it).
+    pub budget_s: f64,
+    /// Codes the hop's ADC clipped (a later hop: after `settle`).
+    pub codes_clipped: u64,
+}
+
 /// Everything a run produced.
 pub struct RunOutput {
+    /// One summary per hop (empty without a converter).
+    pub hops: Vec<HopSummary>,
     /// The scenario as run (coherent frequency applied).
     pub scenario: Scenario,
     pub plan: Plan,
@@ -151,9 +166,17 @@ impl RunOutput {
 /// The built stages.
 pub struct Chain {
     pub source: SourceGen,
-    /// Analog stages before the converter (or all of them in an analog-only chain), with their labels.
+    /// Analog stages before the first converter (or all of them in an analog-only chain), with their labels.
     pub pre: Vec<(String, Box<dyn AnalogStage>)>,
-    pub converter: Option<Converter>,
+    /// The hops in series: each a converter group and the analog stages after its DAC (none in an analog-only
+    /// chain).
+    pub hops: Vec<Hop>,
+}
+
+/// One hop: a converter group and the analog stages after its DAC (which feed the next hop's ADC, or the
+/// chain's output after the last hop).
+pub struct Hop {
+    pub converter: Converter,
     /// Analog stages after the DAC.
     pub post: Vec<(String, Box<dyn AnalogStage>)>,
 }
@@ -202,10 +225,9 @@ impl Chain {
         let seed = sc.simulation.seed;
         let source = SourceGen::new(&sc.source, timebase, seed, &sc.base_dir)?;
         let mut pre: Vec<(String, Box<dyn AnalogStage>)> = Vec::new();
-        let mut post: Vec<(String, Box<dyn AnalogStage>)> = Vec::new();
+        let mut hops: Vec<Hop> = Vec::new();
         let mut quantizer: Option<(String, Box<dyn Quantizer>)> = None;
         let mut code = Vec::new();
-        let mut converter = None;
         let mut up = Upstream::default();
         let mut pending_hold = None;
         for (i, stage) in sc.stages.iter().enumerate() {
@@ -215,13 +237,10 @@ impl Chain {
             pending_hold = ctx.pending_hold.take();
             stage.kind.pass_on(&mut up);
             match runtime {
-                Runtime::Analog(a) => {
-                    if converter.is_some() {
-                        post.push((stage.label.clone(), a));
-                    } else {
-                        pre.push((stage.label.clone(), a));
-                    }
-                }
+                Runtime::Analog(a) => match hops.last_mut() {
+                    Some(h) => h.post.push((stage.label.clone(), a)),
+                    None => pre.push((stage.label.clone(), a)),
+                },
                 Runtime::Hold => {}
                 Runtime::Quantizer(q) => quantizer = Some((stage.label.clone(), q)),
                 Runtime::Code(c) => code.push(c),
@@ -237,34 +256,87 @@ impl Chain {
                             sc.origin, stage.label
                         ))
                     })?;
-                    converter = Some(Converter {
-                        quantizer_label,
-                        quantizer,
-                        code: std::mem::take(&mut code),
-                        reconstructor_label: stage.label.clone(),
-                        reconstructor: r,
-                        crossing,
+                    hops.push(Hop {
+                        converter: Converter {
+                            quantizer_label,
+                            quantizer,
+                            code: std::mem::take(&mut code),
+                            reconstructor_label: stage.label.clone(),
+                            reconstructor: r,
+                            crossing,
+                        },
+                        post: Vec::new(),
                     });
                 }
             }
         }
-        Ok(Chain {
-            source,
-            pre,
-            converter,
-            post,
-        })
+        Ok(Chain { source, pre, hops })
     }
 
-    /// Labels of the analog columns: the source, each analog stage before the converter, the DAC, each after.
+    /// The first hop's converter (the one most meters and the static bench read), when the chain has one.
+    pub fn converter(&self) -> Option<&Converter> {
+        self.hops.first().map(|h| &h.converter)
+    }
+
+    /// Labels of the analog columns: the source, each analog stage before the first converter, then for each hop
+    /// its DAC and the analog stages after it.
     pub fn analog_labels(&self) -> Vec<String> {
         let mut v = vec!["source".to_string()];
         v.extend(self.pre.iter().map(|(l, _)| l.clone()));
-        if let Some(c) = &self.converter {
-            v.push(c.reconstructor_label.clone());
+        for h in &self.hops {
+            v.push(h.converter.reconstructor_label.clone());
+            v.extend(h.post.iter().map(|(l, _)| l.clone()));
         }
-        v.extend(self.post.iter().map(|(l, _)| l.clone()));
         v
+    }
+
+    /// Labels of the code columns: each hop's ADC codes and DAC input codes.
+    pub fn code_labels(&self) -> Vec<String> {
+        self.hops
+            .iter()
+            .flat_map(|h| {
+                [
+                    format!("{} code", h.converter.quantizer_label),
+                    format!("{} code", h.converter.reconstructor_label),
+                ]
+            })
+            .collect()
+    }
+
+    /// Hop `h`'s lines of the budget (see [`Chain::budget`]): its ADC, code stages, FIFO, DAC and the analog
+    /// stages after it.
+    pub fn hop_budget(&self, h: usize, f_hz: Option<f64>, broadband_hz: f64) -> Vec<BudgetLine> {
+        let delay = |s: &dyn AnalogStage| match f_hz {
+            Some(f) => s.phase_delay_s(f),
+            None => s.group_delay_s(broadband_hz),
+        };
+        let mut lines = Vec::new();
+        let h = &self.hops[h];
+        let c = &h.converter;
+        let mut fs = c.quantizer.sample_rate_hz();
+        lines.extend(c.quantizer.budget_at(f_hz.unwrap_or(broadband_hz)));
+        for stage in &c.code {
+            lines.extend(stage.budget(fs));
+            fs = stage.output_rate_hz(fs);
+        }
+        if let Some(f) = c.reconstructor.fifo() {
+            lines.push(BudgetLine {
+                stage: format!(
+                    "{}: FIFO from the codes' clock to its own (starts at {} of {})",
+                    c.reconstructor_label, f.start, f.depth
+                ),
+                seconds: f.delay_s(fs),
+            });
+            fs = f.tick_rate_hz;
+        }
+        lines.extend(c.reconstructor.budget(fs, f_hz.unwrap_or(broadband_hz)));
+        for (label, s) in &h.post {
+            lines.push(BudgetLine {
+                stage: label.clone(),
+                seconds: delay(s.as_ref()),
+            });
+        }
+        lines
     }
 
     /// The latency budget at `f_hz` (phase delays) or, for broadband sources (`None`), group delays at `broadband_hz`.
@@ -280,30 +352,8 @@ impl Chain {
                 seconds: delay(s.as_ref()),
             });
         }
-        if let Some(c) = &self.converter {
-            let mut fs = c.quantizer.sample_rate_hz();
-            lines.extend(c.quantizer.budget_at(f_hz.unwrap_or(broadband_hz)));
-            for stage in &c.code {
-                lines.extend(stage.budget(fs));
-                fs = stage.output_rate_hz(fs);
-            }
-            if let Some(f) = c.reconstructor.fifo() {
-                lines.push(BudgetLine {
-                    stage: format!(
-                        "{}: FIFO from the codes' clock to its own (starts at {} of {})",
-                        c.reconstructor_label, f.start, f.depth
-                    ),
-                    seconds: f.delay_s(fs),
-                });
-                fs = f.tick_rate_hz;
-            }
-            lines.extend(c.reconstructor.budget(fs, f_hz.unwrap_or(broadband_hz)));
-        }
-        for (label, s) in &self.post {
-            lines.push(BudgetLine {
-                stage: label.clone(),
-                seconds: delay(s.as_ref()),
-            });
+        for h in 0..self.hops.len() {
+            lines.extend(self.hop_budget(h, f_hz, broadband_hz));
         }
         lines
     }
@@ -380,52 +430,66 @@ fn run_with(
     let mut chain = Chain::build(&sc, tb)?;
     let labels = chain.analog_labels();
     let n_pre = chain.pre.len();
-    let n_post = chain.post.len();
-    let has_conv = chain.converter.is_some();
-    let code_labels: Vec<String> = match &chain.converter {
-        Some(c) => vec![
-            format!("{} code", c.quantizer_label),
-            format!("{} code", c.reconstructor_label),
-        ],
-        None => vec![],
-    };
+    let n_hops = chain.hops.len();
+    let has_conv = n_hops > 0;
+    let code_labels = chain.code_labels();
     if let Some(s) = sink.as_deref_mut() {
         s.begin(&labels, &code_labels)?;
     }
-
-    // Front buffers (current and previous block) and back buffers.
-    let mut front_cur: Vec<Vec<f64>> = vec![vec![0.0; BLOCK]; 1 + n_pre];
-    let mut front_prev: Vec<Vec<f64>> = vec![vec![0.0; BLOCK]; 1 + n_pre];
-    let mut back: Vec<Vec<f64>> = vec![vec![0.0; BLOCK]; usize::from(has_conv) + n_post];
-    let mut code_cols: Vec<Vec<u32>> = vec![vec![0; BLOCK]; code_labels.len()];
-
-    // Probe: exact source, or a history of the stream entering the converter.
-    let exact = n_pre == 0 && chain.source.is_exact();
-    let mut history = None;
-    if let Some(c) = &chain.converter
-        && !exact
-    {
-        let span_s = c.quantizer.history_needed_s();
-        let cap = (span_s * tb.rate_hz).ceil() as usize + 3 * BLOCK + 16;
-        history = Some(GridHistory::new(tb.rate_hz, cap));
+    // Column of each hop's DAC (its post stages follow it), and the column feeding each hop's ADC.
+    let mut hop_col = Vec::with_capacity(n_hops);
+    let mut next_col = 1 + n_pre;
+    for h in &chain.hops {
+        hop_col.push(next_col);
+        next_col += 1 + h.post.len();
     }
+
+    // A ring of `depth` blocks of every column: hop h renders block b - h - 1 while the front computes block b,
+    // so every code due within a block is known before the block is rendered; block b - hops is complete and is
+    // handed on.
+    let depth = n_hops + 1;
+    let mut ring: Vec<Vec<Vec<f64>>> = vec![vec![vec![0.0; BLOCK]; labels.len()]; depth];
+    let mut code_ring: Vec<Vec<Vec<u32>>> = if sink.is_some() {
+        vec![vec![vec![0; BLOCK]; code_labels.len()]; depth]
+    } else {
+        vec![Vec::new(); depth]
+    };
+
+    // Probe of the first hop: exact source, or a history of the stream entering the converter; later hops read
+    // the history of the stream before them.
+    let exact = n_pre == 0 && chain.source.is_exact();
+    let mut hop_state: Vec<HopState> = chain
+        .hops
+        .iter()
+        .enumerate()
+        .map(|(h, hop)| {
+            let history = (h > 0 || !exact).then(|| {
+                let span_s = hop.converter.quantizer.history_needed_s();
+                let cap = (span_s * tb.rate_hz).ceil() as usize + 3 * BLOCK + 16;
+                GridHistory::new(tb.rate_hz, cap)
+            });
+            HopState {
+                history,
+                k: 0,
+                dac_pending: Vec::new(),
+                adc_seen: Vec::new(),
+                last_adc_code: 0,
+                last_dac_code: 0,
+                clipped_before_settle: None,
+            }
+        })
+        .collect();
 
     let mut adc_codes = plan.adc.map(|a| CodeRecord {
         bits: a.bits,
         sample_rate_hz: a.sample_rate_hz,
         codes: Vec::with_capacity(a.record_len),
     });
-    let mut k: u64 = 0;
     let capture_t0_s = tb.time_s(plan.capture_n0);
     let mut capture_adc_events: Vec<CodeEvent> = Vec::new();
     let mut capture_dac_events: Vec<CodeEvent> = Vec::new();
-    let mut dac_pending: Vec<CodeEvent> = Vec::new();
     let mut link_buf_a: Vec<CodeEvent> = Vec::new();
     let mut link_buf_b: Vec<CodeEvent> = Vec::new();
-    // For the code columns of the waveform sink.
-    let mut adc_seen: Vec<CodeEvent> = Vec::new();
-    let mut last_adc_code = 0u32;
-    let mut last_dac_code = 0u32;
 
     // A closed-form source is sampled directly at the analysis instants; others are decimated like the output.
     let exact_source = chain.source.is_exact();
@@ -463,30 +527,45 @@ fn run_with(
         .collect();
 
     let end_s = sc.simulation.duration_s;
+    let settle_s = sc.simulation.settle_s;
     let n_blocks = plan.n_total.div_ceil(BLOCK as u64);
+    let block_len = |x: u64| (plan.n_total - x * BLOCK as u64).min(BLOCK as u64) as usize;
     let mut last_progress = 0.0;
-    for b in 0..=n_blocks {
+    for b in 0..n_blocks + n_hops as u64 {
         // ---- front half of block b
         if b < n_blocks {
             let n0 = b * BLOCK as u64;
-            let len = (plan.n_total - n0).min(BLOCK as u64) as usize;
+            let len = block_len(b);
+            let front = &mut ring[(b % depth as u64) as usize];
             if !skip_source {
-                chain.source.fill(n0, &mut front_cur[0][..len]);
+                chain.source.fill(n0, &mut front[0][..len]);
             }
             for i in 0..n_pre {
-                let (head, tail) = front_cur.split_at_mut(i + 1);
+                let (head, tail) = front.split_at_mut(i + 1);
                 chain.pre[i].1.process(&head[i][..len], &mut tail[0][..len]);
             }
-            if let Some(conv) = chain.converter.as_mut() {
-                let t_avail_input = match history.as_mut() {
-                    Some(h) => {
-                        h.push_block(n0, &front_cur[n_pre][..len]);
-                        h.latest_time_s()
+        }
+        for h in 0..n_hops {
+            let hop = &mut chain.hops[h];
+            let st = &mut hop_state[h];
+            // ---- the hop's ADC reads block b - h of the stream before it
+            if let Some(xb) = b.checked_sub(h as u64)
+                && xb < n_blocks
+            {
+                let conv = &mut hop.converter;
+                let n0 = xb * BLOCK as u64;
+                let len = block_len(xb);
+                let t_avail_input = match st.history.as_mut() {
+                    Some(hist) => {
+                        let slot = &ring[(xb % depth as u64) as usize];
+                        hist.push_block(n0, &slot[hop_col[h] - 1][..len]);
+                        hist.latest_time_s()
                     }
                     None => tb.time_s(n0 + len as u64 - 1),
                 };
-                let last_block = b + 1 == n_blocks;
+                let last_block = xb + 1 == n_blocks;
                 loop {
+                    let k = st.k;
                     let t_k = conv.quantizer.sample_time_s(k);
                     if t_k >= end_s {
                         break;
@@ -498,8 +577,11 @@ fn run_with(
                     if needed > end_s {
                         break;
                     }
-                    let ev = match history.as_ref() {
-                        Some(h) => conv.quantizer.convert(k, h),
+                    if h > 0 && st.clipped_before_settle.is_none() && t_k >= settle_s {
+                        st.clipped_before_settle = Some(conv.quantizer.codes_clipped());
+                    }
+                    let ev = match st.history.as_ref() {
+                        Some(hist) => conv.quantizer.convert(k, hist),
                         None => conv.quantizer.convert(
                             k,
                             &ExactProbe {
@@ -507,17 +589,19 @@ fn run_with(
                             },
                         ),
                     };
-                    if let (Some(rec), Some(p)) = (adc_codes.as_mut(), plan.adc.as_ref())
-                        && k >= p.k0
-                        && rec.codes.len() < p.record_len
-                    {
-                        rec.codes.push(ev);
+                    if h == 0 {
+                        if let (Some(rec), Some(p)) = (adc_codes.as_mut(), plan.adc.as_ref())
+                            && k >= p.k0
+                            && rec.codes.len() < p.record_len
+                        {
+                            rec.codes.push(ev);
+                        }
+                        if ev.t_sample_s >= capture_t0_s {
+                            capture_adc_events.push(ev);
+                        }
                     }
                     if sink.is_some() {
-                        adc_seen.push(ev);
-                    }
-                    if ev.t_sample_s >= capture_t0_s {
-                        capture_adc_events.push(ev);
+                        st.adc_seen.push(ev);
                     }
                     link_buf_a.clear();
                     link_buf_a.push(ev);
@@ -535,66 +619,69 @@ fn run_with(
                         }
                         std::mem::swap(&mut link_buf_a, &mut link_buf_b);
                     }
-                    capture_dac_events
-                        .extend(link_buf_a.iter().filter(|e| e.t_avail_s >= capture_t0_s));
-                    dac_pending.append(&mut link_buf_a);
-                    k += 1;
+                    if h == 0 {
+                        capture_dac_events
+                            .extend(link_buf_a.iter().filter(|e| e.t_avail_s >= capture_t0_s));
+                    }
+                    st.dac_pending.append(&mut link_buf_a);
+                    st.k += 1;
+                }
+            }
+            // ---- the hop's DAC and the analog stages after it render block b - h - 1
+            if let Some(rb) = b.checked_sub(h as u64 + 1)
+                && rb < n_blocks
+            {
+                let n0 = rb * BLOCK as u64;
+                let len = block_len(rb);
+                let slot = (rb % depth as u64) as usize;
+                if sink.is_some() {
+                    let codes = &mut code_ring[slot];
+                    fill_code_column(
+                        tb,
+                        n0,
+                        &st.adc_seen,
+                        &mut st.last_adc_code,
+                        &mut codes[2 * h][..len],
+                    );
+                    let used = st
+                        .adc_seen
+                        .iter()
+                        .take_while(|e| e.t_avail_s <= tb.time_s(n0 + len as u64 - 1))
+                        .count();
+                    st.adc_seen.drain(..used);
+                    fill_code_column(
+                        tb,
+                        n0,
+                        &st.dac_pending,
+                        &mut st.last_dac_code,
+                        &mut codes[2 * h + 1][..len],
+                    );
+                }
+                let out = &mut ring[slot];
+                let c0 = hop_col[h];
+                let used = hop.converter.reconstructor.render(
+                    tb,
+                    n0,
+                    &st.dac_pending,
+                    &mut out[c0][..len],
+                );
+                st.dac_pending.drain(..used);
+                for (i, (_, stage)) in hop.post.iter_mut().enumerate() {
+                    let (head, tail) = out.split_at_mut(c0 + i + 1);
+                    stage.process(&head[c0 + i][..len], &mut tail[0][..len]);
                 }
             }
         }
 
-        // ---- back half of block b - 1
-        if b >= 1 {
-            let n0 = (b - 1) * BLOCK as u64;
-            let len = (plan.n_total - n0).min(BLOCK as u64) as usize;
-            if let Some(conv) = chain.converter.as_mut() {
-                if sink.is_some() {
-                    fill_code_column(
-                        tb,
-                        n0,
-                        &adc_seen,
-                        &mut last_adc_code,
-                        &mut code_cols[0][..len],
-                    );
-                    let used = adc_seen
-                        .iter()
-                        .take_while(|e| e.t_avail_s <= tb.time_s(n0 + len as u64 - 1))
-                        .count();
-                    adc_seen.drain(..used);
-                    fill_code_column(
-                        tb,
-                        n0,
-                        &dac_pending,
-                        &mut last_dac_code,
-                        &mut code_cols[1][..len],
-                    );
-                }
-                let used = conv
-                    .reconstructor
-                    .render(tb, n0, &dac_pending, &mut back[0][..len]);
-                dac_pending.drain(..used);
-            }
-            let base = usize::from(has_conv);
-            for i in 0..n_post {
-                if base + i == 0 {
-                    // Analog-only chain: the first post stage reads the front's last stream.
-                    chain.post[i]
-                        .1
-                        .process(&front_prev[n_pre][..len], &mut back[0][..len]);
-                } else {
-                    let (head, tail) = back.split_at_mut(base + i);
-                    chain.post[i]
-                        .1
-                        .process(&head[base + i - 1][..len], &mut tail[0][..len]);
-                }
-            }
-            // Columns: source, pre..., [dac], post...
+        // ---- block b - hops is complete: hand it on
+        if let Some(eb) = b.checked_sub(n_hops as u64) {
+            let n0 = eb * BLOCK as u64;
+            let len = block_len(eb);
+            let slot = (eb % depth as u64) as usize;
+            // Columns: source, pre..., then for each hop [dac, post...].
             let mut cols: Vec<&[f64]> = Vec::with_capacity(labels.len());
-            for f in front_prev.iter() {
-                cols.push(&f[..len]);
-            }
-            for bk in back.iter() {
-                cols.push(&bk[..len]);
+            for c in ring[slot].iter() {
+                cols.push(&c[..len]);
             }
             let out_col = cols[cols.len() - 1];
             // Analysis streams after settle.
@@ -621,7 +708,7 @@ fn run_with(
                 }
             }
             if let Some(s) = sink.as_deref_mut() {
-                let codes: Vec<&[u32]> = code_cols.iter().map(|c| &c[..len]).collect();
+                let codes: Vec<&[u32]> = code_ring[slot].iter().map(|c| &c[..len]).collect();
                 s.block(tb, n0, &cols, &codes)?;
             }
             let frac = end as f64 / plan.n_total as f64;
@@ -630,7 +717,6 @@ fn run_with(
                 last_progress = frac;
             }
         }
-        std::mem::swap(&mut front_cur, &mut front_prev);
     }
     dec_out.flush(&mut out_dec);
     // Counts below are of the whole decimated streams since settle; the vectors hold them from `dec_dropped`.
@@ -678,37 +764,56 @@ fn run_with(
         volts: out_dec,
     };
 
-    let modulator_overloads = chain
-        .converter
-        .as_ref()
-        .and_then(|c| c.quantizer.overloads());
-    let dac_modulator_overloads = chain
-        .converter
-        .as_ref()
-        .and_then(|c| c.reconstructor.overloads());
-    let modulator_stream = chain
-        .converter
-        .as_ref()
-        .and_then(|c| c.quantizer.modulator_stream());
-    let (codes_clipped, bits_flipped) = match &chain.converter {
-        Some(c) => (
-            c.quantizer.codes_clipped(),
-            c.code.iter().map(|l| l.bits_flipped()).sum(),
-        ),
-        None => (0, 0),
+    // Counts summed over the hops (a noise-shaping loop's stream: the first hop's).
+    let sum_opt = |it: &mut dyn Iterator<Item = Option<u64>>| {
+        it.fold(None, |acc: Option<u64>, x| match (acc, x) {
+            (None, x) => x,
+            (a, None) => a,
+            (Some(a), Some(x)) => Some(a + x),
+        })
     };
-    let (packets_lost, packet_loss_times_s) = match &chain.converter {
-        Some(c) => {
-            let mut times: Vec<f64> = c
-                .code
-                .iter()
-                .flat_map(|l| l.packet_loss_times_s().iter().copied())
-                .collect();
-            times.sort_by(f64::total_cmp);
-            times.truncate(crate::stages::network::LOSS_TIMES_MAX);
-            (c.code.iter().map(|l| l.packets_lost()).sum(), times)
-        }
-        None => (0, Vec::new()),
+    let modulator_overloads =
+        sum_opt(&mut chain.hops.iter().map(|h| h.converter.quantizer.overloads()));
+    let dac_modulator_overloads = sum_opt(
+        &mut chain
+            .hops
+            .iter()
+            .map(|h| h.converter.reconstructor.overloads()),
+    );
+    let modulator_stream = chain
+        .converter()
+        .and_then(|c| c.quantizer.modulator_stream());
+    // The first hop counts every clipped code; a later hop only those after settle (before it, the hop before
+    // it is still starting up from rest).
+    let hop_clipped: Vec<u64> = chain
+        .hops
+        .iter()
+        .zip(&hop_state)
+        .enumerate()
+        .map(|(h, (hop, st))| {
+            let all = hop.converter.quantizer.codes_clipped();
+            if h == 0 {
+                all
+            } else {
+                all - st.clipped_before_settle.unwrap_or(all)
+            }
+        })
+        .collect();
+    let codes_clipped = hop_clipped.iter().sum();
+    let bits_flipped = chain
+        .hops
+        .iter()
+        .flat_map(|h| h.converter.code.iter())
+        .map(|l| l.bits_flipped())
+        .sum();
+    let (packets_lost, packet_loss_times_s) = {
+        let links = || chain.hops.iter().flat_map(|h| h.converter.code.iter());
+        let mut times: Vec<f64> = links()
+            .flat_map(|l| l.packet_loss_times_s().iter().copied())
+            .collect();
+        times.sort_by(f64::total_cmp);
+        times.truncate(crate::stages::network::LOSS_TIMES_MAX);
+        (links().map(|l| l.packets_lost()).sum(), times)
     };
     let capture = Capture {
         timebase: tb,
@@ -725,11 +830,30 @@ fn run_with(
         plan.frequency_hz,
         plan.out_band_hz.min(tb.rate_hz / 4.0) / 10.0,
     );
-    let slips = chain
-        .converter
-        .as_ref()
-        .and_then(|c| c.crossing.as_ref())
-        .map(|x| x.record().clone());
+    let broadband_hz = plan.out_band_hz.min(tb.rate_hz / 4.0) / 10.0;
+    let hops = (0..n_hops)
+        .map(|h| {
+            let c = &chain.hops[h].converter;
+            HopSummary {
+                adc: c.quantizer_label.clone(),
+                dac: c.reconstructor_label.clone(),
+                sample_rate_hz: c.quantizer.sample_rate_hz(),
+                budget_s: chain
+                    .hop_budget(h, plan.frequency_hz, broadband_hz)
+                    .iter()
+                    .map(|l| l.seconds)
+                    .sum(),
+                codes_clipped: hop_clipped[h],
+            }
+        })
+        .collect();
+    let slips = combine_slips(
+        chain
+            .hops
+            .iter()
+            .filter_map(|h| h.converter.crossing.as_ref())
+            .map(|x| x.record()),
+    );
     let pre_gain = plan
         .frequency_hz
         .map(|f| {
@@ -741,6 +865,7 @@ fn run_with(
         })
         .unwrap_or(1.0);
     Ok(RunOutput {
+        hops,
         scenario: sc,
         plan,
         adc_codes,
@@ -761,6 +886,45 @@ fn run_with(
         pre_gain,
         chain,
     })
+}
+
+/// What one hop keeps between blocks while the pipeline runs.
+struct HopState {
+    /// The grid history of the stream entering the ADC (`None`: the first hop samples the exact source).
+    history: Option<GridHistory>,
+    /// The next conversion's index.
+    k: u64,
+    /// Codes on their way to the DAC, by the instant they take effect.
+    dac_pending: Vec<CodeEvent>,
+    /// ADC codes not yet written to the waveform sink's code column.
+    adc_seen: Vec<CodeEvent>,
+    last_adc_code: u32,
+    last_dac_code: u32,
+    /// A later hop's clipped codes before the first conversion after `settle` (while the hop before it starts
+    /// up from rest), left out of its count.
+    clipped_before_settle: Option<u64>,
+}
+
+/// The slip records of every hop's FIFO as one: counts summed, instants merged in time order (the first
+/// [`SLIP_TIMES_MAX`](crate::engine::clock::SLIP_TIMES_MAX)), the first FIFO's depth and fill. `None` when no hop
+/// crosses clocks.
+fn combine_slips<'a>(records: impl Iterator<Item = &'a SlipRecord>) -> Option<SlipRecord> {
+    let mut out: Option<SlipRecord> = None;
+    for r in records {
+        match out.as_mut() {
+            None => out = Some(r.clone()),
+            Some(o) => {
+                o.slips += r.slips;
+                o.repeated += r.repeated;
+                o.dropped += r.dropped;
+                o.slip_times_s.extend_from_slice(&r.slip_times_s);
+                o.slip_times_s.sort_by(f64::total_cmp);
+                o.slip_times_s
+                    .truncate(crate::engine::clock::SLIP_TIMES_MAX);
+            }
+        }
+    }
+    out
 }
 
 /// The code held at each grid instant of a block: the latest event whose t_avail_s is at or before the instant.

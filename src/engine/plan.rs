@@ -176,13 +176,29 @@ impl Plan {
         };
         // Time from a sample to its arrival at the DAC, plus one sample period: the output record must not start
         // before the first recorded code has reached the output.
+        // With hops in series, every later hop's conversion time and one of its sample periods count too, and
+        // each hop's links at that hop's own rate.
         let mut transport_s = 0.0;
+        let mut hop_adc = None;
         for s in &sc.stages {
+            if let Some(a) = s.kind.quantizer_timing() {
+                if hop_adc.is_some() {
+                    transport_s += a.conversion_time_s + 1.0 / a.sample_rate_hz;
+                }
+                hop_adc = Some(a);
+            }
             if s.kind.role() == Role::Code {
-                let fs = adc_cfg.map(|a| a.sample_rate_hz).unwrap_or(1.0);
+                let fs = hop_adc.map(|a| a.sample_rate_hz).unwrap_or(1.0);
                 transport_s += s.kind.transport_s(fs);
             }
         }
+        // With hops in series, the band is at most the slowest ADC's Nyquist frequency.
+        let slowest_adc_hz = sc
+            .stages
+            .iter()
+            .filter_map(|s| s.kind.quantizer_timing())
+            .map(|a| a.sample_rate_hz)
+            .fold(f64::INFINITY, f64::min);
         let band = sc.analysis.band_hz;
         let f_src = sc.source.waveform.highest_frequency_hz();
         // The tone to place coherently, when asked.
@@ -291,6 +307,7 @@ impl Plan {
                 resampled_hz
                     .unwrap_or(a.sample_rate_hz)
                     .min(a.sample_rate_hz)
+                    .min(slowest_adc_hz)
                     / 2.0,
                 BandRule::ConverterNyquist,
             ),

@@ -52,6 +52,18 @@ fn metric_rows(r: &Report) -> Vec<(&'static str, String, String)> {
     ]
 }
 
+/// The label of hop `i`'s line under the budget's total (its subtotal is the value).
+pub(crate) fn hop_line(i: usize, h: &crate::engine::pipeline::HopSummary) -> String {
+    format!(
+        "hop {}: {} -> {} ({}, {} codes clipped), subtotal",
+        i + 1,
+        h.adc,
+        h.dac,
+        si(h.sample_rate_hz, "Hz"),
+        h.codes_clipped
+    )
+}
+
 fn latency_rows(r: &Report) -> Vec<(String, String)> {
     let l = &r.latency;
     let mut rows: Vec<(String, String)> = l
@@ -60,6 +72,9 @@ fn latency_rows(r: &Report) -> Vec<(String, String)> {
         .map(|b| (b.stage.clone(), si(b.seconds, "s")))
         .collect();
     rows.push(("total (budget)".into(), si(l.budget_s, "s")));
+    for (i, h) in r.hops.iter().flatten().enumerate() {
+        rows.push((hop_line(i, h), si(h.budget_s, "s")));
+    }
     rows.push(("measured (cross-correlation)".into(), si(l.measured_s, "s")));
     if let Some(p) = l.phase_delay_s {
         rows.push(("phase delay at the fundamental".into(), si(p, "s")));

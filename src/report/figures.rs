@@ -124,7 +124,7 @@ pub fn run_figures(
         .map(|(l, v)| (l.as_str(), &v[i0..i1]))
         .collect();
     let (mut s_t, mut s_v, mut st_t, mut st_v) = (Vec::new(), Vec::new(), Vec::new(), Vec::new());
-    if let (Some(conv), Some(a)) = (&run.chain.converter, &run.plan.adc) {
+    if let (Some(conv), Some(a)) = (run.chain.converter(), &run.plan.adc) {
         let q = (a.range_v.1 - a.range_v.0) / f64::powi(2.0, a.bits as i32);
         for e in run
             .capture_adc_events

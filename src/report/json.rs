@@ -45,6 +45,10 @@ pub struct Report {
     /// The delay between every two paths (first listed against each later one).
     #[serde(skip_serializing_if = "Option::is_none")]
     pub path_delays: Option<Vec<PathDelay>>,
+    /// One summary per hop (its ADC, DAC, budget subtotal and clipped codes), for a chain with more than one
+    /// hop in series.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub hops: Option<Vec<crate::engine::pipeline::HopSummary>>,
 }
 
 /// One path of a scenario with `[[path]]` tables: its chain, meters and latency with its budget.
@@ -215,6 +219,7 @@ impl Report {
             compare: None,
             paths: None,
             path_delays: None,
+            hops: None,
         }
     }
 }

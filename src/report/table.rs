@@ -199,6 +199,13 @@ pub fn summary(r: &Report) -> String {
         .budget
         .iter()
         .map(|b| b.stage.chars().count() + 1)
+        .chain(
+            r.hops
+                .iter()
+                .flatten()
+                .enumerate()
+                .map(|(i, h)| crate::report::document::hop_line(i, h).chars().count() + 1),
+        )
         .max()
         .unwrap_or(0)
         .max(52);
@@ -206,6 +213,14 @@ pub fn summary(r: &Report) -> String {
         let _ = writeln!(s, "    {:<w$}{:>14}", b.stage, si(b.seconds, "s"));
     }
     let _ = writeln!(s, "    {:<w$}{:>14}", "total (budget)", si(l.budget_s, "s"));
+    for (i, h) in r.hops.iter().flatten().enumerate() {
+        let _ = writeln!(
+            s,
+            "    {:<w$}{:>14}",
+            crate::report::document::hop_line(i, h),
+            si(h.budget_s, "s")
+        );
+    }
     let _ = writeln!(
         s,
         "    {:<w$}{:>14}",

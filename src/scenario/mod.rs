@@ -240,4 +240,5 @@ pub mod sanity;
 mod source_table;
 mod spread;
 mod stage_list;
+pub use stage_list::MAX_HOPS;
 pub mod validate;

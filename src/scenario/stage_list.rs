@@ -89,22 +89,26 @@ fn quoted(names: &[&str]) -> String {
         .join(", ")
 }
 
-/// Where a stage sits in the role grammar `analog* [hold? quantizer code* reconstructor] analog*`.
+/// The most converter groups (hops) a chain may put in series.
+pub const MAX_HOPS: usize = 8;
+
+/// Where a stage sits in the role grammar `analog* ([hold? quantizer code* reconstructor] analog*)*`, with up
+/// to [`MAX_HOPS`] converter groups in series.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 enum Place {
-    /// Before the converter group (or an analog-only chain).
+    /// Before the first converter group (or an analog-only chain).
     Before,
     /// Just after a hold; only a quantizer may follow.
     AfterHold,
     /// After the quantizer or a code stage: codes are digital; only code stages or a reconstructor may follow.
     Digital,
-    /// After the reconstructor.
+    /// After a reconstructor: analog again; analog stages or another hop (`[hold] ADC`) may follow.
     After,
 }
 
 /// The chain's grammar in words, for messages.
-const GRAMMAR: &str = "a chain reads: analog stages, then one converter group [hold] ADC [links] DAC, then analog \
-                       stages";
+const GRAMMAR: &str = "a chain reads: analog stages, then converter groups [hold] ADC [links] DAC in series (up to \
+                       8 hops), each followed by analog stages";
 
 fn check_order(
     map: &SourceMap<'_>,
@@ -113,6 +117,7 @@ fn check_order(
 ) -> Result<(), ScenarioError> {
     let mut place = Place::Before;
     let mut quantizer_index = None;
+    let mut hops = 0usize;
     for (i, s) in stages.iter().enumerate() {
         let path = format!("{prefix}.{}.kind", i + 1);
         let err = |msg: String, hint: &str| {
@@ -131,40 +136,54 @@ fn check_order(
             (Role::Analog, Place::Digital) => {
                 return Err(err(
                     format!(
-                        "a {kind} cannot sit between the ADC and the DAC: the signal there is digital codes"
+                        "a {kind} cannot sit between an ADC and its DAC: the signal there is digital codes"
                     ),
                     "move it before the ADC (e.g. an anti-alias filter) or after the DAC (e.g. a reconstruction filter)",
                 ));
             }
-            (Role::Hold, Place::Before) => Place::AfterHold,
+            (Role::Hold, Place::Before | Place::After) => Place::AfterHold,
             (Role::Hold, _) => {
                 return Err(err(
                     format!("a {kind} must come directly before an ADC"),
                     GRAMMAR,
                 ));
             }
-            (Role::Quantizer, Place::Before | Place::AfterHold) => {
+            (Role::Quantizer, Place::Before | Place::AfterHold | Place::After) => {
+                if hops == MAX_HOPS {
+                    return Err(err(
+                        format!(
+                            "a chain may put at most {MAX_HOPS} hops (ADC ... DAC groups) in series; this {kind} \
+                             starts hop {}",
+                            hops + 1
+                        ),
+                        "merge hops, or split the chain into several scenarios",
+                    ));
+                }
+                hops += 1;
                 quantizer_index = Some(i);
                 Place::Digital
             }
             (Role::Quantizer, _) => {
                 return Err(err(
-                    format!("only one ADC is allowed in a chain (this {kind} is a second)"),
-                    GRAMMAR,
+                    format!(
+                        "a {kind} cannot sit between an ADC and its DAC: the codes of one hop need their DAC \
+                         before the next ADC"
+                    ),
+                    "add a DAC (kind = \"dac\") before this ADC to end the hop before it",
                 ));
             }
             (Role::Code, Place::Digital) => Place::Digital,
             (Role::Code, _) => {
                 return Err(err(
-                    format!("a {kind} carries codes: it must sit between the ADC and the DAC"),
-                    "move it after the ADC and before the DAC",
+                    format!("a {kind} carries codes: it must sit between an ADC and its DAC"),
+                    "move it after an ADC and before that ADC's DAC",
                 ));
             }
             (Role::Reconstructor, Place::Digital) => Place::After,
             (Role::Reconstructor, Place::After) => {
                 return Err(err(
-                    format!("only one DAC is allowed in a chain (this {kind} is a second)"),
-                    GRAMMAR,
+                    format!("this {kind} follows a DAC without an ADC of its own"),
+                    "each hop is [hold] ADC [links] DAC: add an ADC before this DAC, or remove it",
                 ));
             }
             (Role::Reconstructor, _) => {

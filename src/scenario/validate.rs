@@ -1106,17 +1106,22 @@ clock = "2 MHz"
             (
                 format!("{HEAD}{link}{ADC}{DAC}"),
                 "stage.1.kind",
-                "a link carries codes: it must sit between the ADC and the DAC",
+                "a link carries codes: it must sit between an ADC and its DAC",
             ),
             (
-                format!("{HEAD}{ADC}{DAC}{ADC}{DAC}"),
-                "stage.3.kind",
-                "only one ADC is allowed in a chain (this sar_adc is a second)",
+                format!("{HEAD}{ADC}{ADC}{DAC}"),
+                "stage.2.kind",
+                "sar_adc cannot sit between an ADC and its DAC",
             ),
             (
                 format!("{HEAD}{ADC}{DAC}{DAC}"),
                 "stage.3.kind",
-                "only one DAC is allowed in a chain (this dac is a second)",
+                "this dac follows a DAC without an ADC of its own",
+            ),
+            (
+                format!("{HEAD}{ADC}{DAC}{ADC}{DAC}{link}"),
+                "stage.5.kind",
+                "a link carries codes: it must sit between an ADC and its DAC",
             ),
             (
                 format!("{HEAD}{ADC}{DAC}{sh}"),
@@ -1133,6 +1138,40 @@ clock = "2 MHz"
         // Allowed: analog stages around the group, and links between ADC and DAC.
         let s = ok(&format!("{HEAD}{flt}{sh}{ADC}{link}{link}{DAC}{flt}"));
         assert_eq!(s.stages.len(), 7);
+        // Hops in series: analog stages and a hold may sit between one hop's DAC and the next ADC.
+        let s = ok(&format!("{HEAD}{ADC}{link}{DAC}{flt}{sh}{ADC}{DAC}{flt}"));
+        assert_eq!(s.stages.len(), 8);
+    }
+
+    #[test]
+    fn the_grammar_reads_up_to_max_hops_and_refuses_one_more() {
+        use crate::scenario::stage_list::MAX_HOPS;
+        let hop = format!("{ADC}{DAC}");
+        let s = ok(&format!("{HEAD}{}", hop.repeat(MAX_HOPS)));
+        assert_eq!(s.stages.len(), 2 * MAX_HOPS);
+        let text = format!("{HEAD}{}", hop.repeat(MAX_HOPS + 1));
+        let e = err(&text);
+        assert_eq!(
+            e.key_path,
+            format!("stage.{}.kind", 2 * MAX_HOPS + 1),
+            "{e}"
+        );
+        assert!(
+            e.message.contains(&format!(
+                "at most {MAX_HOPS} hops (ADC ... DAC groups) in series"
+            )),
+            "{e}"
+        );
+        assert!(e.hint.is_some(), "{e}");
+        // Located at the offending stage's `kind`: the (MAX_HOPS + 1)-th ADC's line.
+        let nth_kind_line = text
+            .lines()
+            .enumerate()
+            .filter(|(_, l)| l.contains("kind = \"sar_adc\""))
+            .nth(MAX_HOPS)
+            .map(|(i, _)| i + 1)
+            .unwrap();
+        assert_eq!(e.line, nth_kind_line, "{e}");
     }
 
     #[test]
