@@ -133,7 +133,18 @@ impl Goal {
             }
             Goal::Require { reqs, .. } => {
                 let r = &reqs[0];
-                let unit = r.metric.rsplit('_').next().unwrap_or("").to_string();
+                let unit = match r.metric.rsplit('_').next().unwrap_or("") {
+                    "db" => "dB",
+                    "dbc" => "dBc",
+                    "dbfs" => "dBFS",
+                    "s" => "s",
+                    "bits" => "bits",
+                    "lsb" => "LSB",
+                    "v" => "V",
+                    "hz" => "Hz",
+                    _ => "",
+                }
+                .to_string();
                 (
                     r.metric.clone(),
                     unit,
