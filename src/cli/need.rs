@@ -175,7 +175,7 @@ pub fn need(a: NeedArgs) -> anyhow::Result<()> {
     let at = a.at;
     let goal_of = move |t: &ScenarioText| -> convchain::error::Result<need::Goal> {
         Ok(match up_to {
-            Some(f) => need::Goal::UpTo(UpToCheck::new(t, criterion, f, &lopts)?),
+            Some(f) => need::Goal::UpTo(Box::new(UpToCheck::new(t, criterion, f, &lopts)?)),
             None => need::Goal::Require {
                 reqs: reqs.clone(),
                 at_hz: at,

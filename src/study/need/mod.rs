@@ -32,7 +32,7 @@ pub use output::{folder_producer, table, write_need};
 #[derive(Debug, Clone)]
 pub enum Goal {
     /// Keep up to a frequency by a limit criterion.
-    UpTo(UpToCheck),
+    UpTo(Box<UpToCheck>),
     /// Every requirement at `at_hz` (None: the scenario's frequency).
     Require {
         reqs: Vec<Requirement>,
