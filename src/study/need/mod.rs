@@ -392,7 +392,21 @@ pub fn solve(
                 ));
                 continue;
             }
-            let (from, to, log) = candidate_range(&key, w);
+            let (mut from, mut to, log) = candidate_range(&key, w);
+            // Ends the scenario cannot take (a sample rate the converter's clock cannot reach) are drawn in
+            // towards the written value.
+            for end in [&mut from, &mut to] {
+                for _ in 0..12 {
+                    if text.with_edits(&[Edit::Set(key.clone(), *end)]).is_ok() {
+                        break;
+                    }
+                    *end = if log {
+                        (*end * w).sqrt()
+                    } else {
+                        (0.5 * (*end + w)).round()
+                    };
+                }
+            }
             out.push((
                 Vary { key, from, to },
                 log,
