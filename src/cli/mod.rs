@@ -10,6 +10,7 @@ mod analyze;
 mod delay;
 mod interrupt;
 mod montecarlo;
+mod need;
 
 use convchain::error::Error;
 use convchain::report::{OutputDir, Producer};
@@ -142,6 +143,8 @@ enum Command {
     Sweep(study_cli::SweepArgs),
     /// Find the lowest sine frequency at which the chain starts to struggle, and why.
     Limit(study_cli::LimitArgs),
+    /// What must change, and by how much: the value of each key that makes the chain meet a requirement.
+    Need(need::NeedArgs),
     /// Monte-Carlo study: run the scenario many times with fresh draws; percentiles and yield.
     Montecarlo(montecarlo::McArgs),
     /// Join the folders of shards (--shard K/N) of one study into what a single machine would have written.
@@ -335,6 +338,7 @@ fn run(args: Args) -> anyhow::Result<()> {
     match args.command {
         Command::Sweep(a) => study_cli::sweep(a)?,
         Command::Limit(a) => study_cli::limit(a)?,
+        Command::Need(a) => need::need(a)?,
         Command::Check { scenario } => {
             let sc = scenario::load(&scenario)?;
             print_warnings(&sc, false);

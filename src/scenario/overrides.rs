@@ -136,6 +136,34 @@ impl ScenarioText {
         Ok(parse_str(&text, &origin, &self.base_dir)?)
     }
 
+    /// For a scenario with `[[path]]` tables: the scenario with only its first path, as a plain chain of
+    /// `[[stage]]` tables (so `stage.N` keys address that path's stages), and the path's name. None for a
+    /// scenario without paths.
+    pub fn first_path_only(&self) -> Result<Option<(ScenarioText, String)>> {
+        let Some(paths) = self.doc.get("path").and_then(Value::as_array) else {
+            return Ok(None);
+        };
+        let Some(first) = paths.first().and_then(Value::as_table) else {
+            return Ok(None);
+        };
+        let name = first
+            .get("name")
+            .and_then(Value::as_str)
+            .unwrap_or("1")
+            .to_string();
+        let mut doc = self.doc.clone();
+        doc.remove("path");
+        if let Some(stages) = first.get("stage") {
+            doc.insert("stage".into(), stages.clone());
+        }
+        let text = toml::to_string(&doc).map_err(|e| Error::Run(e.to_string()))?;
+        let origin = format!("{} (path \"{name}\")", self.origin);
+        Ok(Some((
+            ScenarioText::new(text, origin, self.base_dir.clone())?,
+            name,
+        )))
+    }
+
     /// True when `path` is written in the scenario (whatever its type).
     pub fn contains(&self, path: &str) -> bool {
         lookup(&self.doc, path).is_ok()

@@ -3,6 +3,7 @@
 
 pub mod limit;
 pub mod montecarlo;
+pub mod need;
 pub mod shard;
 pub mod sweep;
 

@@ -587,6 +587,177 @@ fn aliasing(base: &Scenario, plan: &Plan) -> CriterionResult {
     }
 }
 
+/// Whether a chain keeps up to a frequency by one criterion (for `need`): the chain is run at the low end of
+/// [`find_limits`]'s default range and at `up_to_hz` / 8, / 4, / 2 and `up_to_hz` itself (each with the same
+/// lengthened durations as the limit finder), and the criterion is met when none of those runs crosses the
+/// criterion's threshold. The metric is the worst run's: the ENOB drop (bits) or the gain drop (dB) from the
+/// low end, or the lowest fidelity (dB).
+#[derive(Debug, Clone)]
+pub struct UpToCheck {
+    pub criterion: Criterion,
+    pub up_to_hz: f64,
+    pub from_hz: f64,
+    /// The metric's threshold (bits or dB).
+    pub threshold: f64,
+    /// True for the shape criterion (fidelity must stay at or above the threshold); false for the drops
+    /// (which must stay below it).
+    pub higher_is_better: bool,
+    opts: LimitOptions,
+    has_adc: bool,
+    base: Scenario,
+}
+
+/// The outcome of one [`UpToCheck::check`].
+#[derive(Debug, Clone, PartialEq)]
+pub struct UpToResult {
+    pub pass: bool,
+    pub metric: Option<f64>,
+    pub error: Option<String>,
+}
+
+impl UpToCheck {
+    /// Set up the check of `criterion` (accuracy, level or shape) up to `up_to_hz` for `text`, with `opts`'s
+    /// drops and fidelity floor. Bad input: a source that is not a sine, a frequency the meters cannot see, the
+    /// accuracy criterion on a chain without a converter.
+    pub fn new(
+        text: &ScenarioText,
+        criterion: Criterion,
+        up_to_hz: f64,
+        opts: &LimitOptions,
+    ) -> Result<UpToCheck> {
+        let base = text.scenario()?;
+        check_options(&base, opts)?;
+        let (plan, _) = Plan::new(&base)?;
+        let mut notes = Vec::new();
+        let o = LimitOptions {
+            to_hz: Some(up_to_hz),
+            ..*opts
+        };
+        let (from_hz, to_hz) = frequency_range(&base, &plan, &o, &mut notes).map_err(|_| {
+            Error::BadInput(format!(
+                "--up-to {}: too low for the limit criteria (the reference run is at {}, a fiftieth of the \
+                 chain's lowest rate of interest); give a higher --up-to",
+                format_si(up_to_hz, "Hz"),
+                format_si(o.from_hz.unwrap_or(0.0), "Hz")
+            ))
+        })?;
+        if to_hz < up_to_hz * 0.999 {
+            return Err(Error::BadInput(format!(
+                "--up-to {}: {}; give --up-to at or below {}",
+                format_si(up_to_hz, "Hz"),
+                notes.join("; "),
+                format_si(to_hz, "Hz")
+            )));
+        }
+        let has_adc = base
+            .stages
+            .iter()
+            .any(|st| st.kind.role() == Role::Quantizer);
+        let (threshold, higher_is_better) = match criterion {
+            Criterion::Accuracy if !has_adc => {
+                return Err(Error::BadInput(
+                    "--criterion accuracy: the chain has no converter (no bits to lose); use --criterion \
+                     level or shape"
+                        .into(),
+                ));
+            }
+            Criterion::Accuracy => (opts.enob_drop_bits, false),
+            Criterion::Level => (opts.gain_drop_db, false),
+            Criterion::Shape => (opts.fidelity_min_db, true),
+            Criterion::Aliasing => {
+                return Err(Error::BadInput(
+                    "--criterion: choose accuracy, level or shape".into(),
+                ));
+            }
+        };
+        Ok(UpToCheck {
+            criterion,
+            up_to_hz,
+            from_hz,
+            threshold,
+            higher_is_better,
+            opts: *opts,
+            has_adc,
+            base,
+        })
+    }
+
+    /// The frequencies run, the low end first.
+    pub fn frequencies_hz(&self) -> Vec<f64> {
+        let mut v = vec![self.from_hz];
+        v.extend(
+            [8.0, 4.0, 2.0, 1.0]
+                .iter()
+                .map(|d| self.up_to_hz / d)
+                .filter(|f| *f > self.from_hz * 1.01),
+        );
+        v
+    }
+
+    /// Run the chain of `text` with `extra` edits at the check's frequencies (in parallel) and judge it.
+    pub fn check(&self, text: &ScenarioText, extra: &[Edit]) -> UpToResult {
+        let mut runner = Runner {
+            text,
+            base: &self.base,
+            max_grid_steps: self.opts.max_grid_steps,
+            use_output_enob: true,
+        };
+        let freqs = self.frequencies_hz();
+        let first = runner.point(freqs[0], self.opts.min_cycles, extra);
+        if let Some(e) = first.error {
+            return UpToResult {
+                pass: false,
+                metric: None,
+                error: Some(e),
+            };
+        }
+        let first = if self.criterion == Criterion::Accuracy && first.enob_bits.is_none() {
+            runner.use_output_enob = false;
+            runner.point(freqs[0], self.opts.min_cycles, extra)
+        } else {
+            first
+        };
+        let runner = &runner;
+        let rest: Vec<LimitPoint> = freqs[1..]
+            .par_iter()
+            .map(|&f| runner.point(f, self.opts.min_cycles, extra))
+            .collect();
+        let fail = |e: String| UpToResult {
+            pass: false,
+            metric: None,
+            error: Some(e),
+        };
+        if let Some(e) = rest.iter().find_map(|p| p.error.clone()) {
+            return fail(e);
+        }
+        let c = self.criterion;
+        let values: Option<Vec<f64>> = std::iter::once(&first)
+            .chain(&rest)
+            .map(|p| metric(c, p))
+            .collect();
+        let Some(values) = values else {
+            return fail(format!("no {} metric in a run", c.name()));
+        };
+        let worst = if self.higher_is_better {
+            values.iter().copied().fold(f64::INFINITY, f64::min)
+        } else {
+            let lowest = values[1..].iter().copied().fold(f64::INFINITY, f64::min);
+            (values[0] - lowest).max(0.0)
+        };
+        debug_assert!(self.has_adc || c != Criterion::Accuracy);
+        let pass = if self.higher_is_better {
+            worst >= self.threshold
+        } else {
+            worst < self.threshold
+        };
+        UpToResult {
+            pass,
+            metric: Some(worst),
+            error: None,
+        }
+    }
+}
+
 mod output;
 mod search;
 

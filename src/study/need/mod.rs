@@ -1,0 +1,679 @@
+//! What must change, and by how much: for each varied key on its own (the others as written), the value
+//! closest to the written one that meets a requirement (`convchain need`).
+//!
+//! Requirements: the chain keeps up to a frequency by one of the limit finder's criteria
+//! ([`UpToCheck`](crate::study::limit::UpToCheck)), or `--require METRIC>=X` as in `montecarlo`, met at the
+//! scenario's frequency (or another).
+//!
+//! Method, per key: a coarse scan over FROM..TO (linear, or logarithmic with `log`) finds every passing range
+//! (several ranges: the response is not monotone); the pass boundary closest to the written value is then
+//! bisected (geometric mid-points with `log`) until the bracket is narrower than `tolerance` of the answer
+//! (whole-number keys: until the two ends are neighbours). The answer is the passing end of the bracket.
+//!
+//! With no key given, the candidates are the non-idealities the limit finder's diagnosis ablates
+//! ([`candidates`]), each whose ablation meets the requirement (or, when none does, improves the metric) and
+//! that is written as a number, over a range around the written value.
+
+use rayon::prelude::*;
+use serde::Serialize;
+
+use crate::error::{Error, Result};
+use crate::scenario::overrides::{Edit, ScenarioText, candidates, is_integer_key};
+use crate::study::limit::UpToCheck;
+use crate::study::montecarlo::{Cmp, Requirement};
+use crate::study::sweep::{
+    METRIC_COLUMNS, Vary, axis_values, metric_values, simulate, thread_pool,
+};
+
+mod output;
+pub use output::{folder_producer, table, write_need};
+
+/// What the chain must meet.
+#[derive(Debug, Clone)]
+pub enum Goal {
+    /// Keep up to a frequency by a limit criterion.
+    UpTo(Box<UpToCheck>),
+    /// Every requirement at `at_hz` (None: the scenario's frequency).
+    Require {
+        reqs: Vec<Requirement>,
+        at_hz: Option<f64>,
+    },
+}
+
+/// How to solve.
+#[derive(Debug, Clone)]
+pub struct NeedSpec {
+    /// The keys to solve for; empty: candidates from the diagnosis.
+    pub vary: Vec<Vary>,
+    pub log: bool,
+    /// Relative width of the final bracket (0.01 = 1 %).
+    pub tolerance: f64,
+    /// Points of the coarse scan.
+    pub points: usize,
+    pub threads: Option<usize>,
+}
+
+/// One run of the requirement.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Eval {
+    pub value: f64,
+    pub pass: bool,
+    pub metric: Option<f64>,
+    pub error: Option<String>,
+}
+
+/// The answer for one key.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct NeedRow {
+    pub key: String,
+    /// Where the key came from: "--vary" or the diagnosis's change.
+    pub source: String,
+    /// The value written in the scenario (None: not written, the scenario's default applies).
+    pub written: Option<f64>,
+    pub from: f64,
+    pub to: f64,
+    /// The value needed (the written one when it already passes); None when no value in the range passes.
+    pub value: Option<f64>,
+    pub found: bool,
+    /// "rise", "fall", "already passes" or "none".
+    pub direction: String,
+    /// Every passing range of the coarse scan, [low, high] in scanned values.
+    pub ranges: Vec<[f64; 2]>,
+    pub metric_at_value: Option<f64>,
+    /// The written chain's margin over the threshold when it already passes (in the metric's unit).
+    pub margin: Option<f64>,
+    pub monotone: bool,
+    pub note: String,
+    /// The coarse scan and the bisection's runs, in order of value.
+    pub runs: Vec<Eval>,
+}
+
+/// The headline and the rows: `need` in need.json.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Need {
+    /// The key whose needed change is the smallest (relative); None when none is found or all already pass.
+    pub key: Option<String>,
+    pub value: Option<f64>,
+    pub rows: Vec<NeedRow>,
+}
+
+/// Everything `need` found.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct NeedReport {
+    pub scenario: String,
+    /// With `[[path]]` tables: the path judged (the first).
+    pub path: Option<String>,
+    /// The requirement in words.
+    pub requirement: String,
+    /// The metric followed and its threshold.
+    pub metric: String,
+    pub metric_unit: String,
+    pub threshold: f64,
+    /// True when the metric must stay at or above the threshold.
+    pub higher_is_better: bool,
+    pub tolerance: f64,
+    /// The chain as written.
+    pub written: Eval,
+    pub need: Need,
+    pub notes: Vec<String>,
+}
+
+impl Goal {
+    /// The metric followed, its unit, its threshold and whether higher is better (the first requirement's for
+    /// `Require`).
+    fn metric(&self) -> (String, String, f64, bool) {
+        match self {
+            Goal::UpTo(c) => {
+                let (name, unit) = match c.criterion {
+                    crate::study::limit::Criterion::Accuracy => ("ENOB drop", "bits"),
+                    crate::study::limit::Criterion::Level => ("gain drop", "dB"),
+                    _ => ("lowest fidelity", "dB"),
+                };
+                (name.into(), unit.into(), c.threshold, c.higher_is_better)
+            }
+            Goal::Require { reqs, .. } => {
+                let r = &reqs[0];
+                let unit = match r.metric.rsplit('_').next().unwrap_or("") {
+                    "db" => "dB",
+                    "dbc" => "dBc",
+                    "dbfs" => "dBFS",
+                    "s" => "s",
+                    "bits" => "bits",
+                    "lsb" => "LSB",
+                    "v" => "V",
+                    "hz" => "Hz",
+                    _ => "",
+                }
+                .to_string();
+                (
+                    r.metric.clone(),
+                    unit,
+                    r.threshold,
+                    matches!(r.cmp, Cmp::Ge | Cmp::Gt),
+                )
+            }
+        }
+    }
+
+    /// Words for the report.
+    fn describe(&self) -> String {
+        match self {
+            Goal::UpTo(c) => format!(
+                "{} holds up to {} ({} run from {})",
+                c.criterion.name(),
+                crate::format::units::format_si(c.up_to_hz, "Hz"),
+                c.frequencies_hz().len(),
+                crate::format::units::format_si(c.from_hz, "Hz")
+            ),
+            Goal::Require { reqs, at_hz } => {
+                let r: Vec<&str> = reqs.iter().map(|r| r.text.as_str()).collect();
+                format!(
+                    "{} at {}",
+                    r.join(" and "),
+                    at_hz.map_or("the scenario's frequency".to_string(), |f| {
+                        crate::format::units::format_si(f, "Hz")
+                    })
+                )
+            }
+        }
+    }
+
+    /// Run the chain with `edits` and judge it.
+    pub fn eval(&self, text: &ScenarioText, value: f64, edits: &[Edit]) -> Eval {
+        match self {
+            Goal::UpTo(c) => {
+                let r = c.check(text, edits);
+                Eval {
+                    value,
+                    pass: r.pass,
+                    metric: r.metric,
+                    error: r.error,
+                }
+            }
+            Goal::Require { reqs, at_hz } => {
+                let mut all: Vec<Edit> = at_hz
+                    .map(|f| Edit::Set("source.frequency".into(), f))
+                    .into_iter()
+                    .collect();
+                all.extend_from_slice(edits);
+                let fail = |e: Error| Eval {
+                    value,
+                    pass: false,
+                    metric: None,
+                    error: Some(e.to_string()),
+                };
+                let sc = match text.with_edits(&all) {
+                    Ok(s) => s,
+                    Err(e) => return fail(e),
+                };
+                let m = match simulate(&sc) {
+                    Ok((_, _, m)) => m,
+                    Err(e) => return fail(e),
+                };
+                let vals = metric_values(&m);
+                let get = |name: &str| {
+                    METRIC_COLUMNS
+                        .iter()
+                        .position(|c| *c == name)
+                        .and_then(|i| vals[i])
+                };
+                Eval {
+                    value,
+                    pass: reqs.iter().all(|r| r.passes(get(&r.metric))),
+                    metric: get(&reqs[0].metric),
+                    error: None,
+                }
+            }
+        }
+    }
+}
+
+/// Refuse requirements `need` cannot judge from one run (the static tests' metrics).
+pub fn check_requirements(reqs: &[Requirement]) -> Result<()> {
+    for r in reqs {
+        if !METRIC_COLUMNS.contains(&r.metric.as_str()) {
+            return Err(Error::BadInput(format!(
+                "--require {}: `{}` is not measured by a run of the chain (need judges one run per value); \
+                 use one of {}",
+                r.text,
+                r.metric,
+                crate::study::montecarlo::METRICS
+                    .iter()
+                    .filter(|m| METRIC_COLUMNS.contains(m))
+                    .copied()
+                    .collect::<Vec<_>>()
+                    .join(", ")
+            )));
+        }
+    }
+    Ok(())
+}
+
+/// Distance between two values of a key (log ratio with `log` and positive values).
+fn distance(a: f64, b: f64, log: bool) -> f64 {
+    if log && a > 0.0 && b > 0.0 {
+        (a / b).ln().abs()
+    } else {
+        (a - b).abs()
+    }
+}
+
+/// The ranges of a key that the diagnosis's candidates get: whole numbers from half to twice (and four more)
+/// the written value; others from a thirtieth to thirty times it, logarithmically.
+fn candidate_range(key: &str, written: f64) -> (f64, f64, bool) {
+    let last = key.rsplit('.').next().unwrap_or(key);
+    if is_integer_key(last) {
+        ((written / 2.0).floor().max(1.0), written * 2.0 + 4.0, false)
+    } else {
+        (written / 30.0, written * 30.0, true)
+    }
+}
+
+/// A key written with a stage kind (`dac.slew_rate`) as the key of that stage (`stage.5.slew_rate`), when the
+/// chain has exactly one stage of that kind; other keys as given.
+pub fn resolve_key(sc: &crate::scenario::Scenario, key: &str) -> Result<String> {
+    let Some((head, rest)) = key.split_once('.') else {
+        return Ok(key.to_string());
+    };
+    if matches!(
+        head,
+        "stage" | "source" | "simulation" | "analysis" | "spread" | "compare"
+    ) {
+        return Ok(key.to_string());
+    }
+    let of_kind: Vec<usize> = sc
+        .stages
+        .iter()
+        .enumerate()
+        .filter(|(_, st)| st.kind.kind_name() == head)
+        .map(|(i, _)| i + 1)
+        .collect();
+    match of_kind.as_slice() {
+        [n] => Ok(format!("stage.{n}.{rest}")),
+        [] => Ok(key.to_string()),
+        many => Err(Error::BadInput(format!(
+            "--vary {key}: the chain has {} `{head}` stages (stages {}); name one as stage.N.{rest}",
+            many.len(),
+            many.iter()
+                .map(|n| n.to_string())
+                .collect::<Vec<_>>()
+                .join(", ")
+        ))),
+    }
+}
+
+/// Solve `spec` for the scenario `text`.
+pub fn solve(
+    text: &ScenarioText,
+    goal_of: &dyn Fn(&ScenarioText) -> Result<Goal>,
+    spec: &NeedSpec,
+) -> Result<NeedReport> {
+    if !(spec.tolerance > 0.0 && spec.tolerance < 0.5) {
+        return Err(Error::BadInput(format!(
+            "--tolerance must be above 0 % and below 50 %, found {} %",
+            spec.tolerance * 100.0
+        )));
+    }
+    let mut notes = Vec::new();
+    let (text, path) = match text.first_path_only()? {
+        Some((t, name)) => {
+            notes.push(format!(
+                "the scenario has [[path]] tables: the first path, \"{name}\", is judged; stage.N keys number \
+                 its stages"
+            ));
+            (t, Some(name))
+        }
+        None => (text.clone(), None),
+    };
+    let text = &text;
+    let base = text.scenario()?;
+    let goal = goal_of(text)?;
+    let pool = thread_pool(spec.threads)?;
+    let (metric, metric_unit, threshold, higher_is_better) = goal.metric();
+    let written_eval = pool.install(|| goal.eval(text, f64::NAN, &[]));
+    if let Some(e) = &written_eval.error {
+        return Err(Error::Run(format!(
+            "the chain as written could not be judged: {e}"
+        )));
+    }
+    // The keys: given, or the diagnosis's candidates written as numbers.
+    let keys: Vec<(Vary, bool, String)> = if spec.vary.is_empty() {
+        let cands = candidates(&base);
+        let mut found = Vec::new();
+        for c in &cands {
+            let param = c.mechanism.split('.').nth(1).unwrap_or("cutoff");
+            let key = format!("stage.{}.{param}", c.stage_index + 1);
+            match text.get(&key).filter(|w| *w > 0.0) {
+                Some(w) => {
+                    if !found.iter().any(|(k, _, _): &(String, _, _)| *k == key) {
+                        found.push((key, w, c.clone()));
+                    }
+                }
+                None => notes.push(format!(
+                    "{}: no number `{key}` written to vary; not a candidate",
+                    c.change
+                )),
+            }
+        }
+        // The diagnosis: each candidate's ablation judged like a value.
+        let ablated: Vec<Eval> = pool.install(|| {
+            found
+                .par_iter()
+                .map(|(_, w, c)| goal.eval(text, *w, &c.edits))
+                .collect()
+        });
+        let better = |e: &Eval| match (e.metric, written_eval.metric) {
+            (Some(a), Some(b)) => {
+                if higher_is_better {
+                    a > b + 1e-9
+                } else {
+                    a < b - 1e-9
+                }
+            }
+            _ => false,
+        };
+        let any_pass = ablated.iter().any(|e| e.pass);
+        let keep: Vec<bool> = ablated
+            .iter()
+            .map(|e| if any_pass { e.pass } else { better(e) })
+            .collect();
+        let keep_any = keep.iter().any(|k| *k);
+        let mut out = Vec::new();
+        for ((key, w, c), k) in found.into_iter().zip(keep) {
+            if keep_any && !k {
+                notes.push(format!(
+                    "{}: making it ideal does not {}; not a candidate",
+                    c.change,
+                    if any_pass {
+                        "meet the requirement"
+                    } else {
+                        "improve the metric"
+                    }
+                ));
+                continue;
+            }
+            let (mut from, mut to, log) = candidate_range(&key, w);
+            // Ends the scenario cannot take (a sample rate the converter's clock cannot reach) are drawn in
+            // towards the written value.
+            for end in [&mut from, &mut to] {
+                for _ in 0..12 {
+                    if text.with_edits(&[Edit::Set(key.clone(), *end)]).is_ok() {
+                        break;
+                    }
+                    *end = if log {
+                        (*end * w).sqrt()
+                    } else {
+                        (0.5 * (*end + w)).round()
+                    };
+                }
+            }
+            out.push((
+                Vary { key, from, to },
+                log,
+                format!("diagnosis: {}", c.change),
+            ));
+        }
+        if out.is_empty() {
+            return Err(Error::BadInput(format!(
+                "{}: the diagnosis found no non-ideality written as a number to vary; give --vary KEY=FROM..TO",
+                base.origin
+            )));
+        }
+        out
+    } else {
+        spec.vary
+            .iter()
+            .map(|v| {
+                let key = resolve_key(&base, &v.key)?;
+                let source = if key == v.key {
+                    "--vary".to_string()
+                } else {
+                    format!("--vary {}", v.key)
+                };
+                Ok((Vary { key, ..v.clone() }, spec.log, source))
+            })
+            .collect::<Result<Vec<_>>>()?
+    };
+    // Every key's values must be ones the scenario can take: checked before anything long runs.
+    for (v, log, _) in &keys {
+        for x in axis_values(v, 2, *log)? {
+            text.with_edits(&[Edit::Set(v.key.clone(), x)])?;
+        }
+    }
+    let rows: Vec<NeedRow> = pool.install(|| {
+        keys.par_iter()
+            .map(|(v, log, source)| {
+                solve_key(
+                    text,
+                    &goal,
+                    v,
+                    *log,
+                    source,
+                    spec,
+                    &written_eval,
+                    higher_is_better,
+                    threshold,
+                )
+            })
+            .collect::<Result<Vec<_>>>()
+    })?;
+    let head = rows
+        .iter()
+        .filter(|r| r.found && r.direction != "already passes")
+        .filter_map(|r| {
+            let w = r.written?;
+            let v = r.value?;
+            Some((
+                r,
+                distance(v, w, w > 0.0 && v > 0.0)
+                    / if w > 0.0 && v > 0.0 {
+                        1.0
+                    } else {
+                        w.abs().max(1e-300)
+                    },
+            ))
+        })
+        .min_by(|a, b| a.1.total_cmp(&b.1));
+    if written_eval.pass {
+        notes.push("the chain as written already meets the requirement".into());
+    }
+    Ok(NeedReport {
+        scenario: base.name.clone(),
+        path,
+        requirement: goal.describe(),
+        metric,
+        metric_unit,
+        threshold,
+        higher_is_better,
+        tolerance: spec.tolerance,
+        written: written_eval,
+        need: Need {
+            key: head.map(|h| h.0.key.clone()),
+            value: head.and_then(|h| h.0.value),
+            rows,
+        },
+        notes,
+    })
+}
+
+#[allow(clippy::too_many_arguments)]
+fn solve_key(
+    text: &ScenarioText,
+    goal: &Goal,
+    v: &Vary,
+    log: bool,
+    source: &str,
+    spec: &NeedSpec,
+    written_eval: &Eval,
+    higher_is_better: bool,
+    threshold: f64,
+) -> Result<NeedRow> {
+    let last = v.key.rsplit('.').next().unwrap_or(&v.key);
+    let integer = is_integer_key(last);
+    let mut grid = axis_values(v, spec.points.max(3), log)?;
+    grid.sort_by(f64::total_cmp);
+    grid.dedup();
+    let eval = |x: f64| goal.eval(text, x, &[Edit::Set(v.key.clone(), x)]);
+    let mut runs: Vec<Eval> = grid.par_iter().map(|&x| eval(x)).collect();
+    // Passing ranges of the scan.
+    let mut ranges: Vec<[f64; 2]> = Vec::new();
+    let mut open: Option<f64> = None;
+    for (i, e) in runs.iter().enumerate() {
+        match (e.pass, open) {
+            (true, None) => open = Some(e.value),
+            (false, Some(lo)) => {
+                ranges.push([lo, runs[i - 1].value]);
+                open = None;
+            }
+            _ => {}
+        }
+    }
+    if let Some(lo) = open {
+        ranges.push([lo, runs.last().map_or(lo, |e| e.value)]);
+    }
+    let monotone = ranges.len() <= 1
+        && ranges
+            .first()
+            .is_none_or(|r| r[0] == grid[0] || r[1] == grid[grid.len() - 1]);
+    let written = text.get(&v.key);
+    let margin = |e: &Eval| {
+        e.metric.map(|m| {
+            if higher_is_better {
+                m - threshold
+            } else {
+                threshold - m
+            }
+        })
+    };
+    let mut row = NeedRow {
+        key: v.key.clone(),
+        source: source.to_string(),
+        written,
+        from: v.from.min(v.to),
+        to: v.from.max(v.to),
+        value: None,
+        found: false,
+        direction: "none".into(),
+        ranges: ranges.clone(),
+        metric_at_value: None,
+        margin: None,
+        monotone,
+        note: String::new(),
+        runs: Vec::new(),
+    };
+    let ranges_text = || {
+        ranges
+            .iter()
+            .map(|r| format!("{}..{}", r[0], r[1]))
+            .collect::<Vec<_>>()
+            .join(", ")
+    };
+    if !monotone {
+        row.note = format!("not monotone: passes in {}", ranges_text());
+    }
+    if written_eval.pass {
+        row.value = written;
+        row.found = true;
+        row.direction = "already passes".into();
+        row.metric_at_value = written_eval.metric;
+        row.margin = margin(written_eval);
+        row.runs = runs;
+        return Ok(row);
+    }
+    if ranges.is_empty() {
+        row.note = format!(
+            "no value in {}..{} passes{}",
+            row.from,
+            row.to,
+            runs.iter()
+                .find_map(|e| e.error.as_ref())
+                .map(|e| format!(" (a run failed: {e})"))
+                .unwrap_or_default()
+        );
+        row.runs = runs;
+        return Ok(row);
+    }
+    // The reference: the written value, or the low end when the key is not written.
+    let reference = written.unwrap_or(grid[0]);
+    let (pi, _) = runs
+        .iter()
+        .enumerate()
+        .filter(|(_, e)| e.pass)
+        .map(|(i, e)| (i, distance(e.value, reference, log)))
+        .min_by(|a, b| a.1.total_cmp(&b.1))
+        .expect("a passing point");
+    let p0 = runs[pi].value;
+    // The failing end of the bracket: the neighbour towards the reference, or the reference itself (it fails)
+    // when it lies nearer.
+    let toward_low = reference < p0;
+    let neighbour = if toward_low {
+        pi.checked_sub(1).map(|j| runs[j].value)
+    } else {
+        runs.get(pi + 1).map(|e| e.value)
+    };
+    let q0 = match (neighbour, written) {
+        (Some(n), Some(w)) => {
+            if (toward_low && w > n) || (!toward_low && w < n) {
+                Some(w)
+            } else {
+                Some(n)
+            }
+        }
+        (Some(n), None) => Some(n),
+        (None, Some(w)) if w != p0 => Some(w),
+        _ => None,
+    };
+    let (mut p, mut q) = (p0, q0);
+    let mut best = runs[pi].clone();
+    if let Some(mut qv) = q {
+        loop {
+            let done = if integer {
+                (p - qv).abs() <= 1.0
+            } else {
+                (p - qv).abs() <= spec.tolerance * p.abs()
+            };
+            if done {
+                break;
+            }
+            let mut m = if log && p > 0.0 && qv > 0.0 {
+                (p * qv).sqrt()
+            } else {
+                0.5 * (p + qv)
+            };
+            if integer {
+                m = m.round();
+                if m == p || m == qv {
+                    break;
+                }
+            }
+            let e = eval(m);
+            let pass = e.pass;
+            runs.push(e.clone());
+            if pass {
+                p = m;
+                best = e;
+            } else {
+                qv = m;
+            }
+        }
+        q = Some(qv);
+    } else {
+        row.note = [
+            row.note.clone(),
+            "the answer is at the end of the range scanned; widen FROM..TO to refine it".into(),
+        ]
+        .into_iter()
+        .filter(|s| !s.is_empty())
+        .collect::<Vec<_>>()
+        .join("; ");
+    }
+    let _ = q;
+    runs.sort_by(|a, b| a.value.total_cmp(&b.value));
+    row.value = Some(p);
+    row.found = true;
+    row.metric_at_value = best.metric;
+    row.margin = margin(&best);
+    row.direction = if p > reference { "rise" } else { "fall" }.into();
+    row.runs = runs;
+    Ok(row)
+}
