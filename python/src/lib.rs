@@ -39,7 +39,11 @@ fn to_py(e: Error) -> PyErr {
 }
 
 /// The scenario: a file's path, or TOML text (its relative file names then resolve from `base_dir`).
-fn load(path: Option<&str>, text: Option<&str>, base_dir: Option<&str>) -> Result<ScenarioText, Error> {
+fn load(
+    path: Option<&str>,
+    text: Option<&str>,
+    base_dir: Option<&str>,
+) -> Result<ScenarioText, Error> {
     match (path, text) {
         (Some(p), _) => ScenarioText::load(Path::new(p)),
         (None, Some(t)) => ScenarioText::new(
@@ -62,7 +66,11 @@ fn run_scenario<'py>(
     base_dir: Option<&str>,
     overrides: Vec<(String, f64)>,
     wav: bool,
-) -> PyResult<(String, Bound<'py, PyDict>, Option<Bound<'py, PyArray1<u32>>>)> {
+) -> PyResult<(
+    String,
+    Bound<'py, PyDict>,
+    Option<Bound<'py, PyArray1<u32>>>,
+)> {
     let (path, text, base_dir) = (
         path.map(str::to_owned),
         text.map(str::to_owned),
@@ -132,7 +140,10 @@ fn row_to_dict<'py>(py: Python<'py>, row: &SweepRow) -> PyResult<Bound<'py, PyDi
 }
 
 fn spec_of(vary: &[String], points: usize, log: bool) -> Result<SweepSpec, Error> {
-    let vary = vary.iter().map(|v| parse_vary(v)).collect::<Result<Vec<_>, _>>()?;
+    let vary = vary
+        .iter()
+        .map(|v| parse_vary(v))
+        .collect::<Result<Vec<_>, _>>()?;
     sweep::check_distinct(&vary)?;
     Ok(SweepSpec {
         vary,
@@ -145,7 +156,11 @@ fn spec_of(vary: &[String], points: usize, log: bool) -> Result<SweepSpec, Error
 /// A sweep's points in grid order: a list of (index, [(key, value), ...]).
 #[pyfunction]
 #[allow(clippy::type_complexity)]
-fn sweep_points(vary: Vec<String>, points: usize, log: bool) -> PyResult<Vec<(u64, Vec<(String, f64)>)>> {
+fn sweep_points(
+    vary: Vec<String>,
+    points: usize,
+    log: bool,
+) -> PyResult<Vec<(u64, Vec<(String, f64)>)>> {
     let spec = spec_of(&vary, points, log).map_err(to_py)?;
     let axes = spec
         .vary
@@ -157,7 +172,12 @@ fn sweep_points(vary: Vec<String>, points: usize, log: bool) -> PyResult<Vec<(u6
         .into_iter()
         .enumerate()
         .map(|(i, p)| {
-            let ov = spec.vary.iter().zip(p).map(|(v, x)| (v.key.clone(), x)).collect();
+            let ov = spec
+                .vary
+                .iter()
+                .zip(p)
+                .map(|(v, x)| (v.key.clone(), x))
+                .collect();
             (i as u64, ov)
         })
         .collect())
