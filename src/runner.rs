@@ -98,6 +98,62 @@ fn run_inner(
     let (plan, _) = Plan::new(sc)?;
     let (file, tmp) = out.create_temp("waveforms.csv")?;
     let mut csv = CsvSink::from_file(file, tmp, plan.n_total, opts.full_waveforms);
+    let m = simulate_and_measure(sc, Some(&mut csv), opts, capture)?;
+    m.phase("writing the files");
+    csv.finish()?;
+    let json = serde_json::to_vec_pretty(&m.report).map_err(|e| Error::Run(e.to_string()))?;
+    out.commit("waveforms.csv")?;
+    for f in &m.figs {
+        out.write(&format!("{}.png", f.name), &f.png)?;
+        out.write(&format!("{}.svg", f.name), f.svg.as_bytes())?;
+    }
+    if let Some(set) = &m.wav_files {
+        out.write("input.wav", &set.input)?;
+        out.write("output.wav", &set.output)?;
+        out.write("error.wav", &set.error)?;
+    }
+    if opts.figures {
+        out.write(
+            "report.md",
+            document::markdown(&m.report, &m.figs).as_bytes(),
+        )?;
+        out.write("report.html", document::html(&m.report, &m.figs).as_bytes())?;
+    }
+    out.write("report.json", &json)?;
+    if let Some(b) = m.spinner {
+        b.finish_and_clear();
+    }
+    Ok(m.report)
+}
+
+/// A run simulated and measured, before anything is written: the report, the figures and listening files
+/// when asked for, and the spinner that names the phases (when progress is shown).
+pub struct Measured {
+    pub report: Report,
+    pub figs: Vec<figures::Figure>,
+    pub wav_files: Option<crate::report::wav::ListeningSet>,
+    /// The ADC record the meters use (its codes in order), when the chain has an ADC.
+    pub adc_codes: Option<Vec<u32>>,
+    spinner: Option<indicatif::ProgressBar>,
+}
+
+impl Measured {
+    fn phase(&self, name: &'static str) {
+        if let Some(b) = &self.spinner {
+            b.set_message(name);
+            b.tick();
+        }
+    }
+}
+
+/// Simulate and measure a checked scenario, streaming the waveforms of its first path into `sink` (when
+/// given), and build the report as [`run_to_dir`] writes it; nothing is written to disk.
+pub fn simulate_and_measure(
+    sc: &Scenario,
+    sink: Option<&mut (dyn pipeline::WaveformSink + Send)>,
+    opts: &RunOptions,
+    capture: Option<&CompareCapture>,
+) -> Result<Measured> {
     let show = opts.progress && std::io::IsTerminal::is_terminal(&std::io::stderr());
     let bar = show.then(|| {
         let b = indicatif::ProgressBar::new(1000);
@@ -117,7 +173,13 @@ fn run_inner(
     // The first path (or the one chain) with the waveforms and the progress bar; the other paths beside it.
     let others = other_paths(sc)?;
     let (run, other_runs) = rayon::join(
-        || pipeline::run(sc, Some(&mut csv), &mut progress),
+        || {
+            pipeline::run(
+                sc,
+                sink.map(|s| s as &mut dyn pipeline::WaveformSink),
+                &mut progress,
+            )
+        },
         || {
             use rayon::prelude::*;
             others
@@ -154,8 +216,6 @@ fn run_inner(
             b.tick();
         }
     };
-    phase("writing the waveforms");
-    csv.finish()?;
     phase("measuring");
     let mut metrics = measure_run(&run.records())?;
     metrics.latency.over_time = track_latency(&run, &metrics);
@@ -319,27 +379,17 @@ fn run_inner(
                 .push(format!("listening files not written: {e}")),
         }
     }
-    phase("writing the files");
-    let json = serde_json::to_vec_pretty(&report).map_err(|e| Error::Run(e.to_string()))?;
-    out.commit("waveforms.csv")?;
-    for f in &figs {
-        out.write(&format!("{}.png", f.name), &f.png)?;
-        out.write(&format!("{}.svg", f.name), f.svg.as_bytes())?;
-    }
-    if let Some(set) = &wav_files {
-        out.write("input.wav", &set.input)?;
-        out.write("output.wav", &set.output)?;
-        out.write("error.wav", &set.error)?;
-    }
-    if opts.figures {
-        out.write("report.md", document::markdown(&report, &figs).as_bytes())?;
-        out.write("report.html", document::html(&report, &figs).as_bytes())?;
-    }
-    out.write("report.json", &json)?;
-    if let Some(b) = spinner {
-        b.finish_and_clear();
-    }
-    Ok(report)
+    let adc_codes = run
+        .adc_codes
+        .as_ref()
+        .map(|r| r.codes.iter().map(|e| e.code).collect());
+    Ok(Measured {
+        report,
+        figs,
+        wav_files,
+        adc_codes,
+        spinner,
+    })
 }
 
 /// A path after the first of a `[[path]]` scenario, run and measured.
@@ -624,4 +674,85 @@ pub fn static_to_dir(text: &ScenarioText, dir: &Path, force: bool) -> Result<Sta
     }
     out.finish()?;
     Ok(report)
+}
+
+/// The waveforms of a run kept in memory at the full grid rate: what `waveforms.csv` holds with
+/// `--full-waveforms`, unrounded.
+#[derive(Debug, Clone, Default)]
+pub struct Waveforms {
+    /// Grid instants (s).
+    pub time_s: Vec<f64>,
+    /// One column per analog stream, named as in `waveforms.csv` (`<label>_v`).
+    pub analog: Vec<(String, Vec<f64>)>,
+    /// One column per code stream, named as in `waveforms.csv`.
+    pub codes: Vec<(String, Vec<u32>)>,
+}
+
+impl pipeline::WaveformSink for Waveforms {
+    fn begin(&mut self, analog: &[String], codes: &[String]) -> Result<()> {
+        let col = crate::report::csv::column_name;
+        self.analog = analog
+            .iter()
+            .map(|a| (format!("{}_v", col(a)), Vec::new()))
+            .collect();
+        self.codes = codes.iter().map(|c| (col(c), Vec::new())).collect();
+        Ok(())
+    }
+
+    fn block(
+        &mut self,
+        timebase: crate::signal::stream::Timebase,
+        n0: u64,
+        analog: &[&[f64]],
+        codes: &[&[u32]],
+    ) -> Result<()> {
+        let len = analog.first().map_or(0, |c| c.len());
+        self.time_s
+            .extend((0..len as u64).map(|j| timebase.time_s(n0 + j)));
+        for ((_, dst), src) in self.analog.iter_mut().zip(analog) {
+            dst.extend_from_slice(src);
+        }
+        for ((_, dst), src) in self.codes.iter_mut().zip(codes) {
+            dst.extend_from_slice(src);
+        }
+        Ok(())
+    }
+}
+
+/// A run kept in memory: its report (as `report.json` holds it), its waveforms and the ADC's record of codes.
+pub struct InMemoryRun {
+    pub report: Report,
+    pub waveforms: Waveforms,
+    /// The ADC record the meters use (`record_len` codes), when the chain has an ADC.
+    pub adc_codes: Option<Vec<u32>>,
+}
+
+/// Run a checked scenario as [`run_to_dir`] does (same report numbers for the same options) without writing
+/// anything: no figures are drawn and the listening files, when asked for, are made only for the report's
+/// `listening` figures.
+pub fn run_in_memory(sc: &Scenario, opts: &RunOptions) -> Result<InMemoryRun> {
+    let (plan, _) = Plan::new(sc)?;
+    check_paths(sc)?;
+    if let Some(band) = opts.audio_band_hz {
+        crate::engine::audio::check(sc, &plan, band)?;
+    }
+    let capture = match opts.compare.as_ref().or(sc.compare.as_ref()) {
+        Some(spec) => {
+            compare::check_source(&sc.source.waveform)?;
+            Some(compare::read_capture(spec)?)
+        }
+        None => None,
+    };
+    let opts = RunOptions {
+        figures: false,
+        progress: false,
+        ..opts.clone()
+    };
+    let mut waveforms = Waveforms::default();
+    let m = simulate_and_measure(sc, Some(&mut waveforms), &opts, capture.as_ref())?;
+    Ok(InMemoryRun {
+        report: m.report,
+        waveforms,
+        adc_codes: m.adc_codes,
+    })
 }

@@ -34,7 +34,8 @@ pub struct McArgs {
     #[arg(long)]
     threads: Option<usize>,
     /// Run only the runs with index % N == K-1 (K from 1), to split a study over machines; join the
-    /// folders with `convchain merge`.
+    /// folders with `convchain merge`. `auto` (or `auto/N`) takes K and N from a batch
+    /// scheduler's array-job task variables (Slurm, Grid Engine, LSF, PBS, AWS Batch, Kubernetes indexed jobs).
     #[arg(long, value_name = "K/N")]
     shard: Option<String>,
     /// Only the static tests (DNL, INL, missing codes, monotonicity); no simulated run.

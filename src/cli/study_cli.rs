@@ -46,7 +46,8 @@ pub struct SweepArgs {
     #[arg(long)]
     threads: Option<usize>,
     /// Run only the points with index % N == K-1 (K from 1; index in grid order), to split a sweep over
-    /// machines; join the folders with `convchain merge`.
+    /// machines; join the folders with `convchain merge`. `auto` (or `auto/N`) takes K and N from a batch
+    /// scheduler's array-job task variables (Slurm, Grid Engine, LSF, PBS, AWS Batch, Kubernetes indexed jobs).
     #[arg(long, value_name = "K/N")]
     shard: Option<String>,
     /// Print nothing but errors.

@@ -1,6 +1,7 @@
 //! Studies built on many runs of one scenario: parameter sweeps, the frequency-limit finder, Monte-Carlo, and
 //! the row files that let a study be split over machines (shards) and merged.
 
+pub mod array_job;
 pub mod limit;
 pub mod montecarlo;
 pub mod need;

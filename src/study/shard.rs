@@ -106,8 +106,12 @@ impl Shard {
     /// Every run.
     pub const WHOLE: Shard = Shard { k: 1, n: 1 };
 
-    /// Parse `K/N` (1 <= K <= N). Bad text is [`Error::BadInput`] with the expected form.
+    /// Parse `K/N` (1 <= K <= N), or `auto` / `auto/N` (K and N from a batch scheduler's array-job variables,
+    /// see [`crate::study::array_job`]). Bad text is [`Error::BadInput`] with the expected form.
     pub fn parse(text: &str) -> Result<Shard> {
+        if crate::study::array_job::is_auto(text) {
+            return crate::study::array_job::from_env(text);
+        }
         let bad = |why: &str| {
             Error::BadInput(format!(
                 "--shard {text}: {why}; write K/N with 1 <= K <= N, e.g. --shard 2/3 for the second of three \

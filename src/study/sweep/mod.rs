@@ -423,6 +423,44 @@ pub fn simulate(sc: &Scenario) -> Result<(Option<f64>, Option<f64>, ChainMetrics
     Ok((freqs.0, freqs.1, m))
 }
 
+/// Simulate and measure one point of a sweep, its scenario `sc` already checked (with the audio figures over
+/// `audio_band_hz` when given), as the row of grid position `index` with the varied `values`. A point that
+/// fails while running is kept as a row with its error and no metrics.
+pub fn run_point(
+    sc: &Scenario,
+    audio_band_hz: Option<(f64, f64)>,
+    index: u64,
+    values: Vec<f64>,
+) -> SweepRow {
+    let finite = |x: Option<f64>| x.filter(|v| v.is_finite());
+    let measured = match audio_band_hz {
+        Some(band) => simulate_audio(sc, band),
+        None => simulate(sc).map(|(fr, fu, m)| (fr, fu, metric_values(&m))),
+    };
+    match measured {
+        Ok((fr, fu, m)) => SweepRow {
+            index,
+            values,
+            frequency_requested_hz: finite(fr),
+            frequency_used_hz: finite(fu),
+            // Non-finite values are kept as missing, as rows.json holds them.
+            metrics: m.into_iter().map(finite).collect(),
+            error: None,
+        },
+        Err(e) => SweepRow {
+            index,
+            values,
+            frequency_requested_hz: finite(sc.source.waveform.fundamental_hz()),
+            frequency_used_hz: None,
+            metrics: vec![
+                None;
+                METRIC_COLUMNS.len() + audio_band_hz.map_or(0, |_| AUDIO_COLUMNS.len())
+            ],
+            error: Some(e.to_string()),
+        },
+    }
+}
+
 /// A rayon pool of `threads` workers (None or 0: one per core).
 pub fn thread_pool(threads: Option<usize>) -> Result<rayon::ThreadPool> {
     rayon::ThreadPoolBuilder::new()
@@ -513,34 +551,10 @@ pub fn run_sweep_until(
         .filter(|(i, _, _)| opts.shard.contains(*i))
         .collect();
     let bar = progress_bar(mine.len(), opts.progress, "sweeping");
-    let finite = |x: Option<f64>| x.filter(|v| v.is_finite());
-    let n_metrics = spec.metric_columns().len();
-    let measured = |sc: &Scenario| match spec.audio_band_hz {
-        Some(band) => simulate_audio(sc, band),
-        None => simulate(sc).map(|(fr, fu, m)| (fr, fu, metric_values(&m))),
-    };
     // Points start in grid order, so an interrupted sweep holds the first points of its shard.
     let rows: Vec<SweepRow> = run_in_order(&pool, mine.len(), cancel, bar.as_ref(), |j| {
         let (index, sc, p) = mine[j];
-        match measured(sc) {
-            Ok((fr, fu, m)) => SweepRow {
-                index,
-                values: p.clone(),
-                frequency_requested_hz: finite(fr),
-                frequency_used_hz: finite(fu),
-                // Non-finite values are kept as missing, as rows.json holds them.
-                metrics: m.into_iter().map(finite).collect(),
-                error: None,
-            },
-            Err(e) => SweepRow {
-                index,
-                values: p.clone(),
-                frequency_requested_hz: finite(sc.source.waveform.fundamental_hz()),
-                frequency_used_hz: None,
-                metrics: vec![None; n_metrics],
-                error: Some(e.to_string()),
-            },
-        }
+        run_point(sc, spec.audio_band_hz, index, p.clone())
     });
     if let Some(b) = bar {
         b.finish_and_clear();
