@@ -159,7 +159,7 @@ impl Goal {
     fn describe(&self) -> String {
         match self {
             Goal::UpTo(c) => format!(
-                "{} holds up to {} ({} run from {})",
+                "{} holds up to {} (judged at {} frequencies from {})",
                 c.criterion.name(),
                 crate::format::units::format_si(c.up_to_hz, "Hz"),
                 c.frequencies_hz().len(),
