@@ -450,6 +450,8 @@ pub enum SiStyle {
 
 /// The crate's one SI formatter: `value` in base units with an SI prefix on `unit`, written in `style`.
 pub fn format_si_as(value: f64, unit: &str, style: SiStyle) -> String {
+    // A negative zero (a delay of -0.0 from a sign flip of nothing) prints as zero.
+    let value = if value == 0.0 { 0.0 } else { value };
     match style {
         SiStyle::Parseable => {
             if !value.is_finite() {
@@ -568,6 +570,8 @@ mod tests {
         assert_eq!(format_si_table(99.99988e-9, "s"), "100 ns");
         assert_eq!(format_si_table(999.996e-9, "s"), "1 µs");
         assert_eq!(format_si_table(0.0, "s"), "0 s");
+        assert_eq!(format_si_table(-0.0, "s"), "0 s");
+        assert_eq!(format_si(-0.0, "V"), format_si(0.0, "V"));
     }
 
     fn q(s: &str, d: Dimension) -> f64 {
