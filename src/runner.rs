@@ -58,24 +58,28 @@ impl Default for RunOptions {
     }
 }
 
-/// Run a scenario, measure it and write `report.json` and `waveforms.csv` into `dir` (created when the run
-/// starts; on failure nothing partial is left). The files an earlier run wrote there and this one did not
-/// (plots and WAV files after `--no-plots --no-wav`) are removed.
-pub fn run_to_dir(sc: &Scenario, dir: &Path, opts: &RunOptions) -> Result<Report> {
-    // Plan first: bad input is reported before any folder appears.
+/// The checks before a run: the plan (bad input is reported before any folder appears), the paths, the audio
+/// band, and the `[compare]` capture, read before anything is simulated so a bad file is reported at once.
+fn preflight(sc: &Scenario, opts: &RunOptions) -> Result<Option<compare::CompareCapture>> {
     let (plan, _) = Plan::new(sc)?;
     check_paths(sc)?;
     if let Some(band) = opts.audio_band_hz {
         crate::engine::audio::check(sc, &plan, band)?;
     }
-    // The capture is read before anything is simulated: a bad file is reported at once.
-    let capture = match opts.compare.as_ref().or(sc.compare.as_ref()) {
+    match opts.compare.as_ref().or(sc.compare.as_ref()) {
         Some(spec) => {
             compare::check_source(&sc.source.waveform)?;
-            Some(compare::read_capture(spec)?)
+            Ok(Some(compare::read_capture(spec)?))
         }
-        None => None,
-    };
+        None => Ok(None),
+    }
+}
+
+/// Run a scenario, measure it and write `report.json` and `waveforms.csv` into `dir` (created when the run
+/// starts; on failure nothing partial is left). The files an earlier run wrote there and this one did not
+/// (plots and WAV files after `--no-plots --no-wav`) are removed.
+pub fn run_to_dir(sc: &Scenario, dir: &Path, opts: &RunOptions) -> Result<Report> {
+    let capture = preflight(sc, opts)?;
     let out = OutputDir::create(dir, &Producer::run(opts.force))?;
     match run_inner(sc, &out, opts, capture.as_ref()) {
         Ok(r) => {
@@ -731,18 +735,7 @@ pub struct InMemoryRun {
 /// anything: no figures are drawn and the listening files, when asked for, are made only for the report's
 /// `listening` figures.
 pub fn run_in_memory(sc: &Scenario, opts: &RunOptions) -> Result<InMemoryRun> {
-    let (plan, _) = Plan::new(sc)?;
-    check_paths(sc)?;
-    if let Some(band) = opts.audio_band_hz {
-        crate::engine::audio::check(sc, &plan, band)?;
-    }
-    let capture = match opts.compare.as_ref().or(sc.compare.as_ref()) {
-        Some(spec) => {
-            compare::check_source(&sc.source.waveform)?;
-            Some(compare::read_capture(spec)?)
-        }
-        None => None,
-    };
+    let capture = preflight(sc, opts)?;
     let opts = RunOptions {
         figures: false,
         progress: false,
