@@ -193,3 +193,52 @@ fn the_dac_updates_at_its_exact_instants_whatever_the_grid_rate() {
         );
     }
 }
+
+#[test]
+fn a_sweep_over_the_dac_clock_counts_the_slips_in_its_own_column() {
+    // The sweep's `latency.slips` column carries report.json's `latency.slips` (0 where no FIFO is needed):
+    // 2 s at 48 kHz with the DAC d ppm fast drifts d 1e-6 x 2 x 48e3 samples, less the FIFO's 3-code headroom
+    // (the construction the test above checks): 0 ppm -> no FIFO, 0; 100 ppm -> 9.6 - 3; 200 ppm -> 19.2 - 3.
+    let tmp = tempfile::tempdir().unwrap();
+    let text = scenario("48 kHz", 0.0, "", 0.0, 1000.0, (1.9, 2.0), "192 kHz");
+    let path = tmp.path().join("sweepclock.toml");
+    std::fs::write(&path, text).unwrap();
+    let out = tmp.path().join("sweepclock");
+    let o = run_in(
+        tmp.path(),
+        &[
+            "sweep",
+            path.to_str().unwrap(),
+            "--vary",
+            "stage.2.clock_ppm=0..200",
+            "--points",
+            "3",
+            "--out",
+            out.to_str().unwrap(),
+            "-q",
+        ],
+    );
+    ok(&o);
+    let (head, rows) = common::csv_rows(&out.join("sweep.csv"));
+    let col = head
+        .iter()
+        .position(|c| c == "latency.slips")
+        .expect("latency.slips column");
+    let lost = head
+        .iter()
+        .position(|c| c == "latency.packets_lost")
+        .unwrap();
+    assert_eq!(col, lost + 1, "slips sit beside the packets lost");
+    let slips: Vec<f64> = rows.iter().map(|r| r[col].parse().unwrap()).collect();
+    for (got, ppm) in slips.iter().zip([0.0, 100.0, 200.0]) {
+        let want = if ppm == 0.0 {
+            0.0
+        } else {
+            ppm * 1e-6 * 2.0 * 48e3 - 3.0
+        };
+        assert!(
+            (got - want).abs() <= 1.0,
+            "DAC at +{ppm} ppm: {got} slips, {want} expected"
+        );
+    }
+}

@@ -19,7 +19,8 @@ use common::{ok, repo, run_in};
 /// `latency.packets_lost` (sweep.csv): new fields only, every figure and waveform the same; and a DAC without
 /// output dynamics came to hold each grid sample at the average of its hold over the sample's cell (each update at
 /// its exact instant, not the next grid instant: the two four-bit demos' measured latency moved by +0.59 us, the
-/// 0.29 grid step that sampling the hold put it early).
+/// 0.29 grid step that sampling the hold put it early); and sweep.csv gained the `latency.slips` column after
+/// `latency.packets_lost` (a new column only, every other cell the same).
 const GOLDEN: &[(&str, u64)] = &[
     ("four-bit-listen-dithered/report.json", 0x6ecae637e80ea689),
     ("four-bit-listen-dithered/waveforms.csv", 0x5624f9f0fb33a238),
@@ -27,13 +28,13 @@ const GOLDEN: &[(&str, u64)] = &[
     ("four-bit-listen/waveforms.csv", 0x431f65271b32162f),
     ("radio-stl/report.json", 0xa214d0800172d35c),
     ("radio-stl/waveforms.csv", 0xe6de35bf58f1df18),
-    ("radio-stl/sweep.csv", 0x1c72bf268070eead),
+    ("radio-stl/sweep.csv", 0x74ce6e849a54697e),
     ("river-gauge/report.json", 0xcb73c3181767f1b4),
     ("river-gauge/waveforms.csv", 0x79b9e736ed2e86d3),
-    ("river-gauge/sweep.csv", 0x9428b50ae72d4841),
+    ("river-gauge/sweep.csv", 0x08ca78cd1883af96),
     ("studio-interface/report.json", 0x84ef336c6605082f),
     ("studio-interface/waveforms.csv", 0x48767dba8c896af0),
-    ("studio-interface/sweep.csv", 0x5a059806fdf2e1cc),
+    ("studio-interface/sweep.csv", 0xfb1d61536760644d),
     ("default/report.json", 0xc9ea2df741f3e17a),
     ("default/waveforms.csv", 0x48767dba8c896af0),
     ("static.json", 0x343db39d1aaf533f),
