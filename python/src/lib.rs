@@ -364,12 +364,17 @@ fn montecarlo_run<'py>(
         text.map(str::to_owned),
         base_dir.map(str::to_owned),
     );
+    if index >= 1 << 40 {
+        return Err(ScenarioError::new_err(format!(
+            "index {index}: a Monte-Carlo study has at most 2^40 runs, numbered from 0"
+        )));
+    }
     let (columns, row) = py
         .detach(move || {
             let st = load(path.as_deref(), text.as_deref(), base_dir.as_deref())?;
             // A row does not depend on the study's run count or requirements: a study of index + 1 runs has it.
             let opts = mc_options(
-                index.saturating_add(1),
+                index + 1,
                 seed,
                 &[],
                 static_only,

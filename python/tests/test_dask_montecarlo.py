@@ -137,3 +137,20 @@ def test_wrong_rows_are_refused(dask_rows, mc_file, tmp_path):
         convchain.montecarlo_runs(mc_file, runs=0)
     with pytest.raises(convchain.ScenarioError, match="unknown metric"):
         convchain.montecarlo_runs(mc_file, runs=RUNS, require=["output.enob>=3"])
+
+
+def test_audio_and_static_options_reach_the_rows(cli, mc_file, tmp_path):
+    # `--audio --no-static` against audio_band_hz=(20 Hz, 20 kHz) (the CLI's default band) and no_static=True.
+    out = tmp_path / "cli-audio"
+    cli("montecarlo", mc_file, "--runs", 2, "--seed", SEED, "--audio", "--no-static", "--out", out, "--quiet")
+    expected = json.loads((out / "rows.json").read_text())
+    opts = dict(seed=SEED, no_static=True, audio_band_hz=(20.0, 20000.0))
+    rows = [convchain.montecarlo_run(SMALL, i, **opts) for i in (1, 0)]
+    assert list(rows[0]) == expected["columns"]
+    assert any(c.startswith("audio.") for c in expected["columns"])
+    assert [list(r.values()) for r in reversed(rows)] == expected["rows"]
+    py = tmp_path / "py-audio"
+    convchain.write_montecarlo(mc_file, rows, py, runs=2, **opts)
+    assert (py / "rows.json").read_bytes() == (out / "rows.json").read_bytes()
+    with pytest.raises(convchain.ScenarioError, match="index 1099511627776"):
+        convchain.montecarlo_run(SMALL, 2 ** 40)
