@@ -9,8 +9,8 @@ use std::time::Duration;
 use common::{bin, interrupt_after, ok, read, run, stderr};
 
 use convchain::scenario::overrides::ScenarioText;
-use convchain::study::montecarlo::{McOptions, Requirement, run_rows};
-use convchain::study::shard::RowSet;
+use convchain::study::montecarlo::{McOptions, McPlan, Requirement, run_rows, write_rows};
+use convchain::study::shard::{RowSet, Shard};
 use rand::{RngExt, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 
@@ -553,4 +553,70 @@ fn ctrl_c_keeps_the_finished_rows_and_says_so() {
     ]);
     assert_eq!(o.status.code(), Some(2));
     assert!(stderr(&o).contains("interrupted after"));
+}
+
+#[test]
+fn runs_computed_one_at_a_time_write_the_cli_files() {
+    // The path the Python module takes: each run alone (here in a scrambled order, as a distributed executor
+    // returns them), assembled and written by the library, against `convchain montecarlo` on one machine.
+    let d = tempfile::tempdir().unwrap();
+    let file = d.path().join("small.toml");
+    std::fs::write(&file, SMALL).unwrap();
+    let cli = d.path().join("cli");
+    ok(&run(&[
+        "montecarlo".as_ref(),
+        file.as_os_str(),
+        "--runs".as_ref(),
+        "6".as_ref(),
+        "--seed".as_ref(),
+        "11".as_ref(),
+        "--require".as_ref(),
+        "output.enob_bits>=6".as_ref(),
+        "--out".as_ref(),
+        cli.as_os_str(),
+        "--quiet".as_ref(),
+    ]));
+    let t = ScenarioText::load(&file).unwrap();
+    let mut opts = McOptions::new(6);
+    opts.seed = Some(11);
+    opts.requires = vec![Requirement::parse("output.enob_bits>=6").unwrap()];
+    let plan = McPlan::new(&t, &opts).unwrap();
+    assert_eq!(plan.columns().first().map(String::as_str), Some("index"));
+    let rows: Vec<_> = [5u64, 2, 0, 3, 1, 4]
+        .iter()
+        .map(|i| plan.run_one(*i))
+        .collect();
+    let set = plan.rows(Shard::WHOLE, rows.clone(), None).unwrap();
+    let lib = d.path().join("lib");
+    write_rows(&set, &lib, false).unwrap();
+    for f in ["montecarlo.csv", "montecarlo.json", "rows.json"] {
+        assert!(read(&cli, f) == read(&lib, f), "{f} differs");
+    }
+
+    // Wrong sets are refused with the run they concern.
+    let msg = |rows: Vec<Vec<serde_json::Value>>, shard: Shard| {
+        let e = plan.rows(shard, rows, None).unwrap_err();
+        assert!(e.is_bad_input(), "{e}");
+        e.to_string()
+    };
+    assert!(msg(rows[..5].to_vec(), Shard::WHOLE).contains("run 4 is missing"));
+    let mut twice = rows.clone();
+    twice.push(rows[1].clone());
+    assert!(msg(twice, Shard::WHOLE).contains("run 2 is given twice"));
+    let half = Shard::parse("1/2").unwrap();
+    assert!(msg(rows.clone(), half).contains("run 5 is not a run of this shard"));
+    let mut other_seed = opts.clone();
+    other_seed.seed = Some(12);
+    let other = McPlan::new(&t, &other_seed).unwrap();
+    assert!(msg(vec![other.run_one(0)], half).contains("run 0 has seed"));
+    let mut short = rows.clone();
+    short[0].pop();
+    assert!(msg(short, Shard::WHOLE).contains("cells"));
+    // A shard's rows alone, complete, are accepted and marked as that shard.
+    let evens: Vec<_> = rows
+        .iter()
+        .filter(|r| r[0].as_u64().unwrap() % 2 == 0)
+        .cloned()
+        .collect();
+    assert_eq!(plan.rows(half, evens, None).unwrap().shard, half);
 }

@@ -1,5 +1,6 @@
 """convchain from Python: run scenarios in memory (the report as a dict, the waveforms as numpy arrays) and
-spread a sweep's points over any executor (``client.map(convchain.point, ...)``).
+spread a sweep's points or a Monte-Carlo study's runs over any executor (``client.map(convchain.point, ...)``,
+``client.map(convchain.montecarlo_run, ...)``).
 
 The engine releases the GIL while it runs, so threads and distributed workers run points in parallel.
 """
@@ -12,7 +13,7 @@ from pathlib import Path
 from typing import Any, Dict, Iterable, List, Mapping, Optional, Sequence, Tuple, Union
 
 from . import _convchain
-from ._convchain import METRIC_COLUMNS, RunError, ScenarioError
+from ._convchain import METRIC_COLUMNS, MONTECARLO_METRICS, RunError, ScenarioError
 
 # The CLI's exit categories (README "Exit codes"): bad input 2, run failure 1.
 ScenarioError.exit_code = 2
@@ -24,9 +25,13 @@ __all__ = [
     "point",
     "sweep_points",
     "write_sweep",
+    "montecarlo_runs",
+    "montecarlo_run",
+    "write_montecarlo",
     "ScenarioError",
     "RunError",
     "METRIC_COLUMNS",
+    "MONTECARLO_METRICS",
 ]
 
 Scenario = Union[str, os.PathLike]
@@ -138,3 +143,96 @@ def write_sweep(
         path, text, base, list(vary), int(points), bool(log),
         [(int(i), dict(d)) for i, d in results], os.fspath(out), shard, force,
     )
+
+
+def _band(audio_band_hz: Optional[Tuple[float, float]]) -> Optional[Tuple[float, float]]:
+    if audio_band_hz is None:
+        return None
+    low, high = audio_band_hz
+    return float(low), float(high)
+
+
+def _seed(seed: Optional[int]) -> Optional[int]:
+    return None if seed is None else int(seed)
+
+
+def montecarlo_runs(
+    scenario: Scenario,
+    *,
+    runs: int,
+    seed: Optional[int] = None,
+    require: Sequence[str] = (),
+    shard: str = "1/1",
+    static_only: bool = False,
+    no_static: bool = False,
+    audio_band_hz: Optional[Tuple[float, float]] = None,
+) -> List[Tuple[int, int]]:
+    """The runs of a Monte-Carlo study (of one shard with ``shard="K/N"``) as (index, the run's seed).
+
+    The options are those of ``convchain montecarlo``: ``runs`` (``--runs``), ``seed`` the base seed (``--seed``;
+    None = the scenario's ``simulation.seed``), ``require`` texts such as ``"output.enob_bits>=7.5"``
+    (``--require``), ``static_only`` / ``no_static`` (``--static-only`` / ``--no-static``) and ``audio_band_hz``
+    as (low, high) in Hz (``--audio-band``; ``(20.0, 20000.0)`` is ``--audio``). The study is checked first, so
+    bad input raises ScenarioError here rather than on the workers. Give each index to montecarlo_run().
+    """
+    path, text, base = _source(scenario)
+    return _convchain.montecarlo_runs(
+        path, text, base, int(runs), _seed(seed), [str(r) for r in require], bool(static_only),
+        bool(no_static), _band(audio_band_hz), str(shard),
+    )
+
+
+def montecarlo_run(
+    scenario: Scenario,
+    index: int,
+    *,
+    seed: Optional[int] = None,
+    static_only: bool = False,
+    no_static: bool = False,
+    audio_band_hz: Optional[Tuple[float, float]] = None,
+) -> Dict[str, Any]:
+    """Run ``index`` of a Monte-Carlo study: the numbers of that row of ``convchain montecarlo``'s output.
+
+    Returns a dict in the order of ``montecarlo.csv``'s columns: ``index``, ``seed`` (the run's seed), one entry
+    per ``[spread]`` path (the drawn value, SI units), every name of MONTECARLO_METRICS (None when not measured),
+    the audio figures with ``audio_band_hz``, and ``error`` (None, or why the run failed: a failed run is a row,
+    not an exception). ``seed``, ``static_only``, ``no_static`` and ``audio_band_hz`` must be the study's (see
+    montecarlo_runs()). The row depends only on the scenario, these options and ``index``, so runs can be
+    computed in any order on any machine. Bad input raises ScenarioError.
+    """
+    path, text, base = _source(scenario)
+    return _convchain.montecarlo_run(
+        path, text, base, int(index), _seed(seed), bool(static_only), bool(no_static), _band(audio_band_hz),
+    )
+
+
+def write_montecarlo(
+    scenario: Scenario,
+    results: Iterable[Mapping[str, Any]],
+    out: Union[str, os.PathLike],
+    *,
+    runs: int,
+    seed: Optional[int] = None,
+    require: Sequence[str] = (),
+    shard: str = "1/1",
+    static_only: bool = False,
+    no_static: bool = False,
+    audio_band_hz: Optional[Tuple[float, float]] = None,
+    force: bool = False,
+) -> Dict[str, Any]:
+    """Write a Monte-Carlo study's folder (``rows.json``, ``montecarlo.csv``, ``montecarlo.json``, histograms)
+    from runs computed elsewhere: ``results`` holds the dicts montecarlo_run() returned, one for every run of
+    the study (of ``shard``), in any order. The options are the study's, as for montecarlo_runs(); with
+    ``shard="K/N"`` the folder is one shard's, which ``convchain merge`` joins with the others. ``force``
+    replaces another study's files in ``out``.
+
+    Returns the summary that ``montecarlo.json`` holds, as a dict. A missing, repeated or foreign run raises
+    ScenarioError naming it.
+    """
+    path, text, base = _source(scenario)
+    summary = _convchain.write_montecarlo(
+        path, text, base, int(runs), _seed(seed), [str(r) for r in require], bool(static_only),
+        bool(no_static), _band(audio_band_hz), [dict(r) for r in results], os.fspath(out), str(shard),
+        bool(force),
+    )
+    return json.loads(summary)

@@ -6,6 +6,7 @@ import numpy.typing as npt
 
 Scenario = Union[str, os.PathLike[str]]
 METRIC_COLUMNS: List[str]
+MONTECARLO_METRICS: List[str]
 
 class ScenarioError(Exception):
     exit_code: int
@@ -40,3 +41,37 @@ def write_sweep(
     shard: str = "1/1",
     force: bool = False,
 ) -> None: ...
+def montecarlo_runs(
+    scenario: Scenario,
+    *,
+    runs: int,
+    seed: Optional[int] = None,
+    require: Sequence[str] = (),
+    shard: str = "1/1",
+    static_only: bool = False,
+    no_static: bool = False,
+    audio_band_hz: Optional[Tuple[float, float]] = None,
+) -> List[Tuple[int, int]]: ...
+def montecarlo_run(
+    scenario: Scenario,
+    index: int,
+    *,
+    seed: Optional[int] = None,
+    static_only: bool = False,
+    no_static: bool = False,
+    audio_band_hz: Optional[Tuple[float, float]] = None,
+) -> Dict[str, Any]: ...
+def write_montecarlo(
+    scenario: Scenario,
+    results: Iterable[Mapping[str, Any]],
+    out: Union[str, os.PathLike[str]],
+    *,
+    runs: int,
+    seed: Optional[int] = None,
+    require: Sequence[str] = (),
+    shard: str = "1/1",
+    static_only: bool = False,
+    no_static: bool = False,
+    audio_band_hz: Optional[Tuple[float, float]] = None,
+    force: bool = False,
+) -> Dict[str, Any]: ...

@@ -1,4 +1,5 @@
-//! The Python module `convchain._convchain`: the engine's runs and sweep points for `convchain/__init__.py`.
+//! The Python module `convchain._convchain`: the engine's runs, sweep points and Monte-Carlo runs for
+//! `convchain/__init__.py`.
 //! Every call releases the GIL while the engine works ([`Python::detach`]).
 
 use std::path::{Path, PathBuf};
@@ -7,6 +8,7 @@ use convchain::Error;
 use convchain::report::wav::WavOptions;
 use convchain::runner::{RunOptions, run_in_memory};
 use convchain::scenario::overrides::ScenarioText;
+use convchain::study::montecarlo::{self, McOptions, McPlan, Requirement};
 use convchain::study::shard::{Shard, fingerprint};
 use convchain::study::sweep::{
     self, METRIC_COLUMNS, SweepResult, SweepRow, SweepSpec, axis_values, grid, parse_vary,
@@ -16,6 +18,7 @@ use pyo3::create_exception;
 use pyo3::exceptions::PyException;
 use pyo3::prelude::*;
 use pyo3::types::{PyDict, PyList};
+use serde_json::Value;
 
 create_exception!(
     _convchain,
@@ -265,6 +268,211 @@ fn write_sweep(
         .map_err(to_py)
 }
 
+/// The options of a Monte-Carlo study, as `convchain montecarlo` takes them.
+#[allow(clippy::too_many_arguments)]
+fn mc_options(
+    runs: u64,
+    seed: Option<u64>,
+    require: &[String],
+    static_only: bool,
+    no_static: bool,
+    audio_band_hz: Option<(f64, f64)>,
+    shard: &str,
+) -> Result<McOptions, Error> {
+    if static_only && no_static {
+        return Err(Error::BadInput(
+            "static_only and no_static together leave nothing to run; give one of them".into(),
+        ));
+    }
+    let mut o = McOptions::new(runs);
+    o.seed = seed;
+    o.requires = require
+        .iter()
+        .map(|r| Requirement::parse(r))
+        .collect::<Result<_, _>>()?;
+    o.dynamic = !static_only;
+    o.static_tests = !no_static;
+    o.audio_band_hz = audio_band_hz;
+    o.shard = Shard::parse(shard)?;
+    o.threads = Some(1);
+    Ok(o)
+}
+
+/// The runs of a Monte-Carlo study's shard: a list of (index, the run's seed). Checks the study first, as
+/// `convchain montecarlo` does before its first run.
+#[pyfunction]
+#[allow(clippy::too_many_arguments, clippy::type_complexity)]
+#[pyo3(signature = (path, text, base_dir, runs, seed, require, static_only, no_static, audio_band_hz, shard="1/1"))]
+fn montecarlo_runs(
+    py: Python<'_>,
+    path: Option<&str>,
+    text: Option<&str>,
+    base_dir: Option<&str>,
+    runs: u64,
+    seed: Option<u64>,
+    require: Vec<String>,
+    static_only: bool,
+    no_static: bool,
+    audio_band_hz: Option<(f64, f64)>,
+    shard: &str,
+) -> PyResult<Vec<(u64, u64)>> {
+    let (path, text, base_dir, shard) = (
+        path.map(str::to_owned),
+        text.map(str::to_owned),
+        base_dir.map(str::to_owned),
+        shard.to_owned(),
+    );
+    py.detach(move || {
+        let st = load(path.as_deref(), text.as_deref(), base_dir.as_deref())?;
+        let opts = mc_options(
+            runs,
+            seed,
+            &require,
+            static_only,
+            no_static,
+            audio_band_hz,
+            &shard,
+        )?;
+        let plan = McPlan::new(&st, &opts)?;
+        Ok::<_, Error>(
+            (0..runs)
+                .filter(|i| opts.shard.contains(*i))
+                .map(|i| (i, montecarlo::run_seed(plan.base_seed(), i)))
+                .collect(),
+        )
+    })
+    .map_err(to_py)
+}
+
+/// Run `index` of a Monte-Carlo study: a dict of the row's columns (`index`, `seed`, the drawn `[spread]`
+/// values, the metrics, `error`) with the numbers of that row of `convchain montecarlo`'s output.
+#[pyfunction]
+#[allow(clippy::too_many_arguments)]
+fn montecarlo_run<'py>(
+    py: Python<'py>,
+    path: Option<&str>,
+    text: Option<&str>,
+    base_dir: Option<&str>,
+    index: u64,
+    seed: Option<u64>,
+    static_only: bool,
+    no_static: bool,
+    audio_band_hz: Option<(f64, f64)>,
+) -> PyResult<Bound<'py, PyDict>> {
+    let (path, text, base_dir) = (
+        path.map(str::to_owned),
+        text.map(str::to_owned),
+        base_dir.map(str::to_owned),
+    );
+    if index >= 1 << 40 {
+        return Err(ScenarioError::new_err(format!(
+            "index {index}: a Monte-Carlo study has at most 2^40 runs, numbered from 0"
+        )));
+    }
+    let (columns, row) = py
+        .detach(move || {
+            let st = load(path.as_deref(), text.as_deref(), base_dir.as_deref())?;
+            // A row does not depend on the study's run count or requirements: a study of index + 1 runs has it.
+            let opts = mc_options(
+                index + 1,
+                seed,
+                &[],
+                static_only,
+                no_static,
+                audio_band_hz,
+                "1/1",
+            )?;
+            let plan = McPlan::new(&st, &opts)?;
+            Ok::<_, Error>((plan.columns().to_vec(), plan.run_one(index)))
+        })
+        .map_err(to_py)?;
+    let d = PyDict::new(py);
+    for (name, v) in columns.iter().zip(&row) {
+        match v {
+            Value::Null => d.set_item(name, py.None())?,
+            Value::String(s) => d.set_item(name, s)?,
+            Value::Number(n) => match n.as_u64() {
+                Some(u) => d.set_item(name, u)?,
+                None => d.set_item(name, n.as_f64())?,
+            },
+            other => d.set_item(name, other.to_string())?,
+        }
+    }
+    Ok(d)
+}
+
+/// Write a Monte-Carlo study's folder (`rows.json`, `montecarlo.csv`, `montecarlo.json`, histograms) from
+/// runs computed elsewhere: `results` is a list of the dicts [`montecarlo_run`] returned, for every run of
+/// `shard`. Returns `montecarlo.json` as JSON text.
+#[pyfunction]
+#[allow(clippy::too_many_arguments)]
+#[pyo3(signature = (path, text, base_dir, runs, seed, require, static_only, no_static, audio_band_hz, results, dir, shard="1/1", force=false))]
+fn write_montecarlo(
+    py: Python<'_>,
+    path: Option<&str>,
+    text: Option<&str>,
+    base_dir: Option<&str>,
+    runs: u64,
+    seed: Option<u64>,
+    require: Vec<String>,
+    static_only: bool,
+    no_static: bool,
+    audio_band_hz: Option<(f64, f64)>,
+    results: &Bound<'_, PyList>,
+    dir: &str,
+    shard: &str,
+    force: bool,
+) -> PyResult<String> {
+    let st = load(path, text, base_dir).map_err(to_py)?;
+    let opts = mc_options(
+        runs,
+        seed,
+        &require,
+        static_only,
+        no_static,
+        audio_band_hz,
+        shard,
+    )
+    .map_err(to_py)?;
+    let plan = McPlan::new(&st, &opts).map_err(to_py)?;
+    let columns = plan.columns();
+    let last = columns.len() - 1;
+    let mut rows = Vec::with_capacity(results.len());
+    for (k, item) in results.iter().enumerate() {
+        let d: Bound<'_, PyDict> = item.extract().map_err(|_| {
+            ScenarioError::new_err(format!(
+                "results[{k}] is not a dict (give what convchain.montecarlo_run returned)"
+            ))
+        })?;
+        let mut row = Vec::with_capacity(columns.len());
+        for (c, name) in columns.iter().enumerate() {
+            let v = d.get_item(name)?.ok_or_else(|| {
+                ScenarioError::new_err(format!(
+                    "results[{k}] has no `{name}` (give what convchain.montecarlo_run returned for this study)"
+                ))
+            })?;
+            row.push(if c < 2 {
+                Value::from(v.extract::<u64>()?)
+            } else if c == last {
+                v.extract::<Option<String>>()?
+                    .map_or(Value::Null, Value::String)
+            } else {
+                v.extract::<Option<f64>>()?
+                    .and_then(serde_json::Number::from_f64)
+                    .map_or(Value::Null, Value::Number)
+            });
+        }
+        rows.push(row);
+    }
+    let dir = PathBuf::from(dir);
+    py.detach(move || {
+        let set = plan.rows(opts.shard, rows, None)?;
+        let summary = montecarlo::write_rows(&set, &dir, force)?;
+        serde_json::to_string(&summary).map_err(|e| Error::Run(e.to_string()))
+    })
+    .map_err(to_py)
+}
+
 #[pymodule]
 fn _convchain(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add("ScenarioError", m.py().get_type::<ScenarioError>())?;
@@ -274,5 +482,9 @@ fn _convchain(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(point, m)?)?;
     m.add_function(wrap_pyfunction!(sweep_points, m)?)?;
     m.add_function(wrap_pyfunction!(write_sweep, m)?)?;
+    m.add_function(wrap_pyfunction!(montecarlo_runs, m)?)?;
+    m.add_function(wrap_pyfunction!(montecarlo_run, m)?)?;
+    m.add_function(wrap_pyfunction!(write_montecarlo, m)?)?;
+    m.add("MONTECARLO_METRICS", montecarlo::METRICS.to_vec())?;
     Ok(())
 }

@@ -25,3 +25,13 @@ def cli():
 @pytest.fixture(scope="session")
 def scenario():
     return SCENARIO
+
+
+@pytest.fixture(scope="session")
+def client():
+    """A Dask LocalCluster of 2 worker processes (one thread each), shared by the tests that map over it."""
+    distributed = pytest.importorskip("distributed")
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
+                                  dashboard_address=None) as cluster:
+        with distributed.Client(cluster) as c:
+            yield c

@@ -7,17 +7,9 @@ import pytest
 
 import convchain
 
-distributed = pytest.importorskip("distributed")
+pytest.importorskip("distributed")
 
 VARY_20 = "source.amplitude=0.05..0.9"
-
-
-@pytest.fixture(scope="module")
-def client():
-    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
-                                  dashboard_address=None) as cluster:
-        with distributed.Client(cluster) as c:
-            yield c
 
 
 @pytest.fixture(scope="module")

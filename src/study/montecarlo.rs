@@ -258,11 +258,15 @@ impl McOptions {
     }
 }
 
-/// A prepared study: the scenario text, the study header and the columns.
-struct Prepared<'a> {
+/// A Monte-Carlo study ready to run: the scenario text, the study header (what `rows.json` says about the
+/// study) and the columns of its rows. `convchain montecarlo` and the Python module both compute runs with
+/// [`McPlan::run_one`], assemble them with [`McPlan::rows`] and write them with [`write_rows`], so a study's
+/// runs can be computed anywhere (threads, shards, a distributed executor) and give the same files.
+pub struct McPlan<'a> {
     text: &'a ScenarioText,
     spreads: Vec<Spread>,
     base_seed: u64,
+    runs: u64,
     dynamic: bool,
     statics: bool,
     audio_band_hz: Option<(f64, f64)>,
@@ -274,7 +278,121 @@ fn has_converter(sc: &Scenario) -> bool {
     sc.stages.iter().any(|s| s.kind.has_static_levels())
 }
 
-fn prepare<'a>(text: &'a ScenarioText, opts: &McOptions) -> Result<Prepared<'a>> {
+impl<'a> McPlan<'a> {
+    /// Check the options against the nominal scenario and build the study header and columns. Bad options
+    /// or a bad nominal scenario are [`Error::BadInput`].
+    pub fn new(text: &'a ScenarioText, opts: &McOptions) -> Result<McPlan<'a>> {
+        prepare(text, opts)
+    }
+
+    /// The study header of `rows.json` (`runs`, `scenario`, `scenario_hash`, `seed`, options, spreads,
+    /// requirements).
+    pub fn header(&self) -> &Value {
+        &self.header
+    }
+
+    /// Column names of a row: `index`, `seed`, the `[spread]` paths, [`METRICS`], the audio columns with
+    /// `--audio`, `error`.
+    pub fn columns(&self) -> &[String] {
+        &self.columns
+    }
+
+    /// The base seed (`--seed`, else the scenario's `simulation.seed`).
+    pub fn base_seed(&self) -> u64 {
+        self.base_seed
+    }
+
+    /// Runs in the whole study.
+    pub fn runs(&self) -> u64 {
+        self.runs
+    }
+
+    /// Run `index` of the study: draw, check, simulate and measure. A failure is kept in the row's `error`
+    /// cell, so this never fails; the row depends on the study and `index` only.
+    pub fn run_one(&self, index: u64) -> Vec<Value> {
+        one_run(self, index)
+    }
+
+    /// The rows of `shard` as a [`RowSet`], from rows made by [`McPlan::run_one`] in any order. Without
+    /// `interrupted` every run of the shard must be there; a row of another shard or study, a repeated or
+    /// missing run, or a row of the wrong shape is [`Error::BadInput`] naming the run.
+    pub fn rows(
+        &self,
+        shard: Shard,
+        mut rows: Vec<Vec<Value>>,
+        interrupted: Option<String>,
+    ) -> Result<RowSet> {
+        let bad = |why: String| {
+            Error::BadInput(format!(
+                "Monte-Carlo rows of \"{}\" ({} runs, base seed {}, shard {shard}): {why}\n  hint: give the rows \
+                 that the runs of this study returned, with the same scenario, --runs, --seed and options",
+                crate::text::clip(self.header["scenario"].as_str().unwrap_or("?")),
+                self.runs,
+                self.base_seed,
+            ))
+        };
+        let n = self.columns.len();
+        for r in &rows {
+            let Some(index) = RowSet::index_of(r) else {
+                return Err(bad(format!(
+                    "a row's first cell {} is not a run index",
+                    r.first().map_or("(none)".into(), Value::to_string)
+                )));
+            };
+            if r.len() != n {
+                return Err(bad(format!(
+                    "run {index} has {} cells, the study's rows have {n} ({})",
+                    r.len(),
+                    self.columns.join(", ")
+                )));
+            }
+            if index >= self.runs || !shard.contains(index) {
+                return Err(bad(format!("run {index} is not a run of this shard")));
+            }
+            if r[1].as_u64() != Some(run_seed(self.base_seed, index)) {
+                return Err(bad(format!(
+                    "run {index} has seed {}, this study's run {index} has seed {}",
+                    r[1],
+                    run_seed(self.base_seed, index)
+                )));
+            }
+            let numbers_ok = r[2..n - 1].iter().all(|v| v.is_null() || v.is_f64());
+            let error_ok = r[n - 1].is_null() || r[n - 1].is_string();
+            if !numbers_ok || !error_ok {
+                return Err(bad(format!(
+                    "run {index}: the values must be numbers or null and `error` text or null"
+                )));
+            }
+        }
+        rows.sort_by_key(|r| RowSet::index_of(r));
+        if let Some(w) = rows.windows(2).find(|w| w[0][0] == w[1][0]) {
+            return Err(bad(format!("run {} is given twice", w[0][0])));
+        }
+        if interrupted.is_none() && (rows.len() as u64) < shard.count(self.runs) {
+            let have: std::collections::BTreeSet<u64> =
+                rows.iter().filter_map(|r| RowSet::index_of(r)).collect();
+            let missing = (0..self.runs)
+                .find(|i| shard.contains(*i) && !have.contains(i))
+                .unwrap_or(0);
+            return Err(bad(format!(
+                "{} of the shard's {} runs are given; run {missing} is missing",
+                rows.len(),
+                shard.count(self.runs)
+            )));
+        }
+        Ok(RowSet {
+            format: ROWS_FORMAT.into(),
+            kind: KIND.into(),
+            study: self.header.clone(),
+            shard,
+            interrupted,
+            columns: self.columns.clone(),
+            rows,
+        })
+    }
+}
+
+fn prepare<'a>(text: &'a ScenarioText, opts: &McOptions) -> Result<McPlan<'a>> {
     let sc = text.scenario()?;
     if opts.runs == 0 {
         return Err(Error::BadInput("--runs 0: give at least one run".into()));
@@ -356,10 +474,11 @@ fn prepare<'a>(text: &'a ScenarioText, opts: &McOptions) -> Result<Prepared<'a>>
         columns.extend(AUDIO_COLUMNS.iter().map(|m| m.to_string()));
     }
     columns.push("error".into());
-    Ok(Prepared {
+    Ok(McPlan {
         text,
         spreads,
         base_seed,
+        runs: opts.runs,
         dynamic: opts.dynamic,
         statics,
         audio_band_hz: opts.audio_band_hz,
@@ -406,7 +525,7 @@ fn num(x: f64) -> Value {
 }
 
 /// One run: draw, check, simulate and measure; a failure is kept in the row's `error` cell.
-fn one_run(p: &Prepared<'_>, index: u64) -> Vec<Value> {
+fn one_run(p: &McPlan<'_>, index: u64) -> Vec<Value> {
     let seed = run_seed(p.base_seed, index);
     let drawn = draw_spread(&p.spreads, seed);
     let mut overrides: Vec<(String, f64)> = vec![("simulation.seed".into(), seed as f64)];
@@ -467,7 +586,10 @@ fn one_run(p: &Prepared<'_>, index: u64) -> Vec<Value> {
 /// run starts; the runs in progress finish and the set is marked interrupted. Bad options or a bad nominal
 /// scenario are [`Error::BadInput`]; a run that fails (e.g. a drawn value out of range) is a row with an error.
 pub fn run_rows(text: &ScenarioText, opts: &McOptions, cancel: &AtomicBool) -> Result<RowSet> {
-    let p = prepare(text, opts)?;
+    run_plan(&prepare(text, opts)?, opts, cancel)
+}
+
+fn run_plan(p: &McPlan<'_>, opts: &McOptions, cancel: &AtomicBool) -> Result<RowSet> {
     let indices: Vec<u64> = (0..opts.runs).filter(|i| opts.shard.contains(*i)).collect();
     let mut builder = rayon::ThreadPoolBuilder::new();
     if let Some(t) = opts.threads {
@@ -488,22 +610,14 @@ pub fn run_rows(text: &ScenarioText, opts: &McOptions, cancel: &AtomicBool) -> R
     });
     // Workers take the next index in order, so an interrupted study holds the first runs.
     let rows = run_in_order(&pool, indices.len(), cancel, bar.as_ref(), |j| {
-        one_run(&p, indices[j])
+        p.run_one(indices[j])
     });
     if let Some(b) = bar {
         b.finish_and_clear();
     }
     let interrupted =
         (rows.len() < indices.len()).then(|| interrupted_note(&STUDY, rows.len(), indices.len()));
-    Ok(RowSet {
-        format: ROWS_FORMAT.into(),
-        kind: KIND.into(),
-        study: p.header,
-        shard: opts.shard,
-        interrupted,
-        columns: p.columns,
-        rows,
-    })
+    p.rows(opts.shard, rows, interrupted)
 }
 
 /// Percentiles and extremes of the values a metric took.
@@ -835,12 +949,29 @@ pub fn montecarlo_to_dir(
     dir: &Path,
     cancel: &AtomicBool,
 ) -> Result<Summary> {
-    let prepared = prepare(text, opts)?;
-    let producer = study_producer(KIND, &prepared.header, opts.shard, opts.force);
-    OutputDir::check(dir, &producer)?;
-    let set = run_rows(text, opts, cancel)?;
+    let plan = prepare(text, opts)?;
+    // Refuse a folder holding another study before spending the runs.
+    OutputDir::check(
+        dir,
+        &study_producer(KIND, plan.header(), opts.shard, opts.force),
+    )?;
+    let set = run_plan(&plan, opts, cancel)?;
+    write_rows(&set, dir, opts.force)
+}
+
+/// Write a Monte-Carlo row set's files into `dir` ([`write_outputs`] through an [`OutputDir`] made for the
+/// study and shard of `set`), as `convchain montecarlo` does after its runs. `force` replaces another study's
+/// files there.
+pub fn write_rows(set: &RowSet, dir: &Path, force: bool) -> Result<Summary> {
+    if set.kind != KIND {
+        return Err(Error::BadInput(format!(
+            "rows of a {} study, not of a Monte-Carlo study",
+            set.kind
+        )));
+    }
+    let producer = study_producer(KIND, &set.study, set.shard, force);
     let out = OutputDir::create(dir, &producer)?;
-    match write_outputs(&out, &set) {
+    match write_outputs(&out, set) {
         Ok(s) => {
             out.finish()?;
             Ok(s)
