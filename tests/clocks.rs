@@ -242,3 +242,61 @@ fn a_sweep_over_the_dac_clock_counts_the_slips_in_its_own_column() {
         );
     }
 }
+
+#[test]
+fn a_monte_carlo_over_the_dac_clock_counts_each_runs_slips_from_its_drawn_offset() {
+    // Each run draws the DAC's clock offset d (uniform within +-200 ppm around 0) and its `latency.slips` must
+    // follow the construction checked above: |d| 1e-6 x 2 s x 48 kHz samples of drift, less the FIFO's headroom
+    // (3 codes when the DAC is fast, 4 when slow), never below 0.
+    let tmp = tempfile::tempdir().unwrap();
+    let mut text = scenario("48 kHz", 0.0, "", 0.0, 1000.0, (1.9, 2.0), "192 kHz");
+    text.push_str("[spread]\n\"stage.2.clock_ppm\" = { uniform = 200 }\n");
+    let path = tmp.path().join("mcclock.toml");
+    std::fs::write(&path, text).unwrap();
+    let out = tmp.path().join("mcclock");
+    let o = run_in(
+        tmp.path(),
+        &[
+            "montecarlo",
+            path.to_str().unwrap(),
+            "--runs",
+            "6",
+            "--no-static",
+            "--require",
+            "latency.slips<=0",
+            "--out",
+            out.to_str().unwrap(),
+            "-q",
+        ],
+    );
+    ok(&o);
+    let (head, rows) = common::csv_rows(&out.join("montecarlo.csv"));
+    let ppm_col = head
+        .iter()
+        .position(|c| c == "stage.2.clock_ppm")
+        .expect("drawn column");
+    let col = head
+        .iter()
+        .position(|c| c == "latency.slips")
+        .expect("latency.slips column");
+    let mut passing = 0;
+    for r in &rows {
+        let d: f64 = r[ppm_col].parse().unwrap();
+        let got: f64 = r[col].parse().unwrap();
+        let headroom = if d > 0.0 { 3.0 } else { 4.0 };
+        let want = (d.abs() * 1e-6 * 2.0 * 48e3 - headroom).max(0.0);
+        assert!(
+            (got - want).abs() <= 1.0,
+            "DAC at {d} ppm: {got} slips, {want} expected"
+        );
+        passing += (got <= 0.0) as usize;
+    }
+    assert!(
+        rows.iter().any(|r| r[col] != "0"),
+        "some draw must slip: {rows:?}"
+    );
+    let summary = json(&out.join("montecarlo.json"));
+    let y = &summary["yield"][0];
+    assert_eq!(y["require"], "latency.slips<=0");
+    assert_eq!(y["passed"].as_u64(), Some(passing as u64), "{y}");
+}

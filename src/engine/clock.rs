@@ -86,7 +86,7 @@ impl Default for DacClockCfg {
 
 /// The keys [`read_dac_clock`] reads, for a DAC kind's parameter list.
 pub const DAC_CLOCK_PARAMS: [crate::stages::kind::Param; 3] = [
-    crate::stages::kind::Param::fixed("clock_ppm", crate::stages::kind::ParamKind::Number),
+    crate::stages::kind::Param::spread_number("clock_ppm"),
     crate::stages::kind::Param::fixed("fifo", crate::stages::kind::ParamKind::Integer),
     crate::stages::kind::Param::fixed("fifo_start", crate::stages::kind::ParamKind::Integer),
 ];

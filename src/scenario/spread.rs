@@ -10,7 +10,14 @@ fn spreadable_keys(kind: &str) -> Vec<(&'static str, Dimension)> {
     crate::scenario::keys::params_of(kind)
         .iter()
         .filter(|p| p.spread)
-        .filter_map(|p| Some((p.key, p.dimension()?)))
+        // A plain number is spread like a ratio: bare in its own unit, or `%` / `ppm` of the written value.
+        .filter_map(|p| {
+            let dim = match p.kind {
+                crate::stages::kind::ParamKind::Number => Some(Dimension::Ratio),
+                _ => p.dimension(),
+            };
+            Some((p.key, dim?))
+        })
         .collect()
 }
 

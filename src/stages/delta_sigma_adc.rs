@@ -408,7 +408,7 @@ input_noise = "20 uV""#;
             Param::fixed("attenuation", ParamKind::Quantity(D::Decibels)),
             Param::fixed("cic_order", ParamKind::Integer),
             Param::spread("input_noise", D::Voltage),
-            Param::fixed("clock_ppm", ParamKind::Number),
+            Param::spread_number("clock_ppm"),
         ]
     };
 

@@ -84,7 +84,7 @@ comparator_offset = "2 mV""#;
             Param::spread("comparator_offset", D::Voltage),
             Param::spread("comparator_noise", D::Voltage),
             Param::spread("ladder_tolerance", D::Ratio),
-            Param::fixed("clock_ppm", ParamKind::Number),
+            Param::spread_number("clock_ppm"),
         ]
     };
 

@@ -71,6 +71,15 @@ impl Param {
             spread: true,
         }
     }
+    /// A plain number (no unit) that may carry a spread: a bare spread is in the key's own unit, `%` or `ppm`
+    /// a fraction of the written value (a converter's `clock_ppm`, spread by a crystal's tolerance).
+    pub const fn spread_number(key: &'static str) -> Param {
+        Param {
+            key,
+            kind: ParamKind::Number,
+            spread: true,
+        }
+    }
     /// A parameter without a spread.
     pub const fn fixed(key: &'static str, kind: ParamKind) -> Param {
         Param {

@@ -130,7 +130,7 @@ stage_gain_error = 0.0002"#;
             Param::spread("comparator_offset", D::Voltage),
             Param::spread("stage_gain_error", D::Ratio),
             Param::spread("stage_noise", D::Voltage),
-            Param::fixed("clock_ppm", ParamKind::Number),
+            Param::spread_number("clock_ppm"),
         ]
     };
 

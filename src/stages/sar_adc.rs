@@ -166,7 +166,7 @@ comparator_noise = "0.5 mV""#;
             Param::spread("dither_lsb", D::Ratio),
             Param::fixed("transfer", ParamKind::Choice(&["centred", "truncating"])),
             Param::spread("reference_noise", D::Voltage),
-            Param::fixed("clock_ppm", ParamKind::Number),
+            Param::spread_number("clock_ppm"),
         ]
     };
 

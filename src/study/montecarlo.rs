@@ -59,7 +59,7 @@ pub const PERCENTILE_RULE: &str =
 /// Metrics recorded for every run, as named in reports and in `--require`. `static.*` come from the static
 /// tests, the others from the simulated run. `static.adc.missing_codes` counts codes; `static.dac.monotonic`
 /// and `static.adc.monotonic` are 1 (yes) or 0 (no).
-pub const METRICS: [&str; 21] = [
+pub const METRICS: [&str; 23] = [
     "adc.enob_bits",
     "adc.sinad_db",
     "adc.snr_db",
@@ -73,6 +73,8 @@ pub const METRICS: [&str; 21] = [
     "output.gain_db",
     "output.fidelity_db",
     "latency.measured_s",
+    "latency.packets_lost",
+    "latency.slips",
     "static.adc.dnl_max_lsb",
     "static.adc.inl_max_lsb",
     "static.adc.missing_codes",
@@ -508,6 +510,9 @@ fn metric_values(chain: Option<&ChainMetrics>, stat: Option<&Static>) -> Vec<Opt
         out.and_then(|o| o.gain_db),
         out.map(|o| o.fidelity_db),
         chain.map(|c| c.latency.measured_s),
+        chain.map(|c| c.latency.packets_lost as f64),
+        // No clock crossing without a rate converter: no FIFO, nothing to slip.
+        chain.map(|c| c.latency.slips.unwrap_or(0) as f64),
         sa.map(|a| a.code_density.dnl_max_lsb),
         sa.map(|a| a.code_density.inl_max_lsb),
         sa.map(|a| a.code_density.missing_codes as f64),
@@ -843,6 +848,8 @@ fn axis_label(name: &str) -> String {
         "output.sinad_db" => "output SINAD (dB)",
         "output.gain_db" => "output gain (dB)",
         "latency.measured_s" => "measured latency (s)",
+        "latency.slips" => "clock slips",
+        "latency.packets_lost" => "packets lost",
         "static.dac.dnl_max_lsb" => "worst DAC DNL (LSB)",
         "static.dac.inl_max_lsb" => "worst DAC INL (LSB)",
         "static.adc.dnl_max_lsb" => "worst ADC DNL (LSB)",
