@@ -328,6 +328,9 @@ pub fn solve(
     let text = &text;
     let base = text.scenario()?;
     let goal = goal_of(text)?;
+    if let Goal::UpTo(c) = &goal {
+        notes.extend(c.source_note.clone());
+    }
     let pool = thread_pool(spec.threads)?;
     let (metric, metric_unit, threshold, higher_is_better) = goal.metric();
     let written_eval = pool.install(|| goal.eval(text, f64::NAN, &[]));
