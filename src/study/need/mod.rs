@@ -249,6 +249,30 @@ pub fn check_requirements(reqs: &[Requirement]) -> Result<()> {
     Ok(())
 }
 
+/// A value of `key` as a table prints it, through the crate's SI formatter ([`SiStyle::Table`]: at most 5
+/// significant digits) with the unit the scenario writes: `"20.78 kHz"`, `"450 µs"`; slew rates in V/us as
+/// scenarios write them (`"15.658 V/us"`); whole numbers and plain numbers without a unit.
+pub fn show_value(key: &str, v: f64) -> String {
+    use crate::format::units::{Dimension, SiStyle, format_si_as, round_significant};
+    let plain = |x: f64| {
+        let x = round_significant(x, 5);
+        let x = if x == 0.0 { 0.0 } else { x };
+        format!("{x}")
+    };
+    match crate::study::sweep::key_dimension(key) {
+        Some(Dimension::Frequency) => format_si_as(v, "Hz", SiStyle::Table),
+        Some(Dimension::Time) => format_si_as(v, "s", SiStyle::Table),
+        Some(Dimension::Voltage) => format_si_as(v, "V", SiStyle::Table),
+        Some(Dimension::SlewRate) => format!("{} V/us", plain(v / 1e6)),
+        _ => plain(v),
+    }
+}
+
+/// `from..to` of `key`, each end as [`show_value`] prints it.
+pub fn show_range(key: &str, from: f64, to: f64) -> String {
+    format!("{}..{}", show_value(key, from), show_value(key, to))
+}
+
 /// Distance between two values of a key (log ratio with `log` and positive values).
 fn distance(a: f64, b: f64, log: bool) -> f64 {
     if log && a > 0.0 && b > 0.0 {
@@ -267,6 +291,44 @@ fn candidate_range(key: &str, written: f64) -> (f64, f64, bool) {
     } else {
         (written / 30.0, written * 30.0, true)
     }
+}
+
+/// When the scenario refuses `key` = `end`: the value between the written `w` (which it takes) and `end`
+/// closest to `end` that it takes, found by bisection (geometric with `log`) to 0.1 % (whole-number keys: to
+/// neighbours). None when it takes `end`.
+fn edge_of_allowed(text: &ScenarioText, key: &str, w: f64, end: f64, log: bool) -> Option<f64> {
+    let takes = |x: f64| text.with_edits(&[Edit::Set(key.to_string(), x)]).is_ok();
+    if takes(end) {
+        return None;
+    }
+    let integer = is_integer_key(key.rsplit('.').next().unwrap_or(key));
+    let (mut ok, mut bad) = (w, end);
+    for _ in 0..60 {
+        if integer {
+            if (bad - ok).abs() <= 1.0 {
+                break;
+            }
+        } else if (bad - ok).abs() <= 1e-3 * ok.abs().max(bad.abs()) {
+            break;
+        }
+        let mut m = if log && ok > 0.0 && bad > 0.0 {
+            (ok * bad).sqrt()
+        } else {
+            0.5 * (ok + bad)
+        };
+        if integer {
+            m = m.round();
+            if m == ok || m == bad {
+                break;
+            }
+        }
+        if takes(m) {
+            ok = m;
+        } else {
+            bad = m;
+        }
+    }
+    Some(ok)
 }
 
 /// A key written with a stage kind (`dac.slew_rate`) as the key of that stage (`stage.5.slew_rate`), when the
@@ -396,18 +458,16 @@ pub fn solve(
                 continue;
             }
             let (mut from, mut to, log) = candidate_range(&key, w);
-            // Ends the scenario cannot take (a sample rate the converter's clock cannot reach) are drawn in
-            // towards the written value.
+            // Ends the scenario cannot take (a sample rate the converter's clock cannot reach) are drawn in to
+            // the last value it takes (the written value is one).
             for end in [&mut from, &mut to] {
-                for _ in 0..12 {
-                    if text.with_edits(&[Edit::Set(key.clone(), *end)]).is_ok() {
-                        break;
-                    }
-                    *end = if log {
-                        (*end * w).sqrt()
-                    } else {
-                        (0.5 * (*end + w)).round()
-                    };
+                if let Some(edge) = edge_of_allowed(text, &key, w, *end, log) {
+                    notes.push(format!(
+                        "{key}: range drawn in to {} (the scenario refuses {})",
+                        show_value(&key, edge),
+                        show_value(&key, *end)
+                    ));
+                    *end = edge;
                 }
             }
             out.push((
@@ -443,6 +503,9 @@ pub fn solve(
             text.with_edits(&[Edit::Set(v.key.clone(), x)])?;
         }
     }
+    // With no key given and the chain already passing there is nothing to solve: the rows say so without a
+    // scan (a scan is run when the user named the keys: its plot shows the margin along the range).
+    let scan = !(spec.vary.is_empty() && written_eval.pass);
     let rows: Vec<NeedRow> = pool.install(|| {
         keys.par_iter()
             .map(|(v, log, source)| {
@@ -456,6 +519,7 @@ pub fn solve(
                     &written_eval,
                     higher_is_better,
                     threshold,
+                    scan,
                 )
             })
             .collect::<Result<Vec<_>>>()
@@ -510,12 +574,16 @@ fn solve_key(
     written_eval: &Eval,
     higher_is_better: bool,
     threshold: f64,
+    scan: bool,
 ) -> Result<NeedRow> {
     let last = v.key.rsplit('.').next().unwrap_or(&v.key);
     let integer = is_integer_key(last);
     let mut grid = axis_values(v, spec.points.max(3), log)?;
     grid.sort_by(f64::total_cmp);
     grid.dedup();
+    if !scan {
+        grid.clear();
+    }
     let eval = |x: f64| goal.eval(text, x, &[Edit::Set(v.key.clone(), x)]);
     let mut runs: Vec<Eval> = grid.par_iter().map(|&x| eval(x)).collect();
     // Passing ranges of the scan.
@@ -567,7 +635,7 @@ fn solve_key(
     let ranges_text = || {
         ranges
             .iter()
-            .map(|r| format!("{}..{}", r[0], r[1]))
+            .map(|r| show_range(&v.key, r[0], r[1]))
             .collect::<Vec<_>>()
             .join(", ")
     };
@@ -585,13 +653,21 @@ fn solve_key(
     }
     if ranges.is_empty() {
         row.note = format!(
-            "no value in {}..{} passes{}",
-            row.from,
-            row.to,
-            runs.iter()
-                .find_map(|e| e.error.as_ref())
-                .map(|e| format!(" (a run failed: {e})"))
-                .unwrap_or_default()
+            "no value in {} passes{}",
+            show_range(&v.key, row.from, row.to),
+            {
+                let failed: Vec<&Eval> = runs.iter().filter(|e| e.error.is_some()).collect();
+                match failed.first() {
+                    Some(first) => format!(
+                        " ({} of {} runs could not be judged, the first at {}: {})",
+                        failed.len(),
+                        runs.len(),
+                        show_value(&v.key, first.value),
+                        first.error.as_deref().unwrap_or_default()
+                    ),
+                    None => String::new(),
+                }
+            }
         );
         row.runs = runs;
         return Ok(row);
@@ -628,6 +704,20 @@ fn solve_key(
     };
     let (mut p, mut q) = (p0, q0);
     let mut best = runs[pi].clone();
+    // The failing end's run (a scan point, or the chain as written).
+    let mut failing: Option<Eval> = q0.and_then(|qv| {
+        runs.iter()
+            .find(|e| e.value == qv)
+            .cloned()
+            .or_else(|| (Some(qv) == written).then(|| written_eval.clone()))
+    });
+    // The metric's slope over the first bracket (per unit of `distance`): what a smooth response changes by.
+    let slope = match (&failing, best.metric) {
+        (Some(f), Some(mp)) => f
+            .metric
+            .map(|mq| (mp - mq).abs() / distance(p0, f.value, log).max(f64::MIN_POSITIVE)),
+        _ => None,
+    };
     if let Some(mut qv) = q {
         loop {
             let done = if integer {
@@ -657,9 +747,36 @@ fn solve_key(
                 best = e;
             } else {
                 qv = m;
+                failing = Some(e);
             }
         }
         q = Some(qv);
+        // A smooth response changes across the final bracket by about the first bracket's slope times its
+        // width; a change ten times that is a step the scan could not see (for example the products of a
+        // distortion landing on or off the tone as a rate moves): the answer holds at this value but may not
+        // hold beyond it.
+        if let (Some(f), Some(mp), Some(slope)) = (&failing, best.metric, slope)
+            && !integer
+            && let Some(mq) = f.metric
+        {
+            let jump = (mp - mq).abs();
+            let expected = slope * distance(p, qv, log);
+            if jump > 10.0 * expected {
+                let step = format!(
+                    "the metric steps from {mq:.3} to {mp:.3} {} between {} and {}, far more than its trend \
+                     (the response is not smooth here; values beyond the answer may fail: check the plot)",
+                    goal.metric().1,
+                    show_value(&v.key, qv),
+                    show_value(&v.key, p)
+                );
+                row.note = [row.note.clone(), step]
+                    .into_iter()
+                    .filter(|s| !s.is_empty())
+                    .collect::<Vec<_>>()
+                    .join("; ");
+                row.monotone = false;
+            }
+        }
     } else {
         row.note = [
             row.note.clone(),
