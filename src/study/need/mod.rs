@@ -22,7 +22,7 @@ use crate::scenario::overrides::{Edit, ScenarioText, candidates, is_integer_key}
 use crate::study::limit::UpToCheck;
 use crate::study::montecarlo::{Cmp, Requirement};
 use crate::study::sweep::{
-    METRIC_COLUMNS, Vary, axis_values, metric_values, simulate, thread_pool,
+    METRIC_COLUMNS, Vary, axis_values, metric_values, progress_bar, simulate, thread_pool,
 };
 
 mod output;
@@ -51,6 +51,8 @@ pub struct NeedSpec {
     /// Points of the coarse scan.
     pub points: usize,
     pub threads: Option<usize>,
+    /// A progress bar on standard error (when it is a terminal): the runs done of those known so far.
+    pub progress: bool,
 }
 
 /// One run of the requirement.
@@ -395,7 +397,14 @@ pub fn solve(
     }
     let pool = thread_pool(spec.threads)?;
     let (metric, metric_unit, threshold, higher_is_better) = goal.metric();
+    // The bar's length grows as runs become known: the chain as written, the diagnosis's ablations, each
+    // key's scan, each bisection step.
+    let bar = progress_bar(1, spec.progress, "need");
+    let bar = bar.as_ref();
     let written_eval = pool.install(|| goal.eval(text, f64::NAN, &[]));
+    if let Some(b) = bar {
+        b.inc(1);
+    }
     if let Some(e) = &written_eval.error {
         return Err(Error::Run(format!(
             "the chain as written could not be judged: {e}"
@@ -421,10 +430,19 @@ pub fn solve(
             }
         }
         // The diagnosis: each candidate's ablation judged like a value.
+        if let Some(b) = bar {
+            b.inc_length(found.len() as u64);
+        }
         let ablated: Vec<Eval> = pool.install(|| {
             found
                 .par_iter()
-                .map(|(_, w, c)| goal.eval(text, *w, &c.edits))
+                .map(|(_, w, c)| {
+                    let e = goal.eval(text, *w, &c.edits);
+                    if let Some(b) = bar {
+                        b.inc(1);
+                    }
+                    e
+                })
                 .collect()
         });
         let better = |e: &Eval| match (e.metric, written_eval.metric) {
@@ -520,10 +538,14 @@ pub fn solve(
                     higher_is_better,
                     threshold,
                     scan,
+                    bar,
                 )
             })
             .collect::<Result<Vec<_>>>()
     })?;
+    if let Some(b) = bar {
+        b.finish_and_clear();
+    }
     let head = rows
         .iter()
         .filter(|r| r.found && r.direction != "already passes")
@@ -575,6 +597,7 @@ fn solve_key(
     higher_is_better: bool,
     threshold: f64,
     scan: bool,
+    bar: Option<&indicatif::ProgressBar>,
 ) -> Result<NeedRow> {
     let last = v.key.rsplit('.').next().unwrap_or(&v.key);
     let integer = is_integer_key(last);
@@ -584,7 +607,16 @@ fn solve_key(
     if !scan {
         grid.clear();
     }
-    let eval = |x: f64| goal.eval(text, x, &[Edit::Set(v.key.clone(), x)]);
+    if let Some(b) = bar {
+        b.inc_length(grid.len() as u64);
+    }
+    let eval = |x: f64| {
+        let e = goal.eval(text, x, &[Edit::Set(v.key.clone(), x)]);
+        if let Some(b) = bar {
+            b.inc(1);
+        }
+        e
+    };
     let mut runs: Vec<Eval> = grid.par_iter().map(|&x| eval(x)).collect();
     // Passing ranges of the scan.
     let mut ranges: Vec<[f64; 2]> = Vec::new();
@@ -738,6 +770,9 @@ fn solve_key(
                 if m == p || m == qv {
                     break;
                 }
+            }
+            if let Some(b) = bar {
+                b.inc_length(1);
             }
             let e = eval(m);
             let pass = e.pass;
