@@ -472,3 +472,24 @@ fn ctrl_c_stops_need_removes_its_temporaries_and_exits_130() {
         }
     }
 }
+
+#[test]
+fn with_no_vary_a_converters_bits_are_a_candidate() {
+    // The jitter chain with negligible jitter and 8 bits: SNR = 6.02 N + 1.76 dB for a full-scale sine
+    // (common practice, no source), 0.35 dB less at 2.4 V of the 2.5 V half range: 49.6 dB at 8 bits,
+    // 55.6 dB at 9. So 52 dB needs 9 bits.
+    let d = tempfile::tempdir().unwrap();
+    let sc = JITTER_CHAIN
+        .replace("aperture_jitter = \"20 ns\"", "aperture_jitter = \"1 ps\"")
+        .replace("bits = 16", "bits = 8");
+    let j = need(d.path(), &sc, &["--require", "adc.snr_db>=52"]);
+    let rows = j["need"]["rows"].as_array().unwrap();
+    let bits = rows
+        .iter()
+        .find(|r| r["key"] == "stage.2.bits")
+        .unwrap_or_else(|| panic!("{rows:?}"));
+    assert_eq!(bits["direction"], "rise");
+    assert_eq!(bits["value"].as_f64().unwrap(), 9.0);
+    let snr = bits["metric_at_value"].as_f64().unwrap();
+    assert!((snr - 55.6).abs() < 1.0, "{snr}");
+}

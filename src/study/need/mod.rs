@@ -253,7 +253,8 @@ pub fn check_requirements(reqs: &[Requirement]) -> Result<()> {
 
 /// A value of `key` as a table prints it, through the crate's SI formatter ([`SiStyle::Table`]: at most 5
 /// significant digits) with the unit the scenario writes: `"20.78 kHz"`, `"450 µs"`; slew rates in V/us as
-/// scenarios write them (`"15.658 V/us"`); whole numbers and plain numbers without a unit.
+/// scenarios write them (`"15.658 V/us"`), ratios in percent (`"0.6 %"`); whole numbers and plain numbers
+/// without a unit.
 pub fn show_value(key: &str, v: f64) -> String {
     use crate::format::units::{Dimension, SiStyle, format_si_as, round_significant};
     let plain = |x: f64| {
@@ -266,6 +267,10 @@ pub fn show_value(key: &str, v: f64) -> String {
         Some(Dimension::Time) => format_si_as(v, "s", SiStyle::Table),
         Some(Dimension::Voltage) => format_si_as(v, "V", SiStyle::Table),
         Some(Dimension::SlewRate) => format!("{} V/us", plain(v / 1e6)),
+        // Tolerances, mismatches and gain errors; a bit error rate and a dither in LSB stay plain numbers.
+        Some(Dimension::Ratio) if !key.ends_with("bit_error_rate") && !key.ends_with("_lsb") => {
+            format!("{} %", plain(v * 100.0))
+        }
         _ => plain(v),
     }
 }
@@ -412,7 +417,25 @@ pub fn solve(
     }
     // The keys: given, or the diagnosis's candidates written as numbers.
     let keys: Vec<(Vary, bool, String)> = if spec.vary.is_empty() {
-        let cands = candidates(&base);
+        let mut cands = candidates(&base);
+        // How many bits: the diagnosis never removes quantization (every converter has it), but the
+        // resolution is a question `need` answers. Each converter with `bits` written is a candidate, judged
+        // like an ablation with 4 bits more.
+        for (i, st) in base.stages.iter().enumerate() {
+            let key = format!("stage.{}.bits", i + 1);
+            if st.kind.role() != crate::stages::kind::Role::Quantizer {
+                continue;
+            }
+            if let Some(w) = text.get(&key) {
+                cands.push(crate::scenario::overrides::Candidate {
+                    stage_index: i,
+                    mechanism: format!("{}.bits", st.kind.kind_name()),
+                    stage: st.label.clone(),
+                    change: format!("{}: bits raised to {}", st.label, w + 4.0),
+                    edits: vec![Edit::Set(key, w + 4.0)],
+                });
+            }
+        }
         let mut found = Vec::new();
         for c in &cands {
             let param = c.mechanism.split('.').nth(1).unwrap_or("cutoff");
@@ -831,4 +854,83 @@ fn solve_key(
     row.direction = if p > reference { "rise" } else { "fall" }.into();
     row.runs = runs;
     Ok(row)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// An 8-bit SAR on a 20 kHz bit clock: one conversion takes 9 cycles, 450 us, so the scenario takes a
+    /// sample rate of at most 20 kHz / 9 = 2.222 kHz (the reader's own rule, src/stages/sar_adc.rs).
+    const SAR: &str = r#"
+name = "t"
+description = ""
+[simulation]
+analog_rate = "100 kHz"
+duration = "100 ms"
+settle = "10 ms"
+[source]
+waveform = "sine"
+frequency = "5 Hz"
+amplitude = "1 V"
+offset = "1.65 V"
+[[stage]]
+kind = "sar_adc"
+bits = 8
+range = ["0 V", "3.3 V"]
+clock = "20 kHz"
+sample_rate = "1 kHz"
+input = "live"
+[[stage]]
+kind = "dac"
+range = ["0 V", "3.3 V"]
+"#;
+
+    fn text(s: &str) -> ScenarioText {
+        ScenarioText::new(s.to_string(), "test".into(), ".".into()).unwrap()
+    }
+
+    #[test]
+    fn a_range_end_the_scenario_refuses_is_drawn_in_to_the_last_value_it_takes() {
+        let t = text(SAR);
+        let key = "stage.1.sample_rate";
+        let max = 20e3 / 9.0;
+        for log in [true, false] {
+            let edge = edge_of_allowed(&t, key, 1e3, 30e3, log).unwrap();
+            assert!(
+                edge <= max && edge > max * (1.0 - 1e-3),
+                "log {log}: {edge}"
+            );
+            assert!(t.with_edits(&[Edit::Set(key.into(), edge)]).is_ok());
+        }
+        // An end it takes is kept.
+        assert_eq!(edge_of_allowed(&t, key, 1e3, 2e3, true), None);
+        // Whole-number keys end on a whole number, the last one taken: at 1 kHz the clock gives 20 cycles a
+        // sample, so at most 19 bits (bits + 1 cycles per conversion, src/stages/sar_adc.rs).
+        let edge = edge_of_allowed(&t, "stage.1.bits", 8.0, 400.0, false).unwrap();
+        assert_eq!(edge, 19.0);
+        assert!(
+            t.with_edits(&[Edit::Set("stage.1.bits".into(), edge)])
+                .is_ok()
+        );
+        assert!(
+            t.with_edits(&[Edit::Set("stage.1.bits".into(), edge + 1.0)])
+                .is_err()
+        );
+    }
+
+    #[test]
+    fn values_print_through_the_si_formatter() {
+        assert_eq!(show_value("stage.2.sample_rate", 2221.1), "2.2211 kHz");
+        assert_eq!(show_value("stage.4.cutoff", 20_780.0), "20.78 kHz");
+        assert_eq!(show_value("stage.1.aperture_jitter", 7.96e-9), "7.96 ns");
+        assert_eq!(show_value("stage.5.slew_rate", 15.657_49e6), "15.657 V/us");
+        assert_eq!(show_value("stage.2.quantizer_bits", 2.0), "2");
+        assert_eq!(show_value("stage.4.tolerance", 0.006_068), "0.6068 %");
+        assert_eq!(show_value("stage.3.bit_error_rate", 1e-5), "0.00001");
+        assert_eq!(
+            show_range("stage.2.sample_rate", 1600.0, 73_431.329_987),
+            "1.6 kHz..73.431 kHz"
+        );
+    }
 }
