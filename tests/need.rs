@@ -392,6 +392,20 @@ fn chord_sources_are_answered_with_a_test_sine_and_by_requirements() {
         s["written"]["metric"].as_f64().unwrap(),
     );
     assert!((a - b).abs() < 1e-9, "chord stand-in {a}, sine {b}");
+    // `limit` judges a chord source the same way.
+    fs::write(d.path().join("s.toml"), CHORD_CHAIN).unwrap();
+    let o = run_in(
+        d.path(),
+        &["limit", "s.toml", "--out", "lim", "--quiet", "--force"],
+    );
+    ok(&o);
+    let l = json(&d.path().join("lim/limit.json"));
+    assert!(
+        l["notes"].to_string().contains("test sine"),
+        "{}",
+        l["notes"]
+    );
+    assert!(l["limit"]["frequency_hz"].as_f64().is_some());
     // --require: the chord itself is measured (its waveform fidelity); every candidate answers.
     let j = need(
         d.path(),

@@ -251,6 +251,9 @@ pub fn check_requirements(reqs: &[Requirement]) -> Result<()> {
     Ok(())
 }
 
+/// Points of a candidate's outward scan run together (fixed, so the points run do not depend on the threads).
+const OUTWARD_BATCH: usize = 4;
+
 /// A value of `key` as a table prints it, through the crate's SI formatter ([`SiStyle::Table`]: at most 5
 /// significant digits) with the unit the scenario writes: `"20.78 kHz"`, `"450 µs"`; slew rates in V/us as
 /// scenarios write them (`"15.658 V/us"`), ratios in percent (`"0.6 %"`); whole numbers and plain numbers
@@ -630,7 +633,16 @@ fn solve_key(
     if !scan {
         grid.clear();
     }
-    if let Some(b) = bar {
+    let written = text.get(&v.key);
+    // The diagnosis's candidates (no --vary) are scanned outward from the written value, a fixed batch of
+    // points at a time (the same points at any thread count), stopping after the batch that holds the first
+    // passing value: the answer is the passing value closest to the written one, and the far ends of a
+    // candidate's wide range (a sample rate thirty times the written one) cost the most to run. Keys the user
+    // names are scanned whole, for every passing range.
+    let outward = spec.vary.is_empty() && !grid.is_empty();
+    if let Some(b) = bar
+        && !outward
+    {
         b.inc_length(grid.len() as u64);
     }
     let eval = |x: f64| {
@@ -640,7 +652,37 @@ fn solve_key(
         }
         e
     };
-    let mut runs: Vec<Eval> = grid.par_iter().map(|&x| eval(x)).collect();
+    let mut stopped = false;
+    let mut runs: Vec<Eval> = if outward {
+        let centre = written.unwrap_or(grid[0]);
+        let mut order = grid.clone();
+        order.sort_by(|a, b| {
+            distance(*a, centre, log)
+                .total_cmp(&distance(*b, centre, log))
+                .then(a.total_cmp(b))
+        });
+        let mut done: Vec<Eval> = Vec::new();
+        for batch in order.chunks(OUTWARD_BATCH) {
+            if let Some(b) = bar {
+                b.inc_length(batch.len() as u64);
+            }
+            let got: Vec<Eval> = batch.par_iter().map(|&x| eval(x)).collect();
+            let passed = got.iter().any(|e| e.pass);
+            done.extend(got);
+            if passed {
+                stopped = done.len() < grid.len();
+                break;
+            }
+        }
+        done.sort_by(|a, b| a.value.total_cmp(&b.value));
+        done
+    } else {
+        grid.par_iter().map(|&x| eval(x)).collect()
+    };
+    let (lowest, highest) = (
+        runs.first().map_or(f64::NAN, |e| e.value),
+        runs.last().map_or(f64::NAN, |e| e.value),
+    );
     // Passing ranges of the scan.
     let mut ranges: Vec<[f64; 2]> = Vec::new();
     let mut open: Option<f64> = None;
@@ -660,8 +702,7 @@ fn solve_key(
     let monotone = ranges.len() <= 1
         && ranges
             .first()
-            .is_none_or(|r| r[0] == grid[0] || r[1] == grid[grid.len() - 1]);
-    let written = text.get(&v.key);
+            .is_none_or(|r| r[0] == lowest || r[1] == highest);
     let margin = |e: &Eval| {
         e.metric.map(|m| {
             if higher_is_better {
@@ -696,6 +737,19 @@ fn solve_key(
     };
     if !monotone {
         row.note = format!("not monotone: passes in {}", ranges_text());
+    }
+    if stopped {
+        let scanned = format!(
+            "scanned outward from the written value over {} (stopped at the first passing value; --vary \
+             {}=FROM..TO scans a whole range)",
+            show_range(&v.key, lowest, highest),
+            v.key
+        );
+        row.note = [row.note.clone(), scanned]
+            .into_iter()
+            .filter(|s| !s.is_empty())
+            .collect::<Vec<_>>()
+            .join("; ");
     }
     if written_eval.pass {
         row.value = written;
