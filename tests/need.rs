@@ -310,3 +310,200 @@ fn bad_input_exits_2_with_a_located_message() {
         assert!(!stderr(&o).contains("panicked"), "{args:?}");
     }
 }
+
+/// The one-bit listening demo (scenarios/one-bit-listen.toml) with a shorter chord: the built-in chord through
+/// a 1-bit, second-order delta-sigma converter at 8 x 48 kHz.
+const CHORD_CHAIN: &str = r#"
+name = "chord"
+description = "a chord through a 1-bit delta-sigma converter"
+[simulation]
+analog_rate = "768 kHz"
+duration = "0.4 s"
+settle = "50 ms"
+seed = 1
+[source]
+waveform = "chord"
+amplitude = "0.5 V"
+beat = "0.1 s"
+[[stage]]
+kind = "filter"
+family = "bessel"
+order = 4
+cutoff = "40 kHz"
+[[stage]]
+kind = "delta_sigma_adc"
+bits = 16
+range = ["-1 V", "1 V"]
+sample_rate = "48 kHz"
+oversampling = 8
+order = 2
+quantizer_bits = 1
+zeros = "dc"
+[[stage]]
+kind = "dac"
+[[stage]]
+kind = "filter"
+family = "butterworth"
+order = 6
+cutoff = "18 kHz"
+"#;
+
+#[test]
+fn chord_sources_are_answered_with_a_test_sine_and_by_requirements() {
+    let d = tempfile::tempdir().unwrap();
+    // --up-to: judged with a test sine of the chord's peak in the chord's place.
+    let up = ["--up-to", "20 kHz"];
+    let j = need(d.path(), CHORD_CHAIN, &up);
+    let notes = j["notes"].to_string();
+    assert!(notes.contains("test sine"), "{notes}");
+    assert_eq!(j["written"]["pass"], false);
+    let rows = j["need"]["rows"].as_array().unwrap();
+    let cutoff = rows
+        .iter()
+        .find(|r| r["key"] == "stage.4.cutoff")
+        .unwrap_or_else(|| panic!("{rows:?}"));
+    assert_eq!(cutoff["direction"], "rise");
+    let v = cutoff["value"].as_f64().unwrap();
+    // Minimality (the issue's check): the value passes, 5 % short of it fails. Judged as `need` judges every
+    // value, with the written chain's reference frequency (the low end is a fiftieth of the chain's lowest
+    // rate, which this cutoff is: written into the file it would move the reference).
+    let range = format!("stage.4.cutoff={}..{v}", 0.95 * v);
+    let mut args = up.to_vec();
+    args.extend(["--vary", &range, "--points", "3"]);
+    let m = need(d.path(), CHORD_CHAIN, &args);
+    let runs = row(&m)["runs"].as_array().unwrap();
+    assert_eq!(runs.first().unwrap()["pass"], false, "{runs:?}");
+    assert_eq!(runs.last().unwrap()["pass"], true, "{runs:?}");
+    // The stand-in is what the note says: the same chain with that sine written in place of the chord, on
+    // the record the note states (settle + 20 cycles at the low end, 18 kHz / 50), judges the same.
+    let sine = CHORD_CHAIN
+        .replace(
+            "waveform = \"chord\"",
+            "waveform = \"sine\"\nfrequency = \"1 kHz\"",
+        )
+        .replace("beat = \"0.1 s\"", "")
+        .replace(
+            "duration = \"0.4 s\"",
+            &format!("duration = {}", 0.05 + 20.0 / (18e3 / 50.0)),
+        );
+    let s = need(d.path(), &sine, &up);
+    let (a, b) = (
+        j["written"]["metric"].as_f64().unwrap(),
+        s["written"]["metric"].as_f64().unwrap(),
+    );
+    assert!((a - b).abs() < 1e-9, "chord stand-in {a}, sine {b}");
+    // `limit` judges a chord source the same way.
+    fs::write(d.path().join("s.toml"), CHORD_CHAIN).unwrap();
+    let o = run_in(
+        d.path(),
+        &["limit", "s.toml", "--out", "lim", "--quiet", "--force"],
+    );
+    ok(&o);
+    let l = json(&d.path().join("lim/limit.json"));
+    assert!(
+        l["notes"].to_string().contains("test sine"),
+        "{}",
+        l["notes"]
+    );
+    assert!(l["limit"]["frequency_hz"].as_f64().is_some());
+    // --require: the chord itself is measured (its waveform fidelity); every candidate answers.
+    let j = need(
+        d.path(),
+        CHORD_CHAIN,
+        &["--require", "output.fidelity_db>=20", "--points", "5"],
+    );
+    assert!(j["written"]["metric"].as_f64().unwrap() < 20.0);
+    let rows = j["need"]["rows"].as_array().unwrap();
+    assert!(!rows.is_empty());
+    assert!(rows.iter().any(|r| r["found"] == true), "{rows:?}");
+    assert!(j["need"]["key"].is_string(), "{}", j["need"]);
+}
+
+#[test]
+fn need_json_is_byte_identical_at_one_and_two_threads() {
+    let d = tempfile::tempdir().unwrap();
+    fs::write(d.path().join("s.toml"), JITTER_CHAIN).unwrap();
+    let mut files = Vec::new();
+    for t in ["1", "2"] {
+        let out = format!("o{t}");
+        let o = run_in(
+            d.path(),
+            &[
+                "need",
+                "s.toml",
+                "--require",
+                "adc.snr_db>=60",
+                "--points",
+                "5",
+                "--threads",
+                t,
+                "--out",
+                &out,
+            ],
+        );
+        ok(&o);
+        files.push(fs::read(d.path().join(out).join("need.json")).unwrap());
+    }
+    assert!(
+        files[0] == files[1],
+        "need.json differs between 1 and 2 threads"
+    );
+    // Something was solved (not a run of nothing).
+    let j: serde_json::Value = serde_json::from_slice(&files[0]).unwrap();
+    assert!(!j["need"]["rows"].as_array().unwrap().is_empty());
+    assert!(j["need"]["rows"][0]["runs"].as_array().unwrap().len() >= 5);
+}
+
+#[test]
+fn ctrl_c_stops_need_removes_its_temporaries_and_exits_130() {
+    let d = tempfile::tempdir().unwrap();
+    // Long runs: each of the study's runs simulates 2 s on a 4 MHz grid.
+    let long = SLEW_CHAIN.replace("duration = \"4 ms\"", "duration = \"2 s\"");
+    fs::write(d.path().join("s.toml"), long).unwrap();
+    let out = d.path().join("o");
+    let (status, err) = common::interrupt_after(
+        common::bin()
+            .current_dir(d.path())
+            .args([
+                "need",
+                "s.toml",
+                "--require",
+                "output.sinad_db>=60",
+                "--threads",
+                "1",
+                "--out",
+            ])
+            .arg(&out),
+        std::time::Duration::from_millis(500),
+    );
+    assert_eq!(status.code(), Some(130), "{err}");
+    assert!(err.contains("interrupt"), "{err}");
+    assert!(!err.contains("panicked"), "{err}");
+    if out.exists() {
+        for e in fs::read_dir(&out).unwrap() {
+            let n = e.unwrap().file_name().to_string_lossy().to_string();
+            assert!(!n.ends_with(".tmp"), "left {n}");
+        }
+    }
+}
+
+#[test]
+fn with_no_vary_a_converters_bits_are_a_candidate() {
+    // The jitter chain with negligible jitter and 8 bits: SNR = 6.02 N + 1.76 dB for a full-scale sine
+    // (common practice, no source), 0.35 dB less at 2.4 V of the 2.5 V half range: 49.6 dB at 8 bits,
+    // 55.6 dB at 9. So 52 dB needs 9 bits.
+    let d = tempfile::tempdir().unwrap();
+    let sc = JITTER_CHAIN
+        .replace("aperture_jitter = \"20 ns\"", "aperture_jitter = \"1 ps\"")
+        .replace("bits = 16", "bits = 8");
+    let j = need(d.path(), &sc, &["--require", "adc.snr_db>=52"]);
+    let rows = j["need"]["rows"].as_array().unwrap();
+    let bits = rows
+        .iter()
+        .find(|r| r["key"] == "stage.2.bits")
+        .unwrap_or_else(|| panic!("{rows:?}"));
+    assert_eq!(bits["direction"], "rise");
+    assert_eq!(bits["value"].as_f64().unwrap(), 9.0);
+    let snr = bits["metric_at_value"].as_f64().unwrap();
+    assert!((snr - 55.6).abs() < 1.0, "{snr}");
+}

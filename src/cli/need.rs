@@ -188,6 +188,7 @@ pub fn need(a: NeedArgs) -> anyhow::Result<()> {
         tolerance: a.tolerance,
         points: a.points,
         threads: a.threads,
+        progress: !a.quiet && !a.json,
     };
     interrupt::install_stop_handler("need");
     let report = need::solve(&text, &goal_of, &spec)?;

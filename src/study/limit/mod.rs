@@ -200,7 +200,10 @@ fn rates_of_interest(sc: &Scenario) -> (Vec<f64>, Option<f64>) {
 /// Runs of the scenario at chosen frequencies, with durations scaled for the cycles needed.
 struct Runner<'a> {
     text: &'a ScenarioText,
+    /// The scenario as run: with [`TestSine`]'s edits when the source is not a sine.
     base: &'a Scenario,
+    /// Edits applied before every run's own ([`TestSine::edits`]).
+    source_edits: &'a [Edit],
     max_grid_steps: f64,
     use_output_enob: bool,
 }
@@ -223,11 +226,12 @@ impl Runner<'_> {
 
     fn point(&self, f_hz: f64, cycles: f64, extra: &[Edit]) -> LimitPoint {
         let (duration, settle, held) = self.timing(f_hz, cycles);
-        let mut edits = vec![
+        let mut edits = self.source_edits.to_vec();
+        edits.extend([
             Edit::Set("source.frequency".into(), f_hz),
             Edit::Set("simulation.duration".into(), duration),
             Edit::Set("simulation.settle".into(), settle),
-        ];
+        ]);
         edits.extend_from_slice(extra);
         let fail = |e: Error| LimitPoint {
             requested_hz: f_hz,
@@ -274,7 +278,8 @@ fn metric(c: Criterion, p: &LimitPoint) -> Option<f64> {
     }
 }
 
-/// Find the limits of a scenario with a sine source.
+/// Find the limits of a scenario with a sine source (or the built-in chord, judged with a test sine in its place:
+/// [`test_sine`]).
 pub fn find_limits(text: &ScenarioText, opts: &LimitOptions) -> Result<LimitReport> {
     let base = text.scenario()?;
     check_options(&base, opts)?;
@@ -287,9 +292,12 @@ pub fn find_limits(text: &ScenarioText, opts: &LimitOptions) -> Result<LimitRepo
     } else {
         opts.min_cycles
     };
+    let (run_base, source_edits, source_note) = test_sine(text, &base, from_hz, opts)?;
+    notes.extend(source_note);
     let mut runner = Runner {
         text,
-        base: &base,
+        base: &run_base,
+        source_edits: &source_edits,
         max_grid_steps: opts.max_grid_steps,
         use_output_enob: true,
     };
@@ -376,9 +384,13 @@ pub fn find_limits(text: &ScenarioText, opts: &LimitOptions) -> Result<LimitRepo
 
 /// The options and the source the limit finder needs.
 fn check_options(base: &Scenario, opts: &LimitOptions) -> Result<()> {
-    if !matches!(base.source.waveform, Waveform::Sine { .. }) {
+    if !matches!(
+        base.source.waveform,
+        Waveform::Sine { .. } | Waveform::Chord { .. }
+    ) {
         return Err(Error::BadInput(format!(
-            "{}: the limit finder varies source.frequency and needs a sine source (waveform = \"sine\")",
+            "{}: the limit finder varies source.frequency and needs a sine source (waveform = \"sine\"; the \
+             built-in chord is judged with a test sine at its peak)",
             base.origin
         )));
     }
@@ -396,6 +408,46 @@ fn check_options(base: &Scenario, opts: &LimitOptions) -> Result<()> {
         return Err(Error::BadInput("--fidelity-min must be a number".into()));
     }
     Ok(())
+}
+
+/// The source the criteria follow: the scenario as run and the edits applied before each run's own, with a note.
+///
+/// The criteria vary a sine's frequency. A scenario whose source is the built-in chord (a listening signal,
+/// [`Waveform::Chord`]) is judged with a test sine in its place: the chord's peak (`amplitude`) as the sine's
+/// amplitude, so the chain sees the chord's largest excursion, its offset kept; the record is cut to the
+/// scenario's settling plus `min_cycles` cycles at the low end `from_hz` (each run then lengthens it for its own
+/// frequency exactly as for a sine scenario), since the chord's beats set the scenario's length, not the sine's
+/// cycles. A sine source is run as written (no edits).
+fn test_sine(
+    text: &ScenarioText,
+    base: &Scenario,
+    from_hz: f64,
+    opts: &LimitOptions,
+) -> Result<(Scenario, Vec<Edit>, Option<String>)> {
+    let Waveform::Chord { amplitude_v, .. } = base.source.waveform else {
+        return Ok((base.clone(), Vec::new(), None));
+    };
+    let sim = &base.simulation;
+    let duration_s = sim.duration_s.min(sim.settle_s + opts.min_cycles / from_hz);
+    let edits = vec![
+        Edit::SetStr("source.waveform".into(), "sine".into()),
+        Edit::Remove("source.beat".into()),
+        Edit::Set("source.frequency".into(), from_hz),
+        Edit::Set("simulation.duration".into(), duration_s),
+    ];
+    let run = text.with_edits(&edits)?;
+    let note = format!(
+        "the source is the built-in chord: the criteria are judged with a test sine of the chord's peak, {} \
+         (its offset kept), in its place; each run lasts {} of settling plus at least {} cycles ({} at {}) \
+         instead of the chord's {}",
+        format_si(amplitude_v, "V"),
+        format_si(sim.settle_s, "s"),
+        opts.min_cycles,
+        format_si(duration_s, "s"),
+        format_si(from_hz, "Hz"),
+        format_si(sim.duration_s, "s"),
+    );
+    Ok((run, edits, Some(note)))
 }
 
 /// The frequency range searched: from a fiftieth of the lowest rate of interest (above any high-pass corner), up
@@ -602,9 +654,13 @@ pub struct UpToCheck {
     /// True for the shape criterion (fidelity must stay at or above the threshold); false for the drops
     /// (which must stay below it).
     pub higher_is_better: bool,
+    /// Set when the source is not a sine: how the check stands in for it ([`test_sine`]).
+    pub source_note: Option<String>,
     opts: LimitOptions,
     has_adc: bool,
+    /// The scenario as run (with `source_edits`).
     base: Scenario,
+    source_edits: Vec<Edit>,
 }
 
 /// The outcome of one [`UpToCheck::check`].
@@ -670,15 +726,18 @@ impl UpToCheck {
                 ));
             }
         };
+        let (base, source_edits, source_note) = test_sine(text, &base, from_hz, opts)?;
         Ok(UpToCheck {
             criterion,
             up_to_hz,
             from_hz,
             threshold,
             higher_is_better,
+            source_note,
             opts: *opts,
             has_adc,
             base,
+            source_edits,
         })
     }
 
@@ -699,6 +758,7 @@ impl UpToCheck {
         let mut runner = Runner {
             text,
             base: &self.base,
+            source_edits: &self.source_edits,
             max_grid_steps: self.opts.max_grid_steps,
             use_output_enob: true,
         };
@@ -870,6 +930,7 @@ slew_rate = "10 V/us"
         let r = Runner {
             text: &t,
             base: &sc,
+            source_edits: &[],
             max_grid_steps: 1e6,
             use_output_enob: true,
         };

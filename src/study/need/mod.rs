@@ -22,7 +22,7 @@ use crate::scenario::overrides::{Edit, ScenarioText, candidates, is_integer_key}
 use crate::study::limit::UpToCheck;
 use crate::study::montecarlo::{Cmp, Requirement};
 use crate::study::sweep::{
-    METRIC_COLUMNS, Vary, axis_values, metric_values, simulate, thread_pool,
+    METRIC_COLUMNS, Vary, axis_values, metric_values, progress_bar, simulate, thread_pool,
 };
 
 mod output;
@@ -51,6 +51,8 @@ pub struct NeedSpec {
     /// Points of the coarse scan.
     pub points: usize,
     pub threads: Option<usize>,
+    /// A progress bar on standard error (when it is a terminal): the runs done of those known so far.
+    pub progress: bool,
 }
 
 /// One run of the requirement.
@@ -249,6 +251,38 @@ pub fn check_requirements(reqs: &[Requirement]) -> Result<()> {
     Ok(())
 }
 
+/// Points of a candidate's outward scan run together (fixed, so the points run do not depend on the threads).
+const OUTWARD_BATCH: usize = 4;
+
+/// A value of `key` as a table prints it, through the crate's SI formatter ([`SiStyle::Table`]: at most 5
+/// significant digits) with the unit the scenario writes: `"20.78 kHz"`, `"450 µs"`; slew rates in V/us as
+/// scenarios write them (`"15.658 V/us"`), ratios in percent (`"0.6 %"`); whole numbers and plain numbers
+/// without a unit.
+pub fn show_value(key: &str, v: f64) -> String {
+    use crate::format::units::{Dimension, SiStyle, format_si_as, round_significant};
+    let plain = |x: f64| {
+        let x = round_significant(x, 5);
+        let x = if x == 0.0 { 0.0 } else { x };
+        format!("{x}")
+    };
+    match crate::study::sweep::key_dimension(key) {
+        Some(Dimension::Frequency) => format_si_as(v, "Hz", SiStyle::Table),
+        Some(Dimension::Time) => format_si_as(v, "s", SiStyle::Table),
+        Some(Dimension::Voltage) => format_si_as(v, "V", SiStyle::Table),
+        Some(Dimension::SlewRate) => format!("{} V/us", plain(v / 1e6)),
+        // Tolerances, mismatches and gain errors; a bit error rate and a dither in LSB stay plain numbers.
+        Some(Dimension::Ratio) if !key.ends_with("bit_error_rate") && !key.ends_with("_lsb") => {
+            format!("{} %", plain(v * 100.0))
+        }
+        _ => plain(v),
+    }
+}
+
+/// `from..to` of `key`, each end as [`show_value`] prints it.
+pub fn show_range(key: &str, from: f64, to: f64) -> String {
+    format!("{}..{}", show_value(key, from), show_value(key, to))
+}
+
 /// Distance between two values of a key (log ratio with `log` and positive values).
 fn distance(a: f64, b: f64, log: bool) -> f64 {
     if log && a > 0.0 && b > 0.0 {
@@ -267,6 +301,44 @@ fn candidate_range(key: &str, written: f64) -> (f64, f64, bool) {
     } else {
         (written / 30.0, written * 30.0, true)
     }
+}
+
+/// When the scenario refuses `key` = `end`: the value between the written `w` (which it takes) and `end`
+/// closest to `end` that it takes, found by bisection (geometric with `log`) to 0.1 % (whole-number keys: to
+/// neighbours). None when it takes `end`.
+fn edge_of_allowed(text: &ScenarioText, key: &str, w: f64, end: f64, log: bool) -> Option<f64> {
+    let takes = |x: f64| text.with_edits(&[Edit::Set(key.to_string(), x)]).is_ok();
+    if takes(end) {
+        return None;
+    }
+    let integer = is_integer_key(key.rsplit('.').next().unwrap_or(key));
+    let (mut ok, mut bad) = (w, end);
+    for _ in 0..60 {
+        if integer {
+            if (bad - ok).abs() <= 1.0 {
+                break;
+            }
+        } else if (bad - ok).abs() <= 1e-3 * ok.abs().max(bad.abs()) {
+            break;
+        }
+        let mut m = if log && ok > 0.0 && bad > 0.0 {
+            (ok * bad).sqrt()
+        } else {
+            0.5 * (ok + bad)
+        };
+        if integer {
+            m = m.round();
+            if m == ok || m == bad {
+                break;
+            }
+        }
+        if takes(m) {
+            ok = m;
+        } else {
+            bad = m;
+        }
+    }
+    Some(ok)
 }
 
 /// A key written with a stage kind (`dac.slew_rate`) as the key of that stage (`stage.5.slew_rate`), when the
@@ -328,9 +400,19 @@ pub fn solve(
     let text = &text;
     let base = text.scenario()?;
     let goal = goal_of(text)?;
+    if let Goal::UpTo(c) = &goal {
+        notes.extend(c.source_note.clone());
+    }
     let pool = thread_pool(spec.threads)?;
     let (metric, metric_unit, threshold, higher_is_better) = goal.metric();
+    // The bar's length grows as runs become known: the chain as written, the diagnosis's ablations, each
+    // key's scan, each bisection step.
+    let bar = progress_bar(1, spec.progress, "need");
+    let bar = bar.as_ref();
     let written_eval = pool.install(|| goal.eval(text, f64::NAN, &[]));
+    if let Some(b) = bar {
+        b.inc(1);
+    }
     if let Some(e) = &written_eval.error {
         return Err(Error::Run(format!(
             "the chain as written could not be judged: {e}"
@@ -338,7 +420,25 @@ pub fn solve(
     }
     // The keys: given, or the diagnosis's candidates written as numbers.
     let keys: Vec<(Vary, bool, String)> = if spec.vary.is_empty() {
-        let cands = candidates(&base);
+        let mut cands = candidates(&base);
+        // How many bits: the diagnosis never removes quantization (every converter has it), but the
+        // resolution is a question `need` answers. Each converter with `bits` written is a candidate, judged
+        // like an ablation with 4 bits more.
+        for (i, st) in base.stages.iter().enumerate() {
+            let key = format!("stage.{}.bits", i + 1);
+            if st.kind.role() != crate::stages::kind::Role::Quantizer {
+                continue;
+            }
+            if let Some(w) = text.get(&key) {
+                cands.push(crate::scenario::overrides::Candidate {
+                    stage_index: i,
+                    mechanism: format!("{}.bits", st.kind.kind_name()),
+                    stage: st.label.clone(),
+                    change: format!("{}: bits raised to {}", st.label, w + 4.0),
+                    edits: vec![Edit::Set(key, w + 4.0)],
+                });
+            }
+        }
         let mut found = Vec::new();
         for c in &cands {
             let param = c.mechanism.split('.').nth(1).unwrap_or("cutoff");
@@ -356,10 +456,19 @@ pub fn solve(
             }
         }
         // The diagnosis: each candidate's ablation judged like a value.
+        if let Some(b) = bar {
+            b.inc_length(found.len() as u64);
+        }
         let ablated: Vec<Eval> = pool.install(|| {
             found
                 .par_iter()
-                .map(|(_, w, c)| goal.eval(text, *w, &c.edits))
+                .map(|(_, w, c)| {
+                    let e = goal.eval(text, *w, &c.edits);
+                    if let Some(b) = bar {
+                        b.inc(1);
+                    }
+                    e
+                })
                 .collect()
         });
         let better = |e: &Eval| match (e.metric, written_eval.metric) {
@@ -393,18 +502,16 @@ pub fn solve(
                 continue;
             }
             let (mut from, mut to, log) = candidate_range(&key, w);
-            // Ends the scenario cannot take (a sample rate the converter's clock cannot reach) are drawn in
-            // towards the written value.
+            // Ends the scenario cannot take (a sample rate the converter's clock cannot reach) are drawn in to
+            // the last value it takes (the written value is one).
             for end in [&mut from, &mut to] {
-                for _ in 0..12 {
-                    if text.with_edits(&[Edit::Set(key.clone(), *end)]).is_ok() {
-                        break;
-                    }
-                    *end = if log {
-                        (*end * w).sqrt()
-                    } else {
-                        (0.5 * (*end + w)).round()
-                    };
+                if let Some(edge) = edge_of_allowed(text, &key, w, *end, log) {
+                    notes.push(format!(
+                        "{key}: range drawn in to {} (the scenario refuses {})",
+                        show_value(&key, edge),
+                        show_value(&key, *end)
+                    ));
+                    *end = edge;
                 }
             }
             out.push((
@@ -440,6 +547,9 @@ pub fn solve(
             text.with_edits(&[Edit::Set(v.key.clone(), x)])?;
         }
     }
+    // With no key given and the chain already passing there is nothing to solve: the rows say so without a
+    // scan (a scan is run when the user named the keys: its plot shows the margin along the range).
+    let scan = !(spec.vary.is_empty() && written_eval.pass);
     let rows: Vec<NeedRow> = pool.install(|| {
         keys.par_iter()
             .map(|(v, log, source)| {
@@ -453,10 +563,15 @@ pub fn solve(
                     &written_eval,
                     higher_is_better,
                     threshold,
+                    scan,
+                    bar,
                 )
             })
             .collect::<Result<Vec<_>>>()
     })?;
+    if let Some(b) = bar {
+        b.finish_and_clear();
+    }
     let head = rows
         .iter()
         .filter(|r| r.found && r.direction != "already passes")
@@ -507,14 +622,67 @@ fn solve_key(
     written_eval: &Eval,
     higher_is_better: bool,
     threshold: f64,
+    scan: bool,
+    bar: Option<&indicatif::ProgressBar>,
 ) -> Result<NeedRow> {
     let last = v.key.rsplit('.').next().unwrap_or(&v.key);
     let integer = is_integer_key(last);
     let mut grid = axis_values(v, spec.points.max(3), log)?;
     grid.sort_by(f64::total_cmp);
     grid.dedup();
-    let eval = |x: f64| goal.eval(text, x, &[Edit::Set(v.key.clone(), x)]);
-    let mut runs: Vec<Eval> = grid.par_iter().map(|&x| eval(x)).collect();
+    if !scan {
+        grid.clear();
+    }
+    let written = text.get(&v.key);
+    // The diagnosis's candidates (no --vary) are scanned outward from the written value, a fixed batch of
+    // points at a time (the same points at any thread count), stopping after the batch that holds the first
+    // passing value: the answer is the passing value closest to the written one, and the far ends of a
+    // candidate's wide range (a sample rate thirty times the written one) cost the most to run. Keys the user
+    // names are scanned whole, for every passing range.
+    let outward = spec.vary.is_empty() && !grid.is_empty();
+    if let Some(b) = bar
+        && !outward
+    {
+        b.inc_length(grid.len() as u64);
+    }
+    let eval = |x: f64| {
+        let e = goal.eval(text, x, &[Edit::Set(v.key.clone(), x)]);
+        if let Some(b) = bar {
+            b.inc(1);
+        }
+        e
+    };
+    let mut stopped = false;
+    let mut runs: Vec<Eval> = if outward {
+        let centre = written.unwrap_or(grid[0]);
+        let mut order = grid.clone();
+        order.sort_by(|a, b| {
+            distance(*a, centre, log)
+                .total_cmp(&distance(*b, centre, log))
+                .then(a.total_cmp(b))
+        });
+        let mut done: Vec<Eval> = Vec::new();
+        for batch in order.chunks(OUTWARD_BATCH) {
+            if let Some(b) = bar {
+                b.inc_length(batch.len() as u64);
+            }
+            let got: Vec<Eval> = batch.par_iter().map(|&x| eval(x)).collect();
+            let passed = got.iter().any(|e| e.pass);
+            done.extend(got);
+            if passed {
+                stopped = done.len() < grid.len();
+                break;
+            }
+        }
+        done.sort_by(|a, b| a.value.total_cmp(&b.value));
+        done
+    } else {
+        grid.par_iter().map(|&x| eval(x)).collect()
+    };
+    let (lowest, highest) = (
+        runs.first().map_or(f64::NAN, |e| e.value),
+        runs.last().map_or(f64::NAN, |e| e.value),
+    );
     // Passing ranges of the scan.
     let mut ranges: Vec<[f64; 2]> = Vec::new();
     let mut open: Option<f64> = None;
@@ -534,8 +702,7 @@ fn solve_key(
     let monotone = ranges.len() <= 1
         && ranges
             .first()
-            .is_none_or(|r| r[0] == grid[0] || r[1] == grid[grid.len() - 1]);
-    let written = text.get(&v.key);
+            .is_none_or(|r| r[0] == lowest || r[1] == highest);
     let margin = |e: &Eval| {
         e.metric.map(|m| {
             if higher_is_better {
@@ -564,12 +731,25 @@ fn solve_key(
     let ranges_text = || {
         ranges
             .iter()
-            .map(|r| format!("{}..{}", r[0], r[1]))
+            .map(|r| show_range(&v.key, r[0], r[1]))
             .collect::<Vec<_>>()
             .join(", ")
     };
     if !monotone {
         row.note = format!("not monotone: passes in {}", ranges_text());
+    }
+    if stopped {
+        let scanned = format!(
+            "scanned outward from the written value over {} (stopped at the first passing value; --vary \
+             {}=FROM..TO scans a whole range)",
+            show_range(&v.key, lowest, highest),
+            v.key
+        );
+        row.note = [row.note.clone(), scanned]
+            .into_iter()
+            .filter(|s| !s.is_empty())
+            .collect::<Vec<_>>()
+            .join("; ");
     }
     if written_eval.pass {
         row.value = written;
@@ -582,13 +762,21 @@ fn solve_key(
     }
     if ranges.is_empty() {
         row.note = format!(
-            "no value in {}..{} passes{}",
-            row.from,
-            row.to,
-            runs.iter()
-                .find_map(|e| e.error.as_ref())
-                .map(|e| format!(" (a run failed: {e})"))
-                .unwrap_or_default()
+            "no value in {} passes{}",
+            show_range(&v.key, row.from, row.to),
+            {
+                let failed: Vec<&Eval> = runs.iter().filter(|e| e.error.is_some()).collect();
+                match failed.first() {
+                    Some(first) => format!(
+                        " ({} of {} runs could not be judged, the first at {}: {})",
+                        failed.len(),
+                        runs.len(),
+                        show_value(&v.key, first.value),
+                        first.error.as_deref().unwrap_or_default()
+                    ),
+                    None => String::new(),
+                }
+            }
         );
         row.runs = runs;
         return Ok(row);
@@ -625,6 +813,20 @@ fn solve_key(
     };
     let (mut p, mut q) = (p0, q0);
     let mut best = runs[pi].clone();
+    // The failing end's run (a scan point, or the chain as written).
+    let mut failing: Option<Eval> = q0.and_then(|qv| {
+        runs.iter()
+            .find(|e| e.value == qv)
+            .cloned()
+            .or_else(|| (Some(qv) == written).then(|| written_eval.clone()))
+    });
+    // The metric's slope over the first bracket (per unit of `distance`): what a smooth response changes by.
+    let slope = match (&failing, best.metric) {
+        (Some(f), Some(mp)) => f
+            .metric
+            .map(|mq| (mp - mq).abs() / distance(p0, f.value, log).max(f64::MIN_POSITIVE)),
+        _ => None,
+    };
     if let Some(mut qv) = q {
         loop {
             let done = if integer {
@@ -646,6 +848,9 @@ fn solve_key(
                     break;
                 }
             }
+            if let Some(b) = bar {
+                b.inc_length(1);
+            }
             let e = eval(m);
             let pass = e.pass;
             runs.push(e.clone());
@@ -654,9 +859,36 @@ fn solve_key(
                 best = e;
             } else {
                 qv = m;
+                failing = Some(e);
             }
         }
         q = Some(qv);
+        // A smooth response changes across the final bracket by about the first bracket's slope times its
+        // width; a change ten times that is a step the scan could not see (for example the products of a
+        // distortion landing on or off the tone as a rate moves): the answer holds at this value but may not
+        // hold beyond it.
+        if let (Some(f), Some(mp), Some(slope)) = (&failing, best.metric, slope)
+            && !integer
+            && let Some(mq) = f.metric
+        {
+            let jump = (mp - mq).abs();
+            let expected = slope * distance(p, qv, log);
+            if jump > 10.0 * expected {
+                let step = format!(
+                    "the metric steps from {mq:.3} to {mp:.3} {} between {} and {}, far more than its trend \
+                     (the response is not smooth here; values beyond the answer may fail: check the plot)",
+                    goal.metric().1,
+                    show_value(&v.key, qv),
+                    show_value(&v.key, p)
+                );
+                row.note = [row.note.clone(), step]
+                    .into_iter()
+                    .filter(|s| !s.is_empty())
+                    .collect::<Vec<_>>()
+                    .join("; ");
+                row.monotone = false;
+            }
+        }
     } else {
         row.note = [
             row.note.clone(),
@@ -676,4 +908,83 @@ fn solve_key(
     row.direction = if p > reference { "rise" } else { "fall" }.into();
     row.runs = runs;
     Ok(row)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// An 8-bit SAR on a 20 kHz bit clock: one conversion takes 9 cycles, 450 us, so the scenario takes a
+    /// sample rate of at most 20 kHz / 9 = 2.222 kHz (the reader's own rule, src/stages/sar_adc.rs).
+    const SAR: &str = r#"
+name = "t"
+description = ""
+[simulation]
+analog_rate = "100 kHz"
+duration = "100 ms"
+settle = "10 ms"
+[source]
+waveform = "sine"
+frequency = "5 Hz"
+amplitude = "1 V"
+offset = "1.65 V"
+[[stage]]
+kind = "sar_adc"
+bits = 8
+range = ["0 V", "3.3 V"]
+clock = "20 kHz"
+sample_rate = "1 kHz"
+input = "live"
+[[stage]]
+kind = "dac"
+range = ["0 V", "3.3 V"]
+"#;
+
+    fn text(s: &str) -> ScenarioText {
+        ScenarioText::new(s.to_string(), "test".into(), ".".into()).unwrap()
+    }
+
+    #[test]
+    fn a_range_end_the_scenario_refuses_is_drawn_in_to_the_last_value_it_takes() {
+        let t = text(SAR);
+        let key = "stage.1.sample_rate";
+        let max = 20e3 / 9.0;
+        for log in [true, false] {
+            let edge = edge_of_allowed(&t, key, 1e3, 30e3, log).unwrap();
+            assert!(
+                edge <= max && edge > max * (1.0 - 1e-3),
+                "log {log}: {edge}"
+            );
+            assert!(t.with_edits(&[Edit::Set(key.into(), edge)]).is_ok());
+        }
+        // An end it takes is kept.
+        assert_eq!(edge_of_allowed(&t, key, 1e3, 2e3, true), None);
+        // Whole-number keys end on a whole number, the last one taken: at 1 kHz the clock gives 20 cycles a
+        // sample, so at most 19 bits (bits + 1 cycles per conversion, src/stages/sar_adc.rs).
+        let edge = edge_of_allowed(&t, "stage.1.bits", 8.0, 400.0, false).unwrap();
+        assert_eq!(edge, 19.0);
+        assert!(
+            t.with_edits(&[Edit::Set("stage.1.bits".into(), edge)])
+                .is_ok()
+        );
+        assert!(
+            t.with_edits(&[Edit::Set("stage.1.bits".into(), edge + 1.0)])
+                .is_err()
+        );
+    }
+
+    #[test]
+    fn values_print_through_the_si_formatter() {
+        assert_eq!(show_value("stage.2.sample_rate", 2221.1), "2.2211 kHz");
+        assert_eq!(show_value("stage.4.cutoff", 20_780.0), "20.78 kHz");
+        assert_eq!(show_value("stage.1.aperture_jitter", 7.96e-9), "7.96 ns");
+        assert_eq!(show_value("stage.5.slew_rate", 15.657_49e6), "15.657 V/us");
+        assert_eq!(show_value("stage.2.quantizer_bits", 2.0), "2");
+        assert_eq!(show_value("stage.4.tolerance", 0.006_068), "0.6068 %");
+        assert_eq!(show_value("stage.3.bit_error_rate", 1e-5), "0.00001");
+        assert_eq!(
+            show_range("stage.2.sample_rate", 1600.0, 73_431.329_987),
+            "1.6 kHz..73.431 kHz"
+        );
+    }
 }

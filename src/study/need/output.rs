@@ -3,32 +3,13 @@
 use std::path::Path;
 
 use crate::error::{Error, Result};
-use crate::format::units::format_si;
 use crate::report::plot::{self, Plot, XyPlot};
 use crate::report::{OutputDir, Producer};
 use crate::study::sweep::key_dimension;
 
 use super::{NeedReport, NeedRow};
 
-/// A value of `key` with its unit (as the scenario writes it), or a plain number.
-fn show(key: &str, v: f64) -> String {
-    use crate::format::units::Dimension;
-    let unit = match key_dimension(key) {
-        Some(Dimension::Frequency) => "Hz",
-        Some(Dimension::Time) => "s",
-        Some(Dimension::Voltage) => "V",
-        Some(Dimension::SlewRate) => "V/s",
-        _ => "",
-    };
-    if unit == "V/s" {
-        return format!("{} V/us", (v / 1e6 * 1e4).round() / 1e4);
-    }
-    if unit.is_empty() {
-        format!("{}", (v * 1e4).round() / 1e4)
-    } else {
-        format_si(v, unit)
-    }
-}
+use super::show_value as show;
 
 fn factor(r: &NeedRow) -> String {
     match (r.written, r.value) {
