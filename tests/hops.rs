@@ -233,3 +233,49 @@ fn the_relay_demo_runs_clean() {
     let diff = r["latency"]["difference_s"].as_f64().unwrap();
     assert!(diff.abs() < 0.2 / 4.8e6, "{diff}");
 }
+
+#[test]
+fn each_hop_on_its_own_clocks_counts_its_own_slips() {
+    // Two hops whose DACs run on their own clocks: hop 1's DAC 80 ppm fast against the first SAR, hop 2's DAC
+    // 100 ppm slow against a second SAR itself 30 ppm fast (130 ppm apart). Each FIFO slips once per sample of
+    // drift after its headroom (3 codes when the DAC is fast, 4 when slow; the construction tests/clocks.rs
+    // checks): over 2 s at 48 kHz, 80e-6 x 2 x 48e3 - 3 = 4.68 and 130e-6 x 2 x 48e3 - 4 = 8.48.
+    let tmp = tempfile::tempdir().unwrap();
+    let dac = |ppm: i32| format!("kind = \"dac\"\nclock_ppm = {ppm}\n");
+    let h1 = hop(16, "1 ms").replace("kind = \"dac\"\n", &dac(80));
+    let h2 = hop(16, "1 ms")
+        .replace("kind = \"dac\"\n", &dac(-100))
+        .replace(
+            "kind = \"sar_adc\"\n",
+            "kind = \"sar_adc\"\nclock_ppm = 30\n",
+        );
+    let path = tmp.path().join("s.toml");
+    let head = HEAD
+        .replace("duration = \"120 ms\"", "duration = \"2 s\"")
+        .replace("settle = \"20 ms\"", "settle = \"1.9 s\"");
+    std::fs::write(&path, format!("{head}{h1}{h2}{TAIL}")).unwrap();
+    let out = tmp.path().join("out");
+    ok(&run(&[
+        "run",
+        s(&path),
+        "--out",
+        s(&out),
+        "-q",
+        "--no-wav",
+        "--no-plots",
+    ]));
+    let r = json(&out.join("report.json"));
+    let hops = r["hops"].as_array().unwrap();
+    let per_hop: Vec<f64> = hops
+        .iter()
+        .map(|h| h["slips"].as_f64().expect("slips"))
+        .collect();
+    for (got, want) in per_hop.iter().zip([4.68, 8.48]) {
+        assert!((got - want).abs() <= 1.0, "{per_hop:?}: {want} expected");
+    }
+    assert_eq!(r["latency"]["slips"].as_f64(), Some(per_hop.iter().sum()));
+    // The second SAR's clock is meant to be off: no warning that the grid is not a whole multiple of its rate.
+    for w in r["warnings"].as_array().unwrap() {
+        assert!(!w["message"].as_str().unwrap().contains("whole"), "{w}");
+    }
+}

@@ -79,6 +79,11 @@ pub struct HopSummary {
     pub budget_s: f64,
     /// Codes the hop's ADC clipped (a later hop: after `settle`).
     pub codes_clipped: u64,
+    /// Slips of the FIFO between the hop's codes and its DAC's own clock (`None`: no clock crossing).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub slips: Option<u64>,
+    /// Packets the hop's network stages lost.
+    pub packets_lost: u64,
 }
 
 /// Everything a run produced.
@@ -844,6 +849,8 @@ fn run_with(
                     .map(|l| l.seconds)
                     .sum(),
                 codes_clipped: hop_clipped[h],
+                slips: c.crossing.as_ref().map(|x| x.record().slips),
+                packets_lost: c.code.iter().map(|l| l.packets_lost()).sum(),
             }
         })
         .collect();

@@ -54,13 +54,20 @@ fn metric_rows(r: &Report) -> Vec<(&'static str, String, String)> {
 
 /// The label of hop `i`'s line under the budget's total (its subtotal is the value).
 pub(crate) fn hop_line(i: usize, h: &crate::engine::pipeline::HopSummary) -> String {
+    let mut counts = format!("{} codes clipped", h.codes_clipped);
+    if let Some(n) = h.slips {
+        counts += &format!(", {n} slip{}", if n == 1 { "" } else { "s" });
+    }
+    if h.packets_lost > 0 {
+        let s = if h.packets_lost == 1 { "" } else { "s" };
+        counts += &format!(", {} packet{s} lost", h.packets_lost);
+    }
     format!(
-        "hop {}: {} -> {} ({}, {} codes clipped), subtotal",
+        "hop {}: {} -> {} ({}, {counts}), subtotal",
         i + 1,
         h.adc,
         h.dac,
         si(h.sample_rate_hz, "Hz"),
-        h.codes_clipped
     )
 }
 

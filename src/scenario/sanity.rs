@@ -381,7 +381,8 @@ pub fn note_slips(map: &SourceMap<'_>, root: &Table, sc: &mut Scenario) {
             }
         }
         if let Some(t) = st.kind.quantizer_timing() {
-            let fs = t.sample_rate_hz;
+            // Judged at the nominal rate: a clock written off by some ppm is meant to drift against the grid.
+            let fs = t.sample_rate_hz / crate::engine::clock::clock_scale(t.clock_ppm);
             let steps = rate / fs;
             let whole = (steps - steps.round()).abs() < 1e-6 * steps;
             if steps < MIN_STEPS_PER_CONVERSION || !whole {
@@ -533,6 +534,16 @@ mod tests {
         for ok in ["192 kHz", "480 kHz", "4.8 MHz"] {
             assert!(slips(&chain(ok, "", HELD, "")).is_empty(), "{ok}");
         }
+        // A converter clock written 30 ppm off is meant to drift against the grid: judged at its nominal rate.
+        let adc = format!("{HELD}\nclock_ppm = 30");
+        assert!(slips(&chain("4.8 MHz", "", &adc, "")).is_empty());
+        let s = slips(&chain("1.01 MHz", "", &adc, ""));
+        assert_eq!(s.len(), 1, "{s:?}");
+        assert!(
+            s[0].suggestion.contains("\"1.056 MHz\""),
+            "{}",
+            s[0].suggestion
+        );
     }
 
     #[test]

@@ -515,6 +515,7 @@ input_noise = "20 uV""#;
             conversion_time_s: 1.0 / c.modulator_clock_hz(),
             bits: self.bits,
             range_v: self.range_v,
+            clock_ppm: self.clock_ppm,
         })
     }
 

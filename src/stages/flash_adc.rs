@@ -171,6 +171,7 @@ comparator_offset = "2 mV""#;
             conversion_time_s: c.latency_s(),
             bits: self.bits,
             range_v: self.range_v,
+            clock_ppm: self.clock_ppm,
         })
     }
 

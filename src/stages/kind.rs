@@ -167,6 +167,8 @@ pub struct QuantizerTiming {
     pub bits: u32,
     /// Input range `[low, high]` (V).
     pub range_v: (f64, f64),
+    /// Offset of the converter's clock (ppm); `sample_rate_hz` already includes it.
+    pub clock_ppm: f64,
 }
 
 /// Rates a stage makes interesting for the limit finder's coarse sweep.

@@ -248,6 +248,7 @@ stage_gain_error = 0.0002"#;
             conversion_time_s: c.latency_s(),
             bits: self.bits,
             range_v: self.range_v,
+            clock_ppm: self.clock_ppm,
         })
     }
 

@@ -243,6 +243,7 @@ comparator_noise = "0.5 mV""#;
             conversion_time_s: c.conversion_time_s,
             bits: self.bits,
             range_v: self.range_v,
+            clock_ppm: self.clock_ppm,
         })
     }
 
