@@ -11,11 +11,12 @@ use crate::measure::chain::ChainMetrics;
 use crate::measure::chain::measure_run;
 use crate::measure::latency::LatencyOverTime;
 use crate::measure::paths::{TimedRecord, delay_between_s};
-use crate::report::csv::CsvSink;
+use crate::report::csv::{CsvRows, rows_every};
 use crate::report::json::{ListeningInfo, PathDelay, PathReport, PathsReport, Report};
 use crate::report::wav::{
     LISTEN_FADE_S, LISTEN_MIN_S, ListeningRecords, WavFormat, WavOptions, listening_files,
 };
+use crate::report::waveforms::{NpyRows, RowWriter, WaveformWriter};
 use crate::report::{OutputDir, Producer};
 use crate::report::{document, figures};
 use crate::scenario::Scenario;
@@ -27,6 +28,8 @@ use crate::stages::kind::Upstream;
 pub struct RunOptions {
     /// Every grid sample in waveforms.csv (else at most 1e6 rows).
     pub full_waveforms: bool,
+    /// Every grid sample in waveforms.npy (else the rows of waveforms.csv).
+    pub npy_full_rate: bool,
     /// Report progress on standard error when it is a terminal.
     pub progress: bool,
     /// Time window of the waveform plot (s); None = the last few cycles.
@@ -47,6 +50,7 @@ impl Default for RunOptions {
     fn default() -> Self {
         RunOptions {
             full_waveforms: false,
+            npy_full_rate: false,
             progress: false,
             window_s: None,
             figures: true,
@@ -75,7 +79,7 @@ fn preflight(sc: &Scenario, opts: &RunOptions) -> Result<Option<compare::Compare
     }
 }
 
-/// Run a scenario, measure it and write `report.json` and `waveforms.csv` into `dir` (created when the run
+/// Run a scenario, measure it and write `report.json`, `waveforms.csv` and `waveforms.npy` into `dir` (created when the run
 /// starts; on failure nothing partial is left). The files an earlier run wrote there and this one did not
 /// (plots and WAV files after `--no-plots --no-wav`) are removed.
 pub fn run_to_dir(sc: &Scenario, dir: &Path, opts: &RunOptions) -> Result<Report> {
@@ -100,13 +104,32 @@ fn run_inner(
     capture: Option<&CompareCapture>,
 ) -> Result<Report> {
     let (plan, _) = Plan::new(sc)?;
-    let (file, tmp) = out.create_temp("waveforms.csv")?;
-    let mut csv = CsvSink::from_file(file, tmp, plan.n_total, opts.full_waveforms);
-    let m = simulate_and_measure(sc, Some(&mut csv), opts, capture)?;
+    let (csv_file, csv_tmp) = out.create_temp("waveforms.csv")?;
+    let (npy_file, npy_tmp) = out.create_temp("waveforms.npy")?;
+    let csv_every = rows_every(plan.n_total, opts.full_waveforms);
+    let npy_every = if opts.npy_full_rate { 1 } else { csv_every };
+    let writers: Vec<Box<dyn RowWriter>> = vec![
+        Box::new(CsvRows::from_file(
+            csv_file,
+            csv_tmp,
+            plan.n_total,
+            opts.full_waveforms,
+        )),
+        Box::new(NpyRows::from_file(
+            npy_file,
+            npy_tmp,
+            plan.n_total,
+            npy_every,
+        )),
+    ];
+    // The waveform files are formatted and written on their own thread while the engine and the meters run.
+    let mut waveforms = WaveformWriter::start(writers);
+    let m = simulate_and_measure(sc, Some(&mut waveforms), opts, capture)?;
     m.phase("writing the files");
-    csv.finish()?;
+    waveforms.finish()?;
     let json = serde_json::to_vec_pretty(&m.report).map_err(|e| Error::Run(e.to_string()))?;
     out.commit("waveforms.csv")?;
+    out.commit("waveforms.npy")?;
     for f in &m.figs {
         out.write(&format!("{}.png", f.name), &f.png)?;
         out.write(&format!("{}.svg", f.name), f.svg.as_bytes())?;

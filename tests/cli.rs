@@ -66,7 +66,7 @@ fn the_same_scenario_and_seed_give_byte_identical_outputs() {
         let o = run_in(d.path(), &["run", sc, "--quiet", "--out", out]);
         ok(&o);
     }
-    for f in ["report.json", "waveforms.csv"] {
+    for f in ["report.json", "waveforms.csv", "waveforms.npy"] {
         let a = fs::read(d.path().join("a").join(f)).unwrap();
         let b = fs::read(d.path().join("b").join(f)).unwrap();
         assert!(a == b, "{f} differs between identical runs");

@@ -1,7 +1,7 @@
-//! The outputs of every demo scenario, held byte for byte: report.json and waveforms.csv of `run`, sweep.csv of a
-//! small frequency sweep, and the files of `static`, `limit` and `montecarlo` on one demo each. A change meant
-//! to restructure the code must leave these hashes alone; a change meant to alter results updates the table in
-//! the same commit and says why. Print the current table with
+//! The outputs of every demo scenario, held byte for byte: report.json, waveforms.csv and waveforms.npy of
+//! `run`, sweep.csv of a small frequency sweep, and the files of `static`, `limit` and `montecarlo` on one demo
+//! each. A change meant to restructure the code must leave these hashes alone; a change meant to alter results
+//! updates the table in the same commit and says why. Print the current table with
 //! `CONVCHAIN_GOLDEN_PRINT=1 cargo test --release --test golden -- --nocapture`.
 //!
 //! The hashes are FNV-1a 64 of the files' bytes (the fingerprint the rows files use, `study::shard`).
@@ -21,23 +21,31 @@ use common::{ok, repo, run_in};
 /// its exact instant, not the next grid instant: the two four-bit demos' measured latency moved by +0.59 us, the
 /// 0.29 grid step that sampling the hold put it early); and sweep.csv gained the `latency.slips` column after
 /// `latency.packets_lost`, and montecarlo.csv the `latency.packets_lost` and `latency.slips` columns after
-/// `latency.measured_s` (new columns only, every other cell the same).
+/// `latency.measured_s` (new columns only, every other cell the same). waveforms.npy's hashes were added when
+/// the file came (the binary form of waveforms.csv's rows; every other hash the same, as the CSV came to be
+/// written on the waveform writer's thread).
 const GOLDEN: &[(&str, u64)] = &[
     ("four-bit-listen-dithered/report.json", 0x6ecae637e80ea689),
     ("four-bit-listen-dithered/waveforms.csv", 0x5624f9f0fb33a238),
+    ("four-bit-listen-dithered/waveforms.npy", 0xea674946bd06c276),
     ("four-bit-listen/report.json", 0x35d72f3727598aaf),
     ("four-bit-listen/waveforms.csv", 0x431f65271b32162f),
+    ("four-bit-listen/waveforms.npy", 0xc62b818c64e386bc),
     ("radio-stl/report.json", 0xa214d0800172d35c),
     ("radio-stl/waveforms.csv", 0xe6de35bf58f1df18),
+    ("radio-stl/waveforms.npy", 0x58edb765575d76b2),
     ("radio-stl/sweep.csv", 0x74ce6e849a54697e),
     ("river-gauge/report.json", 0xcb73c3181767f1b4),
     ("river-gauge/waveforms.csv", 0x79b9e736ed2e86d3),
+    ("river-gauge/waveforms.npy", 0xe43dcef85b25d948),
     ("river-gauge/sweep.csv", 0x08ca78cd1883af96),
     ("studio-interface/report.json", 0x84ef336c6605082f),
     ("studio-interface/waveforms.csv", 0x48767dba8c896af0),
+    ("studio-interface/waveforms.npy", 0xc2228792f8fd9bae),
     ("studio-interface/sweep.csv", 0xfb1d61536760644d),
     ("default/report.json", 0xc9ea2df741f3e17a),
     ("default/waveforms.csv", 0x48767dba8c896af0),
+    ("default/waveforms.npy", 0xc2228792f8fd9bae),
     ("static.json", 0x343db39d1aaf533f),
     ("limit.json", 0x9e87549d2071e1e2),
     ("montecarlo.csv", 0x45bbf8db0a8929b6),
@@ -74,7 +82,7 @@ fn every_demo_output_is_byte_identical_to_the_recorded_one() {
         let mut args = vec!["run", rel.as_str(), "--out", dir.to_str().unwrap()];
         args.extend(quiet);
         ok(&run_in(out, &args));
-        for f in ["report.json", "waveforms.csv"] {
+        for f in ["report.json", "waveforms.csv", "waveforms.npy"] {
             got.push((format!("{name}/{f}"), hash_of(&dir.join(f))));
         }
     }
@@ -89,7 +97,7 @@ fn every_demo_output_is_byte_identical_to_the_recorded_one() {
         let mut args = vec!["run", rel.as_str(), "--out", dir.to_str().unwrap()];
         args.extend(quiet);
         ok(&run_in(&root, &args));
-        for f in ["report.json", "waveforms.csv"] {
+        for f in ["report.json", "waveforms.csv", "waveforms.npy"] {
             got.push((format!("{name}/{f}"), hash_of(&dir.join(f))));
         }
         let sweep = out.join(format!("{name}-sweep"));
@@ -117,7 +125,7 @@ fn every_demo_output_is_byte_identical_to_the_recorded_one() {
     let mut args = vec!["run", "--out", dir.to_str().unwrap()];
     args.extend(quiet);
     ok(&run_in(&root, &args));
-    for f in ["report.json", "waveforms.csv"] {
+    for f in ["report.json", "waveforms.csv", "waveforms.npy"] {
         got.push((format!("default/{f}"), hash_of(&dir.join(f))));
     }
     for (cmd, scenario, file, extra) in [

@@ -224,7 +224,12 @@ fn a_link_planted_in_the_output_folder_is_refused_and_its_target_untouched() {
     ]));
     let victim = d.path().join("victim.txt");
     fs::write(&victim, "keep me").unwrap();
-    for planted in [".report.json.tmp", "report.json", "waveforms.csv"] {
+    for planted in [
+        ".report.json.tmp",
+        "report.json",
+        "waveforms.csv",
+        "waveforms.npy",
+    ] {
         let link = out.join(planted);
         let _ = fs::remove_file(&link);
         std::os::unix::fs::symlink(&victim, &link).unwrap();

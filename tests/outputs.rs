@@ -93,6 +93,7 @@ fn a_second_run_with_fewer_outputs_leaves_no_stale_file_and_keeps_the_users_own(
         "notes.txt",
         "report.json",
         "waveforms.csv",
+        "waveforms.npy",
     ]
     .iter()
     .map(|s| s.to_string())
@@ -111,7 +112,7 @@ fn a_second_run_with_fewer_outputs_leaves_no_stale_file_and_keeps_the_users_own(
             f["name"].as_str().unwrap().to_string()
         })
         .collect();
-    let wrote: BTreeSet<String> = ["report.json", "waveforms.csv"]
+    let wrote: BTreeSet<String> = ["report.json", "waveforms.csv", "waveforms.npy"]
         .iter()
         .map(|s| s.to_string())
         .collect();

@@ -43,6 +43,18 @@ def test_waveforms_equal_csv_within_printed_precision(cli_run, py_run):
         np.testing.assert_allclose(got, rows[:, j], rtol=5.0001e-10, atol=0, err_msg=name)
 
 
+def test_npy_is_the_waveforms_bit_for_bit(cli_run, py_run):
+    # waveforms.npy (NumPy format 1.0, one structured array) loads without pickles and holds the same f64 and
+    # u32 values as the module's waveforms (both every grid sample here: --full).
+    a = np.load(cli_run / "waveforms.npy", allow_pickle=False)
+    assert a.ndim == 1
+    assert list(a.dtype.names) == list(py_run.waveforms)
+    for name in a.dtype.names:
+        want = np.asarray(py_run.waveforms[name])
+        assert a[name].dtype == (np.uint32 if want.dtype == np.uint32 else np.float64), name
+        np.testing.assert_array_equal(a[name], want, err_msg=name)
+
+
 def test_codes_are_the_adc_record(py_run):
     adc = py_run.report["adc"]
     assert py_run.codes.dtype == np.uint32

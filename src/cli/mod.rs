@@ -28,7 +28,7 @@ struct Args {
 
 #[derive(Subcommand, Debug)]
 enum Command {
-    /// Run a scenario (or the embedded demo): report.json, waveforms.csv, plots, WAV files, report.md/.html.
+    /// Run a scenario (or the embedded demo): report.json, waveforms.csv and .npy, plots, WAV files, report.md/.html.
     Run {
         /// Scenario file (TOML). Without it, the embedded demo scenario runs.
         scenario: Option<PathBuf>,
@@ -38,6 +38,11 @@ enum Command {
         /// Write every grid sample to waveforms.csv instead of at most 1e6 rows.
         #[arg(long)]
         full: bool,
+        /// Write every analog grid step to waveforms.npy instead of waveforms.csv's rows. Large: 8 bytes per
+        /// analog stream plus 8 for the time and 4 per code column, per step (the reference chain, 5 columns,
+        /// 1 s on a 10 MHz grid: about 400 MB).
+        #[arg(long)]
+        npy_full_rate: bool,
         /// Print nothing but errors.
         #[arg(long, short)]
         quiet: bool,
@@ -400,6 +405,7 @@ fn run(args: Args) -> anyhow::Result<()> {
             scenario,
             out,
             full,
+            npy_full_rate,
             quiet,
             json,
             window,
@@ -478,6 +484,7 @@ fn run(args: Args) -> anyhow::Result<()> {
             OutputDir::check(&dir, &Producer::run(force))?;
             let opts = convchain::RunOptions {
                 full_waveforms: full,
+                npy_full_rate,
                 progress: !quiet && !json,
                 window_s,
                 figures: !no_plots,

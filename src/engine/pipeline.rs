@@ -56,6 +56,11 @@ impl Capture {
 
 /// Receives every block of the back half (for streaming the waveform CSV).
 pub trait WaveformSink {
+    /// The sink reads only the rows whose grid index is a multiple of this: the code columns are filled at
+    /// those rows only (the others hold stale values).
+    fn stride(&self) -> u64 {
+        1
+    }
     /// Called once before the first block with the analog column labels and the code column labels.
     fn begin(&mut self, analog: &[String], codes: &[String]) -> Result<()>;
     /// A block starting at grid index `n0`; columns in the order given to `begin`.
@@ -441,6 +446,7 @@ fn run_with(
     if let Some(s) = sink.as_deref_mut() {
         s.begin(&labels, &code_labels)?;
     }
+    let code_stride = sink.as_deref().map_or(1, |s| s.stride().max(1));
     // Column of each hop's DAC (its post stages follow it), and the column feeding each hop's ADC.
     let mut hop_col = Vec::with_capacity(n_hops);
     let mut next_col = 1 + n_pre;
@@ -644,6 +650,7 @@ fn run_with(
                     fill_code_column(
                         tb,
                         n0,
+                        code_stride,
                         &st.adc_seen,
                         &mut st.last_adc_code,
                         &mut codes[2 * h][..len],
@@ -657,6 +664,7 @@ fn run_with(
                     fill_code_column(
                         tb,
                         n0,
+                        code_stride,
                         &st.dac_pending,
                         &mut st.last_dac_code,
                         &mut codes[2 * h + 1][..len],
@@ -935,15 +943,67 @@ fn combine_slips<'a>(records: impl Iterator<Item = &'a SlipRecord>) -> Option<Sl
 }
 
 /// The code held at each grid instant of a block: the latest event whose t_avail_s is at or before the instant.
-fn fill_code_column(tb: Timebase, n0: u64, events: &[CodeEvent], last: &mut u32, out: &mut [u32]) {
+fn fill_code_column(
+    tb: Timebase,
+    n0: u64,
+    stride: u64,
+    events: &[CodeEvent],
+    last: &mut u32,
+    out: &mut [u32],
+) {
     let mut i = 0;
     let eps_s = 1e-6 * tb.dt_s(); // as the DAC does: rounding must not move a code by a grid step
-    for (j, o) in out.iter_mut().enumerate() {
-        let t = tb.time_s(n0 + j as u64);
-        while i < events.len() && events[i].t_avail_s <= t + eps_s {
-            *last = events[i].code;
-            i += 1;
+    let advance = |i: &mut usize, last: &mut u32, n: u64| {
+        let t = tb.time_s(n);
+        while *i < events.len() && events[*i].t_avail_s <= t + eps_s {
+            *last = events[*i].code;
+            *i += 1;
         }
-        *o = *last;
+    };
+    let mut j = ((stride - n0 % stride) % stride) as usize;
+    while j < out.len() {
+        advance(&mut i, last, n0 + j as u64);
+        out[j] = *last;
+        j += stride as usize;
+    }
+    // The code at the block's last sample carries into the next block, as if every row had been filled.
+    if let Some(end) = out.len().checked_sub(1) {
+        advance(&mut i, last, n0 + end as u64);
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn code_columns_filled_at_a_stride_match_every_row_filled() {
+        let tb = Timebase::new(1000.0);
+        let events: Vec<CodeEvent> = (0..40)
+            .map(|k| CodeEvent {
+                t_sample_s: k as f64 * 0.0037,
+                t_avail_s: k as f64 * 0.0037 + 0.0005,
+                code: 100 + k,
+            })
+            .collect();
+        for stride in [1u64, 3, 7, 10] {
+            let (mut last_all, mut last_some) = (0, 0);
+            for b in 0..12u64 {
+                let n0 = b * 13;
+                let mut all = vec![0; 13];
+                let mut some = vec![u32::MAX; 13];
+                fill_code_column(tb, n0, 1, &events, &mut last_all, &mut all);
+                fill_code_column(tb, n0, stride, &events, &mut last_some, &mut some);
+                for j in 0..13 {
+                    if (n0 + j as u64).is_multiple_of(stride) {
+                        assert_eq!(some[j], all[j], "stride {stride}, row {}", n0 + j as u64);
+                    } else if stride > 1 {
+                        assert_eq!(some[j], u32::MAX);
+                    }
+                }
+                assert_eq!(last_some, last_all);
+            }
+            assert!(last_all > 100);
+        }
     }
 }

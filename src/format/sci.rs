@@ -26,13 +26,16 @@ pub fn push_e9(out: &mut Vec<u8>, v: f64) {
             if neg {
                 out.push(b'-');
             }
+            // d.ddddddddd: the first five digits and the last five as two u32 halves, written two digits at
+            // a time.
             let mut buf = [0u8; 11];
-            let mut m = digits;
-            for i in (0..10).rev() {
-                buf[if i == 0 { 0 } else { i + 1 }] = b'0' + (m % 10) as u8;
-                m /= 10;
-            }
+            let hi = (digits / 100_000) as u32;
+            let lo = (digits % 100_000) as u32;
+            buf[0] = b'0' + (hi / 10_000) as u8;
             buf[1] = b'.';
+            put4(&mut buf[2..6], hi % 10_000);
+            buf[6] = b'0' + (lo / 10_000) as u8;
+            put4(&mut buf[7..11], lo % 10_000);
             out.extend_from_slice(&buf);
             out.push(b'e');
             if exp < 0 {
@@ -44,6 +47,25 @@ pub fn push_e9(out: &mut Vec<u8>, v: f64) {
             let _ = std::io::Write::write_fmt(out, format_args!("{v:.9e}"));
         }
     }
+}
+
+/// "00", "01", ..., "99".
+const PAIRS: [u8; 200] = {
+    let mut t = [0u8; 200];
+    let mut i = 0;
+    while i < 100 {
+        t[2 * i] = b'0' + (i / 10) as u8;
+        t[2 * i + 1] = b'0' + (i % 10) as u8;
+        i += 1;
+    }
+    t
+};
+
+/// The four decimal digits of `n` < 10^4, leading zeros kept.
+fn put4(out: &mut [u8], n: u32) {
+    let (a, b) = ((n / 100) as usize, (n % 100) as usize);
+    out[..2].copy_from_slice(&PAIRS[2 * a..2 * a + 2]);
+    out[2..4].copy_from_slice(&PAIRS[2 * b..2 * b + 2]);
 }
 
 /// Append `n` in decimal, as `{}` writes it.
@@ -78,7 +100,9 @@ fn fast(v: f64) -> Option<(bool, u64, i32)> {
     }
     // a lies in [2^e2, 2^(e2 + 1)), so its decimal exponent is floor(e2 log10 2) or one more; checked below.
     let e2 = biased - 1023;
-    let mut e = (f64::from(e2) * std::f64::consts::LOG10_2).floor() as i32;
+    // floor(e2 log10 2) in integers (78913 / 2^18 = 0.30102920..., exact over the exponents of finite f64;
+    // the loop below corrects it anyway when the scaled value falls outside [1e9, 1e10)).
+    let mut e = (e2 * 78913) >> 18;
     for _ in 0..3 {
         let k = 9 - e;
         let scaled = if (0..=22).contains(&k) {
@@ -100,7 +124,8 @@ fn fast(v: f64) -> Option<(bool, u64, i32)> {
         if !(1e9 + GUARD..=1e10 - GUARD).contains(&scaled) {
             return None;
         }
-        let floor = scaled.floor();
+        // scaled lies in [1e9, 1e10): truncation is the floor, and exact through u64.
+        let floor = (scaled as u64) as f64;
         let frac = scaled - floor;
         if (frac - 0.5).abs() < GUARD {
             return None;

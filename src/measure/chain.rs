@@ -284,7 +284,19 @@ pub fn measure_run(run: &RunRecords<'_>) -> Result<ChainMetrics> {
     let src_tm: Option<ToneMetrics>;
     let out_tm: Option<ToneMetrics>;
     let mut wideband = None;
-    let spec_out = an.power_spectrum(out, rate)?;
+    // The delay of what the chain carries: the source and output records hold the analysis band at the same
+    // instants, free of the images and steps above it, in a few thousand samples rather than the capture's
+    // hundreds of thousands; the correlation is interpolated exactly between their samples. It needs only the
+    // records and the budget, so it runs beside the output's spectrum.
+    let budget = run.budget.to_vec();
+    let budget_s: f64 = budget.iter().map(|b| b.seconds).sum();
+    let period_s = f0.map(|f| 1.0 / f);
+    let record_s = src.len() as f64 / rate;
+    let (measured_s, spec_out) = rayon::join(
+        || measure_delay(src, out, rate, budget_s, period_s, record_s),
+        || an.power_spectrum(out, rate),
+    );
+    let spec_out = spec_out?;
     let mut out_full_scale = run
         .adc
         .as_ref()
@@ -361,15 +373,7 @@ pub fn measure_run(run: &RunRecords<'_>) -> Result<ChainMetrics> {
     // ---- latency on the band-limited analysis records, fidelity on the full-bandwidth grid capture
     let cap = &run.capture;
     let grid_rate = cap.rate_hz;
-    let budget = run.budget.to_vec();
-    let budget_s: f64 = budget.iter().map(|b| b.seconds).sum();
     let capture_s = cap.output.len() as f64 / grid_rate;
-    let period_s = f0.map(|f| 1.0 / f);
-    // The delay of what the chain carries: the source and output records hold the analysis band at the same
-    // instants, free of the images and steps above it, in a few thousand samples rather than the capture's
-    // hundreds of thousands; the correlation is interpolated exactly between their samples.
-    let record_s = src.len() as f64 / rate;
-    let measured_s = measure_delay(src, out, rate, budget_s, period_s, record_s);
     // The phase delay needs only the fundamental, from the same records.
     let phase_delay_s = f0
         .map(|f| latency::phase_delay_s(src, out, rate, f, measured_s))

@@ -46,19 +46,32 @@ impl Window {
     /// Hann window of length 1 is all zero).
     pub fn new(kind: WindowKind, n: usize) -> Window {
         let a = cosine_coefficients(kind);
-        let coeffs = (0..n)
-            .map(|i| {
-                let mut acc = 0.0;
-                let mut sign = 1.0;
-                for (m, &am) in a.iter().enumerate() {
-                    // Reduce m*i modulo n before scaling so the argument stays in [0, 2 pi).
-                    let r = ((m as u128 * i as u128) % n as u128) as f64;
-                    acc += sign * am * (std::f64::consts::TAU * r / n as f64).cos();
-                    sign = -sign;
-                }
-                acc
-            })
+        if a.len() == 1 {
+            return Window {
+                kind,
+                coeffs: vec![a[0]; n],
+            };
+        }
+        // Every term's argument is 2 pi r / N with r = m i reduced modulo N (so it stays in [0, 2 pi)): one
+        // table of cos(2 pi r / N) over r = 0..N serves all terms, each term's index advancing by m per sample.
+        let table: Vec<f64> = (0..n)
+            .map(|r| (std::f64::consts::TAU * r as f64 / n as f64).cos())
             .collect();
+        let mut r = vec![0usize; a.len()];
+        let mut coeffs = Vec::with_capacity(n);
+        for _ in 0..n {
+            let mut acc = 0.0;
+            let mut sign = 1.0;
+            for (m, &am) in a.iter().enumerate() {
+                acc += sign * am * table[r[m]];
+                sign = -sign;
+                r[m] += m;
+                while r[m] >= n {
+                    r[m] -= n;
+                }
+            }
+            coeffs.push(acc);
+        }
         Window { kind, coeffs }
     }
 
@@ -264,6 +277,34 @@ mod tests {
                     .sum();
                 let loss_db = -10.0 * (lobe / total).log10();
                 assert!(loss_db < max_loss_db, "{kind:?} delta {delta}: {loss_db}");
+            }
+        }
+    }
+
+    #[test]
+    fn the_table_gives_the_bits_of_the_direct_sum() {
+        // The direct definition, one cosine per term and sample with m i reduced modulo N: the table must give
+        // the same bits (the same argument, the same sum order).
+        for n in [1usize, 2, 7, 64, 1000, 4099] {
+            for kind in WindowKind::ALL {
+                let a = cosine_coefficients(kind);
+                let direct: Vec<f64> = (0..n)
+                    .map(|i| {
+                        let mut acc = 0.0;
+                        let mut sign = 1.0;
+                        for (m, &am) in a.iter().enumerate() {
+                            let r = ((m as u128 * i as u128) % n as u128) as f64;
+                            acc += sign * am * (std::f64::consts::TAU * r / n as f64).cos();
+                            sign = -sign;
+                        }
+                        acc
+                    })
+                    .collect();
+                let w = Window::new(kind, n);
+                assert_eq!(w.coeffs.len(), n);
+                for (i, (x, y)) in w.coeffs.iter().zip(&direct).enumerate() {
+                    assert_eq!(x.to_bits(), y.to_bits(), "{kind:?} n={n} i={i}");
+                }
             }
         }
     }

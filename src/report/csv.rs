@@ -1,19 +1,30 @@
-//! The waveform CSV, streamed block by block while the run goes (memory does not grow with duration).
+//! The waveform CSV: its rows formatted on the waveform writer's thread ([`super::waveforms`]), streamed to
+//! disk as the run goes (memory does not grow with duration).
 
 use std::fs::File;
 use std::io::{BufWriter, Write};
 use std::path::PathBuf;
 
-use crate::engine::pipeline::WaveformSink;
 use crate::error::{Error, Result};
+use crate::report::waveforms::{RowBatch, RowWriter};
 use crate::signal::stream::Timebase;
 
 /// Default cap on rows.
 pub const MAX_ROWS: u64 = 1_000_000;
 
+/// The grid stride of the default rows: every grid sample when `full`, else every `every`-th so that at most
+/// [`MAX_ROWS`] rows are written for `n_total` grid samples.
+pub fn rows_every(n_total: u64, full: bool) -> u64 {
+    if full {
+        1
+    } else {
+        n_total.div_ceil(MAX_ROWS).max(1)
+    }
+}
+
 /// Writes `time_s`, one `<label>_v` column per analog stream, and one column per code stream, every `every`-th
 /// grid sample.
-pub struct CsvSink {
+pub struct CsvRows {
     path: PathBuf,
     out: BufWriter<File>,
     every: u64,
@@ -33,38 +44,17 @@ pub fn column_name(label: &str) -> String {
     s.trim_matches('_').to_string()
 }
 
-impl CsvSink {
-    /// `n_total` grid samples will be simulated; with `full` every one is written, else at most [`MAX_ROWS`].
-    pub fn create(path: PathBuf, n_total: u64, full: bool) -> Result<CsvSink> {
-        let f = File::create(&path).map_err(|e| Error::Write {
-            path: path.clone(),
-            source: e,
-        })?;
-        Ok(Self::from_file(f, path, n_total, full))
-    }
-
-    /// As [`CsvSink::create`], into a file already open (an output folder's temporary, see
-    /// [`crate::report::OutputDir::create_temp`]).
-    pub fn from_file(f: File, path: PathBuf, n_total: u64, full: bool) -> CsvSink {
-        let every = if full {
-            1
-        } else {
-            n_total.div_ceil(MAX_ROWS).max(1)
-        };
-        CsvSink {
+impl CsvRows {
+    /// Into a file already open (an output folder's temporary, see
+    /// [`crate::report::OutputDir::create_temp`]); `n_total` grid samples will be simulated; with `full` every
+    /// one is written, else at most [`MAX_ROWS`].
+    pub fn from_file(f: File, path: PathBuf, n_total: u64, full: bool) -> CsvRows {
+        CsvRows {
             path,
             out: BufWriter::with_capacity(1 << 20, f),
-            every,
+            every: rows_every(n_total, full),
             line: Vec::with_capacity(256),
         }
-    }
-
-    /// Flush and close; the caller renames the file into place.
-    pub fn finish(mut self) -> Result<()> {
-        self.out.flush().map_err(|e| Error::Write {
-            path: self.path.clone(),
-            source: e,
-        })
     }
 
     fn io(&self, e: std::io::Error) -> Error {
@@ -75,7 +65,11 @@ impl CsvSink {
     }
 }
 
-impl WaveformSink for CsvSink {
+impl RowWriter for CsvRows {
+    fn every(&self) -> u64 {
+        self.every
+    }
+
     fn begin(&mut self, analog: &[String], codes: &[String]) -> Result<()> {
         let mut h = String::from("time_s");
         for a in analog {
@@ -91,41 +85,40 @@ impl WaveformSink for CsvSink {
         self.out.write_all(h.as_bytes()).map_err(|e| self.io(e))
     }
 
-    fn block(
-        &mut self,
-        timebase: Timebase,
-        n0: u64,
-        analog: &[&[f64]],
-        codes: &[&[u32]],
-    ) -> Result<()> {
+    fn rows(&mut self, timebase: Timebase, batch: &RowBatch) -> Result<()> {
         use crate::format::sci::{push_e9, push_u32};
-        let len = analog.first().map(|c| c.len()).unwrap_or(0);
-        let first = (self.every - n0 % self.every) % self.every;
-        let mut j = first as usize;
-        while j < len {
-            self.line.clear();
-            push_e9(&mut self.line, timebase.time_s(n0 + j as u64));
-            for col in analog {
-                self.line.push(b',');
-                push_e9(&mut self.line, col[j]);
+        for (r, &n) in batch.grid.iter().enumerate() {
+            if !n.is_multiple_of(self.every) {
+                continue;
             }
-            for col in codes {
+            self.line.clear();
+            push_e9(&mut self.line, timebase.time_s(n));
+            for &v in batch.analog_row(r) {
                 self.line.push(b',');
-                push_u32(&mut self.line, col[j]);
+                push_e9(&mut self.line, v);
+            }
+            for &c in batch.code_row(r) {
+                self.line.push(b',');
+                push_u32(&mut self.line, c);
             }
             self.line.push(b'\n');
             if let Err(e) = self.out.write_all(&self.line) {
                 return Err(self.io(e));
             }
-            j += self.every as usize;
         }
         Ok(())
+    }
+
+    fn finish(mut self: Box<Self>) -> Result<()> {
+        self.out.flush().map_err(|e| self.io(e))
     }
 }
 
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::engine::pipeline::WaveformSink;
+    use crate::report::waveforms::WaveformWriter;
 
     #[test]
     fn labels_become_plain_column_names() {
@@ -138,8 +131,10 @@ mod tests {
         let d = tempfile::tempdir().unwrap();
         let write = |name: &str, split: usize| {
             let p = d.path().join(name);
-            let mut s = CsvSink::create(p.clone(), 30, false).unwrap();
-            s.every = 4;
+            let f = File::create(&p).unwrap();
+            let mut rows = CsvRows::from_file(f, p.clone(), 30, false);
+            rows.every = 4;
+            let mut s = WaveformWriter::start(vec![Box::new(rows)]);
             s.begin(&["source".into()], &["adc".into()]).unwrap();
             let v: Vec<f64> = (0..30).map(|i| i as f64).collect();
             let c: Vec<u32> = (0..30).collect();
@@ -158,5 +153,14 @@ mod tests {
         assert_eq!(a, b);
         assert_eq!(a.lines().count(), 1 + 8); // rows 0,4,...,28
         assert!(a.starts_with("time_s,source_v,adc\n"));
+        assert!(a.contains("\n4.000000000e-1,4.000000000e0,4\n"), "{a}");
+    }
+
+    #[test]
+    fn default_rows_stay_under_the_cap() {
+        assert_eq!(rows_every(10_000_000, false), 10);
+        assert_eq!(rows_every(10_000_001, false), 11);
+        assert_eq!(rows_every(999, false), 1);
+        assert_eq!(rows_every(10_000_000, true), 1);
     }
 }
