@@ -109,12 +109,7 @@ fn run_inner(
     let csv_every = rows_every(plan.n_total, opts.full_waveforms);
     let npy_every = if opts.npy_full_rate { 1 } else { csv_every };
     let writers: Vec<Box<dyn RowWriter>> = vec![
-        Box::new(CsvRows::from_file(
-            csv_file,
-            csv_tmp,
-            plan.n_total,
-            opts.full_waveforms,
-        )),
+        Box::new(CsvRows::from_file(csv_file, csv_tmp, csv_every)),
         Box::new(NpyRows::from_file(
             npy_file,
             npy_tmp,

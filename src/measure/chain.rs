@@ -167,6 +167,13 @@ pub struct LatencyMetrics {
     pub over_time: Option<latency::LatencyOverTime>,
 }
 
+impl LatencyMetrics {
+    /// Slips counted, 0 where the chain needs no clock-crossing FIFO (nothing to slip): the studies' column.
+    pub fn slip_count(&self) -> u64 {
+        self.slips.unwrap_or(0)
+    }
+}
+
 /// A spectrum kept for plots, with its tone analysis and the full-scale reference of its dBFS.
 #[derive(Debug, Clone)]
 pub struct SpectrumDetail {

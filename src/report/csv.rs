@@ -46,13 +46,12 @@ pub fn column_name(label: &str) -> String {
 
 impl CsvRows {
     /// Into a file already open (an output folder's temporary, see
-    /// [`crate::report::OutputDir::create_temp`]); `n_total` grid samples will be simulated; with `full` every
-    /// one is written, else at most [`MAX_ROWS`].
-    pub fn from_file(f: File, path: PathBuf, n_total: u64, full: bool) -> CsvRows {
+    /// [`crate::report::OutputDir::create_temp`]), writing every `every`-th grid sample (see [`rows_every`]).
+    pub fn from_file(f: File, path: PathBuf, every: u64) -> CsvRows {
         CsvRows {
             path,
             out: BufWriter::with_capacity(1 << 20, f),
-            every: rows_every(n_total, full),
+            every: every.max(1),
             line: Vec::with_capacity(256),
         }
     }
@@ -132,8 +131,7 @@ mod tests {
         let write = |name: &str, split: usize| {
             let p = d.path().join(name);
             let f = File::create(&p).unwrap();
-            let mut rows = CsvRows::from_file(f, p.clone(), 30, false);
-            rows.every = 4;
+            let rows = CsvRows::from_file(f, p.clone(), 4);
             let mut s = WaveformWriter::start(vec![Box::new(rows)]);
             s.begin(&["source".into()], &["adc".into()]).unwrap();
             let v: Vec<f64> = (0..30).map(|i| i as f64).collect();

@@ -511,8 +511,7 @@ fn metric_values(chain: Option<&ChainMetrics>, stat: Option<&Static>) -> Vec<Opt
         out.map(|o| o.fidelity_db),
         chain.map(|c| c.latency.measured_s),
         chain.map(|c| c.latency.packets_lost as f64),
-        // No clock crossing without a rate converter: no FIFO, nothing to slip.
-        chain.map(|c| c.latency.slips.unwrap_or(0) as f64),
+        chain.map(|c| c.latency.slip_count() as f64),
         sa.map(|a| a.code_density.dnl_max_lsb),
         sa.map(|a| a.code_density.inl_max_lsb),
         sa.map(|a| a.code_density.missing_codes as f64),

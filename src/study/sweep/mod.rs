@@ -339,8 +339,7 @@ pub fn metric_values(m: &ChainMetrics) -> Vec<Option<f64>> {
         Some(m.latency.measured_s),
         Some(m.latency.budget_s),
         Some(m.latency.packets_lost as f64),
-        // No clock crossing without a rate converter: no FIFO, nothing to slip.
-        Some(m.latency.slips.unwrap_or(0) as f64),
+        Some(m.latency.slip_count() as f64),
         phase_deg(m),
     ]);
     v
