@@ -421,11 +421,6 @@ input_noise = "20 uV""#;
         let range = r
             .pair("range", D::Voltage)?
             .ok_or_else(|| r.missing("range", "[\"-2.5 V\", \"2.5 V\"]"))?;
-        if range.value.0 >= range.value.1 {
-            return Err(r
-                .error(&range.span, "range", "the low end must be below the high end")
-                .with_hint("write the range as [low, high], e.g. [\"-2.5 V\", \"2.5 V\"]"));
-        }
         let sh = read_shaping(r)?;
         let oversampling = sh.oversampling;
         let sample_rate = r.positive("sample_rate", D::Frequency)?;
@@ -464,21 +459,12 @@ input_noise = "20 uV""#;
     }
 
     fn resolve(&mut self, up: &mut Upstream) {
-        up.width_bits = self.bits;
-        up.quantizer_range_v = Some(self.range_v);
-        up.sample_rate_hz = Some(self.sample_rate_hz);
-        up.clock_ppm = self.clock_ppm;
+        up.set_quantizer(self.bits, self.range_v, self.sample_rate_hz, self.clock_ppm);
     }
 
     fn ablations(&self) -> Vec<Ablation> {
         let mut out = Vec::new();
-        if self.input_noise_v > 0.0 {
-            out.push(Ablation::new(
-                mechanism::<Self>("input_noise"),
-                "input_noise = 0",
-                vec![KeyEdit::Set("input_noise", 0.0)],
-            ));
-        }
+        out.extend(Ablation::zeroed::<Self>(&[("input_noise", self.input_noise_v)]));
         if self.shaping.quantizer_bits < 5 {
             out.push(Ablation::new(
                 mechanism::<Self>("quantizer_bits"),

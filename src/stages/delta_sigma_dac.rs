@@ -116,13 +116,6 @@ element_selection = "dwa""#;
         use Dimension as D;
         let bits = r.integer("bits", 1, MAX_BITS)?;
         let range = r.pair("range", D::Voltage)?;
-        if let Some(rg) = &range
-            && rg.value.0 >= rg.value.1
-        {
-            return Err(r
-                .error(&rg.span, "range", "the low end must be below the high end")
-                .with_hint("write the range as [low, high], e.g. [\"-2.5 V\", \"2.5 V\"]"));
-        }
         let shaping = read_shaping(r)?;
         let element_mismatch = r.non_negative("element_mismatch", D::Ratio)?;
         if element_mismatch >= 0.5 {

@@ -124,6 +124,23 @@ pub struct Upstream {
     pub clock_follows_dac: bool,
 }
 
+impl Upstream {
+    /// What a converter of the quantizer role tells the stages after it: its word, input range, nominal sample
+    /// rate and clock offset.
+    pub fn set_quantizer(
+        &mut self,
+        bits: u32,
+        range_v: (f64, f64),
+        sample_rate_hz: f64,
+        clock_ppm: f64,
+    ) {
+        self.width_bits = bits;
+        self.quantizer_range_v = Some(range_v);
+        self.sample_rate_hz = Some(sample_rate_hz);
+        self.clock_ppm = clock_ppm;
+    }
+}
+
 /// A change that removes a non-ideality, relative to the stage's own table.
 #[derive(Debug, Clone, PartialEq)]
 pub enum KeyEdit {
@@ -154,6 +171,33 @@ impl Ablation {
             change: change.into(),
             edits,
         }
+    }
+
+    /// One ablation per listed non-ideality that is present (non-zero): the key set to 0.
+    pub fn zeroed<K: KindSpec>(keys: &[(&'static str, f64)]) -> Vec<Ablation> {
+        keys.iter()
+            .filter(|(_, v)| *v > 0.0)
+            .map(|&(name, _)| {
+                Ablation::new(
+                    mechanism::<K>(name),
+                    format!("{name} = 0"),
+                    vec![KeyEdit::Set(name, 0.0)],
+                )
+            })
+            .collect()
+    }
+
+    /// A converter whose latency counts clocks, sampled ten times faster: the same latency in cycles.
+    pub fn tenfold_clock<K: KindSpec>(sample_rate_hz: f64) -> Ablation {
+        let fs10 = 10.0 * sample_rate_hz;
+        Ablation::new(
+            mechanism::<K>("sample_rate"),
+            format!(
+                "sample_rate raised tenfold to {} (same latency in cycles)",
+                crate::format::units::format_si(fs10, "Hz")
+            ),
+            vec![KeyEdit::Set("sample_rate", fs10)],
+        )
     }
 }
 

@@ -38,12 +38,12 @@ use serde::Serialize;
 
 use crate::error::Result;
 use crate::format::reader::{ScenarioError, TableReader};
-use crate::format::units::{Dimension, format_si};
+use crate::format::units::Dimension;
 use crate::signal::stream::CodeEvent;
 use crate::stages::Probe;
 use crate::stages::kind::{
-    Ablation, BuildContext, KeyEdit, KindSpec, Param, ParamKind, QuantizerTiming, Rates,
-    ReadContext, Role, Runtime, Upstream, mechanism,
+    Ablation, BuildContext, KindSpec, Param, ParamKind, QuantizerTiming, Rates,
+    ReadContext, Role, Runtime, Upstream,
 };
 use crate::stages::roles::{BudgetLine, Hold, Quantizer};
 use crate::stages::sample_hold::SampleHold;
@@ -145,11 +145,6 @@ stage_gain_error = 0.0002"#;
         let range = r
             .pair("range", D::Voltage)?
             .ok_or_else(|| r.missing("range", "[\"-1 V\", \"1 V\"]"))?;
-        if range.value.0 >= range.value.1 {
-            return Err(r
-                .error(&range.span, "range", "the low end must be below the high end")
-                .with_hint("write the range as [low, high], e.g. [\"-1 V\", \"1 V\"]"));
-        }
         let sample_rate = r
             .positive("sample_rate", D::Frequency)?
             .ok_or_else(|| r.missing("sample_rate", "\"20 MHz\""))?;
@@ -201,36 +196,16 @@ stage_gain_error = 0.0002"#;
     }
 
     fn resolve(&mut self, up: &mut Upstream) {
-        up.width_bits = self.bits;
-        up.quantizer_range_v = Some(self.range_v);
-        up.sample_rate_hz = Some(self.sample_rate_hz);
-        up.clock_ppm = self.clock_ppm;
+        up.set_quantizer(self.bits, self.range_v, self.sample_rate_hz, self.clock_ppm);
     }
 
     fn ablations(&self) -> Vec<Ablation> {
-        let mut out = Vec::new();
-        for (name, v) in [
+        let mut out = Ablation::zeroed::<Self>(&[
             ("comparator_offset", self.comparator_offset_v),
             ("stage_gain_error", self.stage_gain_error),
             ("stage_noise", self.stage_noise_v),
-        ] {
-            if v > 0.0 {
-                out.push(Ablation::new(
-                    mechanism::<Self>(name),
-                    format!("{name} = 0"),
-                    vec![KeyEdit::Set(name, 0.0)],
-                ));
-            }
-        }
-        let fs10 = 10.0 * self.sample_rate_hz;
-        out.push(Ablation::new(
-            mechanism::<Self>("sample_rate"),
-            format!(
-                "sample_rate raised tenfold to {} (same latency in cycles)",
-                format_si(fs10, "Hz")
-            ),
-            vec![KeyEdit::Set("sample_rate", fs10)],
-        ));
+        ]);
+        out.push(Ablation::tenfold_clock::<Self>(self.sample_rate_hz));
         out
     }
 

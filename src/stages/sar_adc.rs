@@ -178,10 +178,12 @@ comparator_noise = "0.5 mV""#;
     }
 
     fn resolve(&mut self, up: &mut Upstream) {
-        up.width_bits = self.bits;
-        up.quantizer_range_v = Some(self.range_v);
-        up.sample_rate_hz = Some(self.effective_sample_rate_hz());
-        up.clock_ppm = self.clock_ppm;
+        up.set_quantizer(
+            self.bits,
+            self.range_v,
+            self.effective_sample_rate_hz(),
+            self.clock_ppm,
+        );
     }
 
     fn ablations(&self) -> Vec<Ablation> {
@@ -193,18 +195,10 @@ comparator_noise = "0.5 mV""#;
                 vec![KeyEdit::SetStr("input", "held")],
             ));
         }
-        for (name, v) in [
+        out.extend(Ablation::zeroed::<Self>(&[
             ("comparator_noise", self.comparator_noise_v),
             ("capacitor_mismatch", self.capacitor_mismatch),
-        ] {
-            if v > 0.0 {
-                out.push(Ablation::new(
-                    mechanism::<Self>(name),
-                    format!("{name} = 0"),
-                    vec![KeyEdit::Set(name, 0.0)],
-                ));
-            }
-        }
+        ]));
         // Sampling ten times faster with the whole conversion ten times faster too (on the key that was written),
         // so the conversion keeps its share of the period and the hold its time to acquire. (Shortening the
         // conversion only to the new period left the hold no time to track: its output was meaningless.)
