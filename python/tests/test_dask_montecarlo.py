@@ -101,7 +101,7 @@ def test_write_montecarlo_gives_the_cli_files(cli_mc, dask_rows, mc_file, tmp_pa
     _, rows = dask_rows
     out = tmp_path / "py-mc"
     summary = convchain.write_montecarlo(mc_file, reversed(rows), out, runs=RUNS, seed=SEED, require=REQUIRE)
-    # The same rows give the same bytes (src/study/montecarlo.rs write_outputs).
+    # The same rows give the same bytes (src/study/montecarlo/summary.rs write_outputs).
     for f in ("rows.json", "montecarlo.csv", "montecarlo.json"):
         assert (out / f).read_bytes() == (cli_mc / f).read_bytes(), f
     assert summary == json.loads((cli_mc / "montecarlo.json").read_text())
