@@ -41,20 +41,33 @@ fn to_py(e: Error) -> PyErr {
     }
 }
 
-/// The scenario: a file's path, or TOML text (its relative file names then resolve from `base_dir`).
-fn load(
-    path: Option<&str>,
-    text: Option<&str>,
-    base_dir: Option<&str>,
-) -> Result<ScenarioText, Error> {
-    match (path, text) {
-        (Some(p), _) => ScenarioText::load(Path::new(p)),
-        (None, Some(t)) => ScenarioText::new(
-            t.to_string(),
-            "<scenario text>".into(),
-            PathBuf::from(base_dir.unwrap_or(".")),
-        ),
-        (None, None) => ScenarioText::load_or_default(None),
+/// Where the scenario comes from: a file's path, or TOML text (its relative file names then resolve from
+/// `base_dir`), or neither (the embedded default). Owned, so that it can cross into `Python::detach`.
+struct ScenarioSource {
+    path: Option<String>,
+    text: Option<String>,
+    base_dir: Option<String>,
+}
+
+impl ScenarioSource {
+    fn new(path: Option<&str>, text: Option<&str>, base_dir: Option<&str>) -> ScenarioSource {
+        ScenarioSource {
+            path: path.map(str::to_owned),
+            text: text.map(str::to_owned),
+            base_dir: base_dir.map(str::to_owned),
+        }
+    }
+
+    fn load(&self) -> Result<ScenarioText, Error> {
+        match (&self.path, &self.text) {
+            (Some(p), _) => ScenarioText::load(Path::new(p)),
+            (None, Some(t)) => ScenarioText::new(
+                t.clone(),
+                "<scenario text>".into(),
+                PathBuf::from(self.base_dir.as_deref().unwrap_or(".")),
+            ),
+            (None, None) => ScenarioText::load_or_default(None),
+        }
     }
 }
 
@@ -74,14 +87,10 @@ fn run_scenario<'py>(
     Bound<'py, PyDict>,
     Option<Bound<'py, PyArray1<u32>>>,
 )> {
-    let (path, text, base_dir) = (
-        path.map(str::to_owned),
-        text.map(str::to_owned),
-        base_dir.map(str::to_owned),
-    );
+    let src = ScenarioSource::new(path, text, base_dir);
     let run = py
         .detach(move || {
-            let st = load(path.as_deref(), text.as_deref(), base_dir.as_deref())?;
+            let st = src.load()?;
             let sc = st.with(&overrides)?;
             let opts = RunOptions {
                 wav: wav.then(WavOptions::default),
@@ -115,14 +124,10 @@ fn point<'py>(
     base_dir: Option<&str>,
     overrides: Vec<(String, f64)>,
 ) -> PyResult<Bound<'py, PyDict>> {
-    let (path, text, base_dir) = (
-        path.map(str::to_owned),
-        text.map(str::to_owned),
-        base_dir.map(str::to_owned),
-    );
+    let src = ScenarioSource::new(path, text, base_dir);
     let row = py
         .detach(move || {
-            let st = load(path.as_deref(), text.as_deref(), base_dir.as_deref())?;
+            let st = src.load()?;
             let sc = st.with(&overrides)?;
             convchain::engine::plan::Plan::new(&sc)?;
             Ok::<_, Error>(sweep::run_point(&sc, None, 0, Vec::new()))
@@ -205,7 +210,9 @@ fn write_sweep(
     shard: &str,
     force: bool,
 ) -> PyResult<()> {
-    let st = load(path, text, base_dir).map_err(to_py)?;
+    let st = ScenarioSource::new(path, text, base_dir)
+        .load()
+        .map_err(to_py)?;
     let spec = spec_of(&vary, points, log).map_err(to_py)?;
     let shard = Shard::parse(shard).map_err(to_py)?;
     let axes = spec
@@ -316,14 +323,10 @@ fn montecarlo_runs(
     audio_band_hz: Option<(f64, f64)>,
     shard: &str,
 ) -> PyResult<Vec<(u64, u64)>> {
-    let (path, text, base_dir, shard) = (
-        path.map(str::to_owned),
-        text.map(str::to_owned),
-        base_dir.map(str::to_owned),
-        shard.to_owned(),
-    );
+    let src = ScenarioSource::new(path, text, base_dir);
+    let shard = shard.to_owned();
     py.detach(move || {
-        let st = load(path.as_deref(), text.as_deref(), base_dir.as_deref())?;
+        let st = src.load()?;
         let opts = mc_options(
             runs,
             seed,
@@ -359,11 +362,7 @@ fn montecarlo_run<'py>(
     no_static: bool,
     audio_band_hz: Option<(f64, f64)>,
 ) -> PyResult<Bound<'py, PyDict>> {
-    let (path, text, base_dir) = (
-        path.map(str::to_owned),
-        text.map(str::to_owned),
-        base_dir.map(str::to_owned),
-    );
+    let src = ScenarioSource::new(path, text, base_dir);
     if index >= 1 << 40 {
         return Err(ScenarioError::new_err(format!(
             "index {index}: a Monte-Carlo study has at most 2^40 runs, numbered from 0"
@@ -371,7 +370,7 @@ fn montecarlo_run<'py>(
     }
     let (columns, row) = py
         .detach(move || {
-            let st = load(path.as_deref(), text.as_deref(), base_dir.as_deref())?;
+            let st = src.load()?;
             // A row does not depend on the study's run count or requirements: a study of index + 1 runs has it.
             let opts = mc_options(
                 index + 1,
@@ -423,7 +422,9 @@ fn write_montecarlo(
     shard: &str,
     force: bool,
 ) -> PyResult<String> {
-    let st = load(path, text, base_dir).map_err(to_py)?;
+    let st = ScenarioSource::new(path, text, base_dir)
+        .load()
+        .map_err(to_py)?;
     let opts = mc_options(
         runs,
         seed,
