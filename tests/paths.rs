@@ -311,3 +311,151 @@ fn paths_run_in_parallel_give_the_same_report_every_time() {
     }
     assert!(reports[0] == reports[1], "the two runs' report.json differ");
 }
+
+/// A direct analog path and a digital path with a block buffer, on a 1 MHz grid: fast enough for studies.
+const STUDY_PATHS: &str = r#"name = "study-paths"
+[simulation]
+analog_rate = "1 MHz"
+duration = "20 ms"
+settle = "2 ms"
+seed = 4
+[source]
+waveform = "sine"
+frequency = "1 kHz"
+amplitude = "2 V"
+offset = "2.5 V"
+[[path]]
+name = "direct"
+[[path.stage]]
+kind = "filter"
+order = 2
+cutoff = "20 kHz"
+[[path]]
+name = "digital"
+[[path.stage]]
+kind = "sar_adc"
+bits = 10
+range = ["0 V", "5 V"]
+sample_rate = "50 kHz"
+conversion_time = "12 us"
+[[path.stage]]
+kind = "buffer"
+block = 16
+blocks = 2
+[[path.stage]]
+kind = "dac"
+range = ["0 V", "5 V"]
+[analysis]
+band = "10 kHz"
+"#;
+
+/// The values of a column of sweep.csv, by name.
+fn csv_column(csv: &str, name: &str) -> Vec<f64> {
+    let mut lines = csv.lines();
+    let head: Vec<&str> = lines.next().unwrap().split(',').collect();
+    let c = head
+        .iter()
+        .position(|h| *h == name)
+        .unwrap_or_else(|| panic!("no {name} in {head:?}"));
+    lines
+        .map(|l| l.split(',').nth(c).unwrap().parse().unwrap())
+        .collect()
+}
+
+#[test]
+fn studies_read_the_path_given_with_path_and_its_stage_keys() {
+    let dir = tempfile::tempdir().unwrap();
+    let sc = dir.path().join("study-paths.toml");
+    std::fs::write(&sc, STUDY_PATHS).unwrap();
+    // --path digital: stage.2 is that path's buffer. Each block of 16 samples at 50 kHz adds 320 us (a
+    // buffer of B blocks of N samples adds B N / fs: common practice, no source), measured within one
+    // output sample of the budget.
+    let sw = dir.path().join("sw");
+    let o = run(&[
+        "sweep",
+        s(&sc),
+        "--path",
+        "digital",
+        "--vary",
+        "stage.2.blocks=1..3",
+        "--points",
+        "3",
+        "-q",
+        "--out",
+        s(&sw),
+    ]);
+    ok(&o);
+    let csv = std::fs::read_to_string(dir.path().join("sw/sweep.csv")).unwrap();
+    let measured = csv_column(&csv, "latency.measured_s");
+    let budget = csv_column(&csv, "latency.budget_s");
+    assert_eq!(measured.len(), 3);
+    for (m, b) in measured.iter().zip(&budget) {
+        assert!(
+            (m - b).abs() < 1.0 / 50e3,
+            "measured {m} against budget {b}"
+        );
+    }
+    for w in budget.windows(2) {
+        assert!((w[1] - w[0] - 16.0 / 50e3).abs() < 1e-12, "{budget:?}");
+    }
+    // The path's name is part of the study's: a default folder apart from other paths' studies.
+    let o = common::run_in(dir.path(), &["limit", s(&sc), "--path", "digital", "-q"]);
+    ok(&o);
+    assert!(
+        dir.path()
+            .join("out/study-paths-digital-limit/limit.json")
+            .is_file()
+    );
+
+    // Without --path: the first path, its stage keys, and a note saying so.
+    let o = run(&[
+        "sweep",
+        s(&sc),
+        "--vary",
+        "stage.1.cutoff=10 kHz..30 kHz",
+        "--points",
+        "2",
+        "--out",
+        s(&dir.path().join("first")),
+    ]);
+    ok(&o);
+    assert!(
+        stderr(&o).contains("reads its first path, \"direct\""),
+        "{}",
+        stderr(&o)
+    );
+    let csv = std::fs::read_to_string(dir.path().join("first/sweep.csv")).unwrap();
+    // A second-order Butterworth's group delay at low frequency is sqrt(2) / (2 pi fc) (common practice, no
+    // source): 22.5 us at 10 kHz, 7.5 us at 30 kHz; the digital path would read over 600 us.
+    let measured = csv_column(&csv, "latency.measured_s");
+    let expect = [10e3, 30e3].map(|fc| 2f64.sqrt() / (2.0 * std::f64::consts::PI * fc));
+    for (m, e) in measured.iter().zip(expect) {
+        assert!((m / e - 1.0).abs() < 0.05, "measured {m} against {e}");
+    }
+
+    // A name no path has, and --path on a one-chain scenario: bad input, exit 2, saying what to give.
+    let o = run(&["montecarlo", s(&sc), "--runs", "2", "--path", "nope"]);
+    assert_eq!(o.status.code(), Some(2));
+    assert!(
+        stderr(&o).contains("the paths are \"direct\", \"digital\""),
+        "{}",
+        stderr(&o)
+    );
+    let one = dir.path().join("one.toml");
+    std::fs::write(
+        &one,
+        STUDY_PATHS.split("[[path]]").next().unwrap().to_string()
+            + "[[stage]]\nkind = \"filter\"\norder = 2\ncutoff = \"20 kHz\"\n",
+    )
+    .unwrap();
+    let o = run(&[
+        "need",
+        s(&one),
+        "--path",
+        "x",
+        "--require",
+        "output.snr_db>=10",
+    ]);
+    assert_eq!(o.status.code(), Some(2));
+    assert!(stderr(&o).contains("leave --path out"), "{}", stderr(&o));
+}

@@ -20,6 +20,10 @@ use super::interrupt::{self, CANCEL, INTERRUPTED_EXIT, Interrupted};
 pub struct McArgs {
     /// Scenario file (TOML); its [spread] table says which values vary. Without it, the embedded demo.
     scenario: Option<PathBuf>,
+    /// Study only this path of a scenario with [[path]] tables (default: the first); stage.N keys then
+    /// address its stages.
+    #[arg(long, value_name = "NAME")]
+    path: Option<String>,
     /// Number of runs in the whole study.
     #[arg(long)]
     runs: u64,
@@ -197,8 +201,11 @@ pub fn table(s: &Summary, dir: &Path) -> String {
 }
 
 pub fn run(a: McArgs) -> anyhow::Result<()> {
-    let text = ScenarioText::load_or_default(a.scenario.as_deref())?;
-    let sc = text.scenario()?;
+    let (text, sc, stem) = super::study_cli::study_scenario(
+        ScenarioText::load_or_default(a.scenario.as_deref())?,
+        a.path.as_deref(),
+        a.quiet,
+    )?;
     if !a.quiet {
         for w in &sc.warnings {
             eprintln!("warning: {w}");
@@ -234,9 +241,9 @@ pub fn run(a: McArgs) -> anyhow::Result<()> {
     // A shard's folder sits beside the whole study's, never inside it.
     let dir = a.out.clone().unwrap_or_else(|| {
         Path::new("out").join(if shard == Shard::WHOLE {
-            format!("{}-montecarlo", sc.name)
+            format!("{stem}-montecarlo")
         } else {
-            format!("{}-montecarlo-shard-{}-of-{}", sc.name, shard.k, shard.n)
+            format!("{stem}-montecarlo-shard-{}-of-{}", shard.k, shard.n)
         })
     });
     interrupt::install_handler("runs");

@@ -38,6 +38,10 @@ fn percent(s: &str) -> Result<f64, String> {
 pub struct NeedArgs {
     /// Scenario file (TOML).
     scenario: PathBuf,
+    /// Study only this path of a scenario with [[path]] tables (default: the first); stage.N keys then
+    /// address its stages.
+    #[arg(long, value_name = "NAME")]
+    path: Option<String>,
     /// KEY=FROM..TO, e.g. "stage.3.slew_rate=1 V/us..100 V/us"; each key is solved on its own (the others as
     /// written). None: the non-idealities the limit finder's diagnosis ablates, over ranges around their
     /// written values.
@@ -147,14 +151,17 @@ pub fn need(a: NeedArgs) -> anyhow::Result<()> {
         .map(|r| Requirement::parse(r))
         .collect::<Result<Vec<_>, _>>()?;
     need::check_requirements(&reqs)?;
-    let text = ScenarioText::load(&a.scenario)?;
-    let sc = text.scenario()?;
+    let (text, _, stem) = super::study_cli::study_scenario(
+        ScenarioText::load(&a.scenario)?,
+        a.path.as_deref(),
+        a.quiet,
+    )?;
     let dir = a
         .out
         .clone()
-        .unwrap_or_else(|| Path::new("out").join(format!("{}-need", sc.name)));
+        .unwrap_or_else(|| Path::new("out").join(format!("{stem}-need")));
     let definition = serde_json::json!({
-        "scenario": sc.name,
+        "scenario": stem,
         "vary": a.vary,
         "up_to_hz": a.up_to,
         "criterion": a.criterion,
@@ -163,7 +170,7 @@ pub fn need(a: NeedArgs) -> anyhow::Result<()> {
         "log": a.log,
         "tolerance": a.tolerance,
     });
-    let producer = need::folder_producer(&sc.name, definition, a.force);
+    let producer = need::folder_producer(&stem, definition, a.force);
     OutputDir::check(&dir, &producer)?;
     let lopts = LimitOptions {
         enob_drop_bits: a.enob_drop,

@@ -6,6 +6,7 @@ use std::path::{Path, PathBuf};
 use convchain::error::Error;
 use convchain::format::units::{Dimension, parse_quantity};
 use convchain::report::OutputDir;
+use convchain::scenario::Scenario;
 use convchain::scenario::overrides::ScenarioText;
 use convchain::study::shard::Shard;
 use convchain::study::{limit, sweep};
@@ -21,10 +22,55 @@ fn frequency(s: &str) -> Result<f64, String> {
     }
 }
 
+/// The scenario a study reads (parsed and checked) and the study's name (its default folder's stem, the name
+/// its files record). A `[[path]]` scenario is studied one path at a time, as a plain chain whose `stage.N`
+/// keys address that path's stages: the path `--path NAME` names (study name `<scenario>-<path>`), or the
+/// first (the scenario's name, and a note on standard error unless `quiet`).
+pub(crate) fn study_scenario(
+    text: ScenarioText,
+    path: Option<&str>,
+    quiet: bool,
+) -> Result<(ScenarioText, Scenario, String), Error> {
+    match text.path_only(path)? {
+        Some((one, name)) => {
+            let sc = one.scenario()?;
+            let stem = match path {
+                Some(_) => format!("{}-{name}", sc.name),
+                None => {
+                    if !quiet {
+                        eprintln!(
+                            "note: {} has [[path]] tables: this study reads its first path, \"{name}\" \
+                             (--path NAME for another)",
+                            text.origin
+                        );
+                    }
+                    sc.name.clone()
+                }
+            };
+            Ok((one, sc, stem))
+        }
+        None => match path {
+            Some(want) => Err(Error::BadInput(format!(
+                "--path {want}: {} has no [[path]] tables (it is one chain: leave --path out)",
+                text.origin
+            ))),
+            None => {
+                let sc = text.scenario()?;
+                let stem = sc.name.clone();
+                Ok((text, sc, stem))
+            }
+        },
+    }
+}
+
 #[derive(clap::Args, Debug)]
 pub struct SweepArgs {
     /// Scenario file (TOML).
     scenario: PathBuf,
+    /// Study only this path of a scenario with [[path]] tables (default: the first); stage.N keys then
+    /// address its stages.
+    #[arg(long, value_name = "NAME")]
+    path: Option<String>,
     /// KEY=FROM..TO, e.g. "source.frequency=1 kHz..20 kHz" or stage.3.slew_rate=1e6..2e7 (units as in the
     /// scenario). Repeat for a grid of all combinations.
     #[arg(long, required = true)]
@@ -65,6 +111,10 @@ pub struct SweepArgs {
 pub struct LimitArgs {
     /// Scenario file (TOML) with a sine source.
     scenario: PathBuf,
+    /// Study only this path of a scenario with [[path]] tables (default: the first); stage.N keys then
+    /// address its stages.
+    #[arg(long, value_name = "NAME")]
+    path: Option<String>,
     /// Low end of the search, e.g. "100 Hz" (default: 1/50 of the lowest rate of interest of the chain).
     #[arg(long, value_parser = frequency)]
     from: Option<f64>,
@@ -116,14 +166,14 @@ pub fn sweep(a: SweepArgs) -> anyhow::Result<()> {
         Some(s) => Shard::parse(s)?,
         None => Shard::WHOLE,
     };
-    let text = ScenarioText::load(&a.scenario)?;
-    let sc = text.scenario()?;
+    let (text, _, stem) =
+        study_scenario(ScenarioText::load(&a.scenario)?, a.path.as_deref(), a.quiet)?;
     // A shard's folder sits beside the whole sweep's, never inside it.
     let dir = a.out.unwrap_or_else(|| {
         Path::new("out").join(if shard == Shard::WHOLE {
-            format!("{}-sweep", sc.name)
+            format!("{stem}-sweep")
         } else {
-            format!("{}-sweep-shard-{}-of-{}", sc.name, shard.k, shard.n)
+            format!("{stem}-sweep-shard-{}-of-{}", shard.k, shard.n)
         })
     });
     let audio_band_hz = match a.audio_band.as_deref() {
@@ -136,10 +186,7 @@ pub fn sweep(a: SweepArgs) -> anyhow::Result<()> {
         log: a.log,
         audio_band_hz,
     };
-    OutputDir::check(
-        &dir,
-        &sweep::folder_producer(&spec, &sc.name, shard, a.force)?,
-    )?;
+    OutputDir::check(&dir, &sweep::folder_producer(&spec, &stem, shard, a.force)?)?;
     let opts = sweep::SweepOptions {
         threads: threads(a.threads)?,
         progress: !a.quiet,
@@ -182,11 +229,11 @@ pub fn sweep_line(result: &sweep::SweepResult, dir: &Path) -> String {
 }
 
 pub fn limit(a: LimitArgs) -> anyhow::Result<()> {
-    let text = ScenarioText::load(&a.scenario)?;
-    let sc = text.scenario()?;
+    let (text, _, stem) =
+        study_scenario(ScenarioText::load(&a.scenario)?, a.path.as_deref(), a.quiet)?;
     let dir = a
         .out
-        .unwrap_or_else(|| Path::new("out").join(format!("{}-limit", sc.name)));
+        .unwrap_or_else(|| Path::new("out").join(format!("{stem}-limit")));
     let opts = limit::LimitOptions {
         from_hz: a.from,
         to_hz: a.to,
@@ -197,7 +244,7 @@ pub fn limit(a: LimitArgs) -> anyhow::Result<()> {
         progress: !a.quiet && !a.json,
         ..Default::default()
     };
-    let producer = limit::folder_producer(&sc.name, &opts, a.force);
+    let producer = limit::folder_producer(&stem, &opts, a.force);
     OutputDir::check(&dir, &producer)?;
     interrupt::install_stop_handler("limit");
     let report = limit::find_limits(&text, &opts)?;

@@ -140,27 +140,54 @@ impl ScenarioText {
     /// `[[stage]]` tables (so `stage.N` keys address that path's stages), and the path's name. None for a
     /// scenario without paths.
     pub fn first_path_only(&self) -> Result<Option<(ScenarioText, String)>> {
+        self.path_only(None)
+    }
+
+    /// For a scenario with `[[path]]` tables: the scenario with only the path called `name` (the first when
+    /// None), as a plain chain of `[[stage]]` tables (so `stage.N` keys address that path's stages), and the
+    /// path's name. None for a scenario without paths; a name no path has is bad input that lists the names.
+    pub fn path_only(&self, name: Option<&str>) -> Result<Option<(ScenarioText, String)>> {
         let Some(paths) = self.doc.get("path").and_then(Value::as_array) else {
             return Ok(None);
         };
-        let Some(first) = paths.first().and_then(Value::as_table) else {
+        let named: Vec<(String, &Table)> = paths
+            .iter()
+            .enumerate()
+            .filter_map(|(i, p)| {
+                let t = p.as_table()?;
+                let n = t.get("name").and_then(Value::as_str);
+                Some((n.map_or_else(|| (i + 1).to_string(), str::to_string), t))
+            })
+            .collect();
+        let chosen = match name {
+            None => named.first(),
+            Some(want) => {
+                let found = named.iter().find(|(n, _)| n == want);
+                if found.is_none() {
+                    let names: Vec<String> =
+                        named.iter().map(|(n, _)| format!("\"{n}\"")).collect();
+                    return Err(Error::BadInput(format!(
+                        "{}: no [[path]] is named \"{want}\"; the paths are {} (give one of them)",
+                        self.origin,
+                        names.join(", ")
+                    )));
+                }
+                found
+            }
+        };
+        let Some((name, table)) = chosen else {
             return Ok(None);
         };
-        let name = first
-            .get("name")
-            .and_then(Value::as_str)
-            .unwrap_or("1")
-            .to_string();
         let mut doc = self.doc.clone();
         doc.remove("path");
-        if let Some(stages) = first.get("stage") {
+        if let Some(stages) = table.get("stage") {
             doc.insert("stage".into(), stages.clone());
         }
         let text = toml::to_string(&doc).map_err(|e| Error::Run(e.to_string()))?;
         let origin = format!("{} (path \"{name}\")", self.origin);
         Ok(Some((
             ScenarioText::new(text, origin, self.base_dir.clone())?,
-            name,
+            name.clone(),
         )))
     }
 
