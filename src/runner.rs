@@ -11,7 +11,7 @@ use crate::measure::chain::ChainMetrics;
 use crate::measure::chain::measure_run;
 use crate::measure::latency::LatencyOverTime;
 use crate::measure::paths::{TimedRecord, delay_between_s};
-use crate::report::csv::{CsvRows, rows_every};
+use crate::report::csv::{CsvRows, fastest_code_rate_hz, rows_every};
 use crate::report::json::{ListeningInfo, PathDelay, PathReport, PathsReport, Report};
 use crate::report::wav::{
     LISTEN_FADE_S, LISTEN_MIN_S, ListeningRecords, WavFormat, WavOptions, listening_files,
@@ -26,7 +26,8 @@ use crate::stages::kind::Upstream;
 /// How to run.
 #[derive(Debug, Clone)]
 pub struct RunOptions {
-    /// Every grid sample in waveforms.csv (else at most 1e6 rows).
+    /// Every grid sample in waveforms.csv (else 10 rows per period of the fastest ADC's codes, at most 1e6
+    /// rows; see [`rows_every`]).
     pub full_waveforms: bool,
     /// Every grid sample in waveforms.npy (else the rows of waveforms.csv).
     pub npy_full_rate: bool,
@@ -103,10 +104,16 @@ fn run_inner(
     opts: &RunOptions,
     capture: Option<&CompareCapture>,
 ) -> Result<Report> {
-    let (plan, _) = Plan::new(sc)?;
+    let (plan, planned) = Plan::new(sc)?;
     let (csv_file, csv_tmp) = out.create_temp("waveforms.csv")?;
     let (npy_file, npy_tmp) = out.create_temp("waveforms.npy")?;
-    let csv_every = rows_every(plan.n_total, opts.full_waveforms);
+    // The waveforms are the first path's (the scenario's own chain): its fastest codes set the default rows.
+    let csv_every = rows_every(
+        plan.n_total,
+        opts.full_waveforms,
+        plan.timebase.rate_hz,
+        fastest_code_rate_hz(&planned.stages),
+    );
     let npy_every = if opts.npy_full_rate { 1 } else { csv_every };
     let writers: Vec<Box<dyn RowWriter>> = vec![
         Box::new(CsvRows::from_file(csv_file, csv_tmp, csv_every)),
