@@ -269,8 +269,18 @@ pub fn simulate_and_measure(
         }
         None => None,
     };
-    let mut figs = if opts.figures {
-        phase("drawing the plots");
+    // The plots and the listening files are independent: drawn and made side by side (each figure's PNG and SVG
+    // side by side too); every output is computed alone, so the bytes are the same at any thread count.
+    phase(match (opts.figures, opts.wav.is_some()) {
+        (true, true) => "drawing the plots and making the listening files",
+        (true, false) => "drawing the plots",
+        (false, true) => "making the listening files",
+        (false, false) => "measuring",
+    });
+    let draw = || -> Result<Vec<figures::Figure>> {
+        if !opts.figures {
+            return Ok(Vec::new());
+        }
         let mut figs = figures::run_figures(&run, &metrics, opts.window_s)?;
         if let Some(first) = sc.paths.first() {
             let mut all: Vec<figures::PathShown<'_>> = vec![figures::PathShown {
@@ -285,14 +295,54 @@ pub fn simulate_and_measure(
             }));
             figs.extend(figures::path_figures(&all, opts.window_s)?);
         }
-        figs
-    } else {
-        Vec::new()
+        if let Some((rep, sim, cap, c)) = &compared {
+            figs.push(compare::figure(&run, c, rep, sim, cap)?);
+        }
+        Ok(figs)
     };
-    if let (true, Some((rep, sim, cap, c))) = (opts.figures, &compared) {
-        figs.push(compare::figure(&run, c, rep, sim, cap)?);
-    }
-    let alignment = metrics.detail.alignment;
+    let listen = || -> Option<Result<crate::report::wav::ListeningSet>> {
+        let w = opts.wav.as_ref()?;
+        // Gain-matched: the fitted gain when it is near the chain's nominal gain; otherwise (a signal lost in
+        // the chain, which a least-squares fit would answer with a gain near zero and a silent error file) the
+        // nominal gain, so the error file says what was lost.
+        let alignment = metrics.detail.alignment;
+        let nominal = nominal_gain(&run.scenario);
+        let fitted_ok = alignment.delay_s.is_finite()
+            && alignment.gain.is_finite()
+            && (20.0 * (alignment.gain / nominal).abs().log10()).abs() < 3.0;
+        let (delay, gain, offset) = if fitted_ok {
+            (alignment.delay_s, alignment.gain, alignment.offset_v)
+        } else {
+            (metrics.latency.measured_s, nominal, 0.0)
+        };
+        let records = ListeningRecords {
+            input_v: &run.source_record.volts,
+            output_v: &run.output_record.volts,
+            rate_hz: run.plan.out_rate_hz,
+            delay_s: delay,
+            gain,
+            offset_v: offset,
+            periodic: records_hold_whole_periods(
+                &run.scenario,
+                run.plan.out_rate_hz,
+                run.output_record.volts.len(),
+            ),
+            full_scale_floor_v: converter_full_scale_v(&run.scenario),
+            min_seconds: LISTEN_MIN_S,
+            fade_s: LISTEN_FADE_S,
+        };
+        Some(listening_files(&records, w))
+    };
+    // The listening files on a thread of their own (they read only the records, the scenario and the plan;
+    // the drawing reads the whole run, whose stages stay on this thread).
+    let (figs, listened) = std::thread::scope(|scope| {
+        let listening = scope.spawn(listen);
+        let figs = draw();
+        (figs, listening.join())
+    });
+    let listened =
+        listened.map_err(|_| Error::Run("the listening files' thread panicked".into()))?;
+    let figs = figs?;
     let mut report = Report::new(&run.scenario, &run.plan, metrics);
     if run.hops.len() > 1 {
         report.hops = Some(run.hops.clone());
@@ -353,37 +403,8 @@ pub fn simulate_and_measure(
         report.path_delays = path_delays;
     }
     let mut wav_files = None;
-    if let Some(w) = &opts.wav {
-        phase("making the listening files");
-        // Gain-matched: the fitted gain when it is near the chain's nominal gain; otherwise (a signal lost in
-        // the chain, which a least-squares fit would answer with a gain near zero and a silent error file) the
-        // nominal gain, so the error file says what was lost.
-        let nominal = nominal_gain(&run.scenario);
-        let fitted_ok = alignment.delay_s.is_finite()
-            && alignment.gain.is_finite()
-            && (20.0 * (alignment.gain / nominal).abs().log10()).abs() < 3.0;
-        let (delay, gain, offset) = if fitted_ok {
-            (alignment.delay_s, alignment.gain, alignment.offset_v)
-        } else {
-            (report.latency.measured_s, nominal, 0.0)
-        };
-        let records = ListeningRecords {
-            input_v: &run.source_record.volts,
-            output_v: &run.output_record.volts,
-            rate_hz: run.plan.out_rate_hz,
-            delay_s: delay,
-            gain,
-            offset_v: offset,
-            periodic: records_hold_whole_periods(
-                &run.scenario,
-                run.plan.out_rate_hz,
-                run.output_record.volts.len(),
-            ),
-            full_scale_floor_v: converter_full_scale_v(&run.scenario),
-            min_seconds: LISTEN_MIN_S,
-            fade_s: LISTEN_FADE_S,
-        };
-        match listening_files(&records, w) {
+    if let (Some(w), Some(listened)) = (&opts.wav, listened) {
+        match listened {
             Ok(set) => {
                 report.listening = Some(ListeningInfo {
                     rate_hz: set.rate_hz,
