@@ -132,22 +132,30 @@ fn run_inner(
     let json = serde_json::to_vec_pretty(&m.report).map_err(|e| Error::Run(e.to_string()))?;
     out.commit("waveforms.csv")?;
     out.commit("waveforms.npy")?;
+    // Every file written and synced side by side, then put in place in this order (report.json last).
+    let (md, html) = if opts.figures {
+        (
+            document::markdown(&m.report, &m.figs),
+            document::html(&m.report, &m.figs),
+        )
+    } else {
+        (String::new(), String::new())
+    };
+    let mut files: Vec<(String, &[u8])> = Vec::new();
     for f in &m.figs {
-        out.write(&format!("{}.png", f.name), &f.png)?;
-        out.write(&format!("{}.svg", f.name), f.svg.as_bytes())?;
+        files.push((format!("{}.png", f.name), &f.png));
+        files.push((format!("{}.svg", f.name), f.svg.as_bytes()));
     }
     if let Some(set) = &m.wav_files {
-        out.write("input.wav", &set.input)?;
-        out.write("output.wav", &set.output)?;
-        out.write("error.wav", &set.error)?;
+        files.push(("input.wav".into(), &set.input));
+        files.push(("output.wav".into(), &set.output));
+        files.push(("error.wav".into(), &set.error));
     }
     if opts.figures {
-        out.write(
-            "report.md",
-            document::markdown(&m.report, &m.figs).as_bytes(),
-        )?;
-        out.write("report.html", document::html(&m.report, &m.figs).as_bytes())?;
+        files.push(("report.md".into(), md.as_bytes()));
+        files.push(("report.html".into(), html.as_bytes()));
     }
+    out.write_many(&files)?;
     out.write("report.json", &json)?;
     if let Some(b) = m.spinner {
         b.finish_and_clear();
