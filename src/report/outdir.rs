@@ -686,8 +686,9 @@ impl OutputDir {
                 .collect();
             jobs.into_iter()
                 .map(|j| {
-                    j.join()
-                        .unwrap_or_else(|_| Err(Error::Run("a file writer's thread panicked".into())))
+                    j.join().unwrap_or_else(|_| {
+                        Err(Error::Run("a file writer's thread panicked".into()))
+                    })
                 })
                 .collect()
         });
@@ -771,7 +772,11 @@ mod tests {
         assert_eq!(fs::read(p.join("b.bin")).unwrap(), big);
         assert_eq!(fs::read(p.join("a.txt")).unwrap(), b"first");
         assert_eq!(fs::read(p.join("c.txt")).unwrap(), b"");
-        let names: Vec<String> = Manifest::read(&p).files.into_iter().map(|f| f.name).collect();
+        let names: Vec<String> = Manifest::read(&p)
+            .files
+            .into_iter()
+            .map(|f| f.name)
+            .collect();
         assert_eq!(names, ["b.bin", "a.txt", "c.txt"]);
         // No temporary is left.
         let left: Vec<_> = fs::read_dir(&p)
