@@ -36,7 +36,7 @@ enum Command {
         #[arg(long)]
         out: Option<PathBuf>,
         /// Write every grid sample to waveforms.csv instead of the default rows: 10 per period of the fastest
-        /// ADC's output codes (at most 1e6 rows; a chain without an ADC: at most 1e6 rows).
+        /// ADC's output codes, at most 1e6 rows (a chain without an ADC: as many as fit in 1e6 rows).
         #[arg(long)]
         full: bool,
         /// Write every analog grid step to waveforms.npy instead of waveforms.csv's rows. Large: 8 bytes per
