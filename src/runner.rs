@@ -11,7 +11,7 @@ use crate::measure::chain::ChainMetrics;
 use crate::measure::chain::measure_run;
 use crate::measure::latency::LatencyOverTime;
 use crate::measure::paths::{TimedRecord, delay_between_s};
-use crate::report::csv::{CsvRows, rows_every};
+use crate::report::csv::{CsvRows, fastest_code_rate_hz, rows_every};
 use crate::report::json::{ListeningInfo, PathDelay, PathReport, PathsReport, Report};
 use crate::report::wav::{
     LISTEN_FADE_S, LISTEN_MIN_S, ListeningRecords, WavFormat, WavOptions, listening_files,
@@ -26,7 +26,8 @@ use crate::stages::kind::Upstream;
 /// How to run.
 #[derive(Debug, Clone)]
 pub struct RunOptions {
-    /// Every grid sample in waveforms.csv (else at most 1e6 rows).
+    /// Every grid sample in waveforms.csv (else 10 rows per period of the fastest ADC's codes, at most 1e6
+    /// rows; see [`rows_every`]).
     pub full_waveforms: bool,
     /// Every grid sample in waveforms.npy (else the rows of waveforms.csv).
     pub npy_full_rate: bool,
@@ -103,10 +104,16 @@ fn run_inner(
     opts: &RunOptions,
     capture: Option<&CompareCapture>,
 ) -> Result<Report> {
-    let (plan, _) = Plan::new(sc)?;
+    let (plan, planned) = Plan::new(sc)?;
     let (csv_file, csv_tmp) = out.create_temp("waveforms.csv")?;
     let (npy_file, npy_tmp) = out.create_temp("waveforms.npy")?;
-    let csv_every = rows_every(plan.n_total, opts.full_waveforms);
+    // The waveforms are the first path's (the scenario's own chain): its fastest codes set the default rows.
+    let csv_every = rows_every(
+        plan.n_total,
+        opts.full_waveforms,
+        plan.timebase.rate_hz,
+        fastest_code_rate_hz(&planned.stages),
+    );
     let npy_every = if opts.npy_full_rate { 1 } else { csv_every };
     let writers: Vec<Box<dyn RowWriter>> = vec![
         Box::new(CsvRows::from_file(csv_file, csv_tmp, csv_every)),
@@ -125,22 +132,30 @@ fn run_inner(
     let json = serde_json::to_vec_pretty(&m.report).map_err(|e| Error::Run(e.to_string()))?;
     out.commit("waveforms.csv")?;
     out.commit("waveforms.npy")?;
+    // Every file written and synced side by side, then put in place in this order (report.json last).
+    let (md, html) = if opts.figures {
+        (
+            document::markdown(&m.report, &m.figs),
+            document::html(&m.report, &m.figs),
+        )
+    } else {
+        (String::new(), String::new())
+    };
+    let mut files: Vec<(String, &[u8])> = Vec::new();
     for f in &m.figs {
-        out.write(&format!("{}.png", f.name), &f.png)?;
-        out.write(&format!("{}.svg", f.name), f.svg.as_bytes())?;
+        files.push((format!("{}.png", f.name), &f.png));
+        files.push((format!("{}.svg", f.name), f.svg.as_bytes()));
     }
     if let Some(set) = &m.wav_files {
-        out.write("input.wav", &set.input)?;
-        out.write("output.wav", &set.output)?;
-        out.write("error.wav", &set.error)?;
+        files.push(("input.wav".into(), &set.input));
+        files.push(("output.wav".into(), &set.output));
+        files.push(("error.wav".into(), &set.error));
     }
     if opts.figures {
-        out.write(
-            "report.md",
-            document::markdown(&m.report, &m.figs).as_bytes(),
-        )?;
-        out.write("report.html", document::html(&m.report, &m.figs).as_bytes())?;
+        files.push(("report.md".into(), md.as_bytes()));
+        files.push(("report.html".into(), html.as_bytes()));
     }
+    out.write_many(&files)?;
     out.write("report.json", &json)?;
     if let Some(b) = m.spinner {
         b.finish_and_clear();
@@ -262,8 +277,18 @@ pub fn simulate_and_measure(
         }
         None => None,
     };
-    let mut figs = if opts.figures {
-        phase("drawing the plots");
+    // The plots and the listening files are independent: drawn and made side by side (each figure's PNG and SVG
+    // side by side too); every output is computed alone, so the bytes are the same at any thread count.
+    phase(match (opts.figures, opts.wav.is_some()) {
+        (true, true) => "drawing the plots and making the listening files",
+        (true, false) => "drawing the plots",
+        (false, true) => "making the listening files",
+        (false, false) => "measuring",
+    });
+    let draw = || -> Result<Vec<figures::Figure>> {
+        if !opts.figures {
+            return Ok(Vec::new());
+        }
         let mut figs = figures::run_figures(&run, &metrics, opts.window_s)?;
         if let Some(first) = sc.paths.first() {
             let mut all: Vec<figures::PathShown<'_>> = vec![figures::PathShown {
@@ -278,14 +303,54 @@ pub fn simulate_and_measure(
             }));
             figs.extend(figures::path_figures(&all, opts.window_s)?);
         }
-        figs
-    } else {
-        Vec::new()
+        if let Some((rep, sim, cap, c)) = &compared {
+            figs.push(compare::figure(&run, c, rep, sim, cap)?);
+        }
+        Ok(figs)
     };
-    if let (true, Some((rep, sim, cap, c))) = (opts.figures, &compared) {
-        figs.push(compare::figure(&run, c, rep, sim, cap)?);
-    }
-    let alignment = metrics.detail.alignment;
+    let listen = || -> Option<Result<crate::report::wav::ListeningSet>> {
+        let w = opts.wav.as_ref()?;
+        // Gain-matched: the fitted gain when it is near the chain's nominal gain; otherwise (a signal lost in
+        // the chain, which a least-squares fit would answer with a gain near zero and a silent error file) the
+        // nominal gain, so the error file says what was lost.
+        let alignment = metrics.detail.alignment;
+        let nominal = nominal_gain(&run.scenario);
+        let fitted_ok = alignment.delay_s.is_finite()
+            && alignment.gain.is_finite()
+            && (20.0 * (alignment.gain / nominal).abs().log10()).abs() < 3.0;
+        let (delay, gain, offset) = if fitted_ok {
+            (alignment.delay_s, alignment.gain, alignment.offset_v)
+        } else {
+            (metrics.latency.measured_s, nominal, 0.0)
+        };
+        let records = ListeningRecords {
+            input_v: &run.source_record.volts,
+            output_v: &run.output_record.volts,
+            rate_hz: run.plan.out_rate_hz,
+            delay_s: delay,
+            gain,
+            offset_v: offset,
+            periodic: records_hold_whole_periods(
+                &run.scenario,
+                run.plan.out_rate_hz,
+                run.output_record.volts.len(),
+            ),
+            full_scale_floor_v: converter_full_scale_v(&run.scenario),
+            min_seconds: LISTEN_MIN_S,
+            fade_s: LISTEN_FADE_S,
+        };
+        Some(listening_files(&records, w))
+    };
+    // The listening files on a thread of their own (they read only the records, the scenario and the plan;
+    // the drawing reads the whole run, whose stages stay on this thread).
+    let (figs, listened) = std::thread::scope(|scope| {
+        let listening = scope.spawn(listen);
+        let figs = draw();
+        (figs, listening.join())
+    });
+    let listened =
+        listened.map_err(|_| Error::Run("the listening files' thread panicked".into()))?;
+    let figs = figs?;
     let mut report = Report::new(&run.scenario, &run.plan, metrics);
     if run.hops.len() > 1 {
         report.hops = Some(run.hops.clone());
@@ -346,37 +411,8 @@ pub fn simulate_and_measure(
         report.path_delays = path_delays;
     }
     let mut wav_files = None;
-    if let Some(w) = &opts.wav {
-        phase("making the listening files");
-        // Gain-matched: the fitted gain when it is near the chain's nominal gain; otherwise (a signal lost in
-        // the chain, which a least-squares fit would answer with a gain near zero and a silent error file) the
-        // nominal gain, so the error file says what was lost.
-        let nominal = nominal_gain(&run.scenario);
-        let fitted_ok = alignment.delay_s.is_finite()
-            && alignment.gain.is_finite()
-            && (20.0 * (alignment.gain / nominal).abs().log10()).abs() < 3.0;
-        let (delay, gain, offset) = if fitted_ok {
-            (alignment.delay_s, alignment.gain, alignment.offset_v)
-        } else {
-            (report.latency.measured_s, nominal, 0.0)
-        };
-        let records = ListeningRecords {
-            input_v: &run.source_record.volts,
-            output_v: &run.output_record.volts,
-            rate_hz: run.plan.out_rate_hz,
-            delay_s: delay,
-            gain,
-            offset_v: offset,
-            periodic: records_hold_whole_periods(
-                &run.scenario,
-                run.plan.out_rate_hz,
-                run.output_record.volts.len(),
-            ),
-            full_scale_floor_v: converter_full_scale_v(&run.scenario),
-            min_seconds: LISTEN_MIN_S,
-            fade_s: LISTEN_FADE_S,
-        };
-        match listening_files(&records, w) {
+    if let (Some(w), Some(listened)) = (&opts.wav, listened) {
+        match listened {
             Ok(set) => {
                 report.listening = Some(ListeningInfo {
                     rate_hz: set.rate_hz,

@@ -421,3 +421,55 @@ fn init_names_the_scenario_after_its_file() {
     assert!(text.contains("name = \"my-chain\""), "{text}");
     ok(&run_in(d.path(), &["check", "my-chain.toml"]));
 }
+
+#[test]
+fn every_file_of_a_run_is_the_same_bytes_at_any_thread_count() {
+    // The plots (PNG and SVG side by side) and the listening files are made alongside each other on the
+    // thread pool and a thread of their own: one, two and three pool threads must write the same bytes.
+    let d = tempfile::tempdir().unwrap();
+    let sc = common::repo("scenarios/four-bit-listen.toml");
+    let folder = |threads: &str| {
+        let out = d.path().join(format!("t{threads}"));
+        let o = common::bin()
+            .env("RAYON_NUM_THREADS", threads)
+            .args([
+                "run",
+                sc.to_str().unwrap(),
+                "--out",
+                out.to_str().unwrap(),
+                "-q",
+            ])
+            .output()
+            .unwrap();
+        ok(&o);
+        let mut files: Vec<(String, Vec<u8>)> = fs::read_dir(&out)
+            .unwrap()
+            .map(|e| {
+                let p = e.unwrap().path();
+                let name = p.file_name().unwrap().to_string_lossy().to_string();
+                (name, fs::read(&p).unwrap())
+            })
+            .collect();
+        files.sort();
+        files
+    };
+    let one = folder("1");
+    assert!(
+        one.iter().any(|(n, _)| n == "waveform.png"),
+        "plots written"
+    );
+    assert!(
+        one.iter().any(|(n, _)| n == "output.wav"),
+        "WAV files written"
+    );
+    for threads in ["2", "3"] {
+        let other = folder(threads);
+        assert_eq!(
+            one.iter().map(|f| &f.0).collect::<Vec<_>>(),
+            other.iter().map(|f| &f.0).collect::<Vec<_>>()
+        );
+        for ((name, a), (_, b)) in one.iter().zip(&other) {
+            assert!(a == b, "{name} differs at {threads} threads");
+        }
+    }
+}

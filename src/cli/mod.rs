@@ -35,7 +35,8 @@ enum Command {
         /// Output folder (default out/<name>/).
         #[arg(long)]
         out: Option<PathBuf>,
-        /// Write every grid sample to waveforms.csv instead of at most 1e6 rows.
+        /// Write every grid sample to waveforms.csv instead of the default rows: 10 per period of the fastest
+        /// ADC's output codes, at most 1e6 rows (a chain without an ADC: as many as fit in 1e6 rows).
         #[arg(long)]
         full: bool,
         /// Write every analog grid step to waveforms.npy instead of waveforms.csv's rows. Large: 8 bytes per

@@ -9,16 +9,46 @@ use crate::error::{Error, Result};
 use crate::report::waveforms::{RowBatch, RowWriter};
 use crate::signal::stream::Timebase;
 
-/// Default cap on rows.
+/// Upper bound on the default rows.
 pub const MAX_ROWS: u64 = 1_000_000;
 
-/// The grid stride of the default rows: every grid sample when `full`, else every `every`-th so that at most
-/// [`MAX_ROWS`] rows are written for `n_total` grid samples.
-pub fn rows_every(n_total: u64, full: bool) -> u64 {
+/// Default rows per period of the chain's fastest code stream (see [`fastest_code_rate_hz`]).
+pub const ROWS_PER_CODE_PERIOD: u64 = 10;
+
+/// The nominal rate (Hz) of the fastest code stream in a chain's stages: every ADC's output sample rate (a
+/// delta-sigma ADC's output word rate, not its modulator clock), and a `resample` stage's output rate, which
+/// is the rate the codes reach the DAC at. `clock_ppm` offsets are left out, so a clock written a few ppm off
+/// keeps the stride of its nominal rate. `None` for a chain without an ADC.
+pub fn fastest_code_rate_hz(stages: &[crate::scenario::Stage]) -> Option<f64> {
+    let mut up = crate::stages::kind::Upstream::default();
+    let mut fastest: Option<f64> = None;
+    for s in stages {
+        s.kind.pass_on(&mut up);
+        if let Some(f) = up.sample_rate_hz.filter(|f| f.is_finite() && *f > 0.0) {
+            fastest = Some(fastest.map_or(f, |g| g.max(f)));
+        }
+    }
+    fastest
+}
+
+/// The grid stride of the default rows of waveforms.csv (and of waveforms.npy without `--npy-full-rate`):
+/// every grid sample when `full`; else [`ROWS_PER_CODE_PERIOD`] rows per period of the fastest code stream
+/// `code_rate_hz` (grid steps per row `floor(grid_rate_hz / (10 code_rate_hz))`, at least 1), thinned further
+/// when that would pass [`MAX_ROWS`] rows for `n_total` grid samples; a chain without an ADC (`None`) gets
+/// the least thinning that stays within [`MAX_ROWS`].
+pub fn rows_every(n_total: u64, full: bool, grid_rate_hz: f64, code_rate_hz: Option<f64>) -> u64 {
     if full {
-        1
-    } else {
-        n_total.div_ceil(MAX_ROWS).max(1)
+        return 1;
+    }
+    let cap = n_total.div_ceil(MAX_ROWS).max(1);
+    match code_rate_hz {
+        Some(f) => {
+            let per_row = (grid_rate_hz / (ROWS_PER_CODE_PERIOD as f64 * f)).floor();
+            // `as` saturates: a rate far below the grid's gives a stride longer than the run (one row).
+            let stride = if per_row >= 1.0 { per_row as u64 } else { 1 };
+            stride.max(cap)
+        }
+        None => cap,
     }
 }
 
@@ -155,10 +185,62 @@ mod tests {
     }
 
     #[test]
-    fn default_rows_stay_under_the_cap() {
-        assert_eq!(rows_every(10_000_000, false), 10);
-        assert_eq!(rows_every(10_000_001, false), 11);
-        assert_eq!(rows_every(999, false), 1);
-        assert_eq!(rows_every(10_000_000, true), 1);
+    fn default_rows_stay_under_the_cap_without_an_adc() {
+        assert_eq!(rows_every(10_000_000, false, 10e6, None), 10);
+        assert_eq!(rows_every(10_000_001, false, 10e6, None), 11);
+        assert_eq!(rows_every(999, false, 10e6, None), 1);
+        assert_eq!(rows_every(10_000_000, true, 10e6, None), 1);
+    }
+
+    #[test]
+    fn default_rows_are_ten_per_period_of_the_fastest_codes() {
+        // The reference chain (benches/reference-chain.toml): 10 MHz grid, 100 kHz ADC: every 10th step, at
+        // 0.1 s (1e6 steps, 1e5 rows) as at 1 s (1e7 steps, 1e6 rows).
+        assert_eq!(rows_every(1_000_000, false, 10e6, Some(100e3)), 10);
+        assert_eq!(rows_every(10_000_000, false, 10e6, Some(100e3)), 10);
+        // The cap still bounds a long run: 10 s would be 1e7 rows at 10 a period.
+        assert_eq!(rows_every(100_000_000, false, 10e6, Some(100e3)), 100);
+        // Floor: 30 kHz on 1 MHz is 3.33 steps a row -> 3.
+        assert_eq!(rows_every(1_000, false, 1e6, Some(30e3)), 3);
+        // An ADC faster than a tenth of the grid: every step.
+        assert_eq!(rows_every(1_000, false, 1e6, Some(400e3)), 1);
+        assert_eq!(rows_every(1_000, false, 1e6, Some(f64::INFINITY)), 1);
+        // --full wins.
+        assert_eq!(rows_every(10_000_000, true, 10e6, Some(100e3)), 1);
+    }
+
+    fn stages(toml_stages: &str) -> Vec<crate::scenario::Stage> {
+        let text = format!(
+            "name = \"t\"\n[simulation]\nanalog_rate = \"10 MHz\"\nduration = \"10 ms\"\n\
+             [source]\nwaveform = \"sine\"\nfrequency = \"1 kHz\"\namplitude = \"1 V\"\n{toml_stages}"
+        );
+        crate::scenario::parse_str(&text, "t.toml", std::path::Path::new("."))
+            .unwrap()
+            .stages
+    }
+
+    #[test]
+    fn the_fastest_code_stream_sets_the_rate() {
+        let sar = |fs: &str, ppm: &str| {
+            format!(
+                "[[stage]]\nkind = \"sar_adc\"\nbits = 8\nrange = [\"-1 V\", \"1 V\"]\nsample_rate = \"{fs}\"\n\
+                 conversion_time = \"2 us\"\n{ppm}[[stage]]\nkind = \"dac\"\n"
+            )
+        };
+        assert_eq!(fastest_code_rate_hz(&stages("")), None);
+        assert_eq!(
+            fastest_code_rate_hz(&stages(&sar("100 kHz", ""))),
+            Some(100e3)
+        );
+        // Hops in series: the fastest ADC of the chain.
+        let two = format!("{}{}", sar("48 kHz", ""), sar("200 kHz", ""));
+        assert_eq!(fastest_code_rate_hz(&stages(&two)), Some(200e3));
+        // A clock written off by some ppm keeps its nominal rate.
+        let off = sar("100 kHz", "clock_ppm = 30\n");
+        assert_eq!(fastest_code_rate_hz(&stages(&off)), Some(100e3));
+        // A delta-sigma ADC: its output word rate, not its modulator clock.
+        let ds = "[[stage]]\nkind = \"delta_sigma_adc\"\nbits = 16\nrange = [\"-1 V\", \"1 V\"]\n\
+                  sample_rate = \"48 kHz\"\noversampling = 64\n[[stage]]\nkind = \"dac\"\n";
+        assert_eq!(fastest_code_rate_hz(&stages(ds)), Some(48e3));
     }
 }

@@ -28,8 +28,13 @@ pub struct Figure {
 }
 
 fn figure(name: &str, caption: String, plot: &Plot) -> Result<Figure> {
-    let (svg, summary) = render_svg(plot)?;
-    let (png, _) = render_png(plot, PNG_SIZE.0, PNG_SIZE.1)?;
+    // The two renderings read the plot and nothing else: side by side, the same bytes at any thread count.
+    let (svg, png) = rayon::join(
+        || render_svg(plot),
+        || render_png(plot, PNG_SIZE.0, PNG_SIZE.1),
+    );
+    let (svg, summary) = svg?;
+    let (png, _) = png?;
     Ok(Figure {
         name: name.to_string(),
         caption,

@@ -659,6 +659,48 @@ impl OutputDir {
         self.commit(name)
     }
 
+    /// Write several whole files atomically, as [`OutputDir::write`] each: their temporaries are written and
+    /// synced to disk side by side (one thread each: the syncs wait on the disk, not the processor, and the
+    /// file system commits them together), then renamed into place one by one in the order given, so the
+    /// manifest lists them in that order whatever the timing. On an error the files not yet renamed are left
+    /// as temporaries for [`OutputDir::abandon`].
+    pub fn write_many(&self, files: &[(String, &[u8])]) -> Result<()> {
+        let mut temps = Vec::with_capacity(files.len());
+        for (name, _) in files {
+            temps.push(self.create_temp(name)?);
+        }
+        let written: Vec<Result<()>> = std::thread::scope(|scope| {
+            let jobs: Vec<_> = temps
+                .into_iter()
+                .zip(files)
+                .map(|((mut f, tmp), (_, bytes))| {
+                    scope.spawn(move || {
+                        f.write_all(bytes)
+                            .and_then(|_| f.sync_all())
+                            .map_err(|e| Error::Write {
+                                path: tmp,
+                                source: e,
+                            })
+                    })
+                })
+                .collect();
+            jobs.into_iter()
+                .map(|j| {
+                    j.join().unwrap_or_else(|_| {
+                        Err(Error::Run("a file writer's thread panicked".into()))
+                    })
+                })
+                .collect()
+        });
+        for r in written {
+            r?;
+        }
+        for (name, _) in files {
+            self.commit(name)?;
+        }
+        Ok(())
+    }
+
     /// After a failure: remove this process's temporary files, and the folder itself if this run created it
     /// and it holds nothing else. Nothing else is touched.
     pub fn abandon(self) {
@@ -712,6 +754,37 @@ mod tests {
             .map(|e| e.unwrap().file_name())
             .collect();
         assert_eq!(names.len(), 2, "{names:?}");
+    }
+
+    #[test]
+    fn several_files_written_together_land_whole_and_listed_in_order() {
+        let d = tempfile::tempdir().unwrap();
+        let p = d.path().join("o");
+        let out = OutputDir::create(&p, &Producer::run(false)).unwrap();
+        let big = vec![7u8; 3 << 20];
+        let files: Vec<(String, &[u8])> = vec![
+            ("b.bin".into(), &big[..]),
+            ("a.txt".into(), b"first"),
+            ("c.txt".into(), b""),
+        ];
+        out.write_many(&files).unwrap();
+        out.finish().unwrap();
+        assert_eq!(fs::read(p.join("b.bin")).unwrap(), big);
+        assert_eq!(fs::read(p.join("a.txt")).unwrap(), b"first");
+        assert_eq!(fs::read(p.join("c.txt")).unwrap(), b"");
+        let names: Vec<String> = Manifest::read(&p)
+            .files
+            .into_iter()
+            .map(|f| f.name)
+            .collect();
+        assert_eq!(names, ["b.bin", "a.txt", "c.txt"]);
+        // No temporary is left.
+        let left: Vec<_> = fs::read_dir(&p)
+            .unwrap()
+            .map(|e| e.unwrap().file_name().to_string_lossy().to_string())
+            .filter(|n| n.ends_with(".tmp"))
+            .collect();
+        assert!(left.is_empty(), "{left:?}");
     }
 
     #[test]
