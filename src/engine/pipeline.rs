@@ -87,6 +87,10 @@ pub struct HopSummary {
     /// Slips of the FIFO between the hop's codes and its DAC's own clock (`None`: no clock crossing).
     #[serde(skip_serializing_if = "Option::is_none")]
     pub slips: Option<u64>,
+    /// Their instants (s), the first [`SLIP_TIMES_MAX`](crate::engine::clock::SLIP_TIMES_MAX): slip n of the
+    /// hop in the `fifo_fill` plot is the n-th.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub slip_times_s: Option<Vec<f64>>,
     /// Packets the hop's network stages lost.
     pub packets_lost: u64,
 }
@@ -858,6 +862,7 @@ fn run_with(
                     .sum(),
                 codes_clipped: hop_clipped[h],
                 slips: c.crossing.as_ref().map(|x| x.record().slips),
+                slip_times_s: c.crossing.as_ref().map(|x| x.record().slip_times_s.clone()),
                 packets_lost: c.code.iter().map(|l| l.packets_lost()).sum(),
             }
         })
@@ -932,10 +937,21 @@ fn combine_slips<'a>(records: impl Iterator<Item = &'a SlipRecord>) -> Option<Sl
                 o.slips += r.slips;
                 o.repeated += r.repeated;
                 o.dropped += r.dropped;
-                o.slip_times_s.extend_from_slice(&r.slip_times_s);
-                o.slip_times_s.sort_by(f64::total_cmp);
-                o.slip_times_s
-                    .truncate(crate::engine::clock::SLIP_TIMES_MAX);
+                let mut both: Vec<(f64, bool)> = o
+                    .slip_times_s
+                    .iter()
+                    .copied()
+                    .zip(o.slip_dropped.iter().copied())
+                    .chain(
+                        r.slip_times_s
+                            .iter()
+                            .copied()
+                            .zip(r.slip_dropped.iter().copied()),
+                    )
+                    .collect();
+                both.sort_by(|a, b| a.0.total_cmp(&b.0));
+                both.truncate(crate::engine::clock::SLIP_TIMES_MAX);
+                (o.slip_times_s, o.slip_dropped) = both.into_iter().unzip();
             }
         }
     }
