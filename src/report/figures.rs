@@ -99,6 +99,16 @@ pub fn default_window_s(run: &RunOutput, delay_s: Option<f64>) -> (f64, f64) {
     ((w1 - width).max(start), w1)
 }
 
+/// The legend's names of the converters whose samples and hold levels the waveform marks (the first hop's),
+/// when the chain has several hops: ("hop 1's ADC (its label)", "hop 1's DAC (its label)").
+fn first_hop_names(run: &RunOutput) -> Option<(String, String)> {
+    let c = run.chain.converter().filter(|_| run.chain.hops.len() > 1)?;
+    Some((
+        format!("hop 1's ADC ({})", c.quantizer_label),
+        format!("hop 1's DAC ({})", c.reconstructor_label),
+    ))
+}
+
 /// Waveform, output spectrum, ADC spectrum and latency budget.
 pub fn run_figures(
     run: &RunOutput,
@@ -175,16 +185,28 @@ pub fn run_figures(
         sample_instants_s: &s_t,
         sample_values_v: &s_v,
         staircase: (!st_t.is_empty()).then_some((&st_t[..], &st_v[..])),
+        converters: first_hop_names(run),
         measured_delay_s: Some(m.latency.measured_s),
         window_s: (t0, t1),
         sampled_trace,
         aligned_output: has_aligned.then_some(&aligned[..]),
     });
+    let hops_note = if run.chain.hops.len() > 1 {
+        format!(
+            " (with {} hops in series, the samples and hold levels marked are hop 1's; each later hop's DAC \
+             and the stages after it are the intermediate traces)",
+            run.chain.hops.len()
+        )
+    } else {
+        String::new()
+    };
     figs.push(figure(
         "waveform",
-        "Input (source) against output, with the ADC's samples on the signal it samples and the DAC's \
-         zero-order hold; below, the output shifted back by the measured delay over the input, and the error"
-            .into(),
+        format!(
+            "Input (source) against output, with the ADC's samples on the signal it samples and the DAC's \
+             zero-order hold{hops_note}; below, the output shifted back by the measured delay over the input, \
+             and the error"
+        ),
         &wave,
     )?);
 
@@ -746,6 +768,20 @@ mod tests {
         assert_eq!(all.slips, plot.fifos.iter().map(|f| f.slips).sum::<u64>());
         let (_, summary) = crate::report::plot::render_svg(&Plot::Fifo(plot)).unwrap();
         assert_eq!(summary.series, 2);
+        // The waveform names the hop whose converters it marks.
+        let m = crate::measure::chain::measure_run(&run.records()).unwrap();
+        let figs = run_figures(&run, &m, None).unwrap();
+        let wave = figs.iter().find(|f| f.name == "waveform").unwrap();
+        assert!(wave.caption.contains("hop 1's"), "{}", wave.caption);
+        assert!(
+            wave.summary
+                .labels
+                .iter()
+                .any(|l| l == "hop 1's DAC (stage.2 dac) hold levels"),
+            "{:?}",
+            wave.summary.labels
+        );
+        assert!(figs.iter().any(|f| f.name == "fifo_fill"));
     }
 
     #[test]

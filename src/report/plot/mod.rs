@@ -92,6 +92,10 @@ pub struct WaveformPlot<'a> {
     pub sample_values_v: &'a [f64],
     /// DAC zero-order-hold levels: (update instants in s, levels in V), drawn as a step line.
     pub staircase: Option<(&'a [f64], &'a [f64])>,
+    /// Whose samples and hold levels these are, for the legend when the chain has several hops: (the ADC's
+    /// name, the DAC's name), e.g. ("hop 1's ADC (studio SAR)", "hop 1's DAC (repeater DAC)"); `None`: "the
+    /// ADC" and "DAC".
+    pub converters: Option<(String, String)>,
     /// Measured input-to-output delay, s: shown as a note and as an arrow between a rising crossing of the
     /// input and the same level one delay later.
     pub measured_delay_s: Option<f64>,
