@@ -367,6 +367,9 @@ pub fn simulate_and_measure(
         report.scenario.warnings.push(slip.text());
         report.warnings.push(slip);
     }
+    if let Some(note) = crate::report::table::record_slips_note(&report.latency) {
+        report.scenario.warnings.push(note);
+    }
     if let Some(first) = sc.paths.first() {
         let mut paths = vec![(
             first.name.clone(),

@@ -279,3 +279,81 @@ fn each_hop_on_its_own_clocks_counts_its_own_slips() {
         assert!(!w["message"].as_str().unwrap().contains("whole"), "{w}");
     }
 }
+
+/// Two hops whose DACs run `ppm` off their SARs' clocks, over `duration` with `settle`, run like a user would;
+/// with plots (report.md and report.html are written with them); returns report.json.
+fn run_drifting(dir: &Path, ppm: [i32; 2], duration: &str, settle: &str) -> serde_json::Value {
+    let dac = |ppm: i32| format!("kind = \"dac\"\nclock_ppm = {ppm}\n");
+    let hops: Vec<String> = ppm
+        .iter()
+        .map(|&p| hop(16, "1 ms").replace("kind = \"dac\"\n", &dac(p)))
+        .collect();
+    std::fs::create_dir_all(dir).unwrap();
+    let path = dir.join("s.toml");
+    let head = HEAD
+        .replace(
+            "duration = \"120 ms\"",
+            &format!("duration = \"{duration}\""),
+        )
+        .replace("settle = \"20 ms\"", &format!("settle = \"{settle}\""));
+    std::fs::write(&path, format!("{head}{}{TAIL}", hops.concat())).unwrap();
+    let out = dir.join("out");
+    ok(&run(&["run", s(&path), "--out", s(&out), "-q", "--no-wav"]));
+    json(&out.join("report.json"))
+}
+
+#[test]
+fn slips_inside_the_record_are_counted_and_explained() {
+    let tmp = tempfile::tempdir().unwrap();
+    // Hop 1's DAC 2000 ppm fast, hop 2's 1500 ppm slow: 96 and 72 slips a second once the FIFOs' headroom is
+    // used up (drift |ppm| 1e-6 x 48 kSPS, one slip per sample of drift: the construction tests/clocks.rs
+    // checks), so a record of L seconds late in the run holds 168 L slips, within one per hop.
+    let r = run_drifting(&tmp.path().join("a"), [2000, -1500], "400 ms", "300 ms");
+    let l = &r["latency"];
+    let inside = l["slips_in_record"].as_u64().expect("slips_in_record");
+    let len_s = r["output"]["record_length"].as_f64().unwrap()
+        / r["run"]["output_analysis_rate_hz"].as_f64().unwrap();
+    let want = 168.0 * len_s;
+    eprintln!("{inside} slips inside a record of {len_s} s ({want} expected)");
+    assert!((inside as f64 - want).abs() <= 2.0, "{inside} vs {want}");
+    assert!(inside <= l["slips"].as_u64().unwrap());
+    let warnings: Vec<&str> = r["scenario"]["warnings"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|w| w.as_str().unwrap())
+        .collect();
+    let note = warnings
+        .iter()
+        .find(|w| w.contains("inside the analysis record"))
+        .unwrap_or_else(|| panic!("{warnings:?}"));
+    assert!(note.starts_with(&format!("{inside} clock slips")), "{note}");
+    assert!(
+        note.contains("SINAD") && note.contains("mode = \"async\""),
+        "{note}"
+    );
+    let md = std::fs::read_to_string(tmp.path().join("a/out/report.md")).unwrap();
+    assert!(md.contains("inside the analysis record"));
+    let html = std::fs::read_to_string(tmp.path().join("a/out/report.html")).unwrap();
+    assert!(html.contains("inside the analysis record"));
+    assert!(tmp.path().join("a/out/fifo_fill.png").exists());
+
+    let sinad_slipping = r["output"]["sinad_db"].as_f64().unwrap();
+
+    // Hop 1's DAC 300 ppm fast alone: its first slip (after 3 codes of headroom, 3 / (300e-6 x 48e3) = 0.21 s
+    // after the FIFO starts) comes before a record starting at 225 ms and the next 69 ms later, after the run
+    // ends: one slip, none inside, no note; and the record's SINAD is the converters', not the slips'.
+    let r = run_drifting(&tmp.path().join("b"), [300, 0], "270 ms", "225 ms");
+    let sinad_clean = r["output"]["sinad_db"].as_f64().unwrap();
+    eprintln!("SINAD {sinad_slipping} dB with the slips in the record, {sinad_clean} dB without");
+    assert_eq!(r["latency"]["slips"].as_u64(), Some(1));
+    assert_eq!(r["latency"]["slips_in_record"].as_u64(), Some(0));
+    assert!(sinad_clean > sinad_slipping + 20.0);
+    assert!(
+        r["scenario"]["warnings"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .all(|w| !w.as_str().unwrap().contains("inside the analysis record"))
+    );
+}

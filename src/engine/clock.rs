@@ -178,6 +178,10 @@ pub struct SlipRecord {
     pub dropped: u64,
     /// Instants of the first [`SLIP_TIMES_MAX`] slips (s).
     pub slip_times_s: Vec<f64>,
+    /// For each instant in `slip_times_s`: true where a code was dropped (the FIFO full), false where one was
+    /// repeated (the FIFO empty).
+    #[serde(skip)]
+    pub slip_dropped: Vec<bool>,
     /// FIFO depth (codes).
     pub depth: u32,
     /// The fill over time: (instant, lowest fill, highest fill) over each stretch of ticks.
@@ -221,10 +225,11 @@ impl FifoCrossing {
         self.t0_s.unwrap_or(0.0) + j as f64 / self.timing.tick_rate_hz
     }
 
-    fn slip(&mut self, t_s: f64) {
+    fn slip(&mut self, t_s: f64, dropped: bool) {
         self.record.slips += 1;
         if self.record.slip_times_s.len() < SLIP_TIMES_MAX {
             self.record.slip_times_s.push(t_s);
+            self.record.slip_dropped.push(dropped);
         }
     }
 
@@ -252,7 +257,7 @@ impl FifoCrossing {
                 None => {
                     // Empty: the DAC holds (repeats) its last code.
                     self.record.repeated += 1;
-                    self.slip(t_tick);
+                    self.slip(t_tick, false);
                 }
             }
             self.note_fill();
@@ -287,7 +292,7 @@ impl FifoCrossing {
         self.advance_to(ev.t_avail_s, out);
         if self.queue.len() >= self.timing.depth as usize {
             self.record.dropped += 1;
-            self.slip(ev.t_avail_s);
+            self.slip(ev.t_avail_s, true);
         } else {
             self.queue.push_back(ev);
         }
@@ -383,6 +388,9 @@ mod tests {
                 rec.slip_times_s.len(),
                 (rec.slips as usize).min(SLIP_TIMES_MAX)
             );
+            // Each recorded slip says what it did: all drops for a slow reader, all repeats for a fast one.
+            assert_eq!(rec.slip_dropped.len(), rec.slip_times_s.len());
+            assert!(rec.slip_dropped.iter().all(|&d| d == (ppm < 0.0)));
         }
     }
 }

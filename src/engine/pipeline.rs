@@ -87,6 +87,10 @@ pub struct HopSummary {
     /// Slips of the FIFO between the hop's codes and its DAC's own clock (`None`: no clock crossing).
     #[serde(skip_serializing_if = "Option::is_none")]
     pub slips: Option<u64>,
+    /// Their instants (s), the first [`SLIP_TIMES_MAX`](crate::engine::clock::SLIP_TIMES_MAX): slip n of the
+    /// hop in the `fifo_fill` plot is the n-th.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub slip_times_s: Option<Vec<f64>>,
     /// Packets the hop's network stages lost.
     pub packets_lost: u64,
 }
@@ -118,6 +122,8 @@ pub struct RunOutput {
     pub bits_flipped: u64,
     /// What the FIFO between the codes' clock and the DAC's own clock recorded (`None` on a shared clock).
     pub slips: Option<SlipRecord>,
+    /// Slips that reach the output inside its analysis record (see [`RecordSlips`]; `None` on a shared clock).
+    pub record_slips: Option<RecordSlips>,
     /// Packets lost by the chain's networks, and the instants they should have played (the first
     /// [`LOSS_TIMES_MAX`](crate::stages::network::LOSS_TIMES_MAX), in time order).
     pub packets_lost: u64,
@@ -153,6 +159,7 @@ impl RunOutput {
             dac_modulator_overloads: self.dac_modulator_overloads,
             bits_flipped: self.bits_flipped,
             slips: self.slips.as_ref(),
+            record_slips: self.record_slips,
             packets_lost: self.packets_lost,
             packet_loss_times_s: &self.packet_loss_times_s,
             out_rate_hz: self.plan.out_rate_hz,
@@ -844,7 +851,7 @@ fn run_with(
         plan.out_band_hz.min(tb.rate_hz / 4.0) / 10.0,
     );
     let broadband_hz = plan.out_band_hz.min(tb.rate_hz / 4.0) / 10.0;
-    let hops = (0..n_hops)
+    let hops: Vec<HopSummary> = (0..n_hops)
         .map(|h| {
             let c = &chain.hops[h].converter;
             HopSummary {
@@ -858,10 +865,20 @@ fn run_with(
                     .sum(),
                 codes_clipped: hop_clipped[h],
                 slips: c.crossing.as_ref().map(|x| x.record().slips),
+                slip_times_s: c.crossing.as_ref().map(|x| x.record().slip_times_s.clone()),
                 packets_lost: c.code.iter().map(|l| l.packets_lost()).sum(),
             }
         })
         .collect();
+    let record_slips = slips_in_record(
+        chain
+            .hops
+            .iter()
+            .map(|h| h.converter.crossing.as_ref().map(|x| x.record())),
+        &hops,
+        output_record.t0_s(),
+        output_record.t0_s() + output_record.volts.len() as f64 / out_tb.rate_hz,
+    );
     let slips = combine_slips(
         chain
             .hops
@@ -895,6 +912,7 @@ fn run_with(
         modulator_stream,
         bits_flipped,
         slips,
+        record_slips,
         packets_lost,
         packet_loss_times_s,
         budget,
@@ -920,6 +938,50 @@ struct HopState {
     clipped_before_settle: Option<u64>,
 }
 
+/// The slips of the clock-crossing FIFOs that reach the output inside its analysis record.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize)]
+pub struct RecordSlips {
+    /// Slips counted inside the record.
+    pub count: u64,
+    /// A FIFO slipped more often than it kept instants and its last kept instant reaches the output before the
+    /// record ends: `count` is then a lower bound.
+    pub at_least: bool,
+}
+
+/// Count the slips that reach the output within `[t0_s, t1_s)`: each hop's slip instants (at its DAC's FIFO)
+/// moved on by the budgets of the hops after it (the analog stages right after its own DAC, tens of
+/// microseconds, left out). `fifos` and `hops` are in hop order. `None` when no hop crosses clocks.
+pub fn slips_in_record<'a>(
+    fifos: impl Iterator<Item = Option<&'a SlipRecord>>,
+    hops: &[HopSummary],
+    t0_s: f64,
+    t1_s: f64,
+) -> Option<RecordSlips> {
+    let mut out: Option<RecordSlips> = None;
+    for (h, rec) in fifos.enumerate() {
+        let Some(rec) = rec else { continue };
+        let later_s: f64 = hops.iter().skip(h + 1).map(|x| x.budget_s).sum();
+        let o = out.get_or_insert(RecordSlips {
+            count: 0,
+            at_least: false,
+        });
+        o.count += rec
+            .slip_times_s
+            .iter()
+            .filter(|&&t| (t0_s..t1_s).contains(&(t + later_s)))
+            .count() as u64;
+        let kept_all = rec.slips <= rec.slip_times_s.len() as u64;
+        let last = rec
+            .slip_times_s
+            .last()
+            .map_or(f64::NEG_INFINITY, |t| t + later_s);
+        if !kept_all && last < t1_s {
+            o.at_least = true;
+        }
+    }
+    out
+}
+
 /// The slip records of every hop's FIFO as one: counts summed, instants merged in time order (the first
 /// [`SLIP_TIMES_MAX`](crate::engine::clock::SLIP_TIMES_MAX)), the first FIFO's depth and fill. `None` when no hop
 /// crosses clocks.
@@ -932,10 +994,21 @@ fn combine_slips<'a>(records: impl Iterator<Item = &'a SlipRecord>) -> Option<Sl
                 o.slips += r.slips;
                 o.repeated += r.repeated;
                 o.dropped += r.dropped;
-                o.slip_times_s.extend_from_slice(&r.slip_times_s);
-                o.slip_times_s.sort_by(f64::total_cmp);
-                o.slip_times_s
-                    .truncate(crate::engine::clock::SLIP_TIMES_MAX);
+                let mut both: Vec<(f64, bool)> = o
+                    .slip_times_s
+                    .iter()
+                    .copied()
+                    .zip(o.slip_dropped.iter().copied())
+                    .chain(
+                        r.slip_times_s
+                            .iter()
+                            .copied()
+                            .zip(r.slip_dropped.iter().copied()),
+                    )
+                    .collect();
+                both.sort_by(|a, b| a.0.total_cmp(&b.0));
+                both.truncate(crate::engine::clock::SLIP_TIMES_MAX);
+                (o.slip_times_s, o.slip_dropped) = both.into_iter().unzip();
             }
         }
     }

@@ -29,6 +29,8 @@ pub struct RunRecords<'a> {
     pub bits_flipped: u64,
     /// The clock-crossing FIFO's record, when the DAC reads through one.
     pub slips: Option<&'a crate::engine::clock::SlipRecord>,
+    /// The slips that reach the output inside its analysis record.
+    pub record_slips: Option<crate::engine::pipeline::RecordSlips>,
     /// Packets lost by networks, and the instants they should have played (s).
     pub packets_lost: u64,
     pub packet_loss_times_s: &'a [f64],
@@ -157,6 +159,13 @@ pub struct LatencyMetrics {
     /// Their instants (s), the first [`crate::engine::clock::SLIP_TIMES_MAX`].
     #[serde(skip_serializing_if = "Option::is_none")]
     pub slip_times_s: Option<Vec<f64>>,
+    /// The slips that reach the output inside the analysis record (each a one-sample phase step that the
+    /// record's SINAD, THD and SNR include), and whether that count is a lower bound (more slips than
+    /// instants kept).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub slips_in_record: Option<u64>,
+    #[serde(skip_serializing_if = "std::ops::Not::not")]
+    pub slips_in_record_at_least: bool,
     /// Packets lost by the chain's networks (arrived after their playout instant; concealed).
     pub packets_lost: u64,
     /// The instants the lost packets should have started playing (run time, s; the first
@@ -477,6 +486,8 @@ pub fn measure_run(run: &RunRecords<'_>) -> Result<ChainMetrics> {
             flagged,
             slips: run.slips.map(|s| s.slips),
             slip_times_s: run.slips.map(|s| s.slip_times_s.clone()),
+            slips_in_record: run.record_slips.map(|r| r.count),
+            slips_in_record_at_least: run.record_slips.is_some_and(|r| r.at_least),
             packets_lost: run.packets_lost,
             packet_loss_times_s: run.packet_loss_times_s.to_vec(),
             over_time: None,

@@ -7,8 +7,8 @@ use crate::measure::chain::{ChainMetrics, SpectrumDetail};
 use crate::measure::latency::LatencyOverTime;
 use crate::measure::spectrum::SpectrumAnalyzer;
 use crate::report::plot::{
-    BudgetPlot, PathBudgetsPlot, Plot, PlotSummary, SpectrumPlot, StaticPlot, WaveformPlot, XyPlot,
-    render_png, render_svg,
+    BudgetPlot, FifoPlot, FifoTrace, PathBudgetsPlot, Plot, PlotSummary, SpectrumPlot, StaticPlot,
+    WaveformPlot, XyPlot, render_png, render_svg,
 };
 use crate::scenario::WindowKind;
 use crate::signal::waveform::Waveform;
@@ -104,6 +104,16 @@ pub fn default_window_s(run: &RunOutput, delay_s: Option<f64>) -> (f64, f64) {
     ((w1 - width).max(start), w1)
 }
 
+/// The legend's names of the converters whose samples and hold levels the waveform marks (the first hop's),
+/// when the chain has several hops: ("hop 1's ADC (its label)", "hop 1's DAC (its label)").
+fn first_hop_names(run: &RunOutput) -> Option<(String, String)> {
+    let c = run.chain.converter().filter(|_| run.chain.hops.len() > 1)?;
+    Some((
+        format!("hop 1's ADC ({})", c.quantizer_label),
+        format!("hop 1's DAC ({})", c.reconstructor_label),
+    ))
+}
+
 /// Waveform, output spectrum, ADC spectrum and latency budget.
 pub fn run_figures(
     run: &RunOutput,
@@ -180,16 +190,28 @@ pub fn run_figures(
         sample_instants_s: &s_t,
         sample_values_v: &s_v,
         staircase: (!st_t.is_empty()).then_some((&st_t[..], &st_v[..])),
+        converters: first_hop_names(run),
         measured_delay_s: Some(m.latency.measured_s),
         window_s: (t0, t1),
         sampled_trace,
         aligned_output: has_aligned.then_some(&aligned[..]),
     });
+    let hops_note = if run.chain.hops.len() > 1 {
+        format!(
+            " (with {} hops in series, the samples and hold levels marked are hop 1's; each later hop's DAC \
+             and the stages after it are the intermediate traces)",
+            run.chain.hops.len()
+        )
+    } else {
+        String::new()
+    };
     figs.push(figure(
         "waveform",
-        "Input (source) against output, with the ADC's samples on the signal it samples and the DAC's \
-         zero-order hold; below, the output shifted back by the measured delay over the input, and the error"
-            .into(),
+        format!(
+            "Input (source) against output, with the ADC's samples on the signal it samples and the DAC's \
+             zero-order hold{hops_note}; below, the output shifted back by the measured delay over the input, \
+             and the error"
+        ),
         &wave,
     )?);
 
@@ -257,10 +279,8 @@ pub fn run_figures(
     }
 
     // ---- the FIFO between clocks
-    if let Some(rec) = &run.slips
-        && !rec.fill.is_empty()
-    {
-        figs.push(fifo_figure(name, rec)?);
+    if let Some(plot) = fifo_plot(run) {
+        figs.push(fifo_figure(plot)?);
     }
 
     // ---- latency budget
@@ -452,41 +472,55 @@ pub fn path_figures(paths: &[PathShown<'_>], window_s: Option<(f64, f64)>) -> Re
     Ok(figs)
 }
 
-/// The fill of the FIFO between the codes' clock and the DAC's own over the run: its lowest and highest fill
-/// over each stretch of ticks, with the first slips marked.
-fn fifo_figure(name: &str, rec: &crate::engine::clock::SlipRecord) -> Result<Figure> {
-    let t: Vec<f64> = rec.fill.iter().map(|p| p.0).collect();
-    let lo: Vec<f64> = rec.fill.iter().map(|p| f64::from(p.1)).collect();
-    let hi: Vec<f64> = rec.fill.iter().map(|p| f64::from(p.2)).collect();
-    // At most MARKED slips, spread evenly over the ones recorded (first and last included).
-    const MARKED: usize = 24;
-    let n = rec.slip_times_s.len();
-    let shown: Vec<usize> = if n <= MARKED {
-        (0..n).collect()
-    } else {
-        (0..MARKED).map(|k| k * (n - 1) / (MARKED - 1)).collect()
-    };
-    let markers: Vec<(f64, String)> = shown
+/// The plot of every clock-crossing FIFO of the run (`fifo_fill`): one trace per hop whose DAC reads through a
+/// FIFO from another clock, named by the hop and its DAC, with that FIFO's own slips. `None` when no hop crosses
+/// clocks or no FIFO ticked.
+pub fn fifo_plot(run: &RunOutput) -> Option<FifoPlot<'_>> {
+    let fifos: Vec<FifoTrace<'_>> = run
+        .chain
+        .hops
         .iter()
-        .map(|&i| (rec.slip_times_s[i], format!("slip {}", i + 1)))
+        .enumerate()
+        .filter_map(|(i, h)| {
+            let rec = h.converter.crossing.as_ref()?.record();
+            Some(FifoTrace {
+                name: format!("hop {}: {}", i + 1, h.converter.reconstructor_label),
+                short: format!("hop {}", i + 1),
+                depth: rec.depth,
+                fill: &rec.fill,
+                slip_times_s: &rec.slip_times_s,
+                slip_dropped: &rec.slip_dropped,
+                slips: rec.slips,
+            })
+        })
         .collect();
-    let marked = markers.len();
+    if fifos.iter().all(|f| f.fill.is_empty()) {
+        return None;
+    }
+    Some(FifoPlot {
+        title: format!("{}: FIFO fill between clocks", run.scenario.name),
+        fifos,
+    })
+}
+
+/// The `fifo_fill` figure from [`fifo_plot`].
+fn fifo_figure(plot: FifoPlot<'_>) -> Result<Figure> {
+    let each = plot
+        .fifos
+        .iter()
+        .map(|f| format!("{} {} slips", f.short, f.slips))
+        .collect::<Vec<_>>()
+        .join(", ");
     figure(
         "fifo_fill",
         format!(
-            "Fill of the DAC's FIFO (depth {}) over the run, lowest and highest over each stretch of ticks: it \
-             drifts as the two clocks differ; a slip repeats a code when it runs empty or drops one when it is \
-             full ({} slips; {marked} of them marked, numbered, spread over the run)",
-            rec.depth, rec.slips
+            "Fill of each clock-crossing FIFO over the run, one trace per hop whose DAC reads through one (the \
+             trace covers the lowest and highest fill over each stretch of ticks): it drifts as the two clocks \
+             differ; a slip drops a code when the FIFO is full (a dot at its depth) or repeats one when it is \
+             empty (a dot at 0), marked on the trace of the hop where it happens and numbered in that hop's \
+             order ({each}; the instants are in report.json's hops and latency.slip_times_s)"
         ),
-        &Plot::Xy(XyPlot {
-            title: format!("{name}: FIFO fill between clocks"),
-            x_label: "time (s)".to_string(),
-            y_label: "codes in the FIFO".to_string(),
-            series: vec![("lowest", &t, &lo), ("highest", &t, &hi)],
-            log_x: false,
-            markers,
-        }),
+        &Plot::Fifo(plot),
     )
 }
 
@@ -684,6 +718,76 @@ pub fn static_figures(name: &str, st: &Static) -> Result<Vec<Figure>> {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// Two hops, each SAR at 48 kSPS feeding a DAC on a clock of its own (`ppm` against the codes), for
+    /// `duration`.
+    pub(crate) fn two_drifting_hops(ppm: [i32; 2], duration: &str) -> crate::scenario::Scenario {
+        let hop = |ppm: i32| {
+            format!(
+                "[[stage]]\nkind = \"sar_adc\"\nbits = 16\nrange = [\"-2 V\", \"2 V\"]\nclock = \"960 kHz\"\n\
+                 sample_rate = \"48 kHz\"\n\n[[stage]]\nkind = \"dac\"\nclock_ppm = {ppm}\n\n[[stage]]\n\
+                 kind = \"filter\"\nfamily = \"butterworth\"\norder = 4\ncutoff = \"20 kHz\"\n\n"
+            )
+        };
+        let text = format!(
+            "name = \"drift\"\n[simulation]\nanalog_rate = \"960 kHz\"\nduration = \"{duration}\"\nseed = 3\n\n\
+             [source]\nwaveform = \"sine\"\nfrequency = \"1 kHz\"\namplitude = \"1.5 V\"\n\n{}{}\
+             [analysis]\nband = \"15 kHz\"\n",
+            hop(ppm[0]),
+            hop(ppm[1])
+        );
+        crate::scenario::parse_str(&text, "drift.toml", std::path::Path::new(".")).unwrap()
+    }
+
+    #[test]
+    fn the_fifo_plot_carries_every_hops_fill_and_its_own_slips() {
+        // Hop 1's DAC 2000 ppm fast (its FIFO empties: repeats), hop 2's 1500 ppm slow (it fills: drops).
+        let sc = two_drifting_hops([2000, -1500], "300 ms");
+        let run = crate::engine::pipeline::run(&sc, None, &mut |_| {}).unwrap();
+        let plot = fifo_plot(&run).expect("two FIFOs");
+        assert_eq!(plot.fifos.len(), 2);
+        assert_eq!(run.hops.len(), 2);
+        for (k, (f, h)) in plot.fifos.iter().zip(&run.hops).enumerate() {
+            assert_eq!(f.name, format!("hop {}: {}", k + 1, h.dac));
+            assert!(!f.fill.is_empty());
+            assert_eq!(Some(f.slips), h.slips);
+            assert_eq!(Some(f.slip_times_s.to_vec()), h.slip_times_s);
+            // Drift over the run, less the headroom, within one slip (as tests/clocks.rs checks the counts):
+            // 2000e-6 x 48e3 x 0.3 - 3 = 25.8 and 1500e-6 x 48e3 x 0.3 - 4 = 17.6.
+            let want = [25.8, 17.6][k];
+            assert!(
+                (f.slips as f64 - want).abs() <= 1.0,
+                "hop {k}: {} slips",
+                f.slips
+            );
+            // Each slip sits on its own hop's trace: at 0 (repeated) for the fast DAC, at the depth for the
+            // slow one.
+            assert!(
+                f.slip_dropped.iter().all(|&d| d == (k == 1)),
+                "{:?}",
+                f.slip_dropped
+            );
+        }
+        // The whole run's slips are the hops' together.
+        let all = run.slips.as_ref().unwrap();
+        assert_eq!(all.slips, plot.fifos.iter().map(|f| f.slips).sum::<u64>());
+        let (_, summary) = crate::report::plot::render_svg(&Plot::Fifo(plot)).unwrap();
+        assert_eq!(summary.series, 2);
+        // The waveform names the hop whose converters it marks.
+        let m = crate::measure::chain::measure_run(&run.records()).unwrap();
+        let figs = run_figures(&run, &m, None).unwrap();
+        let wave = figs.iter().find(|f| f.name == "waveform").unwrap();
+        assert!(wave.caption.contains("hop 1's"), "{}", wave.caption);
+        assert!(
+            wave.summary
+                .labels
+                .iter()
+                .any(|l| l == "hop 1's DAC (stage.2 dac) hold levels"),
+            "{:?}",
+            wave.summary.labels
+        );
+        assert!(figs.iter().any(|f| f.name == "fifo_fill"));
+    }
 
     #[test]
     fn only_a_sine_gets_tone_figures_and_other_sources_say_what_the_spectrum_is() {

@@ -364,6 +364,29 @@ pub fn slip_line(l: &crate::measure::chain::LatencyMetrics) -> Option<String> {
     ))
 }
 
+/// The note on slips inside the analysis record, when there are any: each slip is a one-sample phase step of
+/// the output, so a record holding slips measures them as noise and distortion (a SINAD of tens of dB where
+/// the converters alone give far more).
+pub fn record_slips_note(l: &crate::measure::chain::LatencyMetrics) -> Option<String> {
+    let n = l.slips_in_record.filter(|n| *n > 0)?;
+    let (s, them) = if n == 1 && !l.slips_in_record_at_least {
+        ("", "it")
+    } else {
+        ("s", "them")
+    };
+    Some(format!(
+        "{}{n} clock slip{s} inside the analysis record: each is a one-sample phase step of the output, and the \
+         output's SNR, SINAD, ENOB and THD include {them}; put a resample with mode = \"async\" before the \
+         DAC, give the converters the same clock_ppm, or choose simulation.settle and duration so the record \
+         holds no slip",
+        if l.slips_in_record_at_least {
+            "at least "
+        } else {
+            ""
+        }
+    ))
+}
+
 /// The summary printed by `convchain static`.
 pub fn static_summary(r: &StaticReport) -> String {
     let mut s = String::new();

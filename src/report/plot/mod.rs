@@ -14,10 +14,12 @@
 //!
 //! Files: this one holds the public data types, the SI labels and `render`; `painter.rs` the palette, font
 //! and drawing primitives; `axis.rs` axes, ticks and the frame; `reduce.rs` the per-column reduction; one file
-//! per figure (`waveform.rs`, `spectrum.rs`, `static_transfer.rs`, `budget.rs`, `xy.rs`, `histogram.rs`, `panels.rs`).
+//! per figure (`waveform.rs`, `spectrum.rs`, `static_transfer.rs`, `budget.rs`, `xy.rs`, `histogram.rs`, `panels.rs`,
+//! `fifo.rs`).
 
 mod axis;
 mod budget;
+mod fifo;
 mod histogram;
 mod painter;
 mod panels;
@@ -35,6 +37,7 @@ use crate::Error;
 use crate::format::units::{self, SiPrefix, SiStyle, si_prefix_for_span, unit_takes_prefix};
 
 use budget::{draw_budget, draw_path_budgets};
+use fifo::draw_fifo;
 use histogram::draw_histogram;
 use painter::{Painter, draw_err, ensure_font};
 use panels::draw_panels;
@@ -89,6 +92,10 @@ pub struct WaveformPlot<'a> {
     pub sample_values_v: &'a [f64],
     /// DAC zero-order-hold levels: (update instants in s, levels in V), drawn as a step line.
     pub staircase: Option<(&'a [f64], &'a [f64])>,
+    /// Whose samples and hold levels these are, for the legend when the chain has several hops: (the ADC's
+    /// name, the DAC's name), e.g. ("hop 1's ADC (studio SAR)", "hop 1's DAC (repeater DAC)"); `None`: "the
+    /// ADC" and "DAC".
+    pub converters: Option<(String, String)>,
     /// Measured input-to-output delay, s: shown as a note and as an arrow between a rising crossing of the
     /// input and the same level one delay later.
     pub measured_delay_s: Option<f64>,
@@ -198,6 +205,36 @@ pub struct XyPlot<'a> {
     pub markers: Vec<(f64, String)>,
 }
 
+/// The fill of every clock-crossing FIFO over the run: one trace per FIFO, each FIFO's slips marked on its own
+/// trace (a dropped code at its depth, a repeated one at zero) and numbered in lanes above and below the traces;
+/// slips too close to label apart are labelled together ("slips 3-7"), and those with no room left are
+/// counted in a note.
+#[derive(Debug, Clone)]
+pub struct FifoPlot<'a> {
+    /// Title drawn above the plot.
+    pub title: String,
+    pub fifos: Vec<FifoTrace<'a>>,
+}
+
+/// One FIFO of a [`FifoPlot`].
+#[derive(Debug, Clone)]
+pub struct FifoTrace<'a> {
+    /// Legend name ("hop 2: transmitter DAC").
+    pub name: String,
+    /// Prefix of its slip labels when several FIFOs share the plot ("hop 2").
+    pub short: String,
+    /// Depth (codes).
+    pub depth: u32,
+    /// (instant in s, lowest fill, highest fill) over each stretch of ticks.
+    pub fill: &'a [(f64, u32, u32)],
+    /// Instants of the recorded slips, s, in time order.
+    pub slip_times_s: &'a [f64],
+    /// For each recorded slip: a code dropped (the FIFO full) rather than repeated (empty).
+    pub slip_dropped: &'a [bool],
+    /// Slips counted (may exceed the recorded instants).
+    pub slips: u64,
+}
+
 /// A histogram: one bar per bin.
 #[derive(Debug, Clone)]
 pub struct HistogramPlot<'a> {
@@ -261,6 +298,8 @@ pub enum Plot<'a> {
     PathBudgets(PathBudgetsPlot<'a>),
     /// Generic x-y chart.
     Xy(XyPlot<'a>),
+    /// Clock-crossing FIFOs' fill with their slips.
+    Fifo(FifoPlot<'a>),
     /// Histogram bars.
     Histogram(HistogramPlot<'a>),
     /// Stacked panels with a table.
@@ -415,6 +454,7 @@ fn draw_plot<DB: DrawingBackend>(
         Plot::Budget(b) => draw_budget(&mut p, b)?,
         Plot::PathBudgets(b) => draw_path_budgets(&mut p, b)?,
         Plot::Xy(x) => draw_xy(&mut p, x)?,
+        Plot::Fifo(f) => draw_fifo(&mut p, f)?,
         Plot::Histogram(h) => draw_histogram(&mut p, h)?,
         Plot::Panels(s) => draw_panels(&mut p, s)?,
     }

@@ -111,6 +111,8 @@ pub(super) enum Key {
     Shade(RGBColor),
     /// A short vertical tick (marks along an axis).
     Tick(RGBColor),
+    /// No key: the entry is a note.
+    None,
 }
 
 /// Thin wrapper over a backend: pixel-space primitives plus the running summary.
@@ -434,6 +436,11 @@ impl<'b, DB: DrawingBackend> Painter<'b, DB> {
         let (mut x, mut yy) = (x0, y + row_h / 2);
         for (name, key) in entries {
             let tw = self.text_width(name, 0.9);
+            let key_w = if matches!(key, Key::None) {
+                -gap
+            } else {
+                key_w
+            };
             let need = key_w + gap + tw;
             if x > x0 && x + need > x0 + w {
                 x = x0;
@@ -454,6 +461,7 @@ impl<'b, DB: DrawingBackend> Painter<'b, DB> {
                     let r = self.fpx(0.4);
                     self.rect((x, yy - r), (x + key_w, yy + r), rgba(c, 0.25), true)?;
                 }
+                Key::None => {}
             }
             self.label(
                 name,

@@ -125,6 +125,7 @@ fn waveform(d: &WaveData) -> Plot<'_> {
         sample_instants_s: &d.instants[..96],
         sample_values_v: &d.values[..96],
         staircase: Some((&d.stair_t, &d.stair_l)),
+        converters: None,
         measured_delay_s: Some(50e-6),
         window_s: (0.0, 2e-3),
         sampled_trace: 0,
@@ -218,6 +219,7 @@ fn long_waveform_keeps_its_spike_in_the_drawing() {
         sample_instants_s: &[],
         sample_values_v: &[],
         staircase: None,
+        converters: None,
         measured_delay_s: None,
         window_s: (0.0, 1.0),
         sampled_trace: 0,
@@ -659,6 +661,7 @@ fn bad_inputs_are_refused() {
             sample_instants_s: &[0.0],
             sample_values_v: vals,
             staircase: None,
+            converters: None,
             measured_delay_s: None,
             window_s: window,
             sampled_trace: 0,
@@ -705,6 +708,7 @@ fn million_point_waveform_and_spectrum_render_quickly() {
         sample_instants_s: &[],
         sample_values_v: &[],
         staircase: None,
+        converters: None,
         measured_delay_s: Some(1e-5),
         window_s: (0.0, 1.0),
         sampled_trace: 0,
@@ -740,7 +744,13 @@ fn gallery_is_written_for_a_visual_check() {
     let (t, dn, i) = static_data();
     let lines = budget_lines();
     let xyd = xy_data();
+    let fifos = [
+        fifo_data(0, 1000, false),
+        fifo_data(8, 1000, true),
+        fifo_data(0, 300, false),
+    ];
     let plots = [
+        ("fifo_fill", fifo_plot(&fifos)),
         ("waveform", waveform(&d)),
         ("spectrum", spectrum(&levels, false)),
         ("spectrum_log", spectrum(&levels, true)),
@@ -777,6 +787,8 @@ fn gallery_is_written_for_a_visual_check() {
     for (name, plot) in &plots {
         let (png_bytes, _) = render_png(plot, 1200, 750).unwrap();
         std::fs::write(dir.join(format!("{name}.png")), png_bytes).unwrap();
+        let (png_bytes, _) = render_png(plot, 500, 320).unwrap();
+        std::fs::write(dir.join(format!("{name}_small.png")), png_bytes).unwrap();
         let (svg, _) = render_svg(plot).unwrap();
         std::fs::write(dir.join(format!("{name}.svg")), svg).unwrap();
     }
@@ -823,4 +835,136 @@ fn path_budgets_render_each_paths_stages_and_its_measured_total_on_one_axis() {
         paths: Vec::new(),
     });
     assert!(render_svg(&bad).is_err());
+}
+
+// ---- the clock-crossing FIFOs' fill ----
+
+/// One FIFO's data for [`FifoPlot`]: a fill drifting from 4 codes to `to` over 1 s (500 stretches), and `n`
+/// slips spread evenly over the second half, all drops (at the depth) or all repeats (at 0).
+struct FifoData {
+    fill: Vec<(f64, u32, u32)>,
+    times: Vec<f64>,
+    dropped: Vec<bool>,
+}
+
+fn fifo_data(to: u32, n: usize, dropped: bool) -> FifoData {
+    let fill = (0..500)
+        .map(|i| {
+            let t = i as f64 / 500.0;
+            let level = (4.0 + (to as f64 - 4.0) * (2.0 * t).min(1.0)).round() as u32;
+            (
+                t,
+                level.saturating_sub(1).max(if dropped { 1 } else { 0 }),
+                level,
+            )
+        })
+        .collect();
+    let times = (0..n).map(|k| 0.5 + 0.5 * k as f64 / n as f64).collect();
+    FifoData {
+        fill,
+        times,
+        dropped: vec![dropped; n],
+    }
+}
+
+fn fifo_plot<'a>(d: &'a [FifoData]) -> Plot<'a> {
+    Plot::Fifo(FifoPlot {
+        title: "two hops: FIFO fill between clocks".into(),
+        fifos: d
+            .iter()
+            .enumerate()
+            .map(|(k, f)| FifoTrace {
+                name: format!("hop {}: DAC {}", k + 1, k + 1),
+                short: format!("hop {}", k + 1),
+                depth: 8,
+                fill: &f.fill,
+                slip_times_s: &f.times,
+                slip_dropped: &f.dropped,
+                slips: f.times.len() as u64,
+            })
+            .collect(),
+    })
+}
+
+/// Slips each hop's labels name ("hop 2: slips 3-7" names 5), and those the note counts as not labelled.
+fn labelled_slips(labels: &[String], hops: usize) -> (Vec<usize>, usize) {
+    let mut per_hop = vec![0; hops];
+    let mut unlabelled = 0;
+    for l in labels {
+        if let Some(rest) = l.strip_prefix('+')
+            && rest.contains("not labelled")
+        {
+            unlabelled += rest.split(' ').next().unwrap().parse::<usize>().unwrap();
+        }
+        let Some((hop, what)) = l.strip_prefix("hop ").and_then(|r| r.split_once(": slip")) else {
+            continue;
+        };
+        let k: usize = hop.parse().unwrap();
+        let range = what.trim_start_matches('s').trim();
+        let n = match range.split_once('-') {
+            Some((a, b)) => b.parse::<usize>().unwrap() + 1 - a.parse::<usize>().unwrap(),
+            None => 1,
+        };
+        per_hop[k - 1] += n;
+    }
+    (per_hop, unlabelled)
+}
+
+#[test]
+fn fifo_fill_draws_one_trace_per_hop_with_each_hops_slips_on_it() {
+    let d = [fifo_data(0, 5, false), fifo_data(8, 8, true)];
+    let plot = fifo_plot(&d);
+    let (svg, summary) = check_svg(&plot, 2);
+    assert_eq!(count(&svg, "<polyline"), 2);
+    // Every slip is a dot (they lie far apart here).
+    assert_eq!(summary.markers, 5 + 8);
+    for l in [
+        "hop 1: DAC 1 (depth 8, 5 slips)",
+        "hop 2: DAC 2 (depth 8, 8 slips)",
+        "codes in the FIFO",
+    ] {
+        assert!(
+            summary.labels.iter().any(|s| s == l),
+            "missing {l}: {:?}",
+            summary.labels
+        );
+    }
+    // Every slip is named by a label of its own hop, none twice.
+    let (per_hop, unlabelled) = labelled_slips(&summary.labels, 2);
+    assert_eq!(
+        (per_hop, unlabelled),
+        (vec![5, 8], 0),
+        "{:?}",
+        summary.labels
+    );
+    assert_no_label_overlaps(&summary);
+    check_png(&plot, palette::VERMILLION);
+}
+
+#[test]
+fn crowded_fifo_slips_are_all_marked_and_labelled_or_counted_never_overlapping() {
+    // 1000 slips per FIFO (the most a FIFO records) on small and large pictures: the labels group and thin
+    // out, but every slip is either named by a label or counted in the note, and no labels collide.
+    let d = [
+        fifo_data(0, 1000, false),
+        fifo_data(8, 1000, true),
+        fifo_data(0, 300, false),
+    ];
+    let plot = fifo_plot(&d);
+    for (w, h) in [(400, 260), (1200, 750)] {
+        let (_, summary) = render_png(&plot, w, h).unwrap();
+        assert_eq!(summary.series, 3);
+        assert!(summary.markers > 0 && summary.markers <= 2300);
+        assert_no_label_overlaps(&summary);
+        let (per_hop, unlabelled) = labelled_slips(&summary.labels, 3);
+        assert_eq!(
+            per_hop.iter().sum::<usize>() + unlabelled,
+            2300,
+            "{w} x {h}: {per_hop:?} + {unlabelled}: {:?}",
+            summary.labels
+        );
+        assert!(per_hop.iter().all(|&n| n > 0), "{per_hop:?}");
+    }
+    let (_, summary) = render_svg(&plot).unwrap();
+    assert_no_label_overlaps(&summary);
 }

@@ -137,7 +137,8 @@ pub(super) fn draw_waveform<DB: DrawingBackend>(
         entries.push((name.to_string(), Key::Line(c, width)));
     }
     if stair_pts.is_some() {
-        entries.push(("DAC hold levels".to_string(), Key::Line(palette::ORANGE, 1)));
+        let dac = w.converters.as_ref().map_or("DAC", |c| c.1.as_str());
+        entries.push((format!("{dac} hold levels"), Key::Line(palette::ORANGE, 1)));
     }
     // Markers are drawn only while they can be told apart: every sample when few, else every k-th.
     let stride = samples.len().div_ceil(MAX_MARKERS).max(1);
@@ -148,7 +149,10 @@ pub(super) fn draw_waveform<DB: DrawingBackend>(
             format!(", every {}", ordinal(stride))
         };
         entries.push((
-            format!("sampled by the ADC{every}"),
+            format!(
+                "sampled by {}{every}",
+                w.converters.as_ref().map_or("the ADC", |c| c.0.as_str())
+            ),
             Key::Circle(palette::BLACK),
         ));
         entries.push((
