@@ -39,7 +39,7 @@ use crate::stages::kind::{
     Ablation, BuildContext, KeyEdit, KindSpec, Param, ParamKind, ReadContext, Role, Runtime,
     Upstream, mechanism,
 };
-use crate::stages::roles::{BudgetLine, Reconstructor};
+use crate::stages::roles::{BudgetLine, DcStaticInfo, Reconstructor};
 use crate::stages::sar_adc::MAX_BITS;
 
 /// How the element's unit elements are chosen for a level.
@@ -463,6 +463,16 @@ impl Reconstructor for DeltaSigmaDac {
     }
     fn overloads(&self) -> Option<u64> {
         Some(self.modulator.overloads())
+    }
+    fn dc_static(&self) -> Option<DcStaticInfo> {
+        Some(DcStaticInfo {
+            stable_half_span_v: 0.5 * (self.cfg.range_v.1 - self.cfg.range_v.0),
+            settle_words: self
+                .design
+                .settle_words(self.cfg.shaping.oversampling, self.cfg.shaping.cic_order),
+            clock_hz: self.f_mod_hz,
+            word_rate_hz: self.fs_hz,
+        })
     }
     fn budget(&self, update_rate_hz: f64, f_hz: f64) -> Vec<BudgetLine> {
         let taps = self.design.fir.taps.len();
