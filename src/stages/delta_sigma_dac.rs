@@ -371,7 +371,7 @@ impl DeltaSigmaDac {
                 .zip(&self.fir_phase_taps[p])
                 .map(|(a, b)| a * b)
                 .sum();
-            acc = (y * CIC_ONE).round() as i64;
+            acc = crate::stages::delta_sigma::round_half_away(y * CIC_ONE) as i64;
             for c in &mut self.comb {
                 let prev = *c;
                 *c = acc;
@@ -389,12 +389,18 @@ impl DeltaSigmaDac {
         let on: f64 = match self.cfg.element_selection {
             Selection::Fixed => self.weights[..i].iter().sum(),
             Selection::Dwa => {
+                // Elements pointer, pointer + 1, ... wrapping at n_el, summed in that order.
                 let mut s = 0.0;
-                for k in 0..i {
-                    s += self.weights[(self.pointer + k) % n_el];
+                let mut p = self.pointer;
+                for _ in 0..i {
+                    s += self.weights[p];
+                    p += 1;
+                    if p == n_el {
+                        p = 0;
+                    }
                 }
                 if n_el > 0 {
-                    self.pointer = (self.pointer + i) % n_el;
+                    self.pointer = p;
                 }
                 s
             }
