@@ -203,7 +203,8 @@ pub const MAX_ORDER: usize = 8;
 /// exact.
 #[inline]
 pub fn round_half_away(x: f64) -> f64 {
-    if !(x.abs() < 4_503_599_627_370_496.0) {
+    // NaN and |x| >= 2^52 (already whole) go to the library.
+    if x.is_nan() || x.abs() >= 4_503_599_627_370_496.0 {
         return x.round();
     }
     let t = (x as i64) as f64;
