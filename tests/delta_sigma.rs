@@ -147,20 +147,38 @@ fn an_inconsistent_clock_is_refused_with_its_location() {
 }
 
 #[test]
-fn static_tests_refuse_it_and_say_why() {
+fn static_tests_measure_its_dc_transfer() {
+    // The DC-transfer test replaces the per-code ones: static.json holds adc_dc_transfer and dac_dc_transfer,
+    // with no DNL or missing codes (they do not apply), and the INL plots are written.
     let d = tempfile::tempdir().unwrap();
+    let out = d.path().join("s");
     let o = run(&[
         "static",
         repo("scenarios/field-recorder.toml").to_str().unwrap(),
         "--out",
-        d.path().join("s").to_str().unwrap(),
+        out.to_str().unwrap(),
     ]);
-    assert_eq!(o.status.code(), Some(2));
+    assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
+    let table = String::from_utf8_lossy(&o.stdout).to_string();
     assert!(
-        stderr(&o).contains("delta-sigma converter does not have"),
-        "{}",
-        stderr(&o)
+        table.contains("ADC (DC transfer)")
+            && table.contains("DNL and missing codes: do not apply"),
+        "{table}"
     );
+    let j: serde_json::Value =
+        serde_json::from_str(&fs::read_to_string(out.join("static.json")).unwrap()).unwrap();
+    let s = &j["static"];
+    assert!(s["adc"].is_null() && s["dac"].is_null());
+    for k in ["adc_dc_transfer", "dac_dc_transfer"] {
+        let t = &s[k];
+        let n = t["level_v"].as_array().unwrap().len();
+        assert!(n >= 25, "{k}: {n} levels");
+        assert_eq!(t["inl_bestfit_ppm"].as_array().unwrap().len(), n);
+        assert!(t["inl_max_ppm"].as_f64().unwrap().is_finite());
+        assert!(t.get("dnl_max_lsb").is_none() && t.get("missing_codes").is_none());
+    }
+    assert!(s["adc_dc_transfer"]["noise_free_bits"].as_f64().unwrap() > 10.0);
+    assert!(out.join("static_adc_dc.png").exists() && out.join("static_dac_dc.png").exists());
 }
 
 #[test]

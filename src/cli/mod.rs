@@ -128,7 +128,8 @@ enum Command {
         #[arg(long)]
         out: Option<PathBuf>,
     },
-    /// Static tests: the ADC (slow ramp and code-density test) and the DAC (every code stepped).
+    /// Static tests: the ADC (slow ramp and code-density test) and the DAC (every code stepped); delta-sigma
+    /// converters by their DC transfer (DC levels averaged after the filters settle).
     Static {
         /// Scenario file (TOML). Without it, the embedded demo scenario.
         scenario: Option<PathBuf>,

@@ -21,7 +21,11 @@ impl Probe for ExactProbe<'_> {
 /// A ring buffer of the most recent grid samples of a stream, with cubic interpolation.
 pub struct GridHistory {
     rate_hz: f64,
+    /// Samples kept: the logical capacity (what is held and clamped to).
+    cap: usize,
+    /// Storage of `cap` rounded up to a power of two, indexed by `n & mask` (no division per read).
     ring: Vec<f64>,
+    mask: u64,
     /// Grid index of the next sample to be pushed (all indices below it, down to `next - ring.len()`, are kept).
     next: u64,
 }
@@ -29,9 +33,13 @@ pub struct GridHistory {
 impl GridHistory {
     /// Keep at least `capacity` samples.
     pub fn new(rate_hz: f64, capacity: usize) -> Self {
+        let cap = capacity.max(8);
+        let size = cap.next_power_of_two();
         GridHistory {
             rate_hz,
-            ring: vec![0.0; capacity.max(8)],
+            cap,
+            ring: vec![0.0; size],
+            mask: size as u64 - 1,
             next: 0,
         }
     }
@@ -39,10 +47,9 @@ impl GridHistory {
     /// Append the grid samples starting at index `n0` (must equal the next expected index).
     pub fn push_block(&mut self, n0: u64, block: &[f64]) {
         debug_assert_eq!(n0, self.next, "grid history must be fed consecutively");
-        let cap = self.ring.len() as u64;
         for (i, &v) in block.iter().enumerate() {
             let n = n0 + i as u64;
-            self.ring[(n % cap) as usize] = v;
+            self.ring[(n & self.mask) as usize] = v;
         }
         self.next = n0 + block.len() as u64;
     }
@@ -57,25 +64,26 @@ impl GridHistory {
 
     /// The earliest instant still held.
     pub fn earliest_time_s(&self) -> f64 {
-        let first = self.next.saturating_sub(self.ring.len() as u64) + 1;
+        let first = self.next.saturating_sub(self.cap as u64) + 1;
         first as f64 / self.rate_hz
     }
 
     fn sample(&self, n: i64) -> f64 {
         // Clamp to what is held: before the first sample the stream is taken as its first value.
-        let oldest = self.next.saturating_sub(self.ring.len() as u64) as i64;
+        let oldest = self.next.saturating_sub(self.cap as u64) as i64;
         let newest = self.next as i64 - 1;
         let n = n.clamp(oldest, newest.max(oldest));
-        self.ring[(n as u64 % self.ring.len() as u64) as usize]
+        self.ring[(n as u64 & self.mask) as usize]
     }
 }
 
 impl Probe for GridHistory {
     fn value_at(&self, t_s: f64) -> f64 {
         let x = t_s * self.rate_hz;
-        let i = x.floor();
-        let u = x - i;
-        let i = i as i64;
+        // floor(x) without a library call (exact for |x| < 2^63: the conversion truncates toward zero).
+        let t = x as i64;
+        let i = if (t as f64) > x { t - 1 } else { t };
+        let u = x - i as f64;
         let (p0, p1, p2, p3) = (
             self.sample(i - 1),
             self.sample(i),

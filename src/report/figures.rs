@@ -712,6 +712,37 @@ pub fn static_figures(name: &str, st: &Static) -> Result<Vec<Figure>> {
             }),
         )?);
     }
+    for (file, who, d) in [
+        ("static_adc_dc", "ADC", &st.adc_dc_transfer),
+        ("static_dac_dc", "DAC", &st.dac_dc_transfer),
+    ] {
+        if let Some(d) = d {
+            let lin = &d.linearity;
+            let x_label = if d.code.is_empty() {
+                "DC input level (V)"
+            } else {
+                "held code's ideal output (V)"
+            };
+            figs.push(figure(
+                file,
+                format!(
+                    "{who}: INL of the DC transfer against the level (ppm of full scale), best-fit and end-point lines; each level averaged over {} words after its filters settle",
+                    d.average_words
+                ),
+                &Plot::Xy(XyPlot {
+                    title: format!("{name}: {who} DC transfer, INL"),
+                    x_label: x_label.into(),
+                    y_label: "INL (ppm of full scale)".into(),
+                    series: vec![
+                        ("best-fit line", &d.level_v, &lin.inl_bestfit_ppm),
+                        ("end-point line", &d.level_v, &lin.inl_endpoint_ppm),
+                    ],
+                    log_x: false,
+                    markers: Vec::new(),
+                }),
+            )?);
+        }
+    }
     Ok(figs)
 }
 

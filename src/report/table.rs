@@ -391,11 +391,13 @@ pub fn record_slips_note(l: &crate::measure::chain::LatencyMetrics) -> Option<St
 pub fn static_summary(r: &StaticReport) -> String {
     let mut s = String::new();
     let _ = writeln!(s, "{}  static tests", r.scenario);
-    let _ = writeln!(
-        s,
-        "  {:<22}{:>12}{:>12}{:>10}{:>11}",
-        "", "DNL max", "INL max", "missing", "monotonic"
-    );
+    if r.stat.adc.is_some() || r.stat.dac.is_some() {
+        let _ = writeln!(
+            s,
+            "  {:<22}{:>12}{:>12}{:>10}{:>11}",
+            "", "DNL max", "INL max", "missing", "monotonic"
+        );
+    }
     let mut row = |name: &str, x: &crate::measure::static_test::StaticResult| {
         let _ = writeln!(
             s,
@@ -413,6 +415,14 @@ pub fn static_summary(r: &StaticReport) -> String {
     }
     if let Some(d) = &r.stat.dac {
         row("DAC (every code)", &d.result);
+    }
+    for (name, d) in [
+        ("ADC", &r.stat.adc_dc_transfer),
+        ("DAC", &r.stat.dac_dc_transfer),
+    ] {
+        if let Some(d) = d {
+            dc_transfer_lines(&mut s, name, d);
+        }
     }
     if let Some(a) = &r.stat.adc
         && a.code_density.missing_codes > 0
@@ -436,6 +446,58 @@ pub fn static_summary(r: &StaticReport) -> String {
         }
     }
     s
+}
+
+/// The lines of a delta-sigma converter's DC-transfer test.
+fn dc_transfer_lines(s: &mut String, name: &str, d: &crate::engine::static_bench::DcTransfer) {
+    let l = &d.linearity;
+    let what = if d.code.is_empty() {
+        "DC levels"
+    } else {
+        "held codes"
+    };
+    let _ = writeln!(
+        s,
+        "  {name} (DC transfer): {} {what} within +-{} of mid-range, {} words averaged each",
+        d.level_v.len() + d.overloaded_levels_v.len(),
+        si(d.stable_half_span_v, "V"),
+        d.average_words
+    );
+    let _ = writeln!(
+        s,
+        "    offset {:+.3} ppm FS ({:+.2} LSB), gain error {:+.3} ppm",
+        l.offset_ppm, l.offset_lsb, l.gain_error_ppm
+    );
+    let _ = writeln!(
+        s,
+        "    INL max {:.3} ppm FS ({:.1} LSB) best fit, {:.3} ppm FS ({:.1} LSB) end point",
+        l.inl_max_ppm, l.inl_max_lsb, l.inl_endpoint_max_ppm, l.inl_endpoint_max_lsb
+    );
+    let err = d.mean_error_lsb.iter().fold(0.0f64, |a, &b| a.max(b));
+    let _ = writeln!(
+        s,
+        "    each level's mean known to {err:.1} LSB (standard error, largest)"
+    );
+    if let (Some(n), Some(e), Some(f)) = (
+        d.noise_rms_max_lsb,
+        d.effective_resolution_bits,
+        d.noise_free_bits,
+    ) {
+        let _ = writeln!(
+            s,
+            "    noise {n:.2} LSB rms (largest): {e:.1} effective bits, {f:.1} noise-free bits"
+        );
+    }
+    if d.overloads > 0 {
+        let lv: Vec<String> = d.overloaded_levels_v.iter().map(|v| si(*v, "V")).collect();
+        let _ = writeln!(
+            s,
+            "    the loop overloaded {} times, at {} (left out of the fit)",
+            d.overloads,
+            lv.join(", ")
+        );
+    }
+    let _ = writeln!(s, "    DNL and missing codes: {}", d.dnl_and_missing_codes);
 }
 
 /// "network: N packets lost (concealed), the first at T": for the table and the reports.

@@ -181,12 +181,13 @@ pub fn design_ntf(order: usize, osr: f64, max_gain: f64, spread_zeros: bool) -> 
 /// [-1, 1] (2 levels: +-1).
 #[derive(Debug, Clone)]
 pub struct Modulator {
-    /// Numerator of NTF - 1 (c[k] multiplies z^-(k + 1)).
-    c: Vec<f64>,
-    /// Denominator a[1 ..].
-    a: Vec<f64>,
-    /// Transposed direct-form state.
-    d: Vec<f64>,
+    /// Numerator of NTF - 1 (c[k] multiplies z^-(k + 1)); entries past the order are 0.
+    c: [f64; MAX_ORDER],
+    /// Denominator a[1 ..]; entries past the order are 0.
+    a: [f64; MAX_ORDER],
+    /// Transposed direct-form state (entry `order` stays 0).
+    d: [f64; MAX_ORDER + 1],
+    order: usize,
     levels: u32,
     step: f64,
     limit: f64,
@@ -195,15 +196,47 @@ pub struct Modulator {
     peak_w: f64,
 }
 
+/// The highest loop order a [`Modulator`] takes (the kinds read 1 to 5).
+pub const MAX_ORDER: usize = 8;
+
+/// `x.round()` (half away from zero) without a library call: exact for |x| < 2^52, where `x - trunc(x)` is
+/// exact.
+#[inline]
+pub fn round_half_away(x: f64) -> f64 {
+    // NaN and |x| >= 2^52 (already whole) go to the library.
+    if x.is_nan() || x.abs() >= 4_503_599_627_370_496.0 {
+        return x.round();
+    }
+    let t = (x as i64) as f64;
+    let f = x - t;
+    if f >= 0.5 {
+        t + 1.0
+    } else if f <= -0.5 {
+        t - 1.0
+    } else {
+        // Keep the sign of a zero as round() does (-0.3 rounds to -0).
+        if t == 0.0 { 0.0f64.copysign(x) } else { t }
+    }
+}
+
 impl Modulator {
+    /// # Panics
+    /// If the NTF's order exceeds [`MAX_ORDER`].
     pub fn new(ntf: &Ntf, levels: u32) -> Modulator {
         let order = ntf.a.len() - 1;
-        let c: Vec<f64> = (1..=order).map(|k| ntf.b[k] - ntf.a[k]).collect();
+        assert!(order <= MAX_ORDER, "loop order {order} above {MAX_ORDER}");
+        let mut c = [0.0; MAX_ORDER];
+        let mut a = [0.0; MAX_ORDER];
+        for k in 1..=order {
+            c[k - 1] = ntf.b[k] - ntf.a[k];
+            a[k - 1] = ntf.a[k];
+        }
         let step = 2.0 / f64::from(levels.max(2) - 1);
         Modulator {
             c,
-            a: ntf.a[1..].to_vec(),
-            d: vec![0.0; order + 1],
+            a,
+            d: [0.0; MAX_ORDER + 1],
+            order,
             levels: levels.max(2),
             step,
             limit: 1.0 + 4.0 * step,
@@ -228,7 +261,7 @@ impl Modulator {
         self.peak_w = self.peak_w.max(w.abs());
         let i = self.index(w);
         let e = self.level(i) - w;
-        let n = self.c.len();
+        let n = self.order;
         for k in 0..n {
             self.d[k] = self.d[k + 1] + self.c[k] * e - self.a[k] * f;
         }
@@ -237,7 +270,7 @@ impl Modulator {
 
     #[inline]
     fn index(&self, w: f64) -> u32 {
-        let i = ((w + 1.0) / self.step).round();
+        let i = round_half_away((w + 1.0) / self.step);
         i.clamp(0.0, f64::from(self.levels - 1)) as u32
     }
 
@@ -313,6 +346,45 @@ pub fn max_stable_amplitude(ntf: &Ntf, levels: u32, osr: f64) -> f64 {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn round_half_away_is_round_bit_for_bit() {
+        // f64::round (half away from zero) is the reference; halves, their neighbours, signed zeros, large and
+        // non-finite values.
+        let mut xs = vec![
+            0.0,
+            -0.0,
+            0.5,
+            -0.5,
+            1.5,
+            -1.5,
+            2.5,
+            -2.5,
+            0.49999999999999994,
+            -0.49999999999999994,
+        ];
+        xs.extend([
+            4503599627370495.5,
+            -4503599627370495.5,
+            1e300,
+            -1e300,
+            f64::INFINITY,
+            f64::NEG_INFINITY,
+        ]);
+        for k in -4000..4000 {
+            let x = k as f64 * 0.25;
+            xs.extend([
+                x,
+                f64::from_bits(x.to_bits() + 1),
+                f64::from_bits(x.to_bits().wrapping_sub(1)),
+            ]);
+            xs.push(k as f64 * 0.0137);
+        }
+        for x in xs {
+            assert_eq!(round_half_away(x).to_bits(), x.round().to_bits(), "{x}");
+        }
+        assert!(round_half_away(f64::NAN).is_nan());
+    }
 
     #[test]
     fn legendre_roots_match_the_gauss_nodes() {

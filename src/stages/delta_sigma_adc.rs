@@ -35,7 +35,7 @@ use crate::stages::multirate::{
     CicDecimator, DesignedFir, FirDecimator, LowpassSpec, cic_magnitude, design_lowpass,
     fir_phase_delay_samples, minimum_phase,
 };
-use crate::stages::roles::{BudgetLine, Hold, Quantizer};
+use crate::stages::roles::{BudgetLine, DcStaticInfo, Hold, Quantizer};
 use crate::stages::sample_hold::SampleHold;
 
 /// The decimation FIR's phase.
@@ -115,6 +115,17 @@ pub struct Design {
     /// The delay of the linear-phase design, in word periods: the CIC's and the linear FIR's (taps - 1)/2. With
     /// `filter_phase = "minimum"` it is what linear phase would have given.
     pub linear_delay_out: f64,
+}
+
+impl Design {
+    /// The words the filters take to settle after a step: twice the CIC's and the FIR's impulse responses,
+    /// and 16 more.
+    pub fn settle_words(&self, oversampling: u32, cic_order: u32) -> usize {
+        let osr = f64::from(oversampling);
+        let cic = f64::from(cic_order) * self.cic_factor as f64 / osr;
+        let fir = self.fir.taps.len() as f64 / self.fir_factor as f64;
+        (2.0 * (cic + fir)).ceil() as usize + 16
+    }
 }
 
 fn design(cfg: &Shaping) -> Arc<Design> {
@@ -687,6 +698,17 @@ impl Quantizer for DeltaSigmaQuantizer {
     }
     fn modulator_stream(&self) -> Option<(f64, Vec<f64>)> {
         Some((self.cfg.modulator_clock_hz(), self.stream.ordered()))
+    }
+    fn dc_static(&self) -> Option<DcStaticInfo> {
+        let half = 0.5 * (self.cfg.range_v.1 - self.cfg.range_v.0);
+        Some(DcStaticInfo {
+            stable_half_span_v: self.design.max_stable * half,
+            settle_words: self
+                .design
+                .settle_words(self.cfg.shaping.oversampling, self.cfg.shaping.cic_order),
+            clock_hz: self.cfg.modulator_clock_hz(),
+            word_rate_hz: self.cfg.sample_rate_hz,
+        })
     }
     fn bits(&self) -> u32 {
         self.cfg.bits

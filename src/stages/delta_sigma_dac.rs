@@ -39,7 +39,7 @@ use crate::stages::kind::{
     Ablation, BuildContext, KeyEdit, KindSpec, Param, ParamKind, ReadContext, Role, Runtime,
     Upstream, mechanism,
 };
-use crate::stages::roles::{BudgetLine, Reconstructor};
+use crate::stages::roles::{BudgetLine, DcStaticInfo, Reconstructor};
 use crate::stages::sar_adc::MAX_BITS;
 
 /// How the element's unit elements are chosen for a level.
@@ -364,7 +364,7 @@ impl DeltaSigmaDac {
                 .zip(&self.fir_phase_taps[p])
                 .map(|(a, b)| a * b)
                 .sum();
-            acc = (y * CIC_ONE).round() as i64;
+            acc = crate::stages::delta_sigma::round_half_away(y * CIC_ONE) as i64;
             for c in &mut self.comb {
                 let prev = *c;
                 *c = acc;
@@ -382,12 +382,18 @@ impl DeltaSigmaDac {
         let on: f64 = match self.cfg.element_selection {
             Selection::Fixed => self.weights[..i].iter().sum(),
             Selection::Dwa => {
+                // Elements pointer, pointer + 1, ... wrapping at n_el, summed in that order.
                 let mut s = 0.0;
-                for k in 0..i {
-                    s += self.weights[(self.pointer + k) % n_el];
+                let mut p = self.pointer;
+                for _ in 0..i {
+                    s += self.weights[p];
+                    p += 1;
+                    if p == n_el {
+                        p = 0;
+                    }
                 }
                 if n_el > 0 {
-                    self.pointer = (self.pointer + i) % n_el;
+                    self.pointer = p;
                 }
                 s
             }
@@ -456,6 +462,16 @@ impl Reconstructor for DeltaSigmaDac {
     }
     fn overloads(&self) -> Option<u64> {
         Some(self.modulator.overloads())
+    }
+    fn dc_static(&self) -> Option<DcStaticInfo> {
+        Some(DcStaticInfo {
+            stable_half_span_v: 0.5 * (self.cfg.range_v.1 - self.cfg.range_v.0),
+            settle_words: self
+                .design
+                .settle_words(self.cfg.shaping.oversampling, self.cfg.shaping.cic_order),
+            clock_hz: self.f_mod_hz,
+            word_rate_hz: self.fs_hz,
+        })
     }
     fn budget(&self, update_rate_hz: f64, f_hz: f64) -> Vec<BudgetLine> {
         let taps = self.design.fir.taps.len();

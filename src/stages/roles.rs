@@ -15,6 +15,21 @@ pub struct BudgetLine {
     pub seconds: f64,
 }
 
+/// What the static bench needs of an oversampling (delta-sigma) converter, which has no per-code transitions to
+/// find: its DC transfer is measured instead, level by level, after its filters settle.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct DcStaticInfo {
+    /// Largest input (ADC) or output (DAC) swing about mid-range the loop takes without overloading (V): the
+    /// ADC's reported largest stable amplitude; the DAC's full scale (it scales its words into the stable range).
+    pub stable_half_span_v: f64,
+    /// Words the filters take to settle after a step (twice their impulse responses' length, and a margin).
+    pub settle_words: usize,
+    /// The modulator clock (Hz).
+    pub clock_hz: f64,
+    /// The converter's word rate (Hz).
+    pub word_rate_hz: f64,
+}
+
 /// A sample-and-hold owned by the quantizer after it.
 pub trait Hold: Send {
     /// Acquire the input for nominal instant `t_nominal_s` and return the held value.
@@ -64,6 +79,11 @@ pub trait Quantizer: Send {
     }
     /// Times a noise-shaping loop overloaded (`None` for converters without one).
     fn overloads(&self) -> Option<u64> {
+        None
+    }
+    /// For an oversampling converter, what its DC-transfer static test needs (`None`: a converter with code
+    /// transitions, tested by its code density and a slow ramp).
+    fn dc_static(&self) -> Option<DcStaticInfo> {
         None
     }
     /// The last stretch of a noise-shaping loop's output at its clock: (clock in Hz, levels with full scale
@@ -129,6 +149,11 @@ pub trait Reconstructor: Send {
     }
     /// Times a noise-shaping loop overloaded (`None` for DACs without one).
     fn overloads(&self) -> Option<u64> {
+        None
+    }
+    /// For an oversampling DAC, what its DC-transfer static test needs (`None`: a DAC whose every code has a
+    /// settled level, [`Reconstructor::level_v`]).
+    fn dc_static(&self) -> Option<DcStaticInfo> {
         None
     }
 }

@@ -452,6 +452,26 @@ fn classify(e: f64, m: f64, band: f64, sr: f64) -> Region {
     }
 }
 
+/// `x.exp_m1()`, recalled when the same `x` came last on this thread: an amplifier stepped on a uniform grid
+/// asks for the same grid step over its time constant at every sample (the same bits either way).
+#[inline]
+fn expm1_recalled(x: f64) -> f64 {
+    use std::cell::Cell;
+    thread_local! {
+        static LAST: Cell<(u64, f64)> = const { Cell::new((f64::NAN.to_bits(), f64::NAN)) };
+    }
+    LAST.with(|last| {
+        let (bits, y) = last.get();
+        if bits == x.to_bits() {
+            y
+        } else {
+            let y = x.exp_m1();
+            last.set((x.to_bits(), y));
+            y
+        }
+    })
+}
+
 /// One closed-form piece of the output trajectory, in local time `s` from its start.
 #[derive(Debug, Clone, Copy)]
 enum Piece {
@@ -497,7 +517,7 @@ impl Piece {
                     v0 + slope * s
                 }
             }
-            Piece::Exp { v0, m, tau, c, .. } => v0 + m * s - c * (-s / tau).exp_m1(),
+            Piece::Exp { v0, m, tau, c, .. } => v0 + m * s - c * expm1_recalled(-s / tau),
         }
     }
 
