@@ -257,8 +257,8 @@ pub fn dac_from_levels(levels_v: &[f64], ideal_zero_v: f64, ideal_lsb_v: f64) ->
 /// are characterised: their words are far finer than any per-code transition a bench could find, so DNL and
 /// missing codes do not apply; linearity is the averaged output against the input level.
 ///
-/// Definitions (IEEE Std 1241-2010, the static gain and offset and the integral non-linearity clauses, 4.5 and
-/// 4.6 as we recall them, from memory): with `x_j` the input levels and `y_j` the averaged outputs, both in volts
+/// Definitions (IEEE Std 1241-2010, its static gain and offset and integral non-linearity definitions; the clause
+/// numbers not checked, from memory): with `x_j` the input levels and `y_j` the averaged outputs, both in volts
 /// of the converter's ideal transfer (an ideal converter gives `y = x`), the independently based (least-squares)
 /// line `y ~ a + b x` gives the offset `a` (the output at a zero input less the ideal one, positive when the
 /// converter reads high) and the gain error `b - 1`; the terminal-based (end-point) line passes through the first
