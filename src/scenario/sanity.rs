@@ -87,6 +87,24 @@ fn tone_inside_band(map: &SourceMap<'_>, root: &Table, sc: &Scenario) -> Result<
     Ok(())
 }
 
+/// The nominal rate of the codes at each stage (Hz): the last converter's sample rate before it, or the last
+/// `resample`'s output rate; None before the first converter. With hops in series each hop's code stages run at
+/// their own converter's rate.
+fn code_rates(sc: &Scenario) -> Vec<Option<f64>> {
+    let mut fs = None;
+    sc.stages
+        .iter()
+        .map(|s| {
+            if let Some(t) = s.kind.quantizer_timing() {
+                fs = Some(t.sample_rate_hz);
+            } else if let StageKind::Resample(r) = &s.kind {
+                fs = Some(r.rate_hz);
+            }
+            fs
+        })
+        .collect()
+}
+
 /// The code stages' delays (a link's delay and frame wait, a buffer's blocks, a codec's frame, a network's packet,
 /// delay and jitter buffer) come off the ADC record (the output must have received every recorded
 /// code): when they leave fewer than [`MIN_CONVERSIONS`] of conversions that fit in the analysis window,
@@ -108,14 +126,15 @@ fn links_leave_a_record(
     let mut transport_s = 0.0;
     // (stage number, seconds, the key that holds most of them)
     let mut worst: Option<(usize, f64, &'static str)> = None;
-    for (i, s) in sc.stages.iter().enumerate() {
+    for ((i, s), fs_here) in sc.stages.iter().enumerate().zip(code_rates(sc)) {
         if s.kind.role() != Role::Code {
             continue;
         }
-        let t = s.kind.transport_s(fs);
+        let fs_here = fs_here.unwrap_or(fs);
+        let t = s.kind.transport_s(fs_here);
         transport_s += t;
         let key = match &s.kind {
-            StageKind::Link(l) if l.delay_s >= f64::from(l.frame) / fs => "delay",
+            StageKind::Link(l) if l.delay_s >= f64::from(l.frame) / fs_here => "delay",
             StageKind::Link(_) => "frame",
             StageKind::Network(n) if n.delay_s >= n.jitter_buffer_s && n.delay_s >= n.packet_s => {
                 "delay"
@@ -157,18 +176,15 @@ fn links_leave_a_record(
         )))
 }
 
-/// A network's packet holds round(packet x fs) codes at the ADC's rate: at least one.
+/// A network's packet holds round(packet x fs) codes at the rate of the codes it carries (its hop's converter,
+/// or the `resample` before it): at least one.
 fn network_packets_hold_a_code(
     map: &SourceMap<'_>,
     root: &Table,
     sc: &Scenario,
 ) -> Result<(), ScenarioError> {
-    let Some(adc) = sc.stages.iter().find_map(|s| s.kind.quantizer_timing()) else {
-        return Ok(());
-    };
-    let fs = adc.sample_rate_hz;
-    for (i, s) in sc.stages.iter().enumerate() {
-        if let StageKind::Network(n) = &s.kind
+    for ((i, s), fs) in sc.stages.iter().enumerate().zip(code_rates(sc)) {
+        if let (StageKind::Network(n), Some(fs)) = (&s.kind, fs)
             && n.codes_per_packet(fs) == 0
         {
             let path = format!("stage.{}.packet", i + 1);
@@ -177,7 +193,7 @@ fn network_packets_hold_a_code(
                     &span_of(root, &path),
                     &path,
                     format!(
-                        "the packet ({}) is shorter than one sample at the ADC's {} ({}); a packet carries \
+                        "the packet ({}) is shorter than one sample of the codes it carries ({}, {}); a packet carries \
                          round(packet x sample rate) codes, at least one",
                         format_si(n.packet_s, "s"),
                         format_si(fs, "Hz"),
@@ -578,5 +594,32 @@ mod tests {
         // A held input is read once, at the sampling instant: the clock does not matter to the grid.
         let held = "clock = \"1 MHz\"\ncycles = 14\nsample_rate = \"48 kHz\"";
         assert!(slips(&chain("480 kHz", "", held, "")).is_empty());
+    }
+
+    /// Two hops: a first ADC at `fs1`, a second at `fs2`, a network of `packet` in the second hop.
+    fn two_hops_with_a_network(fs1: &str, fs2: &str, packet: &str) -> String {
+        format!(
+            "name = \"t\"\n[simulation]\nanalog_rate = \"4 MHz\"\nduration = \"60 ms\"\nsettle = \"10 ms\"\n\
+             [source]\nwaveform = \"sine\"\nfrequency = \"100 Hz\"\namplitude = \"1 V\"\n\
+             [[stage]]\nkind = \"sar_adc\"\nbits = 12\nrange = [\"-2 V\", \"2 V\"]\nsample_rate = \"{fs1}\"\nconversion_time = \"500 ns\"\n\
+             [[stage]]\nkind = \"dac\"\n\
+             [[stage]]\nkind = \"sar_adc\"\nbits = 12\nrange = [\"-2 V\", \"2 V\"]\nsample_rate = \"{fs2}\"\nconversion_time = \"500 ns\"\n\
+             [[stage]]\nkind = \"network\"\npacket = \"{packet}\"\ndelay = \"1 ms\"\n\
+             [[stage]]\nkind = \"dac\"\n"
+        )
+    }
+
+    #[test]
+    fn a_network_packet_is_judged_at_the_rate_of_its_own_hops_codes() {
+        let parse = |t: &str| crate::scenario::parse_str(t, "t.toml", Path::new("."));
+        // 50 us holds 50 codes at the first hop's 1 MHz but none at the second hop's 8 kHz, which it carries.
+        let text = two_hops_with_a_network("1 MHz", "8 kHz", "50 us");
+        let e = parse(&text).unwrap_err().to_string();
+        assert!(e.contains("stage.4.packet"), "{e}");
+        assert!(e.contains("8 kHz"), "{e}");
+        // The other way round, 5 us holds 5 codes at the second hop's 1 MHz: no error (the first hop's 8 kHz
+        // would have refused it).
+        let text = two_hops_with_a_network("8 kHz", "1 MHz", "5 us");
+        parse(&text).unwrap();
     }
 }
